@@ -1,0 +1,1 @@
+"""The HTTP layer: app factory, routers, schemas, dependencies and error mapping."""

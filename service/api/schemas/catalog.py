@@ -1,0 +1,270 @@
+"""The catalog as uploaded (catalog.md), validated field by field, then turned into the domain."""
+
+from collections import Counter
+from datetime import date
+from typing import Annotated, Literal
+
+import pycountry
+from pydantic import Field, field_validator, model_validator
+
+from service.api.schemas.common import (
+    CountryCode,
+    Fraction,
+    Identifier,
+    NonNegativeFloat,
+    NonNegativeInt,
+    PositiveFloat,
+    PositiveInt,
+    Strict,
+    Utilisation,
+)
+from service.domain import catalog as domain
+
+
+def _known_country(code: str) -> str:
+    if pycountry.countries.get(alpha_2=code) is None:
+        raise ValueError(f"{code!r} is not an ISO 3166-1 alpha-2 country code")
+    return code
+
+
+class Finance(Strict):
+    cost_of_capital_annual: Annotated[float, Field(ge=0, le=1, allow_inf_nan=False)] = 0.08
+
+
+class AcceleratorIn(Strict):
+    id: Identifier
+    memory_gb: PositiveFloat
+    peak_tflops: dict[str, PositiveFloat] = Field(min_length=1, description="by precision, e.g. bf16")
+    utilisation: Utilisation = Field(description="model- or hardware-FLOPs utilisation, in (0, 1]")
+
+
+class NodeTypeIn(Strict):
+    id: Identifier
+    accelerator: Identifier
+    accelerators_per_node: PositiveInt
+    intra_node_gbps: PositiveFloat
+    network_gbps: PositiveFloat
+    power_kw_peak: PositiveFloat
+    power_kw_idle: NonNegativeFloat
+    checkpoint_write_gbps: PositiveFloat
+    mtbf_hours: PositiveFloat | None = None
+    measured_relative_speed: dict[str, PositiveFloat] = Field(default_factory=dict)
+
+    @model_validator(mode="after")
+    def _idle_below_peak(self) -> "NodeTypeIn":
+        if self.power_kw_idle > self.power_kw_peak:
+            raise ValueError("power_kw_idle must not exceed power_kw_peak")
+        return self
+
+
+class CapexIn(Strict):
+    node_price: PositiveFloat
+    network_per_node: NonNegativeFloat = 0.0
+    storage_per_node: NonNegativeFloat = 0.0
+    install_per_node: NonNegativeFloat = 0.0
+
+
+class ColocationIn(Strict):
+    kind: Literal["colocation"]
+    price_per_kw_month: NonNegativeFloat
+
+
+class OwnedHallIn(Strict):
+    kind: Literal["owned"]
+    capex_per_kw: NonNegativeFloat
+    life_years: PositiveFloat
+    fixed_cost_per_year: NonNegativeFloat = 0.0
+
+
+class SiteIn(Strict):
+    id: Identifier
+    name: str = ""
+    jurisdiction: CountryCode
+    node_type: Identifier
+    nodes_owned: NonNegativeInt
+    nodes_max: NonNegativeInt
+    network_path: Literal["overlay", "direct", "rdma"] = "rdma"
+    path_efficiency: Annotated[float, Field(gt=0, le=1)] | None = None
+    capex: CapexIn
+    depreciation_months: PositiveInt
+    residual_fraction: Fraction = 0.0
+    maintenance_fraction_per_year: Fraction = 0.0
+    staff_cost_per_node_year: NonNegativeFloat = 0.0
+    facility: Annotated[ColocationIn | OwnedHallIn, Field(discriminator="kind")]
+    pue: Annotated[float, Field(ge=1, le=5)]
+    electricity_price_per_kwh: NonNegativeFloat
+    grid_kgco2e_per_kwh: NonNegativeFloat = 0.0
+    power_capacity_kw: PositiveFloat | None = None
+    cooling_capacity_kw: PositiveFloat | None = None
+    utilisation_planned: Utilisation
+    utilisation_current: Fraction = 0.0
+
+    _country = field_validator("jurisdiction")(_known_country)
+
+    @model_validator(mode="after")
+    def _fleet_within_site(self) -> "SiteIn":
+        if self.nodes_owned > self.nodes_max:
+            raise ValueError("nodes_owned must not exceed nodes_max")
+        return self
+
+
+class CommittedIn(Strict):
+    months: PositiveInt
+    per_accelerator_hour: PositiveFloat
+    upfront_fraction: Fraction = 0.0
+
+
+class InterruptibleIn(Strict):
+    per_accelerator_hour: PositiveFloat
+    mean_hours_between_interruptions: PositiveFloat
+
+
+class OfferIn(Strict):
+    id: Identifier
+    provider: str = Field(min_length=1, max_length=200)
+    region: str = Field(min_length=1, max_length=100)
+    jurisdiction: CountryCode
+    node_type: Identifier
+    nodes_max: PositiveInt
+    network_path: Literal["overlay", "direct", "rdma"] = "direct"
+    path_efficiency: Annotated[float, Field(gt=0, le=1)] | None = None
+    on_demand_per_accelerator_hour: PositiveFloat | None = None
+    committed: list[CommittedIn] = Field(default_factory=list)
+    interruptible: InterruptibleIn | None = None
+    storage_per_gb_month: NonNegativeFloat = 0.0
+    ingress_per_gb: NonNegativeFloat = 0.0
+    egress_per_gb: NonNegativeFloat = 0.0
+    ingress_gbps: PositiveFloat | None = None
+    pue: Annotated[float, Field(ge=1, le=5)] | None = None
+    grid_kgco2e_per_kwh: NonNegativeFloat | None = None
+
+    _country = field_validator("jurisdiction")(_known_country)
+
+    @model_validator(mode="after")
+    def _some_term(self) -> "OfferIn":
+        if self.on_demand_per_accelerator_hour is None and not self.committed and self.interruptible is None:
+            raise ValueError("an offer needs at least one of on_demand_per_accelerator_hour, committed, "
+                             "interruptible")
+        months = [c.months for c in self.committed]
+        if len(months) != len(set(months)):
+            raise ValueError("committed terms must have distinct months")
+        return self
+
+
+class CatalogIn(Strict):
+    name: str = Field(min_length=1, max_length=200)
+    currency: Annotated[str, Field(pattern=r"^[A-Z]{3}$", description="ISO 4217 code")]
+    effective_from: date | None = None
+    jurisdiction_groups: dict[str, list[CountryCode]] = Field(default_factory=dict)
+    finance: Finance = Field(default_factory=Finance)
+    accelerators: list[AcceleratorIn] = Field(min_length=1)
+    node_types: list[NodeTypeIn] = Field(min_length=1)
+    sites: list[SiteIn] = Field(default_factory=list)
+    offers: list[OfferIn] = Field(default_factory=list)
+
+    @field_validator("currency")
+    @classmethod
+    def _known_currency(cls, code: str) -> str:
+        if pycountry.currencies.get(alpha_3=code) is None:
+            raise ValueError(f"{code!r} is not an ISO 4217 currency code")
+        return code
+
+    @field_validator("jurisdiction_groups")
+    @classmethod
+    def _group_codes(cls, groups: dict[str, list[str]]) -> dict[str, list[str]]:
+        for name, codes in groups.items():
+            if len(name) == 2 and name.isupper():
+                raise ValueError(f"group {name!r} would shadow a country code; use a longer name")
+            for code in codes:
+                _known_country(code)
+        return groups
+
+    @model_validator(mode="after")
+    def _references(self) -> "CatalogIn":
+        problems: list[str] = []
+        for kind, items in (("accelerators", self.accelerators), ("node_types", self.node_types),
+                            ("sites", self.sites), ("offers", self.offers)):
+            for ident, count in Counter(item.id for item in items).items():
+                if count > 1:
+                    problems.append(f"{kind}: id {ident!r} appears {count} times")
+        for shared in sorted({s.id for s in self.sites} & {o.id for o in self.offers}):
+            problems.append(f"sites and offers share the id {shared!r}; venue ids must be unique")
+        accelerators = {a.id for a in self.accelerators}
+        node_types = {n.id for n in self.node_types}
+        for i, n in enumerate(self.node_types):
+            if n.accelerator not in accelerators:
+                problems.append(f"node_types[{i}].accelerator: unknown accelerator {n.accelerator!r}")
+            for ref in n.measured_relative_speed:
+                if ref not in node_types:
+                    problems.append(f"node_types[{i}].measured_relative_speed: unknown node type {ref!r}")
+        for kind, venues in (("sites", self.sites), ("offers", self.offers)):
+            for i, v in enumerate(venues):
+                if v.node_type not in node_types:
+                    problems.append(f"{kind}[{i}].node_type: unknown node type {v.node_type!r}")
+        for i, s in enumerate(self.sites):
+            if isinstance(s.facility, OwnedHallIn) and s.power_capacity_kw is None and s.facility.fixed_cost_per_year:
+                problems.append(f"sites[{i}].power_capacity_kw: an owned hall's fixed cost is shared by "
+                                "its power capacity, so it must be given")
+        if problems:
+            raise ValueError("; ".join(problems))
+        return self
+
+    def to_domain(self) -> domain.Catalog:
+        accelerators = {
+            a.id: domain.Accelerator(a.id, a.memory_gb, dict(a.peak_tflops), a.utilisation)
+            for a in self.accelerators
+        }
+        node_types = {
+            n.id: domain.NodeType(
+                id=n.id, accelerator=accelerators[n.accelerator],
+                accelerators_per_node=n.accelerators_per_node, intra_node_gbps=n.intra_node_gbps,
+                network_gbps=n.network_gbps, power_kw_peak=n.power_kw_peak, power_kw_idle=n.power_kw_idle,
+                checkpoint_write_gbps=n.checkpoint_write_gbps, mtbf_hours=n.mtbf_hours,
+                measured_relative_speed=dict(n.measured_relative_speed))
+            for n in self.node_types
+        }
+        sites = tuple(_site(s, node_types) for s in self.sites)
+        offers = tuple(_offer(o, node_types) for o in self.offers)
+        return domain.Catalog(
+            name=self.name, currency=self.currency,
+            cost_of_capital_annual=self.finance.cost_of_capital_annual,
+            accelerators=accelerators, node_types=node_types, sites=sites, offers=offers,
+            jurisdiction_groups={k: tuple(v) for k, v in self.jurisdiction_groups.items()},
+            effective_from=None if self.effective_from is None else self.effective_from.isoformat(),
+        )
+
+
+def _site(s: SiteIn, node_types: dict[str, domain.NodeType]) -> domain.Site:
+    facility: domain.Facility
+    if isinstance(s.facility, ColocationIn):
+        facility = domain.Colocation(s.facility.price_per_kw_month)
+    else:
+        facility = domain.OwnedHall(s.facility.capex_per_kw, s.facility.life_years, s.facility.fixed_cost_per_year)
+    return domain.Site(
+        id=s.id, name=s.name, jurisdiction=s.jurisdiction, node_type=node_types[s.node_type],
+        nodes_owned=s.nodes_owned, nodes_max=s.nodes_max, network_path=s.network_path,
+        path_efficiency=s.path_efficiency,
+        capex=domain.NodeCapex(s.capex.node_price, s.capex.network_per_node, s.capex.storage_per_node,
+                               s.capex.install_per_node),
+        depreciation_months=s.depreciation_months, residual_fraction=s.residual_fraction,
+        maintenance_fraction_per_year=s.maintenance_fraction_per_year,
+        staff_cost_per_node_year=s.staff_cost_per_node_year, facility=facility, pue=s.pue,
+        electricity_price_per_kwh=s.electricity_price_per_kwh, grid_kgco2e_per_kwh=s.grid_kgco2e_per_kwh,
+        power_capacity_kw=s.power_capacity_kw, cooling_capacity_kw=s.cooling_capacity_kw,
+        utilisation_planned=s.utilisation_planned, utilisation_current=s.utilisation_current,
+    )
+
+
+def _offer(o: OfferIn, node_types: dict[str, domain.NodeType]) -> domain.Offer:
+    return domain.Offer(
+        id=o.id, provider=o.provider, region=o.region, jurisdiction=o.jurisdiction,
+        node_type=node_types[o.node_type], nodes_max=o.nodes_max, network_path=o.network_path,
+        path_efficiency=o.path_efficiency, on_demand_per_accelerator_hour=o.on_demand_per_accelerator_hour,
+        committed=tuple(domain.CommittedTerm(c.months, c.per_accelerator_hour, c.upfront_fraction)
+                        for c in o.committed),
+        interruptible=None if o.interruptible is None else domain.InterruptibleTerm(
+            o.interruptible.per_accelerator_hour, o.interruptible.mean_hours_between_interruptions),
+        storage_per_gb_month=o.storage_per_gb_month, ingress_per_gb=o.ingress_per_gb,
+        egress_per_gb=o.egress_per_gb, ingress_gbps=o.ingress_gbps, pue=o.pue,
+        grid_kgco2e_per_kwh=o.grid_kgco2e_per_kwh,
+    )

@@ -1,0 +1,169 @@
+"""The quote request (api.md), validated field by field, then turned into the domain."""
+
+from typing import Annotated, Literal
+
+from pydantic import Field, model_validator
+
+from service.api.schemas.common import (
+    Fraction,
+    Identifier,
+    NonNegativeFloat,
+    PositiveFloat,
+    PositiveInt,
+    Strict,
+    Utilisation,
+)
+from service.domain import campaign as domain
+
+Term = Literal["owned_chargeback", "owned_new_build", "on_demand", "committed", "interruptible"]
+
+
+class TransformerWorkIn(Strict):
+    kind: Literal["transformer"]
+    parameters: PositiveFloat = Field(description="trainable parameters N")
+    tokens: PositiveFloat = Field(description="training tokens D per run")
+    layers: PositiveInt | None = None
+    d_model: PositiveInt | None = None
+    sequence_length: PositiveInt | None = None
+    attention_heads: PositiveInt | None = None
+    precision: str = Field("bf16", min_length=1, max_length=20)
+    activation_recompute: Literal["none", "selective", "full"] = "none"
+    global_batch_tokens: PositiveFloat | None = None
+    micro_batch_sequences: PositiveInt | None = None
+
+    @model_validator(mode="after")
+    def _architecture_complete(self) -> "TransformerWorkIn":
+        given = [self.layers is not None, self.d_model is not None, self.sequence_length is not None]
+        if any(given) and not all(given):
+            raise ValueError("layers, d_model and sequence_length go together: give all three or none")
+        return self
+
+
+class FlopsWorkIn(Strict):
+    kind: Literal["flops"]
+    total_flops: PositiveFloat = Field(description="model FLOPs of one run")
+    parameters: PositiveFloat | None = Field(None, description="for memory and communication")
+    precision: str = Field("bf16", min_length=1, max_length=20)
+    activation_recompute: Literal["none", "selective", "full"] = "none"
+    global_batch_tokens: PositiveFloat | None = None
+
+
+class MeasuredWorkIn(Strict):
+    kind: Literal["measured"]
+    reference_node_type: Identifier
+    samples: PositiveFloat
+    samples_per_second_per_accelerator: PositiveFloat
+    parameters: PositiveFloat | None = Field(None, description="for memory and communication")
+    precision: str = Field("bf16", min_length=1, max_length=20)
+    activation_recompute: Literal["none", "selective", "full"] = "none"
+    global_batch_tokens: PositiveFloat | None = None
+
+
+WorkIn = Annotated[TransformerWorkIn | FlopsWorkIn | MeasuredWorkIn, Field(discriminator="kind")]
+
+
+class RunsIn(Strict):
+    count: PositiveInt = 1
+    exploration_fraction: NonNegativeFloat = 0.0
+    evaluation_fraction: NonNegativeFloat = 0.0
+
+
+class RecurrenceIn(Strict):
+    every_months: PositiveFloat
+    for_months: PositiveFloat
+
+    @model_validator(mode="after")
+    def _at_least_once(self) -> "RecurrenceIn":
+        if self.for_months < self.every_months:
+            raise ValueError("for_months must be at least every_months")
+        return self
+
+
+class DataIn(Strict):
+    dataset_tb: NonNegativeFloat = 0.0
+    checkpoint_tb: PositiveFloat | None = None
+    checkpoints_kept: PositiveInt = 1
+    results_egress_tb: NonNegativeFloat = 0.0
+    allowed_jurisdictions: list[Annotated[str, Field(min_length=2, max_length=40)]] | None = Field(
+        None, description="ISO 3166-1 alpha-2 codes and names of the catalog's jurisdiction groups")
+    home: Identifier | None = Field(None, description="the venue where the dataset lives")
+    owned_only: bool = False
+
+
+class CampaignIn(Strict):
+    name: str = Field(min_length=1, max_length=200)
+    team: str = Field(min_length=1, max_length=100)
+    work: WorkIn
+    runs: RunsIn = Field(default_factory=RunsIn)
+    recurrence: RecurrenceIn | None = None
+    parallelism: Literal["auto", "replicated", "sharded"] = "auto"
+    deadline_days: PositiveFloat | None = None
+    data: DataIn = Field(default_factory=DataIn)
+
+
+class OptionsIn(Strict):
+    terms: list[Term] = Field(
+        default_factory=lambda: list(domain.ALL_TERMS), min_length=1)
+    max_accelerators: PositiveInt | None = None
+    fixed_accelerators: PositiveInt | None = None
+    utilisation_basis: Literal["model", "hardware"] = "model"
+    rank_by: Literal["cost", "wall_clock", "carbon"] = "cost"
+
+
+class OverridesIn(Strict):
+    """Catalog values replaced for this request; sweeps vary them as `overrides.<name>`."""
+
+    utilisation: Utilisation | None = Field(None, description="every accelerator's utilisation")
+    electricity_price_per_kwh: NonNegativeFloat | None = Field(None, description="every owned site")
+    on_demand_price_factor: PositiveFloat | None = Field(None, description="multiplies on-demand prices")
+    rented_price_factor: PositiveFloat | None = Field(None, description="multiplies every rented price")
+    pue: Annotated[float, Field(ge=1, le=5)] | None = Field(None, description="every owned site")
+    cost_of_capital_annual: Annotated[float, Field(ge=0, le=1)] | None = None
+    node_price_factor: PositiveFloat | None = Field(None, description="multiplies owned node prices")
+    utilisation_planned: Utilisation | None = Field(None, description="every owned site's plan")
+    grid_kgco2e_per_kwh: NonNegativeFloat | None = Field(None, description="every owned site")
+    mtbf_hours: PositiveFloat | None = Field(None, description="every node type")
+    network_gbps: PositiveFloat | None = Field(None, description="every node type's node link")
+
+
+class QuoteRequestIn(Strict):
+    catalog_id: str | None = Field(None, description="default: the newest catalog")
+    campaign: CampaignIn
+    options: OptionsIn = Field(default_factory=OptionsIn)
+    overrides: OverridesIn = Field(default_factory=OverridesIn)
+
+    def to_domain(self) -> tuple[domain.Campaign, domain.QuoteOptions, domain.Overrides]:
+        c = self.campaign
+        w = c.work
+        work: domain.Work
+        if isinstance(w, TransformerWorkIn):
+            work = domain.TransformerWork(w.parameters, w.tokens, w.layers, w.d_model, w.sequence_length,
+                                          w.attention_heads)
+        elif isinstance(w, FlopsWorkIn):
+            work = domain.FlopsWork(w.total_flops, w.parameters)
+        else:
+            work = domain.MeasuredWork(w.reference_node_type, w.samples, w.samples_per_second_per_accelerator,
+                                       w.parameters)
+        campaign = domain.Campaign(
+            name=c.name, team=c.team, work=work,
+            training=domain.Training(
+                precision=w.precision, activation_recompute=w.activation_recompute,
+                global_batch_tokens=w.global_batch_tokens,
+                micro_batch_sequences=getattr(w, "micro_batch_sequences", None)),
+            runs=domain.Runs(c.runs.count, c.runs.exploration_fraction, c.runs.evaluation_fraction),
+            recurrence=None if c.recurrence is None else domain.Recurrence(
+                c.recurrence.every_months, c.recurrence.for_months),
+            parallelism=c.parallelism, deadline_days=c.deadline_days,
+            data=domain.DataPlan(
+                dataset_tb=c.data.dataset_tb, checkpoint_tb=c.data.checkpoint_tb,
+                checkpoints_kept=c.data.checkpoints_kept, results_egress_tb=c.data.results_egress_tb,
+                allowed_jurisdictions=None if c.data.allowed_jurisdictions is None
+                else tuple(c.data.allowed_jurisdictions),
+                home=c.data.home, owned_only=c.data.owned_only),
+        )
+        o = self.options
+        options = domain.QuoteOptions(
+            terms=tuple(dict.fromkeys(o.terms)), max_accelerators=o.max_accelerators,
+            fixed_accelerators=o.fixed_accelerators, utilisation_basis=o.utilisation_basis, rank_by=o.rank_by)
+        overrides = domain.Overrides(**self.overrides.model_dump())
+        return campaign, options, overrides

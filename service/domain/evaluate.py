@@ -1,0 +1,412 @@
+"""Evaluate a campaign on every venue and term of a catalog: the vectorised heart of a quote.
+
+One call handles any number of scenarios (arrays along axis 0); Python loops run only over
+venues and terms, never over scenarios.
+"""
+
+from collections.abc import Callable
+from dataclasses import dataclass, field, fields
+from typing import Literal
+
+import numpy as np
+
+from service.domain import screens
+from service.domain.arrays import Floats, Ints, as_floats
+from service.domain.assumptions import default
+from service.domain.campaign import Campaign, MeasuredWork, Overrides, QuoteOptions, TransformerWork
+from service.domain.catalog import Catalog, NodeType, Offer
+from service.domain.layout import (
+    Hardware,
+    LayoutGrid,
+    Load,
+    architecture_activation_bytes,
+    candidate_nodes,
+    choose,
+    evaluate_layouts,
+    pick,
+    pick_grid,
+)
+from service.domain.memory import minimum_shards, model_state_bytes, usable_bytes
+from service.domain.owning import (
+    NodeMonth,
+    SiteEconomics,
+    busy_energy_per_accelerator_hour,
+    node_month,
+)
+from service.domain.recurrence import instances_per_year, instances_total
+from service.domain.residency import allowed_jurisdictions
+from service.domain.terms import (
+    Energy,
+    Lines,
+    campaign_energy,
+    chargeback_lines,
+    committed_lines,
+    committed_share,
+    hourly_lines,
+    new_build_lines,
+    new_build_share,
+    rented_data_lines,
+)
+from service.domain.units import SECONDS_PER_DAY, SECONDS_PER_HOUR, TB
+from service.domain.venues import (
+    NodeLimit,
+    chargeback_limit,
+    network_gbps,
+    new_build_limit,
+    node_mtbf_hours,
+    offer_limit,
+    rented_price_factor,
+    site_economics,
+    sustained_flops,
+    venue_path_efficiency,
+)
+from service.domain.work import WorkAmount, runs_multiplier, work_amount
+
+# Term builders return the cost lines and the term's own figures for every candidate layout.
+CostBuilder = Callable[[LayoutGrid], tuple[Lines, dict[str, Floats]]]
+
+
+@dataclass(frozen=True)
+class OptionResult:
+    """One venue on one term, at the layout chosen per scenario: (S,) arrays."""
+
+    venue_kind: Literal["owned", "rented"]
+    venue_id: str
+    jurisdiction: str
+    term: str
+    node_type: NodeType
+    layout: LayoutGrid
+    screens: Ints
+    min_nodes: Floats
+    limit: NodeLimit
+    lines: dict[str, Floats]
+    total: Floats
+    energy: Energy
+    details: dict[str, Floats] = field(default_factory=dict)
+
+    @property
+    def feasible(self) -> np.ndarray:
+        return self.screens == 0
+
+    @property
+    def label(self) -> str:
+        return f"{self.venue_id}/{self.term}"
+
+    @property
+    def per_accelerator_hour(self) -> Floats:
+        return self.total / self.layout.accelerator_hours
+
+
+@dataclass(frozen=True)
+class SiteFigures:
+    """An owned site's monthly fixed cost per node F and busy energy per accelerator-hour v."""
+
+    economics: SiteEconomics
+    node: NodeMonth
+    variable_per_accelerator_hour: Floats
+
+
+@dataclass(frozen=True)
+class CampaignEvaluation:
+    work: WorkAmount
+    runs_multiplier: Floats
+    instances_total: Floats
+    instances_per_year: Floats
+    options: tuple[OptionResult, ...]
+    sites: dict[str, SiteFigures]
+
+
+def evaluate_campaign(
+    catalog: Catalog, campaign: Campaign, options: QuoteOptions, overrides: Overrides | None = None
+) -> CampaignEvaluation:
+    """Every venue and requested term of the catalog for the campaign."""
+    overrides = overrides or Overrides()
+    work = _work(catalog, campaign, options, overrides)
+    multiplier = runs_multiplier(campaign.runs)
+    allowed = allowed_jurisdictions(campaign.data.allowed_jurisdictions, catalog.jurisdiction_groups)
+    results: list[OptionResult] = []
+    sites: dict[str, SiteFigures] = {}
+    for site in catalog.sites:
+        economics = site_economics(site, catalog, overrides)
+        node = node_month(economics)
+        variable = busy_energy_per_accelerator_hour(economics)
+        sites[site.id] = SiteFigures(economics, node, variable)
+        venue = _Venue("owned", site.id, site.jurisdiction, site.node_type, site, economics.pue,
+                       economics.grid_kgco2e_per_kwh, allowed, False)
+        if "owned_chargeback" in options.terms:
+            results.append(_evaluate(
+                venue, "owned_chargeback", chargeback_limit(economics, options),
+                _chargeback_builder(node, variable, economics),
+                campaign, options, overrides, work, multiplier))
+        if "owned_new_build" in options.terms:
+            results.append(_evaluate(
+                venue, "owned_new_build", new_build_limit(economics, options),
+                _new_build_builder(node, variable, site.depreciation_months, campaign),
+                campaign, options, overrides, work, multiplier))
+    for offer in catalog.offers:
+        results.extend(_offer_options(offer, catalog, campaign, options, overrides, work, multiplier, allowed))
+    return CampaignEvaluation(
+        work=work,
+        runs_multiplier=multiplier,
+        instances_total=instances_total(campaign.recurrence),
+        instances_per_year=instances_per_year(campaign.recurrence),
+        options=tuple(results),
+        sites=sites,
+    )
+
+
+@dataclass(frozen=True)
+class _Venue:
+    kind: Literal["owned", "rented"]
+    id: str
+    jurisdiction: str
+    node_type: NodeType
+    source: object
+    pue: Floats
+    grid_kgco2e_per_kwh: Floats
+    allowed: frozenset[str] | None
+    owned_only: bool
+
+
+def _offer_options(
+    offer: Offer, catalog: Catalog, campaign: Campaign, options: QuoteOptions, overrides: Overrides,
+    work: WorkAmount, multiplier: Floats, allowed: frozenset[str] | None,
+) -> list[OptionResult]:
+    venue = _Venue("rented", offer.id, offer.jurisdiction, offer.node_type, offer,
+                   as_floats(np.nan if offer.pue is None else offer.pue),
+                   as_floats(np.nan if offer.grid_kgco2e_per_kwh is None else offer.grid_kgco2e_per_kwh),
+                   allowed, campaign.data.owned_only)
+    limit = offer_limit(offer, options)
+    data = _data_builder(offer, campaign)
+    results = []
+    if "on_demand" in options.terms and offer.on_demand_per_accelerator_hour is not None:
+        price = offer.on_demand_per_accelerator_hour * rented_price_factor(overrides, on_demand=True)
+        results.append(_evaluate(venue, "on_demand", limit, _hourly_builder(price, data),
+                                 campaign, options, overrides, work, multiplier))
+    if "committed" in options.terms:
+        cost_of_capital = as_floats(
+            catalog.cost_of_capital_annual if overrides.cost_of_capital_annual is None
+            else overrides.cost_of_capital_annual)
+        for commitment in offer.committed:
+            price = commitment.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
+            results.append(_evaluate(
+                venue, f"committed_{commitment.months}m", limit,
+                _committed_builder(commitment.months, commitment.upfront_fraction, price,
+                                   cost_of_capital, campaign, data),
+                campaign, options, overrides, work, multiplier))
+    if "interruptible" in options.terms and offer.interruptible is not None:
+        price = offer.interruptible.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
+        results.append(_evaluate(
+            venue, "interruptible", limit, _hourly_builder(price, data), campaign, options, overrides,
+            work, multiplier, interruption_mean_hours=offer.interruptible.mean_hours_between_interruptions))
+    return results
+
+
+def _evaluate(
+    venue: _Venue, term: str, limit: NodeLimit, build_cost: CostBuilder, campaign: Campaign,
+    options: QuoteOptions, overrides: Overrides, work: WorkAmount, multiplier: Floats,
+    *, interruption_mean_hours: float = np.inf,
+) -> OptionResult:
+    node = venue.node_type
+    load = _load(campaign, options, work, multiplier, node)
+    hardware = Hardware(
+        accelerators_per_node=node.accelerators_per_node,
+        memory_bytes=node.accelerator.memory_gb * 1e9,
+        sustained_flops_per_accelerator=_venue_sustained(node, campaign, overrides, work),
+        intra_node_gbps=node.intra_node_gbps,
+        network_gbps=network_gbps(node, overrides),
+        path_efficiency=venue_path_efficiency(venue.source),  # type: ignore[arg-type]
+        checkpoint_write_gbps=node.checkpoint_write_gbps,
+        node_mtbf_hours=node_mtbf_hours(node, overrides),
+        interruption_mean_hours=interruption_mean_hours,
+        staging_seconds=np.zeros(1),
+    )
+    node_limit = limit.nodes
+    nodes = candidate_nodes(node_limit=node_limit, fixed_accelerators=options.fixed_accelerators,
+                            accelerators_per_node=node.accelerators_per_node)
+    grid = evaluate_layouts(load, hardware, nodes, fixed_accelerators=options.fixed_accelerators)
+    lines_grid, details_grid = build_cost(grid)
+    total_grid = sum(lines_grid.values(), np.zeros(grid.wall_seconds.shape))
+    choice = choose(grid, total_grid, node_limit=node_limit, deadline_seconds=load.deadline_seconds)
+    chosen = pick_grid(grid, choice.index)
+    min_nodes = _minimum_nodes(load, hardware)
+    mask = _screen(venue, hardware, limit, min_nodes, choice.any_fits, choice.meets_deadline,
+                   shape=choice.index.shape)
+    energy_grid = campaign_energy(
+        grid, idle_kw=node.power_kw_idle, peak_kw=node.power_kw_peak,
+        load=default("busy_load_fraction"), pue=venue.pue, grid_kgco2e_per_kwh=venue.grid_kgco2e_per_kwh)
+    return OptionResult(
+        venue_kind=venue.kind,
+        venue_id=venue.id,
+        jurisdiction=venue.jurisdiction,
+        term=term,
+        node_type=node,
+        layout=chosen,
+        screens=mask,
+        min_nodes=min_nodes,
+        limit=limit,
+        lines={item: pick(np.broadcast_to(amount, grid.wall_seconds.shape), choice.index)
+               for item, amount in lines_grid.items()},
+        total=pick(total_grid, choice.index),
+        energy=Energy(**{f.name: pick(np.broadcast_to(getattr(energy_grid, f.name), grid.wall_seconds.shape),
+                                      choice.index) for f in fields(energy_grid)}),
+        details={name: pick(np.broadcast_to(value, grid.wall_seconds.shape), choice.index)
+                 for name, value in details_grid.items()},
+    )
+
+
+def _screen(
+    venue: _Venue, hardware: Hardware, limit: NodeLimit, min_nodes: Floats, any_fits: np.ndarray,
+    meets_deadline: np.ndarray, *, shape: tuple[int, ...],
+) -> Ints:
+    mask = np.zeros(shape, dtype=np.int64)
+    if venue.allowed is not None and venue.jurisdiction not in venue.allowed:
+        mask |= screens.RESIDENCY
+    if venue.owned_only:
+        mask |= screens.OWNED_ONLY
+    no_precision = np.isnan(as_floats(hardware.sustained_flops_per_accelerator)) & np.ones(shape, bool)
+    mask |= np.where(no_precision, screens.PRECISION, 0)
+    never = ~np.isfinite(min_nodes) & ~no_precision
+    mask |= np.where(never, screens.MEMORY, 0)
+    short = np.isfinite(min_nodes) & ~any_fits & ~no_precision
+    mask |= np.where(short & (np.minimum(limit.venue, limit.request) < min_nodes), screens.CAPACITY, 0)
+    mask |= np.where(short & (limit.power < min_nodes), screens.POWER, 0)
+    mask |= np.where(short & (limit.cooling < min_nodes), screens.COOLING, 0)
+    mask |= np.where(any_fits & ~meets_deadline & ~no_precision, screens.DEADLINE, 0)
+    return mask
+
+
+def _minimum_nodes(load: Load, hardware: Hardware) -> Floats:
+    """The fewest nodes that hold the model's states and activations; inf when none can."""
+    per_node = hardware.accelerators_per_node
+    memory = hardware.memory_bytes
+    if load.architecture_activation_bytes is None:
+        activation = as_floats(default("activation_reserve_fraction") * memory)
+    else:
+        activation = load.architecture_activation_bytes
+    if load.parameters is None:
+        return np.ones(np.shape(load.timed_flops_per_run))
+    replicated_fits = model_state_bytes(parameters=load.parameters, shards=1.0) + activation <= usable_bytes(memory)
+    shards = minimum_shards(parameters=load.parameters, activation_bytes=activation, memory_bytes=memory)
+    sharded_nodes = np.ceil(shards / per_node)
+    if load.parallelism == "replicated":
+        nodes = np.where(replicated_fits, 1.0, np.inf)
+    elif load.parallelism == "sharded":
+        nodes = sharded_nodes
+    else:
+        nodes = np.where(replicated_fits, 1.0, sharded_nodes)
+    return np.asarray(nodes * np.ones(np.shape(load.timed_flops_per_run)))
+
+
+def _work(catalog: Catalog, campaign: Campaign, options: QuoteOptions, overrides: Overrides) -> WorkAmount:
+    reference = None
+    if isinstance(campaign.work, MeasuredWork):
+        node = catalog.node_types[campaign.work.reference_node_type]
+        reference = sustained_flops(node, campaign.training.precision, overrides)
+    return work_amount(campaign.work, recompute=campaign.training.activation_recompute,
+                       utilisation_basis=options.utilisation_basis, reference_sustained_flops=reference)
+
+
+def _venue_sustained(node: NodeType, campaign: Campaign, overrides: Overrides, work: WorkAmount) -> Floats:
+    """Sustained FLOP/s per accelerator, or for measured work the measured speed relative to
+    the reference node type when the catalog states one."""
+    measured = campaign.work
+    if isinstance(measured, MeasuredWork) and measured.reference_node_type in node.measured_relative_speed:
+        accelerator_seconds = as_floats(measured.samples) / as_floats(measured.samples_per_second_per_accelerator)
+        reference_rate = work.timed_flops / accelerator_seconds
+        return np.asarray(reference_rate * node.measured_relative_speed[measured.reference_node_type])
+    return sustained_flops(node, campaign.training.precision, overrides)
+
+
+def _load(campaign: Campaign, options: QuoteOptions, work: WorkAmount, multiplier: Floats, node: NodeType) -> Load:
+    training = campaign.training
+    activation = None
+    transformer = campaign.work
+    if (isinstance(transformer, TransformerWork) and transformer.layers is not None
+            and transformer.d_model is not None and transformer.sequence_length is not None):
+        heads = (as_floats(transformer.d_model) / default("head_dim")
+                 if transformer.attention_heads is None else transformer.attention_heads)
+        activation = architecture_activation_bytes(
+            layers=transformer.layers, sequence_length=transformer.sequence_length, d_model=transformer.d_model,
+            attention_heads=heads,
+            micro_batch=(default("micro_batch_sequences") if training.micro_batch_sequences is None
+                         else training.micro_batch_sequences),
+            recompute=training.activation_recompute)
+    checkpoint = None if campaign.data.checkpoint_tb is None else as_floats(campaign.data.checkpoint_tb) * TB
+    deadline = (np.asarray(np.inf) if campaign.deadline_days is None
+                else as_floats(campaign.deadline_days) * SECONDS_PER_DAY)
+    return Load(
+        timed_flops_per_run=work.timed_flops,
+        runs_multiplier=multiplier,
+        parameters=work.parameters,
+        tokens_per_run=work.tokens,
+        global_batch_tokens=as_floats(default("global_batch_tokens") if training.global_batch_tokens is None
+                                      else training.global_batch_tokens),
+        architecture_activation_bytes=activation,
+        checkpoint_bytes=checkpoint,
+        recompute=training.activation_recompute,
+        parallelism=campaign.parallelism,
+        deadline_seconds=np.asarray(deadline),
+        restart_seconds=default("restart_minutes") * 60.0,
+    )
+
+
+def _chargeback_builder(node: NodeMonth, variable: Floats, economics: SiteEconomics) -> CostBuilder:
+    per_node = economics.site.node_type.accelerators_per_node
+
+    def build(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
+        lines = chargeback_lines(grid, node, accelerators_per_node=per_node,
+                                 utilisation=economics.utilisation_planned,
+                                 variable_per_accelerator_hour=variable)
+        return lines, {"utilisation": np.asarray(economics.utilisation_planned).reshape(-1, 1)}
+    return build
+
+
+def _new_build_builder(node: NodeMonth, variable: Floats, depreciation_months: int,
+                       campaign: Campaign) -> CostBuilder:
+    def build(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
+        share = new_build_share(grid, depreciation_months=depreciation_months,
+                                accelerators_per_node=int(grid.accelerators[0, 0] / grid.nodes[0, 0]),
+                                recurrence=campaign.recurrence)
+        lines = new_build_lines(grid, node, share, variable_per_accelerator_hour=variable)
+        return lines, {"utilisation": share.utilisation, "sharing_instances": share.sharing_instances,
+                       "carried_months": share.carried_months}
+    return build
+
+
+def _data_builder(offer: Offer, campaign: Campaign) -> Callable[[LayoutGrid], Lines]:
+    data = campaign.data
+    checkpoint_tb = 0.0 if data.checkpoint_tb is None else data.checkpoint_tb
+
+    def build(grid: LayoutGrid) -> Lines:
+        return rented_data_lines(grid, data, checkpoint_tb=checkpoint_tb,
+                                 storage_per_gb_month=offer.storage_per_gb_month,
+                                 ingress_per_gb=offer.ingress_per_gb, egress_per_gb=offer.egress_per_gb)
+    return build
+
+
+def _hourly_builder(price: Floats, data: Callable[[LayoutGrid], Lines]) -> CostBuilder:
+    def build(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
+        lines = hourly_lines(grid, price_per_accelerator_hour=price) | data(grid)
+        return lines, {"price_per_accelerator_hour": np.asarray(price).reshape(-1, 1)}
+    return build
+
+
+def _committed_builder(months: int, upfront: float, price: Floats, cost_of_capital: Floats,
+                       campaign: Campaign, data: Callable[[LayoutGrid], Lines]) -> CostBuilder:
+    def build(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
+        share = committed_share(grid, months=months, upfront_fraction=upfront,
+                                cost_of_capital_annual=cost_of_capital, recurrence=campaign.recurrence)
+        lines = committed_lines(grid, share, months=months, price_per_accelerator_hour=price) | data(grid)
+        return lines, {"price_per_accelerator_hour": np.asarray(price).reshape(-1, 1),
+                       "terms_needed": share.terms_needed, "sharing_instances": share.sharing_instances,
+                       "financing_factor": share.financing_factor}
+    return build
+
+
+def wall_clock_days(option: OptionResult) -> Floats:
+    return option.layout.wall_seconds / SECONDS_PER_DAY
+
+
+def wall_clock_hours(option: OptionResult) -> Floats:
+    return option.layout.wall_seconds / SECONDS_PER_HOUR

@@ -1,0 +1,39 @@
+"""Recurrence: how many times a campaign repeats, and how many share a fixed commitment."""
+
+import numpy as np
+
+from service.domain.arrays import ArrayLike, Floats, as_floats
+from service.domain.campaign import Recurrence
+from service.domain.units import HOURS_PER_MONTH, MONTHS_PER_YEAR
+
+
+def instances_total(recurrence: Recurrence | None) -> Floats:
+    """Campaign instances over the recurrence horizon: ⌊for_months / every_months⌋, at least 1."""
+    if recurrence is None:
+        return np.asarray(1.0)
+    return np.maximum(
+        1.0, np.floor(as_floats(recurrence.for_months) / as_floats(recurrence.every_months) + 1e-9)
+    )
+
+
+def instances_per_year(recurrence: Recurrence | None) -> Floats:
+    """Instances a year while the campaign recurs (1 for a one-off campaign)."""
+    if recurrence is None:
+        return np.asarray(1.0)
+    return np.maximum(1.0, MONTHS_PER_YEAR / as_floats(recurrence.every_months))
+
+
+def instances_sharing(
+    *, window_months: ArrayLike, wall_hours: ArrayLike, recurrence: Recurrence | None
+) -> Floats:
+    """Instances that can share a commitment of `window_months` on the same nodes.
+
+    Limited by the calendar (one instance every `every_months`), by the horizon, and by capacity
+    (instances run one after another, each taking `wall_hours`); never fewer than one.
+    """
+    window = as_floats(window_months)
+    if recurrence is None:
+        return np.ones(np.broadcast_shapes(window.shape, as_floats(wall_hours).shape))
+    by_calendar = np.floor(window / as_floats(recurrence.every_months) + 1e-9)
+    by_capacity = np.floor(window * HOURS_PER_MONTH / as_floats(wall_hours) + 1e-9)
+    return np.maximum(1.0, np.minimum(np.minimum(by_calendar, by_capacity), instances_total(recurrence)))

@@ -1,0 +1,173 @@
+"""What each term charges a campaign, line by line, for every candidate layout (model.md §6-7).
+
+Each function returns {item: amount} with (S, K) arrays; the line items are named here once and
+explained to people in `service.domain.explain`.
+"""
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from service.domain.arrays import ArrayLike, Floats, as_floats
+from service.domain.campaign import DataPlan, Recurrence
+from service.domain.finance import capital_recovery_payment, monthly_rate
+from service.domain.layout import LayoutGrid
+from service.domain.owning import NodeMonth
+from service.domain.recurrence import instances_sharing
+from service.domain.units import HOURS_PER_MONTH, SECONDS_PER_HOUR, TB
+
+Lines = dict[str, Floats]
+
+
+def _scenario(value: ArrayLike) -> Floats:
+    return as_floats(value).reshape(-1, 1)
+
+
+def wall_hours(grid: LayoutGrid) -> Floats:
+    return grid.wall_seconds / SECONDS_PER_HOUR
+
+
+def chargeback_lines(
+    grid: LayoutGrid, node: NodeMonth, *, accelerators_per_node: int,
+    utilisation: ArrayLike, variable_per_accelerator_hour: ArrayLike,
+) -> Lines:
+    """An existing fleet charges each used accelerator-hour its share of the fixed cost at the
+    planned utilisation, F / (A · 730 · u), plus the busy energy v (model.md §6)."""
+    used_hours_per_node_month = accelerators_per_node * HOURS_PER_MONTH * _scenario(utilisation)
+    share = grid.accelerator_hours / used_hours_per_node_month
+    return {
+        "capital": share * _scenario(node.capital),
+        "facility": share * _scenario(node.facility),
+        "maintenance": share * _scenario(node.maintenance),
+        "staff": share * _scenario(node.staff),
+        "idle_energy": share * _scenario(node.idle_energy),
+        "busy_energy": grid.accelerator_hours * _scenario(variable_per_accelerator_hour),
+    }
+
+
+@dataclass(frozen=True)
+class NewBuildShare:
+    carried_months: Floats
+    sharing_instances: Floats
+    utilisation: Floats  # of the new nodes over their life, with recurrence
+
+
+def new_build_share(
+    grid: LayoutGrid, *, depreciation_months: int, accelerators_per_node: int,
+    recurrence: Recurrence | None,
+) -> NewBuildShare:
+    """New nodes are carried for their depreciation life (or the campaign, if longer) and their
+    cost is shared by the recurring instances that fit in that life."""
+    months = np.maximum(float(depreciation_months), wall_hours(grid) / HOURS_PER_MONTH)
+    sharing = instances_sharing(window_months=months, wall_hours=wall_hours(grid), recurrence=recurrence)
+    capacity_hours = grid.nodes * accelerators_per_node * months * HOURS_PER_MONTH
+    return NewBuildShare(months, sharing, sharing * grid.accelerator_hours / capacity_hours)
+
+
+def new_build_lines(
+    grid: LayoutGrid, node: NodeMonth, share: NewBuildShare, *, variable_per_accelerator_hour: ArrayLike,
+) -> Lines:
+    """Buy the layout's nodes, carry them for their life, and charge this instance its share."""
+    node_months = grid.nodes * share.carried_months / share.sharing_instances
+    return {
+        "capital": node_months * _scenario(node.capital),
+        "facility": node_months * _scenario(node.facility),
+        "maintenance": node_months * _scenario(node.maintenance),
+        "staff": node_months * _scenario(node.staff),
+        "idle_energy": node_months * _scenario(node.idle_energy),
+        "busy_energy": grid.accelerator_hours * _scenario(variable_per_accelerator_hour),
+    }
+
+
+def hourly_lines(grid: LayoutGrid, *, price_per_accelerator_hour: ArrayLike) -> Lines:
+    """On demand and interruptible: the accelerator-hours used, at the hourly price. The hours
+    already include the interruption overhead of the reliability model."""
+    return {"compute": grid.accelerator_hours * _scenario(price_per_accelerator_hour)}
+
+
+def upfront_financing_factor(*, upfront_fraction: ArrayLike, months: ArrayLike,
+                             cost_of_capital_annual: ArrayLike) -> Floats:
+    """Level-monthly equivalent of a fee of 1 of which a share is paid up front.
+
+    The up-front share f ties up capital for the term, so it is spread as an annuity at the
+    cost of capital: (1 − f) + f · n · (A/P, i, n) ≥ 1.
+    """
+    f = as_floats(upfront_fraction)
+    n = as_floats(months)
+    spread = capital_recovery_payment(principal=1.0, rate=monthly_rate(cost_of_capital_annual), periods=n)
+    return (1.0 - f) + f * n * spread
+
+
+@dataclass(frozen=True)
+class CommittedShare:
+    terms_needed: Floats
+    sharing_instances: Floats
+    financing_factor: Floats
+
+
+def committed_share(
+    grid: LayoutGrid, *, months: int, upfront_fraction: float,
+    cost_of_capital_annual: ArrayLike, recurrence: Recurrence | None,
+) -> CommittedShare:
+    """A committed term is paid for whole; a campaign longer than one term takes several, and
+    recurring instances that fit in the commitment share it."""
+    hours = wall_hours(grid)
+    terms = np.maximum(1.0, np.ceil(hours / (months * HOURS_PER_MONTH) - 1e-9))
+    sharing = instances_sharing(window_months=terms * months, wall_hours=hours, recurrence=recurrence)
+    factor = upfront_financing_factor(
+        upfront_fraction=upfront_fraction, months=months, cost_of_capital_annual=_scenario(cost_of_capital_annual)
+    )
+    return CommittedShare(terms, sharing, np.broadcast_to(factor, terms.shape))
+
+
+def committed_lines(
+    grid: LayoutGrid, share: CommittedShare, *, months: int, price_per_accelerator_hour: ArrayLike,
+) -> Lines:
+    """nodes × accelerators × term hours × price, paid whether used or not (model.md §7)."""
+    fee = grid.accelerators * months * HOURS_PER_MONTH * _scenario(price_per_accelerator_hour)
+    return {"commitment": fee * share.terms_needed * share.financing_factor / share.sharing_instances}
+
+
+def rented_data_lines(
+    grid: LayoutGrid, data: DataPlan, *, checkpoint_tb: ArrayLike, storage_per_gb_month: float,
+    ingress_per_gb: float, egress_per_gb: float,
+) -> Lines:
+    """Storage for the dataset and kept checkpoints for the months the campaign runs, ingress
+    of the dataset and egress of the results, per decimal GB."""
+    gb_per_tb = TB / 1e9
+    stored_gb = (
+        _scenario(data.dataset_tb) + _scenario(checkpoint_tb) * _scenario(data.checkpoints_kept)
+    ) * gb_per_tb
+    months = wall_hours(grid) / HOURS_PER_MONTH
+    zeros = np.zeros_like(months)
+    return {
+        "storage": stored_gb * storage_per_gb_month * months,
+        "ingress": zeros + _scenario(data.dataset_tb) * gb_per_tb * ingress_per_gb,
+        "egress": zeros + _scenario(data.results_egress_tb) * gb_per_tb * egress_per_gb,
+    }
+
+
+@dataclass(frozen=True)
+class Energy:
+    it_kwh: Floats
+    facility_kwh: Floats
+    peak_it_kw: Floats
+    cooling_kw_thermal: Floats
+    kgco2e: Floats
+
+
+def campaign_energy(
+    grid: LayoutGrid, *, idle_kw: float, peak_kw: float, load: float, pue: ArrayLike,
+    grid_kgco2e_per_kwh: ArrayLike,
+) -> Energy:
+    """Energy of the nodes the layout holds for the wall clock, busy at `load`.
+
+    IT kWh = nodes × (idle + (peak − idle) × load) × hours; facility kWh = IT × PUE; all IT
+    power becomes heat, so the cooling load is the peak IT power; carbon = facility kWh × grid
+    factor. PUE or grid factor may be NaN (unknown), and so are the figures that need them.
+    """
+    busy_kw = idle_kw + (peak_kw - idle_kw) * load
+    it_kwh = grid.nodes * busy_kw * wall_hours(grid)
+    facility = it_kwh * _scenario(pue)
+    peak_it = grid.nodes * peak_kw
+    return Energy(it_kwh, facility, peak_it, peak_it, facility * _scenario(grid_kgco2e_per_kwh))
