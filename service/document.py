@@ -1,0 +1,198 @@
+"""The quote as clients read it (api.md): built from one scenario of an evaluation, money
+rounded to the currency's minor unit here at the edge, and nowhere earlier."""
+
+import math
+from typing import Any
+
+import numpy as np
+from babel.numbers import get_currency_precision
+
+from service.api.schemas.request import QuoteRequestIn, TransformerWorkIn
+from service.domain import explain
+from service.domain.assumptions import DEFAULTS
+from service.domain.catalog import Catalog
+from service.domain.comparison import CURVE_UTILISATIONS, breakeven_rows, curves, rank
+from service.domain.evaluate import CampaignEvaluation, OptionResult
+from service.domain.owning import cooling_tons
+from service.domain.units import SECONDS_PER_DAY, SECONDS_PER_HOUR
+
+Json = dict[str, Any]
+
+
+def _pick(values: Any, i: int) -> Any:
+    """Scenario i of an array that may be a scalar broadcast over every scenario."""
+    array = np.asarray(values).reshape(-1)
+    return array[i if array.size > 1 else 0]
+
+
+def _number(value: Any, digits: int | None = None) -> float | None:
+    """A JSON number, or None for NaN and infinities (JSON has neither)."""
+    x = float(value)
+    if not math.isfinite(x):
+        return None
+    return round(x, digits) if digits is not None else x
+
+
+class Money:
+    """Rounds amounts to the currency's ISO 4217 minor unit."""
+
+    def __init__(self, currency: str) -> None:
+        self.currency = currency
+        self.digits = get_currency_precision(currency)
+
+    def __call__(self, value: Any) -> float | None:
+        return _number(value, self.digits)
+
+
+def quote_document(catalog: Catalog, request: QuoteRequestIn, evaluation: CampaignEvaluation,
+                   *, scenario: int = 0) -> Json:
+    """The response body of a quote, less the storage fields (id, created_at, catalog id)."""
+    i = scenario
+    money = Money(catalog.currency)
+    campaign = request.campaign
+    order = rank(evaluation.options, i, request.options.rank_by)
+    ranked = [evaluation.options[k] for k in order]
+    feasible = [o for o in ranked if bool(o.feasible[i])]
+    options = [_option(o, position, i, catalog, evaluation, request, money)
+               for position, o in enumerate(ranked)]
+    rows = breakeven_rows(evaluation)
+    work = evaluation.work
+    body: Json = {
+        "request": request.model_dump(mode="json"),
+        "currency": catalog.currency,
+        "work": {
+            "training_flops": _number(_pick(work.model_flops, i)),
+            "hardware_flops": _number(_pick(work.hardware_flops, i)),
+            "flops_per_token": None if work.flops_per_token is None else _number(_pick(work.flops_per_token, i)),
+            "runs_total_flops": _number(_pick(work.model_flops * evaluation.runs_multiplier, i)),
+            "instances": _number(_pick(evaluation.instances_total, i)),
+        },
+        "options": options,
+        "recommendation": None if not feasible else {
+            "option_index": 0,
+            "venue": feasible[0].venue_id,
+            "term": feasible[0].term,
+            "why": explain.why(feasible, i, evaluation, catalog.currency, request.options.rank_by),
+        },
+        "next_steps": [] if feasible else explain.next_steps(ranked, i, campaign.deadline_days),
+        "breakeven": [_breakeven(row, i, money) for row in rows],
+        "curves": [
+            {"site": site_id, "currency": catalog.currency,
+             "points": [{"utilisation": float(u), "owned_per_accelerator_hour": _number(c, 4)}
+                        for u, c in zip(CURVE_UTILISATIONS, values[i if len(values) > 1 else 0], strict=True)]}
+            for site_id, values in curves(evaluation).items()
+        ],
+        "assumptions": [
+            {"name": a.name, "value": a.value, "unit": a.unit, "source": a.source}
+            for a in (DEFAULTS[name] for name in explain.used_assumptions(catalog, evaluation, _given(request)))
+        ],
+        "cautions": list(explain.CAUTIONS),
+    }
+    return body
+
+
+def _given(request: QuoteRequestIn) -> dict[str, bool]:
+    work = request.campaign.work
+    transformer = isinstance(work, TransformerWorkIn)
+    return {
+        "transformer": transformer,
+        "parameters": getattr(work, "parameters", None) is not None,
+        "architecture": transformer and work.layers is not None,  # type: ignore[union-attr]
+        "attention_heads": transformer and work.attention_heads is not None,  # type: ignore[union-attr]
+        "micro_batch": transformer and work.micro_batch_sequences is not None,  # type: ignore[union-attr]
+        "global_batch": work.global_batch_tokens is not None,
+        "recompute_full": work.activation_recompute == "full",
+        "recompute_selective": work.activation_recompute == "selective",
+    }
+
+
+def _option(o: OptionResult, position: int, i: int, catalog: Catalog, evaluation: CampaignEvaluation,
+            request: QuoteRequestIn, money: Money) -> Json:
+    layout = o.layout
+    feasible = bool(o.feasible[i])
+    site = evaluation.sites.get(o.venue_id) if o.venue_kind == "owned" else None
+    details = {name: _number(values[i], 6) for name, values in o.details.items()}
+    return {
+        "rank": position + 1 if feasible else None,
+        "venue": {"kind": o.venue_kind, "id": o.venue_id, "jurisdiction": o.jurisdiction,
+                  "node_type": o.node_type.id},
+        "term": o.term,
+        "feasible": feasible,
+        "reasons": explain.reasons(o, i, catalog, request.campaign.data.allowed_jurisdictions,
+                                   request.campaign.deadline_days),
+        "layout": {
+            "nodes": int(layout.nodes[i]),
+            "accelerators": int(layout.accelerators[i]),
+            "strategy": "sharded" if bool(layout.sharded[i]) else "replicated",
+            "shards": int(layout.shards[i]),
+        },
+        "memory": {
+            "model_state_bytes_per_accelerator": _number(layout.state_bytes[i], 0),
+            "activation_bytes_per_accelerator": _number(layout.activation_bytes[i], 0),
+            "fits": bool(layout.fits[i]),
+        },
+        "timing": {
+            "step_seconds": _number(layout.step_seconds[i], 6),
+            "scaling_efficiency": _number(layout.scaling_efficiency[i], 6),
+            "exposed_communication_fraction": _number(layout.exposed_fraction[i], 6),
+            "network_gbps_needed_for_95pct": _number(layout.network_gbps_needed[i], 1),
+            "failure_overhead_fraction": _number(layout.failure_overhead[i], 6),
+            "checkpoint_interval_hours": _number(layout.checkpoint_interval_seconds[i] / SECONDS_PER_HOUR, 4),
+            "wall_clock_days": _number(layout.wall_seconds[i] / SECONDS_PER_DAY, 4),
+            "accelerator_hours": _number(layout.accelerator_hours[i], 2),
+        },
+        "energy": {
+            "it_kwh": _number(o.energy.it_kwh[i], 1),
+            "facility_kwh": _number(o.energy.facility_kwh[i], 1),
+            "peak_it_kw": _number(o.energy.peak_it_kw[i], 2),
+            "cooling_kw_thermal": _number(o.energy.cooling_kw_thermal[i], 2),
+            "cooling_tons": _number(cooling_tons(o.energy.cooling_kw_thermal[i]), 2),
+            "kgco2e": _number(o.energy.kgco2e[i], 1),
+        },
+        "cost": {
+            "currency": money.currency,
+            "total": money(o.total[i]),
+            "per_accelerator_hour": _number(o.per_accelerator_hour[i], 4),
+            "lines": [
+                {"item": item, "amount": money(amount[i]),
+                 "basis": explain.line_basis(o, item, i, catalog, site, money.currency)}
+                for item, amount in o.lines.items()
+            ],
+        },
+        "term_figures": details,
+    }
+
+
+def _breakeven(row: Any, i: int, money: Money) -> Json:
+    f = row.figures
+
+    def at(values: Any) -> Any:
+        return _pick(values, i)
+
+    reason = str(at(f.utilisation_reason))
+    payback_reason = str(at(f.payback_reason))
+    words = {
+        "rent_below_owned_energy": "the rented price is below the owned busy-energy cost: owning never wins",
+        "needs_more_than_full_utilisation": (
+            f"owning would need {_number(at(f.utilisation_unbounded) * 100, 1)}% utilisation: "
+            "renting wins at any achievable use"),
+        "rent_never_covers_running_cost": "the rent saved never covers the new nodes' running cost",
+        "beyond_depreciation_life": "the new nodes do not pay back within their depreciation life",
+    }
+    return {
+        "site": row.site,
+        "offer": row.offer,
+        "term": row.term,
+        "currency": money.currency,
+        "rented_per_accelerator_hour": _number(at(row.rented_per_accelerator_hour), 4),
+        "owned_fixed_per_month": money(at(row.owned_fixed_per_month)),
+        "owned_variable_per_accelerator_hour": _number(at(row.owned_variable_per_accelerator_hour), 4),
+        "utilisation": _number(at(f.utilisation), 4),
+        "accelerator_hours_per_year": _number(at(f.accelerator_hours_per_year), 0),
+        "campaigns_per_year": _number(at(f.campaigns_per_year), 2),
+        "payback_months": _number(at(f.payback_months), 0),
+        "reason": words.get(reason) if reason else None,
+        "payback_reason": words.get(payback_reason) if payback_reason else None,
+        "note": ("committed hours are paid whether used or not; compared here at full use of the commitment"
+                 if row.term.startswith("committed_") else None),
+    }

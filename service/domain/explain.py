@@ -1,0 +1,264 @@
+"""Words for people: why an option was ruled out, what each cost line is made of, why the
+recommendation wins, and what to change when nothing is feasible. Pure string formatting over
+one scenario of an evaluation."""
+
+from collections.abc import Sequence
+
+import numpy as np
+
+from service.domain import screens
+from service.domain.catalog import Catalog, Colocation, Offer, Site
+from service.domain.evaluate import CampaignEvaluation, OptionResult, SiteFigures
+from service.domain.units import HOURS_PER_MONTH, SECONDS_PER_DAY, SECONDS_PER_HOUR
+
+CAUTIONS = (
+    "Planning estimate, not a vendor quote: prices, power draw and performance are the catalog's "
+    "figures and the model's published methods, not offers from any supplier.",
+    "Power, cooling and electrical figures are for sizing discussions only and must be confirmed by "
+    "licensed engineers under local codes.",
+    "The residency result is a screen against the jurisdiction rules entered with the request, not "
+    "legal advice.",
+)
+
+
+def _n(value: float, digits: int = 0) -> str:
+    return f"{value:,.{digits}f}"
+
+
+def _pct(value: float) -> str:
+    return f"{value * 100:.1f}%"
+
+
+def reasons(option: OptionResult, i: int, catalog: Catalog, campaign_allowed: Sequence[str] | None,
+            deadline_days: float | None) -> list[str]:
+    """One sentence per screen that ruled the option out, each naming what would change it."""
+    mask = int(option.screens[i])
+    node = option.node_type
+    out: list[str] = []
+    for bit in screens.names(mask):
+        if bit == screens.RESIDENCY:
+            allowed = ", ".join(campaign_allowed or ())
+            out.append(f"residency: {option.venue_id} processes data in {option.jurisdiction}, outside the "
+                       f"allowed jurisdictions ({allowed})")
+        elif bit == screens.OWNED_ONLY:
+            out.append("the request allows owned sites only (data.owned_only)")
+        elif bit == screens.PRECISION:
+            out.append(f"precision: accelerator {node.accelerator.id} has no peak figure for the requested "
+                       "precision")
+        elif bit == screens.MEMORY:
+            out.append(f"memory: the model's states and activations do not fit on any number of "
+                       f"{node.accelerator.id} accelerators ({_n(node.accelerator.memory_gb)} GB each); "
+                       "use full activation recompute or a larger accelerator")
+        elif bit == screens.CAPACITY:
+            out.append(f"capacity: holding the model needs at least {_n(option.min_nodes[i])} nodes; "
+                       f"{_capacity_words(option, i, catalog)}")
+        elif bit == screens.POWER:
+            out.append(f"power: {_n(option.min_nodes[i])} new nodes need "
+                       f"{_n(option.min_nodes[i] * node.power_kw_peak)} kW IT at peak, but the site's "
+                       f"facility power allows {_n(_at(option.limit.power, i))} "
+                       "more nodes beyond the owned fleet")
+        elif bit == screens.COOLING:
+            out.append(f"cooling: {_n(option.min_nodes[i])} new nodes reject "
+                       f"{_n(option.min_nodes[i] * node.power_kw_peak)} kW of heat at peak, but the site's "
+                       f"cooling allows {_n(_at(option.limit.cooling, i))} more nodes beyond the owned fleet")
+        elif bit == screens.DEADLINE and deadline_days is not None:
+            days = option.layout.wall_seconds[i] / SECONDS_PER_DAY
+            needed = option.layout.accelerators[i] * days / deadline_days
+            out.append(f"deadline: the fastest layout here ({_n(option.layout.accelerators[i])} accelerators) "
+                       f"takes {_n(days, 1)} days, {_n(days - deadline_days, 1)} days past the "
+                       f"{_n(deadline_days, 1)}-day deadline; meeting it would take at least "
+                       f"{_n(np.ceil(needed))} accelerators at ideal scaling")
+    return out
+
+
+def _at(value: np.ndarray, i: int) -> float:
+    return float(value[i] if np.ndim(value) else value)
+
+
+def _capacity_words(option: OptionResult, i: int, catalog: Catalog) -> str:
+    venue = _venue(catalog, option.venue_id)
+    limit = _at(np.minimum(option.limit.venue, option.limit.request), i)
+    if _at(option.limit.request, i) < _at(option.limit.venue, i):
+        return f"the request's max_accelerators allows {_n(limit)} nodes"
+    if isinstance(venue, Site) and option.term == "owned_chargeback":
+        return (f"the site's free nodes are {venue.nodes_owned} owned × (1 − {_pct(venue.utilisation_current)} "
+                f"current utilisation) = {_n(limit)}")
+    if isinstance(venue, Site):
+        return f"the site has room for {venue.nodes_max} − {venue.nodes_owned} owned = {_n(limit)} new nodes"
+    return f"the offer's nodes_max is {_n(limit)}"
+
+
+def _venue(catalog: Catalog, venue_id: str) -> Site | Offer:
+    for venue in (*catalog.sites, *catalog.offers):
+        if venue.id == venue_id:
+            return venue
+    raise KeyError(venue_id)
+
+
+def line_basis(option: OptionResult, item: str, i: int, catalog: Catalog,
+               site: SiteFigures | None, currency: str) -> str:
+    """The inputs and formula behind one cost line."""
+    layout = option.layout
+    hours = layout.accelerator_hours[i]
+    per_node = option.node_type.accelerators_per_node
+    if site is not None:
+        return _owned_basis(option, item, i, site, currency, hours, per_node)
+    offer = _venue(catalog, option.venue_id)
+    assert isinstance(offer, Offer)
+    price = option.details["price_per_accelerator_hour"][i]
+    if item == "compute":
+        extra = (f", including {_pct(layout.failure_overhead[i])} lost to failures and interruptions"
+                 if option.term == "interruptible" else "")
+        return f"{_n(hours)} accelerator-hours × {price:,.4g} {currency} per accelerator-hour{extra}"
+    if item == "commitment":
+        d = option.details
+        return (f"{_n(layout.accelerators[i])} accelerators × {option.term.split('_')[1][:-1]} months × "
+                f"{_n(HOURS_PER_MONTH)} h × {price:,.4g} {currency} × {_n(d['terms_needed'][i])} term(s) × "
+                f"up-front financing {d['financing_factor'][i]:.4f} / {_n(d['sharing_instances'][i])} "
+                "recurring instance(s) sharing it; paid whether used or not")
+    months = layout.wall_seconds[i] / SECONDS_PER_HOUR / HOURS_PER_MONTH
+    if item == "storage":
+        return (f"(dataset + kept checkpoints) in GB × {offer.storage_per_gb_month:g} {currency} per GB-month × "
+                f"{months:.2f} months of wall clock")
+    if item == "ingress":
+        return f"dataset GB × {offer.ingress_per_gb:g} {currency} per GB into {offer.id}"
+    return f"results GB × {offer.egress_per_gb:g} {currency} per GB out of {offer.id}"
+
+
+def _owned_basis(option: OptionResult, item: str, i: int, site: SiteFigures, currency: str,
+                 hours: float, per_node: int) -> str:
+    s = site.economics.site
+    node = site.node
+    e = site.economics
+    if item == "busy_energy":
+        return (f"{_n(hours)} accelerator-hours × ({s.node_type.power_kw_peak:g} − {s.node_type.power_kw_idle:g} kW) "
+                f"/ {per_node} × PUE {_at(e.pue, i):g} × {_at(e.electricity_price_per_kwh, i):g} {currency}/kWh")
+    per_month = {
+        "capital": (node.capital, f"annuity of {_n(_at(e.capex_per_node, i))} {currency} capex less "
+                    f"{_pct(s.residual_fraction)} residual over {s.depreciation_months} months at "
+                    f"{_pct(_at(e.cost_of_capital_annual, i))}/12 a month"),
+        "facility": (node.facility, _facility_words(s, currency)),
+        "maintenance": (node.maintenance, f"{_pct(s.maintenance_fraction_per_year)} of capex a year"),
+        "staff": (node.staff, f"{_n(s.staff_cost_per_node_year)} {currency} per node-year"),
+        "idle_energy": (node.idle_energy, f"{s.node_type.power_kw_idle:g} kW idle × 730 h × PUE "
+                        f"{_at(e.pue, i):g} × {_at(e.electricity_price_per_kwh, i):g} {currency}/kWh"),
+    }
+    amount, words = per_month[item]
+    monthly = f"{_n(_at(amount, i), 2)} {currency} per node-month ({words})"
+    if option.term == "owned_chargeback":
+        return (f"{_n(hours)} accelerator-hours × {monthly} / ({per_node} accelerators × 730 h × "
+                f"{_pct(_at(e.utilisation_planned, i))} planned utilisation)")
+    d = option.details
+    return (f"{_n(option.layout.nodes[i])} new nodes × {_n(d['carried_months'][i])} months carried / "
+            f"{_n(d['sharing_instances'][i])} recurring instance(s) sharing them × {monthly}")
+
+
+def _facility_words(site: Site, currency: str) -> str:
+    f = site.facility
+    if isinstance(f, Colocation):
+        return f"colocation {f.price_per_kw_month:g} {currency} per kW-month × {site.node_type.power_kw_peak:g} kW"
+    return (f"owned hall {f.capex_per_kw:g} {currency}/kW over {f.life_years:g} years plus "
+            f"{_n(f.fixed_cost_per_year)} {currency} a year shared by IT kW")
+
+
+def why(ranked: Sequence[OptionResult], i: int, evaluation: CampaignEvaluation, currency: str,
+        rank_by: str) -> str:
+    """Why the first option wins: against the runner-up, and the input the answer hinges on."""
+    best = ranked[0]
+    total = float(best.total[i])
+    if len(ranked) == 1:
+        return (f"{best.label} is the only feasible option, at {_n(total)} {currency}; every other option "
+                "was ruled out (see its reasons).")
+    runner = ranked[1]
+    gap = float(runner.total[i]) - total
+    head = (f"{best.label} costs {_n(total)} {currency}, {_n(gap)} {currency} "
+            f"({_pct(gap / float(runner.total[i]))}) less than the runner-up {runner.label}")
+    if rank_by == "wall_clock":
+        head = (f"{best.label} finishes in {_n(best.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} days against "
+                f"{_n(runner.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} for {runner.label}, at {_n(total)} {currency}")
+    elif rank_by == "carbon":
+        head = (f"{best.label} emits {_n(best.energy.kgco2e[i])} kgCO2e against "
+                f"{_n(runner.energy.kgco2e[i])} for {runner.label}, at {_n(total)} {currency}")
+    return head + "; " + _hinge(best, runner, i, evaluation) + "."
+
+
+def _hinge(best: OptionResult, runner: OptionResult, i: int, evaluation: CampaignEvaluation) -> str:
+    owned, rented = (best, runner) if best.venue_kind == "owned" else (runner, best)
+    if owned.venue_kind == "owned" and rented.venue_kind == "rented" and owned.term == "owned_chargeback":
+        site = evaluation.sites[owned.venue_id]
+        price = float(rented.per_accelerator_hour[i])
+        fixed = float(_at(site.node.total, i))
+        v = float(_at(site.variable_per_accelerator_hour, i))
+        per_node = owned.node_type.accelerators_per_node
+        if price > v:
+            u = fixed / (per_node * HOURS_PER_MONTH * (price - v))
+            planned = _at(site.economics.utilisation_planned, i)
+            side = "owning wins" if best is owned else "renting wins"
+            return (f"it hinges on {owned.venue_id}'s planned utilisation of {_pct(planned)}: the two cost the "
+                    f"same at {_pct(u)}, so {side} while the plan stays on this side of it")
+    if best.venue_kind == "rented" and runner.venue_kind == "rented":
+        return (f"it hinges on the rented prices and layouts: {_n(best.per_accelerator_hour[i], 2)} against "
+                f"{_n(runner.per_accelerator_hour[i], 2)} per accelerator-hour all-in")
+    if best.term == "owned_new_build" or runner.term == "owned_new_build":
+        build = best if best.term == "owned_new_build" else runner
+        return (f"a new build is charged its nodes' whole depreciation life shared by "
+                f"{_n(build.details['sharing_instances'][i])} recurring instance(s), giving them "
+                f"{_pct(build.details['utilisation'][i])} utilisation")
+    return (f"it hinges on the all-in cost per accelerator-hour: {_n(best.per_accelerator_hour[i], 2)} against "
+            f"{_n(runner.per_accelerator_hour[i], 2)}")
+
+
+def next_steps(options: Sequence[OptionResult], i: int, deadline_days: float | None) -> list[str]:
+    """What to change when no option is feasible, nearest first."""
+    steps: list[str] = []
+    deadline_only = [o for o in options if int(o.screens[i]) == screens.DEADLINE]
+    if deadline_only and deadline_days is not None:
+        fastest = min(deadline_only, key=lambda o: float(o.layout.wall_seconds[i]))
+        days = float(fastest.layout.wall_seconds[i]) / SECONDS_PER_DAY
+        steps.append(f"relax the deadline to {np.ceil(days):.0f} days ({fastest.label} can finish by then)")
+    residency_only = sorted((o for o in options if int(o.screens[i]) == screens.RESIDENCY),
+                            key=lambda o: float(o.total[i]))
+    for jurisdiction in dict.fromkeys(o.jurisdiction for o in residency_only):
+        steps.append(f"allow jurisdiction {jurisdiction} (if the data's rules permit it)")
+    if any(int(o.screens[i]) & screens.CAPACITY for o in options):
+        steps.append("raise max_accelerators, free capacity on an owned site, or add an offer with more nodes")
+    if any(int(o.screens[i]) & screens.MEMORY for o in options):
+        steps.append("use full activation recompute, sharded parallelism or accelerators with more memory")
+    if any(int(o.screens[i]) & (screens.POWER | screens.COOLING) for o in options):
+        steps.append("add facility power or cooling at the site, or build at another site")
+    if any(int(o.screens[i]) & screens.OWNED_ONLY for o in options):
+        steps.append("allow rented capacity (data.owned_only: false)")
+    return steps
+
+
+def used_assumptions(catalog: Catalog, evaluation: CampaignEvaluation, campaign_has: dict[str, bool]) -> list[str]:
+    """Names of the defaults (see `assumptions.DEFAULTS`) this quote relied on.
+
+    `campaign_has` says which optional request figures were given: architecture, global batch,
+    micro batch, attention heads, parameters; and the recompute mode in use ("recompute_full",
+    "recompute_selective").
+    """
+    names = ["usable_memory_fraction", "communication_overlap", "target_scaling_efficiency",
+             "restart_minutes", "busy_load_fraction", "hours_per_month", "kw_per_ton_of_refrigeration"]
+    if campaign_has.get("parameters"):
+        names += ["bytes_per_parameter_model_states", "gradient_bytes_per_parameter"]
+    if campaign_has.get("transformer") or campaign_has.get("parameters"):
+        names.append("training_flops_per_parameter_token")
+    if campaign_has.get("recompute_full"):
+        names.append("full_recompute_flops_factor")
+    if campaign_has.get("recompute_selective"):
+        names.append("selective_recompute_flops_factor")
+    if campaign_has.get("architecture"):
+        if not campaign_has.get("micro_batch"):
+            names.append("micro_batch_sequences")
+        if not campaign_has.get("attention_heads"):
+            names.append("head_dim")
+    else:
+        names.append("activation_reserve_fraction")
+    if not campaign_has.get("global_batch"):
+        names.append("global_batch_tokens")
+    venues: list[Site | Offer] = [*catalog.sites, *catalog.offers]
+    names += sorted({f"path_efficiency_{v.network_path}" for v in venues if v.path_efficiency is None})
+    if any(o.pue is None for o in catalog.offers):
+        names.append("rented_pue")
+    return list(dict.fromkeys(names))
