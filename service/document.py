@@ -74,7 +74,7 @@ def quote_document(catalog: Catalog, request: QuoteRequestIn, evaluation: Campai
             "term": feasible[0].term,
             "why": explain.why(feasible, i, evaluation, catalog.currency, request.options.rank_by),
         },
-        "next_steps": [] if feasible else explain.next_steps(ranked, i, campaign.deadline_days),
+        "next_steps": [] if feasible else explain.next_steps(ranked, i, campaign.deadline_days, catalog.currency),
         "breakeven": [_breakeven(row, i, money) for row in rows],
         "curves": [
             {"site": site_id, "currency": catalog.currency,
@@ -185,6 +185,7 @@ def _breakeven(row: Any, i: int, money: Money) -> Json:
         "term": row.term,
         "currency": money.currency,
         "rented_per_accelerator_hour": _number(at(row.rented_per_accelerator_hour), 4),
+        "rented_listed_per_accelerator_hour": _number(at(row.rented_listed_per_accelerator_hour), 4),
         "owned_fixed_per_month": money(at(row.owned_fixed_per_month)),
         "owned_variable_per_accelerator_hour": _number(at(row.owned_variable_per_accelerator_hour), 4),
         "utilisation": _number(at(f.utilisation), 4),
@@ -193,6 +194,8 @@ def _breakeven(row: Any, i: int, money: Money) -> Json:
         "payback_months": _number(at(f.payback_months), 0),
         "reason": words.get(reason) if reason else None,
         "payback_reason": words.get(payback_reason) if payback_reason else None,
-        "note": ("committed hours are paid whether used or not; compared here at full use of the commitment"
-                 if row.term.startswith("committed_") else None),
+        "note": " ".join(filter(None, (
+            "Rented price expressed per accelerator-hour of the site's node type doing the same work.",
+            "Committed hours are paid whether used or not; compared here at full use of the commitment."
+            if row.term.startswith("committed_") else None))),
     }

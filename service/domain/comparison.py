@@ -37,16 +37,22 @@ def rank(options: tuple[OptionResult, ...], i: int, rank_by: RankBy) -> list[int
     return sorted(range(len(options)), key=key)
 
 
-def rented_price_for_breakeven(option: OptionResult) -> Floats:
-    """The rented price per useful accelerator-hour that owning competes with: the listed price
-    (after overrides); committed terms with their up-front financing; interruptible capacity with
-    the hours lost to interruptions."""
+def listed_rented_price(option: OptionResult) -> Floats:
+    """The rented price per accelerator-hour after overrides; committed terms with their
+    up-front financing."""
     price = option.details["price_per_accelerator_hour"]
     if option.term.startswith("committed_"):
         return price * option.details["financing_factor"]
-    if option.term == "interruptible":
-        return price * (1.0 + option.layout.failure_overhead)
     return price
+
+
+def rented_price_in_site_hours(option: OptionResult, site_accelerator_hours: Floats) -> Floats:
+    """What renting costs per accelerator-hour of the site's own node type doing the same work:
+    listed price × rented accelerator-hours / the site's accelerator-hours for the campaign.
+
+    This puts accelerators of different speed on one scale, and carries the hours interruptible
+    capacity loses to interruptions (they are in its accelerator-hours)."""
+    return listed_rented_price(option) * option.layout.accelerator_hours / site_accelerator_hours
 
 
 @dataclass(frozen=True)
@@ -54,6 +60,7 @@ class BreakEvenRow:
     site: str
     offer: str
     term: str
+    rented_listed_per_accelerator_hour: Floats
     rented_per_accelerator_hour: Floats
     owned_fixed_per_month: Floats
     owned_variable_per_accelerator_hour: Floats
@@ -74,7 +81,7 @@ def breakeven_rows(evaluation: CampaignEvaluation) -> list[BreakEvenRow]:
         new_nodes = new_build.layout.nodes if new_build else np.asarray(1.0)
         fleet = np.asarray(float(s.nodes_owned)) if s.nodes_owned else new_nodes
         for option in rented:
-            price = rented_price_for_breakeven(option)
+            price = rented_price_in_site_hours(option, campaign_hours)
             figures = break_even(
                 fixed_per_node_month=site.node.total, running_per_node_month=site.node.running,
                 capex_per_node=site.economics.capex_per_node, accelerators_per_node=per_node,
@@ -83,7 +90,8 @@ def breakeven_rows(evaluation: CampaignEvaluation) -> list[BreakEvenRow]:
                 campaign_accelerator_hours=campaign_hours,
                 demand_hours_per_year=campaign_hours * evaluation.instances_per_year,
                 new_nodes=new_nodes, depreciation_months=float(s.depreciation_months))
-            rows.append(BreakEvenRow(site_id, option.venue_id, option.term, price, site.node.total,
+            rows.append(BreakEvenRow(site_id, option.venue_id, option.term, listed_rented_price(option),
+                                     price, site.node.total,
                                      site.variable_per_accelerator_hour, figures))
     return rows
 

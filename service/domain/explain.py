@@ -179,36 +179,40 @@ def why(ranked: Sequence[OptionResult], i: int, evaluation: CampaignEvaluation, 
     elif rank_by == "carbon":
         head = (f"{best.label} emits {_n(best.energy.kgco2e[i])} kgCO2e against "
                 f"{_n(runner.energy.kgco2e[i])} for {runner.label}, at {_n(total)} {currency}")
-    return head + "; " + _hinge(best, runner, i, evaluation) + "."
+    return head + "; " + _hinge(ranked, i, evaluation) + "."
 
 
-def _hinge(best: OptionResult, runner: OptionResult, i: int, evaluation: CampaignEvaluation) -> str:
-    owned, rented = (best, runner) if best.venue_kind == "owned" else (runner, best)
-    if owned.venue_kind == "owned" and rented.venue_kind == "rented" and owned.term == "owned_chargeback":
+def _hinge(ranked: Sequence[OptionResult], i: int, evaluation: CampaignEvaluation) -> str:
+    best, runner = ranked[0], ranked[1]
+    rented = next((o for o in ranked if o.venue_kind == "rented"), None)
+    owned = next((o for o in ranked if o.term == "owned_chargeback"), None)
+    if owned is not None and rented is not None and best in (owned, rented):
         site = evaluation.sites[owned.venue_id]
-        price = float(rented.per_accelerator_hour[i])
-        fixed = float(_at(site.node.total, i))
-        v = float(_at(site.variable_per_accelerator_hour, i))
-        per_node = owned.node_type.accelerators_per_node
+        # The rented option's all-in cost spread over the site's accelerator-hours for the same work.
+        price = float(rented.total[i]) / float(owned.layout.accelerator_hours[i])
+        v = _at(site.variable_per_accelerator_hour, i)
+        planned = _at(site.economics.utilisation_planned, i)
         if price > v:
-            u = fixed / (per_node * HOURS_PER_MONTH * (price - v))
-            planned = _at(site.economics.utilisation_planned, i)
-            side = "owning wins" if best is owned else "renting wins"
-            return (f"it hinges on {owned.venue_id}'s planned utilisation of {_pct(planned)}: the two cost the "
-                    f"same at {_pct(u)}, so {side} while the plan stays on this side of it")
-    if best.venue_kind == "rented" and runner.venue_kind == "rented":
-        return (f"it hinges on the rented prices and layouts: {_n(best.per_accelerator_hour[i], 2)} against "
-                f"{_n(runner.per_accelerator_hour[i], 2)} per accelerator-hour all-in")
+            u = _at(site.node.total, i) / (owned.node_type.accelerators_per_node * HOURS_PER_MONTH * (price - v))
+            if best is owned:
+                return (f"it hinges on {owned.venue_id}'s planned utilisation of {_pct(planned)}: below {_pct(u)} "
+                        f"the best rented option, {rented.label}, would cost less")
+            if u <= 1.0:
+                return (f"owning at {owned.venue_id} would win only above {_pct(u)} planned utilisation "
+                        f"(the plan is {_pct(planned)})")
+            return f"owning at {owned.venue_id} cannot match it even at full utilisation"
     if best.term == "owned_new_build" or runner.term == "owned_new_build":
         build = best if best.term == "owned_new_build" else runner
         return (f"a new build is charged its nodes' whole depreciation life shared by "
                 f"{_n(build.details['sharing_instances'][i])} recurring instance(s), giving them "
                 f"{_pct(build.details['utilisation'][i])} utilisation")
-    return (f"it hinges on the all-in cost per accelerator-hour: {_n(best.per_accelerator_hour[i], 2)} against "
+    return (f"it hinges on price and speed: {_n(best.layout.accelerator_hours[i])} accelerator-hours at "
+            f"{_n(best.per_accelerator_hour[i], 2)} all-in against {_n(runner.layout.accelerator_hours[i])} at "
             f"{_n(runner.per_accelerator_hour[i], 2)}")
 
 
-def next_steps(options: Sequence[OptionResult], i: int, deadline_days: float | None) -> list[str]:
+def next_steps(options: Sequence[OptionResult], i: int, deadline_days: float | None,
+               currency: str) -> list[str]:
     """What to change when no option is feasible, nearest first."""
     steps: list[str] = []
     deadline_only = [o for o in options if int(o.screens[i]) == screens.DEADLINE]
@@ -218,8 +222,11 @@ def next_steps(options: Sequence[OptionResult], i: int, deadline_days: float | N
         steps.append(f"relax the deadline to {np.ceil(days):.0f} days ({fastest.label} can finish by then)")
     residency_only = sorted((o for o in options if int(o.screens[i]) == screens.RESIDENCY),
                             key=lambda o: float(o.total[i]))
+    cheapest_by_jurisdiction = {o.jurisdiction: o for o in reversed(residency_only)}
     for jurisdiction in dict.fromkeys(o.jurisdiction for o in residency_only):
-        steps.append(f"allow jurisdiction {jurisdiction} (if the data's rules permit it)")
+        option = cheapest_by_jurisdiction[jurisdiction]
+        steps.append(f"allow jurisdiction {jurisdiction}, if the data's rules permit it: {option.label} would "
+                     f"then cost {_n(float(option.total[i]))} {currency}")
     if any(int(o.screens[i]) & screens.CAPACITY for o in options):
         steps.append("raise max_accelerators, free capacity on an owned site, or add an offer with more nodes")
     if any(int(o.screens[i]) & screens.MEMORY for o in options):

@@ -21,6 +21,14 @@ from service.api.schemas.common import (
 from service.domain import catalog as domain
 
 
+class ReferenceProblems(ValueError):
+    """Several catalog problems found together, each with its own field path."""
+
+    def __init__(self, problems: list[tuple[str, str]]) -> None:
+        super().__init__("; ".join(f"{field}: {reason}" for field, reason in problems))
+        self.problems = problems
+
+
 def _known_country(code: str) -> str:
     if pycountry.countries.get(alpha_2=code) is None:
         raise ValueError(f"{code!r} is not an ISO 3166-1 alpha-2 country code")
@@ -181,32 +189,32 @@ class CatalogIn(Strict):
 
     @model_validator(mode="after")
     def _references(self) -> "CatalogIn":
-        problems: list[str] = []
+        problems: list[tuple[str, str]] = []
         for kind, items in (("accelerators", self.accelerators), ("node_types", self.node_types),
                             ("sites", self.sites), ("offers", self.offers)):
             for ident, count in Counter(item.id for item in items).items():
                 if count > 1:
-                    problems.append(f"{kind}: id {ident!r} appears {count} times")
+                    problems.append((kind, f"id {ident!r} appears {count} times"))
         for shared in sorted({s.id for s in self.sites} & {o.id for o in self.offers}):
-            problems.append(f"sites and offers share the id {shared!r}; venue ids must be unique")
+            problems.append(("offers", f"id {shared!r} is also a site's id; venue ids must be unique"))
         accelerators = {a.id for a in self.accelerators}
         node_types = {n.id for n in self.node_types}
         for i, n in enumerate(self.node_types):
             if n.accelerator not in accelerators:
-                problems.append(f"node_types[{i}].accelerator: unknown accelerator {n.accelerator!r}")
+                problems.append((f"node_types.{i}.accelerator", f"unknown accelerator {n.accelerator!r}"))
             for ref in n.measured_relative_speed:
                 if ref not in node_types:
-                    problems.append(f"node_types[{i}].measured_relative_speed: unknown node type {ref!r}")
+                    problems.append((f"node_types.{i}.measured_relative_speed", f"unknown node type {ref!r}"))
         for kind, venues in (("sites", self.sites), ("offers", self.offers)):
             for i, v in enumerate(venues):
                 if v.node_type not in node_types:
-                    problems.append(f"{kind}[{i}].node_type: unknown node type {v.node_type!r}")
+                    problems.append((f"{kind}.{i}.node_type", f"unknown node type {v.node_type!r}"))
         for i, s in enumerate(self.sites):
             if isinstance(s.facility, OwnedHallIn) and s.power_capacity_kw is None and s.facility.fixed_cost_per_year:
-                problems.append(f"sites[{i}].power_capacity_kw: an owned hall's fixed cost is shared by "
-                                "its power capacity, so it must be given")
+                problems.append((f"sites.{i}.power_capacity_kw", "an owned hall's fixed cost is shared by its "
+                                 "power capacity, so it must be given"))
         if problems:
-            raise ValueError("; ".join(problems))
+            raise ReferenceProblems(problems)
         return self
 
     def to_domain(self) -> domain.Catalog:

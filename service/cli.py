@@ -1,0 +1,96 @@
+"""The `berth` command line: offline quotes, catalog checks, and the service."""
+
+import json
+import sys
+from datetime import UTC, datetime
+from enum import Enum
+from pathlib import Path
+from typing import Annotated, Any
+
+import typer
+from rich.console import Console
+
+from service.api.schemas.catalog import CatalogIn
+from service.api.schemas.request import QuoteRequestIn
+from service.config import Settings
+from service.errors import BerthError, InvalidInput
+from service.loading import load_file
+from service.quoting import envelope, quote
+from service.tables import print_quote
+
+app = typer.Typer(add_completion=False, no_args_is_help=True,
+                  help="Where a training campaign should run, and what it will cost.")
+catalog_app = typer.Typer(no_args_is_help=True, help="Catalogs of hardware, sites and offers.")
+app.add_typer(catalog_app, name="catalog")
+
+# Tables are wide; piped output gets room instead of the 80 columns of a dumb terminal.
+out = Console(width=None if sys.stdout.isatty() else 150)
+err = Console(stderr=True)
+
+
+class QuoteFormat(str, Enum):
+    table = "table"
+    json = "json"
+
+
+def _fail(error: BerthError) -> None:
+    err.print(f"[bold red]error:[/] {error.detail}", highlight=False)
+    for problem in getattr(error, "problems", ()):
+        err.print(f"  {problem.field}: {problem.reason}", highlight=False, markup=False)
+    raise typer.Exit(code=2)
+
+
+@app.command("quote")
+def quote_command(
+    request_path: Annotated[Path, typer.Argument(metavar="REQUEST.json", help="the quote request")],
+    catalog: Annotated[Path | None, typer.Option(help="catalog file (default: the demo catalog)")] = None,
+    output: Annotated[QuoteFormat, typer.Option("--format", help="table or json")] = QuoteFormat.table,
+) -> None:
+    """Quote one campaign offline, against a catalog file."""
+    catalog_path = catalog or Settings().demo_catalog
+    try:
+        catalog_in = load_file(CatalogIn, catalog_path)
+        request_in = load_file(QuoteRequestIn, request_path)
+        body = quote(catalog_in, request_in)
+    except BerthError as error:
+        _fail(error)
+        return
+    document = envelope(body, catalog=catalog_in, quote_id=None, catalog_id=None, created_at=datetime.now(UTC))
+    if output is QuoteFormat.json:
+        sys.stdout.write(json.dumps(document, indent=2, ensure_ascii=False) + "\n")
+    else:
+        print_quote(out, document)
+
+
+@catalog_app.command("check")
+def catalog_check(path: Annotated[Path, typer.Argument(metavar="CATALOG.json")]) -> None:
+    """Validate a catalog and say what is wrong, field by field."""
+    try:
+        catalog_in = load_file(CatalogIn, path)
+    except InvalidInput as error:
+        _fail(error)
+        return
+    out.print(f"{path}: catalog {catalog_in.name!r} is valid: {len(catalog_in.sites)} sites, "
+              f"{len(catalog_in.offers)} offers, {len(catalog_in.node_types)} node types, "
+              f"currency {catalog_in.currency}", highlight=False)
+
+
+@app.command("serve")
+def serve(
+    host: Annotated[str | None, typer.Option(help="address to listen on (BERTH_HOST)")] = None,
+    port: Annotated[int | None, typer.Option(help="port (BERTH_PORT)")] = None,
+    database: Annotated[str | None, typer.Option(help="database URL (BERTH_DATABASE_URL)")] = None,
+) -> None:
+    """Run the HTTP service."""
+    import uvicorn
+
+    from service.api.app import create_app
+
+    overrides: dict[str, Any] = {k: v for k, v in
+                                 {"host": host, "port": port, "database_url": database}.items() if v is not None}
+    settings = Settings(**overrides)
+    uvicorn.run(create_app(settings), host=settings.host, port=settings.port, log_level="info")
+
+
+def main() -> None:
+    app()

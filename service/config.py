@@ -1,0 +1,16 @@
+"""One typed settings object, read from BERTH_* environment variables and passed in."""
+
+from pathlib import Path
+
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+REPO_ROOT = Path(__file__).resolve().parents[1]
+
+
+class Settings(BaseSettings):
+    model_config = SettingsConfigDict(env_prefix="BERTH_", extra="ignore")
+
+    host: str = "127.0.0.1"
+    port: int = 8000
+    database_url: str = "sqlite:///var/berth.db"
+    demo_catalog: Path = REPO_ROOT / "pricing_examples" / "catalog.json"

@@ -1,0 +1,45 @@
+"""The one error hierarchy of berth. The domain and use cases raise these; the HTTP layer maps
+each to an RFC 9457 problem and the command line to a message and exit status 2.
+
+    BerthError
+    ├── InvalidInput        a request or catalog failed validation; carries [{field, reason}]
+    ├── NotFound            a catalog or quote id that does not exist (or is not yours)
+    └── Conflict            the request collides with another one (e.g. idempotency in flight)
+"""
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True)
+class FieldProblem:
+    field: str
+    reason: str
+
+
+class BerthError(Exception):
+    status = 500
+    title = "Internal error"
+
+    def __init__(self, detail: str) -> None:
+        super().__init__(detail)
+        self.detail = detail
+
+
+class InvalidInput(BerthError):
+    status = 422
+    title = "Invalid input"
+
+    def __init__(self, detail: str, problems: Sequence[FieldProblem] = ()) -> None:
+        super().__init__(detail)
+        self.problems = tuple(problems)
+
+
+class NotFound(BerthError):
+    status = 404
+    title = "Not found"
+
+
+class Conflict(BerthError):
+    status = 409
+    title = "Conflict"

@@ -1,0 +1,63 @@
+"""Reading catalogs and requests from JSON or YAML text, with every problem named by field."""
+
+import json
+from pathlib import Path
+from typing import Any, TypeVar
+
+import yaml
+from pydantic import BaseModel, ValidationError
+
+from service.api.schemas.catalog import ReferenceProblems
+from service.errors import FieldProblem, InvalidInput
+
+Model = TypeVar("Model", bound=BaseModel)
+
+
+def parse_document(text: str, *, source: str) -> Any:
+    """JSON, or YAML when it is not JSON."""
+    try:
+        return json.loads(text)
+    except json.JSONDecodeError as json_error:
+        try:
+            return yaml.safe_load(text)
+        except yaml.YAMLError:
+            raise InvalidInput(f"{source} is neither valid JSON nor YAML: {json_error}") from json_error
+
+
+def field_problems(error: ValidationError) -> list[FieldProblem]:
+    """Pydantic's errors as {field, reason}, the field a dotted path with list indexes."""
+    problems = []
+    for item in error.errors(include_url=False):
+        path = ".".join(str(part) for part in item["loc"] if not _is_union_tag(part))
+        cause = item.get("ctx", {}).get("error")
+        if isinstance(cause, ReferenceProblems):
+            prefix = f"{path}." if path else ""
+            problems += [FieldProblem(prefix + field, reason) for field, reason in cause.problems]
+        else:
+            problems.append(FieldProblem(field=path or "(body)", reason=_plain(item["msg"])))
+    return problems
+
+
+def _plain(message: str) -> str:
+    # Pydantic prefixes messages of our own validators with "Value error, ".
+    return message.removeprefix("Value error, ")
+
+
+def _is_union_tag(part: object) -> bool:
+    # Discriminated unions insert the tag ("transformer", "colocation"...) into the location.
+    return isinstance(part, str) and part in {"transformer", "flops", "measured", "colocation", "owned"}
+
+
+def validate(model: type[Model], data: Any, *, source: str) -> Model:
+    try:
+        return model.model_validate(data)
+    except ValidationError as error:
+        raise InvalidInput(f"{source} is not valid", field_problems(error)) from error
+
+
+def load_file(model: type[Model], path: Path) -> Model:
+    try:
+        text = path.read_text(encoding="utf-8")
+    except OSError as error:
+        raise InvalidInput(f"cannot read {path}: {error.strerror}") from error
+    return validate(model, parse_document(text, source=str(path)), source=str(path))

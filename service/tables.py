@@ -1,0 +1,71 @@
+"""The quote as rich tables for a terminal: ranked options, break-even, cautions."""
+
+from typing import Any
+
+from rich.console import Console
+from rich.table import Table
+
+
+def _money(value: float | None) -> str:
+    return "—" if value is None else f"{value:,.0f}"
+
+
+def _fixed(value: float | None, digits: int = 1) -> str:
+    return "—" if value is None else f"{value:,.{digits}f}"
+
+
+def _pct(value: float | None) -> str:
+    return "—" if value is None else f"{value * 100:.1f}%"
+
+
+def print_quote(console: Console, quote: dict[str, Any]) -> None:
+    campaign = quote["request"]["campaign"]
+    currency = quote["currency"]
+    work = quote["work"]
+    console.print(f"[bold]{campaign['name']}[/] (team {campaign['team']}): "
+                  f"{work['runs_total_flops']:.3g} FLOPs in all", highlight=False)
+
+    options = Table(title=f"Placement options, ranked ({currency})", title_justify="left")
+    for header in ("#", "option", "acc.", "days", "acc.-hours", "total", "per acc.-h", "kgCO2e"):
+        options.add_column(header, justify="left" if header == "option" else "right",
+                           no_wrap=header == "option")
+    ruled_out = []
+    for option in quote["options"]:
+        timing = option["timing"]
+        label = f"{option['venue']['id']}/{option['term']}"
+        options.add_row(
+            str(option["rank"] or "–"), label, str(option["layout"]["accelerators"]),
+            _fixed(timing["wall_clock_days"]), _money(timing["accelerator_hours"]),
+            _money(option["cost"]["total"]), _fixed(option["cost"]["per_accelerator_hour"], 2),
+            _money(option["energy"]["kgco2e"]), style=None if option["feasible"] else "dim")
+        if option["reasons"]:
+            ruled_out.append((label, option["reasons"]))
+    console.print(options)
+    for label, reasons in ruled_out:
+        console.print(f"[dim]ruled out[/] {label}: " + "; ".join(reasons), highlight=False)
+
+    recommendation = quote["recommendation"]
+    if recommendation:
+        console.print(f"[bold green]Recommendation:[/] {recommendation['why']}", highlight=False)
+    else:
+        console.print("[bold red]No option is feasible.[/] Next steps:", highlight=False)
+        for step in quote["next_steps"]:
+            console.print(f"  • {step}", highlight=False)
+
+    breakeven = Table(title="Break-even: owning against each rented price", title_justify="left")
+    for header in ("site", "rented option", "rent/acc.-h", "owned F/node-mo", "owned v/acc.-h",
+                   "break-even", "acc.-h/year", "campaigns/yr", "payback mo"):
+        breakeven.add_column(header, justify="left" if header in ("site", "rented option") else "right",
+                             no_wrap=header in ("site", "rented option"))
+    for row in quote["breakeven"]:
+        breakeven.add_row(
+            row["site"], f"{row['offer']}/{row['term']}", _fixed(row["rented_per_accelerator_hour"], 2),
+            _money(row["owned_fixed_per_month"]), _fixed(row["owned_variable_per_accelerator_hour"], 3),
+            _pct(row["utilisation"]) if row["utilisation"] is not None else "never",
+            _money(row["accelerator_hours_per_year"]), _fixed(row["campaigns_per_year"]),
+            _fixed(row["payback_months"], 0) if row["payback_months"] is not None else "none",
+        )
+    console.print(breakeven)
+    console.print("[bold]Cautions[/]")
+    for caution in quote["cautions"]:
+        console.print(f"  • {caution}", highlight=False)
