@@ -3,7 +3,7 @@
 import json
 import sys
 from datetime import UTC, datetime
-from enum import Enum
+from enum import StrEnum
 from pathlib import Path
 from typing import Annotated, Any
 
@@ -28,7 +28,7 @@ out = Console(width=None if sys.stdout.isatty() else 150)
 err = Console(stderr=True)
 
 
-class QuoteFormat(str, Enum):
+class QuoteFormat(StrEnum):
     table = "table"
     json = "json"
 
@@ -94,3 +94,7 @@ def serve(
 
 def main() -> None:
     app()
+
+
+if __name__ == "__main__":
+    main()

@@ -11,7 +11,7 @@ from typing import Literal
 import numpy as np
 
 from service.domain import screens
-from service.domain.arrays import Floats, Ints, as_floats
+from service.domain.arrays import Bools, Floats, Ints, as_floats
 from service.domain.assumptions import default
 from service.domain.campaign import Campaign, MeasuredWork, Overrides, QuoteOptions, TransformerWork
 from service.domain.catalog import Catalog, NodeType, Offer
@@ -85,8 +85,8 @@ class OptionResult:
     details: dict[str, Floats] = field(default_factory=dict)
 
     @property
-    def feasible(self) -> np.ndarray:
-        return self.screens == 0
+    def feasible(self) -> Bools:
+        return np.asarray(self.screens == 0)
 
     @property
     def label(self) -> str:

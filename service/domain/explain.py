@@ -89,7 +89,8 @@ def _capacity_words(option: OptionResult, i: int, catalog: Catalog) -> str:
 
 
 def _venue(catalog: Catalog, venue_id: str) -> Site | Offer:
-    for venue in (*catalog.sites, *catalog.offers):
+    venues: list[Site | Offer] = [*catalog.sites, *catalog.offers]
+    for venue in venues:
         if venue.id == venue_id:
             return venue
     raise KeyError(venue_id)
@@ -175,7 +176,8 @@ def why(ranked: Sequence[OptionResult], i: int, evaluation: CampaignEvaluation, 
             f"({_pct(gap / float(runner.total[i]))}) less than the runner-up {runner.label}")
     if rank_by == "wall_clock":
         head = (f"{best.label} finishes in {_n(best.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} days against "
-                f"{_n(runner.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} for {runner.label}, at {_n(total)} {currency}")
+                f"{_n(runner.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} for {runner.label}, "
+                f"at {_n(total)} {currency}")
     elif rank_by == "carbon":
         head = (f"{best.label} emits {_n(best.energy.kgco2e[i])} kgCO2e against "
                 f"{_n(runner.energy.kgco2e[i])} for {runner.label}, at {_n(total)} {currency}")

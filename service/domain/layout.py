@@ -5,6 +5,7 @@ counts every quantity is an (S, K) array; `choose` then keeps one column per sce
 """
 
 from dataclasses import dataclass, fields
+from typing import Any
 
 import numpy as np
 
@@ -109,10 +110,7 @@ def evaluate_layouts(
         activation = scenario(default("activation_reserve_fraction") * memory)
     else:
         activation = scenario(load.architecture_activation_bytes)
-    if load.parameters is None:
-        params = scenario(0.0)
-    else:
-        params = scenario(load.parameters)
+    params = scenario(0.0) if load.parameters is None else scenario(load.parameters)
     replicated_state = model_state_bytes(parameters=params, shards=1.0)
     replicated_fits = replicated_state + activation <= usable_bytes(memory)
     if load.parallelism == "replicated":
@@ -229,13 +227,13 @@ def choose(grid: LayoutGrid, cost: Floats, *, node_limit: ArrayLike, deadline_se
     fastest = np.argmin(np.where(allowed, grid.wall_seconds, np.inf), axis=1)
     return Choice(
         index=np.where(any_meets, cheapest, fastest).astype(np.int64),
-        any_fits=allowed.any(axis=1),
-        meets_deadline=any_meets,
+        any_fits=np.asarray(allowed.any(axis=1)),
+        meets_deadline=np.asarray(any_meets),
     )
 
 
-def pick(values: Floats | Bools, index: Ints) -> Floats:
-    """The chosen column of an (S, K) array, as an (S,) array."""
+def pick(values: ArrayLike, index: Ints) -> Any:
+    """The chosen column of an (S, K) array, as an (S,) array of the same dtype."""
     return np.take_along_axis(np.asarray(values), index.reshape(-1, 1), axis=1)[:, 0]
 
 

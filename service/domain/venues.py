@@ -5,7 +5,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from service.domain.arrays import Floats, as_floats
+from service.domain.arrays import ArrayLike, Floats, as_floats
 from service.domain.assumptions import default
 from service.domain.campaign import Overrides, QuoteOptions
 from service.domain.catalog import Catalog, NodeType, Offer, Site
@@ -13,7 +13,7 @@ from service.domain.owning import SiteEconomics, power_headroom_nodes
 from service.domain.scaling import path_efficiency
 
 
-def _or(value: object, fallback: float) -> Floats:
+def _or(value: ArrayLike | None, fallback: ArrayLike) -> Floats:
     return as_floats(fallback if value is None else value)
 
 

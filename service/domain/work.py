@@ -97,8 +97,9 @@ def work_amount(
             sequence_length=work.sequence_length,
             d_model=work.d_model,
         )
-        tokens: Floats | None = as_floats(work.tokens)
-        model_flops = per_token * tokens
+        given_tokens = as_floats(work.tokens)
+        tokens: Floats | None = given_tokens
+        model_flops = per_token * given_tokens
     else:
         per_token = None
         model_flops = as_floats(work.total_flops)

@@ -205,10 +205,11 @@ class CatalogIn(Strict):
             for ref in n.measured_relative_speed:
                 if ref not in node_types:
                     problems.append((f"node_types.{i}.measured_relative_speed", f"unknown node type {ref!r}"))
-        for kind, venues in (("sites", self.sites), ("offers", self.offers)):
-            for i, v in enumerate(venues):
-                if v.node_type not in node_types:
-                    problems.append((f"{kind}.{i}.node_type", f"unknown node type {v.node_type!r}"))
+        references = [("sites", i, s.node_type) for i, s in enumerate(self.sites)]
+        references += [("offers", i, o.node_type) for i, o in enumerate(self.offers)]
+        for kind, i, node_type in references:
+            if node_type not in node_types:
+                problems.append((f"{kind}.{i}.node_type", f"unknown node type {node_type!r}"))
         for i, s in enumerate(self.sites):
             if isinstance(s.facility, OwnedHallIn) and s.power_capacity_kw is None and s.facility.fixed_cost_per_year:
                 problems.append((f"sites.{i}.power_capacity_kw", "an owned hall's fixed cost is shared by its "

@@ -1,11 +1,10 @@
 """The quote request (api.md), validated field by field, then turned into the domain."""
 
-from typing import Annotated, Literal
+from typing import Annotated, Literal, get_args
 
 from pydantic import Field, model_validator
 
 from service.api.schemas.common import (
-    Fraction,
     Identifier,
     NonNegativeFloat,
     PositiveFloat,
@@ -16,6 +15,7 @@ from service.api.schemas.common import (
 from service.domain import campaign as domain
 
 Term = Literal["owned_chargeback", "owned_new_build", "on_demand", "committed", "interruptible"]
+ALL_TERMS: tuple[Term, ...] = get_args(Term)
 
 
 class TransformerWorkIn(Strict):
@@ -102,8 +102,7 @@ class CampaignIn(Strict):
 
 
 class OptionsIn(Strict):
-    terms: list[Term] = Field(
-        default_factory=lambda: list(domain.ALL_TERMS), min_length=1)
+    terms: list[Term] = Field(default_factory=lambda: list(ALL_TERMS), min_length=1)
     max_accelerators: PositiveInt | None = None
     fixed_accelerators: PositiveInt | None = None
     utilisation_basis: Literal["model", "hardware"] = "model"
