@@ -14,3 +14,5 @@ class Settings(BaseSettings):
     port: int = 8000
     database_url: str = "sqlite:///var/berth.db"
     demo_catalog: Path = REPO_ROOT / "pricing_examples" / "catalog.json"
+    load_demo_catalog: bool = True  # on an empty database
+    migrate_on_start: bool = True  # several replicas may instead run the migrations once, as a job

@@ -26,9 +26,17 @@ def parse_document(text: str, *, source: str) -> Any:
 
 def field_problems(error: ValidationError) -> list[FieldProblem]:
     """Pydantic's errors as {field, reason}, the field a dotted path with list indexes."""
+    return field_problems_from_list(list(error.errors(include_url=False)))
+
+
+def field_problems_from_list(items: list[Any]) -> list[FieldProblem]:
+    """The same, from the error dictionaries pydantic and FastAPI produce."""
     problems = []
-    for item in error.errors(include_url=False):
-        path = ".".join(str(part) for part in item["loc"] if not _is_union_tag(part))
+    for item in items:
+        location = list(item["loc"])
+        if location[:1] == ["body"]:  # FastAPI puts the body's fields under "body"
+            location = location[1:]
+        path = ".".join(str(part) for part in location if not _is_union_tag(part))
         cause = item.get("ctx", {}).get("error")
         if isinstance(cause, ReferenceProblems):
             prefix = f"{path}." if path else ""

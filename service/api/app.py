@@ -1,20 +1,83 @@
-"""The app factory: nothing is built at import; `create_app(settings)` wires everything."""
+"""The app factory: nothing is built at import; `create_app(settings)` wires everything, and the
+lifespan (or `prepare` in tests) migrates the schema and loads the demo catalog."""
+
+import logging
+from collections.abc import AsyncIterator, Callable
+from contextlib import asynccontextmanager
+from datetime import datetime
+from typing import Any
 
 from fastapi import FastAPI
+from fastapi.openapi.utils import get_openapi
 
 from service import __version__
+from service.api import problems
+from service.api.deps import utc_now
+from service.api.examples import quote_request_examples
+from service.api.routers import catalogs, probes, quotes
+from service.api.schemas.catalog import CatalogIn
+from service.api.schemas.quote import Problem
 from service.config import Settings
+from service.storage.engine import build_engine
+from service.storage.migrate import upgrade
+from service.storage.repository import Storage
+from service.use_cases import ParsedCatalogs, load_demo_catalog
+
+log = logging.getLogger("berth")
+
+DESCRIPTION = """Where a machine-learning training campaign should run, and what it will cost.
+
+Estimates are for planning, not vendor quotes. Power, cooling and electrical figures must be confirmed
+by licensed engineers under local codes. A residency result is a screen against the rules entered with
+the request, not legal advice."""
 
 
-def create_app(settings: Settings | None = None) -> FastAPI:
+def prepare(app: FastAPI) -> None:
+    """Bring the schema to head and, on an empty database, load the demo catalog."""
+    settings: Settings = app.state.settings
+    storage: Storage = app.state.storage
+    if settings.migrate_on_start:
+        upgrade(storage.engine)
+    if settings.load_demo_catalog and settings.demo_catalog.exists():
+        loaded = load_demo_catalog(storage, settings.demo_catalog, now=app.state.clock())
+        if loaded is not None:
+            log.info("loaded the demo catalog %s as %s", loaded.name, loaded.id)
+
+
+def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime] = utc_now) -> FastAPI:
     settings = settings or Settings()
-    app = FastAPI(title="berth", version=__version__,
-                  description="Where a training campaign should run, and what it will cost.")
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        prepare(app)
+        yield
+        app.state.storage.dispose()
+
+    app = FastAPI(title="berth", version=__version__, description=DESCRIPTION, lifespan=lifespan)
     app.state.settings = settings
-
-    @app.get("/healthz", tags=["probes"])
-    def healthz() -> dict[str, str]:
-        """Liveness: the process answers. Checks nothing external."""
-        return {"status": "ok"}
-
+    app.state.storage = Storage(build_engine(settings.database_url))
+    app.state.catalogs = ParsedCatalogs()
+    app.state.clock = clock
+    problems.install(app)
+    app.include_router(probes.router)
+    app.include_router(catalogs.router)
+    app.include_router(quotes.router)
+    app.openapi = lambda: _openapi(app)  # type: ignore[method-assign]
     return app
+
+
+def _openapi(app: FastAPI) -> dict[str, Any]:
+    """The generated schema, plus what FastAPI cannot infer: the catalog body (read raw, as JSON or
+    YAML), the problem schema, and examples from the demo scenario."""
+    if app.openapi_schema:
+        return app.openapi_schema
+    schema = get_openapi(title=app.title, version=app.version, description=app.description, routes=app.routes)
+    components = schema.setdefault("components", {}).setdefault("schemas", {})
+    for model in (CatalogIn, Problem):
+        model_schema = model.model_json_schema(ref_template="#/components/schemas/{model}")
+        components.update(model_schema.pop("$defs", {}))
+        components[model.__name__] = model_schema
+    body = schema["paths"]["/v1/quotes"]["post"]["requestBody"]["content"]["application/json"]
+    body["examples"] = quote_request_examples()
+    app.openapi_schema = schema
+    return schema

@@ -5,7 +5,7 @@ venues and terms, never over scenarios.
 """
 
 from collections.abc import Callable
-from dataclasses import dataclass, field, fields
+from dataclasses import dataclass, field
 from typing import Literal
 
 import numpy as np
@@ -141,7 +141,8 @@ def evaluate_campaign(
         if "owned_new_build" in options.terms:
             results.append(_evaluate(
                 venue, "owned_new_build", new_build_limit(economics, options),
-                _new_build_builder(node, variable, site.depreciation_months, campaign),
+                _new_build_builder(node, variable, site.depreciation_months,
+                                   site.node_type.accelerators_per_node, campaign),
                 campaign, options, overrides, work, multiplier))
     for offer in catalog.offers:
         results.extend(_offer_options(offer, catalog, campaign, options, overrides, work, multiplier, allowed))
@@ -192,7 +193,7 @@ def _offer_options(
             results.append(_evaluate(
                 venue, f"committed_{commitment.months}m", limit,
                 _committed_builder(commitment.months, commitment.upfront_fraction, price,
-                                   cost_of_capital, campaign, data),
+                                   cost_of_capital, offer.node_type.accelerators_per_node, campaign, data),
                 campaign, options, overrides, work, multiplier))
     if "interruptible" in options.terms and offer.interruptible is not None:
         price = offer.interruptible.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
@@ -226,14 +227,14 @@ def _evaluate(
                             accelerators_per_node=node.accelerators_per_node)
     grid = evaluate_layouts(load, hardware, nodes, fixed_accelerators=options.fixed_accelerators)
     lines_grid, details_grid = build_cost(grid)
-    total_grid = sum(lines_grid.values(), np.zeros(grid.wall_seconds.shape))
+    total_grid = sum(lines_grid.values(), np.zeros(np.broadcast_shapes(grid.wall_seconds.shape, grid.fits.shape)))
     choice = choose(grid, total_grid, node_limit=node_limit, deadline_seconds=load.deadline_seconds)
     chosen = pick_grid(grid, choice.index)
-    min_nodes = _minimum_nodes(load, hardware)
+    min_nodes = np.broadcast_to(_minimum_nodes(load, hardware), choice.index.shape)
     mask = _screen(venue, hardware, limit, min_nodes, choice.any_fits, choice.meets_deadline,
                    shape=choice.index.shape)
-    energy_grid = campaign_energy(
-        grid, idle_kw=node.power_kw_idle, peak_kw=node.power_kw_peak,
+    energy = campaign_energy(
+        chosen, idle_kw=node.power_kw_idle, peak_kw=node.power_kw_peak,
         load=default("busy_load_fraction"), pue=venue.pue, grid_kgco2e_per_kwh=venue.grid_kgco2e_per_kwh)
     return OptionResult(
         venue_kind=venue.kind,
@@ -245,13 +246,10 @@ def _evaluate(
         screens=mask,
         min_nodes=min_nodes,
         limit=limit,
-        lines={item: pick(np.broadcast_to(amount, grid.wall_seconds.shape), choice.index)
-               for item, amount in lines_grid.items()},
+        lines={item: pick(amount, choice.index) for item, amount in lines_grid.items()},
         total=pick(total_grid, choice.index),
-        energy=Energy(**{f.name: pick(np.broadcast_to(getattr(energy_grid, f.name), grid.wall_seconds.shape),
-                                      choice.index) for f in fields(energy_grid)}),
-        details={name: pick(np.broadcast_to(value, grid.wall_seconds.shape), choice.index)
-                 for name, value in details_grid.items()},
+        energy=energy,
+        details={name: pick(value, choice.index) for name, value in details_grid.items()},
     )
 
 
@@ -363,10 +361,10 @@ def _chargeback_builder(node: NodeMonth, variable: Floats, economics: SiteEconom
 
 
 def _new_build_builder(node: NodeMonth, variable: Floats, depreciation_months: int,
-                       campaign: Campaign) -> CostBuilder:
+                       accelerators_per_node: int, campaign: Campaign) -> CostBuilder:
     def build(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
         share = new_build_share(grid, depreciation_months=depreciation_months,
-                                accelerators_per_node=int(grid.accelerators[0, 0] / grid.nodes[0, 0]),
+                                accelerators_per_node=accelerators_per_node,
                                 recurrence=campaign.recurrence)
         lines = new_build_lines(grid, node, share, variable_per_accelerator_hour=variable)
         return lines, {"utilisation": share.utilisation, "sharing_instances": share.sharing_instances,
@@ -393,11 +391,13 @@ def _hourly_builder(price: Floats, data: Callable[[LayoutGrid], Lines]) -> CostB
 
 
 def _committed_builder(months: int, upfront: float, price: Floats, cost_of_capital: Floats,
-                       campaign: Campaign, data: Callable[[LayoutGrid], Lines]) -> CostBuilder:
+                       accelerators_per_node: int, campaign: Campaign,
+                       data: Callable[[LayoutGrid], Lines]) -> CostBuilder:
     def build(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
         share = committed_share(grid, months=months, upfront_fraction=upfront,
                                 cost_of_capital_annual=cost_of_capital, recurrence=campaign.recurrence)
-        lines = committed_lines(grid, share, months=months, price_per_accelerator_hour=price) | data(grid)
+        lines = committed_lines(grid, share, months=months, accelerators_per_node=accelerators_per_node,
+                                price_per_accelerator_hour=price) | data(grid)
         return lines, {"price_per_accelerator_hour": np.asarray(price).reshape(-1, 1),
                        "terms_needed": share.terms_needed, "sharing_instances": share.sharing_instances,
                        "financing_factor": share.financing_factor}

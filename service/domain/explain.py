@@ -8,6 +8,7 @@ import numpy as np
 
 from service.domain import screens
 from service.domain.catalog import Catalog, Colocation, Offer, Site
+from service.domain.comparison import rented_price_in_site_hours
 from service.domain.evaluate import CampaignEvaluation, OptionResult, SiteFigures
 from service.domain.units import HOURS_PER_MONTH, SECONDS_PER_DAY, SECONDS_PER_HOUR
 
@@ -113,7 +114,7 @@ def line_basis(option: OptionResult, item: str, i: int, catalog: Catalog,
         return f"{_n(hours)} accelerator-hours × {price:,.4g} {currency} per accelerator-hour{extra}"
     if item == "commitment":
         d = option.details
-        return (f"{_n(layout.accelerators[i])} accelerators × {option.term.split('_')[1][:-1]} months × "
+        return (f"{_n(layout.nodes[i] * per_node)} accelerators × {option.term.split('_')[1][:-1]} months × "
                 f"{_n(HOURS_PER_MONTH)} h × {price:,.4g} {currency} × {_n(d['terms_needed'][i])} term(s) × "
                 f"up-front financing {d['financing_factor'][i]:.4f} / {_n(d['sharing_instances'][i])} "
                 "recurring instance(s) sharing it; paid whether used or not")
@@ -190,8 +191,8 @@ def _hinge(ranked: Sequence[OptionResult], i: int, evaluation: CampaignEvaluatio
     owned = next((o for o in ranked if o.term == "owned_chargeback"), None)
     if owned is not None and rented is not None and best in (owned, rented):
         site = evaluation.sites[owned.venue_id]
-        # The rented option's all-in cost spread over the site's accelerator-hours for the same work.
-        price = float(rented.total[i]) / float(owned.layout.accelerator_hours[i])
+        # The rented price on the site's own scale, as in the break-even table.
+        price = float(rented_price_in_site_hours(rented, owned.layout.accelerator_hours)[i])
         v = _at(site.variable_per_accelerator_hour, i)
         planned = _at(site.economics.utilisation_planned, i)
         if price > v:

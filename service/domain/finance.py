@@ -16,7 +16,7 @@ def capital_recovery_payment(
 ) -> Floats:
     """Level payment per period that repays `principal` less the discounted `residual`.
 
-    Equals −pmt(rate, periods, −principal, residual) of numpy-financial:
+    Equals pmt(rate, periods, −principal, residual) of numpy-financial:
     (P·(1+i)^n − F)·i / ((1+i)^n − 1), and (P − F)/n when i = 0. With F = 0 this is P times
     the capital recovery factor A/P = i(1+i)^n / ((1+i)^n − 1).
     """
@@ -26,7 +26,8 @@ def capital_recovery_payment(
     f = as_floats(residual)
     growth = np.power(1.0 + i, n)
     safe_i = np.where(i == 0.0, 1.0, i)
-    with_interest = (p * growth - f) * safe_i / np.where(i == 0.0, 1.0, growth - 1.0)
+    # (1+i)^n − 1 via expm1/log1p: exact for tiny i, where growth − 1 would round to 0.
+    with_interest = (p * growth - f) * safe_i / np.where(i == 0.0, 1.0, np.expm1(n * np.log1p(i)))
     return np.where(i == 0.0, (p - f) / n, with_interest)
 
 

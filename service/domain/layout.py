@@ -64,7 +64,8 @@ class Hardware:
 
 @dataclass(frozen=True)
 class LayoutGrid:
-    """Every figure of every candidate layout: (S, K) arrays."""
+    """Every figure of every candidate layout: arrays that broadcast to (S, K) (a figure that does
+    not vary by scenario is (1, K), one that does not vary by layout (S, 1))."""
 
     nodes: Floats
     accelerators: Floats
@@ -184,27 +185,22 @@ def evaluate_layouts(
     )
     solve_seconds = steps_per_run * scenario(load.runs_multiplier) * timing.step_seconds
     wall = solve_seconds * wall_fraction + scenario(hardware.staging_seconds)
-    shape = np.broadcast_shapes(wall.shape, fits.shape)
-
-    def full(value: ArrayLike) -> Floats:
-        return np.broadcast_to(as_floats(value), shape)
-
     return LayoutGrid(
-        nodes=full(column),
-        accelerators=full(accelerators),
-        sharded=np.broadcast_to(sharded, shape),
-        shards=full(shards),
-        state_bytes=full(state),
-        activation_bytes=full(activation),
-        fits=np.broadcast_to(fits, shape),
-        step_seconds=full(timing.step_seconds),
-        scaling_efficiency=full(timing.scaling_efficiency),
-        exposed_fraction=full(timing.exposed_fraction),
-        network_gbps_needed=full(needed),
-        failure_overhead=full(wall_fraction - 1.0),
-        checkpoint_interval_seconds=full(np.where(np.isfinite(interval), interval, np.nan)),
-        wall_seconds=full(wall),
-        accelerator_hours=full(accelerators * wall / SECONDS_PER_HOUR),
+        nodes=column,
+        accelerators=accelerators,
+        sharded=sharded,
+        shards=shards,
+        state_bytes=state,
+        activation_bytes=activation,
+        fits=fits,
+        step_seconds=timing.step_seconds,
+        scaling_efficiency=timing.scaling_efficiency,
+        exposed_fraction=timing.exposed_fraction,
+        network_gbps_needed=needed,
+        failure_overhead=wall_fraction - 1.0,
+        checkpoint_interval_seconds=np.where(np.isfinite(interval), interval, np.nan),
+        wall_seconds=wall,
+        accelerator_hours=accelerators * wall / SECONDS_PER_HOUR,
     )
 
 
@@ -233,8 +229,14 @@ def choose(grid: LayoutGrid, cost: Floats, *, node_limit: ArrayLike, deadline_se
 
 
 def pick(values: ArrayLike, index: Ints) -> Any:
-    """The chosen column of an (S, K) array, as an (S,) array of the same dtype."""
-    return np.take_along_axis(np.asarray(values), index.reshape(-1, 1), axis=1)[:, 0]
+    """The chosen column per scenario of an array that broadcasts to (S, K), as an (S,) array of
+    the same dtype (indexing, not broadcasting, so size-1 axes cost nothing)."""
+    array = np.asarray(values)
+    if array.ndim < 2:
+        return np.broadcast_to(array, index.shape).copy()
+    rows = np.arange(index.shape[0]) if array.shape[0] > 1 else np.zeros_like(index)
+    columns = index if array.shape[1] > 1 else np.zeros_like(index)
+    return array[rows, columns]
 
 
 def pick_grid(grid: LayoutGrid, index: Ints) -> LayoutGrid:

@@ -34,7 +34,8 @@ def young_interval(*, checkpoint_seconds: ArrayLike, mtbi_seconds: ArrayLike) ->
 
 
 def daly_interval(*, checkpoint_seconds: ArrayLike, mtbi_seconds: ArrayLike) -> Floats:
-    """Higher-order optimal checkpoint interval (Daly 2006, FGCS 22(3), Eq. 37).
+    """Higher-order optimal checkpoint interval (Daly 2006, "A higher order estimate of the optimum
+    checkpoint interval for restart dumps", FGCS 22(3):303-312).
 
     τ = √(2δM)·[1 + ⅓·√(δ/2M) + (1/9)·(δ/2M)] − δ for δ < 2M, else τ = M. M may be inf
     (no interruptions), and then τ is inf too.
@@ -56,8 +57,10 @@ def expected_wall_fraction(
 ) -> Floats:
     """Expected wall time over solve time with checkpoints and restarts.
 
-    T_w / T_s = M·e^{R/M}·(e^{(τ+δ)/M} − 1) / τ (Daly 2006, FGCS 22(3), Eq. 13 with exponential
-    failures). With M = inf there are no interruptions and no checkpoints are needed: 1.
+    T_w / T_s = M·e^{R/M}·(e^{(τ+δ)/M} − 1) / τ: the expected time for exponentially distributed
+    interruptions when a restart can itself be interrupted (the model of Daly 2006, FGCS 22(3);
+    derived, and checked by simulation in the tests). With M = inf there are no interruptions and
+    no checkpoints are needed: 1.
     """
     mtbi = as_floats(mtbi_seconds)
     finite = np.isfinite(mtbi)

@@ -121,10 +121,12 @@ def committed_share(
 
 
 def committed_lines(
-    grid: LayoutGrid, share: CommittedShare, *, months: int, price_per_accelerator_hour: ArrayLike,
+    grid: LayoutGrid, share: CommittedShare, *, months: int, accelerators_per_node: int,
+    price_per_accelerator_hour: ArrayLike,
 ) -> Lines:
-    """nodes × accelerators × term hours × price, paid whether used or not (model.md §7)."""
-    fee = grid.accelerators * months * HOURS_PER_MONTH * _scenario(price_per_accelerator_hour)
+    """nodes × accelerators per node × term hours × price, paid whether used or not (model.md §7):
+    whole nodes are committed even when fewer accelerators are pinned."""
+    fee = grid.nodes * accelerators_per_node * months * HOURS_PER_MONTH * _scenario(price_per_accelerator_hour)
     return {"commitment": fee * share.terms_needed * share.financing_factor / share.sharing_instances}
 
 
@@ -160,7 +162,7 @@ def campaign_energy(
     grid: LayoutGrid, *, idle_kw: float, peak_kw: float, load: float, pue: ArrayLike,
     grid_kgco2e_per_kwh: ArrayLike,
 ) -> Energy:
-    """Energy of the nodes the layout holds for the wall clock, busy at `load`.
+    """Energy of the nodes a chosen layout ((S,) arrays) holds for the wall clock, busy at `load`.
 
     IT kWh = nodes × (idle + (peak − idle) × load) × hours; facility kWh = IT × PUE; all IT
     power becomes heat, so the cooling load is the peak IT power; carbon = facility kWh × grid
@@ -168,6 +170,6 @@ def campaign_energy(
     """
     busy_kw = idle_kw + (peak_kw - idle_kw) * load
     it_kwh = grid.nodes * busy_kw * wall_hours(grid)
-    facility = it_kwh * _scenario(pue)
+    facility = it_kwh * as_floats(pue)
     peak_it = grid.nodes * peak_kw
-    return Energy(it_kwh, facility, peak_it, peak_it, facility * _scenario(grid_kgco2e_per_kwh))
+    return Energy(it_kwh, facility, peak_it, peak_it, facility * as_floats(grid_kgco2e_per_kwh))

@@ -1,0 +1,45 @@
+"""Dependencies, as Annotated aliases: the storage, the parsed-catalog cache, the clock, the caller."""
+
+from collections.abc import Callable
+from datetime import UTC, datetime
+from typing import Annotated
+
+from fastapi import Depends, Request
+
+from service.storage.repository import Storage
+from service.use_cases import ParsedCatalogs
+
+
+def _storage(request: Request) -> Storage:
+    storage: Storage = request.app.state.storage
+    return storage
+
+
+def _catalogs(request: Request) -> ParsedCatalogs:
+    catalogs: ParsedCatalogs = request.app.state.catalogs
+    return catalogs
+
+
+def _now(request: Request) -> datetime:
+    clock: Callable[[], datetime] = request.app.state.clock
+    return clock()
+
+
+def _caller(_request: Request) -> str:
+    # Until API keys exist every caller is the local one; keys will name callers.
+    return "local"
+
+
+async def _raw_body(request: Request) -> bytes:
+    return await request.body()
+
+
+StorageDep = Annotated[Storage, Depends(_storage)]
+CatalogsDep = Annotated[ParsedCatalogs, Depends(_catalogs)]
+NowDep = Annotated[datetime, Depends(_now)]
+CallerDep = Annotated[str, Depends(_caller)]
+RawBodyDep = Annotated[bytes, Depends(_raw_body)]
+
+
+def utc_now() -> datetime:
+    return datetime.now(UTC)

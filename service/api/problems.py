@@ -1,0 +1,67 @@
+"""Every error as RFC 9457 problem details (application/problem+json): the project's own errors,
+Starlette's HTTP errors, request validation (a list of field paths and reasons), and a catch-all 500
+that hides the trace."""
+
+import logging
+from typing import Any
+
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+from starlette.exceptions import HTTPException
+
+from service.errors import BerthError, InvalidInput
+from service.loading import field_problems_from_list
+
+PROBLEM = "application/problem+json"
+log = logging.getLogger("berth.errors")
+
+TYPES = {
+    400: "bad-request", 401: "unauthorized", 403: "forbidden", 404: "not-found", 405: "method-not-allowed",
+    409: "conflict", 413: "payload-too-large", 415: "unsupported-media-type", 422: "invalid-input",
+    429: "too-many-requests", 500: "internal-error", 503: "unavailable",
+}
+
+
+def problem(status: int, title: str, detail: str, *, errors: list[dict[str, str]] | None = None,
+            headers: dict[str, str] | None = None) -> JSONResponse:
+    body: dict[str, Any] = {"type": f"/problems/{TYPES.get(status, 'error')}", "title": title,
+                            "status": status, "detail": detail}
+    if errors is not None:
+        body["errors"] = errors
+    return JSONResponse(body, status_code=status, media_type=PROBLEM, headers=headers)
+
+
+def install(app: FastAPI) -> None:
+    @app.exception_handler(BerthError)
+    async def _own(_request: Request, error: BerthError) -> JSONResponse:
+        errors = None
+        if isinstance(error, InvalidInput):
+            errors = [{"field": p.field, "reason": p.reason} for p in error.problems]
+        return problem(error.status, error.title, error.detail, errors=errors)
+
+    @app.exception_handler(RequestValidationError)
+    async def _validation(_request: Request, error: RequestValidationError) -> JSONResponse:
+        errors = [{"field": p.field, "reason": p.reason} for p in field_problems_from_list(list(error.errors()))]
+        return problem(422, "Invalid input", "the request does not match the schema", errors=errors)
+
+    @app.exception_handler(HTTPException)
+    async def _http(_request: Request, error: HTTPException) -> JSONResponse:
+        return problem(error.status_code, _title(error.status_code), str(error.detail),
+                       headers=dict(error.headers) if error.headers else None)
+
+    @app.exception_handler(Exception)
+    async def _unexpected(request: Request, error: Exception) -> JSONResponse:
+        log.exception("unhandled error on %s %s", request.method, request.url.path)
+        return problem(500, "Internal error", "the service failed to answer; the error was logged")
+
+
+def _title(status: int) -> str:
+    return TYPES.get(status, "error").replace("-", " ").capitalize()
+
+
+PROBLEM_RESPONSES: dict[int | str, dict[str, Any]] = {
+    status: {"description": TYPES[status].replace("-", " "), "model": None,
+             "content": {PROBLEM: {"schema": {"$ref": "#/components/schemas/Problem"}}}}
+    for status in (404, 422)
+}

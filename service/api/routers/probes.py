@@ -1,0 +1,31 @@
+"""Liveness and readiness: outside any auth and limits."""
+
+from fastapi import APIRouter
+from fastapi.responses import JSONResponse
+
+from service.api.deps import StorageDep
+from service.storage.migrate import is_at_head
+
+router = APIRouter(tags=["probes"])
+
+
+@router.get("/healthz")
+def healthz() -> dict[str, str]:
+    """Liveness: the process answers. Checks nothing external."""
+    return {"status": "ok"}
+
+
+@router.get("/readyz", responses={503: {"description": "database unreachable or schema not at head"}})
+def readyz(storage: StorageDep) -> JSONResponse:
+    """Readiness: the database answers and its schema is at the newest migration."""
+    checks: dict[str, str] = {}
+    try:
+        with storage.reading() as repository:
+            repository.ping()
+        checks["database"] = "ok"
+        checks["migrations"] = "ok" if is_at_head(storage.engine) else "behind"
+    except Exception as error:  # any failure to reach the database means not ready
+        checks["database"] = f"unreachable: {type(error).__name__}"
+    ready = all(v == "ok" for v in checks.values()) and "migrations" in checks
+    return JSONResponse({"status": "ready" if ready else "not ready", "checks": checks},
+                        status_code=200 if ready else 503)

@@ -1,0 +1,83 @@
+"""Quotes: create (stored, idempotent with a key), list, read, recompute."""
+
+from datetime import datetime
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Header, Query
+from fastapi.responses import JSONResponse
+
+from service.api.deps import CallerDep, CatalogsDep, NowDep, RawBodyDep, StorageDep
+from service.api.problems import PROBLEM, PROBLEM_RESPONSES
+from service.api.schemas.quote import QuoteOut, QuotePage, Recomputation
+from service.api.schemas.request import QuoteRequestIn
+from service.errors import FieldProblem, InvalidInput
+from service.storage.repository import StoredQuote
+from service.use_cases import body_fingerprint, create_quote, get_quote, recompute_quote
+
+router = APIRouter(prefix="/v1/quotes", tags=["quotes"])
+
+CONFLICT: dict[int | str, dict[str, Any]] = {409: {"description": "a request with this Idempotency-Key is still in flight",
+                  "content": {PROBLEM: {"schema": {"$ref": "#/components/schemas/Problem"}}}}}
+
+
+@router.post("", status_code=201, response_model=QuoteOut, responses={**PROBLEM_RESPONSES, **CONFLICT})
+def post_quote(
+    payload: QuoteRequestIn,
+    raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep, now: NowDep, caller: CallerDep,
+    idempotency_key: Annotated[str | None, Header(max_length=255)] = None,
+) -> JSONResponse:
+    """Quote one campaign against a catalog (default: the newest), store it, and return it.
+    The same Idempotency-Key with the same body returns the first answer."""
+    outcome = create_quote(storage, catalogs, payload, now=now, caller=caller, idempotency_key=idempotency_key,
+                           fingerprint=body_fingerprint(raw))
+    headers = {"Location": f"/v1/quotes/{outcome.body['id']}"}
+    if outcome.replayed:
+        headers["Idempotent-Replayed"] = "true"
+    return JSONResponse(outcome.body, status_code=outcome.status_code, headers=headers)
+
+
+def summary(stored: StoredQuote) -> dict[str, Any]:
+    return {
+        "id": stored.id,
+        "created_at": stored.created_at.isoformat().replace("+00:00", "Z"),
+        "team": stored.team,
+        "campaign_name": stored.campaign_name,
+        "catalog_id": stored.catalog_id,
+        "model_version": stored.model_version,
+        "recommendation": stored.response.get("recommendation"),
+        "links": {"self": f"/v1/quotes/{stored.id}"},
+    }
+
+
+@router.get("", response_model=QuotePage, responses=PROBLEM_RESPONSES)
+def list_quotes(
+    storage: StorageDep,
+    team: Annotated[str | None, Query(max_length=100)] = None,
+    campaign_name: Annotated[str | None, Query(max_length=200)] = None,
+    created_from: Annotated[datetime | None, Query(description="inclusive, ISO 8601")] = None,
+    created_to: Annotated[datetime | None, Query(description="exclusive, ISO 8601")] = None,
+    limit: Annotated[int, Query(ge=1, le=200)] = 50,
+    cursor: Annotated[str | None, Query(max_length=200)] = None,
+) -> dict[str, Any]:
+    """Stored quotes, newest first, filtered by team, campaign name and creation time."""
+    for name, moment in (("created_from", created_from), ("created_to", created_to)):
+        if moment is not None and moment.tzinfo is None:
+            raise InvalidInput("times need a zone",
+                               [FieldProblem(name, "give a UTC offset, e.g. 2027-01-01T00:00:00Z")])
+    with storage.reading() as repository:
+        items, next_cursor = repository.quotes(limit=limit, cursor=cursor, team=team, campaign_name=campaign_name,
+                                               created_from=created_from, created_to=created_to)
+    return {"items": [summary(q) for q in items], "next_cursor": next_cursor}
+
+
+@router.get("/{quote_id}", response_model=QuoteOut, responses=PROBLEM_RESPONSES)
+def read_quote(quote_id: str, storage: StorageDep) -> JSONResponse:
+    """One stored quote, exactly as it was returned when created."""
+    return JSONResponse(get_quote(storage, quote_id).response)
+
+
+@router.post("/{quote_id}/recompute", response_model=Recomputation, responses=PROBLEM_RESPONSES)
+def recompute(quote_id: str, storage: StorageDep, catalogs: CatalogsDep) -> dict[str, Any]:
+    """Recompute a stored quote from its stored request and catalog under the current model, and
+    list every figure that differs (none while the model version is unchanged). Stores nothing."""
+    return recompute_quote(storage, catalogs, quote_id)

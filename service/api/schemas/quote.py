@@ -1,0 +1,204 @@
+"""The quote response as documented in the OpenAPI (api.md). The service builds the body in
+`service.document` and these models describe it; a test checks that real quotes validate."""
+
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict
+
+
+class Open(BaseModel):
+    """Responses may gain fields; clients ignore what they do not know."""
+
+    model_config = ConfigDict(extra="allow")
+
+
+class Venue(Open):
+    kind: Literal["owned", "rented"]
+    id: str
+    jurisdiction: str
+    node_type: str
+
+
+class Layout(Open):
+    nodes: int
+    accelerators: int
+    strategy: Literal["replicated", "sharded"]
+    shards: int
+
+
+class Memory(Open):
+    model_state_bytes_per_accelerator: float | None
+    activation_bytes_per_accelerator: float | None
+    fits: bool
+
+
+class Timing(Open):
+    step_seconds: float | None
+    scaling_efficiency: float | None
+    exposed_communication_fraction: float | None
+    network_gbps_needed_for_95pct: float | None
+    failure_overhead_fraction: float | None
+    checkpoint_interval_hours: float | None
+    wall_clock_days: float | None
+    accelerator_hours: float | None
+
+
+class Energy(Open):
+    it_kwh: float | None
+    facility_kwh: float | None
+    peak_it_kw: float | None
+    cooling_kw_thermal: float | None
+    cooling_tons: float | None
+    kgco2e: float | None
+
+
+class CostLine(Open):
+    item: str
+    amount: float | None
+    basis: str
+
+
+class Cost(Open):
+    currency: str
+    total: float | None
+    per_accelerator_hour: float | None
+    lines: list[CostLine]
+
+
+class Option(Open):
+    rank: int | None
+    venue: Venue
+    term: str
+    feasible: bool
+    reasons: list[str]
+    layout: Layout
+    memory: Memory
+    timing: Timing
+    energy: Energy
+    cost: Cost
+    term_figures: dict[str, float | None]
+
+
+class Recommendation(Open):
+    option_index: int
+    venue: str
+    term: str
+    why: str
+
+
+class BreakEvenRow(Open):
+    site: str
+    offer: str
+    term: str
+    currency: str
+    rented_per_accelerator_hour: float | None
+    rented_listed_per_accelerator_hour: float | None
+    owned_fixed_per_month: float | None
+    owned_variable_per_accelerator_hour: float | None
+    utilisation: float | None
+    accelerator_hours_per_year: float | None
+    campaigns_per_year: float | None
+    payback_months: float | None
+    reason: str | None
+    payback_reason: str | None
+    note: str | None
+
+
+class CurvePoint(Open):
+    utilisation: float
+    owned_per_accelerator_hour: float | None
+
+
+class Curve(Open):
+    site: str
+    currency: str
+    points: list[CurvePoint]
+
+
+class AssumptionOut(Open):
+    name: str
+    value: float
+    unit: str
+    source: str
+
+
+class WorkOut(Open):
+    training_flops: float | None
+    hardware_flops: float | None
+    flops_per_token: float | None
+    runs_total_flops: float | None
+    instances: float | None
+
+
+class QuoteOut(Open):
+    id: str | None
+    created_at: str
+    catalog_id: str | None
+    catalog_hash: str
+    model_version: str
+    request: dict[str, Any]
+    currency: str
+    work: WorkOut
+    options: list[Option]
+    recommendation: Recommendation | None
+    next_steps: list[str]
+    breakeven: list[BreakEvenRow]
+    curves: list[Curve]
+    assumptions: list[AssumptionOut]
+    cautions: list[str]
+
+
+class QuoteSummary(Open):
+    id: str
+    created_at: str
+    team: str
+    campaign_name: str
+    catalog_id: str
+    model_version: str
+    recommendation: Recommendation | None
+    links: dict[str, str]
+
+
+class QuotePage(Open):
+    items: list[QuoteSummary]
+    next_cursor: str | None
+
+
+class Difference(Open):
+    path: str
+    stored: Any
+    recomputed: Any
+
+
+class Recomputation(Open):
+    quote_id: str
+    catalog_id: str
+    model_version_stored: str
+    model_version_now: str
+    changed: bool
+    differences: list[Difference]
+    differences_total: int
+
+
+class CatalogOut(Open):
+    id: str
+    name: str
+    currency: str
+    content_hash: str
+    created_at: str
+    content: dict[str, Any] | None = None
+
+
+class CatalogPage(Open):
+    items: list[CatalogOut]
+    next_cursor: str | None
+
+
+class Problem(Open):
+    """RFC 9457 problem details."""
+
+    type: str
+    title: str
+    status: int
+    detail: str
+    errors: list[dict[str, str]] | None = None

@@ -1,0 +1,236 @@
+"""The repository: every query berth makes, behind one small interface. Use cases open a unit of
+work (`Storage.writing()` or `Storage.reading()`), call these methods, and the unit commits once."""
+
+import base64
+import binascii
+import json
+import uuid
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from datetime import UTC, datetime, timedelta
+from typing import Any
+
+from sqlalchemy import Engine, and_, delete, func, or_, text
+from sqlalchemy.exc import IntegrityError
+from sqlmodel import Session, col, select
+
+from service.errors import InvalidInput
+from service.storage.engine import READ_ONLY
+from service.storage.tables import CatalogRow, IdempotencyRow, QuoteRow
+
+
+def utc(moment: datetime) -> datetime:
+    """SQLite hands datetimes back without a zone; every stored moment is UTC."""
+    return moment if moment.tzinfo is not None else moment.replace(tzinfo=UTC)
+
+
+def new_id(prefix: str) -> str:
+    return f"{prefix}_{uuid.uuid4().hex}"
+
+
+@dataclass(frozen=True)
+class StoredCatalog:
+    id: str
+    name: str
+    currency: str
+    content_hash: str
+    content: dict[str, Any]
+    created_at: datetime
+
+
+@dataclass(frozen=True)
+class StoredQuote:
+    id: str
+    created_at: datetime
+    team: str
+    campaign_name: str
+    catalog_id: str
+    catalog_hash: str
+    model_version: str
+    request: dict[str, Any]
+    response: dict[str, Any]
+
+
+@dataclass(frozen=True)
+class Claim:
+    """What an Idempotency-Key already holds: nothing (claimed now), a run in flight, or an answer."""
+
+    state: str  # "claimed", "in_flight", "done"
+    same_body: bool
+    status_code: int | None = None
+    response: dict[str, Any] | None = None
+
+
+def _catalog(row: CatalogRow) -> StoredCatalog:
+    return StoredCatalog(row.id, row.name, row.currency, row.content_hash, json.loads(row.content),
+                         utc(row.created_at))
+
+
+def _quote(row: QuoteRow) -> StoredQuote:
+    return StoredQuote(row.id, utc(row.created_at), row.team, row.campaign_name, row.catalog_id,
+                       row.catalog_hash, row.model_version, json.loads(row.request), json.loads(row.response))
+
+
+def encode_cursor(created_at: datetime, ident: str) -> str:
+    raw = f"{utc(created_at).isoformat()}|{ident}".encode()
+    return base64.urlsafe_b64encode(raw).decode().rstrip("=")
+
+
+def decode_cursor(cursor: str) -> tuple[datetime, str]:
+    try:
+        raw = base64.urlsafe_b64decode(cursor + "=" * (-len(cursor) % 4)).decode()
+        moment, ident = raw.split("|", 1)
+        return utc(datetime.fromisoformat(moment)), ident
+    except (ValueError, binascii.Error, UnicodeDecodeError) as error:
+        raise InvalidInput("the cursor is not one this service issued") from error
+
+
+class Repository:
+    """Queries over one session; the unit of work around it commits."""
+
+    def __init__(self, session: Session) -> None:
+        self.session = session
+
+    # catalogs
+    def catalog_by_hash(self, content_hash: str) -> StoredCatalog | None:
+        row = self.session.exec(select(CatalogRow).where(CatalogRow.content_hash == content_hash)).first()
+        return None if row is None else _catalog(row)
+
+    def add_catalog(self, *, name: str, currency: str, content_hash: str, content: dict[str, Any],
+                    created_at: datetime) -> StoredCatalog:
+        row = CatalogRow(id=new_id("cat"), name=name, currency=currency, content_hash=content_hash,
+                         content=json.dumps(content, sort_keys=True), created_at=created_at)
+        self.session.add(row)
+        self.session.flush()
+        return _catalog(row)
+
+    def catalog(self, catalog_id: str) -> StoredCatalog | None:
+        row = self.session.get(CatalogRow, catalog_id)
+        return None if row is None else _catalog(row)
+
+    def newest_catalog(self) -> StoredCatalog | None:
+        query = select(CatalogRow).order_by(col(CatalogRow.created_at).desc(), col(CatalogRow.id).desc())
+        row = self.session.exec(query.limit(1)).first()
+        return None if row is None else _catalog(row)
+
+    def catalogs(self, *, limit: int, cursor: str | None) -> tuple[list[StoredCatalog], str | None]:
+        query = select(CatalogRow)
+        if cursor:
+            moment, ident = decode_cursor(cursor)
+            query = query.where(or_(col(CatalogRow.created_at) < moment,
+                                    and_(col(CatalogRow.created_at) == moment, col(CatalogRow.id) < ident)))
+        query = query.order_by(col(CatalogRow.created_at).desc(), col(CatalogRow.id).desc()).limit(limit + 1)
+        rows = [_catalog(r) for r in self.session.exec(query).all()]
+        return _page(rows, limit)
+
+    # quotes
+    def add_quote(self, quote: StoredQuote) -> None:
+        self.session.add(QuoteRow(
+            id=quote.id, created_at=quote.created_at, team=quote.team, campaign_name=quote.campaign_name,
+            catalog_id=quote.catalog_id, catalog_hash=quote.catalog_hash, model_version=quote.model_version,
+            request=json.dumps(quote.request, sort_keys=True), response=json.dumps(quote.response)))
+        self.session.flush()
+
+    def quote(self, quote_id: str) -> StoredQuote | None:
+        row = self.session.get(QuoteRow, quote_id)
+        return None if row is None else _quote(row)
+
+    def quotes(self, *, limit: int, cursor: str | None, team: str | None = None, campaign_name: str | None = None,
+               created_from: datetime | None = None, created_to: datetime | None = None,
+               ) -> tuple[list[StoredQuote], str | None]:
+        query = select(QuoteRow)
+        if team is not None:
+            query = query.where(QuoteRow.team == team)
+        if campaign_name is not None:
+            query = query.where(QuoteRow.campaign_name == campaign_name)
+        if created_from is not None:
+            query = query.where(QuoteRow.created_at >= created_from)
+        if created_to is not None:
+            query = query.where(QuoteRow.created_at < created_to)
+        if cursor:
+            moment, ident = decode_cursor(cursor)
+            query = query.where(or_(col(QuoteRow.created_at) < moment,
+                                    and_(col(QuoteRow.created_at) == moment, col(QuoteRow.id) < ident)))
+        query = query.order_by(col(QuoteRow.created_at).desc(), col(QuoteRow.id).desc()).limit(limit + 1)
+        return _page([_quote(r) for r in self.session.exec(query).all()], limit)
+
+    def count_quotes(self) -> int:
+        return int(self.session.exec(select(func.count()).select_from(QuoteRow)).one())
+
+    # idempotency keys
+    def claim_key(self, *, caller: str, key: str, body_hash: str, now: datetime, lease: timedelta,
+                  keep: timedelta) -> Claim:
+        """Claim a key for a request, or say what it already holds. An expired key, or a claim whose
+        lease ran out (its request died), is taken over."""
+        row = self.session.exec(
+            select(IdempotencyRow).where(IdempotencyRow.caller == caller, IdempotencyRow.key == key)
+        ).first()
+        existing = row
+        if existing is not None:
+            expired = utc(existing.expires_at) <= now
+            abandoned = existing.state == "in_flight" and utc(existing.claimed_at) + lease <= now
+            if not (expired or abandoned):
+                same = existing.body_hash == body_hash
+                if existing.state == "done":
+                    return Claim("done", same, existing.status_code,
+                                 None if existing.response is None else json.loads(existing.response))
+                return Claim("in_flight", same)
+            self.session.delete(existing)
+            self.session.flush()
+        try:
+            with self.session.begin_nested():
+                self.session.add(IdempotencyRow(caller=caller, key=key, body_hash=body_hash, state="in_flight",
+                                                claimed_at=now, expires_at=now + keep))
+        except IntegrityError:
+            # Another replica claimed it between our read and our write.
+            return Claim("in_flight", True)
+        return Claim("claimed", True)
+
+    def complete_key(self, *, caller: str, key: str, status_code: int, response: dict[str, Any]) -> None:
+        row = self.session.exec(
+            select(IdempotencyRow).where(IdempotencyRow.caller == caller, IdempotencyRow.key == key)
+        ).first()
+        if row is not None:
+            record = row
+            record.state, record.status_code, record.response = "done", status_code, json.dumps(response)
+            self.session.add(record)
+            self.session.flush()
+
+    def release_key(self, *, caller: str, key: str) -> None:
+        """Forget a claim whose request was rejected, so a corrected retry can run."""
+        self.session.execute(delete(IdempotencyRow).where(
+            col(IdempotencyRow.caller) == caller, col(IdempotencyRow.key) == key,
+            col(IdempotencyRow.state) == "in_flight"))
+
+    def ping(self) -> None:
+        self.session.execute(text("SELECT 1"))
+
+
+def _page(rows: list[Any], limit: int) -> tuple[list[Any], str | None]:
+    if len(rows) <= limit:
+        return rows, None
+    last = rows[limit - 1]
+    return rows[:limit], encode_cursor(last.created_at, last.id)
+
+
+class Storage:
+    """The engine and units of work over it."""
+
+    def __init__(self, engine: Engine) -> None:
+        self.engine = engine
+
+    @contextmanager
+    def writing(self) -> Iterator[Repository]:
+        """One write transaction (BEGIN IMMEDIATE on SQLite): committed when the block ends."""
+        with Session(self.engine, expire_on_commit=False) as session, session.begin():
+            yield Repository(session)
+
+    @contextmanager
+    def reading(self) -> Iterator[Repository]:
+        with Session(self.engine) as session:
+            session.connection(execution_options={READ_ONLY: True})
+            yield Repository(session)
+
+    def dispose(self) -> None:
+        self.engine.dispose()

@@ -1,0 +1,53 @@
+"""The tables. JSON documents are stored as text so SQLite and PostgreSQL hold the same bytes."""
+
+from datetime import datetime
+
+from sqlalchemy import Column, DateTime, Index, Text, UniqueConstraint
+from sqlmodel import Field, SQLModel
+
+
+def _utc_column(*, index: bool = False) -> Column:  # type: ignore[type-arg]
+    return Column(DateTime(timezone=True), nullable=False, index=index)
+
+
+class CatalogRow(SQLModel, table=True):
+    __tablename__ = "catalog"
+
+    id: str = Field(primary_key=True, max_length=40)
+    name: str = Field(max_length=200)
+    currency: str = Field(max_length=3)
+    content_hash: str = Field(max_length=64, unique=True)
+    content: str = Field(sa_column=Column(Text, nullable=False))
+    created_at: datetime = Field(sa_column=_utc_column(index=True))
+
+
+class QuoteRow(SQLModel, table=True):
+    __tablename__ = "quote"
+    __table_args__ = (Index("ix_quote_created_id", "created_at", "id"),)
+
+    id: str = Field(primary_key=True, max_length=40)
+    created_at: datetime = Field(sa_column=_utc_column())
+    team: str = Field(max_length=100, index=True)
+    campaign_name: str = Field(max_length=200, index=True)
+    catalog_id: str = Field(foreign_key="catalog.id", max_length=40, index=True)
+    catalog_hash: str = Field(max_length=64)
+    model_version: str = Field(max_length=80)
+    request: str = Field(sa_column=Column(Text, nullable=False))
+    response: str = Field(sa_column=Column(Text, nullable=False))
+
+
+class IdempotencyRow(SQLModel, table=True):
+    """One Idempotency-Key of one caller: claimed while the first request runs, then its answer."""
+
+    __tablename__ = "idempotency_key"
+    __table_args__ = (UniqueConstraint("caller", "key", name="uq_idempotency_caller_key"),)
+
+    id: int | None = Field(default=None, primary_key=True)
+    caller: str = Field(max_length=100)
+    key: str = Field(max_length=255)
+    body_hash: str = Field(max_length=64)
+    state: str = Field(max_length=16)  # "in_flight" or "done"
+    status_code: int | None = None
+    response: str | None = Field(default=None, sa_column=Column(Text, nullable=True))
+    claimed_at: datetime = Field(sa_column=_utc_column())
+    expires_at: datetime = Field(sa_column=_utc_column(index=True))

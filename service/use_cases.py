@@ -1,0 +1,174 @@
+"""Use cases over storage: upload a catalog, create, list, read and recompute quotes. Each takes
+the storage and owns its transaction; the HTTP layer and the command line only call these."""
+
+import hashlib
+import json
+from collections import OrderedDict
+from dataclasses import dataclass
+from datetime import datetime, timedelta
+from pathlib import Path
+from typing import Any
+
+from service.api.schemas.catalog import CatalogIn
+from service.api.schemas.request import QuoteRequestIn
+from service.errors import Conflict, FieldProblem, InvalidInput, NotFound
+from service.loading import parse_document, validate
+from service.quoting import catalog_hash, envelope, model_version, quote
+from service.storage.repository import Storage, StoredCatalog, StoredQuote, new_id
+
+IDEMPOTENCY_KEEP = timedelta(hours=24)
+IDEMPOTENCY_LEASE = timedelta(seconds=60)
+
+
+class ParsedCatalogs:
+    """Validated catalogs by content hash: stored catalogs never change, so parsing once is enough."""
+
+    def __init__(self, size: int = 32) -> None:
+        self._items: OrderedDict[str, CatalogIn] = OrderedDict()
+        self._size = size
+
+    def get(self, stored: StoredCatalog) -> CatalogIn:
+        parsed = self._items.get(stored.content_hash)
+        if parsed is None:
+            parsed = CatalogIn.model_validate(stored.content)
+            self._items[stored.content_hash] = parsed
+            if len(self._items) > self._size:
+                self._items.popitem(last=False)
+        self._items.move_to_end(stored.content_hash)
+        return parsed
+
+
+def upload_catalog(storage: Storage, data: Any, *, now: datetime) -> tuple[StoredCatalog, bool]:
+    """Validate and store a catalog; identical content returns the catalog already stored."""
+    catalog = validate(CatalogIn, data, source="catalog")
+    content = catalog.model_dump(mode="json")
+    digest = catalog_hash(catalog)
+    with storage.writing() as repository:
+        existing = repository.catalog_by_hash(digest)
+        if existing is not None:
+            return existing, False
+        stored = repository.add_catalog(name=catalog.name, currency=catalog.currency, content_hash=digest,
+                                        content=content, created_at=now)
+        return stored, True
+
+
+def load_demo_catalog(storage: Storage, path: Path, *, now: datetime) -> StoredCatalog | None:
+    """Store the demo catalog when the database holds none, so a new service answers at once."""
+    with storage.reading() as repository:
+        if repository.newest_catalog() is not None:
+            return None
+    stored, _ = upload_catalog(storage, parse_document(path.read_text(encoding="utf-8"), source=str(path)), now=now)
+    return stored
+
+
+def body_fingerprint(body: bytes) -> str:
+    """sha256 of the request's JSON, canonicalised, so whitespace and key order do not matter."""
+    try:
+        canonical = json.dumps(json.loads(body), sort_keys=True, separators=(",", ":")).encode("utf-8")
+    except (ValueError, UnicodeDecodeError):
+        canonical = body
+    return hashlib.sha256(canonical).hexdigest()
+
+
+@dataclass(frozen=True)
+class QuoteOutcome:
+    status_code: int
+    body: dict[str, Any]
+    replayed: bool = False
+
+
+def create_quote(storage: Storage, catalogs: ParsedCatalogs, request: QuoteRequestIn, *, now: datetime,
+                 caller: str, idempotency_key: str | None, fingerprint: str) -> QuoteOutcome:
+    """Quote and store. With an Idempotency-Key: the same body replays the first answer, another
+    body is refused, and a retry while the first runs is told to wait."""
+    if idempotency_key is not None:
+        with storage.writing() as repository:
+            claim = repository.claim_key(caller=caller, key=idempotency_key, body_hash=fingerprint, now=now,
+                                         lease=IDEMPOTENCY_LEASE, keep=IDEMPOTENCY_KEEP)
+        if not claim.same_body:
+            raise InvalidInput("this Idempotency-Key was used with a different request body")
+        if claim.state == "in_flight":
+            raise Conflict("a request with this Idempotency-Key is still being processed; retry shortly")
+        if claim.state == "done" and claim.response is not None:
+            return QuoteOutcome(claim.status_code or 201, claim.response, replayed=True)
+    try:
+        outcome = _quote_and_store(storage, catalogs, request, now=now, caller=caller, key=idempotency_key)
+    except Exception:
+        if idempotency_key is not None:
+            with storage.writing() as repository:
+                repository.release_key(caller=caller, key=idempotency_key)
+        raise
+    return outcome
+
+
+def _quote_and_store(storage: Storage, catalogs: ParsedCatalogs, request: QuoteRequestIn, *, now: datetime,
+                     caller: str, key: str | None) -> QuoteOutcome:
+    with storage.reading() as repository:
+        stored_catalog = (repository.newest_catalog() if request.catalog_id is None
+                          else repository.catalog(request.catalog_id))
+    if stored_catalog is None:
+        if request.catalog_id is None:
+            raise NotFound("no catalog has been uploaded yet")
+        raise InvalidInput("unknown catalog", [FieldProblem("catalog_id", f"no catalog {request.catalog_id!r}")])
+    catalog = catalogs.get(stored_catalog)
+    body = quote(catalog, request)
+    quote_id = new_id("q")
+    document = envelope(body, catalog=catalog, quote_id=quote_id, catalog_id=stored_catalog.id, created_at=now)
+    stored = StoredQuote(id=quote_id, created_at=now, team=request.campaign.team,
+                         campaign_name=request.campaign.name, catalog_id=stored_catalog.id,
+                         catalog_hash=stored_catalog.content_hash, model_version=document["model_version"],
+                         request=request.model_dump(mode="json"), response=document)
+    with storage.writing() as repository:
+        repository.add_quote(stored)
+        if key is not None:
+            repository.complete_key(caller=caller, key=key, status_code=201, response=document)
+    return QuoteOutcome(201, document)
+
+
+def get_quote(storage: Storage, quote_id: str) -> StoredQuote:
+    with storage.reading() as repository:
+        stored = repository.quote(quote_id)
+    if stored is None:
+        raise NotFound(f"no quote {quote_id!r}")
+    return stored
+
+
+def recompute_quote(storage: Storage, catalogs: ParsedCatalogs, quote_id: str) -> dict[str, Any]:
+    """Recompute a stored quote from its stored request and catalog, and say what differs."""
+    stored = get_quote(storage, quote_id)
+    with storage.reading() as repository:
+        stored_catalog = repository.catalog(stored.catalog_id)
+    if stored_catalog is None:  # foreign keys make this unreachable, but say so plainly if it happens
+        raise NotFound(f"the catalog {stored.catalog_id!r} of quote {quote_id!r} is gone")
+    request = QuoteRequestIn.model_validate(stored.request)
+    recomputed = quote(catalogs.get(stored_catalog), request)
+    previous = {k: v for k, v in stored.response.items()
+                if k not in ("id", "created_at", "catalog_id", "catalog_hash", "model_version")}
+    differences = list(_differences(previous, recomputed, ""))
+    return {
+        "quote_id": quote_id,
+        "catalog_id": stored.catalog_id,
+        "model_version_stored": stored.model_version,
+        "model_version_now": model_version(),
+        "changed": bool(differences),
+        "differences": differences[:1000],
+        "differences_total": len(differences),
+    }
+
+
+def _differences(old: Any, new: Any, path: str) -> Any:
+    if isinstance(old, dict) and isinstance(new, dict):
+        for key in sorted(set(old) | set(new)):
+            yield from _differences(old.get(key), new.get(key), f"{path}.{key}" if path else key)
+    elif isinstance(old, list) and isinstance(new, list) and len(old) == len(new):
+        for k, (a, b) in enumerate(zip(old, new, strict=True)):
+            yield from _differences(a, b, f"{path}[{k}]")
+    elif _numbers(old, new):
+        if abs(old - new) > 1e-9 * max(abs(old), abs(new), 1e-300):
+            yield {"path": path, "stored": old, "recomputed": new}
+    elif old != new:
+        yield {"path": path, "stored": old, "recomputed": new}
+
+
+def _numbers(a: Any, b: Any) -> bool:
+    return all(isinstance(x, int | float) and not isinstance(x, bool) for x in (a, b))
