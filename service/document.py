@@ -119,7 +119,7 @@ def _option(o: OptionResult, position: int, i: int, catalog: Catalog, evaluation
         "term": o.term,
         "feasible": feasible,
         "reasons": explain.reasons(o, i, catalog, request.campaign.data.allowed_jurisdictions,
-                                   request.campaign.deadline_days),
+                                   request.campaign.deadline_days, site),
         "layout": {
             "nodes": int(layout.nodes[i]),
             "accelerators": int(layout.accelerators[i]),

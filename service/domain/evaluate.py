@@ -4,6 +4,7 @@ One call handles any number of scenarios (arrays along axis 0); Python loops run
 venues and terms, never over scenarios.
 """
 
+import functools
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Literal
@@ -133,17 +134,21 @@ def evaluate_campaign(
         sites[site.id] = SiteFigures(economics, node, variable)
         venue = _Venue("owned", site.id, site.jurisdiction, site.node_type, site, economics.pue,
                        economics.grid_kgco2e_per_kwh, allowed, False)
-        if "owned_chargeback" in options.terms:
+        limits = {"owned_chargeback": chargeback_limit(economics, options),
+                  "owned_new_build": new_build_limit(economics, options)}
+        limits = {term: limit for term, limit in limits.items() if term in options.terms}
+        if not limits:
+            continue
+        physics = _physics(venue, campaign, options, overrides, work, multiplier,
+                           top_limit=np.maximum.reduce([limit.nodes for limit in limits.values()]))
+        if "owned_chargeback" in limits:
+            results.append(_evaluate(venue, "owned_chargeback", limits["owned_chargeback"],
+                                     _chargeback_builder(node, variable, economics), physics))
+        if "owned_new_build" in limits:
             results.append(_evaluate(
-                venue, "owned_chargeback", chargeback_limit(economics, options),
-                _chargeback_builder(node, variable, economics),
-                campaign, options, overrides, work, multiplier))
-        if "owned_new_build" in options.terms:
-            results.append(_evaluate(
-                venue, "owned_new_build", new_build_limit(economics, options),
+                venue, "owned_new_build", limits["owned_new_build"],
                 _new_build_builder(node, variable, site.depreciation_months,
-                                   site.node_type.accelerators_per_node, campaign),
-                campaign, options, overrides, work, multiplier))
+                                   site.node_type.accelerators_per_node, campaign), physics))
     for offer in catalog.offers:
         results.extend(_offer_options(offer, catalog, campaign, options, overrides, work, multiplier, allowed))
     return CampaignEvaluation(
@@ -180,10 +185,10 @@ def _offer_options(
     limit = offer_limit(offer, options)
     data = _data_builder(offer, campaign)
     results = []
+    physics = _physics(venue, campaign, options, overrides, work, multiplier, top_limit=limit.nodes)
     if "on_demand" in options.terms and offer.on_demand_per_accelerator_hour is not None:
         price = offer.on_demand_per_accelerator_hour * rented_price_factor(overrides, on_demand=True)
-        results.append(_evaluate(venue, "on_demand", limit, _hourly_builder(price, data),
-                                 campaign, options, overrides, work, multiplier))
+        results.append(_evaluate(venue, "on_demand", limit, _hourly_builder(price, data), physics))
     if "committed" in options.terms:
         cost_of_capital = as_floats(
             catalog.cost_of_capital_annual if overrides.cost_of_capital_annual is None
@@ -192,22 +197,31 @@ def _offer_options(
             price = commitment.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
             results.append(_evaluate(
                 venue, f"committed_{commitment.months}m", limit,
-                _committed_builder(commitment.months, commitment.upfront_fraction, price,
-                                   cost_of_capital, offer.node_type.accelerators_per_node, campaign, data),
-                campaign, options, overrides, work, multiplier))
+                _committed_builder(commitment.months, commitment.upfront_fraction, price, cost_of_capital,
+                                   offer.node_type.accelerators_per_node, campaign, data), physics))
     if "interruptible" in options.terms and offer.interruptible is not None:
         price = offer.interruptible.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
-        results.append(_evaluate(
-            venue, "interruptible", limit, _hourly_builder(price, data), campaign, options, overrides,
-            work, multiplier, interruption_mean_hours=offer.interruptible.mean_hours_between_interruptions))
+        # Interruptions change the wall clock, so this term gets physics of its own.
+        interrupted = _physics(venue, campaign, options, overrides, work, multiplier, top_limit=limit.nodes,
+                               interruption_mean_hours=offer.interruptible.mean_hours_between_interruptions)
+        results.append(_evaluate(venue, "interruptible", limit, _hourly_builder(price, data), interrupted))
     return results
 
 
-def _evaluate(
-    venue: _Venue, term: str, limit: NodeLimit, build_cost: CostBuilder, campaign: Campaign,
-    options: QuoteOptions, overrides: Overrides, work: WorkAmount, multiplier: Floats,
-    *, interruption_mean_hours: float = np.inf,
-) -> OptionResult:
+@dataclass(frozen=True)
+class _Physics:
+    """What a venue does with the campaign at every candidate node count, shared by its terms."""
+
+    load: Load
+    hardware: Hardware
+    grid: LayoutGrid
+    min_nodes: Floats
+
+
+def _physics(
+    venue: _Venue, campaign: Campaign, options: QuoteOptions, overrides: Overrides, work: WorkAmount,
+    multiplier: Floats, *, top_limit: Floats, interruption_mean_hours: float = np.inf,
+) -> _Physics:
     node = venue.node_type
     load = _load(campaign, options, work, multiplier, node)
     hardware = Hardware(
@@ -222,16 +236,21 @@ def _evaluate(
         interruption_mean_hours=interruption_mean_hours,
         staging_seconds=np.zeros(1),
     )
-    node_limit = limit.nodes
-    nodes = candidate_nodes(node_limit=node_limit, fixed_accelerators=options.fixed_accelerators,
+    nodes = candidate_nodes(node_limit=top_limit, fixed_accelerators=options.fixed_accelerators,
                             accelerators_per_node=node.accelerators_per_node)
     grid = evaluate_layouts(load, hardware, nodes, fixed_accelerators=options.fixed_accelerators)
+    return _Physics(load, hardware, grid, _minimum_nodes(load, hardware))
+
+
+def _evaluate(venue: _Venue, term: str, limit: NodeLimit, build_cost: CostBuilder, physics: _Physics) -> OptionResult:
+    node = venue.node_type
+    grid = physics.grid
     lines_grid, details_grid = build_cost(grid)
-    total_grid = sum(lines_grid.values(), np.zeros(np.broadcast_shapes(grid.wall_seconds.shape, grid.fits.shape)))
-    choice = choose(grid, total_grid, node_limit=node_limit, deadline_seconds=load.deadline_seconds)
+    total_grid = functools.reduce(np.add, lines_grid.values())
+    choice = choose(grid, total_grid, node_limit=limit.nodes, deadline_seconds=physics.load.deadline_seconds)
     chosen = pick_grid(grid, choice.index)
-    min_nodes = np.broadcast_to(_minimum_nodes(load, hardware), choice.index.shape)
-    mask = _screen(venue, hardware, limit, min_nodes, choice.any_fits, choice.meets_deadline,
+    min_nodes = np.broadcast_to(physics.min_nodes, choice.index.shape)
+    mask = _screen(venue, physics.hardware, limit, min_nodes, choice.any_fits, choice.meets_deadline,
                    shape=choice.index.shape)
     energy = campaign_energy(
         chosen, idle_kw=node.power_kw_idle, peak_kw=node.power_kw_peak,

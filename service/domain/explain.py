@@ -31,7 +31,7 @@ def _pct(value: float) -> str:
 
 
 def reasons(option: OptionResult, i: int, catalog: Catalog, campaign_allowed: Sequence[str] | None,
-            deadline_days: float | None) -> list[str]:
+            deadline_days: float | None, site: SiteFigures | None = None) -> list[str]:
     """One sentence per screen that ruled the option out, each naming what would change it."""
     mask = int(option.screens[i])
     node = option.node_type
@@ -53,15 +53,8 @@ def reasons(option: OptionResult, i: int, catalog: Catalog, campaign_allowed: Se
         elif bit == screens.CAPACITY:
             out.append(f"capacity: holding the model needs at least {_n(option.min_nodes[i])} nodes; "
                        f"{_capacity_words(option, i, catalog)}")
-        elif bit == screens.POWER:
-            out.append(f"power: {_n(option.min_nodes[i])} new nodes need "
-                       f"{_n(option.min_nodes[i] * node.power_kw_peak)} kW IT at peak, but the site's "
-                       f"facility power allows {_n(_at(option.limit.power, i))} "
-                       "more nodes beyond the owned fleet")
-        elif bit == screens.COOLING:
-            out.append(f"cooling: {_n(option.min_nodes[i])} new nodes reject "
-                       f"{_n(option.min_nodes[i] * node.power_kw_peak)} kW of heat at peak, but the site's "
-                       f"cooling allows {_n(_at(option.limit.cooling, i))} more nodes beyond the owned fleet")
+        elif bit in (screens.POWER, screens.COOLING) and site is not None:
+            out.append(_facility_reason(bit, option, i, site))
         elif bit == screens.DEADLINE and deadline_days is not None:
             days = option.layout.wall_seconds[i] / SECONDS_PER_DAY
             needed = option.layout.accelerators[i] * days / deadline_days
@@ -70,6 +63,28 @@ def reasons(option: OptionResult, i: int, catalog: Catalog, campaign_allowed: Se
                        f"{_n(deadline_days, 1)}-day deadline; meeting it would take at least "
                        f"{_n(np.ceil(needed))} accelerators at ideal scaling")
     return out
+
+
+def _facility_reason(bit: int, option: OptionResult, i: int, site: SiteFigures) -> str:
+    """Power or cooling: what the new nodes need against what the site has left, in kW."""
+    s = site.economics.site
+    peak = s.node_type.power_kw_peak
+    wanted = float(option.min_nodes[i])
+    if bit == screens.POWER:
+        pue = _at(site.economics.pue, i)
+        capacity = float(s.power_capacity_kw or 0.0)
+        used = s.nodes_owned * peak * pue
+        need = wanted * peak * pue
+        return (f"power: {_n(wanted)} new nodes draw {_n(need, 1)} kW at the facility at peak "
+                f"({_n(wanted * peak, 1)} kW IT × PUE {pue:g}); the site's {_n(capacity, 1)} kW less the owned "
+                f"fleet's {_n(used, 1)} kW leaves "
+                f"{_n(capacity - used, 1)} kW, {_n(need - (capacity - used), 1)} kW short")
+    capacity = float(s.cooling_capacity_kw or 0.0)
+    used = s.nodes_owned * peak
+    need = wanted * peak
+    return (f"cooling: {_n(wanted)} new nodes reject {_n(need, 1)} kW of heat at peak; the site's {_n(capacity, 1)} kW "
+            f"of cooling less the owned fleet's {_n(used, 1)} kW leaves {_n(capacity - used, 1)} kW, "
+            f"{_n(need - (capacity - used), 1)} kW short")
 
 
 def _at(value: np.ndarray, i: int) -> float:

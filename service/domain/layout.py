@@ -216,11 +216,17 @@ class Choice:
 def choose(grid: LayoutGrid, cost: Floats, *, node_limit: ArrayLike, deadline_seconds: ArrayLike) -> Choice:
     """Per scenario, the cheapest layout within the limit that meets the deadline; when none
     meets it, the fastest layout that fits (reported as missing the deadline)."""
-    allowed = grid.fits & (grid.nodes <= as_floats(node_limit).reshape(-1, 1))
-    meets = allowed & (grid.wall_seconds <= as_floats(deadline_seconds).reshape(-1, 1))
+    limit = as_floats(node_limit).reshape(-1, 1)
+    deadline = as_floats(deadline_seconds).reshape(-1, 1)
+    # Every input may vary by scenario or not: settle on the full (S, K) shape once.
+    shape = np.broadcast_shapes(np.shape(cost), grid.wall_seconds.shape, grid.fits.shape, grid.nodes.shape,
+                                limit.shape, deadline.shape)
+    allowed = np.broadcast_to(grid.fits & (grid.nodes <= limit), shape)
+    wall = np.broadcast_to(grid.wall_seconds, shape)
+    meets = allowed & (wall <= deadline)
     any_meets = meets.any(axis=1)
     cheapest = np.argmin(np.where(meets, cost, np.inf), axis=1)
-    fastest = np.argmin(np.where(allowed, grid.wall_seconds, np.inf), axis=1)
+    fastest = np.argmin(np.where(allowed, wall, np.inf), axis=1)
     return Choice(
         index=np.where(any_meets, cheapest, fastest).astype(np.int64),
         any_fits=np.asarray(allowed.any(axis=1)),
@@ -240,8 +246,15 @@ def pick(values: ArrayLike, index: Ints) -> Any:
 
 
 def pick_grid(grid: LayoutGrid, index: Ints) -> LayoutGrid:
-    """Every field of the grid at the chosen column: (S,) arrays."""
-    return LayoutGrid(**{f.name: pick(getattr(grid, f.name), index) for f in fields(grid)})
+    """Every field of the grid at the chosen column: (S,) arrays. The float fields are stacked
+    and indexed once (one numpy call instead of one per field)."""
+    names = [f.name for f in fields(grid)]
+    floats = [n for n in names if np.asarray(getattr(grid, n)).dtype != np.bool_]
+    stacked = np.stack(np.broadcast_arrays(*(np.asarray(getattr(grid, n), dtype=np.float64) for n in floats)))
+    rows = np.arange(index.shape[0]) if stacked.shape[1] > 1 else np.zeros_like(index)
+    picked = dict(zip(floats, stacked[:, rows, index], strict=True))
+    picked.update({n: pick(getattr(grid, n), index) for n in names if n not in picked})
+    return LayoutGrid(**picked)
 
 
 def architecture_activation_bytes(

@@ -1,13 +1,12 @@
 """Owning and renting costs checked against hand computations written out from their inputs.
 
 Sources: the annuity against numpy-financial's `pmt` (the oracle named in model.md §6); PUE as
-total facility energy over IT equipment energy (ISO/IEC 30134-2:2016, "Power usage
-effectiveness (PUE)", definition of PUE); the ton of
-refrigeration as 12,000 Btu_IT/h with 1 Btu_IT/h = 0.2930711 W (Thompson and Taylor 2008, NIST
-SP 811, "Guide for the Use of the International System of Units", App. B.8). The catalog below is
-demo data with round invented figures; every expected value is computed in this file from it.
-The PUE clause of ISO/IEC 30134-2 is cited from memory; the NIST factors are as model.md §6 gives
-them (secondary).
+total facility energy over IT equipment energy (ISO/IEC 30134-2:2016, "Power usage effectiveness
+(PUE)", the PUE definition; clause number not confirmed, from memory); the ton of refrigeration
+as 12,000 Btu_IT/h with 1 Btu_IT/h = 0.2930711 W (Thompson and Taylor 2008, NIST SP 811, "Guide
+for the Use of the International System of Units", App. B.8; secondary, as model.md §6 gives it).
+The catalog below is demo data with round invented figures; every expected value is computed in
+this file from it.
 """
 
 import copy
@@ -273,8 +272,12 @@ def test_the_quote_says_how_many_nodes_power_and_cooling_allow_against_how_many_
     assert not build["feasible"]
     power = next(r for r in build["reasons"] if r.startswith("power:"))
     cooling = next(r for r in build["reasons"] if r.startswith("cooling:"))
-    assert "8 new nodes" in power and "48 kW" in power and "allows 7 more nodes" in power
-    assert "8 new nodes" in cooling and "allows 5 more nodes" in cooling
+    # Power: 8 × 6 kW × PUE 1.2 = 57.6 kW at the facility; 200 − 20 × 6 × 1.2 = 56.0 kW left.
+    assert "8 new nodes draw 57.6 kW at the facility" in power
+    assert "leaves 56.0 kW, 1.6 kW short" in power
+    # Cooling: 8 × 6 = 48.0 kW of heat; 150 − 20 × 6 = 30.0 kW left.
+    assert "8 new nodes reject 48.0 kW of heat" in cooling
+    assert "leaves 30.0 kW, 18.0 kW short" in cooling
     chargeback = next(o for o in document["options"]
                       if o["venue"]["id"] == "test-site" and o["term"] == "owned_chargeback")
     assert chargeback["feasible"]  # 10 free nodes of the existing fleet are enough

@@ -16,8 +16,9 @@ from service.use_cases import body_fingerprint, create_quote, get_quote, recompu
 
 router = APIRouter(prefix="/v1/quotes", tags=["quotes"])
 
-CONFLICT: dict[int | str, dict[str, Any]] = {409: {"description": "a request with this Idempotency-Key is still in flight",
-                  "content": {PROBLEM: {"schema": {"$ref": "#/components/schemas/Problem"}}}}}
+CONFLICT: dict[int | str, dict[str, Any]] = {
+    409: {"description": "a request with this Idempotency-Key is still in flight",
+          "content": {PROBLEM: {"schema": {"$ref": "#/components/schemas/Problem"}}}}}
 
 
 @router.post("", status_code=201, response_model=QuoteOut, responses={**PROBLEM_RESPONSES, **CONFLICT})
