@@ -139,6 +139,7 @@ def _option(o: OptionResult, position: int, i: int, catalog: Catalog, evaluation
             "failure_overhead_fraction": _number(layout.failure_overhead[i], 6),
             "checkpoint_interval_hours": _number(layout.checkpoint_interval_seconds[i] / SECONDS_PER_HOUR, 4),
             "wall_clock_days": _number(layout.wall_seconds[i] / SECONDS_PER_DAY, 4),
+            "data_staging_days": _number(o.staging_seconds[i] / SECONDS_PER_DAY, 4),
             "accelerator_hours": _number(layout.accelerator_hours[i], 2),
         },
         "energy": {

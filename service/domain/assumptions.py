@@ -53,6 +53,8 @@ _TABLE = (
     Assumption("hours_per_month", 730.0, "hours", "8760 h / 12"),
     Assumption("kw_per_ton_of_refrigeration", 3.516853, "kW",
                "NIST SP 811, App. B.8 (1 ton = 12,000 Btu_IT/h)"),
+    Assumption("data_link_gbps", 10.0, "Gb/s",
+               PRACTICE + " (link for copying a dataset when neither end states one)"),
     Assumption("rented_pue", 1.0, "ratio",
                "offer gave no PUE: facility energy reported as IT energy only"),
 )

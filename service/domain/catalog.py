@@ -85,6 +85,8 @@ class Site:
     cooling_capacity_kw: float | None = None
     path_efficiency: float | None = None
     name: str = ""
+    egress_per_gb: float = 0.0  # what the site pays to send data out (its network contract)
+    wan_gbps: float | None = None  # the site's link to the outside, for moving datasets
 
 
 @dataclass(frozen=True)

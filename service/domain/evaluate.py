@@ -5,7 +5,6 @@ venues and terms, never over scenarios.
 """
 
 import functools
-from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Literal
 
@@ -15,7 +14,16 @@ from service.domain import screens
 from service.domain.arrays import Bools, Floats, Ints, as_floats
 from service.domain.assumptions import default
 from service.domain.campaign import Campaign, MeasuredWork, Overrides, QuoteOptions, TransformerWork
-from service.domain.catalog import Catalog, NodeType, Offer
+from service.domain.catalog import Catalog, NodeType, Offer, Site
+from service.domain.charges import (
+    CostBuilder,
+    chargeback_charges,
+    committed_charges,
+    data_charges,
+    hourly_charges,
+    new_build_charges,
+)
+from service.domain.gravity import Transfer, staging_seconds, transfer
 from service.domain.layout import (
     Hardware,
     LayoutGrid,
@@ -36,18 +44,7 @@ from service.domain.owning import (
 )
 from service.domain.recurrence import instances_per_year, instances_total
 from service.domain.residency import allowed_jurisdictions
-from service.domain.terms import (
-    Energy,
-    Lines,
-    campaign_energy,
-    chargeback_lines,
-    committed_lines,
-    committed_share,
-    hourly_lines,
-    new_build_lines,
-    new_build_share,
-    rented_data_lines,
-)
+from service.domain.terms import Energy, campaign_energy
 from service.domain.units import SECONDS_PER_DAY, SECONDS_PER_HOUR, TB
 from service.domain.venues import (
     NodeLimit,
@@ -62,9 +59,6 @@ from service.domain.venues import (
     venue_path_efficiency,
 )
 from service.domain.work import WorkAmount, runs_multiplier, work_amount
-
-# Term builders return the cost lines and the term's own figures for every candidate layout.
-CostBuilder = Callable[[LayoutGrid], tuple[Lines, dict[str, Floats]]]
 
 
 @dataclass(frozen=True)
@@ -83,6 +77,8 @@ class OptionResult:
     lines: dict[str, Floats]
     total: Floats
     energy: Energy
+    transfer: Transfer
+    staging_seconds: Floats
     details: dict[str, Floats] = field(default_factory=dict)
 
     @property
@@ -117,43 +113,45 @@ class CampaignEvaluation:
     sites: dict[str, SiteFigures]
 
 
+@dataclass(frozen=True)
+class _Context:
+    """What every venue's evaluation shares for one campaign."""
+
+    catalog: Catalog
+    campaign: Campaign
+    options: QuoteOptions
+    overrides: Overrides
+    work: WorkAmount
+    multiplier: Floats
+    allowed: frozenset[str] | None
+    home: Site | Offer | None
+
+
 def evaluate_campaign(
     catalog: Catalog, campaign: Campaign, options: QuoteOptions, overrides: Overrides | None = None
 ) -> CampaignEvaluation:
     """Every venue and requested term of the catalog for the campaign."""
     overrides = overrides or Overrides()
-    work = _work(catalog, campaign, options, overrides)
-    multiplier = runs_multiplier(campaign.runs)
-    allowed = allowed_jurisdictions(campaign.data.allowed_jurisdictions, catalog.jurisdiction_groups)
+    venues: dict[str, Site | Offer] = {site.id: site for site in catalog.sites}
+    venues.update({offer.id: offer for offer in catalog.offers})
+    context = _Context(
+        catalog=catalog, campaign=campaign, options=options, overrides=overrides,
+        work=_work(catalog, campaign, options, overrides), multiplier=runs_multiplier(campaign.runs),
+        allowed=allowed_jurisdictions(campaign.data.allowed_jurisdictions, catalog.jurisdiction_groups),
+        home=None if campaign.data.home is None else venues[campaign.data.home],
+    )
     results: list[OptionResult] = []
     sites: dict[str, SiteFigures] = {}
     for site in catalog.sites:
         economics = site_economics(site, catalog, overrides)
-        node = node_month(economics)
-        variable = busy_energy_per_accelerator_hour(economics)
-        sites[site.id] = SiteFigures(economics, node, variable)
-        venue = _Venue("owned", site.id, site.jurisdiction, site.node_type, site, economics.pue,
-                       economics.grid_kgco2e_per_kwh, allowed, False)
-        limits = {"owned_chargeback": chargeback_limit(economics, options),
-                  "owned_new_build": new_build_limit(economics, options)}
-        limits = {term: limit for term, limit in limits.items() if term in options.terms}
-        if not limits:
-            continue
-        physics = _physics(venue, campaign, options, overrides, work, multiplier,
-                           top_limit=np.maximum.reduce([limit.nodes for limit in limits.values()]))
-        if "owned_chargeback" in limits:
-            results.append(_evaluate(venue, "owned_chargeback", limits["owned_chargeback"],
-                                     _chargeback_builder(node, variable, economics), physics))
-        if "owned_new_build" in limits:
-            results.append(_evaluate(
-                venue, "owned_new_build", limits["owned_new_build"],
-                _new_build_builder(node, variable, site.depreciation_months,
-                                   site.node_type.accelerators_per_node, campaign), physics))
+        figures = SiteFigures(economics, node_month(economics), busy_energy_per_accelerator_hour(economics))
+        sites[site.id] = figures
+        results.extend(_site_options(site, figures, context))
     for offer in catalog.offers:
-        results.extend(_offer_options(offer, catalog, campaign, options, overrides, work, multiplier, allowed))
+        results.extend(_offer_options(offer, context))
     return CampaignEvaluation(
-        work=work,
-        runs_multiplier=multiplier,
+        work=context.work,
+        runs_multiplier=context.multiplier,
         instances_total=instances_total(campaign.recurrence),
         instances_per_year=instances_per_year(campaign.recurrence),
         options=tuple(results),
@@ -167,44 +165,71 @@ class _Venue:
     id: str
     jurisdiction: str
     node_type: NodeType
-    source: object
+    source: Site | Offer
     pue: Floats
     grid_kgco2e_per_kwh: Floats
     allowed: frozenset[str] | None
     owned_only: bool
+    transfer: Transfer
 
 
-def _offer_options(
-    offer: Offer, catalog: Catalog, campaign: Campaign, options: QuoteOptions, overrides: Overrides,
-    work: WorkAmount, multiplier: Floats, allowed: frozenset[str] | None,
-) -> list[OptionResult]:
+def _site_options(site: Site, figures: SiteFigures, context: _Context) -> list[OptionResult]:
+    economics = figures.economics
+    options = context.options
+    link = transfer(site, context.home)
+    venue = _Venue("owned", site.id, site.jurisdiction, site.node_type, site, economics.pue,
+                   economics.grid_kgco2e_per_kwh, context.allowed, False, link)
+    limits = {"owned_chargeback": chargeback_limit(economics, options),
+              "owned_new_build": new_build_limit(economics, options)}
+    limits = {term: limit for term, limit in limits.items() if term in options.terms}
+    if not limits:
+        return []
+    data = data_charges(context.campaign, link, storage_per_gb_month=None,
+                        results_egress_per_gb=site.egress_per_gb)
+    physics = _physics(venue, context, top_limit=np.maximum.reduce([limit.nodes for limit in limits.values()]))
+    results = []
+    if "owned_chargeback" in limits:
+        results.append(_evaluate(venue, "owned_chargeback", limits["owned_chargeback"],
+                                 chargeback_charges(figures.node, figures.variable_per_accelerator_hour,
+                                                    economics, data), physics))
+    if "owned_new_build" in limits:
+        results.append(_evaluate(venue, "owned_new_build", limits["owned_new_build"],
+                                 new_build_charges(figures.node, figures.variable_per_accelerator_hour,
+                                                   economics, context.campaign, data), physics))
+    return results
+
+
+def _offer_options(offer: Offer, context: _Context) -> list[OptionResult]:
+    terms, overrides = context.options.terms, context.overrides
+    link = transfer(offer, context.home)
     venue = _Venue("rented", offer.id, offer.jurisdiction, offer.node_type, offer,
                    as_floats(np.nan if offer.pue is None else offer.pue),
                    as_floats(np.nan if offer.grid_kgco2e_per_kwh is None else offer.grid_kgco2e_per_kwh),
-                   allowed, campaign.data.owned_only)
-    limit = offer_limit(offer, options)
-    data = _data_builder(offer, campaign)
+                   context.allowed, context.campaign.data.owned_only, link)
+    limit = offer_limit(offer, context.options)
+    data = data_charges(context.campaign, link, storage_per_gb_month=offer.storage_per_gb_month,
+                        results_egress_per_gb=offer.egress_per_gb)
     results = []
-    physics = _physics(venue, campaign, options, overrides, work, multiplier, top_limit=limit.nodes)
-    if "on_demand" in options.terms and offer.on_demand_per_accelerator_hour is not None:
+    physics = _physics(venue, context, top_limit=limit.nodes)
+    if "on_demand" in terms and offer.on_demand_per_accelerator_hour is not None:
         price = offer.on_demand_per_accelerator_hour * rented_price_factor(overrides, on_demand=True)
-        results.append(_evaluate(venue, "on_demand", limit, _hourly_builder(price, data), physics))
-    if "committed" in options.terms:
+        results.append(_evaluate(venue, "on_demand", limit, hourly_charges(price, data), physics))
+    if "committed" in terms:
         cost_of_capital = as_floats(
-            catalog.cost_of_capital_annual if overrides.cost_of_capital_annual is None
+            context.catalog.cost_of_capital_annual if overrides.cost_of_capital_annual is None
             else overrides.cost_of_capital_annual)
         for commitment in offer.committed:
             price = commitment.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
             results.append(_evaluate(
                 venue, f"committed_{commitment.months}m", limit,
-                _committed_builder(commitment.months, commitment.upfront_fraction, price, cost_of_capital,
-                                   offer.node_type.accelerators_per_node, campaign, data), physics))
-    if "interruptible" in options.terms and offer.interruptible is not None:
+                committed_charges(commitment.months, commitment.upfront_fraction, price, cost_of_capital,
+                                  offer.node_type.accelerators_per_node, context.campaign, data), physics))
+    if "interruptible" in terms and offer.interruptible is not None:
         price = offer.interruptible.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
         # Interruptions change the wall clock, so this term gets physics of its own.
-        interrupted = _physics(venue, campaign, options, overrides, work, multiplier, top_limit=limit.nodes,
+        interrupted = _physics(venue, context, top_limit=limit.nodes,
                                interruption_mean_hours=offer.interruptible.mean_hours_between_interruptions)
-        results.append(_evaluate(venue, "interruptible", limit, _hourly_builder(price, data), interrupted))
+        results.append(_evaluate(venue, "interruptible", limit, hourly_charges(price, data), interrupted))
     return results
 
 
@@ -218,23 +243,22 @@ class _Physics:
     min_nodes: Floats
 
 
-def _physics(
-    venue: _Venue, campaign: Campaign, options: QuoteOptions, overrides: Overrides, work: WorkAmount,
-    multiplier: Floats, *, top_limit: Floats, interruption_mean_hours: float = np.inf,
-) -> _Physics:
+def _physics(venue: _Venue, context: _Context, *, top_limit: Floats,
+             interruption_mean_hours: float = np.inf) -> _Physics:
     node = venue.node_type
-    load = _load(campaign, options, work, multiplier, node)
+    campaign, options, overrides = context.campaign, context.options, context.overrides
+    load = _load(campaign, options, context.work, context.multiplier, node)
     hardware = Hardware(
         accelerators_per_node=node.accelerators_per_node,
         memory_bytes=node.accelerator.memory_gb * 1e9,
-        sustained_flops_per_accelerator=_venue_sustained(node, campaign, overrides, work),
+        sustained_flops_per_accelerator=_venue_sustained(node, campaign, overrides, context.work),
         intra_node_gbps=node.intra_node_gbps,
         network_gbps=network_gbps(node, overrides),
-        path_efficiency=venue_path_efficiency(venue.source),  # type: ignore[arg-type]
+        path_efficiency=venue_path_efficiency(venue.source),
         checkpoint_write_gbps=node.checkpoint_write_gbps,
         node_mtbf_hours=node_mtbf_hours(node, overrides),
         interruption_mean_hours=interruption_mean_hours,
-        staging_seconds=np.zeros(1),
+        staging_seconds=staging_seconds(dataset_tb=campaign.data.dataset_tb, link=venue.transfer),
     )
     nodes = candidate_nodes(node_limit=top_limit, fixed_accelerators=options.fixed_accelerators,
                             accelerators_per_node=node.accelerators_per_node)
@@ -268,6 +292,8 @@ def _evaluate(venue: _Venue, term: str, limit: NodeLimit, build_cost: CostBuilde
         lines={item: pick(amount, choice.index) for item, amount in lines_grid.items()},
         total=pick(total_grid, choice.index),
         energy=energy,
+        transfer=venue.transfer,
+        staging_seconds=np.broadcast_to(physics.hardware.staging_seconds, choice.index.shape),
         details={name: pick(value, choice.index) for name, value in details_grid.items()},
     )
 
@@ -366,61 +392,6 @@ def _load(campaign: Campaign, options: QuoteOptions, work: WorkAmount, multiplie
         deadline_seconds=np.asarray(deadline),
         restart_seconds=default("restart_minutes") * 60.0,
     )
-
-
-def _chargeback_builder(node: NodeMonth, variable: Floats, economics: SiteEconomics) -> CostBuilder:
-    per_node = economics.site.node_type.accelerators_per_node
-
-    def build(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
-        lines = chargeback_lines(grid, node, accelerators_per_node=per_node,
-                                 utilisation=economics.utilisation_planned,
-                                 variable_per_accelerator_hour=variable)
-        return lines, {"utilisation": np.asarray(economics.utilisation_planned).reshape(-1, 1)}
-    return build
-
-
-def _new_build_builder(node: NodeMonth, variable: Floats, depreciation_months: int,
-                       accelerators_per_node: int, campaign: Campaign) -> CostBuilder:
-    def build(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
-        share = new_build_share(grid, depreciation_months=depreciation_months,
-                                accelerators_per_node=accelerators_per_node,
-                                recurrence=campaign.recurrence)
-        lines = new_build_lines(grid, node, share, variable_per_accelerator_hour=variable)
-        return lines, {"utilisation": share.utilisation, "sharing_instances": share.sharing_instances,
-                       "carried_months": share.carried_months}
-    return build
-
-
-def _data_builder(offer: Offer, campaign: Campaign) -> Callable[[LayoutGrid], Lines]:
-    data = campaign.data
-    checkpoint_tb = 0.0 if data.checkpoint_tb is None else data.checkpoint_tb
-
-    def build(grid: LayoutGrid) -> Lines:
-        return rented_data_lines(grid, data, checkpoint_tb=checkpoint_tb,
-                                 storage_per_gb_month=offer.storage_per_gb_month,
-                                 ingress_per_gb=offer.ingress_per_gb, egress_per_gb=offer.egress_per_gb)
-    return build
-
-
-def _hourly_builder(price: Floats, data: Callable[[LayoutGrid], Lines]) -> CostBuilder:
-    def build(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
-        lines = hourly_lines(grid, price_per_accelerator_hour=price) | data(grid)
-        return lines, {"price_per_accelerator_hour": np.asarray(price).reshape(-1, 1)}
-    return build
-
-
-def _committed_builder(months: int, upfront: float, price: Floats, cost_of_capital: Floats,
-                       accelerators_per_node: int, campaign: Campaign,
-                       data: Callable[[LayoutGrid], Lines]) -> CostBuilder:
-    def build(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
-        share = committed_share(grid, months=months, upfront_fraction=upfront,
-                                cost_of_capital_annual=cost_of_capital, recurrence=campaign.recurrence)
-        lines = committed_lines(grid, share, months=months, accelerators_per_node=accelerators_per_node,
-                                price_per_accelerator_hour=price) | data(grid)
-        return lines, {"price_per_accelerator_hour": np.asarray(price).reshape(-1, 1),
-                       "terms_needed": share.terms_needed, "sharing_instances": share.sharing_instances,
-                       "financing_factor": share.financing_factor}
-    return build
 
 
 def wall_clock_days(option: OptionResult) -> Floats:

@@ -118,28 +118,42 @@ def line_basis(option: OptionResult, item: str, i: int, catalog: Catalog,
     layout = option.layout
     hours = layout.accelerator_hours[i]
     per_node = option.node_type.accelerators_per_node
+    venue = _venue(catalog, option.venue_id)
+    if item in DATA_ITEMS:
+        return _data_basis(option, item, i, venue, catalog, currency)
     if site is not None:
         return _owned_basis(option, item, i, site, currency, hours, per_node)
-    offer = _venue(catalog, option.venue_id)
-    assert isinstance(offer, Offer)
     price = option.details["price_per_accelerator_hour"][i]
     if item == "compute":
         extra = (f", including {_pct(layout.failure_overhead[i])} lost to failures and interruptions"
                  if option.term == "interruptible" else "")
         return f"{_n(hours)} accelerator-hours × {price:,.4g} {currency} per accelerator-hour{extra}"
-    if item == "commitment":
-        d = option.details
-        return (f"{_n(layout.nodes[i] * per_node)} accelerators × {option.term.split('_')[1][:-1]} months × "
-                f"{_n(HOURS_PER_MONTH)} h × {price:,.4g} {currency} × {_n(d['terms_needed'][i])} term(s) × "
-                f"up-front financing {d['financing_factor'][i]:.4f} / {_n(d['sharing_instances'][i])} "
-                "recurring instance(s) sharing it; paid whether used or not")
-    months = layout.wall_seconds[i] / SECONDS_PER_HOUR / HOURS_PER_MONTH
+    d = option.details
+    return (f"{_n(layout.nodes[i] * per_node)} accelerators × {option.term.split('_')[1][:-1]} months × "
+            f"{_n(HOURS_PER_MONTH)} h × {price:,.4g} {currency} × {_n(d['terms_needed'][i])} term(s) × "
+            f"up-front financing {d['financing_factor'][i]:.4f} / {_n(d['sharing_instances'][i])} "
+            "recurring instance(s) sharing it; paid whether used or not")
+
+
+DATA_ITEMS = frozenset({"storage", "ingress", "egress_at_home", "egress"})
+
+
+def _data_basis(option: OptionResult, item: str, i: int, venue: Site | Offer, catalog: Catalog,
+                currency: str) -> str:
+    link = option.transfer
     if item == "storage":
-        return (f"(dataset + kept checkpoints) in GB × {offer.storage_per_gb_month:g} {currency} per GB-month × "
+        assert isinstance(venue, Offer)
+        months = option.layout.wall_seconds[i] / SECONDS_PER_HOUR / HOURS_PER_MONTH
+        return (f"(dataset + kept checkpoints) GB × {venue.storage_per_gb_month:g} {currency} per GB-month × "
                 f"{months:.2f} months of wall clock")
     if item == "ingress":
-        return f"dataset GB × {offer.ingress_per_gb:g} {currency} per GB into {offer.id}"
-    return f"results GB × {offer.egress_per_gb:g} {currency} per GB out of {offer.id}"
+        where = "from an unstated home" if link.home is None else f"from {link.home}"
+        return f"dataset GB × {link.ingress_per_gb:g} {currency} per GB into {venue.id} ({where})"
+    if item == "egress_at_home":
+        return (f"dataset GB × {link.egress_at_home_per_gb:g} {currency} per GB out of {link.home}, where the "
+                f"dataset lives; copying it over {link.link_gbps:g} Gb/s adds staging time to the wall clock"
+                + (" (link speed assumed: neither end states one)" if link.link_assumed else ""))
+    return f"results GB × {venue.egress_per_gb:g} {currency} per GB out of {venue.id}"
 
 
 def _owned_basis(option: OptionResult, item: str, i: int, site: SiteFigures, currency: str,

@@ -11,6 +11,7 @@ import numpy as np
 from service.domain.arrays import ArrayLike, Floats, as_floats
 from service.domain.campaign import DataPlan, Recurrence
 from service.domain.finance import capital_recovery_payment, monthly_rate
+from service.domain.gravity import Transfer
 from service.domain.layout import LayoutGrid
 from service.domain.owning import NodeMonth
 from service.domain.recurrence import instances_sharing
@@ -130,23 +131,25 @@ def committed_lines(
     return {"commitment": fee * share.terms_needed * share.financing_factor / share.sharing_instances}
 
 
-def rented_data_lines(
-    grid: LayoutGrid, data: DataPlan, *, checkpoint_tb: ArrayLike, storage_per_gb_month: float,
-    ingress_per_gb: float, egress_per_gb: float,
+def data_lines(
+    grid: LayoutGrid, data: DataPlan, *, checkpoint_tb: ArrayLike, storage_per_gb_month: float | None,
+    transfer: Transfer, results_egress_per_gb: float,
 ) -> Lines:
-    """Storage for the dataset and kept checkpoints for the months the campaign runs, ingress
-    of the dataset and egress of the results, per decimal GB."""
+    """The dataset's and results' costs at one venue, per decimal GB: storage of the dataset and
+    kept checkpoints for the months the campaign runs (rented venues; an owned site's storage is
+    in its capex), ingress of the dataset, egress at its home when it moves, egress of results."""
     gb_per_tb = TB / 1e9
-    stored_gb = (
-        _scenario(data.dataset_tb) + _scenario(checkpoint_tb) * _scenario(data.checkpoints_kept)
-    ) * gb_per_tb
-    months = wall_hours(grid) / HOURS_PER_MONTH
-    zeros = np.zeros_like(months)
-    return {
-        "storage": stored_gb * storage_per_gb_month * months,
-        "ingress": zeros + _scenario(data.dataset_tb) * gb_per_tb * ingress_per_gb,
-        "egress": zeros + _scenario(data.results_egress_tb) * gb_per_tb * egress_per_gb,
-    }
+    dataset_gb = _scenario(data.dataset_tb) * gb_per_tb
+    zeros = np.zeros_like(wall_hours(grid))
+    lines: Lines = {}
+    if storage_per_gb_month is not None:
+        stored_gb = dataset_gb + _scenario(checkpoint_tb) * _scenario(data.checkpoints_kept) * gb_per_tb
+        lines["storage"] = stored_gb * storage_per_gb_month * wall_hours(grid) / HOURS_PER_MONTH
+    lines["ingress"] = zeros + dataset_gb * transfer.ingress_per_gb
+    if transfer.moves:
+        lines["egress_at_home"] = zeros + dataset_gb * transfer.egress_at_home_per_gb
+    lines["egress"] = zeros + _scenario(data.results_egress_tb) * gb_per_tb * results_egress_per_gb
+    return lines
 
 
 @dataclass(frozen=True)

@@ -40,6 +40,7 @@ class Timing(Open):
     failure_overhead_fraction: float | None
     checkpoint_interval_hours: float | None
     wall_clock_days: float | None
+    data_staging_days: float | None
     accelerator_hours: float | None
 
 
