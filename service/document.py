@@ -154,13 +154,36 @@ def _option(o: OptionResult, position: int, i: int, catalog: Catalog, evaluation
             "currency": money.currency,
             "total": money(o.total[i]),
             "per_accelerator_hour": _number(o.per_accelerator_hour[i], 4),
-            "lines": [
-                {"item": item, "amount": money(amount[i]),
-                 "basis": explain.line_basis(o, item, i, catalog, site, money.currency)}
-                for item, amount in o.lines.items()
-            ],
+            "lines": _lines(o, i, catalog, evaluation, money),
         },
         "term_figures": details,
+        **({"parts": [_part(p, runs, i, money) for p, runs in
+                      zip(o.parts, (o.details["owned_runs"][i], o.details["rented_runs"][i]), strict=True)]}
+           if o.parts else {}),
+    }
+
+
+def _lines(o: OptionResult, i: int, catalog: Catalog, evaluation: CampaignEvaluation, money: Money) -> list[Json]:
+    """Cost lines with their basis; a split's lines are its parts' lines, named by venue."""
+    if o.parts:
+        return [{**line, "item": f"{part.venue_id}: {line['item']}"}
+                for part in o.parts for line in _lines(part, i, catalog, evaluation, money)]
+    site = evaluation.sites.get(o.venue_id) if o.venue_kind == "owned" else None
+    return [{"item": item, "amount": money(amount[i]),
+             "basis": explain.line_basis(o, item, i, catalog, site, money.currency)}
+            for item, amount in o.lines.items()]
+
+
+def _part(p: OptionResult, runs: float, i: int, money: Money) -> Json:
+    """One part of a split, in brief: where, on what term, how many runs, how long, how much."""
+    return {
+        "venue": {"kind": p.venue_kind, "id": p.venue_id, "jurisdiction": p.jurisdiction, "node_type": p.node_type.id},
+        "term": p.term,
+        "runs": int(runs),
+        "accelerators": int(p.layout.accelerators[i]),
+        "wall_clock_days": _number(p.layout.wall_seconds[i] / SECONDS_PER_DAY, 4),
+        "accelerator_hours": _number(p.layout.accelerator_hours[i], 2),
+        "total": money(p.total[i]),
     }
 
 

@@ -3,6 +3,7 @@ and own the transaction; the offline ones here take validated inputs and return 
 
 import hashlib
 import json
+from dataclasses import replace
 from datetime import datetime
 from typing import Any
 
@@ -14,6 +15,7 @@ from service.api.schemas.request import MeasuredWorkIn, QuoteRequestIn
 from service.document import quote_document
 from service.domain.assumptions import DEFAULTS
 from service.domain.evaluate import evaluate_campaign
+from service.domain.split import split_options
 from service.errors import FieldProblem, InvalidInput
 
 
@@ -54,6 +56,9 @@ def quote(catalog: CatalogIn, request: QuoteRequestIn) -> dict[str, Any]:
     domain_catalog = catalog.to_domain()
     campaign, options, overrides = request.to_domain()
     evaluation = evaluate_campaign(domain_catalog, campaign, options, overrides)
+    splits = split_options(domain_catalog, campaign, options, overrides, evaluation)
+    if splits:
+        evaluation = replace(evaluation, options=evaluation.options + tuple(splits))
     return quote_document(domain_catalog, request, evaluation)
 
 

@@ -65,7 +65,7 @@ from service.domain.work import WorkAmount, runs_multiplier, work_amount
 class OptionResult:
     """One venue on one term, at the layout chosen per scenario: (S,) arrays."""
 
-    venue_kind: Literal["owned", "rented"]
+    venue_kind: Literal["owned", "rented", "split"]
     venue_id: str
     jurisdiction: str
     term: str
@@ -80,6 +80,7 @@ class OptionResult:
     transfer: Transfer
     staging_seconds: Floats
     details: dict[str, Floats] = field(default_factory=dict)
+    parts: tuple["OptionResult", ...] = ()  # a split's owned and rented parts
 
     @property
     def feasible(self) -> Bools:

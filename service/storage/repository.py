@@ -144,10 +144,11 @@ class Repository:
             query = query.where(QuoteRow.team == team)
         if campaign_name is not None:
             query = query.where(QuoteRow.campaign_name == campaign_name)
+        # Stored moments are UTC (SQLite keeps no zone), so compare bounds as UTC too.
         if created_from is not None:
-            query = query.where(QuoteRow.created_at >= created_from)
+            query = query.where(QuoteRow.created_at >= utc(created_from).astimezone(UTC))
         if created_to is not None:
-            query = query.where(QuoteRow.created_at < created_to)
+            query = query.where(QuoteRow.created_at < utc(created_to).astimezone(UTC))
         if cursor:
             moment, ident = decode_cursor(cursor)
             query = query.where(or_(col(QuoteRow.created_at) < moment,

@@ -1,0 +1,118 @@
+"""Hybrid splits: a campaign's runs divided between an owned site's free capacity and the
+cheapest feasible rented option, both running at once (model.md §9).
+
+Each part is evaluated as a campaign of its own runs (and its share of the results to send out),
+so each pays its own data transfer and passes its own screens, residency included; the split's
+wall clock is the longer part's. A split is offered only when it beats both pure options of its
+pair, or when neither pure option is feasible.
+"""
+
+from dataclasses import replace
+
+import numpy as np
+
+from service.domain.campaign import Campaign, Overrides, QuoteOptions, Runs
+from service.domain.catalog import Catalog
+from service.domain.evaluate import CampaignEvaluation, OptionResult, evaluate_campaign
+from service.domain.layout import LayoutGrid
+from service.domain.terms import Energy
+
+MAX_SPLIT_POINTS = 8  # how many ways of dividing the runs are tried, evenly spaced
+
+
+def split_points(run_count: int) -> list[int]:
+    """Owned run counts to try: 1 … count − 1, at most MAX_SPLIT_POINTS of them."""
+    if run_count < 2:
+        return []
+    points = np.unique(np.round(np.linspace(1, run_count - 1, min(run_count - 1, MAX_SPLIT_POINTS))))
+    return [int(p) for p in points]
+
+
+def _part(campaign: Campaign, runs: int, total_runs: int) -> Campaign:
+    share = runs / total_runs
+    data = replace(campaign.data, results_egress_tb=np.asarray(campaign.data.results_egress_tb) * share)
+    return replace(campaign, runs=Runs(runs, campaign.runs.exploration_fraction, campaign.runs.evaluation_fraction),
+                   data=data)
+
+
+def split_options(catalog: Catalog, campaign: Campaign, options: QuoteOptions, overrides: Overrides | None,
+                  evaluation: CampaignEvaluation) -> list[OptionResult]:
+    """The best split of each owned site with the rented options, for a single-scenario quote."""
+    count = campaign.runs.count
+    if np.ndim(count) != 0 or "owned_chargeback" not in options.terms or campaign.data.owned_only:
+        return []
+    total = int(np.asarray(count))
+    rented_terms = tuple(t for t in options.terms if t not in ("owned_chargeback", "owned_new_build"))
+    if not rented_terms:
+        return []
+    pure = {o.label: o for o in evaluation.options}
+    best: dict[str, OptionResult] = {}
+    for owned_runs in split_points(total):
+        owned_eval = evaluate_campaign(catalog, _part(campaign, owned_runs, total),
+                                       replace(options, terms=("owned_chargeback",)), overrides)
+        rented_eval = evaluate_campaign(catalog, _part(campaign, total - owned_runs, total),
+                                        replace(options, terms=rented_terms), overrides)
+        feasible_rented = [o for o in rented_eval.options if bool(o.feasible[0])]
+        if not feasible_rented:
+            continue
+        rented = min(feasible_rented, key=lambda o: float(o.total[0]))
+        for owned in owned_eval.options:
+            if not bool(owned.feasible[0]):
+                continue
+            candidate = combine(owned, rented, owned_runs=owned_runs, rented_runs=total - owned_runs)
+            key = owned.venue_id
+            if key not in best or float(candidate.total[0]) < float(best[key].total[0]):
+                best[key] = candidate
+    return [s for s in best.values() if _worth_showing(s, pure)]
+
+
+def _worth_showing(split: OptionResult, pure: dict[str, OptionResult]) -> bool:
+    owned, rented = split.parts
+    rivals = [pure.get(f"{owned.venue_id}/{owned.term}"), pure.get(f"{rented.venue_id}/{rented.term}")]
+    feasible = [r for r in rivals if r is not None and bool(r.feasible[0])]
+    return all(float(split.total[0]) < float(r.total[0]) for r in feasible)
+
+
+def combine(owned: OptionResult, rented: OptionResult, *, owned_runs: int, rented_runs: int) -> OptionResult:
+    """One option made of two parts running at the same time."""
+    hours = owned.layout.accelerator_hours + rented.layout.accelerator_hours
+
+    def weighted(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+        return np.asarray((a * owned.layout.accelerator_hours + b * rented.layout.accelerator_hours) / hours)
+
+    o, r = owned.layout, rented.layout
+    layout = LayoutGrid(
+        nodes=o.nodes + r.nodes, accelerators=o.accelerators + r.accelerators, sharded=o.sharded | r.sharded,
+        shards=np.maximum(o.shards, r.shards), state_bytes=np.maximum(o.state_bytes, r.state_bytes),
+        activation_bytes=np.maximum(o.activation_bytes, r.activation_bytes), fits=o.fits & r.fits,
+        step_seconds=np.maximum(o.step_seconds, r.step_seconds),
+        scaling_efficiency=weighted(o.scaling_efficiency, r.scaling_efficiency),
+        exposed_fraction=weighted(o.exposed_fraction, r.exposed_fraction),
+        network_gbps_needed=np.fmax(o.network_gbps_needed, r.network_gbps_needed),
+        failure_overhead=weighted(o.failure_overhead, r.failure_overhead),
+        checkpoint_interval_seconds=np.fmin(o.checkpoint_interval_seconds, r.checkpoint_interval_seconds),
+        wall_seconds=np.maximum(o.wall_seconds, r.wall_seconds),
+        accelerator_hours=hours,
+    )
+    e, f = owned.energy, rented.energy
+    lines = {f"{owned.venue_id}: {k}": v for k, v in owned.lines.items()}
+    lines.update({f"{rented.venue_id}: {k}": v for k, v in rented.lines.items()})
+    return OptionResult(
+        venue_kind="split",
+        venue_id=f"{owned.venue_id}+{rented.venue_id}",
+        jurisdiction=f"{owned.jurisdiction}+{rented.jurisdiction}",
+        term="split",
+        node_type=owned.node_type,
+        layout=layout,
+        screens=owned.screens | rented.screens,
+        min_nodes=owned.min_nodes,
+        limit=owned.limit,
+        lines=lines,
+        total=owned.total + rented.total,
+        energy=Energy(e.it_kwh + f.it_kwh, e.facility_kwh + f.facility_kwh, e.peak_it_kw + f.peak_it_kw,
+                      e.cooling_kw_thermal + f.cooling_kw_thermal, e.kgco2e + f.kgco2e),
+        transfer=rented.transfer,
+        staging_seconds=np.maximum(owned.staging_seconds, rented.staging_seconds),
+        details={"owned_runs": np.full_like(hours, owned_runs), "rented_runs": np.full_like(hours, rented_runs)},
+        parts=(owned, rented),
+    )
