@@ -217,12 +217,12 @@ def why(ranked: Sequence[OptionResult], i: int, evaluation: CampaignEvaluation, 
 def _hinge(ranked: Sequence[OptionResult], i: int, evaluation: CampaignEvaluation) -> str:
     best, runner = ranked[0], ranked[1]
     if best.parts:
-        owned, rented = best.parts
-        return (f"it runs {_n(best.details['owned_runs'][i])} of the runs on {owned.venue_id}'s free capacity "
-                f"({_n(owned.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} days) and "
-                f"{_n(best.details['rented_runs'][i])} on {rented.label} "
-                f"({_n(rented.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} days) at the same time, so the cheap "
-                "owned hours carry what they can within the deadline")
+        part_owned, part_rented = best.parts
+        return (f"it runs {_n(best.details['owned_runs'][i])} of the runs on {part_owned.venue_id}'s free capacity "
+                f"({_n(part_owned.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} days) and "
+                f"{_n(best.details['rented_runs'][i])} on {part_rented.label} "
+                f"({_n(part_rented.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} days) at the same time, so the "
+                "cheap owned hours carry what they can within the deadline")
     rented = next((o for o in ranked if o.venue_kind == "rented"), None)
     owned = next((o for o in ranked if o.term == "owned_chargeback"), None)
     if owned is not None and rented is not None and best in (owned, rented):
