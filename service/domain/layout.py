@@ -246,15 +246,8 @@ def pick(values: ArrayLike, index: Ints) -> Any:
 
 
 def pick_grid(grid: LayoutGrid, index: Ints) -> LayoutGrid:
-    """Every field of the grid at the chosen column: (S,) arrays. The float fields are stacked
-    and indexed once (one numpy call instead of one per field)."""
-    names = [f.name for f in fields(grid)]
-    floats = [n for n in names if np.asarray(getattr(grid, n)).dtype != np.bool_]
-    stacked = np.stack(np.broadcast_arrays(*(np.asarray(getattr(grid, n), dtype=np.float64) for n in floats)))
-    rows = np.arange(index.shape[0]) if stacked.shape[1] > 1 else np.zeros_like(index)
-    picked = dict(zip(floats, stacked[:, rows, index], strict=True))
-    picked.update({n: pick(getattr(grid, n), index) for n in names if n not in picked})
-    return LayoutGrid(**picked)
+    """Every field of the grid at the chosen column: (S,) arrays."""
+    return LayoutGrid(**{f.name: pick(getattr(grid, f.name), index) for f in fields(grid)})
 
 
 def architecture_activation_bytes(

@@ -140,15 +140,14 @@ def data_lines(
     in its capex), ingress of the dataset, egress at its home when it moves, egress of results."""
     gb_per_tb = TB / 1e9
     dataset_gb = _scenario(data.dataset_tb) * gb_per_tb
-    zeros = np.zeros_like(wall_hours(grid))
-    lines: Lines = {}
+    lines: Lines = {}  # transfer lines do not depend on the layout: (S, 1), broadcast later
     if storage_per_gb_month is not None:
         stored_gb = dataset_gb + _scenario(checkpoint_tb) * _scenario(data.checkpoints_kept) * gb_per_tb
         lines["storage"] = stored_gb * storage_per_gb_month * wall_hours(grid) / HOURS_PER_MONTH
-    lines["ingress"] = zeros + dataset_gb * transfer.ingress_per_gb
+    lines["ingress"] = dataset_gb * transfer.ingress_per_gb
     if transfer.moves:
-        lines["egress_at_home"] = zeros + dataset_gb * transfer.egress_at_home_per_gb
-    lines["egress"] = zeros + _scenario(data.results_egress_tb) * gb_per_tb * results_egress_per_gb
+        lines["egress_at_home"] = dataset_gb * transfer.egress_at_home_per_gb
+    lines["egress"] = _scenario(data.results_egress_tb) * gb_per_tb * results_egress_per_gb
     return lines
 
 
