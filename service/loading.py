@@ -37,6 +37,10 @@ def field_problems_from_list(items: list[Any]) -> list[FieldProblem]:
         if location[:1] == ["body"]:  # FastAPI puts the body's fields under "body"
             location = location[1:]
         path = ".".join(str(part) for part in location if not _is_union_tag(part))
+        if item.get("type") == "json_invalid":
+            detail = item.get("ctx", {}).get("error", "")
+            problems.append(FieldProblem("(body)", f"the body is not valid JSON: {detail}"))
+            continue
         cause = item.get("ctx", {}).get("error")
         if isinstance(cause, ReferenceProblems):
             prefix = f"{path}." if path else ""

@@ -3,6 +3,7 @@ Starlette's HTTP errors, request validation (a list of field paths and reasons),
 that hides the trace."""
 
 import logging
+import re
 from typing import Any
 
 from fastapi import FastAPI, Request
@@ -46,14 +47,28 @@ def install(app: FastAPI) -> None:
         return problem(422, "Invalid input", "the request does not match the schema", errors=errors)
 
     @app.exception_handler(HTTPException)
-    async def _http(_request: Request, error: HTTPException) -> JSONResponse:
-        return problem(error.status_code, _title(error.status_code), str(error.detail),
-                       headers=dict(error.headers) if error.headers else None)
+    async def _http(request: Request, error: HTTPException) -> JSONResponse:
+        headers = dict(error.headers) if error.headers else {}
+        if error.status_code == 405:
+            # The router answers with the first route that matched the path; name every method.
+            headers["Allow"] = ", ".join(allowed_methods(request))
+        return problem(error.status_code, _title(error.status_code), str(error.detail), headers=headers or None)
 
     @app.exception_handler(Exception)
     async def _unexpected(request: Request, error: Exception) -> JSONResponse:
         log.exception("unhandled error on %s %s", request.method, request.url.path)
         return problem(500, "Internal error", "the service failed to answer; the error was logged")
+
+
+def allowed_methods(request: Request) -> list[str]:
+    """Every method any route of this path answers, read from the app's OpenAPI paths."""
+    methods: set[str] = set()
+    for template, operations in request.app.openapi().get("paths", {}).items():
+        if re.fullmatch(re.sub(r"\{[^/]+\}", "[^/]+", template), request.url.path):
+            methods |= {m.upper() for m in operations}
+    if "GET" in methods:
+        methods.add("HEAD")
+    return sorted(methods)
 
 
 def _title(status: int) -> str:

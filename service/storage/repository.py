@@ -15,7 +15,7 @@ from sqlalchemy import Engine, and_, delete, func, or_, text
 from sqlalchemy.exc import IntegrityError
 from sqlmodel import Session, col, select
 
-from service.errors import InvalidInput
+from service.errors import FieldProblem, InvalidInput
 from service.storage.engine import READ_ONLY
 from service.storage.tables import CatalogRow, IdempotencyRow, QuoteRow
 
@@ -83,7 +83,8 @@ def decode_cursor(cursor: str) -> tuple[datetime, str]:
         moment, ident = raw.split("|", 1)
         return utc(datetime.fromisoformat(moment)), ident
     except (ValueError, binascii.Error, UnicodeDecodeError) as error:
-        raise InvalidInput("the cursor is not one this service issued") from error
+        problem = FieldProblem("cursor", "pass back the next_cursor of a previous page unchanged")
+        raise InvalidInput("the cursor is not one this service issued", [problem]) from error
 
 
 class Repository:

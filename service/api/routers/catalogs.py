@@ -9,7 +9,7 @@ from service.api.deps import NowDep, RawBodyDep, StorageDep
 from service.api.problems import PROBLEM_RESPONSES
 from service.api.schemas.catalog import CatalogIn
 from service.api.schemas.quote import CatalogOut, CatalogPage
-from service.errors import InvalidInput, NotFound
+from service.errors import FieldProblem, InvalidInput, NotFound
 from service.loading import parse_document
 from service.storage.repository import StoredCatalog
 from service.use_cases import upload_catalog
@@ -41,10 +41,10 @@ def create_catalog(request: Request, body: RawBodyDep, storage: StorageDep, now:
     """Upload a catalog (JSON, or YAML with a YAML content type). Identical content returns the
     catalog already stored, with 200."""
     if not body.strip():
-        raise InvalidInput("the request body is empty; send a catalog")
+        raise InvalidInput("the request body is empty", [FieldProblem("(body)", "send a catalog as JSON or YAML")])
     data = parse_document(body.decode("utf-8", errors="replace"), source="the request body")
     if not isinstance(data, dict):
-        raise InvalidInput("a catalog is a JSON object")
+        raise InvalidInput("a catalog is an object", [FieldProblem("(body)", "expected a JSON or YAML object")])
     stored, created = upload_catalog(storage, data, now=now)
     return JSONResponse(catalog_out(stored, with_content=True), status_code=201 if created else 200,
                         headers={"Location": f"/v1/catalogs/{stored.id}"})

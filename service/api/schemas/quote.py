@@ -181,17 +181,20 @@ class Recomputation(Open):
     differences_total: int
 
 
-class CatalogOut(Open):
+class CatalogSummary(Open):
     id: str
     name: str
     currency: str
     content_hash: str
     created_at: str
-    content: dict[str, Any] | None = None
+
+
+class CatalogOut(CatalogSummary):
+    content: dict[str, Any]
 
 
 class CatalogPage(Open):
-    items: list[CatalogOut]
+    items: list[CatalogSummary]
     next_cursor: str | None
 
 

@@ -1,0 +1,342 @@
+"""Quotes over HTTP (api.md, conventions.md): created and stored, read back unchanged, listed with
+filters newest first, recomputed, idempotent with a key; every refusal is a problem that changes
+nothing, and the OpenAPI document carries the demo examples."""
+
+import copy
+import json
+from datetime import timedelta
+from typing import Any
+
+import httpx
+import pytest
+from sqlalchemy import text
+
+from service.api.schemas.quote import QuoteOut
+from service.api.schemas.request import QuoteRequestIn
+from service.storage.repository import Storage
+from service.use_cases import IDEMPOTENCY_KEEP, IDEMPOTENCY_LEASE, body_fingerprint
+from tests.api.conftest import FakeClock
+
+PROBLEM = "application/problem+json"
+TOP_LEVEL = {"id", "created_at", "catalog_id", "catalog_hash", "model_version", "request", "work", "options",
+             "recommendation", "breakeven", "curves", "assumptions", "cautions"}
+
+
+def problem_of(response: httpx.Response, status: int) -> dict[str, Any]:
+    assert response.status_code == status, response.text
+    assert response.headers["content-type"] == PROBLEM
+    body: dict[str, Any] = response.json()
+    assert body["status"] == status
+    assert body["type"] and body["title"] and body["detail"]
+    return body
+
+
+def fields_of(problem: dict[str, Any]) -> set[str]:
+    return {error["field"] for error in problem["errors"]}
+
+
+def count(storage: Storage) -> int:
+    with storage.reading() as repository:
+        return repository.count_quotes()
+
+
+def campaign(base: dict[str, Any], *, name: str | None = None, team: str | None = None) -> dict[str, Any]:
+    request = copy.deepcopy(base)
+    request["campaign"]["name"] = name or request["campaign"]["name"]
+    request["campaign"]["team"] = team or request["campaign"]["team"]
+    return request
+
+
+async def create(client: httpx.AsyncClient, request: dict[str, Any], **headers: str) -> dict[str, Any]:
+    response = await client.post("/v1/quotes", json=request, headers=headers)
+    assert response.status_code == 201, response.text
+    body: dict[str, Any] = response.json()
+    return body
+
+
+async def listed(client: httpx.AsyncClient, **params: Any) -> list[str]:
+    response = await client.get("/v1/quotes", params=params)
+    assert response.status_code == 200, response.text
+    return [item["id"] for item in response.json()["items"]]
+
+
+@pytest.mark.anyio
+async def test_a_quote_is_created_with_every_documented_field_and_a_location(
+    client: httpx.AsyncClient, owned_wins_request: dict[str, Any]
+) -> None:
+    response = await client.post("/v1/quotes", json=owned_wins_request)
+    assert response.status_code == 201, response.text
+    body = response.json()
+    assert set(body) >= TOP_LEVEL
+    QuoteOut.model_validate(body)
+    assert response.headers["location"] == f"/v1/quotes/{body['id']}"
+    assert body["created_at"] == "2027-01-04T09:00:00Z"
+    assert body["request"]["campaign"]["name"] == owned_wins_request["campaign"]["name"]
+    assert body["options"] and body["assumptions"]
+
+
+@pytest.mark.anyio
+async def test_a_stored_quote_reads_back_identical(
+    client: httpx.AsyncClient, owned_wins_request: dict[str, Any]
+) -> None:
+    created = await create(client, owned_wins_request)
+    response = await client.get(f"/v1/quotes/{created['id']}")
+    assert response.status_code == 200
+    assert response.json() == created
+
+
+@pytest.mark.anyio
+async def test_the_newest_catalog_is_the_default_and_an_explicit_one_is_used(
+    client: httpx.AsyncClient, clock: FakeClock, demo_catalog: dict[str, Any], owned_wins_request: dict[str, Any]
+) -> None:
+    demo = (await client.get("/v1/catalogs")).json()["items"][0]
+    clock.advance(minutes=1)
+    newer_content = copy.deepcopy(demo_catalog)
+    newer_content["name"] = "newer"
+    newer = (await client.post("/v1/catalogs", json=newer_content)).json()
+    by_default = await create(client, owned_wins_request)
+    assert (by_default["catalog_id"], by_default["catalog_hash"]) == (newer["id"], newer["content_hash"])
+    explicit = await create(client, {**owned_wins_request, "catalog_id": demo["id"]})
+    assert (explicit["catalog_id"], explicit["catalog_hash"]) == (demo["id"], demo["content_hash"])
+
+
+@pytest.mark.anyio
+async def test_an_unknown_catalog_id_is_a_problem_naming_it(
+    client: httpx.AsyncClient, storage: Storage, owned_wins_request: dict[str, Any]
+) -> None:
+    response = await client.post("/v1/quotes", json={**owned_wins_request, "catalog_id": "cat_nope"})
+    assert "catalog_id" in fields_of(problem_of(response, 422))
+    assert count(storage) == 0
+
+
+@pytest.mark.anyio
+@pytest.mark.parametrize(("path", "value", "field"), [
+    (("campaign", "work", "tokens"), -1, "campaign.work.tokens"),
+    (("campaign", "deadline_days"), 0, "campaign.deadline_days"),
+    (("campaign", "work", "paramters"), 7e9, "campaign.work.paramters"),
+])
+async def test_an_invalid_request_names_the_field_and_stores_nothing(
+    client: httpx.AsyncClient, storage: Storage, owned_wins_request: dict[str, Any], path: tuple[str, ...],
+    value: Any, field: str,
+) -> None:
+    target = owned_wins_request
+    for key in path[:-1]:
+        target = target[key]
+    target[path[-1]] = value
+    assert field in fields_of(problem_of(await client.post("/v1/quotes", json=owned_wins_request), 422))
+    assert count(storage) == 0
+
+
+@pytest.mark.anyio
+@pytest.mark.parametrize("content", [b"", b"{", b"[]"])
+async def test_a_body_that_is_not_a_request_object_is_a_problem(client: httpx.AsyncClient, content: bytes) -> None:
+    problem_of(await client.post("/v1/quotes", content=content, headers={"content-type": "application/json"}), 422)
+
+
+@pytest.mark.anyio
+async def test_an_unknown_jurisdiction_code_is_named_by_its_position(
+    client: httpx.AsyncClient, storage: Storage, owned_wins_request: dict[str, Any]
+) -> None:
+    owned_wins_request["campaign"]["data"]["allowed_jurisdictions"] = ["DE", "QQ"]
+    problem = problem_of(await client.post("/v1/quotes", json=owned_wins_request), 422)
+    assert fields_of(problem) == {"campaign.data.allowed_jurisdictions.1"}
+    assert count(storage) == 0
+
+
+@pytest.mark.anyio
+async def test_quotes_are_filtered_by_team_campaign_and_creation_time_newest_first(
+    client: httpx.AsyncClient, clock: FakeClock, owned_wins_request: dict[str, Any]
+) -> None:
+    start = clock.now
+    a = await create(client, campaign(owned_wins_request, name="alpha", team="perception"))
+    clock.advance(hours=1)
+    b = await create(client, campaign(owned_wins_request, name="beta", team="perception"))
+    clock.advance(hours=1)
+    c = await create(client, campaign(owned_wins_request, name="alpha", team="language"))
+    assert await listed(client) == [c["id"], b["id"], a["id"]]
+    assert await listed(client, team="perception") == [b["id"], a["id"]]
+    assert await listed(client, campaign_name="alpha") == [c["id"], a["id"]]
+    assert await listed(client, team="language", campaign_name="beta") == []
+    one_hour = (start + timedelta(hours=1)).isoformat()
+    two_hours = (start + timedelta(hours=2)).isoformat()
+    assert await listed(client, created_from=one_hour) == [c["id"], b["id"]]  # inclusive
+    assert await listed(client, created_to=two_hours) == [b["id"], a["id"]]  # exclusive
+    assert await listed(client, created_from=one_hour, created_to=two_hours) == [b["id"]]
+
+
+@pytest.mark.anyio
+async def test_a_creation_time_in_another_zone_means_the_same_instant(
+    client: httpx.AsyncClient, clock: FakeClock, owned_wins_request: dict[str, Any]
+) -> None:
+    early = await create(client, owned_wins_request)
+    clock.advance(hours=3)
+    late = await create(client, owned_wins_request)
+    # Quotes at 09:00 and 12:00 UTC; 10:30 UTC written as 12:30 at +02:00 and as 05:30 at -05:00.
+    for moment in ("2027-01-04T12:30:00+02:00", "2027-01-04T05:30:00-05:00"):
+        assert await listed(client, created_from=moment) == [late["id"]]
+        assert await listed(client, created_to=moment) == [early["id"]]
+
+
+@pytest.mark.anyio
+@pytest.mark.parametrize("name", ["created_from", "created_to"])
+async def test_a_creation_time_without_a_zone_is_a_problem(client: httpx.AsyncClient, name: str) -> None:
+    problem = problem_of(await client.get("/v1/quotes", params={name: "2027-01-04T09:00:00"}), 422)
+    assert fields_of(problem) == {name}
+
+
+@pytest.mark.anyio
+async def test_paging_with_the_cursor_visits_every_quote_once_newest_first(
+    client: httpx.AsyncClient, clock: FakeClock, owned_wins_request: dict[str, Any]
+) -> None:
+    created = []
+    for k in range(7):
+        if k % 3 == 0:  # some quotes share a timestamp, so ties are broken by id
+            clock.advance(seconds=1)
+        created.append(await create(client, owned_wins_request))
+    seen: list[dict[str, Any]] = []
+    cursor = None
+    for _ in range(10):
+        page = (await client.get("/v1/quotes", params={"limit": 2, **({"cursor": cursor} if cursor else {})})).json()
+        assert len(page["items"]) <= 2
+        seen += page["items"]
+        cursor = page["next_cursor"]
+        if cursor is None:
+            break
+    assert sorted(item["id"] for item in seen) == sorted(q["id"] for q in created)
+    keys = [(item["created_at"], item["id"]) for item in seen]
+    assert keys == sorted(keys, reverse=True)
+
+
+@pytest.mark.anyio
+@pytest.mark.parametrize("params", [{"cursor": "garbage!"}, {"cursor": "Zm9vYmFy"}, {"limit": 201}, {"limit": 0}])
+async def test_a_garbage_cursor_or_an_out_of_range_limit_is_a_problem(
+    client: httpx.AsyncClient, params: dict[str, Any]
+) -> None:
+    problem_of(await client.get("/v1/quotes", params=params), 422)
+
+
+@pytest.mark.anyio
+async def test_an_unknown_quote_is_a_404_problem(client: httpx.AsyncClient) -> None:
+    assert "q_missing" in problem_of(await client.get("/v1/quotes/q_missing"), 404)["detail"]
+    problem_of(await client.post("/v1/quotes/q_missing/recompute"), 404)
+
+
+@pytest.mark.anyio
+async def test_recomputing_an_untouched_quote_finds_no_difference(
+    client: httpx.AsyncClient, owned_wins_request: dict[str, Any]
+) -> None:
+    created = await create(client, owned_wins_request)
+    response = await client.post(f"/v1/quotes/{created['id']}/recompute")
+    assert response.status_code == 200
+    body = response.json()
+    assert (body["quote_id"], body["changed"], body["differences"], body["differences_total"]) == (
+        created["id"], False, [], 0)
+    assert body["model_version_stored"] == body["model_version_now"] == created["model_version"]
+
+
+@pytest.mark.anyio
+async def test_recomputing_a_tampered_quote_names_the_differing_paths(
+    client: httpx.AsyncClient, storage: Storage, owned_wins_request: dict[str, Any]
+) -> None:
+    created = await create(client, owned_wins_request)
+    tampered = copy.deepcopy(created)
+    honest_total = tampered["options"][0]["cost"]["total"]
+    tampered["options"][0]["cost"]["total"] = honest_total * 2
+    tampered["cautions"] = [*tampered["cautions"], "inserted by hand"]
+    with storage.writing() as repository:
+        repository.session.execute(text("UPDATE quote SET response = :response WHERE id = :id"),
+                                   {"response": json.dumps(tampered), "id": created["id"]})
+    body = (await client.post(f"/v1/quotes/{created['id']}/recompute")).json()
+    assert body["changed"] is True
+    paths = {d["path"]: d for d in body["differences"]}
+    assert set(paths) == {"options[0].cost.total", "cautions"}
+    assert paths["options[0].cost.total"]["stored"] == honest_total * 2
+    assert paths["options[0].cost.total"]["recomputed"] == pytest.approx(honest_total, rel=1e-9)
+
+
+@pytest.mark.anyio
+async def test_the_same_key_and_body_replays_the_first_answer(
+    client: httpx.AsyncClient, storage: Storage, clock: FakeClock, owned_wins_request: dict[str, Any]
+) -> None:
+    first = await create(client, owned_wins_request, **{"Idempotency-Key": "k-1"})
+    clock.advance(minutes=10)
+    reordered = json.dumps({key: owned_wins_request[key] for key in reversed(list(owned_wins_request))})
+    again = await client.post("/v1/quotes", content=reordered,
+                              headers={"Idempotency-Key": "k-1", "content-type": "application/json"})
+    assert again.status_code == 201
+    assert again.headers["idempotent-replayed"] == "true"
+    assert again.headers["location"] == f"/v1/quotes/{first['id']}"
+    assert again.json() == first
+    assert count(storage) == 1
+
+
+@pytest.mark.anyio
+async def test_the_same_key_with_another_body_is_refused_and_the_first_answer_survives(
+    client: httpx.AsyncClient, storage: Storage, owned_wins_request: dict[str, Any]
+) -> None:
+    first = await create(client, owned_wins_request, **{"Idempotency-Key": "k-2"})
+    other = campaign(owned_wins_request, name="something-else")
+    problem_of(await client.post("/v1/quotes", json=other, headers={"Idempotency-Key": "k-2"}), 422)
+    assert count(storage) == 1
+    replay = await client.post("/v1/quotes", json=owned_wins_request, headers={"Idempotency-Key": "k-2"})
+    assert replay.json()["id"] == first["id"]
+
+
+@pytest.mark.anyio
+async def test_a_key_still_in_flight_is_a_conflict_until_its_lease_runs_out(
+    client: httpx.AsyncClient, storage: Storage, clock: FakeClock, owned_wins_request: dict[str, Any]
+) -> None:
+    raw = json.dumps(owned_wins_request).encode()
+    with storage.writing() as repository:
+        claim = repository.claim_key(caller="local", key="k-3", body_hash=body_fingerprint(raw), now=clock.now,
+                                     lease=IDEMPOTENCY_LEASE, keep=IDEMPOTENCY_KEEP)
+    assert claim.state == "claimed"
+    headers = {"Idempotency-Key": "k-3", "content-type": "application/json"}
+    clock.advance(seconds=59)
+    problem_of(await client.post("/v1/quotes", content=raw, headers=headers), 409)
+    assert count(storage) == 0
+    clock.advance(seconds=2)  # 61 s after the claim: the first request is presumed dead
+    response = await client.post("/v1/quotes", content=raw, headers=headers)
+    assert response.status_code == 201
+    assert "idempotent-replayed" not in response.headers
+    assert count(storage) == 1
+
+
+@pytest.mark.anyio
+async def test_a_rejected_request_releases_its_key_for_a_corrected_retry(
+    client: httpx.AsyncClient, storage: Storage, owned_wins_request: dict[str, Any]
+) -> None:
+    wrong = copy.deepcopy(owned_wins_request)
+    wrong["campaign"]["data"]["allowed_jurisdictions"] = ["QQ"]
+    problem_of(await client.post("/v1/quotes", json=wrong, headers={"Idempotency-Key": "k-4"}), 422)
+    problem_of(await client.post("/v1/quotes", json={**owned_wins_request, "catalog_id": "cat_nope"},
+                                 headers={"Idempotency-Key": "k-4"}), 422)
+    created = await create(client, owned_wins_request, **{"Idempotency-Key": "k-4"})
+    assert count(storage) == 1
+    replay = await client.post("/v1/quotes", json=owned_wins_request, headers={"Idempotency-Key": "k-4"})
+    assert replay.json()["id"] == created["id"]
+
+
+@pytest.mark.anyio
+async def test_the_openapi_document_has_the_demo_examples_and_the_problem_and_catalog_schemas(
+    client: httpx.AsyncClient,
+) -> None:
+    schema = (await client.get("/openapi.json")).json()
+    body = schema["paths"]["/v1/quotes"]["post"]["requestBody"]["content"]["application/json"]
+    assert set(body["examples"]) == {"owned_wins", "renting_wins", "residency_blocked", "recurring"}
+    for example in body["examples"].values():
+        QuoteRequestIn.model_validate(example["value"])
+    components = schema["components"]["schemas"]
+    assert {"type", "title", "status", "detail"} <= set(components["Problem"]["properties"])
+    assert "sites" in components["CatalogIn"]["properties"]
+    docs = await client.get("/docs")
+    assert docs.status_code == 200
+    assert "text/html" in docs.headers["content-type"]
+
+
+@pytest.mark.anyio
+async def test_an_unknown_route_and_a_wrong_method_are_problems_too(client: httpx.AsyncClient) -> None:
+    problem_of(await client.get("/v1/nothing-here"), 404)
+    wrong = await client.put("/v1/quotes/q_any/recompute")
+    problem_of(wrong, 405)
+    assert wrong.headers["allow"] == "POST"

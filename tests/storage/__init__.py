@@ -1,0 +1,1 @@
+"""Storage tests: the repository and migrations on a real SQLite file."""

@@ -1,0 +1,214 @@
+"""The storage on a real SQLite file built by the migrations: the engine's durability settings, a
+schema that matches the tables, and the repository's dedupe, paging, keys and foreign keys."""
+
+from collections.abc import Iterator
+from datetime import UTC, datetime, timedelta, timezone
+from pathlib import Path
+from typing import Any
+
+import pytest
+from alembic.autogenerate import compare_metadata
+from alembic.runtime.migration import MigrationContext
+from sqlalchemy import Engine
+from sqlalchemy.exc import IntegrityError
+from sqlmodel import SQLModel
+
+from service.storage.engine import build_engine
+from service.storage.migrate import is_at_head, upgrade
+from service.storage.repository import Storage, StoredCatalog, StoredQuote, new_id
+from service.use_cases import upload_catalog
+
+NOW = datetime(2027, 1, 4, 9, 0, tzinfo=UTC)
+LEASE = timedelta(seconds=60)
+KEEP = timedelta(hours=24)
+
+
+@pytest.fixture
+def engine(tmp_path: Path) -> Iterator[Engine]:
+    built = build_engine(f"sqlite:///{tmp_path / 'berth.db'}")
+    yield built
+    built.dispose()
+
+
+@pytest.fixture
+def storage(engine: Engine) -> Storage:
+    upgrade(engine)
+    return Storage(engine)
+
+
+@pytest.fixture
+def catalog(storage: Storage) -> StoredCatalog:
+    with storage.writing() as repository:
+        return repository.add_catalog(name="c", currency="EUR", content_hash="a" * 64, content={"name": "c"},
+                                      created_at=NOW)
+
+
+def a_quote(catalog_id: str, created_at: datetime, **fields: Any) -> StoredQuote:
+    values: dict[str, Any] = {
+        "id": new_id("q"), "created_at": created_at, "team": "perception", "campaign_name": "encoder",
+        "catalog_id": catalog_id, "catalog_hash": "a" * 64, "model_version": "test", "request": {"r": 1},
+        "response": {"total": 1.5}}
+    return StoredQuote(**{**values, **fields})
+
+
+def test_every_connection_runs_with_wal_full_sync_foreign_keys_and_a_busy_timeout(engine: Engine) -> None:
+    with engine.connect() as connection:
+        pragmas = {name: connection.exec_driver_sql(f"PRAGMA {name}").scalar()
+                   for name in ("journal_mode", "synchronous", "foreign_keys", "busy_timeout")}
+    assert pragmas == {"journal_mode": "wal", "synchronous": 2, "foreign_keys": 1, "busy_timeout": 5000}
+
+
+def test_the_migrations_reach_head_and_build_exactly_the_tables_of_the_models(engine: Engine) -> None:
+    assert not is_at_head(engine)
+    upgrade(engine)
+    assert is_at_head(engine)
+    with engine.connect() as connection:
+        context = MigrationContext.configure(connection, opts={"compare_type": True})
+        assert compare_metadata(context, SQLModel.metadata) == []
+    upgrade(engine)  # a second run is a no-op
+    assert is_at_head(engine)
+
+
+def test_a_catalog_with_known_content_is_found_by_its_hash_and_never_stored_twice(
+    storage: Storage, catalog: StoredCatalog
+) -> None:
+    with storage.reading() as repository:
+        assert repository.catalog_by_hash("a" * 64) == catalog
+        assert repository.catalog_by_hash("b" * 64) is None
+    with pytest.raises(IntegrityError), storage.writing() as repository:
+        repository.add_catalog(name="again", currency="EUR", content_hash="a" * 64, content={}, created_at=NOW)
+    with storage.reading() as repository:
+        assert repository.catalogs(limit=10, cursor=None) == ([catalog], None)
+
+
+def test_uploading_the_same_catalog_twice_returns_the_first_one(
+    storage: Storage, demo_catalog: dict[str, Any]
+) -> None:
+    first, created = upload_catalog(storage, demo_catalog, now=NOW)
+    again, created_again = upload_catalog(storage, {**demo_catalog}, now=NOW + timedelta(hours=1))
+    assert (created, created_again) == (True, False)
+    assert again == first
+    with storage.reading() as repository:
+        assert [c.id for c in repository.catalogs(limit=10, cursor=None)[0]] == [first.id]
+
+
+def test_quotes_page_newest_first_by_time_then_id_even_when_times_are_equal(
+    storage: Storage, catalog: StoredCatalog
+) -> None:
+    moments = [NOW, NOW, NOW, NOW + timedelta(seconds=1), NOW + timedelta(seconds=1), NOW - timedelta(days=1), NOW]
+    quotes = [a_quote(catalog.id, moment) for moment in moments]
+    with storage.writing() as repository:
+        for quote in quotes:
+            repository.add_quote(quote)
+    expected = [q.id for q in sorted(quotes, key=lambda q: (q.created_at, q.id), reverse=True)]
+    seen: list[str] = []
+    cursor: str | None = None
+    pages = 0
+    while True:
+        with storage.reading() as repository:
+            page, cursor = repository.quotes(limit=3, cursor=cursor)
+        seen += [q.id for q in page]
+        pages += 1
+        if cursor is None:
+            break
+    assert seen == expected
+    assert pages == 3
+
+
+def test_a_stored_quote_comes_back_as_it_went_in_with_its_time_in_utc(
+    storage: Storage, catalog: StoredCatalog
+) -> None:
+    quote = a_quote(catalog.id, NOW)
+    with storage.writing() as repository:
+        repository.add_quote(quote)
+    with storage.reading() as repository:
+        assert repository.quote(quote.id) == quote
+        assert repository.quote("q_missing") is None
+        assert repository.count_quotes() == 1
+
+
+def test_quotes_are_filtered_by_team_campaign_and_a_half_open_time_range(
+    storage: Storage, catalog: StoredCatalog
+) -> None:
+    early = a_quote(catalog.id, NOW, team="language")
+    late = a_quote(catalog.id, NOW + timedelta(hours=2), campaign_name="decoder")
+    with storage.writing() as repository:
+        repository.add_quote(early)
+        repository.add_quote(late)
+    with storage.reading() as repository:
+        def ids(**filters: Any) -> list[str]:
+            return [q.id for q in repository.quotes(limit=10, cursor=None, **filters)[0]]
+
+        assert ids(team="language") == [early.id]
+        assert ids(campaign_name="decoder") == [late.id]
+        assert ids(created_from=NOW, created_to=NOW + timedelta(hours=2)) == [early.id]
+        assert ids(created_from=NOW + timedelta(hours=2)) == [late.id]
+        # The same instant at +09:00 and at -05:00 (one hour after the early quote).
+        for offset in (9, -5):
+            moment = (NOW + timedelta(hours=1)).astimezone(timezone(timedelta(hours=offset)))
+            assert ids(created_from=moment) == [late.id]
+            assert ids(created_to=moment) == [early.id]
+
+
+def test_a_quote_naming_an_unknown_catalog_is_refused_by_the_foreign_key(storage: Storage) -> None:
+    with pytest.raises(IntegrityError, match="FOREIGN KEY"), storage.writing() as repository:
+        repository.add_quote(a_quote("cat_missing", NOW))
+    with storage.reading() as repository:
+        assert repository.count_quotes() == 0
+
+
+def claim(storage: Storage, *, key: str = "k", body: str = "b" * 64, at: datetime = NOW) -> Any:
+    with storage.writing() as repository:
+        return repository.claim_key(caller="local", key=key, body_hash=body, now=at, lease=LEASE, keep=KEEP)
+
+
+def test_a_fresh_key_is_claimed_and_a_second_claim_finds_it_in_flight(storage: Storage) -> None:
+    assert claim(storage).state == "claimed"
+    second = claim(storage, at=NOW + timedelta(seconds=59))
+    assert (second.state, second.same_body) == ("in_flight", True)
+    assert claim(storage, body="c" * 64, at=NOW + timedelta(seconds=1)).same_body is False
+
+
+def test_keys_belong_to_one_caller(storage: Storage) -> None:
+    assert claim(storage).state == "claimed"
+    with storage.writing() as repository:
+        other = repository.claim_key(caller="someone-else", key="k", body_hash="b" * 64, now=NOW, lease=LEASE,
+                                     keep=KEEP)
+    assert other.state == "claimed"
+
+
+def test_a_completed_key_returns_its_answer_and_says_whether_the_body_matches(storage: Storage) -> None:
+    claim(storage)
+    with storage.writing() as repository:
+        repository.complete_key(caller="local", key="k", status_code=201, response={"id": "q_1"})
+    done = claim(storage, at=NOW + timedelta(hours=1))
+    assert (done.state, done.same_body, done.status_code, done.response) == ("done", True, 201, {"id": "q_1"})
+    assert claim(storage, body="c" * 64, at=NOW + timedelta(hours=1)).same_body is False
+    # A finished key is not "abandoned" when its lease has long run out.
+    assert claim(storage, at=NOW + KEEP - timedelta(seconds=1)).state == "done"
+
+
+def test_an_expired_key_is_claimed_afresh(storage: Storage) -> None:
+    claim(storage)
+    with storage.writing() as repository:
+        repository.complete_key(caller="local", key="k", status_code=201, response={"id": "q_1"})
+    renewed = claim(storage, body="c" * 64, at=NOW + KEEP)
+    assert (renewed.state, renewed.same_body, renewed.response) == ("claimed", True, None)
+
+
+def test_a_claim_whose_lease_ran_out_is_taken_over(storage: Storage) -> None:
+    claim(storage)
+    assert claim(storage, at=NOW + LEASE - timedelta(microseconds=1)).state == "in_flight"
+    assert claim(storage, at=NOW + LEASE).state == "claimed"
+    assert claim(storage, at=NOW + LEASE + timedelta(seconds=1)).state == "in_flight"  # the new claim holds
+
+
+def test_a_released_claim_can_be_claimed_again_but_a_finished_one_is_kept(storage: Storage) -> None:
+    claim(storage)
+    with storage.writing() as repository:
+        repository.release_key(caller="local", key="k")
+    assert claim(storage, body="c" * 64).state == "claimed"
+    with storage.writing() as repository:
+        repository.complete_key(caller="local", key="k", status_code=201, response={"id": "q_2"})
+        repository.release_key(caller="local", key="k")
+    assert claim(storage, body="c" * 64).state == "done"
