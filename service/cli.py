@@ -9,6 +9,7 @@ from typing import Annotated, Any
 
 import typer
 from rich.console import Console
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 
 from service.api.schemas.catalog import CatalogIn
 from service.api.schemas.request import QuoteRequestIn
@@ -60,6 +61,44 @@ def quote_command(
         sys.stdout.write(json.dumps(document, indent=2, ensure_ascii=False) + "\n")
     else:
         print_quote(out, document)
+
+
+class SweepFormat(StrEnum):
+    json = "json"
+    csv = "csv"
+
+
+@app.command("sweep")
+def sweep_command(
+    sweep_path: Annotated[Path, typer.Argument(metavar="SWEEP.json", help="the sweep request")],
+    catalog: Annotated[Path | None, typer.Option(help="catalog file (default: the demo catalog)")] = None,
+    output: Annotated[SweepFormat, typer.Option("--format", help="json (summary) or csv (every row)")]
+    = SweepFormat.json,
+) -> None:
+    """Run a sweep of what-if scenarios offline, with a progress bar on the terminal's error stream."""
+    from service.api.schemas.sweep import SweepIn
+    from service.sweeps import SweepLimits, csv_chunks, prepare_sweep, run, sweep_document, tornado_bars
+
+    try:
+        catalog_in = load_file(CatalogIn, catalog or Settings().demo_catalog)
+        prepared = prepare_sweep(catalog_in, load_file(SweepIn, sweep_path), SweepLimits())
+    except BerthError as error:
+        _fail(error)
+        return
+    with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(),
+                  console=err, transient=True) as bar:
+        task = bar.add_task("scenarios", total=prepared.plan.scenarios)
+
+        def advance(done: int, _total: int) -> None:
+            bar.update(task, completed=done)
+
+        if output is SweepFormat.csv:
+            for text in csv_chunks(prepared, progress=advance):
+                sys.stdout.write(text)
+            return
+        summary, rows = run(prepared, progress=advance)
+    document = sweep_document(prepared, summary, rows, tornado_bars(prepared))
+    sys.stdout.write(json.dumps(document, indent=2, ensure_ascii=False) + "\n")
 
 
 @catalog_app.command("check")

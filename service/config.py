@@ -16,3 +16,6 @@ class Settings(BaseSettings):
     demo_catalog: Path = REPO_ROOT / "pricing_examples" / "catalog.json"
     load_demo_catalog: bool = True  # on an empty database
     migrate_on_start: bool = True  # several replicas may instead run the migrations once, as a job
+    sweep_max_scenarios: int = 10_000_000
+    sweep_max_grid_values: int = 10_000  # per varied input
+    sweep_answer_at_once: int = 20_000  # larger sweeps run in the background (202)

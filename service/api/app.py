@@ -14,13 +14,14 @@ from service import __version__
 from service.api import problems
 from service.api.deps import utc_now
 from service.api.examples import quote_request_examples
-from service.api.routers import catalogs, probes, quotes
+from service.api.routers import catalogs, probes, quotes, sweeps
 from service.api.schemas.catalog import CatalogIn
 from service.api.schemas.quote import Problem
 from service.config import Settings
 from service.storage.engine import build_engine
 from service.storage.migrate import upgrade
 from service.storage.repository import Storage
+from service.sweeps import SweepRunner
 from service.use_cases import ParsedCatalogs, load_demo_catalog
 
 log = logging.getLogger("berth")
@@ -42,6 +43,9 @@ def prepare(app: FastAPI) -> None:
         loaded = load_demo_catalog(storage, settings.demo_catalog, now=app.state.clock())
         if loaded is not None:
             log.info("loaded the demo catalog %s as %s", loaded.name, loaded.id)
+    resumed = app.state.sweeps.resume()
+    if resumed:
+        log.info("resumed %d unfinished sweeps", resumed)
 
 
 def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime] = utc_now) -> FastAPI:
@@ -51,6 +55,7 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         prepare(app)
         yield
+        app.state.sweeps.shutdown()
         app.state.storage.dispose()
 
     app = FastAPI(title="berth", version=__version__, description=DESCRIPTION, lifespan=lifespan)
@@ -58,10 +63,12 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     app.state.storage = Storage(build_engine(settings.database_url))
     app.state.catalogs = ParsedCatalogs()
     app.state.clock = clock
+    app.state.sweeps = SweepRunner(app.state.storage, app.state.catalogs, clock)
     problems.install(app)
     app.include_router(probes.router)
     app.include_router(catalogs.router)
     app.include_router(quotes.router)
+    app.include_router(sweeps.router)
     app.openapi = lambda: _openapi(app)  # type: ignore[method-assign]
     return app
 

@@ -57,11 +57,17 @@ def reasons(option: OptionResult, i: int, catalog: Catalog, campaign_allowed: Se
             out.append(_facility_reason(bit, option, i, site))
         elif bit == screens.DEADLINE and deadline_days is not None:
             days = option.layout.wall_seconds[i] / SECONDS_PER_DAY
-            needed = option.layout.accelerators[i] * days / deadline_days
-            out.append(f"deadline: the fastest layout here ({_n(option.layout.accelerators[i])} accelerators) "
-                       f"takes {_n(days, 1)} days, {_n(days - deadline_days, 1)} days past the "
-                       f"{_n(deadline_days, 1)}-day deadline; meeting it would take at least "
-                       f"{_n(np.ceil(needed))} accelerators at ideal scaling")
+            staged = option.staging_seconds[i] / SECONDS_PER_DAY  # copying the data does not scale
+            head = (f"deadline: the fastest layout here ({_n(option.layout.accelerators[i])} accelerators) "
+                    f"takes {_n(days, 1)} days, {_n(days - deadline_days, 1)} days past the "
+                    f"{_n(deadline_days, 1)}-day deadline; ")
+            if staged >= deadline_days:
+                out.append(head + f"copying the dataset alone takes {_n(staged, 1)} days, so no layout here "
+                           "can meet it")
+            else:
+                needed = option.layout.accelerators[i] * (days - staged) / (deadline_days - staged)
+                out.append(head + f"meeting it would take at least {_n(np.ceil(needed))} accelerators at "
+                           "ideal scaling")
     return out
 
 
@@ -307,4 +313,6 @@ def used_assumptions(catalog: Catalog, evaluation: CampaignEvaluation, campaign_
     names += sorted({f"path_efficiency_{v.network_path}" for v in venues if v.path_efficiency is None})
     if any(o.pue is None for o in catalog.offers):
         names.append("rented_pue")
+    if any(o.transfer.link_assumed for o in evaluation.options):
+        names.append("data_link_gbps")
     return list(dict.fromkeys(names))

@@ -17,7 +17,7 @@ from sqlmodel import Session, col, select
 
 from service.errors import FieldProblem, InvalidInput
 from service.storage.engine import READ_ONLY
-from service.storage.tables import CatalogRow, IdempotencyRow, QuoteRow
+from service.storage.tables import CatalogRow, IdempotencyRow, QuoteRow, SweepRow
 
 
 def utc(moment: datetime) -> datetime:
@@ -50,6 +50,27 @@ class StoredQuote:
     model_version: str
     request: dict[str, Any]
     response: dict[str, Any]
+
+
+@dataclass(frozen=True)
+class StoredSweep:
+    id: str
+    created_at: datetime
+    catalog_id: str
+    status: str
+    scenarios_total: int
+    scenarios_done: int
+    request: dict[str, Any]
+    result: dict[str, Any] | None
+    error: str | None
+    finished_at: datetime | None
+
+
+def _sweep(row: SweepRow) -> StoredSweep:
+    result = None if row.result is None else json.loads(row.result)
+    finished = None if row.finished_at is None else utc(row.finished_at)
+    return StoredSweep(row.id, utc(row.created_at), row.catalog_id, row.status, row.scenarios_total,
+                       row.scenarios_done, json.loads(row.request), result, row.error, finished)
 
 
 @dataclass(frozen=True)
@@ -204,6 +225,39 @@ class Repository:
         self.session.execute(delete(IdempotencyRow).where(
             col(IdempotencyRow.caller) == caller, col(IdempotencyRow.key) == key,
             col(IdempotencyRow.state) == "in_flight"))
+
+    # sweeps
+    def add_sweep(self, *, sweep_id: str, created_at: datetime, catalog_id: str, status: str, total: int,
+                  request: dict[str, Any], result: dict[str, Any] | None = None) -> None:
+        self.session.add(SweepRow(id=sweep_id, created_at=created_at, catalog_id=catalog_id, status=status,
+                                  scenarios_total=total, scenarios_done=total if result is not None else 0,
+                                  request=json.dumps(request, sort_keys=True),
+                                  result=None if result is None else json.dumps(result),
+                                  finished_at=created_at if result is not None else None))
+        self.session.flush()
+
+    def sweep(self, sweep_id: str) -> StoredSweep | None:
+        row = self.session.get(SweepRow, sweep_id)
+        return None if row is None else _sweep(row)
+
+    def update_sweep(self, sweep_id: str, *, status: str, done: int, result: dict[str, Any] | None = None,
+                     error: str | None = None, finished_at: datetime | None = None) -> None:
+        row = self.session.get(SweepRow, sweep_id)
+        if row is None:
+            return
+        row.status, row.scenarios_done = status, done
+        if result is not None:
+            row.result = json.dumps(result)
+        if error is not None:
+            row.error = error
+        if finished_at is not None:
+            row.finished_at = finished_at
+        self.session.add(row)
+        self.session.flush()
+
+    def unfinished_sweeps(self) -> list[StoredSweep]:
+        query = select(SweepRow).where(col(SweepRow.status).in_(("queued", "running")))
+        return [_sweep(r) for r in self.session.exec(query.order_by(col(SweepRow.created_at))).all()]
 
     def ping(self) -> None:
         self.session.execute(text("SELECT 1"))

@@ -51,3 +51,21 @@ class IdempotencyRow(SQLModel, table=True):
     response: str | None = Field(default=None, sa_column=Column(Text, nullable=True))
     claimed_at: datetime = Field(sa_column=_utc_column())
     expires_at: datetime = Field(sa_column=_utc_column(index=True))
+
+
+class SweepRow(SQLModel, table=True):
+    """A sweep request and, once run, its summary. Rows are not stored: they are recomputed from
+    the seeded request when asked for, identically."""
+
+    __tablename__ = "sweep"
+
+    id: str = Field(primary_key=True, max_length=40)
+    created_at: datetime = Field(sa_column=_utc_column(index=True))
+    catalog_id: str = Field(foreign_key="catalog.id", max_length=40)
+    status: str = Field(max_length=16)  # queued, running, done, failed
+    scenarios_total: int
+    scenarios_done: int = 0
+    request: str = Field(sa_column=Column(Text, nullable=False))
+    result: str | None = Field(default=None, sa_column=Column(Text, nullable=True))
+    error: str | None = Field(default=None, sa_column=Column(Text, nullable=True))
+    finished_at: datetime | None = Field(default=None, sa_column=Column(DateTime(timezone=True), nullable=True))

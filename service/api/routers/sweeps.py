@@ -1,0 +1,59 @@
+"""Sweeps: bulk what-ifs over a base campaign; small ones answered at once, large ones in the
+background with progress; every row as streamed CSV."""
+
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Depends, Request
+from fastapi.responses import JSONResponse, StreamingResponse
+
+from service.api.deps import CatalogsDep, NowDep, StorageDep
+from service.api.problems import PROBLEM_RESPONSES
+from service.api.schemas.sweep import SweepIn
+from service.config import Settings
+from service.sweeps import SweepLimits, SweepRunner, csv_chunks, get_sweep, prepared_from_store, submit_sweep
+
+router = APIRouter(prefix="/v1/sweeps", tags=["sweeps"])
+
+
+def _runner(request: Request) -> SweepRunner:
+    runner: SweepRunner = request.app.state.sweeps
+    return runner
+
+
+def _settings(request: Request) -> Settings:
+    settings: Settings = request.app.state.settings
+    return settings
+
+
+RunnerDep = Annotated[SweepRunner, Depends(_runner)]
+SettingsDep = Annotated[Settings, Depends(_settings)]
+
+
+@router.post("", status_code=201, responses={202: {"description": "accepted: running in the background"},
+                                             **PROBLEM_RESPONSES})
+def post_sweep(payload: SweepIn, storage: StorageDep, catalogs: CatalogsDep, now: NowDep, runner: RunnerDep,
+               settings: SettingsDep) -> JSONResponse:
+    """Run a sweep: a grid of every combination, or Monte Carlo samples from distributions, over a
+    base quote request. Up to `BERTH_SWEEP_ANSWER_AT_ONCE` scenarios the answer comes back at once
+    (201); larger sweeps are accepted (202) and report progress at their Location."""
+    limits = SweepLimits(max_scenarios=settings.sweep_max_scenarios, max_grid_values=settings.sweep_max_grid_values)
+    outcome = submit_sweep(storage, catalogs, payload, now=now, limits=limits,
+                           answer_at_once=settings.sweep_answer_at_once, runner=runner)
+    return JSONResponse(outcome.body, status_code=outcome.status_code,
+                        headers={"Location": outcome.body["links"]["self"]})
+
+
+@router.get("/{sweep_id}", responses=PROBLEM_RESPONSES)
+def read_sweep(sweep_id: str, storage: StorageDep) -> dict[str, Any]:
+    """Status, progress and, once done, the summary, tornado and (for small sweeps) the rows."""
+    return get_sweep(storage, sweep_id)
+
+
+@router.get("/{sweep_id}/rows.csv", response_class=StreamingResponse, responses={
+    200: {"content": {"text/csv": {}}, "description": "one row per scenario"}, **PROBLEM_RESPONSES})
+def sweep_rows(sweep_id: str, storage: StorageDep, catalogs: CatalogsDep) -> StreamingResponse:
+    """Every scenario's inputs, cheapest option and each option's total, streamed as CSV. The rows
+    are recomputed from the seeded request, so they are identical every time."""
+    prepared = prepared_from_store(storage, catalogs, sweep_id)
+    return StreamingResponse(csv_chunks(prepared), media_type="text/csv; charset=utf-8",
+                             headers={"Content-Disposition": f'attachment; filename="{sweep_id}.csv"'})

@@ -1,0 +1,270 @@
+"""Sweeps: many what-if scenarios through the same vectorised core as one quote.
+
+A plan names the varied inputs as a grid (every combination) or as distributions (Monte Carlo).
+Scenarios are made and evaluated in chunks, so memory stays bounded at any size; the summary
+accumulates across chunks. No Python loop runs per scenario.
+"""
+
+from collections.abc import Iterator, Mapping
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from service.domain.arrays import Bools, Floats, Ints
+from service.domain.campaign import Campaign, Overrides, QuoteOptions
+from service.domain.catalog import Catalog
+from service.domain.comparison import breakeven_rows, cheapest
+from service.domain.distributions import Distribution, stream
+from service.domain.evaluate import evaluate_campaign
+from service.domain.whatif import apply
+
+CHUNK_ELEMENTS = 400_000  # scenarios × candidate node counts per chunk: bounds memory
+
+
+@dataclass(frozen=True)
+class SweepPlan:
+    campaign: Campaign
+    options: QuoteOptions
+    overrides: Overrides
+    grid: Mapping[str, Floats] = field(default_factory=dict)
+    distributions: Mapping[str, Distribution] = field(default_factory=dict)
+    samples: int = 0
+    seed: int = 0
+
+    @property
+    def paths(self) -> list[str]:
+        return list(self.grid) if self.grid else list(self.distributions)
+
+    @property
+    def scenarios(self) -> int:
+        if self.grid:
+            return int(np.prod([len(v) for v in self.grid.values()], dtype=np.int64))
+        return self.samples
+
+
+def scenario_chunks(plan: SweepPlan, chunk: int) -> Iterator[tuple[int, dict[str, Floats]]]:
+    """(first scenario index, {path: values}) for consecutive chunks of at most `chunk` scenarios.
+    Grid scenarios enumerate the combinations with the last path varying fastest; Monte Carlo
+    draws come from one stream per path, so they do not depend on the chunk size."""
+    total = plan.scenarios
+    if plan.grid:
+        axes = [np.asarray(v, dtype=np.float64) for v in plan.grid.values()]
+        shape = tuple(len(a) for a in axes)
+        for start in range(0, total, chunk):
+            index = np.unravel_index(np.arange(start, min(start + chunk, total)), shape)
+            yield start, {path: axes[k][index[k]] for k, path in enumerate(plan.grid)}
+        return
+    generators = {path: stream(plan.seed, path) for path in plan.distributions}
+    for start in range(0, total, chunk):
+        size = min(chunk, total - start)
+        yield start, {path: dist.draw(generators[path], size) for path, dist in plan.distributions.items()}
+
+
+@dataclass(frozen=True)
+class ChunkResult:
+    """One chunk's scenarios: inputs, each option's total (NaN where infeasible), the cheapest."""
+
+    inputs: dict[str, Floats]
+    labels: list[str]
+    owned: Bools  # which options are owned, by label order
+    totals: Floats  # (options, scenarios)
+    cheapest: Ints  # option index, −1 where nothing is feasible
+    owned_best: Floats
+    rented_best: Floats
+    breakeven_labels: list[tuple[str, str, str]]
+    breakeven_utilisation: Floats  # (rows, scenarios), NaN where there is none
+
+    @property
+    def size(self) -> int:
+        return int(self.totals.shape[1])
+
+
+def evaluate_chunk(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Floats]) -> ChunkResult:
+    campaign, overrides = apply(plan.campaign, plan.overrides, inputs)
+    size = len(next(iter(inputs.values()))) if inputs else 1
+    evaluation = evaluate_campaign(catalog, campaign, plan.options, overrides)
+    options = evaluation.options
+    feasible = np.stack([np.broadcast_to(o.feasible, (size,)) for o in options])
+    totals = np.where(feasible, np.stack([np.broadcast_to(o.total, (size,)) for o in options]), np.nan)
+    owned = np.array([o.venue_kind == "owned" for o in options])
+    best = np.where(feasible, totals, np.inf)
+    rows = breakeven_rows(evaluation)
+    return ChunkResult(
+        inputs=dict(inputs),
+        labels=[o.label for o in options],
+        owned=owned,
+        totals=totals,
+        cheapest=np.broadcast_to(cheapest(options, plan.options.rank_by), (size,)),
+        owned_best=best[owned].min(axis=0) if owned.any() else np.full(size, np.inf),
+        rented_best=best[~owned].min(axis=0) if (~owned).any() else np.full(size, np.inf),
+        breakeven_labels=[(r.site, r.offer, r.term) for r in rows],
+        breakeven_utilisation=(np.stack([np.broadcast_to(r.figures.utilisation, (size,)) for r in rows])
+                               if rows else np.zeros((0, size))),
+    )
+
+
+class Reservoir:
+    """Values for percentiles: all of them up to `capacity`, then a uniform random sample of that
+    many (seeded, so the summary reproduces)."""
+
+    def __init__(self, capacity: int, seed: int) -> None:
+        self.capacity = capacity
+        self.seen = 0
+        self._parts: list[Floats] = []
+        self._sample: Floats | None = None
+        self._generator = np.random.default_rng(np.random.SeedSequence([seed, 0x5EED]))
+
+    def add(self, values: Floats) -> None:
+        values = values[np.isfinite(values)]
+        if self._sample is None and self.seen + values.size <= self.capacity:
+            self._parts.append(values.copy())
+            self.seen += values.size
+            return
+        if self._sample is None:
+            pooled = np.concatenate([*self._parts, values])
+            self._parts = []
+            keep = self._generator.choice(pooled.size, self.capacity, replace=False)
+            self._sample = pooled[np.sort(keep)]
+            self.seen += values.size
+            return
+        # Algorithm R, vectorised: item j (0-based, overall) replaces a random slot with p = capacity / (j+1).
+        positions = self.seen + np.arange(values.size)
+        slots = (self._generator.random(values.size) * (positions + 1)).astype(np.int64)
+        taken = slots < self.capacity
+        self._sample[slots[taken]] = values[taken]
+        self.seen += values.size
+
+    @property
+    def exact(self) -> bool:
+        return self._sample is None
+
+    def percentiles(self, q: tuple[float, ...]) -> list[float | None]:
+        data = self._sample if self._sample is not None else (
+            np.concatenate(self._parts) if self._parts else np.zeros(0))
+        if data.size == 0:
+            return [None for _ in q]
+        return [float(v) for v in np.percentile(data, q)]
+
+
+PERCENTILES = (5.0, 50.0, 95.0)
+
+
+class SweepSummary:
+    """Accumulates chunk results into the sweep's summary (api.md: per option p5/p50/p95 of total
+    cost and share cheapest; probability owning beats renting; break-even utilisation percentiles)."""
+
+    def __init__(self, *, reservoir_capacity: int = 2_000_000, seed: int = 0) -> None:
+        self.scenarios = 0
+        self.labels: list[str] = []
+        self.owned_labels: set[str] = set()
+        self._cheapest: Ints | None = None
+        self._feasible: Ints | None = None
+        self._nothing_feasible = 0
+        self._owning_wins = 0
+        self._totals: list[Reservoir] = []
+        self._breakeven_labels: list[tuple[str, str, str]] = []
+        self._breakeven: list[Reservoir] = []
+        self._breakeven_reachable: Ints | None = None
+        self._capacity = reservoir_capacity
+        self._seed = seed
+
+    def add(self, chunk: ChunkResult) -> None:
+        if not self.labels:
+            self.labels = chunk.labels
+            self.owned_labels = {label for label, own in zip(chunk.labels, chunk.owned, strict=True) if own}
+            count = len(chunk.labels)
+            self._cheapest = np.zeros(count, np.int64)
+            self._feasible = np.zeros(count, np.int64)
+            self._totals = [Reservoir(self._capacity, self._seed + k) for k in range(count)]
+            self._breakeven_labels = chunk.breakeven_labels
+            self._breakeven = [Reservoir(self._capacity, self._seed + 10_000 + k)
+                               for k in range(len(chunk.breakeven_labels))]
+            self._breakeven_reachable = np.zeros(len(chunk.breakeven_labels), np.int64)
+        assert self._cheapest is not None and self._feasible is not None
+        assert self._breakeven_reachable is not None
+        self.scenarios += chunk.size
+        picked = chunk.cheapest[chunk.cheapest >= 0]
+        self._cheapest += np.bincount(picked, minlength=len(self.labels))
+        self._nothing_feasible += int((chunk.cheapest < 0).sum())
+        self._feasible += np.isfinite(chunk.totals).sum(axis=1)
+        self._owning_wins += int((chunk.owned_best < chunk.rented_best).sum())
+        for reservoir, totals in zip(self._totals, chunk.totals, strict=True):
+            reservoir.add(totals)
+        for reservoir, utilisation in zip(self._breakeven, chunk.breakeven_utilisation, strict=True):
+            reservoir.add(utilisation)
+        self._breakeven_reachable += np.isfinite(chunk.breakeven_utilisation).sum(axis=1)
+
+    def result(self) -> dict[str, object]:
+        n = max(self.scenarios, 1)
+        options = []
+        for k, label in enumerate(self.labels):
+            p5, p50, p95 = self._totals[k].percentiles(PERCENTILES)
+            options.append({
+                "option": label,
+                "total_p5": p5, "total_p50": p50, "total_p95": p95,
+                "cheapest_share": float(self._cheapest[k]) / n if self._cheapest is not None else 0.0,
+                "feasible_share": float(self._feasible[k]) / n if self._feasible is not None else 0.0,
+            })
+        breakeven = []
+        for k, (site, offer, term) in enumerate(self._breakeven_labels):
+            p5, p50, p95 = self._breakeven[k].percentiles(PERCENTILES)
+            reachable = self._breakeven_reachable[k] if self._breakeven_reachable is not None else 0
+            breakeven.append({"site": site, "offer": offer, "term": term, "utilisation_p5": p5,
+                              "utilisation_p50": p50, "utilisation_p95": p95,
+                              "reachable_share": float(reachable) / n})
+        exact = all(r.exact for r in (*self._totals, *self._breakeven))
+        return {
+            "scenarios": self.scenarios,
+            "options": options,
+            "nothing_feasible_share": self._nothing_feasible / n,
+            "probability_owning_beats_renting": self._owning_wins / n,
+            "breakeven_utilisation": breakeven,
+            "percentiles": "exact" if exact else f"estimated from a seeded sample of {self._capacity:,} scenarios",
+        }
+
+
+def chunk_size(catalog: Catalog, options: QuoteOptions) -> int:
+    """Scenarios per chunk so that the (scenarios × node counts) arrays stay near CHUNK_ELEMENTS."""
+    limits = [v.nodes_max for v in catalog.offers] + [max(s.nodes_max, s.nodes_owned) for s in catalog.sites]
+    if options.max_accelerators is not None:
+        smallest = min(n.accelerators_per_node for n in catalog.node_types.values())
+        limits = [min(limit, options.max_accelerators // smallest) for limit in limits]
+    widest = max([*limits, 1])
+    return max(64, CHUNK_ELEMENTS // widest)
+
+
+@dataclass(frozen=True)
+class TornadoBar:
+    path: str
+    centre: float
+    low: float
+    high: float
+    gap_low: float  # best owned total − best rented total, input at `low`
+    gap_high: float
+    gap_centre: float
+
+    @property
+    def effect(self) -> float:
+        """How far the input moves the gap across its swing (NaN when a side has no feasible option)."""
+        return abs(self.gap_high - self.gap_low)
+
+
+def tornado(catalog: Catalog, plan: SweepPlan, centres: Mapping[str, float],
+            ranges: Mapping[str, tuple[float, float]], swing: float) -> list[TornadoBar]:
+    """Each varied input moved to centre × (1 ∓ swing), the others held at their centres, and the
+    change in the owning-minus-renting gap; largest effect first. All 1 + 2P scenarios run in one
+    evaluation. `ranges` clips the moved values to each input's valid range."""
+    paths = list(centres)
+    count = 1 + 2 * len(paths)
+    inputs = {path: np.full(count, centres[path]) for path in paths}
+    for k, path in enumerate(paths):
+        low, high = ranges[path]
+        inputs[path][1 + 2 * k] = np.clip(centres[path] * (1.0 - swing), low, high)
+        inputs[path][2 + 2 * k] = np.clip(centres[path] * (1.0 + swing), low, high)
+    result = evaluate_chunk(catalog, plan, inputs)
+    gap = result.owned_best - result.rented_best
+    gap = np.where(np.isfinite(gap), gap, np.nan)
+    bars = [TornadoBar(path, centres[path], float(inputs[path][1 + 2 * k]), float(inputs[path][2 + 2 * k]),
+                       float(gap[1 + 2 * k]), float(gap[2 + 2 * k]), float(gap[0]))
+            for k, path in enumerate(paths)]
+    return sorted(bars, key=lambda bar: -np.nan_to_num(bar.effect, nan=-1.0))

@@ -1,0 +1,369 @@
+"""Use cases for sweeps: check a sweep request against a catalog and the limits, plan it, run it
+in chunks with progress, and shape its summary, tornado and rows (JSON and streamed CSV)."""
+
+import csv
+import io
+import logging
+import time
+from collections.abc import Callable, Iterator
+from concurrent.futures import Future, ThreadPoolExecutor
+from dataclasses import dataclass
+from datetime import datetime
+from typing import Any
+
+import numpy as np
+
+from service.api.schemas.catalog import CatalogIn
+from service.api.schemas.sweep import DistributionIn, SweepIn
+from service.document import Money
+from service.domain.catalog import Catalog
+from service.domain.explain import CAUTIONS
+from service.domain.sweep import SweepPlan, SweepSummary, chunk_size, evaluate_chunk, scenario_chunks, tornado
+from service.domain.whatif import PATHS, InputPath, apply, base_value
+from service.errors import FieldProblem, InvalidInput, NotFound
+from service.quoting import request_problems
+from service.storage.repository import Storage, StoredSweep, new_id
+from service.use_cases import ParsedCatalogs
+
+log = logging.getLogger("berth.sweeps")
+
+ROWS_IN_JSON = 10_000
+
+
+@dataclass(frozen=True)
+class SweepLimits:
+    max_scenarios: int = 10_000_000
+    max_grid_values: int = 10_000  # per path
+    max_paths: int = 20
+
+
+@dataclass(frozen=True)
+class PreparedSweep:
+    catalog: Catalog
+    plan: SweepPlan
+    request: SweepIn
+    currency: str
+    units: dict[str, str]
+
+
+def prepare_sweep(catalog_in: CatalogIn, sweep: SweepIn, limits: SweepLimits) -> PreparedSweep:
+    """Check everything a sweep needs before a scenario runs; every problem names its field."""
+    problems = [FieldProblem(f"base.{p.field}", p.reason) for p in request_problems(catalog_in, sweep.base)]
+    campaign, options, overrides = sweep.base.to_domain()
+    varied: dict[str, Any] = dict(sweep.grid or sweep.distributions or {})
+    where = "grid" if sweep.grid is not None else "distributions"
+    if len(varied) > limits.max_paths:
+        problems.append(FieldProblem(where, f"at most {limits.max_paths} inputs may vary in one sweep"))
+    for path, spec in varied.items():
+        field = f"{where}.{path}"
+        if path not in PATHS:
+            problems.append(FieldProblem(field, "unknown input path; see the list of sweepable paths in the README"))
+            continue
+        rule, _ = PATHS[path]
+        try:
+            apply(campaign, overrides, {path: np.ones(1)})
+        except LookupError as error:
+            problems.append(FieldProblem(field, str(error)))
+            continue
+        if isinstance(spec, DistributionIn):
+            reason = _support_problem(rule, spec)
+        else:
+            if len(spec) > limits.max_grid_values:
+                problems.append(FieldProblem(field, f"at most {limits.max_grid_values:,} values per path"))
+            reason = rule.problems(np.asarray(spec, dtype=np.float64))
+        if reason:
+            problems.append(FieldProblem(field, reason))
+    plan = SweepPlan(
+        campaign=campaign, options=options, overrides=overrides,
+        grid={p: np.asarray(v, dtype=np.float64) for p, v in (sweep.grid or {}).items()},
+        distributions={p: d.to_domain() for p, d in (sweep.distributions or {}).items()},
+        samples=sweep.samples or 0, seed=sweep.seed)
+    if not problems and plan.scenarios > limits.max_scenarios:
+        problems.append(FieldProblem("samples" if sweep.samples else "grid",
+                                     f"{plan.scenarios:,} scenarios exceed the limit of {limits.max_scenarios:,} "
+                                     "per sweep"))
+    if problems:
+        raise InvalidInput("the sweep cannot run as asked", problems)
+    units = {path: PATHS[path][0].unit.replace("currency", catalog_in.currency) for path in plan.paths}
+    return PreparedSweep(catalog_in.to_domain(), plan, sweep, catalog_in.currency, units)
+
+
+def _support_problem(rule: InputPath, spec: DistributionIn) -> str | None:
+    """Whether every value the distribution can draw is valid for the path."""
+    if spec.kind == "choice":
+        return rule.problems(np.asarray(spec.values, dtype=np.float64))
+    if spec.kind == "lognormal":
+        lowest, highest = 0.0, np.inf
+        open_low = True
+    elif spec.kind == "normal":
+        lowest = -np.inf if spec.low is None else spec.low
+        highest = np.inf if spec.high is None else spec.high
+        open_low = False
+    else:
+        lowest, highest, open_low = float(spec.low or 0.0), float(spec.high or 0.0), False
+    below = lowest < rule.low or (lowest == rule.low and rule.low_open and not open_low)
+    if below or highest > rule.high:
+        bound = f"{'>' if rule.low_open else '≥'} {rule.low:g}" + (
+            f" and ≤ {rule.high:g}" if np.isfinite(rule.high) else "")
+        hint = " (give low/high bounds to a normal distribution)" if spec.kind == "normal" else ""
+        return f"this {spec.kind} distribution can draw values outside the valid range ({bound}){hint}"
+    return None
+
+
+Progress = Callable[[int, int], None]
+
+
+def run(prepared: PreparedSweep, *, keep_rows: int = ROWS_IN_JSON,
+        progress: Progress | None = None) -> tuple[dict[str, Any], list[dict[str, Any]]]:
+    """Evaluate every scenario in chunks: the summary, and the first `keep_rows` rows as JSON."""
+    summary = SweepSummary(seed=prepared.plan.seed)
+    rows: list[dict[str, Any]] = []
+    money = Money(prepared.currency)
+    total = prepared.plan.scenarios
+    for chunk in _chunks(prepared):
+        summary.add(chunk)
+        if len(rows) < keep_rows and total <= keep_rows:
+            rows.extend(_json_rows(chunk, money))
+        if progress is not None:
+            progress(summary.scenarios, total)
+    result = summary.result()
+    result["currency"] = prepared.currency
+    for option in result["options"]:  # type: ignore[attr-defined]
+        for key in ("total_p5", "total_p50", "total_p95"):
+            option[key] = None if option[key] is None else money(option[key])
+    return result, rows
+
+
+def _chunks(prepared: PreparedSweep) -> Iterator[Any]:
+    size = chunk_size(prepared.catalog, prepared.plan.options)
+    for _, inputs in scenario_chunks(prepared.plan, size):
+        yield evaluate_chunk(prepared.catalog, prepared.plan, inputs)
+
+
+def _json_rows(chunk: Any, money: Money) -> list[dict[str, Any]]:
+    paths = list(chunk.inputs)
+    rows = []
+    for s in range(chunk.size):
+        pick = int(chunk.cheapest[s])
+        rows.append({
+            "inputs": {p: float(chunk.inputs[p][s]) for p in paths},
+            "cheapest": None if pick < 0 else chunk.labels[pick],
+            "totals": {label: money(chunk.totals[k, s]) for k, label in enumerate(chunk.labels)},
+        })
+    return rows
+
+
+def tornado_bars(prepared: PreparedSweep) -> list[dict[str, Any]] | None:
+    """Tornado over every varied input, centred on the base request's value where it has one,
+    else on the grid's middle value or the distribution's median."""
+    if prepared.request.tornado is None:
+        return None
+    plan = prepared.plan
+    centres: dict[str, float] = {}
+    for path in plan.paths:
+        value = base_value(plan.campaign, plan.overrides, path)
+        if value is None:
+            value = float(np.median(plan.grid[path])) if plan.grid else plan.distributions[path].centre()
+        centres[path] = value
+    ranges = {path: _closed_range(PATHS[path][0]) for path in plan.paths}
+    money = Money(prepared.currency)
+    bars = tornado(prepared.catalog, plan, centres, ranges, prepared.request.tornado.swing)
+    return [{"input": bar.path, "centre": bar.centre, "low": bar.low, "high": bar.high,
+             "gap_at_low": money(bar.gap_low), "gap_at_high": money(bar.gap_high),
+             "gap_at_centre": money(bar.gap_centre), "effect": money(bar.effect), "currency": prepared.currency}
+            for bar in bars]
+
+
+def _closed_range(rule: InputPath) -> tuple[float, float]:
+    low = np.nextafter(rule.low, np.inf) if rule.low_open else rule.low
+    return float(low), float(rule.high)
+
+
+def sweep_document(prepared: PreparedSweep, summary: dict[str, Any], rows: list[dict[str, Any]],
+                   bars: list[dict[str, Any]] | None) -> dict[str, Any]:
+    """The sweep's answer (api.md): scenarios, summary, tornado, and the rows when there are few."""
+    scenarios = prepared.plan.scenarios
+    included = scenarios <= ROWS_IN_JSON
+    return {
+        "scenarios": scenarios,
+        "currency": prepared.currency,
+        "varied": [{"path": p, "unit": prepared.units[p]} for p in prepared.plan.paths],
+        "summary": summary,
+        "tornado": bars,
+        "rows_included": included,
+        "rows": rows if included else None,
+        "cautions": list(CAUTIONS),
+    }
+
+
+def csv_header(prepared: PreparedSweep, labels: list[str]) -> list[str]:
+    return (["scenario"] + [f"{p} [{prepared.units[p]}]" for p in prepared.plan.paths] + ["cheapest", "currency"]
+            + [f"{label} total" for label in labels])
+
+
+def csv_chunks(prepared: PreparedSweep, progress: Progress | None = None) -> Iterator[str]:
+    """Every scenario as CSV (RFC 4180), a chunk at a time: bounded memory at any size. Columns are
+    formatted by numpy as whole arrays; no Python loop runs per scenario."""
+    digits = Money(prepared.currency).digits
+    first = 0
+    for chunk in _chunks(prepared):
+        head = ""
+        if first == 0:
+            buffer = io.StringIO()
+            csv.writer(buffer, lineterminator="\r\n").writerow(csv_header(prepared, chunk.labels))
+            head = buffer.getvalue()
+        labels = np.asarray([*chunk.labels, ""], dtype=object)
+        cheapest = labels[np.where(chunk.cheapest >= 0, chunk.cheapest, len(chunk.labels))].astype(str)
+        columns = [np.arange(first, first + chunk.size).astype(str)]
+        columns += [_decimals(chunk.inputs[p]) for p in prepared.plan.paths]
+        columns += [cheapest, np.full(chunk.size, prepared.currency)]
+        columns += [_decimals(np.round(totals, digits)) for totals in chunk.totals]
+        lines = columns[0]
+        for column in columns[1:]:
+            lines = np.char.add(np.char.add(lines, ","), column)
+        first += chunk.size
+        if progress is not None:
+            progress(first, prepared.plan.scenarios)
+        yield head + "\r\n".join(lines.tolist()) + "\r\n"
+
+
+def _decimals(values: np.ndarray) -> np.ndarray:
+    """Plain decimals for spreadsheets (no exponent), empty where a value is missing."""
+    values = np.asarray(values, dtype=np.float64)
+    finite = np.isfinite(values)
+    text = np.char.mod("%.15g", np.where(finite, values, 0.0))
+    # %g switches to an exponent for large or tiny numbers; write those in full.
+    exponent = np.char.find(text, "e") >= 0
+    if exponent.any():
+        text = np.where(exponent, np.char.mod("%.6f", np.where(finite, values, 0.0)), text)
+    return np.where(finite, text, "")
+
+
+# Stored sweeps: submitted over HTTP, small ones answered at once, large ones run in the background.
+
+@dataclass(frozen=True)
+class SweepOutcome:
+    status_code: int
+    body: dict[str, Any]
+
+
+def _catalog_for(storage: Storage, catalogs: ParsedCatalogs, catalog_id: str | None) -> tuple[str, CatalogIn]:
+    with storage.reading() as repository:
+        stored = repository.newest_catalog() if catalog_id is None else repository.catalog(catalog_id)
+    if stored is None:
+        if catalog_id is None:
+            raise NotFound("no catalog has been uploaded yet")
+        raise InvalidInput("unknown catalog", [FieldProblem("base.catalog_id", f"no catalog {catalog_id!r}")])
+    return stored.id, catalogs.get(stored)
+
+
+def submit_sweep(storage: Storage, catalogs: ParsedCatalogs, sweep: SweepIn, *, now: datetime, limits: SweepLimits,
+                 answer_at_once: int, runner: "SweepRunner") -> SweepOutcome:
+    """Check and store a sweep. Up to `answer_at_once` scenarios it runs now (201 with the answer);
+    beyond, it is queued (202) and its progress is at GET /v1/sweeps/{id}."""
+    catalog_id, catalog_in = _catalog_for(storage, catalogs, sweep.base.catalog_id)
+    prepared = prepare_sweep(catalog_in, sweep, limits)
+    sweep_id = new_id("sw")
+    request = sweep.model_dump(mode="json")
+    total = prepared.plan.scenarios
+    if total <= answer_at_once:
+        summary, rows = run(prepared)
+        document = sweep_document(prepared, summary, rows, tornado_bars(prepared))
+        with storage.writing() as repository:
+            repository.add_sweep(sweep_id=sweep_id, created_at=now, catalog_id=catalog_id, status="done",
+                                 total=total, request=request, result=document)
+        return SweepOutcome(201, status_body(_stored(storage, sweep_id)))
+    with storage.writing() as repository:
+        repository.add_sweep(sweep_id=sweep_id, created_at=now, catalog_id=catalog_id, status="queued",
+                             total=total, request=request)
+    runner.submit(sweep_id)
+    return SweepOutcome(202, status_body(_stored(storage, sweep_id)))
+
+
+def _stored(storage: Storage, sweep_id: str) -> StoredSweep:
+    with storage.reading() as repository:
+        stored = repository.sweep(sweep_id)
+    if stored is None:
+        raise NotFound(f"no sweep {sweep_id!r}")
+    return stored
+
+
+def status_body(stored: StoredSweep) -> dict[str, Any]:
+    return {
+        "id": stored.id,
+        "status": stored.status,
+        "created_at": stored.created_at.isoformat().replace("+00:00", "Z"),
+        "finished_at": None if stored.finished_at is None else stored.finished_at.isoformat().replace("+00:00", "Z"),
+        "catalog_id": stored.catalog_id,
+        "progress": {"scenarios_done": stored.scenarios_done, "scenarios_total": stored.scenarios_total},
+        "error": stored.error,
+        "result": stored.result,
+        "links": {"self": f"/v1/sweeps/{stored.id}", "rows_csv": f"/v1/sweeps/{stored.id}/rows.csv"},
+    }
+
+
+def get_sweep(storage: Storage, sweep_id: str) -> dict[str, Any]:
+    return status_body(_stored(storage, sweep_id))
+
+
+def prepared_from_store(storage: Storage, catalogs: ParsedCatalogs, sweep_id: str) -> PreparedSweep:
+    stored = _stored(storage, sweep_id)
+    with storage.reading() as repository:
+        catalog = repository.catalog(stored.catalog_id)
+    if catalog is None:
+        raise NotFound(f"the catalog of sweep {sweep_id!r} is gone")
+    return prepare_sweep(catalogs.get(catalog), SweepIn.model_validate(stored.request),
+                         SweepLimits(max_scenarios=stored.scenarios_total))
+
+
+class SweepRunner:
+    """Runs queued sweeps one at a time on a background thread, writing progress as it goes."""
+
+    def __init__(self, storage: Storage, catalogs: ParsedCatalogs, clock: Callable[[], datetime]) -> None:
+        self._storage, self._catalogs, self._clock = storage, catalogs, clock
+        self._executor: ThreadPoolExecutor | None = None
+
+    def submit(self, sweep_id: str) -> Future[None]:
+        if self._executor is None:
+            self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="sweep")
+        return self._executor.submit(self._run, sweep_id)
+
+    def resume(self) -> int:
+        """Queue again every sweep a previous process accepted but did not finish."""
+        with self._storage.reading() as repository:
+            unfinished = repository.unfinished_sweeps()
+        for stored in unfinished:
+            self.submit(stored.id)
+        return len(unfinished)
+
+    def shutdown(self) -> None:
+        if self._executor is not None:
+            self._executor.shutdown(wait=False, cancel_futures=True)
+
+    def _run(self, sweep_id: str) -> None:
+        last = [0.0]
+
+        def progress(done: int, _total: int) -> None:
+            moment = time.monotonic()
+            if moment - last[0] >= PROGRESS_EVERY_SECONDS:
+                last[0] = moment
+                with self._storage.writing() as repository:
+                    repository.update_sweep(sweep_id, status="running", done=done)
+
+        try:
+            prepared = prepared_from_store(self._storage, self._catalogs, sweep_id)
+            with self._storage.writing() as repository:
+                repository.update_sweep(sweep_id, status="running", done=0)
+            summary, rows = run(prepared, progress=progress)
+            document = sweep_document(prepared, summary, rows, tornado_bars(prepared))
+            with self._storage.writing() as repository:
+                repository.update_sweep(sweep_id, status="done", done=prepared.plan.scenarios, result=document,
+                                        finished_at=self._clock())
+        except Exception as error:  # a sweep that fails says why; the service goes on
+            log.exception("sweep %s failed", sweep_id)
+            with self._storage.writing() as repository:
+                repository.update_sweep(sweep_id, status="failed", done=0, error=f"{type(error).__name__}: {error}",
+                                        finished_at=self._clock())
+
+
+PROGRESS_EVERY_SECONDS = 1.0
