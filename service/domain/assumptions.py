@@ -55,8 +55,6 @@ _TABLE = (
                "NIST SP 811, App. B.8 (1 ton = 12,000 Btu_IT/h)"),
     Assumption("data_link_gbps", 10.0, "Gb/s",
                PRACTICE + " (link for copying a dataset when neither end states one)"),
-    Assumption("rented_pue", 1.0, "ratio",
-               "offer gave no PUE: facility energy reported as IT energy only"),
 )
 
 DEFAULTS: dict[str, Assumption] = {a.name: a for a in _TABLE}

@@ -72,7 +72,8 @@ class OptionResult:
     node_type: NodeType
     layout: LayoutGrid
     screens: Ints
-    min_nodes: Floats
+    min_nodes: Floats  # the memory minimum
+    needed_nodes: Floats  # the memory minimum, or the pinned count when one is pinned
     limit: NodeLimit
     lines: dict[str, Floats]
     total: Floats
@@ -242,6 +243,7 @@ class _Physics:
     hardware: Hardware
     grid: LayoutGrid
     min_nodes: Floats
+    pinned_nodes: float | None  # options.fixed_accelerators as whole nodes
 
 
 def _physics(venue: _Venue, context: _Context, *, top_limit: Floats,
@@ -264,7 +266,8 @@ def _physics(venue: _Venue, context: _Context, *, top_limit: Floats,
     nodes = candidate_nodes(node_limit=top_limit, fixed_accelerators=options.fixed_accelerators,
                             accelerators_per_node=node.accelerators_per_node)
     grid = evaluate_layouts(load, hardware, nodes, fixed_accelerators=options.fixed_accelerators)
-    return _Physics(load, hardware, grid, _minimum_nodes(load, hardware))
+    pinned = None if options.fixed_accelerators is None else float(nodes[0])
+    return _Physics(load, hardware, grid, _minimum_nodes(load, hardware), pinned)
 
 
 def _evaluate(venue: _Venue, term: str, limit: NodeLimit, build_cost: CostBuilder, physics: _Physics) -> OptionResult:
@@ -275,8 +278,16 @@ def _evaluate(venue: _Venue, term: str, limit: NodeLimit, build_cost: CostBuilde
     choice = choose(grid, total_grid, node_limit=limit.nodes, deadline_seconds=physics.load.deadline_seconds)
     chosen = pick_grid(grid, choice.index)
     min_nodes = np.broadcast_to(physics.min_nodes, choice.index.shape)
-    mask = _screen(venue, physics.hardware, limit, min_nodes, choice.any_fits, choice.meets_deadline,
+    pinned = physics.pinned_nodes
+    # The nodes the option needs: the memory minimum, or the pinned count when one is pinned.
+    needed = min_nodes if pinned is None else np.broadcast_to(pinned, choice.index.shape)
+    mask = _screen(venue, physics.hardware, limit, min_nodes, needed, choice.any_fits, choice.meets_deadline,
                    shape=choice.index.shape)
+    if pinned is not None:
+        holds = pick(grid.fits, np.zeros_like(choice.index))
+        mask |= np.where(~holds & np.isfinite(min_nodes), screens.PINNED_TOO_FEW, 0)
+        # A pinned count that cannot hold the model is that problem, not a capacity one.
+        mask &= np.where(~holds, ~(screens.CAPACITY | screens.POWER | screens.COOLING), -1)
     energy = campaign_energy(
         chosen, idle_kw=node.power_kw_idle, peak_kw=node.power_kw_peak,
         load=default("busy_load_fraction"), pue=venue.pue, grid_kgco2e_per_kwh=venue.grid_kgco2e_per_kwh)
@@ -289,6 +300,7 @@ def _evaluate(venue: _Venue, term: str, limit: NodeLimit, build_cost: CostBuilde
         layout=chosen,
         screens=mask,
         min_nodes=min_nodes,
+        needed_nodes=needed,
         limit=limit,
         lines={item: pick(amount, choice.index) for item, amount in lines_grid.items()},
         total=pick(total_grid, choice.index),
@@ -300,7 +312,7 @@ def _evaluate(venue: _Venue, term: str, limit: NodeLimit, build_cost: CostBuilde
 
 
 def _screen(
-    venue: _Venue, hardware: Hardware, limit: NodeLimit, min_nodes: Floats, any_fits: np.ndarray,
+    venue: _Venue, hardware: Hardware, limit: NodeLimit, min_nodes: Floats, needed: Floats, any_fits: np.ndarray,
     meets_deadline: np.ndarray, *, shape: tuple[int, ...],
 ) -> Ints:
     mask = np.zeros(shape, dtype=np.int64)
@@ -313,9 +325,9 @@ def _screen(
     never = ~np.isfinite(min_nodes) & ~no_precision
     mask |= np.where(never, screens.MEMORY, 0)
     short = np.isfinite(min_nodes) & ~any_fits & ~no_precision
-    mask |= np.where(short & (np.minimum(limit.venue, limit.request) < min_nodes), screens.CAPACITY, 0)
-    mask |= np.where(short & (limit.power < min_nodes), screens.POWER, 0)
-    mask |= np.where(short & (limit.cooling < min_nodes), screens.COOLING, 0)
+    mask |= np.where(short & (np.minimum(limit.venue, limit.request) < needed), screens.CAPACITY, 0)
+    mask |= np.where(short & (limit.power < needed), screens.POWER, 0)
+    mask |= np.where(short & (limit.cooling < needed), screens.COOLING, 0)
     mask |= np.where(any_fits & ~meets_deadline & ~no_precision, screens.DEADLINE, 0)
     return mask
 
@@ -381,6 +393,7 @@ def _load(campaign: Campaign, options: QuoteOptions, work: WorkAmount, multiplie
                 else as_floats(campaign.deadline_days) * SECONDS_PER_DAY)
     return Load(
         timed_flops_per_run=work.timed_flops,
+        timed_flops_per_token=work.timed_flops_per_token,
         runs_multiplier=multiplier,
         parameters=work.parameters,
         tokens_per_run=work.tokens,

@@ -50,8 +50,12 @@ def reasons(option: OptionResult, i: int, catalog: Catalog, campaign_allowed: Se
             out.append(f"memory: the model's states and activations do not fit on any number of "
                        f"{node.accelerator.id} accelerators ({_n(node.accelerator.memory_gb)} GB each); "
                        "use full activation recompute or a larger accelerator")
+        elif bit == screens.PINNED_TOO_FEW:
+            out.append(f"memory: the pinned {_n(option.layout.accelerators[i])} accelerators cannot hold the "
+                       f"model's states and activations; it needs at least {_n(np.ceil(option.min_nodes[i]))} "
+                       "nodes, or a sharded layout over more accelerators (options.fixed_accelerators)")
         elif bit == screens.CAPACITY:
-            out.append(f"capacity: holding the model needs at least {_n(option.min_nodes[i])} nodes; "
+            out.append(f"capacity: {_needs(option, i)}; "
                        f"{_capacity_words(option, i, catalog)}")
         elif bit in (screens.POWER, screens.COOLING) and site is not None:
             out.append(_facility_reason(bit, option, i, site))
@@ -75,7 +79,7 @@ def _facility_reason(bit: int, option: OptionResult, i: int, site: SiteFigures) 
     """Power or cooling: what the new nodes need against what the site has left, in kW."""
     s = site.economics.site
     peak = s.node_type.power_kw_peak
-    wanted = float(option.min_nodes[i])
+    wanted = float(option.needed_nodes[i])
     if bit == screens.POWER:
         pue = _at(site.economics.pue, i)
         capacity = float(s.power_capacity_kw or 0.0)
@@ -91,6 +95,12 @@ def _facility_reason(bit: int, option: OptionResult, i: int, site: SiteFigures) 
     return (f"cooling: {_n(wanted)} new nodes reject {_n(need, 1)} kW of heat at peak; the site's {_n(capacity, 1)} kW "
             f"of cooling less the owned fleet's {_n(used, 1)} kW leaves {_n(capacity - used, 1)} kW, "
             f"{_n(need - (capacity - used), 1)} kW short")
+
+
+def _needs(option: OptionResult, i: int) -> str:
+    if option.needed_nodes[i] != option.min_nodes[i]:
+        return f"the pinned layout needs {_n(option.needed_nodes[i])} nodes"
+    return f"holding the model needs at least {_n(option.min_nodes[i])} nodes"
 
 
 def _at(value: np.ndarray, i: int) -> float:
@@ -311,8 +321,6 @@ def used_assumptions(catalog: Catalog, evaluation: CampaignEvaluation, campaign_
         names.append("global_batch_tokens")
     venues: list[Site | Offer] = [*catalog.sites, *catalog.offers]
     names += sorted({f"path_efficiency_{v.network_path}" for v in venues if v.path_efficiency is None})
-    if any(o.pue is None for o in catalog.offers):
-        names.append("rented_pue")
     if any(o.transfer.link_assumed for o in evaluation.options):
         names.append("data_link_gbps")
     return list(dict.fromkeys(names))

@@ -34,6 +34,7 @@ class Load:
     """What the campaign asks of any venue; arrays of one element per scenario."""
 
     timed_flops_per_run: Floats
+    timed_flops_per_token: Floats | None
     runs_multiplier: Floats
     parameters: Floats | None
     tokens_per_run: Floats | None
@@ -131,11 +132,13 @@ def evaluate_layouts(
         sharded_step_bytes(payload_bytes=gradient_payload, ranks=accelerators),
         ring_allreduce_bytes(payload_bytes=gradient_payload, ranks=accelerators),
     )
-    if load.tokens_per_run is None:
-        steps_per_run = scenario(1.0)
+    if load.tokens_per_run is None or load.timed_flops_per_token is None:
+        steps_per_run = scenario(1.0)  # no batch structure known: one step, no communication
+        flops_per_step = scenario(load.timed_flops_per_run)
     else:
-        steps_per_run = np.maximum(scenario(load.tokens_per_run) / scenario(load.global_batch_tokens), 1.0)
-    flops_per_step = scenario(load.timed_flops_per_run) / steps_per_run
+        # A step trains one global batch; a run of fewer tokens counts as that fraction of a step.
+        steps_per_run = scenario(load.tokens_per_run) / scenario(load.global_batch_tokens)
+        flops_per_step = scenario(load.timed_flops_per_token) * scenario(load.global_batch_tokens)
     path = hardware.path_efficiency
     bandwidth = bandwidth_per_accelerator(
         nodes=column,

@@ -34,6 +34,9 @@ def instances_sharing(
     window = as_floats(window_months)
     if recurrence is None:
         return np.ones(np.broadcast_shapes(window.shape, as_floats(wall_hours).shape))
-    by_calendar = np.floor(window / as_floats(recurrence.every_months) + 1e-9)
+    every, total = as_floats(recurrence.every_months), instances_total(recurrence)
+    if window.ndim == 2:  # (S, K) layouts: a swept recurrence varies by scenario, along axis 0
+        every, total = every.reshape(-1, 1), total.reshape(-1, 1)
+    by_calendar = np.floor(window / every + 1e-9)
     by_capacity = np.floor(window * HOURS_PER_MONTH / as_floats(wall_hours) + 1e-9)
-    return np.maximum(1.0, np.minimum(np.minimum(by_calendar, by_capacity), instances_total(recurrence)))
+    return np.maximum(1.0, np.minimum(np.minimum(by_calendar, by_capacity), total))

@@ -8,8 +8,9 @@ COOLING = 16  # the site cannot remove their heat
 DEADLINE = 32  # the fastest layout within the limit misses the deadline
 RESIDENCY = 64  # the venue's jurisdiction is outside the allowed set
 OWNED_ONLY = 128  # the request allows owned sites only
+PINNED_TOO_FEW = 256  # the pinned accelerator count cannot hold the model
 
-ORDER = (RESIDENCY, OWNED_ONLY, PRECISION, MEMORY, CAPACITY, POWER, COOLING, DEADLINE)
+ORDER = (RESIDENCY, OWNED_ONLY, PRECISION, MEMORY, PINNED_TOO_FEW, CAPACITY, POWER, COOLING, DEADLINE)
 
 
 def names(mask: int) -> list[int]:

@@ -106,6 +106,7 @@ def combine(owned: OptionResult, rented: OptionResult, *, owned_runs: int, rente
         layout=layout,
         screens=owned.screens | rented.screens,
         min_nodes=owned.min_nodes,
+        needed_nodes=owned.needed_nodes,
         limit=owned.limit,
         lines=lines,
         total=owned.total + rented.total,

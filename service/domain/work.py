@@ -66,6 +66,18 @@ class WorkAmount:
     tokens: Floats | None
     parameters: Floats | None
 
+    timed_factor: float = 1.0  # timed FLOPs over model FLOPs: the recompute factor on the hardware basis
+
+    @property
+    def timed_flops_per_token(self) -> Floats | None:
+        """Timed FLOPs per token, formed without the token count, so that a sweep over tokens leaves
+        every layout's step time alone (one row of the grid, not one per scenario)."""
+        if self.flops_per_token is not None:
+            return np.asarray(self.flops_per_token * self.timed_factor)
+        if self.tokens is None or self.parameters is None:
+            return None
+        return np.asarray(default("training_flops_per_parameter_token") * self.parameters * self.timed_factor)
+
 
 def work_amount(
     work: TransformerWork | FlopsWork | MeasuredWork,
@@ -104,9 +116,11 @@ def work_amount(
         per_token = None
         model_flops = as_floats(work.total_flops)
         tokens = _tokens_from(model_flops, parameters)
-    hardware_flops = model_flops * recompute_flops_factor(recompute)
-    timed = model_flops if utilisation_basis == "model" else hardware_flops
-    return WorkAmount(model_flops, hardware_flops, timed, per_token, tokens, parameters)
+    factor = recompute_flops_factor(recompute)
+    hardware_flops = model_flops * factor
+    timed_factor = 1.0 if utilisation_basis == "model" else factor
+    timed = model_flops * timed_factor
+    return WorkAmount(model_flops, hardware_flops, timed, per_token, tokens, parameters, timed_factor)
 
 
 def _tokens_from(flops: Floats, parameters: Floats | None) -> Floats | None:

@@ -51,7 +51,8 @@ def test_accelerator_hours_never_fall_below_the_ideal_at_any_accelerator_count(
 ) -> None:
     timed_flops = 6.0 * parameters * tokens
     load = Load(
-        timed_flops_per_run=one(timed_flops), runs_multiplier=one(runs), parameters=one(parameters),
+        timed_flops_per_run=one(timed_flops), timed_flops_per_token=one(6.0 * parameters),
+        runs_multiplier=one(runs), parameters=one(parameters),
         tokens_per_run=one(tokens), global_batch_tokens=one(4e6), architecture_activation_bytes=None,
         checkpoint_bytes=None, recompute="none", parallelism="auto", deadline_seconds=one(np.inf),
         restart_seconds=600.0,

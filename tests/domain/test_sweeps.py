@@ -1,0 +1,501 @@
+"""Sweeps: every row equals the single quote with the same inputs; draws are seeded and do not
+depend on the listing order or the chunk size; distributions draw what numpy's Generator draws,
+with the analytic moments; the tornado sorts by effect; the reservoir keeps exact percentiles
+below its capacity and a uniform sample above it; and a sweep that cannot run names its field.
+
+All figures are demo data (invented ids and prices); reference values come from numpy itself
+(Generator draws, np.percentile) or from closed-form moments, never from the code under test.
+"""
+
+import copy
+import itertools
+import json
+import math
+import zlib
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pytest
+
+from service.api.schemas.catalog import CatalogIn
+from service.api.schemas.request import QuoteRequestIn
+from service.api.schemas.sweep import SweepIn
+from service.domain.distributions import Distribution, stream
+from service.domain.evaluate import evaluate_campaign
+from service.domain.sweep import Reservoir, evaluate_chunk, scenario_chunks, tornado
+from service.domain.whatif import PATHS
+from service.errors import InvalidInput
+from service.quoting import quote
+from service.sweeps import PreparedSweep, SweepLimits, prepare_sweep, run, tornado_bars
+
+EXAMPLES = Path(__file__).resolve().parents[2] / "pricing_examples"
+CATALOG_IN = CatalogIn.model_validate(json.loads((EXAMPLES / "catalog.json").read_text(encoding="utf-8")))
+CATALOG = CATALOG_IN.to_domain()
+
+
+def example(name: str) -> dict[str, Any]:
+    data: dict[str, Any] = json.loads((EXAMPLES / name).read_text(encoding="utf-8"))
+    return data
+
+
+def prepared(sweep: dict[str, Any], limits: SweepLimits | None = None) -> PreparedSweep:
+    return prepare_sweep(CATALOG_IN, SweepIn.model_validate(sweep), limits or SweepLimits())
+
+
+def request_with(base: dict[str, Any], inputs: dict[str, float]) -> QuoteRequestIn:
+    """The single quote request equal to one sweep scenario: the base with each path's value set."""
+    request = copy.deepcopy(base)
+    for path, value in inputs.items():
+        rule, _ = PATHS[path]
+        node = request
+        *parents, name = path.split(".")
+        for part in parents:
+            node = node.setdefault(part, {})
+        node[name] = int(round(value)) if rule.integer else float(value)
+    return QuoteRequestIn.model_validate(request)
+
+
+def all_scenarios(plan_owner: PreparedSweep) -> tuple[dict[str, np.ndarray], Any]:
+    """Every scenario of a small sweep in one chunk."""
+    plan = plan_owner.plan
+    (_, inputs), = list(scenario_chunks(plan, plan.scenarios))
+    return inputs, evaluate_chunk(plan_owner.catalog, plan, inputs)
+
+
+# ---- each row equals the single quote with the same inputs ---------------------------------------
+
+OWNED_WINS_GRID = {
+    "overrides.electricity_price_per_kwh": [0.05, 0.15, 0.30],
+    "campaign.work.tokens": [1.0e11, 4.0e11, 2.0e12],
+    "campaign.deadline_days": [7, 21, 60],
+}
+RECURRING_GRID = {
+    "campaign.recurrence.every_months": [1, 3],
+    "campaign.recurrence.for_months": [12, 36],
+    "campaign.runs.count": [1, 3],
+    "overrides.utilisation_planned": [0.5, 0.9],
+}
+
+
+def _cases() -> list[tuple[str, dict[str, Any]]]:
+    demo = example("sweep-electricity-and-utilisation.json")
+    demo["samples"] = 12
+    return [
+        ("owned-wins grid", {"base": example("campaign-owned-wins.json"), "grid": OWNED_WINS_GRID}),
+        ("recurring grid", {"base": example("campaign-recurring.json"), "grid": RECURRING_GRID}),
+        ("demo Monte Carlo", demo),
+    ]
+
+
+@pytest.mark.parametrize(("name", "sweep"), _cases(), ids=[name for name, _ in _cases()])
+def test_every_scenario_equals_its_single_quote(name: str, sweep: dict[str, Any]) -> None:
+    prep = prepared(sweep)
+    inputs, chunk = all_scenarios(prep)
+    _, rows = run(prep)
+    scenarios = prep.plan.scenarios
+    assert chunk.size == scenarios == len(rows)
+    infeasible_seen = 0
+    for s in range(scenarios):
+        values = {path: float(inputs[path][s]) for path in inputs}
+        request = request_with(sweep["base"], values)
+        # 1. The engine on the one scenario, unrounded: equal to 1e-9 relative.
+        single = evaluate_campaign(CATALOG, *request.to_domain())
+        assert [o.label for o in single.options] == chunk.labels
+        for k, option in enumerate(single.options):
+            feasible = bool(np.asarray(option.feasible).reshape(-1)[0])
+            assert feasible == bool(np.isfinite(chunk.totals[k, s])), (name, s, option.label)
+            if feasible:
+                expected = float(np.asarray(option.total).reshape(-1)[0])
+                assert chunk.totals[k, s] == pytest.approx(expected, rel=1e-9, abs=0.0), (name, s, option.label)
+            else:
+                infeasible_seen += 1
+        # 2. The public quote document (rounded to cents; it may add split options, sweeps never do).
+        document = quote(CATALOG_IN, request)
+        quoted = {f"{o['venue']['id']}/{o['term']}": o for o in document["options"] if o["venue"]["kind"] != "split"}
+        assert set(quoted) == set(chunk.labels)
+        for k, label in enumerate(chunk.labels):
+            option = quoted[label]
+            raw = chunk.totals[k, s]
+            assert option["feasible"] == bool(np.isfinite(raw)), (name, s, label)
+            if option["feasible"]:
+                # round(x, 2) is within half a cent of x; the rest must agree to 1e-9.
+                assert abs(option["cost"]["total"] - raw) <= 0.005 + 1e-9 * abs(raw), (name, s, label)
+                assert rows[s]["totals"][label] == pytest.approx(option["cost"]["total"], rel=1e-9, abs=0.01)
+            else:
+                assert rows[s]["totals"][label] is None
+        # The quote document lists options ranked; the first feasible non-split one is the cheapest.
+        best = next((label for label, o in ((f"{o['venue']['id']}/{o['term']}", o) for o in document["options"])
+                     if o["feasible"] and o["venue"]["kind"] != "split"), None)
+        sweep_best = None if chunk.cheapest[s] < 0 else chunk.labels[int(chunk.cheapest[s])]
+        assert sweep_best == best == rows[s]["cheapest"], (name, s)
+        assert rows[s]["inputs"] == values
+    if name == "owned-wins grid":
+        assert infeasible_seen > 0  # the grid reaches infeasible options (short deadlines), so NaN is checked
+
+
+def test_grid_scenarios_enumerate_every_combination_last_path_fastest() -> None:
+    prep = prepared({"base": example("campaign-owned-wins.json"), "grid": OWNED_WINS_GRID})
+    expected = list(itertools.product(*OWNED_WINS_GRID.values()))
+    for size in (1, 4, 27, 1000):
+        got = [tuple(float(v) for v in combo)
+               for _, inputs in scenario_chunks(prep.plan, size)
+               for combo in zip(*inputs.values(), strict=True)]
+        assert got == [tuple(float(v) for v in combo) for combo in expected], size
+
+
+def test_the_summary_aggregates_the_rows_as_numpy_would() -> None:
+    prep = prepared({"base": example("campaign-owned-wins.json"), "grid": OWNED_WINS_GRID})
+    _, chunk = all_scenarios(prep)
+    summary, _ = run(prep)
+    assert summary["scenarios"] == 27 and summary["percentiles"] == "exact"
+    for k, option in enumerate(summary["options"]):
+        totals = chunk.totals[k]
+        finite = totals[np.isfinite(totals)]
+        assert option["option"] == chunk.labels[k]
+        assert option["feasible_share"] == finite.size / 27
+        assert option["cheapest_share"] == np.count_nonzero(chunk.cheapest == k) / 27
+        if finite.size:
+            reference = np.round(np.percentile(finite, [5, 50, 95]), 2)
+            assert [option["total_p5"], option["total_p50"], option["total_p95"]] == reference.tolist()
+    owned = np.array([label.split("/")[1].startswith("owned_") for label in chunk.labels])
+    best = np.where(np.isfinite(chunk.totals), chunk.totals, np.inf)
+    wins = np.count_nonzero(best[owned].min(axis=0) < best[~owned].min(axis=0))
+    assert summary["probability_owning_beats_renting"] == wins / 27
+    assert summary["nothing_feasible_share"] == np.count_nonzero(np.isinf(best.min(axis=0))) / 27
+
+
+# ---- seeds, listing order and chunk size --------------------------------------------------------
+
+def monte_carlo(samples: int = 3000, seed: int = 7, reverse: bool = False) -> dict[str, Any]:
+    sweep = example("sweep-electricity-and-utilisation.json")
+    sweep["samples"], sweep["seed"] = samples, seed
+    if reverse:
+        sweep["distributions"] = dict(reversed(list(sweep["distributions"].items())))
+    return sweep
+
+
+def draws(prep: PreparedSweep, chunk: int) -> dict[str, np.ndarray]:
+    parts = [inputs for _, inputs in scenario_chunks(prep.plan, chunk)]
+    return {path: np.concatenate([p[path] for p in parts]) for path in prep.plan.paths}
+
+
+def test_the_same_seed_gives_the_same_summary_and_another_seed_another() -> None:
+    first, _ = run(prepared(monte_carlo(seed=7)))
+    again, _ = run(prepared(monte_carlo(seed=7)))
+    other, _ = run(prepared(monte_carlo(seed=8)))
+    assert first == again
+    assert first != other
+    assert [o["total_p50"] for o in first["options"]] != [o["total_p50"] for o in other["options"]]
+
+
+def test_the_listing_order_of_distributions_does_not_change_the_draws() -> None:
+    forward, backward = prepared(monte_carlo()), prepared(monte_carlo(reverse=True))
+    assert forward.plan.paths == list(reversed(backward.plan.paths))
+    a, b = draws(forward, 3000), draws(backward, 3000)
+    for path in forward.plan.paths:
+        assert np.array_equal(a[path], b[path]), path
+    assert run(forward)[0] == run(backward)[0]
+
+
+def test_adding_an_input_leaves_the_other_inputs_draws_unchanged() -> None:
+    sweep = monte_carlo()
+    more = copy.deepcopy(sweep)
+    more["distributions"]["overrides.node_price_factor"] = {"kind": "uniform", "low": 0.9, "high": 1.1}
+    a, b = draws(prepared(sweep), 3000), draws(prepared(more), 3000)
+    for path in a:
+        assert np.array_equal(a[path], b[path]), path
+
+
+@pytest.mark.parametrize("sizes", [(3000, 1000), (3000, 97), (64, 4096)])
+def test_the_chunk_size_does_not_change_the_draws(sizes: tuple[int, int]) -> None:
+    prep = prepared(monte_carlo())
+    a, b = draws(prep, sizes[0]), draws(prep, sizes[1])
+    for path in prep.plan.paths:
+        assert a[path].size == 3000
+        assert np.array_equal(a[path], b[path]), path
+
+
+def test_streams_are_keyed_by_seed_and_name() -> None:
+    same = stream(7, "overrides.pue").random(5), stream(7, "overrides.pue").random(5)
+    assert np.array_equal(*same)
+    assert not np.array_equal(same[0], stream(8, "overrides.pue").random(5))
+    assert not np.array_equal(same[0], stream(7, "overrides.mtbf_hours").random(5))
+
+
+# ---- distributions against numpy's own draws and the analytic moments --------------------------
+
+N_DRAWS = 200_000
+SE_TOLERANCE = 5.0  # sample mean and variance within 5 standard errors of the analytic values
+
+
+def _phi(z: float) -> float:
+    return math.exp(-z * z / 2.0) / math.sqrt(2.0 * math.pi) if math.isfinite(z) else 0.0
+
+
+def _cdf(z: float) -> float:
+    return 0.5 * (1.0 + math.erf(z / math.sqrt(2.0)))
+
+
+def _clipped_normal(mu: float, sd: float, a: float, b: float) -> tuple[float, float]:
+    """Mean and variance of N(mu, sd²) clipped (censored) to [a, b]."""
+    alpha, beta = (a - mu) / sd, (b - mu) / sd
+    mass = _cdf(beta) - _cdf(alpha)
+    tail_a, tail_b = _cdf(alpha), 1.0 - _cdf(beta)
+    mean = a * tail_a + b * tail_b + mu * mass + sd * (_phi(alpha) - _phi(beta))
+    second = (a * a * tail_a + b * b * tail_b + mu * mu * mass + 2.0 * mu * sd * (_phi(alpha) - _phi(beta))
+              + sd * sd * (mass + alpha * _phi(alpha) - beta * _phi(beta)))
+    return mean, second - mean * mean
+
+
+def _choice_moments(values: list[float], weights: list[float]) -> tuple[float, float]:
+    p = np.asarray(weights) / np.sum(weights)
+    x = np.asarray(values)
+    mean = float(p @ x)
+    return mean, float(p @ (x - mean) ** 2)
+
+
+# (distribution, numpy's own call on a Generator, analytic mean and variance)
+DISTRIBUTIONS: list[tuple[str, Distribution, Any, tuple[float, float]]] = [
+    ("uniform", Distribution("uniform", low=0.8, high=1.1),
+     lambda g, n: g.uniform(0.8, 1.1, n), (0.95, 0.3**2 / 12)),
+    ("triangular", Distribution("triangular", low=0.05, mode=0.12, high=0.30),
+     lambda g, n: g.triangular(0.05, 0.12, 0.30, n),
+     ((0.05 + 0.12 + 0.30) / 3,
+      (0.05**2 + 0.12**2 + 0.30**2 - 0.05 * 0.12 - 0.05 * 0.30 - 0.12 * 0.30) / 18)),
+    ("normal", Distribution("normal", mean=1.0, sd=0.1),
+     lambda g, n: g.normal(1.0, 0.1, n), (1.0, 0.01)),
+    ("normal clipped", Distribution("normal", mean=1.0, sd=0.2, low=0.8, high=1.3),
+     lambda g, n: np.clip(g.normal(1.0, 0.2, n), 0.8, 1.3), _clipped_normal(1.0, 0.2, 0.8, 1.3)),
+    ("lognormal", Distribution("lognormal", mean=26.0, sigma=0.3),
+     lambda g, n: g.lognormal(26.0, 0.3, n),
+     (math.exp(26.0 + 0.045), (math.exp(0.09) - 1.0) * math.exp(52.0 + 0.09))),
+    ("choice", Distribution("choice", values=(1.0, 2.0, 5.0)),
+     lambda g, n: g.choice(np.array([1.0, 2.0, 5.0]), size=n), _choice_moments([1, 2, 5], [1, 1, 1])),
+    ("weighted choice", Distribution("choice", values=(0.5, 1.0, 1.5), weights=(1.0, 6.0, 3.0)),
+     lambda g, n: g.choice(np.array([0.5, 1.0, 1.5]), size=n, p=np.array([0.1, 0.6, 0.3])),
+     _choice_moments([0.5, 1.0, 1.5], [1, 6, 3])),
+]
+
+
+@pytest.mark.parametrize(("name", "distribution", "numpy_call", "moments"), DISTRIBUTIONS,
+                         ids=[d[0] for d in DISTRIBUTIONS])
+def test_draws_are_numpys_own_with_the_analytic_moments(
+    name: str, distribution: Distribution, numpy_call: Any, moments: tuple[float, float]
+) -> None:
+    seed = np.random.SeedSequence(20270104, spawn_key=(zlib.crc32(name.encode()),))
+    drawn = distribution.draw(np.random.default_rng(seed), N_DRAWS)
+    reference = numpy_call(np.random.default_rng(seed), N_DRAWS)
+    assert np.array_equal(drawn, reference)
+
+    mean, variance = moments
+    centred = drawn - drawn.mean()
+    sample_variance = drawn.var(ddof=1)
+    fourth = float(np.mean(centred**4))
+    se_mean = math.sqrt(variance / N_DRAWS)
+    se_variance = math.sqrt(max(fourth - sample_variance**2, 0.0) / N_DRAWS)
+    assert abs(drawn.mean() - mean) <= SE_TOLERANCE * se_mean, (drawn.mean(), mean, se_mean)
+    assert abs(sample_variance - variance) <= SE_TOLERANCE * se_variance, (sample_variance, variance, se_variance)
+
+
+@pytest.mark.parametrize(("name", "distribution"), [(d[0], d[1]) for d in DISTRIBUTIONS if "choice" not in d[0]],
+                         ids=[d[0] for d in DISTRIBUTIONS if "choice" not in d[0]])
+def test_the_centre_is_the_median(name: str, distribution: Distribution) -> None:
+    drawn = distribution.draw(np.random.default_rng(11), N_DRAWS)
+    below = np.count_nonzero(drawn < distribution.centre()) / N_DRAWS
+    # the empirical CDF at the median is 1/2, with standard error sqrt(1/4 / n)
+    assert abs(below - 0.5) <= SE_TOLERANCE * math.sqrt(0.25 / N_DRAWS), (name, below)
+
+
+def test_the_centre_of_a_weighted_choice_is_its_weighted_median() -> None:
+    skewed = Distribution("choice", values=(1.0, 2.0, 3.0), weights=(0.8, 0.1, 0.1))
+    drawn = skewed.draw(np.random.default_rng(3), N_DRAWS)
+    assert float(np.median(drawn)) == 1.0
+    assert skewed.centre() == 1.0
+    assert Distribution("choice", values=(1.0, 2.0, 5.0)).centre() == 2.0
+
+
+# ---- tornado -----------------------------------------------------------------------------------
+
+def _gap(request: QuoteRequestIn) -> float:
+    """Best owned total minus best rented total, from the public quote document."""
+    document = quote(CATALOG_IN, request)
+    feasible = [o for o in document["options"] if o["feasible"] and o["venue"]["kind"] != "split"]
+    owned = min(o["cost"]["total"] for o in feasible if o["venue"]["kind"] == "owned")
+    rented = min(o["cost"]["total"] for o in feasible if o["venue"]["kind"] == "rented")
+    return float(owned - rented)
+
+
+def test_tornado_sorts_by_effect_and_moves_each_input_around_its_centre() -> None:
+    base = example("campaign-owned-wins.json")
+    prep = prepared({"base": base, "grid": {"overrides.electricity_price_per_kwh": [0.06],
+                                            "overrides.rented_price_factor": [1.0]}})
+    centres = {"overrides.electricity_price_per_kwh": 0.10, "overrides.rented_price_factor": 1.0}
+    ranges = {path: (0.0, np.inf) for path in centres}
+    bars = tornado(prep.catalog, prep.plan, centres, ranges, 0.2)
+    assert [bar.path for bar in bars] == ["overrides.rented_price_factor", "overrides.electricity_price_per_kwh"]
+    rented, power = bars
+    assert rented.effect > 5 * power.effect > 0  # renting's price moves the gap much more than electricity
+    assert rented.gap_high < rented.gap_low  # dearer renting: owning gains
+    assert power.gap_high > power.gap_low  # dearer electricity: owning loses
+    for bar in bars:
+        assert (bar.centre, bar.low, bar.high) == (centres[bar.path], centres[bar.path] * 0.8, centres[bar.path] * 1.2)
+        others = {p: c for p, c in centres.items() if p != bar.path}
+        for value, gap in ((bar.low, bar.gap_low), (bar.high, bar.gap_high), (bar.centre, bar.gap_centre)):
+            expected = _gap(request_with(base, {**others, bar.path: value}))
+            assert gap == pytest.approx(expected, rel=1e-9, abs=0.011), (bar.path, value)
+
+
+def test_tornado_bars_centre_on_the_base_value_or_the_grid_median_and_clip_to_the_valid_range() -> None:
+    base = example("campaign-owned-wins.json")
+    base["overrides"] = {"rented_price_factor": 1.1}
+    prep = prepared({"base": base, "tornado": {"swing": 0.2},
+                     "grid": {"overrides.utilisation_planned": [0.85, 0.9, 0.95],
+                              "overrides.rented_price_factor": [1.0, 1.2]}})
+    bars = {bar["input"]: bar for bar in tornado_bars(prep) or []}
+    planned, factor = bars["overrides.utilisation_planned"], bars["overrides.rented_price_factor"]
+    assert (planned["centre"], planned["low"], planned["high"]) == (0.9, 0.9 * 0.8, 1.0)  # ≤ 1, clipped
+    assert (factor["centre"], factor["low"], factor["high"]) == (1.1, 1.1 * 0.8, 1.1 * 1.2)
+    effects = [bar["effect"] for bar in tornado_bars(prep) or []]
+    assert effects == sorted(effects, reverse=True)
+    assert tornado_bars(prepared({"base": base, "grid": {"overrides.pue": [1.2]}})) is None
+
+
+# ---- the reservoir -----------------------------------------------------------------------------
+
+Q = (5.0, 25.0, 50.0, 75.0, 95.0)
+
+
+def test_below_capacity_the_percentiles_are_exact() -> None:
+    generator = np.random.default_rng(5)
+    parts = [generator.lognormal(0.0, 1.0, n) for n in (1000, 37, 2500)]
+    parts[1][::3] = np.nan  # infeasible scenarios are left out
+    reservoir = Reservoir(capacity=5000, seed=1)
+    for part in parts:
+        reservoir.add(part)
+    values = np.concatenate(parts)
+    assert reservoir.exact
+    assert reservoir.percentiles(Q) == np.percentile(values[np.isfinite(values)], Q).tolist()
+    assert Reservoir(capacity=10, seed=1).percentiles(Q) == [None] * len(Q)
+
+
+def _filled(seed: int, values: np.ndarray, capacity: int, chunk: int) -> Reservoir:
+    reservoir = Reservoir(capacity=capacity, seed=seed)
+    for start in range(0, values.size, chunk):
+        reservoir.add(values[start:start + chunk])
+    return reservoir
+
+
+def test_above_capacity_the_sample_is_uniform_over_the_whole_stream() -> None:
+    n, capacity = 1_000_000, 20_000
+    # The stream's values are its positions, so a sample favouring early or late items would show.
+    positions = np.arange(n, dtype=np.float64)
+    reservoir = _filled(3, positions, capacity, 37_000)
+    assert not reservoir.exact and reservoir.seen == n
+    sample = np.asarray(reservoir._sample)
+    assert sample.size == capacity and np.unique(sample).size == capacity  # without replacement
+    counts = np.bincount((sample // (n // 10)).astype(np.int64), minlength=10)
+    expected = capacity / 10
+    chi_square = float(np.sum((counts - expected) ** 2 / expected))
+    assert chi_square < 40.0, counts  # 9 degrees of freedom: P(χ² > 40) ≈ 7e-6 for a uniform sample
+    se = n / math.sqrt(12 * capacity)
+    assert abs(sample.mean() - (n - 1) / 2) <= SE_TOLERANCE * se
+
+
+def test_above_capacity_the_median_is_close_to_the_true_median() -> None:
+    n, capacity = 1_000_000, 20_000
+    values = np.random.default_rng(9).exponential(1.0, n)  # true median ln 2
+    p50 = _filled(4, values, capacity, 50_000).percentiles((50.0,))[0]
+    assert p50 is not None
+    # sd of a sample median ≈ 1 / (2 f(m) sqrt(k)) = 1 / sqrt(k) here (f(ln 2) = 1/2): about 1% of ln 2
+    assert abs(p50 - math.log(2)) <= 0.035, p50
+
+
+def test_the_reservoir_is_deterministic_for_a_seed() -> None:
+    values = np.random.default_rng(2).normal(size=300_000)
+    a = _filled(7, values, 10_000, 40_000).percentiles(Q)
+    b = _filled(7, values, 10_000, 40_000).percentiles(Q)
+    c = _filled(8, values, 10_000, 40_000).percentiles(Q)
+    assert a == b
+    assert a != c
+
+
+# ---- validation --------------------------------------------------------------------------------
+
+def problems(sweep: dict[str, Any], limits: SweepLimits | None = None) -> dict[str, str]:
+    with pytest.raises(InvalidInput) as caught:
+        prepared(sweep, limits)
+    return {p.field: p.reason for p in caught.value.problems}
+
+
+def owned_wins(**rest: Any) -> dict[str, Any]:
+    return {"base": example("campaign-owned-wins.json"), **rest}
+
+
+def test_an_unknown_path_is_named() -> None:
+    assert "distributions.overrides.sunshine" in problems(owned_wins(
+        samples=10, distributions={"overrides.sunshine": {"kind": "uniform", "low": 0, "high": 1}}))
+    found = problems(owned_wins(grid={"campaign.work.colour": [1.0], "overrides.pue": [1.2]}))
+    assert set(found) == {"grid.campaign.work.colour"}
+    assert "unknown input path" in found["grid.campaign.work.colour"]
+
+
+def test_a_path_the_base_request_cannot_take_is_named() -> None:
+    found = problems(owned_wins(samples=10, distributions={
+        "campaign.work.total_flops": {"kind": "uniform", "low": 1e21, "high": 2e21}}))
+    assert "flops" in found["distributions.campaign.work.total_flops"]
+    found = problems(owned_wins(grid={"campaign.recurrence.every_months": [1, 2], "campaign.work.samples": [1e9]}))
+    assert "campaign.recurrence" in found["grid.campaign.recurrence.every_months"]
+    assert "measured" in found["grid.campaign.work.samples"]
+
+
+def test_grid_values_out_of_range_are_named() -> None:
+    found = problems(owned_wins(grid={"overrides.utilisation": [0.4, 1.2, 0.0],
+                                      "campaign.runs.count": [1, 2.5],
+                                      "overrides.pue": [1.1, 1.3]}))
+    assert set(found) == {"grid.overrides.utilisation", "grid.campaign.runs.count"}
+    assert found["grid.overrides.utilisation"].startswith("2 of 3 values")
+    assert "whole numbers" in found["grid.campaign.runs.count"]
+
+
+def test_distributions_that_can_draw_invalid_values_are_refused() -> None:
+    found = problems(owned_wins(samples=10, distributions={
+        "campaign.work.tokens": {"kind": "normal", "mean": 2e11, "sd": 2e10},
+        "overrides.utilisation": {"kind": "uniform", "low": 0.5, "high": 1.2},
+        "overrides.pue": {"kind": "lognormal", "mean": 0.2, "sigma": 0.1},
+        "overrides.node_price_factor": {"kind": "choice", "values": [1.0, 0.0]}}))
+    assert set(found) == {"distributions.campaign.work.tokens", "distributions.overrides.utilisation",
+                          "distributions.overrides.pue", "distributions.overrides.node_price_factor"}
+    assert "bounds" in found["distributions.campaign.work.tokens"]
+    # with bounds inside the valid range, the same normal distribution is accepted
+    accepted = prepared(owned_wins(samples=10, distributions={
+        "campaign.work.tokens": {"kind": "normal", "mean": 2e11, "sd": 2e10, "low": 1e11, "high": 3e11}}))
+    assert accepted.plan.scenarios == 10
+
+
+def test_a_continuous_distribution_on_a_whole_number_path_is_refused() -> None:
+    found = problems(owned_wins(samples=10, distributions={
+        "campaign.runs.count": {"kind": "uniform", "low": 1, "high": 5}}))
+    assert "whole numbers" in found["distributions.campaign.runs.count"]
+    accepted = prepared(owned_wins(samples=10, distributions={
+        "campaign.runs.count": {"kind": "choice", "values": [1, 2, 4]}}))
+    assert accepted.plan.scenarios == 10
+
+
+def test_over_the_limits_is_refused_with_the_limit_in_the_reason() -> None:
+    limits = SweepLimits(max_scenarios=1000, max_grid_values=5, max_paths=2)
+    found = problems(owned_wins(samples=1001, distributions={
+        "overrides.pue": {"kind": "uniform", "low": 1.1, "high": 1.4}}), limits)
+    assert found == {"samples": "1,001 scenarios exceed the limit of 1,000 per sweep"}
+    found = problems(owned_wins(grid={"overrides.pue": [1.1, 1.2, 1.3, 1.4, 1.5],
+                                      "campaign.deadline_days": [float(d) for d in range(10, 15)]}),
+                     SweepLimits(max_scenarios=24))
+    assert "24" in found["grid"] and "25" in found["grid"]
+    found = problems(owned_wins(grid={"overrides.pue": [1.0 + k / 100 for k in range(6)]}), limits)
+    assert "at most 5" in found["grid.overrides.pue"]
+    found = problems(owned_wins(grid={"overrides.pue": [1.2], "overrides.mtbf_hours": [1e4],
+                                      "overrides.network_gbps": [100.0]}), limits)
+    assert "at most 2" in found["grid"]
+    # at the limit exactly, the sweep runs
+    assert prepared(owned_wins(samples=1000, distributions={
+        "overrides.pue": {"kind": "uniform", "low": 1.1, "high": 1.4}}), limits).plan.scenarios == 1000
