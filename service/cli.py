@@ -2,6 +2,7 @@
 
 import json
 import sys
+from collections.abc import Sequence
 from datetime import UTC, datetime
 from enum import StrEnum
 from pathlib import Path
@@ -17,7 +18,7 @@ from service.config import Settings
 from service.errors import BerthError, InvalidInput
 from service.loading import load_file
 from service.quoting import envelope, quote
-from service.tables import print_quote
+from service.tables import print_plan, print_quote
 
 app = typer.Typer(add_completion=False, no_args_is_help=True,
                   help="Where a training campaign should run, and what it will cost.")
@@ -99,6 +100,45 @@ def sweep_command(
         summary, rows = run(prepared, progress=advance)
     document = sweep_document(prepared, summary, rows, tornado_bars(prepared))
     sys.stdout.write(json.dumps(document, indent=2, ensure_ascii=False) + "\n")
+
+
+class PlanFormat(StrEnum):
+    json = "json"
+    table = "table"
+
+
+@app.command("plan")
+def plan_command(
+    plan_path: Annotated[Path, typer.Argument(metavar="PLAN.json", help="the fleet-plan request")],
+    catalog: Annotated[Path | None, typer.Option(help="catalog file (default: the demo catalog)")] = None,
+    database: Annotated[str | None, typer.Option(help="database URL, for demand from stored quotes")] = None,
+    output: Annotated[PlanFormat, typer.Option("--format", help="table or json")] = PlanFormat.table,
+) -> None:
+    """Plan how many nodes to own against a demand forecast, offline."""
+    from service.api.schemas.fleet import FleetPlanIn
+    from service.fleet_plans import FleetLimits, fleet_plan
+    from service.storage.engine import build_engine
+    from service.storage.repository import Storage
+
+    storage = None if database is None else Storage(build_engine(database))
+
+    def lookup(ids: Sequence[str]) -> list[Any]:
+        assert storage is not None
+        with storage.reading() as repository:
+            return list(repository.quotes_by_id(list(ids)))
+
+    try:
+        catalog_in = load_file(CatalogIn, catalog or Settings().demo_catalog)
+        request = load_file(FleetPlanIn, plan_path)
+        with err.status("planning…"):
+            body = fleet_plan(catalog_in, request, limits=FleetLimits(), lookup=None if storage is None else lookup)
+    except BerthError as error:
+        _fail(error)
+        return
+    if output is PlanFormat.json:
+        sys.stdout.write(json.dumps(body, indent=2, ensure_ascii=False) + "\n")
+    else:
+        print_plan(out, body)
 
 
 @catalog_app.command("check")

@@ -19,3 +19,4 @@ class Settings(BaseSettings):
     sweep_max_scenarios: int = 10_000_000
     sweep_max_grid_values: int = 10_000  # per varied input
     sweep_answer_at_once: int = 20_000  # larger sweeps run in the background (202)
+    fleet_max_cells: int = 50_000_000  # candidate sizes × samples × months in one plan

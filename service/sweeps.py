@@ -90,6 +90,8 @@ def prepare_sweep(catalog_in: CatalogIn, sweep: SweepIn, limits: SweepLimits) ->
 
 def _support_problem(rule: InputPath, spec: DistributionIn) -> str | None:
     """Whether every value the distribution can draw is valid for the path."""
+    if rule.integer and spec.kind != "choice":
+        return f"takes whole numbers; a {spec.kind} distribution draws fractions (use a choice distribution)"
     if spec.kind == "choice":
         return rule.problems(np.asarray(spec.values, dtype=np.float64))
     if spec.kind == "lognormal":

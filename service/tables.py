@@ -69,3 +69,27 @@ def print_quote(console: Console, quote: dict[str, Any]) -> None:
     console.print("[bold]Cautions[/]")
     for caution in quote["cautions"]:
         console.print(f"  • {caution}", highlight=False)
+
+
+def print_plan(console: Console, plan: dict[str, Any]) -> None:
+    currency = plan["currency"]
+    console.print(f"[bold]Fleet plan[/] at {plan['site']} against {plan['offer']}/{plan['term']}, "
+                  f"{plan['horizon_months']} months, {plan['samples']:,} demand samples", highlight=False)
+    sizes = Table(title=f"Present cost by owned fleet size ({currency})", title_justify="left")
+    for header in ("nodes", "p5", "p50", "p95", "owned util.", "rented acc.-h"):
+        sizes.add_column(header, justify="right")
+    feasible = [c for c in plan["candidates"] if c["feasible"]]
+    shown = feasible[:: max(1, len(feasible) // 12)]
+    best = next(c for c in feasible if c["nodes"] == plan["best_nodes"])
+    for row in sorted({c["nodes"]: c for c in [*shown, best]}.values(), key=lambda c: c["nodes"]):
+        sizes.add_row(str(row["nodes"]), _money(row["present_cost_p5"]), _money(row["present_cost_p50"]),
+                      _money(row["present_cost_p95"]), _pct(row["owned_utilisation"]),
+                      _money(row["rented_accelerator_hours"]),
+                      style="bold green" if row["nodes"] == plan["best_nodes"] else None)
+    console.print(sizes)
+    probability = plan["probability_owning_beats_renting"]
+    console.print(f"[bold green]Best:[/] own {plan['best_nodes']} nodes"
+                  + ("" if probability is None else f"; owning beats renting everything in {_pct(probability)} "
+                     "of demand samples"), highlight=False)
+    for caution in plan["cautions"]:
+        console.print(f"  • {caution}", highlight=False)

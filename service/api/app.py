@@ -14,7 +14,7 @@ from service import __version__
 from service.api import problems
 from service.api.deps import utc_now
 from service.api.examples import quote_request_examples
-from service.api.routers import catalogs, probes, quotes, sweeps
+from service.api.routers import catalogs, fleet_plans, probes, quotes, sweeps
 from service.api.schemas.catalog import CatalogIn
 from service.api.schemas.quote import Problem
 from service.config import Settings
@@ -69,6 +69,7 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     app.include_router(catalogs.router)
     app.include_router(quotes.router)
     app.include_router(sweeps.router)
+    app.include_router(fleet_plans.router)
     app.openapi = lambda: _openapi(app)  # type: ignore[method-assign]
     return app
 

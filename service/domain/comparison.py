@@ -23,7 +23,8 @@ def ranking_keys(option: OptionResult, rank_by: RankBy) -> tuple[Floats, Floats,
 
 def cheapest(options: tuple[OptionResult, ...], rank_by: RankBy = "cost") -> Ints:
     """Per scenario, the index of the best feasible option by the first ranking key; -1 if none."""
-    firsts = np.stack([np.where(o.feasible, ranking_keys(o, rank_by)[0], np.inf) for o in options])
+    firsts = np.stack(np.broadcast_arrays(*[np.where(o.feasible, ranking_keys(o, rank_by)[0], np.inf)
+                                            for o in options]))
     best = np.argmin(firsts, axis=0)
     return np.where(np.isfinite(firsts.min(axis=0)), best, -1).astype(np.int64)
 

@@ -62,7 +62,11 @@ class Distribution:
             return float(np.clip(self.mean, a, b))
         if self.kind == "lognormal":
             return float(np.exp(self.mean))
-        return float(np.median(self.values))
+        if self.weights is None:
+            return float(np.median(self.values))
+        order = np.argsort(self.values)  # the weighted median: where the cumulative weight reaches 1/2
+        cumulative = np.cumsum(np.asarray(self.weights)[order]) / np.sum(self.weights)
+        return float(np.asarray(self.values)[order][np.searchsorted(cumulative, 0.5)])
 
 
 def stream(seed: int, name: str) -> np.random.Generator:

@@ -188,7 +188,8 @@ def _site_options(site: Site, figures: SiteFigures, context: _Context) -> list[O
         return []
     data = data_charges(context.campaign, link, storage_per_gb_month=None,
                         results_egress_per_gb=site.egress_per_gb)
-    physics = _physics(venue, context, top_limit=np.maximum.reduce([limit.nodes for limit in limits.values()]))
+    top_limit = np.maximum.reduce(np.broadcast_arrays(*[limit.nodes for limit in limits.values()]))
+    physics = _physics(venue, context, top_limit=top_limit)
     results = []
     if "owned_chargeback" in limits:
         results.append(_evaluate(venue, "owned_chargeback", limits["owned_chargeback"],

@@ -118,7 +118,7 @@ def committed_share(
     factor = upfront_financing_factor(
         upfront_fraction=upfront_fraction, months=months, cost_of_capital_annual=_scenario(cost_of_capital_annual)
     )
-    return CommittedShare(terms, sharing, np.broadcast_to(factor, terms.shape))
+    return CommittedShare(terms, sharing, np.broadcast_to(factor, np.broadcast_shapes(factor.shape, terms.shape)))
 
 
 def committed_lines(

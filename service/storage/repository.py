@@ -17,7 +17,7 @@ from sqlmodel import Session, col, select
 
 from service.errors import FieldProblem, InvalidInput
 from service.storage.engine import READ_ONLY
-from service.storage.tables import CatalogRow, IdempotencyRow, QuoteRow, SweepRow
+from service.storage.tables import CatalogRow, FleetPlanRow, IdempotencyRow, QuoteRow, SweepRow
 
 
 def utc(moment: datetime) -> datetime:
@@ -229,9 +229,10 @@ class Repository:
     # sweeps
     def add_sweep(self, *, sweep_id: str, created_at: datetime, catalog_id: str, status: str, total: int,
                   request: dict[str, Any], result: dict[str, Any] | None = None) -> None:
+        # The request as listed, keys not sorted: the order of the grid's paths is the scenarios' order.
         self.session.add(SweepRow(id=sweep_id, created_at=created_at, catalog_id=catalog_id, status=status,
                                   scenarios_total=total, scenarios_done=total if result is not None else 0,
-                                  request=json.dumps(request, sort_keys=True),
+                                  request=json.dumps(request),
                                   result=None if result is None else json.dumps(result),
                                   finished_at=created_at if result is not None else None))
         self.session.flush()
@@ -258,6 +259,20 @@ class Repository:
     def unfinished_sweeps(self) -> list[StoredSweep]:
         query = select(SweepRow).where(col(SweepRow.status).in_(("queued", "running")))
         return [_sweep(r) for r in self.session.exec(query.order_by(col(SweepRow.created_at))).all()]
+
+    # fleet plans
+    def add_fleet_plan(self, *, plan_id: str, created_at: datetime, catalog_id: str, request: dict[str, Any],
+                       response: dict[str, Any]) -> None:
+        self.session.add(FleetPlanRow(id=plan_id, created_at=created_at, catalog_id=catalog_id,
+                                      request=json.dumps(request, sort_keys=True), response=json.dumps(response)))
+        self.session.flush()
+
+    def fleet_plan(self, plan_id: str) -> dict[str, Any] | None:
+        row = self.session.get(FleetPlanRow, plan_id)
+        return None if row is None else dict(json.loads(row.response))
+
+    def quotes_by_id(self, ids: list[str]) -> list[StoredQuote | None]:
+        return [self.quote(i) for i in ids]
 
     def ping(self) -> None:
         self.session.execute(text("SELECT 1"))

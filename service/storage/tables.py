@@ -69,3 +69,15 @@ class SweepRow(SQLModel, table=True):
     result: str | None = Field(default=None, sa_column=Column(Text, nullable=True))
     error: str | None = Field(default=None, sa_column=Column(Text, nullable=True))
     finished_at: datetime | None = Field(default=None, sa_column=Column(DateTime(timezone=True), nullable=True))
+
+
+class FleetPlanRow(SQLModel, table=True):
+    """A fleet plan's request and answer, kept so its chart and report can be fetched later."""
+
+    __tablename__ = "fleet_plan"
+
+    id: str = Field(primary_key=True, max_length=40)
+    created_at: datetime = Field(sa_column=_utc_column(index=True))
+    catalog_id: str = Field(foreign_key="catalog.id", max_length=40)
+    request: str = Field(sa_column=Column(Text, nullable=False))
+    response: str = Field(sa_column=Column(Text, nullable=False))

@@ -1,0 +1,38 @@
+"""Fleet plans: size an owned fleet against a demand forecast over a horizon, the overflow rented."""
+
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Depends, Request
+from fastapi.responses import JSONResponse
+
+from service.api.deps import CatalogsDep, NowDep, StorageDep
+from service.api.problems import PROBLEM_RESPONSES
+from service.api.schemas.fleet import FleetPlanIn
+from service.config import Settings
+from service.fleet_plans import FleetLimits, create_fleet_plan, get_fleet_plan
+
+router = APIRouter(prefix="/v1/fleet-plans", tags=["fleet plans"])
+
+
+def _settings(request: Request) -> Settings:
+    settings: Settings = request.app.state.settings
+    return settings
+
+
+SettingsDep = Annotated[Settings, Depends(_settings)]
+
+
+@router.post("", status_code=201, responses=PROBLEM_RESPONSES)
+def post_fleet_plan(payload: FleetPlanIn, storage: StorageDep, catalogs: CatalogsDep, now: NowDep,
+                    settings: SettingsDep) -> JSONResponse:
+    """Every candidate fleet size against every demand sample and month at once: present cost
+    percentiles per size, the best size, the chance it beats renting everything, and its months."""
+    document = create_fleet_plan(storage, catalogs, payload, now=now,
+                                 limits=FleetLimits(max_cells=settings.fleet_max_cells))
+    return JSONResponse(document, status_code=201, headers={"Location": document["links"]["self"]})
+
+
+@router.get("/{plan_id}", responses=PROBLEM_RESPONSES)
+def read_fleet_plan(plan_id: str, storage: StorageDep) -> dict[str, Any]:
+    """A stored fleet plan, as it was returned."""
+    return get_fleet_plan(storage, plan_id)

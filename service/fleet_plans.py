@@ -1,0 +1,238 @@
+"""Use cases for fleet plans: turn a request into the fleet economics of one site and one rented
+offer and term, build the demand, run the vectorised plan, and shape the answer (api.md)."""
+
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from datetime import datetime
+from typing import Any
+
+import numpy as np
+
+from service.api.schemas.catalog import CatalogIn
+from service.api.schemas.fleet import FleetPlanIn
+from service.document import Money
+from service.domain.campaign import Overrides
+from service.domain.catalog import Catalog, Offer, Site
+from service.domain.explain import CAUTIONS
+from service.domain.finance import monthly_rate
+from service.domain.fleet import FleetEconomics, critical_ratio, monthly_demand, plan_fleet, sizes_between
+from service.domain.owning import busy_energy_per_accelerator_hour, node_month
+from service.domain.terms import upfront_financing_factor
+from service.domain.venues import site_economics, sustained_flops
+from service.errors import FieldProblem, InvalidInput, NotFound
+from service.storage.repository import Storage, StoredQuote, new_id
+from service.use_cases import ParsedCatalogs
+
+QuoteLookup = Callable[[Sequence[str]], list[StoredQuote | None]]
+
+
+@dataclass(frozen=True)
+class FleetLimits:
+    max_cells: int = 50_000_000  # candidate sizes × samples × months
+
+
+def _venues(catalog: Catalog, request: FleetPlanIn) -> tuple[Site, Offer]:
+    site = next((s for s in catalog.sites if s.id == request.site), None)
+    offer = next((o for o in catalog.offers if o.id == request.offer), None)
+    problems = []
+    if site is None:
+        problems.append(FieldProblem("site", f"no owned site {request.site!r} in the catalog"))
+    if offer is None:
+        problems.append(FieldProblem("offer", f"no rental offer {request.offer!r} in the catalog"))
+    if problems:
+        raise InvalidInput("the plan names venues the catalog does not have", problems)
+    assert site is not None and offer is not None
+    return site, offer
+
+
+def _rented_price(offer: Offer, term: str, catalog: Catalog) -> float:
+    """The term's price per rented accelerator-hour (committed terms with their up-front financing)."""
+    if term == "on_demand" and offer.on_demand_per_accelerator_hour is not None:
+        return offer.on_demand_per_accelerator_hour
+    if term == "interruptible" and offer.interruptible is not None:
+        return offer.interruptible.per_accelerator_hour
+    for commitment in offer.committed:
+        if term == f"committed_{commitment.months}m":
+            factor = upfront_financing_factor(upfront_fraction=commitment.upfront_fraction, months=commitment.months,
+                                              cost_of_capital_annual=catalog.cost_of_capital_annual)
+            return float(commitment.per_accelerator_hour * factor)
+    terms = ["on_demand"] * (offer.on_demand_per_accelerator_hour is not None) + [
+        f"committed_{c.months}m" for c in offer.committed] + ["interruptible"] * (offer.interruptible is not None)
+    raise InvalidInput("the offer has no such term", [FieldProblem("term", f"{offer.id} offers {', '.join(terms)}")])
+
+
+def _demand(request: FleetPlanIn, lookup: QuoteLookup | None, generator: np.random.Generator) -> np.ndarray:
+    d = request.demand
+    months = request.horizon_months
+    if d.accelerator_hours_first_month is not None:
+        return monthly_demand(first_month_hours=d.accelerator_hours_first_month, months=months,
+                              doubling_months=d.doubling_months, spread=d.spread, samples=request.samples,
+                              generator=generator)
+    if d.monthly is not None:
+        series = np.zeros(months)
+        values = np.asarray(d.monthly[:months], dtype=np.float64)
+        series[:values.size] = values
+    else:
+        series = _demand_from_quotes(request, lookup)
+    noise = (generator.lognormal(-0.5 * d.spread**2, d.spread, size=(request.samples, months)) if d.spread
+             else np.ones((request.samples, months)))
+    return series * noise
+
+
+def _demand_from_quotes(request: FleetPlanIn, lookup: QuoteLookup | None) -> np.ndarray:
+    """Each quoted campaign's accelerator-hours at the site, spread over its recurrence."""
+    ids = request.demand.from_quotes or []
+    if lookup is None:
+        raise InvalidInput("quotes live in the service's database",
+                           [FieldProblem("demand.from_quotes", "give --database, or use monthly demand")])
+    series = np.zeros(request.horizon_months)
+    problems = []
+    for k, (quote_id, stored) in enumerate(zip(ids, lookup(ids), strict=True)):
+        if stored is None:
+            problems.append(FieldProblem(f"demand.from_quotes.{k}", f"no quote {quote_id!r}"))
+            continue
+        option = next((o for o in stored.response["options"] if o["venue"]["id"] == request.site
+                       and o["term"] == "owned_chargeback"), None)
+        if option is None or option["timing"]["accelerator_hours"] is None:
+            problems.append(FieldProblem(f"demand.from_quotes.{k}", f"quote {quote_id!r} has no option at "
+                                         f"{request.site!r} to take the campaign's accelerator-hours from"))
+            continue
+        hours = float(option["timing"]["accelerator_hours"])
+        recurrence = stored.request["campaign"].get("recurrence")
+        if recurrence is None:
+            series[0] += hours
+        else:
+            months = min(int(np.ceil(recurrence["for_months"])), request.horizon_months)
+            series[:months] += hours / recurrence["every_months"]
+    if problems:
+        raise InvalidInput("some quotes cannot make demand", problems)
+    return series
+
+
+def fleet_plan(catalog_in: CatalogIn, request: FleetPlanIn, *, limits: FleetLimits,
+               lookup: QuoteLookup | None = None) -> dict[str, Any]:
+    """The plan's answer body (without the stored id)."""
+    cells = request.candidate_nodes.count * request.samples * request.horizon_months
+    if cells > limits.max_cells:
+        raise InvalidInput("the plan is too large", [FieldProblem(
+            "candidate_nodes", f"{cells:,} sizes × samples × months exceed the limit of {limits.max_cells:,}")])
+    catalog = catalog_in.to_domain()
+    site, offer = _venues(catalog, request)
+    economics = site_economics(site, catalog, Overrides())
+    node = node_month(economics)
+    variable = float(busy_energy_per_accelerator_hour(economics))
+    site_speed = float(sustained_flops(site.node_type, request.precision, Overrides()))
+    offer_speed = float(sustained_flops(offer.node_type, request.precision, Overrides()))
+    if not (np.isfinite(site_speed) and np.isfinite(offer_speed)):
+        raise InvalidInput("no peak figure for that precision", [FieldProblem("precision", request.precision)])
+    listed = _rented_price(offer, request.term, catalog)
+    # Demand is in the site's accelerator-hours; renting the same work takes speed-ratio as many.
+    price = listed * site_speed / offer_speed
+    fleet = FleetEconomics(
+        accelerators_per_node=site.node_type.accelerators_per_node, fixed_per_node_month=float(node.total),
+        variable_per_accelerator_hour=variable, rented_per_accelerator_hour=price,
+        max_utilisation=request.max_utilisation, monthly_rate=float(monthly_rate(catalog.cost_of_capital_annual)))
+    demand = _demand(request, lookup, np.random.default_rng(request.seed))
+    c = request.candidate_nodes
+    sizes = sizes_between(low=c.min, high=c.max, step=c.step)
+    power_limit, why = _site_limit(site, float(economics.pue))
+    allowed = sizes <= power_limit
+    if not allowed.any():
+        raise InvalidInput("no candidate size fits the site", [FieldProblem("candidate_nodes", why)])
+    plan = plan_fleet(sizes=sizes[allowed], demand=demand, economics=fleet)
+    return _document(catalog_in.currency, request, sizes, allowed, why, plan, fleet, listed, demand)
+
+
+def _site_limit(site: Site, pue: float) -> tuple[float, str]:
+    """The largest fleet the site can hold, feed and cool, and what sets it."""
+    peak = site.node_type.power_kw_peak
+    bounds = {"the site's nodes_max": float(site.nodes_max)}
+    if site.power_capacity_kw is not None:
+        bounds["facility power"] = np.floor(site.power_capacity_kw / (peak * pue) + 1e-9)
+    if site.cooling_capacity_kw is not None:
+        bounds["cooling"] = np.floor(site.cooling_capacity_kw / peak + 1e-9)
+    name = min(bounds, key=lambda k: bounds[k])
+    return bounds[name], f"more than {bounds[name]:,.0f} nodes exceed {name} at {site.id}"
+
+
+def _document(currency: str, request: FleetPlanIn, sizes: np.ndarray, allowed: np.ndarray, why: str, plan: Any,
+              fleet: FleetEconomics, listed: float, demand: np.ndarray) -> dict[str, Any]:
+    money = Money(currency)
+    p5, p50, p95 = np.percentile(plan.present_cost, (5, 50, 95), axis=1)
+    mean = plan.expected_present_cost
+    feasible_rows = iter(range(plan.sizes.size))
+    candidates = []
+    for n, ok in zip(sizes.tolist(), allowed.tolist(), strict=True):
+        if not ok:
+            candidates.append({"nodes": n, "feasible": False, "reason": why})
+            continue
+        k = next(feasible_rows)
+        candidates.append({
+            "nodes": n, "feasible": True, "reason": None,
+            "present_cost_p5": money(p5[k]), "present_cost_p50": money(p50[k]), "present_cost_p95": money(p95[k]),
+            "present_cost_mean": money(mean[k]),
+            "owned_utilisation": (float(plan.owned_hours[k] / plan.capacity_hours[k])
+                                  if plan.capacity_hours[k] else None),
+            "rented_accelerator_hours": round(float(plan.rented_hours[k]), 1)})
+    best = int(plan.sizes[plan.best])
+    months = [{"month": t + 1, "demand_accelerator_hours": round(float(d), 1),
+               "owned_accelerator_hours": round(float(o), 1), "rented_accelerator_hours": round(float(r), 1),
+               "spend": money(s), "utilisation": float(o / plan.months_capacity) if plan.months_capacity else None}
+              for t, (d, o, r, s) in enumerate(zip(demand.mean(axis=0), plan.months_owned, plan.months_rented,
+                                                   plan.months_spend, strict=True))]
+    ratio = critical_ratio(fleet) if fleet.rented_per_accelerator_hour > fleet.variable_per_accelerator_hour else None
+    probability = plan.probability_owning_beats_renting
+    return {
+        "site": request.site, "offer": request.offer, "term": request.term, "currency": currency,
+        "horizon_months": request.horizon_months, "samples": request.samples, "seed": request.seed,
+        "owned_fixed_per_node_month": money(fleet.fixed_per_node_month),
+        "owned_variable_per_accelerator_hour": round(fleet.variable_per_accelerator_hour, 4),
+        "rented_listed_per_accelerator_hour": round(listed, 4),
+        "rented_per_accelerator_hour": round(fleet.rented_per_accelerator_hour, 4),
+        "max_utilisation": fleet.max_utilisation,
+        "candidates": candidates,
+        "best_nodes": best,
+        "probability_owning_beats_renting": None if np.isnan(probability) else probability,
+        "critical_ratio": ratio,
+        "months": months,
+        "notes": [
+            "Demand is in accelerator-hours of the site's node type; rented hours are converted by the ratio "
+            "of sustained FLOP/s of the two accelerators.",
+            "Each month is paid at its end and discounted at the catalog's cost of capital / 12.",
+            "Committed terms are priced per hour with their up-front financing; their block sizes are not modelled.",
+            "The probability compares the best size with renting everything, when 0 nodes is a candidate.",
+        ],
+        "cautions": list(CAUTIONS),
+    }
+
+
+def create_fleet_plan(storage: Storage, catalogs: ParsedCatalogs, request: FleetPlanIn, *, now: datetime,
+                      limits: FleetLimits) -> dict[str, Any]:
+    """Plan, store and return the plan with its id and links."""
+    with storage.reading() as repository:
+        stored = repository.newest_catalog() if request.catalog_id is None else repository.catalog(request.catalog_id)
+    if stored is None:
+        if request.catalog_id is None:
+            raise NotFound("no catalog has been uploaded yet")
+        raise InvalidInput("unknown catalog", [FieldProblem("catalog_id", f"no catalog {request.catalog_id!r}")])
+
+    def lookup(ids: Sequence[str]) -> list[StoredQuote | None]:
+        with storage.reading() as repository:
+            return repository.quotes_by_id(list(ids))
+
+    body = fleet_plan(catalogs.get(stored), request, limits=limits, lookup=lookup)
+    plan_id = new_id("fp")
+    document = {"id": plan_id, "created_at": now.isoformat().replace("+00:00", "Z"), "catalog_id": stored.id,
+                **body, "links": {"self": f"/v1/fleet-plans/{plan_id}"}}
+    with storage.writing() as repository:
+        repository.add_fleet_plan(plan_id=plan_id, created_at=now, catalog_id=stored.id,
+                                  request=request.model_dump(mode="json"), response=document)
+    return document
+
+
+def get_fleet_plan(storage: Storage, plan_id: str) -> dict[str, Any]:
+    with storage.reading() as repository:
+        document = repository.fleet_plan(plan_id)
+    if document is None:
+        raise NotFound(f"no fleet plan {plan_id!r}")
+    return document

@@ -1,0 +1,91 @@
+"""POST /v1/fleet-plans and GET /v1/fleet-plans/{id} (api.md, Fleet plans)."""
+
+import copy
+from typing import Any
+
+import httpx
+import pytest
+
+from tests.conftest import load_example
+
+pytestmark = pytest.mark.anyio
+PROBLEM = "application/problem+json"
+
+
+def plan_request(**changes: Any) -> dict[str, Any]:
+    request = copy.deepcopy(load_example("fleet-plan.json"))
+    request.update({"samples": 200, **changes})
+    return request
+
+
+async def test_a_plan_is_stored_and_answers_every_candidate_size(client: httpx.AsyncClient) -> None:
+    response = await client.post("/v1/fleet-plans", json=plan_request())
+    assert response.status_code == 201, response.text
+    plan = response.json()
+    assert response.headers["location"] == f"/v1/fleet-plans/{plan['id']}"
+    sizes = [c["nodes"] for c in plan["candidates"]]
+    assert sizes == list(range(0, 97, 2))
+    best = next(c for c in plan["candidates"] if c["nodes"] == plan["best_nodes"])
+    # The best size has the lowest expected present cost of the feasible sizes.
+    assert best["present_cost_mean"] == min(c["present_cost_mean"] for c in plan["candidates"] if c["feasible"])
+    assert all(c["present_cost_p5"] <= c["present_cost_p50"] <= c["present_cost_p95"]
+               for c in plan["candidates"] if c["feasible"])
+    assert 0.0 <= plan["probability_owning_beats_renting"] <= 1.0
+    assert len(plan["months"]) == 48
+    month = plan["months"][0]
+    assert month["owned_accelerator_hours"] + month["rented_accelerator_hours"] == pytest.approx(
+        month["demand_accelerator_hours"], abs=0.2)
+    stored = await client.get(f"/v1/fleet-plans/{plan['id']}")
+    assert stored.status_code == 200
+    assert stored.json() == plan
+
+
+async def test_sizes_beyond_the_sites_power_are_marked_infeasible(client: httpx.AsyncClient) -> None:
+    # fjordvik-hall: 1,200 kW of facility power / (10.2 kW × PUE 1.15) = 102 nodes; nodes_max 96.
+    response = await client.post("/v1/fleet-plans", json=plan_request(candidate_nodes={"min": 90, "max": 110}))
+    assert response.status_code == 201, response.text
+    rows = {c["nodes"]: c for c in response.json()["candidates"]}
+    assert rows[96]["feasible"] and not rows[97]["feasible"]
+    assert "nodes_max" in rows[97]["reason"]
+
+
+async def test_a_plan_over_the_size_limit_is_refused_naming_the_limit(client: httpx.AsyncClient) -> None:
+    response = await client.post("/v1/fleet-plans", json=plan_request(samples=2_000_000,
+                                                                        candidate_nodes={"min": 0, "max": 96}))
+    assert response.status_code == 422
+    assert response.headers["content-type"] == PROBLEM
+    assert "exceed the limit of 50,000,000" in response.json()["errors"][0]["reason"]
+
+
+async def test_unknown_venues_and_terms_are_named(client: httpx.AsyncClient) -> None:
+    response = await client.post("/v1/fleet-plans", json=plan_request(site="nowhere", offer="nobody"))
+    assert response.status_code == 422
+    assert {e["field"] for e in response.json()["errors"]} == {"site", "offer"}
+    response = await client.post("/v1/fleet-plans", json=plan_request(term="committed_24m"))
+    assert response.status_code == 422
+    assert response.json()["errors"][0]["field"] == "term"
+
+
+async def test_demand_can_come_from_stored_recurring_quotes(client: httpx.AsyncClient) -> None:
+    quote = await client.post("/v1/quotes", json=load_example("campaign-recurring.json"))
+    assert quote.status_code == 201
+    body = quote.json()
+    hours = next(o["timing"]["accelerator_hours"] for o in body["options"]
+                 if o["venue"]["id"] == "fjordvik-hall" and o["term"] == "owned_chargeback")
+    request = plan_request(demand={"from_quotes": [body["id"]]}, horizon_months=48)
+    response = await client.post("/v1/fleet-plans", json=request)
+    assert response.status_code == 201, response.text
+    months = response.json()["months"]
+    # Monthly recurrence for 36 months: that campaign's hours every month, then nothing.
+    assert months[0]["demand_accelerator_hours"] == pytest.approx(hours, rel=1e-6)
+    assert months[35]["demand_accelerator_hours"] == pytest.approx(hours, rel=1e-6)
+    assert months[36]["demand_accelerator_hours"] == 0.0
+    missing = await client.post("/v1/fleet-plans", json=plan_request(demand={"from_quotes": ["q_missing"]}))
+    assert missing.status_code == 422
+    assert missing.json()["errors"][0]["field"] == "demand.from_quotes.0"
+
+
+async def test_an_unknown_plan_is_a_problem_404(client: httpx.AsyncClient) -> None:
+    response = await client.get("/v1/fleet-plans/fp_nothing")
+    assert response.status_code == 404
+    assert response.headers["content-type"] == PROBLEM
