@@ -1,7 +1,9 @@
 """The `berth` command line: offline quotes, catalog checks, and the service."""
 
 import json
+import os
 import sys
+import tempfile
 from collections.abc import Sequence
 from datetime import UTC, datetime
 from enum import StrEnum
@@ -159,16 +161,41 @@ def serve(
     host: Annotated[str | None, typer.Option(help="address to listen on (BERTH_HOST)")] = None,
     port: Annotated[int | None, typer.Option(help="port (BERTH_PORT)")] = None,
     database: Annotated[str | None, typer.Option(help="database URL (BERTH_DATABASE_URL)")] = None,
+    workers: Annotated[int, typer.Option(min=1, help="worker processes (SQLite: keep 1 per file)")] = 1,
 ) -> None:
-    """Run the HTTP service."""
+    """Run the HTTP service. Logs are JSON lines on standard error."""
     import uvicorn
 
     from service.api.app import create_app
+    from service.api.observability import configure_logging
 
     overrides: dict[str, Any] = {k: v for k, v in
                                  {"host": host, "port": port, "database_url": database}.items() if v is not None}
     settings = Settings(**overrides)
-    uvicorn.run(create_app(settings), host=settings.host, port=settings.port, log_level="info")
+    configure_logging(settings.log_level)
+    if workers == 1:
+        uvicorn.run(create_app(settings), host=settings.host, port=settings.port, log_config=None)
+        return
+    # Each worker builds its own app (and engine) after the fork, from the environment.
+    os.environ.update({f"BERTH_{k.upper()}": str(v) for k, v in overrides.items()})
+    os.environ.setdefault("PROMETHEUS_MULTIPROC_DIR", tempfile.mkdtemp(prefix="berth-metrics-"))
+    uvicorn.run("service.api.app:create_app", factory=True, host=settings.host, port=settings.port,
+                workers=workers, log_config=None)
+
+
+@app.command("migrate")
+def migrate(database: Annotated[str | None, typer.Option(help="database URL (BERTH_DATABASE_URL)")] = None) -> None:
+    """Bring the database schema to the newest migration (run once per release, before the replicas)."""
+    from service.storage.engine import build_engine
+    from service.storage.migrate import head_revision, upgrade
+
+    settings = Settings(**({} if database is None else {"database_url": database}))
+    engine = build_engine(settings.database_url)
+    try:
+        upgrade(engine)
+    finally:
+        engine.dispose()
+    out.print(f"schema at {head_revision()}", highlight=False)
 
 
 def main() -> None:

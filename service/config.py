@@ -20,3 +20,6 @@ class Settings(BaseSettings):
     sweep_max_grid_values: int = 10_000  # per varied input
     sweep_answer_at_once: int = 20_000  # larger sweeps run in the background (202)
     fleet_max_cells: int = 50_000_000  # candidate sizes × samples × months in one plan
+    max_body_bytes: int = 1024 * 1024
+    request_timeout_seconds: float = 30.0  # until a response starts; streamed CSV may run longer
+    log_level: str = "INFO"

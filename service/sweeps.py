@@ -8,7 +8,7 @@ import time
 from collections.abc import Callable, Iterator
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
-from datetime import datetime
+from datetime import datetime, timedelta
 from typing import Any
 
 import numpy as np
@@ -350,12 +350,14 @@ class SweepRunner:
             if moment - last[0] >= PROGRESS_EVERY_SECONDS:
                 last[0] = moment
                 with self._storage.writing() as repository:
-                    repository.update_sweep(sweep_id, status="running", done=done)
+                    repository.update_sweep(sweep_id, status="running", done=done, heartbeat=self._clock())
 
+        with self._storage.writing() as repository:
+            claimed = repository.claim_sweep(sweep_id, now=self._clock(), stale_after=STALE_AFTER)
+        if not claimed:
+            return  # another process runs it, or it is finished
         try:
             prepared = prepared_from_store(self._storage, self._catalogs, sweep_id)
-            with self._storage.writing() as repository:
-                repository.update_sweep(sweep_id, status="running", done=0)
             summary, rows = run(prepared, progress=progress)
             document = sweep_document(prepared, summary, rows, tornado_bars(prepared))
             with self._storage.writing() as repository:
@@ -369,3 +371,4 @@ class SweepRunner:
 
 
 PROGRESS_EVERY_SECONDS = 1.0
+STALE_AFTER = timedelta(minutes=2)  # a running sweep with no progress for this long is taken over

@@ -9,6 +9,8 @@ from datetime import datetime, timedelta
 from pathlib import Path
 from typing import Any
 
+from sqlalchemy.exc import IntegrityError
+
 from service.api.schemas.catalog import CatalogIn
 from service.api.schemas.request import QuoteRequestIn
 from service.errors import Conflict, FieldProblem, InvalidInput, NotFound
@@ -43,13 +45,21 @@ def upload_catalog(storage: Storage, data: Any, *, now: datetime) -> tuple[Store
     catalog = validate(CatalogIn, data, source="catalog")
     content = catalog.model_dump(mode="json")
     digest = catalog_hash(catalog)
-    with storage.writing() as repository:
-        existing = repository.catalog_by_hash(digest)
-        if existing is not None:
-            return existing, False
-        stored = repository.add_catalog(name=catalog.name, currency=catalog.currency, content_hash=digest,
-                                        content=content, created_at=now)
-        return stored, True
+    try:
+        with storage.writing() as repository:
+            existing = repository.catalog_by_hash(digest)
+            if existing is not None:
+                return existing, False
+            stored = repository.add_catalog(name=catalog.name, currency=catalog.currency, content_hash=digest,
+                                            content=content, created_at=now)
+            return stored, True
+    except IntegrityError:
+        # Another replica stored the same content between our read and our insert.
+        with storage.reading() as repository:
+            existing = repository.catalog_by_hash(digest)
+        if existing is None:
+            raise
+        return existing, False
 
 
 def load_demo_catalog(storage: Storage, path: Path, *, now: datetime) -> StoredCatalog | None:

@@ -14,6 +14,8 @@ from service import __version__
 from service.api import problems
 from service.api.deps import utc_now
 from service.api.examples import quote_request_examples
+from service.api.middleware import BodyLimit, RequestContext, TimeLimit
+from service.api.observability import install_metrics
 from service.api.routers import catalogs, fleet_plans, probes, quotes, sweeps
 from service.api.schemas.catalog import CatalogIn
 from service.api.schemas.quote import Problem
@@ -65,6 +67,11 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     app.state.clock = clock
     app.state.sweeps = SweepRunner(app.state.storage, app.state.catalogs, clock)
     problems.install(app)
+    install_metrics(app)
+    # Outermost first: every response carries a request id, then time and size limits apply.
+    app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
+    app.add_middleware(TimeLimit, seconds=settings.request_timeout_seconds)
+    app.add_middleware(RequestContext)
     app.include_router(probes.router)
     app.include_router(catalogs.router)
     app.include_router(quotes.router)

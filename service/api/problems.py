@@ -10,7 +10,9 @@ from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException
+from starlette.requests import ClientDisconnect
 
+from service.api.observability import domain_metrics
 from service.errors import BerthError, InvalidInput
 from service.loading import field_problems_from_list
 
@@ -25,7 +27,9 @@ TYPES = {
 
 
 def problem(status: int, title: str, detail: str, *, errors: list[dict[str, str]] | None = None,
-            headers: dict[str, str] | None = None) -> JSONResponse:
+            headers: dict[str, str] | None = None, counted: bool = True) -> JSONResponse:
+    if counted:
+        domain_metrics().errors.labels(type=TYPES.get(status, "error")).inc()
     body: dict[str, Any] = {"type": f"/problems/{TYPES.get(status, 'error')}", "title": title,
                             "status": status, "detail": detail}
     if errors is not None:
@@ -53,6 +57,11 @@ def install(app: FastAPI) -> None:
             # The router answers with the first route that matched the path; name every method.
             headers["Allow"] = ", ".join(allowed_methods(request))
         return problem(error.status_code, _title(error.status_code), str(error.detail), headers=headers or None)
+
+    @app.exception_handler(ClientDisconnect)
+    async def _gone(_request: Request, _error: ClientDisconnect) -> JSONResponse:
+        # The client left (or the body limit answered for it): nobody reads this answer.
+        return problem(400, "Client disconnected", "the request body ended early", counted=False)
 
     @app.exception_handler(Exception)
     async def _unexpected(request: Request, error: Exception) -> JSONResponse:

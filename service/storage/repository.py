@@ -11,7 +11,7 @@ from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from typing import Any
 
-from sqlalchemy import Engine, and_, delete, func, or_, text
+from sqlalchemy import Engine, and_, delete, func, or_, text, update
 from sqlalchemy.exc import IntegrityError
 from sqlmodel import Session, col, select
 
@@ -242,11 +242,14 @@ class Repository:
         return None if row is None else _sweep(row)
 
     def update_sweep(self, sweep_id: str, *, status: str, done: int, result: dict[str, Any] | None = None,
-                     error: str | None = None, finished_at: datetime | None = None) -> None:
+                     error: str | None = None, finished_at: datetime | None = None,
+                     heartbeat: datetime | None = None) -> None:
         row = self.session.get(SweepRow, sweep_id)
         if row is None:
             return
         row.status, row.scenarios_done = status, done
+        if heartbeat is not None:
+            row.heartbeat_at = heartbeat
         if result is not None:
             row.result = json.dumps(result)
         if error is not None:
@@ -255,6 +258,17 @@ class Repository:
             row.finished_at = finished_at
         self.session.add(row)
         self.session.flush()
+
+    def claim_sweep(self, sweep_id: str, *, now: datetime, stale_after: timedelta) -> bool:
+        """Take a queued sweep, or one whose runner stopped beating, for this process. Exactly one
+        replica wins: the update is conditional and atomic."""
+        result = self.session.execute(
+            update(SweepRow)
+            .where(col(SweepRow.id) == sweep_id)
+            .where(or_(col(SweepRow.status) == "queued",
+                       and_(col(SweepRow.status) == "running", col(SweepRow.heartbeat_at) < now - stale_after)))
+            .values(status="running", heartbeat_at=now, scenarios_done=0))
+        return bool(getattr(result, "rowcount", 0) == 1)
 
     def unfinished_sweeps(self) -> list[StoredSweep]:
         query = select(SweepRow).where(col(SweepRow.status).in_(("queued", "running")))

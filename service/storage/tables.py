@@ -69,6 +69,7 @@ class SweepRow(SQLModel, table=True):
     result: str | None = Field(default=None, sa_column=Column(Text, nullable=True))
     error: str | None = Field(default=None, sa_column=Column(Text, nullable=True))
     finished_at: datetime | None = Field(default=None, sa_column=Column(DateTime(timezone=True), nullable=True))
+    heartbeat_at: datetime | None = Field(default=None, sa_column=Column(DateTime(timezone=True), nullable=True))
 
 
 class FleetPlanRow(SQLModel, table=True):

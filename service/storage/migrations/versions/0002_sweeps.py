@@ -31,6 +31,7 @@ def upgrade() -> None:
     sa.Column('result', sa.Text(), nullable=True),
     sa.Column('error', sa.Text(), nullable=True),
     sa.Column('finished_at', sa.DateTime(timezone=True), nullable=True),
+    sa.Column('heartbeat_at', sa.DateTime(timezone=True), nullable=True),
     sa.ForeignKeyConstraint(['catalog_id'], ['catalog.id'], ),
     sa.PrimaryKeyConstraint('id')
     )

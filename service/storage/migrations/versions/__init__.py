@@ -1,0 +1,1 @@
+"""Migration revisions, oldest first."""
