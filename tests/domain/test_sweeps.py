@@ -52,7 +52,7 @@ def request_with(base: dict[str, Any], inputs: dict[str, float]) -> QuoteRequest
         *parents, name = path.split(".")
         for part in parents:
             node = node.setdefault(part, {})
-        node[name] = int(round(value)) if rule.integer else float(value)
+        node[name] = round(value) if rule.integer else float(value)
     return QuoteRequestIn.model_validate(request)
 
 
@@ -132,6 +132,82 @@ def test_every_scenario_equals_its_single_quote(name: str, sweep: dict[str, Any]
         assert rows[s]["inputs"] == values
     if name == "owned-wins grid":
         assert infeasible_seen > 0  # the grid reaches infeasible options (short deadlines), so NaN is checked
+
+
+# Two valid values for every sweepable path, and the base request that can take it.
+EVERY_PATH: dict[str, tuple[str, list[float]]] = {
+    "campaign.work.parameters": ("transformer", [5e9, 9e9]),
+    "campaign.work.tokens": ("transformer", [1.5e11, 3e11]),
+    "campaign.work.total_flops": ("flops", [5e21, 1e22]),
+    "campaign.work.samples": ("measured", [1e9, 3e9]),
+    "campaign.work.samples_per_second_per_accelerator": ("measured", [200, 400]),
+    "campaign.work.global_batch_tokens": ("transformer", [2e6, 8e6]),
+    "campaign.runs.count": ("transformer", [1, 3]),
+    "campaign.runs.exploration_fraction": ("transformer", [0.0, 0.3]),
+    "campaign.runs.evaluation_fraction": ("transformer", [0.0, 0.1]),
+    "campaign.deadline_days": ("transformer", [10, 40]),
+    "campaign.data.dataset_tb": ("transformer", [0, 50]),
+    "campaign.data.checkpoint_tb": ("transformer", [0.05, 0.5]),
+    "campaign.data.checkpoints_kept": ("transformer", [1, 5]),
+    "campaign.data.results_egress_tb": ("transformer", [0, 2]),
+    "campaign.recurrence.every_months": ("recurring", [1, 6]),
+    "campaign.recurrence.for_months": ("recurring", [12, 48]),
+    "overrides.utilisation": ("transformer", [0.3, 0.5]),
+    "overrides.electricity_price_per_kwh": ("transformer", [0.0, 0.25]),
+    "overrides.on_demand_price_factor": ("transformer", [0.8, 1.2]),
+    "overrides.rented_price_factor": ("transformer", [0.8, 1.2]),
+    "overrides.pue": ("transformer", [1.1, 1.6]),
+    "overrides.cost_of_capital_annual": ("transformer", [0.0, 0.12]),
+    "overrides.node_price_factor": ("transformer", [0.7, 1.3]),
+    "overrides.utilisation_planned": ("transformer", [0.4, 0.95]),
+    "overrides.grid_kgco2e_per_kwh": ("transformer", [0.0, 0.5]),
+    "overrides.mtbf_hours": ("transformer", [5000, 50000]),
+    "overrides.network_gbps": ("transformer", [100, 800]),
+}
+
+
+def base_for(kind: str) -> dict[str, Any]:
+    if kind == "recurring":
+        return example("campaign-recurring.json")
+    base = example("campaign-owned-wins.json")
+    work = base["campaign"]["work"]
+    if kind == "flops":
+        base["campaign"]["work"] = {"kind": "flops", "total_flops": 8e21, "parameters": work["parameters"],
+                                    "global_batch_tokens": work["global_batch_tokens"]}
+    elif kind == "measured":
+        base["campaign"]["work"] = {"kind": "measured", "reference_node_type": "acc96-x8", "samples": 2e9,
+                                    "samples_per_second_per_accelerator": 300, "parameters": work["parameters"]}
+    return base
+
+
+def test_the_path_table_covers_every_sweepable_path() -> None:
+    assert set(EVERY_PATH) == set(PATHS)
+
+
+@pytest.mark.parametrize("path", sorted(EVERY_PATH))
+def test_each_path_varied_alone_equals_its_single_quotes(path: str) -> None:
+    kind, values = EVERY_PATH[path]
+    base = base_for(kind)
+    prep = prepared({"base": base, "grid": {path: values}})
+    _, chunk = all_scenarios(prep)
+    summary, rows = run(prep)
+    assert summary["scenarios"] == len(rows) == len(values)
+    carbon = []
+    for s, value in enumerate(values):
+        single = evaluate_campaign(CATALOG, *request_with(base, {path: value}).to_domain())
+        carbon.append([float(np.asarray(o.energy.kgco2e).reshape(-1)[0]) for o in single.options])
+        assert [o.label for o in single.options] == chunk.labels
+        for k, option in enumerate(single.options):
+            feasible = bool(np.asarray(option.feasible).reshape(-1)[0])
+            assert feasible == bool(np.isfinite(chunk.totals[k, s])), (path, value, option.label)
+            if feasible:
+                expected = float(np.asarray(option.total).reshape(-1)[0])
+                assert chunk.totals[k, s] == pytest.approx(expected, rel=1e-9, abs=0.0), (path, value, option.label)
+    if path == "overrides.grid_kgco2e_per_kwh":  # moves the carbon of owned sites, not their cost
+        assert np.array_equal(chunk.totals[:, 0], chunk.totals[:, 1], equal_nan=True)
+        assert carbon[0] != carbon[1]
+    else:  # the two values change at least one option's total or feasibility, or the path would do nothing
+        assert not np.array_equal(chunk.totals[:, 0], chunk.totals[:, 1], equal_nan=True), path
 
 
 def test_grid_scenarios_enumerate_every_combination_last_path_fastest() -> None:

@@ -1,0 +1,293 @@
+"""Sweep benchmark: a standalone script, not a test. Run it from the repository root:
+
+    .venv/bin/python tests/benchmarks/bench_sweeps.py [--quick]
+
+Every figure is measured in this one run, on one core (the BLAS/OpenMP pools are limited to one
+thread before numpy loads, and CPU time of this process is what the rates divide by):
+
+1. Core: scenarios per second of the vectorised evaluation (`evaluate_chunk` on one chunk of
+   20,000 Monte Carlo scenarios) against a per-scenario scalar evaluation of the same model
+   (`evaluate_campaign` once per scenario, 200 scenarios), on a 10-venue catalog built from the
+   demo one by copying its sites and offers under new ids. Targets: ratio ≥ 200×, rate ≥ 1,000,000
+   scenarios/s per core.
+2. End to end: `berth sweep` of 1,000,000 Monte Carlo scenarios of the demo sweep and catalog, as
+   a subprocess (target < 15 s), and the peak RSS of a 10,000,000-scenario sweep streamed as CSV
+   (target < 1.5 GB = 1.5e9 bytes). A run that would pass RUN_LIMIT_SECONDS is stopped, and its
+   full time is then an extrapolation from the rows it wrote, printed as such.
+
+It prints PASS or MISS per target and exits 0 whatever the figures. `--quick` shrinks the end-to-end
+runs (100,000 and 1,000,000 scenarios) to check the script itself; its figures are not the targets'.
+"""
+
+import os
+
+for _pool in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ[_pool] = "1"  # one core, also for the subprocesses, which inherit the environment
+
+import copy  # noqa: E402
+import json  # noqa: E402
+import shutil  # noqa: E402
+import signal  # noqa: E402
+import subprocess  # noqa: E402
+import sys  # noqa: E402
+import tempfile  # noqa: E402
+import time  # noqa: E402
+from pathlib import Path  # noqa: E402
+from typing import Any  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT))
+
+from service.api.schemas.catalog import CatalogIn  # noqa: E402
+from service.api.schemas.sweep import SweepIn  # noqa: E402
+from service.domain.evaluate import evaluate_campaign  # noqa: E402
+from service.domain.sweep import chunk_size, evaluate_chunk, scenario_chunks  # noqa: E402
+from service.domain.whatif import apply  # noqa: E402
+from service.sweeps import SweepLimits, prepare_sweep  # noqa: E402
+
+EXAMPLES = ROOT / "pricing_examples"
+DEMO_SWEEP = EXAMPLES / "sweep-electricity-and-utilisation.json"
+DEMO_CATALOG = EXAMPLES / "catalog.json"
+
+VECTOR_SCENARIOS = 20_000
+SCALAR_SCENARIOS = 200
+TARGET_RATIO = 200.0
+TARGET_RATE = 1_000_000.0
+E2E_SCENARIOS = 1_000_000
+TARGET_E2E_SECONDS = 15.0
+CSV_SCENARIOS = 10_000_000
+TARGET_RSS_BYTES = 1.5e9
+RUN_LIMIT_SECONDS = 20 * 60
+PROGRESS_EVERY_SECONDS = 30.0
+
+results: list[tuple[str, bool, str]] = []
+
+
+def verdict(name: str, ok: bool, figure: str) -> None:
+    results.append((name, ok, figure))
+    print(f"  -> {'PASS' if ok else 'MISS'}: {name}: {figure}", flush=True)
+
+
+def load(path: Path) -> Any:
+    return json.loads(path.read_text(encoding="utf-8"))
+
+
+def ten_venue_catalog() -> dict[str, Any]:
+    """The demo catalog's 2 sites and 3 offers, plus a copy of each under a new id: 10 venues."""
+    catalog = load(DEMO_CATALOG)
+    extra_sites, extra_offers = [], []
+    for site in catalog["sites"]:
+        twin = copy.deepcopy(site)
+        twin["id"], twin["name"] = f"{site['id']}-twin", f"{site['name']} (twin)"
+        extra_sites.append(twin)
+    for offer in catalog["offers"]:
+        twin = copy.deepcopy(offer)
+        twin["id"] = f"{offer['id']}-twin"
+        extra_offers.append(twin)
+    catalog["sites"] += extra_sites
+    catalog["offers"] += extra_offers
+    catalog["name"] += "-ten-venues"
+    return catalog
+
+
+def timed(function: Any, repeats: int) -> tuple[float, float]:
+    """Best CPU seconds and best wall seconds over `repeats` calls."""
+    cpu, wall = [], []
+    for _ in range(repeats):
+        c0, w0 = time.process_time(), time.perf_counter()
+        function()
+        cpu.append(time.process_time() - c0)
+        wall.append(time.perf_counter() - w0)
+    return min(cpu), min(wall)
+
+
+def core_benchmark() -> None:
+    print("== 1. Core: vectorised evaluate_chunk against a per-scenario scalar loop", flush=True)
+    catalogs = (("10-venue catalog", ten_venue_catalog()), ("demo catalog, 5 venues", load(DEMO_CATALOG)))
+    for label, catalog_json in catalogs:
+        catalog_in = CatalogIn.model_validate(catalog_json)
+        venues = len(catalog_in.sites) + len(catalog_in.offers)
+        sweep = load(DEMO_SWEEP)
+        sweep["samples"] = VECTOR_SCENARIOS
+        prepared = prepare_sweep(catalog_in, SweepIn.model_validate(sweep), SweepLimits())
+        plan, catalog = prepared.plan, prepared.catalog
+        (_, inputs), = list(scenario_chunks(plan, VECTOR_SCENARIOS))
+        result = evaluate_chunk(catalog, plan, inputs)  # warm-up
+        vector_cpu, vector_wall = timed(lambda: evaluate_chunk(catalog, plan, inputs), 3)  # noqa: B023
+
+        service_chunk = chunk_size(catalog, plan.options)
+
+        def in_service_chunks() -> None:
+            for _, part in scenario_chunks(plan, service_chunk):  # noqa: B023
+                evaluate_chunk(catalog, plan, part)  # noqa: B023
+
+        chunked_cpu, _ = timed(in_service_chunks, 1)
+
+        def scalar_loop() -> None:
+            for s in range(SCALAR_SCENARIOS):
+                one = {path: float(values[s]) for path, values in inputs.items()}  # noqa: B023
+                campaign, overrides = apply(plan.campaign, plan.overrides, one)  # noqa: B023
+                evaluate_campaign(catalog, campaign, plan.options, overrides)  # noqa: B023
+
+        scalar_loop()  # warm-up
+        scalar_cpu, scalar_wall = timed(scalar_loop, 1)
+
+        vector_rate = VECTOR_SCENARIOS / vector_cpu
+        chunked_rate = VECTOR_SCENARIOS / chunked_cpu
+        scalar_rate = SCALAR_SCENARIOS / scalar_cpu
+        ratio = vector_rate / scalar_rate
+        print(f"  {label}: {venues} venues, {len(result.labels)} options, inputs varied: {', '.join(plan.paths)}")
+        print(f"    vectorised, one chunk of {VECTOR_SCENARIOS:,}: {vector_cpu:.3f} s CPU ({vector_wall:.3f} s wall)"
+              f" = {vector_rate:,.0f} scenarios/s per core")
+        print(f"    vectorised, the service's chunks of {service_chunk:,}: {chunked_cpu:.3f} s CPU"
+              f" = {chunked_rate:,.0f} scenarios/s per core")
+        print(f"    scalar loop, {SCALAR_SCENARIOS} scenarios one at a time: {scalar_cpu:.3f} s CPU"
+              f" ({scalar_wall:.3f} s wall) = {scalar_rate:,.1f} scenarios/s per core")
+        print(f"    ratio vectorised / scalar: {ratio:,.1f}x", flush=True)
+        if venues == 10:
+            verdict(f"vectorised / scalar ratio ≥ {TARGET_RATIO:.0f}x ({label})", ratio >= TARGET_RATIO,
+                    f"{ratio:,.1f}x")
+            verdict(f"vectorised rate ≥ {TARGET_RATE:,.0f} scenarios/s per core ({label})",
+                    vector_rate >= TARGET_RATE,
+                    f"{vector_rate:,.0f} scenarios/s per core ({vector_rate / TARGET_RATE:.4f} of the target)")
+
+
+def sweep_file(directory: Path, samples: int) -> Path:
+    sweep = load(DEMO_SWEEP)
+    sweep["samples"] = samples
+    path = directory / f"sweep-{samples}.json"
+    path.write_text(json.dumps(sweep), encoding="utf-8")
+    return path
+
+
+def berth(*args: str) -> list[str]:
+    return [sys.executable, "-m", "service.cli", *args]
+
+
+def stop(process: subprocess.Popen[bytes]) -> None:
+    """End the process group this script started (the command and, under /usr/bin/time, its child)."""
+    try:
+        os.killpg(process.pid, signal.SIGTERM)
+        process.wait(timeout=30)
+    except (ProcessLookupError, subprocess.TimeoutExpired):
+        os.killpg(process.pid, signal.SIGKILL)
+        process.wait()
+
+
+def end_to_end_json(directory: Path, scenarios: int) -> None:
+    print(f"== 2a. End to end: berth sweep of {scenarios:,} Monte Carlo scenarios (JSON summary)", flush=True)
+    path = sweep_file(directory, scenarios)
+    command = berth("sweep", str(path), "--catalog", str(DEMO_CATALOG), "--format", "json")
+    start = time.perf_counter()
+    process = subprocess.Popen(command, cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                               start_new_session=True)
+    next_report = start + PROGRESS_EVERY_SECONDS
+    while process.poll() is None:
+        time.sleep(0.05)
+        now = time.perf_counter()
+        if now >= next_report:
+            print(f"    ... {now - start:,.0f} s elapsed", flush=True)
+            next_report += PROGRESS_EVERY_SECONDS
+        if now - start > RUN_LIMIT_SECONDS:
+            stop(process)
+            print(f"    stopped after {RUN_LIMIT_SECONDS} s")
+            verdict(f"berth sweep of {scenarios:,} scenarios < {TARGET_E2E_SECONDS:.0f} s", False,
+                    f"did not finish in {RUN_LIMIT_SECONDS} s")
+            return
+    elapsed = time.perf_counter() - start
+    stdout, stderr = process.communicate()
+    if process.returncode != 0:
+        print(stderr.decode()[-2000:])
+        verdict(f"berth sweep of {scenarios:,} scenarios < {TARGET_E2E_SECONDS:.0f} s", False,
+                f"exit status {process.returncode}")
+        return
+    document = json.loads(stdout)
+    print(f"    {elapsed:.2f} s wall for {document['summary']['scenarios']:,} scenarios "
+          f"= {scenarios / elapsed:,.0f} scenarios/s end to end (process start included)")
+    verdict(f"berth sweep of {scenarios:,} scenarios < {TARGET_E2E_SECONDS:.0f} s", elapsed < TARGET_E2E_SECONDS,
+            f"{elapsed:.2f} s ({elapsed / TARGET_E2E_SECONDS:.2f} of the target time)")
+
+
+def end_to_end_csv(directory: Path, scenarios: int) -> None:
+    print(f"== 2b. Peak RSS: berth sweep of {scenarios:,} scenarios streamed as CSV (stdout read and discarded)",
+          flush=True)
+    path = sweep_file(directory, scenarios)
+    command = berth("sweep", str(path), "--catalog", str(DEMO_CATALOG), "--format", "csv")
+    time_tool = shutil.which("time", path="/usr/bin")
+    report = directory / "time-v.txt"
+    if time_tool:
+        command = [time_tool, "-v", "-o", str(report), *command]
+    print(f"    peak RSS from: {'/usr/bin/time -v' if time_tool else 'os.wait4 rusage of the child'}")
+    start = time.perf_counter()
+    process = subprocess.Popen(command, cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL,
+                               start_new_session=True)
+    assert process.stdout is not None
+    lines, next_report, stopped = 0, start + PROGRESS_EVERY_SECONDS, False
+    while True:
+        block = process.stdout.read1(1 << 20)
+        if not block:
+            break
+        lines += block.count(b"\n")
+        now = time.perf_counter()
+        if now >= next_report:
+            done = max(lines - 1, 0)
+            rate = done / (now - start)
+            print(f"    ... {now - start:,.0f} s: {done:,} rows ({done / scenarios:.1%}), {rate:,.0f} rows/s, "
+                  f"about {(scenarios - done) / max(rate, 1.0):,.0f} s to go", flush=True)
+            next_report += PROGRESS_EVERY_SECONDS
+        if now - start > RUN_LIMIT_SECONDS:
+            stopped = True
+            break
+    if stopped:
+        stop(process)
+        rusage = None
+    elif time_tool:
+        process.wait()
+        rusage = None
+    else:
+        _, status, rusage = os.wait4(process.pid, 0)
+        process.returncode = os.waitstatus_to_exitcode(status)
+    elapsed = time.perf_counter() - start
+    rows = max(lines - 1, 0)
+    peak = None
+    if time_tool and report.exists():
+        for line in report.read_text().splitlines():
+            if "Maximum resident set size" in line:
+                peak = int(line.split(":")[1]) * 1024
+    elif rusage is not None:
+        peak = rusage.ru_maxrss * 1024  # kilobytes on Linux
+    print(f"    {rows:,} rows in {elapsed:,.1f} s wall ({rows / elapsed:,.0f} rows/s), "
+          f"exit status {process.returncode}")
+    if stopped:
+        print(f"    STOPPED at the {RUN_LIMIT_SECONDS} s limit; EXTRAPOLATED full time at the same rate: "
+              f"{scenarios / max(rows, 1) * elapsed:,.0f} s (an extrapolation, not a measurement)")
+    if peak is None:
+        verdict(f"peak RSS of a {scenarios:,}-scenario CSV sweep < {TARGET_RSS_BYTES / 1e9:.1f} GB", False,
+                "no figure")
+        return
+    complete = rows == scenarios and process.returncode == 0
+    print(f"    peak RSS {peak / 1e6:,.0f} MB{'' if complete else ' (of an incomplete run)'}")
+    verdict(f"peak RSS of a {scenarios:,}-scenario CSV sweep < {TARGET_RSS_BYTES / 1e9:.1f} GB",
+            peak < TARGET_RSS_BYTES and complete,
+            f"{peak / 1e6:,.0f} MB ({peak / TARGET_RSS_BYTES:.3f} of the limit), {rows:,} of {scenarios:,} rows, "
+            f"{elapsed:,.0f} s")
+
+
+def main() -> None:
+    quick = "--quick" in sys.argv[1:]
+    print(f"python {sys.version.split()[0]}, numpy {np.__version__}, {os.cpu_count()} CPUs seen; "
+          "BLAS/OpenMP pools limited to 1 thread", flush=True)
+    core_benchmark()
+    with tempfile.TemporaryDirectory(prefix="bench-sweeps-") as scratch:
+        end_to_end_json(Path(scratch), E2E_SCENARIOS // 10 if quick else E2E_SCENARIOS)
+        end_to_end_csv(Path(scratch), CSV_SCENARIOS // 10 if quick else CSV_SCENARIOS)
+    print("== Summary" + (" (--quick: the end-to-end sizes are not the targets')" if quick else ""))
+    for name, ok, figure in results:
+        print(f"  {'PASS' if ok else 'MISS'}  {name}: {figure}")
+
+
+if __name__ == "__main__":
+    main()
+    sys.exit(0)

@@ -1,0 +1,111 @@
+"""`berth sweep`, run as a user runs it: a real process, real files; JSON with the summary, CSV
+that the standard library's csv module reads, and refusals that name their fields."""
+
+import csv
+import io
+import json
+import subprocess
+import sys
+from pathlib import Path
+from typing import Any
+
+from tests.conftest import EXAMPLES
+
+BERTH = [sys.executable, "-m", "service.cli"]
+CATALOG = str(EXAMPLES / "catalog.json")
+
+
+def berth(*args: str) -> subprocess.CompletedProcess[str]:
+    return subprocess.run([*BERTH, *args], capture_output=True, text=True, timeout=300, check=False)
+
+
+def write(tmp_path: Path, sweep: dict[str, Any], name: str = "sweep.json") -> str:
+    path = tmp_path / name
+    path.write_text(json.dumps(sweep), encoding="utf-8")
+    return str(path)
+
+
+def demo(samples: int) -> dict[str, Any]:
+    sweep: dict[str, Any] = json.loads((EXAMPLES / "sweep-electricity-and-utilisation.json").read_text())
+    sweep["samples"] = samples
+    return sweep
+
+
+def test_sweep_prints_json_with_a_summary_of_every_scenario() -> None:
+    result = berth("sweep", str(EXAMPLES / "sweep-electricity-and-utilisation.json"), "--catalog", CATALOG)
+    assert result.returncode == 0, result.stderr
+    document = json.loads(result.stdout)
+    summary = document["summary"]
+    assert document["scenarios"] == summary["scenarios"] == 20_000
+    assert document["currency"] == summary["currency"] == "EUR"
+    shares = sum(option["cheapest_share"] for option in summary["options"]) + summary["nothing_feasible_share"]
+    assert abs(shares - 1.0) < 1e-12  # every scenario has one cheapest option or none
+    assert 0.0 <= summary["probability_owning_beats_renting"] <= 1.0
+    assert document["rows_included"] is False and document["rows"] is None  # beyond 10,000 rows
+    assert [bar["input"] for bar in document["tornado"]] and "Traceback" not in result.stderr
+
+
+def test_sweep_csv_has_one_row_per_scenario(tmp_path: Path) -> None:
+    sweep = demo(3_000)
+    result = berth("sweep", write(tmp_path, sweep), "--catalog", CATALOG, "--format", "csv")
+    assert result.returncode == 0, result.stderr
+    reader = csv.DictReader(io.StringIO(result.stdout, newline=""))
+    records = list(reader)
+    header = reader.fieldnames or []
+    assert len(records) == 3_000
+    assert [r["scenario"] for r in records] == [str(k) for k in range(3_000)]
+    assert header[:5] == ["scenario", "overrides.electricity_price_per_kwh [EUR/kWh]",
+                          "overrides.utilisation_planned [fraction]", "overrides.rented_price_factor [factor]",
+                          "campaign.work.tokens [tokens]"]
+    assert header[5:7] == ["cheapest", "currency"]
+    assert all(name.endswith(" total") for name in header[7:]) and len(header) > 7
+    assert {r["currency"] for r in records} == {"EUR"}
+    # the drawn inputs respect the distributions' supports
+    prices = [float(r["overrides.electricity_price_per_kwh [EUR/kWh]"]) for r in records]
+    factors = [float(r["overrides.rented_price_factor [factor]"]) for r in records]
+    assert min(prices) >= 0.05 and max(prices) <= 0.30
+    assert min(factors) >= 0.7 and max(factors) <= 1.3
+    # the cheapest named in each row is the smallest total of that row
+    for record in records[:500]:
+        totals = {name.removesuffix(" total"): float(v) for name, v in record.items() if name.endswith(" total") and v}
+        assert record["cheapest"] == min(totals, key=lambda label: totals[label])
+
+
+def test_the_json_summary_and_the_csv_rows_agree(tmp_path: Path) -> None:
+    path = write(tmp_path, demo(500))
+    document = json.loads(berth("sweep", path, "--catalog", CATALOG).stdout)
+    records = list(csv.DictReader(io.StringIO(berth("sweep", path, "--catalog", CATALOG, "--format", "csv").stdout,
+                                              newline="")))
+    assert len(records) == len(document["rows"]) == 500
+    for record, row in zip(records, document["rows"], strict=True):
+        assert record["cheapest"] == (row["cheapest"] or "")
+        for label, amount in row["totals"].items():
+            assert (record[f"{label} total"] == "") if amount is None else float(record[f"{label} total"]) == amount
+    for option in document["summary"]["options"]:
+        shares = sum(1 for r in records if r["cheapest"] == option["option"]) / 500
+        assert option["cheapest_share"] == shares
+
+
+def test_bad_input_exits_2_with_field_messages_and_no_traceback(tmp_path: Path) -> None:
+    sweep = demo(10)
+    sweep["distributions"]["overrides.sunshine"] = {"kind": "uniform", "low": 0, "high": 1}
+    sweep["distributions"]["campaign.work.tokens"] = {"kind": "normal", "mean": 2e11, "sd": 1e10}
+    result = berth("sweep", write(tmp_path, sweep), "--catalog", CATALOG)
+    assert result.returncode == 2
+    assert "distributions.overrides.sunshine" in result.stderr
+    assert "distributions.campaign.work.tokens" in result.stderr
+    assert "Traceback" not in result.stderr and result.stdout == ""
+
+    schema = demo(10)
+    schema["samples"] = 0
+    schema["grid"] = {"overrides.pue": [1.2]}
+    result = berth("sweep", write(tmp_path, schema, "schema.json"), "--catalog", CATALOG, "--format", "csv")
+    assert result.returncode == 2
+    assert "samples" in result.stderr and "Traceback" not in result.stderr and result.stdout == ""
+
+
+def test_a_sweep_over_the_limit_exits_2_naming_the_limit(tmp_path: Path) -> None:
+    result = berth("sweep", write(tmp_path, demo(10_000_001)), "--catalog", CATALOG)
+    assert result.returncode == 2
+    assert "10,000,000" in result.stderr and "samples" in result.stderr
+    assert "Traceback" not in result.stderr
