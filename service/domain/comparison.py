@@ -1,7 +1,7 @@
 """Comparing options: ranking, break-even of every owned site against every rented price, and
 the chargeback curves (model.md §8-9). Vectorised over scenarios."""
 
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 
 import numpy as np
 
@@ -81,20 +81,28 @@ def breakeven_rows(evaluation: CampaignEvaluation) -> list[BreakEvenRow]:
         campaign_hours = reference.layout.accelerator_hours if reference else np.asarray(np.nan)
         new_nodes = new_build.layout.nodes if new_build else np.asarray(1.0)
         fleet = np.asarray(float(s.nodes_owned)) if s.nodes_owned else new_nodes
-        for option in rented:
-            price = rented_price_in_site_hours(option, campaign_hours)
-            figures = break_even(
-                fixed_per_node_month=site.node.total, running_per_node_month=site.node.running,
-                capex_per_node=site.economics.capex_per_node, accelerators_per_node=per_node,
-                variable_per_accelerator_hour=site.variable_per_accelerator_hour,
-                rented_per_accelerator_hour=price, fleet_nodes=fleet,
-                campaign_accelerator_hours=campaign_hours,
-                demand_hours_per_year=campaign_hours * evaluation.instances_per_year,
-                new_nodes=new_nodes, depreciation_months=float(s.depreciation_months))
+        if not rented:
+            continue
+        # Every rented option against this site at once: (rented options, scenarios).
+        prices = np.stack(np.broadcast_arrays(*(rented_price_in_site_hours(o, campaign_hours) for o in rented)))
+        figures = break_even(
+            fixed_per_node_month=site.node.total, running_per_node_month=site.node.running,
+            capex_per_node=site.economics.capex_per_node, accelerators_per_node=per_node,
+            variable_per_accelerator_hour=site.variable_per_accelerator_hour,
+            rented_per_accelerator_hour=prices, fleet_nodes=fleet,
+            campaign_accelerator_hours=campaign_hours,
+            demand_hours_per_year=campaign_hours * evaluation.instances_per_year,
+            new_nodes=new_nodes, depreciation_months=float(s.depreciation_months))
+        for r, option in enumerate(rented):
             rows.append(BreakEvenRow(site_id, option.venue_id, option.term, listed_rented_price(option),
-                                     price, site.node.total,
-                                     site.variable_per_accelerator_hour, figures))
+                                     prices[r], site.node.total, site.variable_per_accelerator_hour,
+                                     _row(figures, r, prices.shape)))
     return rows
+
+
+def _row(figures: BreakEven, r: int, shape: tuple[int, ...]) -> BreakEven:
+    """One rented option's figures out of a stacked evaluation."""
+    return BreakEven(**{f.name: np.broadcast_to(getattr(figures, f.name), shape)[r] for f in fields(figures)})
 
 
 def curves(evaluation: CampaignEvaluation) -> dict[str, Floats]:
