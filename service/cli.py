@@ -35,6 +35,8 @@ err = Console(stderr=True)
 class QuoteFormat(StrEnum):
     table = "table"
     json = "json"
+    html = "html"
+    csv = "csv"
 
 
 def _fail(error: BerthError) -> None:
@@ -48,7 +50,8 @@ def _fail(error: BerthError) -> None:
 def quote_command(
     request_path: Annotated[Path, typer.Argument(metavar="REQUEST.json", help="the quote request")],
     catalog: Annotated[Path | None, typer.Option(help="catalog file (default: the demo catalog)")] = None,
-    output: Annotated[QuoteFormat, typer.Option("--format", help="table or json")] = QuoteFormat.table,
+    output: Annotated[QuoteFormat, typer.Option("--format", help="table, json, html (the report) or csv (the options)")]
+    = QuoteFormat.table,
 ) -> None:
     """Quote one campaign offline, against a catalog file."""
     catalog_path = catalog or Settings().demo_catalog
@@ -62,6 +65,14 @@ def quote_command(
     document = envelope(body, catalog=catalog_in, quote_id=None, catalog_id=None, created_at=datetime.now(UTC))
     if output is QuoteFormat.json:
         sys.stdout.write(json.dumps(document, indent=2, ensure_ascii=False) + "\n")
+    elif output is QuoteFormat.html:
+        from service.reports import render_report
+
+        sys.stdout.write(render_report(document))
+    elif output is QuoteFormat.csv:
+        from service.reports import options_csv
+
+        sys.stdout.writelines(options_csv(document))
     else:
         print_quote(out, document)
 
@@ -189,8 +200,7 @@ def migrate(database: Annotated[str | None, typer.Option(help="database URL (BER
     from service.storage.engine import build_engine
     from service.storage.migrate import head_revision, upgrade
 
-    settings = Settings(**({} if database is None else {"database_url": database}))
-    engine = build_engine(settings.database_url)
+    engine = build_engine(database or Settings().database_url)
     try:
         upgrade(engine)
     finally:

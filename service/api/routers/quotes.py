@@ -1,16 +1,18 @@
-"""Quotes: create (stored, idempotent with a key), list, read, recompute."""
+"""Quotes: create (stored, idempotent with a key), list, read, recompute; the report, break-even
+chart and options CSV of a stored quote."""
 
 from datetime import datetime
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Header, Query
-from fastapi.responses import JSONResponse
+from fastapi.responses import HTMLResponse, JSONResponse, Response, StreamingResponse
 
 from service.api.deps import CallerDep, CatalogsDep, NowDep, RawBodyDep, StorageDep
 from service.api.problems import PROBLEM, PROBLEM_RESPONSES
 from service.api.schemas.quote import QuoteOut, QuotePage, Recomputation
 from service.api.schemas.request import QuoteRequestIn
 from service.errors import FieldProblem, InvalidInput
+from service.reports import breakeven_svg, options_csv, render_report
 from service.storage.repository import StoredQuote
 from service.use_cases import body_fingerprint, create_quote, get_quote, recompute_quote
 
@@ -75,6 +77,31 @@ def list_quotes(
 def read_quote(quote_id: str, storage: StorageDep) -> JSONResponse:
     """One stored quote, exactly as it was returned when created."""
     return JSONResponse(get_quote(storage, quote_id).response)
+
+
+@router.get("/{quote_id}/report", response_class=HTMLResponse, responses={
+    200: {"content": {"text/html": {}}, "description": "a self-contained, printable HTML page"}, **PROBLEM_RESPONSES})
+def quote_report(quote_id: str, storage: StorageDep) -> HTMLResponse:
+    """The report for people: recommendation, options and cost lines, timing, energy, break-even
+    chart, residency screen, assumptions with sources and cautions, from the stored quote alone."""
+    return HTMLResponse(render_report(get_quote(storage, quote_id).response))
+
+
+@router.get("/{quote_id}/breakeven.svg", response_class=Response, responses={
+    200: {"content": {"image/svg+xml": {}}, "description": "the break-even chart"}, **PROBLEM_RESPONSES})
+def quote_breakeven_svg(quote_id: str, storage: StorageDep) -> Response:
+    """Owned cost per used accelerator-hour against utilisation for each owned site, the rented
+    prices, and the break-even points (`<g id="breakeven-<site>-<offer>-<term>" data-utilisation>`)."""
+    return Response(breakeven_svg(get_quote(storage, quote_id).response), media_type="image/svg+xml")
+
+
+@router.get("/{quote_id}/options.csv", response_class=StreamingResponse, responses={
+    200: {"content": {"text/csv": {}}, "description": "one row per placement option"}, **PROBLEM_RESPONSES})
+def quote_options_csv(quote_id: str, storage: StorageDep) -> StreamingResponse:
+    """One row per placement option, for spreadsheets (RFC 4180, units in the column names)."""
+    document = get_quote(storage, quote_id).response
+    return StreamingResponse(options_csv(document), media_type="text/csv; charset=utf-8",
+                             headers={"Content-Disposition": f'attachment; filename="{quote_id}-options.csv"'})
 
 
 @router.post("/{quote_id}/recompute", response_model=Recomputation, responses=PROBLEM_RESPONSES)

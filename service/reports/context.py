@@ -1,0 +1,224 @@
+"""What the report template shows, prepared from the stored quote document: every figure as a
+`Cell` with the text people read and the exact number from the quote (rendered as
+`<data value="...">`, so the page can be checked against the quote)."""
+
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from typing import Any
+
+from service.reports.campaign_text import campaign_facts, residency_rows, residency_rule
+from service.reports.figures import (
+    category_labels,
+    category_of,
+    charted_options,
+    marker_of,
+    residency_ruled_out,
+    site_panels,
+)
+from service.reports.formatting import (
+    KIND_LABELS,
+    MISSING,
+    fixed,
+    item_label,
+    jurisdiction_label,
+    money,
+    money_precise,
+    number,
+    percent,
+    plain,
+    term_label,
+)
+
+Json = dict[str, Any]
+
+
+@dataclass(frozen=True)
+class Cell:
+    text: str
+    value: str = ""  # the quote's number, plain; empty when there is none
+
+    def __str__(self) -> str:
+        return self.text
+
+
+def cell(value: float | None, text: str) -> Cell:
+    return Cell(text, plain(value) if value is not None else "")
+
+
+def moment(value: object) -> str:
+    """An ISO 8601 time as people read it: '2027-01-04 09:00 UTC'."""
+    if not value:
+        return MISSING
+    try:
+        when = datetime.fromisoformat(str(value).replace("Z", "+00:00"))
+    except ValueError:
+        return str(value)
+    if when.utcoffset() is not None:
+        when = when.astimezone(UTC)
+    return when.strftime("%Y-%m-%d %H:%M") + (" UTC" if when.tzinfo is not None else "")
+
+
+def _option_name(option: Json) -> Json:
+    venue = option["venue"]
+    return {"venue": venue["id"], "kind": KIND_LABELS.get(venue["kind"], venue["kind"]),
+            "term": term_label(option["term"]), "term_code": option["term"],
+            "jurisdiction": jurisdiction_label(venue["jurisdiction"]), "rank": option["rank"],
+            "feasible": option["feasible"]}
+
+
+def _option_row(option: Json, currency: str) -> Json:
+    cost, timing, layout = option["cost"], option["timing"], option["layout"]
+    return {
+        **_option_name(option),
+        "reasons": option["reasons"],
+        "accelerators": cell(layout["accelerators"], number(layout["accelerators"])),
+        "days": cell(timing["wall_clock_days"], fixed(timing["wall_clock_days"], 1)),
+        "total": cell(cost["total"], money(cost["total"], currency)),
+        "per_hour": cell(cost["per_accelerator_hour"], money(cost["per_accelerator_hour"], currency)),
+        "kgco2e": cell(option["energy"]["kgco2e"], number(option["energy"]["kgco2e"])),
+    }
+
+
+def _breakdown(option: Json, currency: str) -> Json:
+    labels = dict(category_labels())
+    lines = [{"item": item_label(line["item"]), "category": labels[category_of(line["item"])],
+              "amount": cell(line["amount"], money(line["amount"], currency)), "basis": line["basis"]}
+             for line in option["cost"]["lines"]]
+    parts = [{"venue": p["venue"]["id"], "term": term_label(p["term"]), "runs": number(p["runs"]),
+              "accelerators": number(p["accelerators"]), "days": fixed(p["wall_clock_days"], 1),
+              "total": cell(p["total"], money(p["total"], currency))} for p in option.get("parts", [])]
+    return {**_option_name(option), "lines": lines, "parts": parts,
+            "total": cell(option["cost"]["total"], money(option["cost"]["total"], currency))}
+
+
+def _engineering(option: Json) -> Json:
+    t, e, layout = option["timing"], option["energy"], option["layout"]
+    strategy = layout["strategy"] + (f", {number(layout['shards'])} shards" if layout["strategy"] == "sharded" else "")
+    return {
+        **_option_name(option),
+        "nodes": cell(layout["nodes"], number(layout["nodes"])),
+        "accelerators": cell(layout["accelerators"], number(layout["accelerators"])),
+        "strategy": strategy,
+        "step_seconds": cell(t["step_seconds"], fixed(t["step_seconds"], 2)),
+        "scaling_efficiency": cell(t["scaling_efficiency"], percent(t["scaling_efficiency"])),
+        "exposed": cell(t["exposed_communication_fraction"], percent(t["exposed_communication_fraction"])),
+        "network_gbps": cell(t["network_gbps_needed_for_95pct"], fixed(t["network_gbps_needed_for_95pct"], 1)),
+        "failure_overhead": cell(t["failure_overhead_fraction"], percent(t["failure_overhead_fraction"], 2)),
+        "checkpoint_hours": cell(t["checkpoint_interval_hours"], fixed(t["checkpoint_interval_hours"], 1)),
+        "staging_days": cell(t.get("data_staging_days"), fixed(t.get("data_staging_days"), 2)),
+        "days": cell(t["wall_clock_days"], fixed(t["wall_clock_days"], 1)),
+        "accelerator_hours": cell(t["accelerator_hours"], number(t["accelerator_hours"])),
+        "it_kwh": cell(e["it_kwh"], number(e["it_kwh"])),
+        "facility_kwh": cell(e["facility_kwh"], number(e["facility_kwh"])),
+        "peak_it_kw": cell(e["peak_it_kw"], fixed(e["peak_it_kw"], 1)),
+        "cooling_kw": cell(e["cooling_kw_thermal"], fixed(e["cooling_kw_thermal"], 1)),
+        "cooling_tons": cell(e["cooling_tons"], fixed(e["cooling_tons"], 1)),
+        "kgco2e": cell(e["kgco2e"], number(e["kgco2e"])),
+    }
+
+
+class Footnotes:
+    """Notes shared by many rows, numbered once and cited by number."""
+
+    def __init__(self) -> None:
+        self.texts: list[str] = []
+
+    def cite(self, text: str | None) -> int | None:
+        if not text:
+            return None
+        if text not in self.texts:
+            self.texts.append(text)
+        return self.texts.index(text) + 1
+
+
+COMMITTED_NOTE = "Committed hours are paid whether used or not; compared here at full use of the commitment."
+
+
+def _breakeven_rows(document: Json, currency: str, notes: Footnotes) -> list[Json]:
+    charted = {line.key for panel in site_panels(document) for line in panel.lines}
+    blocked = residency_ruled_out(document)
+    rows = []
+    for r in document["breakeven"]:
+        key = f"{r['site']}-{r['offer']}-{r['term']}"
+        u = r["utilisation"]
+        rows.append({
+            "site": r["site"], "offer": r["offer"], "term": term_label(r["term"]), "key": key,
+            "charted": key in charted, "offer_ruled_out": r["offer"] in blocked,
+            "glyph": marker_of(r["term"])[1],
+            "term_note": notes.cite(COMMITTED_NOTE if COMMITTED_NOTE in (r.get("note") or "") else None),
+            "rented": cell(r["rented_per_accelerator_hour"], money(r["rented_per_accelerator_hour"], currency)),
+            "fixed": cell(r["owned_fixed_per_month"], money(r["owned_fixed_per_month"], currency)),
+            "variable": cell(r["owned_variable_per_accelerator_hour"],
+                             money_precise(r["owned_variable_per_accelerator_hour"], currency)),
+            "utilisation": cell(u, percent(u, 2) if u is not None else "none"),
+            "utilisation_note": notes.cite(r.get("reason")),
+            "hours_per_year": cell(r["accelerator_hours_per_year"], number(r["accelerator_hours_per_year"])),
+            "campaigns_per_year": cell(r["campaigns_per_year"], fixed(r["campaigns_per_year"], 1)),
+            "payback": cell(r["payback_months"], number(r["payback_months"]) if r["payback_months"] is not None
+                            else "none"),
+            "payback_note": notes.cite(r.get("payback_reason")),
+        })
+    return rows
+
+
+def _recommendation(document: Json, currency: str) -> Json | None:
+    chosen = document.get("recommendation")
+    if not chosen:
+        return None
+    option = document["options"][chosen["option_index"]]
+    row = _option_row(option, currency)
+    deadline = document["request"]["campaign"].get("deadline_days")
+    figures = [
+        ("Total cost", row["total"], ""),
+        ("Per accelerator-hour", row["per_hour"], ""),
+        ("Wall-clock days", row["days"], f"deadline {number(deadline, 1)}" if deadline else "no deadline"),
+        ("Accelerators", row["accelerators"], ""),
+        ("Facility energy", cell(option["energy"]["facility_kwh"], number(option["energy"]["facility_kwh"])), "kWh"),
+        ("Emissions", row["kgco2e"], "kg CO2e"),
+    ]
+    return {**row, "why": chosen["why"], "figures": figures}
+
+
+def _value(value: object) -> str:
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        return str(value)
+    return number(value, 6)
+
+
+def report_context(document: Json) -> Json:
+    currency = str(document["currency"])
+    request = document["request"]
+    options = document["options"]
+    feasible = [o for o in options if o["feasible"]]
+    engineering = feasible or options
+    charted, left_out = charted_options(document)
+    notes = Footnotes()
+    return {
+        "campaign_name": request["campaign"]["name"],
+        "team": request["campaign"]["team"],
+        "quote_id": document.get("id") or "offline (not stored)",
+        "created_at": moment(document.get("created_at")),
+        "catalog_id": document.get("catalog_id") or "catalog file",
+        "catalog_hash": str(document.get("catalog_hash") or "")[:12],
+        "model_version": document.get("model_version") or MISSING,
+        "currency": currency,
+        "recommendation": _recommendation(document, currency),
+        "next_steps": document.get("next_steps") or [],
+        "facts": campaign_facts(document),
+        "options": [_option_row(o, currency) for o in options],
+        "feasible_count": len(feasible),
+        "breakdowns": [_breakdown(o, currency) for o in feasible],
+        "engineering": [_engineering(o) for o in engineering],
+        "engineering_all": not feasible,
+        "charted_count": len(charted),
+        "charted_left_out": left_out,
+        "breakeven": _breakeven_rows(document, currency, notes),
+        "breakeven_notes": notes.texts,
+        "has_curves": bool(document.get("curves")),
+        "residency_rule": residency_rule(request["campaign"].get("data") or {}),
+        "residency": residency_rows(document),
+        "assumptions": [{"name": a["name"].replace("_", " "), "code": a["name"], "value": _value(a["value"]),
+                         "unit": a.get("unit") or "", "source": a.get("source") or ""}
+                        for a in document.get("assumptions", [])],
+        "cautions": document.get("cautions", []),
+    }

@@ -1,0 +1,123 @@
+"""How figures read in reports (conventions.md: babel for formatting, in reports only). Every
+function takes a number from the stored quote and returns text; None reads as an em dash."""
+
+import math
+from decimal import Decimal
+
+from babel import Locale
+from babel.numbers import format_compact_decimal, format_currency, format_decimal
+
+LOCALE = "en"
+MISSING = "—"
+
+TERM_LABELS = {
+    "owned_chargeback": "owned, chargeback",
+    "owned_new_build": "owned, new build",
+    "on_demand": "on demand",
+    "interruptible": "interruptible",
+    "split": "split, owned and rented",
+}
+SUPERSCRIPTS = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+KIND_LABELS = {"owned": "owned site", "rented": "rented offer", "split": "owned + rented"}
+
+
+def _finite(value: float | None) -> bool:
+    return value is not None and math.isfinite(value)
+
+
+def money(value: float | None, currency: str) -> str:
+    """An amount in the currency's own minor unit: 51129.83 EUR → '€51,129.83'."""
+    if value is None or not _finite(value):
+        return MISSING
+    return str(format_currency(value, currency, locale=LOCALE))
+
+
+def money_precise(value: float | None, currency: str, digits: int = 4) -> str:
+    """A small rate with more digits than the currency's minor unit: 0.0673 → '€0.0673'."""
+    if value is None or not _finite(value):
+        return MISSING
+    return str(format_currency(value, currency, locale=LOCALE, format="¤#,##0." + "0" * digits,
+                               currency_digits=False))
+
+
+def money_whole(value: float | None, currency: str) -> str:
+    """An amount rounded to whole units, for headline figures and chart labels: '€51,130'."""
+    if value is None or not _finite(value):
+        return MISSING
+    return str(format_currency(round(value), currency, locale=LOCALE, format="¤#,##0", currency_digits=False))
+
+
+def number(value: float | None, digits: int = 0) -> str:
+    """A grouped decimal with at most `digits` fraction digits: 15767.9 → '15,767.9'."""
+    if value is None or not _finite(value):
+        return MISSING
+    pattern = "#,##0" + ("." + "#" * digits if digits > 0 else "")
+    return str(format_decimal(value, format=pattern, locale=LOCALE))
+
+
+def fixed(value: float | None, digits: int) -> str:
+    """A grouped decimal with exactly `digits` fraction digits: 3.3 → '3.30'."""
+    if value is None or not _finite(value):
+        return MISSING
+    pattern = "#,##0" + ("." + "0" * digits if digits > 0 else "")
+    return str(format_decimal(value, format=pattern, locale=LOCALE))
+
+
+def percent(fraction: float | None, digits: int = 1) -> str:
+    """A fraction as a percentage: 0.5384 → '53.8%'."""
+    if fraction is None or not _finite(fraction):
+        return MISSING
+    return f"{fixed(fraction * 100, digits)}%"
+
+
+def words(value: float | None) -> str:
+    """A large count in words: 7e9 → '7 billion', 1.4e12 → '1.4 trillion'."""
+    if value is None or not _finite(value):
+        return MISSING
+    if abs(value) < 1e6:
+        return number(value, 2)
+    return str(format_compact_decimal(value, format_type="long", locale=LOCALE, fraction_digits=2))
+
+
+def scientific(value: float | None) -> str:
+    """A very large number as a power of ten: 1.085e22 → '1.09 × 10²²'."""
+    if value is None or not _finite(value) or value == 0:
+        return number(value)
+    exponent = math.floor(math.log10(abs(value)))
+    return f"{value / 10 ** exponent:.2f} × 10{str(exponent).translate(SUPERSCRIPTS)}"
+
+
+def plain(value: object) -> str:
+    """A value for a spreadsheet cell: decimals without exponent or grouping, empty when missing."""
+    if value is None:
+        return ""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, float):
+        if not math.isfinite(value):
+            return ""
+        text = format(Decimal(repr(value)), "f")
+        return text[:-2] if text.endswith(".0") else text
+    return str(value)
+
+
+def term_label(term: str) -> str:
+    """'committed_12m' → 'committed, 12 months'; unknown terms read with spaces for underscores."""
+    if term in TERM_LABELS:
+        return TERM_LABELS[term]
+    if term.startswith("committed_") and term.endswith("m") and term[10:-1].isdigit():
+        return f"committed, {int(term[10:-1])} months"
+    return term.replace("_", " ")
+
+
+def item_label(item: str) -> str:
+    """A cost line's item in words: 'idle_energy' → 'idle energy'; a split's venue prefix is kept."""
+    return item.replace("_", " ")
+
+
+def jurisdiction_label(code: str) -> str:
+    """'DE' → 'DE (Germany)'; a catalog group such as 'EEA' or a split's 'NO+FR' stays as given."""
+    if "+" in code:
+        return " + ".join(jurisdiction_label(part) for part in code.split("+"))
+    name = Locale.parse(LOCALE).territories.get(code) if len(code) == 2 and code.isalpha() else None
+    return f"{code} ({name})" if name else code

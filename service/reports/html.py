@@ -1,0 +1,52 @@
+"""The HTML report: one self-contained page (inline CSS and SVG, no script, no external asset),
+rendered by Jinja2 with autoescape from the stored quote document alone."""
+
+from functools import cache
+from typing import Any
+
+from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescape
+from markupsafe import Markup
+
+from service.reports.breakeven_chart import breakeven_figure_svg
+from service.reports.context import report_context
+from service.reports.cost_chart import cost_figure_svg
+
+Json = dict[str, Any]
+
+# The three cautions every report carries; a quote's own wording is kept when it says the same.
+CAUTIONS = (
+    ("vendor quote", "Planning estimate, not a vendor quote: the figures come from the catalog and the model's "
+                     "published methods, not from offers by any supplier."),
+    ("licensed engineers", "Power, cooling and electrical figures are for sizing discussions only and must be "
+                           "confirmed by licensed engineers under local codes."),
+    ("legal advice", "The residency result is a screen against the jurisdiction rules entered with the request, "
+                     "not legal advice."),
+)
+
+
+@cache
+def environment() -> Environment:
+    return Environment(
+        loader=PackageLoader("service.reports", "templates"),
+        autoescape=select_autoescape(enabled_extensions=("html",), default_for_string=True, default=True),
+        undefined=StrictUndefined,
+        trim_blocks=True,
+        lstrip_blocks=True,
+        keep_trailing_newline=True,
+    )
+
+
+def cautions(document: Json) -> list[str]:
+    given = [str(c) for c in document.get("cautions", [])]
+    missing = [text for phrase, text in CAUTIONS if not any(phrase in c for c in given)]
+    return given + missing
+
+
+def render_report(document: Json) -> str:
+    """The report page for a stored quote document (the JSON body of GET /v1/quotes/{id})."""
+    context = report_context(document)
+    context["cautions"] = cautions(document)
+    # Our own SVG, built by matplotlib from the quote's numbers; its text is escaped by the SVG writer.
+    context["cost_svg"] = Markup(cost_figure_svg(document))
+    context["breakeven_svg"] = Markup(breakeven_figure_svg(document))
+    return environment().get_template("report.html").render(context)

@@ -1,0 +1,94 @@
+"""Matplotlib figures to SVG that is byte-identical on every render (conventions.md: a fixed
+`svg.hashsalt` and no date in the metadata), accessible (`role="img"`, `<title>` and `<desc>` named
+by `aria-labelledby`), safe to inline beside other charts in one page (every generated id is
+prefixed), and carrying figures for machines as `data-*` attributes on named groups."""
+
+import io
+import re
+import threading
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
+from typing import Any
+from xml.sax.saxutils import escape, quoteattr
+
+import matplotlib
+from matplotlib.figure import Figure
+from matplotlib.typing import RcKeyType
+
+FONT = "DejaVu Sans"  # Debian fonts-dejavu-core; matplotlib measures with the same metrics
+STYLE: dict[RcKeyType, Any] = {
+    "svg.hashsalt": "berth-report-v1",
+    "svg.fonttype": "none",  # real <text>: selectable, searchable, read by screen readers
+    "font.family": "sans-serif",
+    "font.sans-serif": [FONT],
+    "font.size": 9.0,
+    "axes.titlesize": 10.0,
+    "axes.titleweight": "bold",
+    "axes.titlelocation": "left",
+    "axes.labelsize": 9.0,
+    "axes.edgecolor": "#5f6b77",
+    "axes.linewidth": 0.8,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "axes.grid": True,
+    "grid.color": "#d9dee3",
+    "grid.linewidth": 0.6,
+    "xtick.color": "#3b4652",
+    "ytick.color": "#3b4652",
+    "text.color": "#1d2733",
+    "axes.labelcolor": "#1d2733",
+    "hatch.linewidth": 0.7,
+    "legend.frameon": False,
+    "legend.fontsize": 8.5,
+}
+SVG_METADATA: dict[str, str | None] = {"Date": None, "Creator": "berth reports"}
+
+# Matplotlib keeps global state; one chart at a time per process keeps renders independent.
+_LOCK = threading.Lock()
+
+
+@contextmanager
+def chart_style() -> Iterator[None]:
+    """The report's chart style, applied while a figure is built and saved."""
+    with _LOCK, matplotlib.rc_context(STYLE):
+        yield
+
+
+_ID = re.compile(r'\bid="([^"]+)"')
+_URL = re.compile(r"url\(#([^)]+)\)")
+_HREF = re.compile(r'((?:xlink:)?href)="#([^"]+)"')
+
+
+def finish(figure: Figure, *, prefix: str, title: str, description: str,
+           groups: Mapping[str, Mapping[str, str]]) -> str:
+    """The figure as an `<svg>` element (no XML prolog, so it can be inlined in HTML or served
+    alone). `groups` maps the gids given to artists to the `data-*` attributes their group gets;
+    those gids are kept as they are and every other id is prefixed with `prefix`."""
+    buffer = io.StringIO()
+    figure.savefig(buffer, format="svg", metadata=SVG_METADATA)
+    text = buffer.getvalue()
+    text = text[text.index("<svg"):]
+
+    def own(name: str) -> str:
+        return name if name in groups else f"{prefix}-{name}"
+
+    text = _ID.sub(lambda m: f'id="{own(m.group(1))}"', text)
+    text = _URL.sub(lambda m: f"url(#{own(m.group(1))})", text)
+    text = _HREF.sub(lambda m: f'{m.group(1)}="#{own(m.group(2))}"', text)
+    for gid, attributes in groups.items():
+        marker = f'<g id="{gid}">'
+        if marker not in text:
+            raise ValueError(f"chart group {gid!r} was not drawn")
+        extra = "".join(f" data-{name}={quoteattr(value)}" for name, value in attributes.items())
+        text = text.replace(marker, f'<g id="{gid}"{extra}>', 1)
+    head_end = text.index(">") + 1
+    opening = text[:head_end - 1] + (f' role="img" aria-labelledby="{prefix}-title {prefix}-desc"'
+                                     f' class="chart" data-chart="{prefix}">')
+    heading = (f'\n <title id="{prefix}-title">{escape(title)}</title>'
+               f'\n <desc id="{prefix}-desc">{escape(description)}</desc>')
+    return opening + heading + text[head_end:]
+
+
+def standalone(svg: str) -> str:
+    """An `<svg>` element as a file of its own."""
+    return '<?xml version="1.0" encoding="utf-8" standalone="no"?>\n' + svg
