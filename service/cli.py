@@ -13,6 +13,7 @@ from typing import Annotated, Any
 import typer
 from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+from rich.table import Table
 
 from service.api.schemas.catalog import CatalogIn
 from service.api.schemas.request import QuoteRequestIn
@@ -26,6 +27,8 @@ app = typer.Typer(add_completion=False, no_args_is_help=True,
                   help="Where a training campaign should run, and what it will cost.")
 catalog_app = typer.Typer(no_args_is_help=True, help="Catalogs of hardware, sites and offers.")
 app.add_typer(catalog_app, name="catalog")
+keys_app = typer.Typer(no_args_is_help=True, help="API keys: a role (requester, analyst, admin) and a team each.")
+app.add_typer(keys_app, name="keys")
 
 # Tables are wide; piped output gets room instead of the 80 columns of a dumb terminal.
 out = Console(width=None if sys.stdout.isatty() else 150)
@@ -192,6 +195,70 @@ def serve(
     os.environ.setdefault("PROMETHEUS_MULTIPROC_DIR", tempfile.mkdtemp(prefix="berth-metrics-"))
     uvicorn.run("service.api.app:create_app", factory=True, host=settings.host, port=settings.port,
                 workers=workers, log_config=None)
+
+
+DatabaseOption = Annotated[str | None, typer.Option("--database", help="database URL (BERTH_DATABASE_URL)")]
+
+
+def _storage(database: str | None) -> Any:
+    from service.storage.engine import build_engine
+    from service.storage.migrate import upgrade
+    from service.storage.repository import Storage
+
+    storage = Storage(build_engine(database or Settings().database_url))
+    upgrade(storage.engine)
+    return storage
+
+
+class KeyRole(StrEnum):
+    requester = "requester"
+    analyst = "analyst"
+    admin = "admin"
+
+
+@keys_app.command("add")
+def keys_add(role: Annotated[KeyRole, typer.Option(help="what the key may do")],
+             team: Annotated[str, typer.Option(help="the team it acts for")],
+             database: DatabaseOption = None) -> None:
+    """Issue a key. It is printed once, on the last line, and only its sha256 is kept."""
+    from service.access import issue_key
+
+    try:
+        stored, key = issue_key(_storage(database), role=role.value, team=team, now=datetime.now(UTC))
+    except BerthError as error:
+        _fail(error)
+        return
+    err.print(f"issued {stored.id} ({stored.role}, team {stored.team}); store the key now, it is not shown again:",
+              highlight=False)
+    sys.stdout.write(key + "\n")
+
+
+@keys_app.command("list")
+def keys_list(database: DatabaseOption = None) -> None:
+    """Every key: id, prefix, role, team, created, revoked."""
+    from service.access import list_keys
+
+    table = Table(title="API keys", title_justify="left")
+    for header in ("id", "prefix", "role", "team", "created", "revoked"):
+        table.add_column(header)
+    for key in list_keys(_storage(database)):
+        table.add_row(key.id, key.prefix + "…", key.role, key.team, key.created_at.isoformat(timespec="seconds"),
+                      "" if key.revoked_at is None else key.revoked_at.isoformat(timespec="seconds"))
+    out.print(table)
+
+
+@keys_app.command("revoke")
+def keys_revoke(key_id: Annotated[str, typer.Argument(help="the key's id, from `berth keys list`")],
+                database: DatabaseOption = None) -> None:
+    """Revoke a key at once (running servers stop accepting it on its next use)."""
+    from service.access import revoke_key
+
+    try:
+        revoke_key(_storage(database), key_id, now=datetime.now(UTC))
+    except BerthError as error:
+        _fail(error)
+        return
+    out.print(f"revoked {key_id}", highlight=False)
 
 
 @app.command("migrate")

@@ -23,3 +23,5 @@ class Settings(BaseSettings):
     max_body_bytes: int = 1024 * 1024
     request_timeout_seconds: float = 30.0  # until a response starts; streamed CSV may run longer
     log_level: str = "INFO"
+    rate_limit_per_second: float = 10.0  # per API key, refilled continuously
+    rate_limit_burst: int = 60

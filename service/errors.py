@@ -4,6 +4,7 @@ each to an RFC 9457 problem and the command line to a message and exit status 2.
     BerthError
     ├── InvalidInput        a request or catalog failed validation; carries [{field, reason}]
     ├── NotFound            a catalog or quote id that does not exist (or is not yours)
+    ├── Forbidden           the caller's role or team may not do this
     └── Conflict            the request collides with another one (e.g. idempotency in flight)
 """
 
@@ -38,6 +39,11 @@ class InvalidInput(BerthError):
 class NotFound(BerthError):
     status = 404
     title = "Not found"
+
+
+class Forbidden(BerthError):
+    status = 403
+    title = "Forbidden"
 
 
 class Conflict(BerthError):

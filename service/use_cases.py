@@ -11,9 +11,10 @@ from typing import Any
 
 from sqlalchemy.exc import IntegrityError
 
+from service.access import LOCAL, Principal
 from service.api.schemas.catalog import CatalogIn
 from service.api.schemas.request import QuoteRequestIn
-from service.errors import Conflict, FieldProblem, InvalidInput, NotFound
+from service.errors import Conflict, FieldProblem, Forbidden, InvalidInput, NotFound
 from service.loading import parse_document, validate
 from service.quoting import catalog_hash, envelope, model_version, quote
 from service.storage.repository import Storage, StoredCatalog, StoredQuote, new_id
@@ -88,12 +89,15 @@ class QuoteOutcome:
 
 
 def create_quote(storage: Storage, catalogs: ParsedCatalogs, request: QuoteRequestIn, *, now: datetime,
-                 caller: str, idempotency_key: str | None, fingerprint: str) -> QuoteOutcome:
+                 caller: Principal, idempotency_key: str | None, fingerprint: str) -> QuoteOutcome:
     """Quote and store. With an Idempotency-Key: the same body replays the first answer, another
-    body is refused, and a retry while the first runs is told to wait."""
+    body is refused, and a retry while the first runs is told to wait. A requester files quotes for
+    its own team only."""
+    if caller.role == "requester" and request.campaign.team != caller.team:
+        raise Forbidden(f"this key files quotes for team {caller.team!r}, not {request.campaign.team!r}")
     if idempotency_key is not None:
         with storage.writing() as repository:
-            claim = repository.claim_key(caller=caller, key=idempotency_key, body_hash=fingerprint, now=now,
+            claim = repository.claim_key(caller=caller.key_id, key=idempotency_key, body_hash=fingerprint, now=now,
                                          lease=IDEMPOTENCY_LEASE, keep=IDEMPOTENCY_KEEP)
         if not claim.same_body:
             raise InvalidInput("this Idempotency-Key was used with a different request body")
@@ -102,11 +106,11 @@ def create_quote(storage: Storage, catalogs: ParsedCatalogs, request: QuoteReque
         if claim.state == "done" and claim.response is not None:
             return QuoteOutcome(claim.status_code or 201, claim.response, replayed=True)
     try:
-        outcome = _quote_and_store(storage, catalogs, request, now=now, caller=caller, key=idempotency_key)
+        outcome = _quote_and_store(storage, catalogs, request, now=now, caller=caller.key_id, key=idempotency_key)
     except Exception:
         if idempotency_key is not None:
             with storage.writing() as repository:
-                repository.release_key(caller=caller, key=idempotency_key)
+                repository.release_key(caller=caller.key_id, key=idempotency_key)
         raise
     return outcome
 
@@ -135,17 +139,36 @@ def _quote_and_store(storage: Storage, catalogs: ParsedCatalogs, request: QuoteR
     return QuoteOutcome(201, document)
 
 
-def get_quote(storage: Storage, quote_id: str) -> StoredQuote:
+def find_quotes(storage: Storage, viewer: Principal, *, team: str | None, campaign_name: str | None,
+                created_from: datetime | None, created_to: datetime | None, limit: int,
+                cursor: str | None) -> tuple[list[StoredQuote], str | None]:
+    """A page of stored quotes, newest first; a requester's filter is always its own team."""
+    for name, moment in (("created_from", created_from), ("created_to", created_to)):
+        if moment is not None and moment.tzinfo is None:
+            problem = FieldProblem(name, "give a UTC offset, e.g. 2027-01-01T00:00:00Z")
+            raise InvalidInput("times need a zone", [problem])
+    if viewer.role == "requester":
+        if team is not None and team != viewer.team:
+            return [], None  # another team's quotes are never revealed, not even as a refusal
+        team = viewer.team
+    with storage.reading() as repository:
+        return repository.quotes(limit=limit, cursor=cursor, team=team, campaign_name=campaign_name,
+                                 created_from=created_from, created_to=created_to)
+
+
+def get_quote(storage: Storage, quote_id: str, viewer: Principal = LOCAL) -> StoredQuote:
+    """A stored quote, if the viewer may see its team's quotes; another team's is simply not found."""
     with storage.reading() as repository:
         stored = repository.quote(quote_id)
-    if stored is None:
+    if stored is None or not viewer.sees_team(stored.team):
         raise NotFound(f"no quote {quote_id!r}")
     return stored
 
 
-def recompute_quote(storage: Storage, catalogs: ParsedCatalogs, quote_id: str) -> dict[str, Any]:
+def recompute_quote(storage: Storage, catalogs: ParsedCatalogs, quote_id: str,
+                    viewer: Principal = LOCAL) -> dict[str, Any]:
     """Recompute a stored quote from its stored request and catalog, and say what differs."""
-    stored = get_quote(storage, quote_id)
+    stored = get_quote(storage, quote_id, viewer)
     with storage.reading() as repository:
         stored_catalog = repository.catalog(stored.catalog_id)
     if stored_catalog is None:  # foreign keys make this unreachable, but say so plainly if it happens

@@ -12,6 +12,7 @@ from fastapi.openapi.utils import get_openapi
 
 from service import __version__
 from service.api import problems
+from service.api.auth import LocalMode, RateLimiter
 from service.api.deps import utc_now
 from service.api.examples import quote_request_examples
 from service.api.middleware import BodyLimit, RequestContext, TimeLimit
@@ -45,6 +46,9 @@ def prepare(app: FastAPI) -> None:
         loaded = load_demo_catalog(storage, settings.demo_catalog, now=app.state.clock())
         if loaded is not None:
             log.info("loaded the demo catalog %s as %s", loaded.name, loaded.id)
+    if app.state.local_mode.active():
+        log.warning("local mode: no API keys are configured, so berth answers loopback callers only; "
+                    "issue keys with `berth keys add --role ROLE --team TEAM`")
     resumed = app.state.sweeps.resume()
     if resumed:
         log.info("resumed %d unfinished sweeps", resumed)
@@ -66,6 +70,8 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     app.state.catalogs = ParsedCatalogs()
     app.state.clock = clock
     app.state.sweeps = SweepRunner(app.state.storage, app.state.catalogs, clock)
+    app.state.local_mode = LocalMode(app.state.storage)
+    app.state.rate_limiter = RateLimiter(per_second=settings.rate_limit_per_second, burst=settings.rate_limit_burst)
     problems.install(app)
     install_metrics(app)
     # Outermost first: every response carries a request id, then time and size limits apply.

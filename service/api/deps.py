@@ -25,11 +25,6 @@ def _now(request: Request) -> datetime:
     return clock()
 
 
-def _caller(_request: Request) -> str:
-    # Until API keys exist every caller is the local one; keys will name callers.
-    return "local"
-
-
 async def _raw_body(request: Request) -> bytes:
     return await request.body()
 
@@ -37,7 +32,6 @@ async def _raw_body(request: Request) -> bytes:
 StorageDep = Annotated[Storage, Depends(_storage)]
 CatalogsDep = Annotated[ParsedCatalogs, Depends(_catalogs)]
 NowDep = Annotated[datetime, Depends(_now)]
-CallerDep = Annotated[str, Depends(_caller)]
 RawBodyDep = Annotated[bytes, Depends(_raw_body)]
 
 

@@ -17,7 +17,7 @@ from sqlmodel import Session, col, select
 
 from service.errors import FieldProblem, InvalidInput
 from service.storage.engine import READ_ONLY
-from service.storage.tables import CatalogRow, FleetPlanRow, IdempotencyRow, QuoteRow, SweepRow
+from service.storage.tables import ApiKeyRow, CatalogRow, FleetPlanRow, IdempotencyRow, QuoteRow, SweepRow
 
 
 def utc(moment: datetime) -> datetime:
@@ -71,6 +71,21 @@ def _sweep(row: SweepRow) -> StoredSweep:
     finished = None if row.finished_at is None else utc(row.finished_at)
     return StoredSweep(row.id, utc(row.created_at), row.catalog_id, row.status, row.scenarios_total,
                        row.scenarios_done, json.loads(row.request), result, row.error, finished)
+
+
+@dataclass(frozen=True)
+class StoredKey:
+    id: str
+    prefix: str
+    role: str
+    team: str
+    created_at: datetime
+    revoked_at: datetime | None
+
+
+def _key(row: ApiKeyRow) -> StoredKey:
+    return StoredKey(row.id, row.prefix, row.role, row.team, utc(row.created_at),
+                     None if row.revoked_at is None else utc(row.revoked_at))
 
 
 @dataclass(frozen=True)
@@ -287,6 +302,34 @@ class Repository:
 
     def quotes_by_id(self, ids: list[str]) -> list[StoredQuote | None]:
         return [self.quote(i) for i in ids]
+
+    # API keys
+    def add_key(self, *, key_id: str, key_hash: str, prefix: str, role: str, team: str, now: datetime) -> StoredKey:
+        row = ApiKeyRow(id=key_id, key_hash=key_hash, prefix=prefix, role=role, team=team, created_at=now)
+        self.session.add(row)
+        self.session.flush()
+        return _key(row)
+
+    def keys_by_prefix(self, prefix: str) -> list[tuple[StoredKey, str]]:
+        """Keys sharing a public prefix, each with its stored hash, for a constant-time comparison."""
+        rows = self.session.exec(select(ApiKeyRow).where(ApiKeyRow.prefix == prefix)).all()
+        return [(_key(row), row.key_hash) for row in rows]
+
+    def keys(self) -> list[StoredKey]:
+        return [_key(r) for r in self.session.exec(select(ApiKeyRow).order_by(col(ApiKeyRow.created_at))).all()]
+
+    def active_key_count(self) -> int:
+        query = select(func.count()).select_from(ApiKeyRow).where(col(ApiKeyRow.revoked_at).is_(None))
+        return int(self.session.exec(query).one())
+
+    def revoke_key(self, key_id: str, *, now: datetime) -> bool:
+        row = self.session.get(ApiKeyRow, key_id)
+        if row is None or row.revoked_at is not None:
+            return False
+        row.revoked_at = now
+        self.session.add(row)
+        self.session.flush()
+        return True
 
     def ping(self) -> None:
         self.session.execute(text("SELECT 1"))

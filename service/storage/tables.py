@@ -82,3 +82,17 @@ class FleetPlanRow(SQLModel, table=True):
     catalog_id: str = Field(foreign_key="catalog.id", max_length=40)
     request: str = Field(sa_column=Column(Text, nullable=False))
     response: str = Field(sa_column=Column(Text, nullable=False))
+
+
+class ApiKeyRow(SQLModel, table=True):
+    """An API key, stored only as the sha256 of the key itself, with the role and team it acts for."""
+
+    __tablename__ = "api_key"
+
+    id: str = Field(primary_key=True, max_length=40)
+    key_hash: str = Field(max_length=64, unique=True)
+    prefix: str = Field(max_length=16, index=True)  # the key's first characters: public, to find it by
+    role: str = Field(max_length=16)
+    team: str = Field(max_length=100)
+    created_at: datetime = Field(sa_column=_utc_column())
+    revoked_at: datetime | None = Field(default=None, sa_column=Column(DateTime(timezone=True), nullable=True))

@@ -5,6 +5,7 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Query, Request
 from fastapi.responses import JSONResponse
 
+from service.api.auth import Admin, AnyKey
 from service.api.deps import NowDep, RawBodyDep, StorageDep
 from service.api.problems import PROBLEM_RESPONSES
 from service.api.schemas.catalog import CatalogIn
@@ -37,7 +38,7 @@ def catalog_out(stored: StoredCatalog, *, with_content: bool) -> dict[str, Any]:
         "application/json": {"schema": {"$ref": "#/components/schemas/CatalogIn"}},
         "application/yaml": {"schema": {"$ref": "#/components/schemas/CatalogIn"}}}}},
 )
-def create_catalog(request: Request, body: RawBodyDep, storage: StorageDep, now: NowDep) -> JSONResponse:
+def create_catalog(request: Request, body: RawBodyDep, storage: StorageDep, now: NowDep, _admin: Admin) -> JSONResponse:
     """Upload a catalog (JSON, or YAML with a YAML content type). Identical content returns the
     catalog already stored, with 200."""
     if not body.strip():
@@ -51,7 +52,7 @@ def create_catalog(request: Request, body: RawBodyDep, storage: StorageDep, now:
 
 
 @router.get("", response_model=CatalogPage)
-def list_catalogs(storage: StorageDep, limit: Annotated[int, Query(ge=1, le=200)] = 50,
+def list_catalogs(storage: StorageDep, _viewer: AnyKey, limit: Annotated[int, Query(ge=1, le=200)] = 50,
                   cursor: Annotated[str | None, Query(max_length=200)] = None) -> dict[str, Any]:
     """Catalogs, newest first."""
     with storage.reading() as repository:
@@ -60,7 +61,7 @@ def list_catalogs(storage: StorageDep, limit: Annotated[int, Query(ge=1, le=200)
 
 
 @router.get("/{catalog_id}", response_model=CatalogOut, responses=PROBLEM_RESPONSES)
-def read_catalog(catalog_id: str, storage: StorageDep) -> dict[str, Any]:
+def read_catalog(catalog_id: str, storage: StorageDep, _viewer: AnyKey) -> dict[str, Any]:
     """One catalog with its content."""
     with storage.reading() as repository:
         stored = repository.catalog(catalog_id)

@@ -5,6 +5,7 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Depends, Request
 from fastapi.responses import JSONResponse
 
+from service.api.auth import Analyst
 from service.api.deps import CatalogsDep, NowDep, StorageDep
 from service.api.problems import PROBLEM_RESPONSES
 from service.api.schemas.fleet import FleetPlanIn
@@ -24,7 +25,7 @@ SettingsDep = Annotated[Settings, Depends(_settings)]
 
 @router.post("", status_code=201, responses=PROBLEM_RESPONSES)
 def post_fleet_plan(payload: FleetPlanIn, storage: StorageDep, catalogs: CatalogsDep, now: NowDep,
-                    settings: SettingsDep) -> JSONResponse:
+                    settings: SettingsDep, _analyst: Analyst) -> JSONResponse:
     """Every candidate fleet size against every demand sample and month at once: present cost
     percentiles per size, the best size, the chance it beats renting everything, and its months."""
     document = create_fleet_plan(storage, catalogs, payload, now=now,
@@ -33,6 +34,6 @@ def post_fleet_plan(payload: FleetPlanIn, storage: StorageDep, catalogs: Catalog
 
 
 @router.get("/{plan_id}", responses=PROBLEM_RESPONSES)
-def read_fleet_plan(plan_id: str, storage: StorageDep) -> dict[str, Any]:
+def read_fleet_plan(plan_id: str, storage: StorageDep, _analyst: Analyst) -> dict[str, Any]:
     """A stored fleet plan, as it was returned."""
     return get_fleet_plan(storage, plan_id)

@@ -1,6 +1,6 @@
 """Liveness and readiness: outside any auth and limits."""
 
-from fastapi import APIRouter
+from fastapi import APIRouter, Request
 from fastapi.responses import JSONResponse
 
 from service.api.deps import StorageDep
@@ -16,7 +16,7 @@ def healthz() -> dict[str, str]:
 
 
 @router.get("/readyz", responses={503: {"description": "database unreachable or schema not at head"}})
-def readyz(storage: StorageDep) -> JSONResponse:
+def readyz(storage: StorageDep, request: Request) -> JSONResponse:
     """Readiness: the database answers and its schema is at the newest migration."""
     checks: dict[str, str] = {}
     try:
@@ -27,5 +27,9 @@ def readyz(storage: StorageDep) -> JSONResponse:
     except Exception as error:  # any failure to reach the database means not ready
         checks["database"] = f"unreachable: {type(error).__name__}"
     ready = all(v == "ok" for v in checks.values()) and "migrations" in checks
-    return JSONResponse({"status": "ready" if ready else "not ready", "checks": checks},
-                        status_code=200 if ready else 503)
+    body: dict[str, object] = {"status": "ready" if ready else "not ready", "checks": checks}
+    if ready:
+        local = request.app.state.local_mode.active()
+        body["access"] = ("local mode: no API keys are configured, so only loopback callers are answered"
+                          if local else "API keys")
+    return JSONResponse(body, status_code=200 if ready else 503)

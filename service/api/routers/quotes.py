@@ -7,14 +7,14 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Header, Query
 from fastapi.responses import HTMLResponse, JSONResponse, Response, StreamingResponse
 
-from service.api.deps import CallerDep, CatalogsDep, NowDep, RawBodyDep, StorageDep
+from service.api.auth import AnyKey
+from service.api.deps import CatalogsDep, NowDep, RawBodyDep, StorageDep
 from service.api.problems import PROBLEM, PROBLEM_RESPONSES
 from service.api.schemas.quote import QuoteOut, QuotePage, Recomputation
 from service.api.schemas.request import QuoteRequestIn
-from service.errors import FieldProblem, InvalidInput
 from service.reports import breakeven_svg, options_csv, render_report
 from service.storage.repository import StoredQuote
-from service.use_cases import body_fingerprint, create_quote, get_quote, recompute_quote
+from service.use_cases import body_fingerprint, create_quote, find_quotes, get_quote, recompute_quote
 
 router = APIRouter(prefix="/v1/quotes", tags=["quotes"])
 
@@ -26,7 +26,7 @@ CONFLICT: dict[int | str, dict[str, Any]] = {
 @router.post("", status_code=201, response_model=QuoteOut, responses={**PROBLEM_RESPONSES, **CONFLICT})
 def post_quote(
     payload: QuoteRequestIn,
-    raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep, now: NowDep, caller: CallerDep,
+    raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep, now: NowDep, caller: AnyKey,
     idempotency_key: Annotated[str | None, Header(max_length=255)] = None,
 ) -> JSONResponse:
     """Quote one campaign against a catalog (default: the newest), store it, and return it.
@@ -55,6 +55,7 @@ def summary(stored: StoredQuote) -> dict[str, Any]:
 @router.get("", response_model=QuotePage, responses=PROBLEM_RESPONSES)
 def list_quotes(
     storage: StorageDep,
+    viewer: AnyKey,
     team: Annotated[str | None, Query(max_length=100)] = None,
     campaign_name: Annotated[str | None, Query(max_length=200)] = None,
     created_from: Annotated[datetime | None, Query(description="inclusive, ISO 8601")] = None,
@@ -62,50 +63,46 @@ def list_quotes(
     limit: Annotated[int, Query(ge=1, le=200)] = 50,
     cursor: Annotated[str | None, Query(max_length=200)] = None,
 ) -> dict[str, Any]:
-    """Stored quotes, newest first, filtered by team, campaign name and creation time."""
-    for name, moment in (("created_from", created_from), ("created_to", created_to)):
-        if moment is not None and moment.tzinfo is None:
-            raise InvalidInput("times need a zone",
-                               [FieldProblem(name, "give a UTC offset, e.g. 2027-01-01T00:00:00Z")])
-    with storage.reading() as repository:
-        items, next_cursor = repository.quotes(limit=limit, cursor=cursor, team=team, campaign_name=campaign_name,
-                                               created_from=created_from, created_to=created_to)
+    """Stored quotes, newest first, filtered by team, campaign name and creation time. A requester
+    sees its own team's quotes only."""
+    items, next_cursor = find_quotes(storage, viewer, team=team, campaign_name=campaign_name,
+                                     created_from=created_from, created_to=created_to, limit=limit, cursor=cursor)
     return {"items": [summary(q) for q in items], "next_cursor": next_cursor}
 
 
 @router.get("/{quote_id}", response_model=QuoteOut, responses=PROBLEM_RESPONSES)
-def read_quote(quote_id: str, storage: StorageDep) -> JSONResponse:
+def read_quote(quote_id: str, storage: StorageDep, viewer: AnyKey) -> JSONResponse:
     """One stored quote, exactly as it was returned when created."""
-    return JSONResponse(get_quote(storage, quote_id).response)
+    return JSONResponse(get_quote(storage, quote_id, viewer).response)
 
 
 @router.get("/{quote_id}/report", response_class=HTMLResponse, responses={
     200: {"content": {"text/html": {}}, "description": "a self-contained, printable HTML page"}, **PROBLEM_RESPONSES})
-def quote_report(quote_id: str, storage: StorageDep) -> HTMLResponse:
+def quote_report(quote_id: str, storage: StorageDep, viewer: AnyKey) -> HTMLResponse:
     """The report for people: recommendation, options and cost lines, timing, energy, break-even
     chart, residency screen, assumptions with sources and cautions, from the stored quote alone."""
-    return HTMLResponse(render_report(get_quote(storage, quote_id).response))
+    return HTMLResponse(render_report(get_quote(storage, quote_id, viewer).response))
 
 
 @router.get("/{quote_id}/breakeven.svg", response_class=Response, responses={
     200: {"content": {"image/svg+xml": {}}, "description": "the break-even chart"}, **PROBLEM_RESPONSES})
-def quote_breakeven_svg(quote_id: str, storage: StorageDep) -> Response:
+def quote_breakeven_svg(quote_id: str, storage: StorageDep, viewer: AnyKey) -> Response:
     """Owned cost per used accelerator-hour against utilisation for each owned site, the rented
     prices, and the break-even points (`<g id="breakeven-<site>-<offer>-<term>" data-utilisation>`)."""
-    return Response(breakeven_svg(get_quote(storage, quote_id).response), media_type="image/svg+xml")
+    return Response(breakeven_svg(get_quote(storage, quote_id, viewer).response), media_type="image/svg+xml")
 
 
 @router.get("/{quote_id}/options.csv", response_class=StreamingResponse, responses={
     200: {"content": {"text/csv": {}}, "description": "one row per placement option"}, **PROBLEM_RESPONSES})
-def quote_options_csv(quote_id: str, storage: StorageDep) -> StreamingResponse:
+def quote_options_csv(quote_id: str, storage: StorageDep, viewer: AnyKey) -> StreamingResponse:
     """One row per placement option, for spreadsheets (RFC 4180, units in the column names)."""
-    document = get_quote(storage, quote_id).response
+    document = get_quote(storage, quote_id, viewer).response
     return StreamingResponse(options_csv(document), media_type="text/csv; charset=utf-8",
                              headers={"Content-Disposition": f'attachment; filename="{quote_id}-options.csv"'})
 
 
 @router.post("/{quote_id}/recompute", response_model=Recomputation, responses=PROBLEM_RESPONSES)
-def recompute(quote_id: str, storage: StorageDep, catalogs: CatalogsDep) -> dict[str, Any]:
+def recompute(quote_id: str, storage: StorageDep, catalogs: CatalogsDep, viewer: AnyKey) -> dict[str, Any]:
     """Recompute a stored quote from its stored request and catalog under the current model, and
     list every figure that differs (none while the model version is unchanged). Stores nothing."""
-    return recompute_quote(storage, catalogs, quote_id)
+    return recompute_quote(storage, catalogs, quote_id, viewer)

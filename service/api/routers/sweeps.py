@@ -6,6 +6,7 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Depends, Request
 from fastapi.responses import JSONResponse, StreamingResponse
 
+from service.api.auth import Analyst
 from service.api.deps import CatalogsDep, NowDep, StorageDep
 from service.api.problems import PROBLEM_RESPONSES
 from service.api.schemas.sweep import SweepIn
@@ -32,7 +33,7 @@ SettingsDep = Annotated[Settings, Depends(_settings)]
 @router.post("", status_code=201, responses={202: {"description": "accepted: running in the background"},
                                              **PROBLEM_RESPONSES})
 def post_sweep(payload: SweepIn, storage: StorageDep, catalogs: CatalogsDep, now: NowDep, runner: RunnerDep,
-               settings: SettingsDep) -> JSONResponse:
+               settings: SettingsDep, _analyst: Analyst) -> JSONResponse:
     """Run a sweep: a grid of every combination, or Monte Carlo samples from distributions, over a
     base quote request. Up to `BERTH_SWEEP_ANSWER_AT_ONCE` scenarios the answer comes back at once
     (201); larger sweeps are accepted (202) and report progress at their Location."""
@@ -44,14 +45,14 @@ def post_sweep(payload: SweepIn, storage: StorageDep, catalogs: CatalogsDep, now
 
 
 @router.get("/{sweep_id}", responses=PROBLEM_RESPONSES)
-def read_sweep(sweep_id: str, storage: StorageDep) -> dict[str, Any]:
+def read_sweep(sweep_id: str, storage: StorageDep, _analyst: Analyst) -> dict[str, Any]:
     """Status, progress and, once done, the summary, tornado and (for small sweeps) the rows."""
     return get_sweep(storage, sweep_id)
 
 
 @router.get("/{sweep_id}/rows.csv", response_class=StreamingResponse, responses={
     200: {"content": {"text/csv": {}}, "description": "one row per scenario"}, **PROBLEM_RESPONSES})
-def sweep_rows(sweep_id: str, storage: StorageDep, catalogs: CatalogsDep) -> StreamingResponse:
+def sweep_rows(sweep_id: str, storage: StorageDep, catalogs: CatalogsDep, _analyst: Analyst) -> StreamingResponse:
     """Every scenario's inputs, cheapest option and each option's total, streamed as CSV. The rows
     are recomputed from the seeded request, so they are identical every time."""
     prepared = prepared_from_store(storage, catalogs, sweep_id)

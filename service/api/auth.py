@@ -1,0 +1,102 @@
+"""Who may do what: `Authorization: Bearer <key>`, roles, teams, local mode and rate limits.
+
+No key → 401 with WWW-Authenticate; a known key without the role → 403; another team's quote is
+a 404 (handled where quotes are read). With no keys configured at all, berth runs in local mode:
+it answers loopback callers only, as the local operator, without rate limits.
+"""
+
+import ipaddress
+import math
+import threading
+import time
+from collections.abc import Callable
+from typing import Annotated
+
+from fastapi import Depends, Request
+from starlette.exceptions import HTTPException
+
+from service.access import LOCAL, Principal, Role, keys_configured, resolve
+from service.storage.repository import Storage
+
+CHALLENGE = {"WWW-Authenticate": 'Bearer realm="berth"'}
+LOCAL_MODE_RECHECK_SECONDS = 5.0
+
+
+class LocalMode:
+    """Whether any key exists, checked at most every few seconds (keys are added by another process)."""
+
+    def __init__(self, storage: Storage) -> None:
+        self._storage = storage
+        self._checked = -math.inf
+        self._local = True
+        self._lock = threading.Lock()
+
+    def active(self) -> bool:
+        now = time.monotonic()
+        with self._lock:
+            if now - self._checked >= LOCAL_MODE_RECHECK_SECONDS:
+                self._local = not keys_configured(self._storage)
+                self._checked = now
+            return self._local
+
+
+class RateLimiter:
+    """A token bucket per key, in this process's memory: `burst` requests at once, refilled at
+    `per_second`. Several replicas each keep their own buckets (see the README)."""
+
+    def __init__(self, *, per_second: float, burst: int) -> None:
+        self.per_second, self.burst = per_second, burst
+        self._buckets: dict[str, tuple[float, float]] = {}
+        self._lock = threading.Lock()
+
+    def retry_after(self, key: str) -> float:
+        """0 when the request may go ahead (and takes a token), else seconds until one is free."""
+        now = time.monotonic()
+        with self._lock:
+            tokens, last = self._buckets.get(key, (float(self.burst), now))
+            tokens = min(float(self.burst), tokens + (now - last) * self.per_second)
+            if tokens >= 1.0:
+                self._buckets[key] = (tokens - 1.0, now)
+                return 0.0
+            self._buckets[key] = (tokens, now)
+            return (1.0 - tokens) / self.per_second
+
+
+def _loopback(request: Request) -> bool:
+    host = request.client.host if request.client else ""
+    try:
+        return ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        return host in ("localhost", "testclient")
+
+
+def principal(request: Request) -> Principal:
+    state = request.app.state
+    if state.local_mode.active():
+        if not _loopback(request):
+            raise HTTPException(403, "berth runs in local mode (no API keys configured) and answers loopback only")
+        return LOCAL
+    scheme, _, presented = request.headers.get("authorization", "").partition(" ")
+    if scheme.lower() != "bearer" or not presented.strip():
+        raise HTTPException(401, "send Authorization: Bearer <key>", headers=CHALLENGE)
+    found = resolve(state.storage, presented.strip())
+    if found is None:
+        raise HTTPException(401, "the key is unknown or revoked", headers=CHALLENGE)
+    wait = state.rate_limiter.retry_after(found.key_id)
+    if wait > 0:
+        raise HTTPException(429, "too many requests for this key", headers={"Retry-After": str(math.ceil(wait))})
+    return found
+
+
+def allow(*roles: Role) -> Callable[[Principal], Principal]:
+    """A dependency that lets the given roles through and answers 403 to the others."""
+    def check(who: Annotated[Principal, Depends(principal)]) -> Principal:
+        if who.role not in roles:
+            raise HTTPException(403, f"this needs the role {' or '.join(roles)}; the key is a {who.role}")
+        return who
+    return check
+
+
+AnyKey = Annotated[Principal, Depends(allow("requester", "analyst", "admin"))]
+Admin = Annotated[Principal, Depends(allow("admin"))]
+Analyst = Annotated[Principal, Depends(allow("analyst", "admin"))]
