@@ -121,6 +121,7 @@ def sweep_command(
 class PlanFormat(StrEnum):
     json = "json"
     table = "table"
+    html = "html"
 
 
 @app.command("plan")
@@ -153,6 +154,10 @@ def plan_command(
         return
     if output is PlanFormat.json:
         sys.stdout.write(json.dumps(body, indent=2, ensure_ascii=False) + "\n")
+    elif output is PlanFormat.html:
+        from service.reports import render_plan
+
+        sys.stdout.write(render_plan({"id": None, "created_at": None, **body}))
     else:
         print_plan(out, body)
 

@@ -223,7 +223,9 @@ def create_fleet_plan(storage: Storage, catalogs: ParsedCatalogs, request: Fleet
     body = fleet_plan(catalogs.get(stored), request, limits=limits, lookup=lookup)
     plan_id = new_id("fp")
     document = {"id": plan_id, "created_at": now.isoformat().replace("+00:00", "Z"), "catalog_id": stored.id,
-                **body, "links": {"self": f"/v1/fleet-plans/{plan_id}"}}
+                **body, "links": {"self": f"/v1/fleet-plans/{plan_id}",
+                                  "chart_svg": f"/v1/fleet-plans/{plan_id}/chart.svg",
+                                  "report": f"/v1/fleet-plans/{plan_id}/report"}}
     with storage.writing() as repository:
         repository.add_fleet_plan(plan_id=plan_id, created_at=now, catalog_id=stored.id,
                                   request=request.model_dump(mode="json"), response=document)

@@ -4,6 +4,6 @@ options as CSV. Formatting (babel) happens here and nowhere else."""
 
 from service.reports.breakeven_chart import breakeven_svg
 from service.reports.csv_export import OPTIONS_CSV_HEADER, options_csv
-from service.reports.html import render_report
+from service.reports.html import render_plan, render_report
 
-__all__ = ["OPTIONS_CSV_HEADER", "breakeven_svg", "options_csv", "render_report"]
+__all__ = ["OPTIONS_CSV_HEADER", "breakeven_svg", "options_csv", "render_plan", "render_report"]

@@ -10,6 +10,8 @@ from markupsafe import Markup
 from service.reports.breakeven_chart import breakeven_figure_svg
 from service.reports.context import report_context
 from service.reports.cost_chart import cost_figure_svg
+from service.reports.fleet_chart import fleet_figure_svg
+from service.reports.formatting import money, money_precise, number, percent, term_label
 
 Json = dict[str, Any]
 
@@ -50,3 +52,16 @@ def render_report(document: Json) -> str:
     context["cost_svg"] = Markup(cost_figure_svg(document))
     context["breakeven_svg"] = Markup(breakeven_figure_svg(document))
     return environment().get_template("report.html").render(context)
+
+
+def render_plan(plan: Json) -> str:
+    """The report page of a fleet plan (the JSON body of GET /v1/fleet-plans/{id})."""
+    currency = str(plan["currency"])
+    best = next(c for c in plan["candidates"] if c["nodes"] == plan["best_nodes"])
+    probability = plan.get("probability_owning_beats_renting")
+    return environment().get_template("plan.html").render(
+        plan=plan, best=best, term=term_label(str(plan["term"])), cautions=cautions(plan),
+        chart=Markup(fleet_figure_svg(plan)),
+        probability="not compared (0 nodes is not a candidate)" if probability is None else percent(probability),
+        money=lambda v: money(v, currency), money_precise=lambda v: money_precise(v, currency),
+        percent=percent, number=number)

@@ -3,7 +3,7 @@
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, Request
-from fastapi.responses import JSONResponse
+from fastapi.responses import HTMLResponse, JSONResponse, Response
 
 from service.api.auth import Analyst
 from service.api.deps import CatalogsDep, NowDep, StorageDep
@@ -11,6 +11,9 @@ from service.api.problems import PROBLEM_RESPONSES
 from service.api.schemas.fleet import FleetPlanIn
 from service.config import Settings
 from service.fleet_plans import FleetLimits, create_fleet_plan, get_fleet_plan
+from service.reports import render_plan
+from service.reports.fleet_chart import fleet_figure_svg
+from service.reports.svg import standalone
 
 router = APIRouter(prefix="/v1/fleet-plans", tags=["fleet plans"])
 
@@ -31,6 +34,20 @@ def post_fleet_plan(payload: FleetPlanIn, storage: StorageDep, catalogs: Catalog
     document = create_fleet_plan(storage, catalogs, payload, now=now,
                                  limits=FleetLimits(max_cells=settings.fleet_max_cells))
     return JSONResponse(document, status_code=201, headers={"Location": document["links"]["self"]})
+
+
+@router.get("/{plan_id}/chart.svg", response_class=Response, responses={
+    200: {"content": {"image/svg+xml": {}}, "description": "present cost against fleet size"}, **PROBLEM_RESPONSES})
+def fleet_plan_chart(plan_id: str, storage: StorageDep, _analyst: Analyst) -> Response:
+    """Present cost against owned fleet size: the median and the 5th-95th percentile band."""
+    return Response(standalone(fleet_figure_svg(get_fleet_plan(storage, plan_id))), media_type="image/svg+xml")
+
+
+@router.get("/{plan_id}/report", response_class=HTMLResponse, responses={
+    200: {"content": {"text/html": {}}, "description": "a printable page"}, **PROBLEM_RESPONSES})
+def fleet_plan_report(plan_id: str, storage: StorageDep, _analyst: Analyst) -> HTMLResponse:
+    """The plan as a self-contained, printable page."""
+    return HTMLResponse(render_plan(get_fleet_plan(storage, plan_id)))
 
 
 @router.get("/{plan_id}", responses=PROBLEM_RESPONSES)

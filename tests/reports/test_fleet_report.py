@@ -1,0 +1,77 @@
+"""The fleet plan as a chart and a page: the marked best size is the plan's, the tables show the
+plan's numbers, and the endpoints and `berth plan --format html` serve them."""
+
+import subprocess
+import sys
+import xml.etree.ElementTree as ET
+from typing import Any
+
+import httpx
+import pytest
+
+from service.api.schemas.catalog import CatalogIn
+from service.api.schemas.fleet import FleetPlanIn
+from service.fleet_plans import FleetLimits, fleet_plan
+from service.reports import render_plan
+from service.reports.fleet_chart import fleet_figure_svg
+from tests.conftest import EXAMPLES, load_example
+from tests.reports.page import parse
+
+SVG = "{http://www.w3.org/2000/svg}"
+
+
+def demo_plan(**changes: Any) -> dict[str, Any]:
+    request = {**load_example("fleet-plan.json"), "samples": 300, **changes}
+    body = fleet_plan(CatalogIn.model_validate(load_example("catalog.json")), FleetPlanIn.model_validate(request),
+                      limits=FleetLimits())
+    return {"id": "fp_test", "created_at": "2027-01-04T09:00:00Z", **body}
+
+
+def test_the_chart_marks_the_plans_best_size_and_is_byte_identical_across_renders() -> None:
+    plan = demo_plan()
+    svg = fleet_figure_svg(plan)
+    root = ET.fromstring(svg)
+    best = next(g for g in root.iter(f"{SVG}g") if g.get("id") == "fleet-best")
+    assert int(best.get("data-nodes", "-1")) == plan["best_nodes"]
+    mean = next(c["present_cost_mean"] for c in plan["candidates"] if c["nodes"] == plan["best_nodes"])
+    assert float(best.get("data-present-cost-mean", "nan")) == pytest.approx(mean, abs=0.005)
+    assert root.get("role") == "img" and root.find(f"{SVG}title") is not None
+    assert fleet_figure_svg(plan) == svg
+
+
+def test_the_page_shows_the_best_size_every_candidate_the_months_and_the_cautions() -> None:
+    plan = demo_plan()
+    page = parse(render_plan(plan))
+    assert page.by_id("best-nodes").text.startswith(f"{plan['best_nodes']} nodes")
+    tables = page.find_all("table")
+    candidate_rows = tables[0].find_all("tr")[1:]
+    assert len(candidate_rows) == len(plan["candidates"])
+    assert len(tables[1].find_all("tr")[1:]) == plan["horizon_months"]
+    values = [float(d.attrs["value"]) for d in page.find_all("data")]
+    assert next(c["present_cost_mean"] for c in plan["candidates"] if c["nodes"] == plan["best_nodes"]) in values
+    text = page.text
+    for phrase in ("not a vendor quote", "licensed engineers", "not legal advice"):
+        assert phrase in text
+
+
+@pytest.mark.anyio
+async def test_the_stored_plan_serves_its_chart_and_page(report_client: httpx.AsyncClient) -> None:
+    response = await report_client.post("/v1/fleet-plans", json={**load_example("fleet-plan.json"), "samples": 200})
+    assert response.status_code == 201
+    plan = response.json()
+    chart = await report_client.get(plan["links"]["chart_svg"])
+    assert chart.status_code == 200 and chart.headers["content-type"] == "image/svg+xml"
+    assert ET.fromstring(chart.text.split("?>", 1)[1]).get("role") == "img"
+    page = await report_client.get(plan["links"]["report"])
+    assert page.status_code == 200 and page.headers["content-type"].startswith("text/html")
+    assert f"{plan['best_nodes']} nodes at fjordvik-hall" in page.text
+    missing = await report_client.get("/v1/fleet-plans/fp_missing/report")
+    assert missing.status_code == 404
+
+
+def test_berth_plan_prints_the_page_offline() -> None:
+    result = subprocess.run([sys.executable, "-m", "service.cli", "plan", str(EXAMPLES / "fleet-plan.json"),
+                             "--format", "html"], capture_output=True, text=True, timeout=120, check=False)
+    assert result.returncode == 0, result.stderr
+    assert result.stdout.startswith("<!DOCTYPE html>")
+    assert "Best owned fleet" in result.stdout
