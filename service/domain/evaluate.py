@@ -5,6 +5,7 @@ venues and terms, never over scenarios.
 """
 
 import functools
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from typing import Literal
 
@@ -275,7 +276,7 @@ def _evaluate(venue: _Venue, term: str, limit: NodeLimit, build_cost: CostBuilde
     node = venue.node_type
     grid = physics.grid
     lines_grid, details_grid = build_cost(grid)
-    total_grid = functools.reduce(np.add, lines_grid.values())
+    total_grid = sum_lines(lines_grid.values())
     choice = choose(grid, total_grid, node_limit=limit.nodes, deadline_seconds=physics.load.deadline_seconds)
     chosen = pick_grid(grid, choice.index)
     min_nodes = np.broadcast_to(physics.min_nodes, choice.index.shape)
@@ -310,6 +311,13 @@ def _evaluate(venue: _Venue, term: str, limit: NodeLimit, build_cost: CostBuilde
         staging_seconds=np.broadcast_to(physics.hardware.staging_seconds, choice.index.shape),
         details={name: pick(value, choice.index) for name, value in details_grid.items()},
     )
+
+
+def sum_lines(lines: Iterable[Floats]) -> Floats:
+    """The sum of cost lines of mixed shapes, the small ones first: lines that do not vary by
+    layout are (S, 1), and adding them together before the (S, K) ones saves whole-grid passes."""
+    ordered = sorted((np.asarray(line) for line in lines), key=lambda line: line.size)
+    return functools.reduce(np.add, ordered)
 
 
 def _screen(

@@ -5,6 +5,7 @@ counts every quantity is an (S, K) array; `choose` then keeps one column per sce
 """
 
 from dataclasses import dataclass, fields
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -83,6 +84,11 @@ class LayoutGrid:
     checkpoint_interval_seconds: Floats
     wall_seconds: Floats
     accelerator_hours: Floats
+
+    @cached_property
+    def wall_hours(self) -> Floats:
+        """Wall clock in hours, computed once: every term's cost lines use it."""
+        return np.asarray(self.wall_seconds / SECONDS_PER_HOUR)
 
 
 def candidate_nodes(*, node_limit: ArrayLike, fixed_accelerators: int | None,

@@ -15,7 +15,7 @@ from service.domain.gravity import Transfer
 from service.domain.layout import LayoutGrid
 from service.domain.owning import NodeMonth
 from service.domain.recurrence import instances_sharing
-from service.domain.units import HOURS_PER_MONTH, SECONDS_PER_HOUR, TB
+from service.domain.units import HOURS_PER_MONTH, TB
 
 Lines = dict[str, Floats]
 
@@ -25,7 +25,7 @@ def _scenario(value: ArrayLike) -> Floats:
 
 
 def wall_hours(grid: LayoutGrid) -> Floats:
-    return grid.wall_seconds / SECONDS_PER_HOUR
+    return grid.wall_hours
 
 
 def chargeback_lines(
