@@ -35,13 +35,19 @@ def chargeback_lines(
     """An existing fleet charges each used accelerator-hour its share of the fixed cost at the
     planned utilisation, F / (A · 730 · u), plus the busy energy v (model.md §6)."""
     used_hours_per_node_month = accelerators_per_node * HOURS_PER_MONTH * _scenario(utilisation)
-    share = grid.accelerator_hours / used_hours_per_node_month
+    return _owned_lines(grid.accelerator_hours / used_hours_per_node_month, node, grid,
+                        variable_per_accelerator_hour)
+
+
+def _owned_lines(node_months: Floats, node: NodeMonth, grid: LayoutGrid,
+                 variable_per_accelerator_hour: ArrayLike) -> Lines:
+    """Node-months of each fixed item charged to the campaign, and its busy energy."""
     return {
-        "capital": share * _scenario(node.capital),
-        "facility": share * _scenario(node.facility),
-        "maintenance": share * _scenario(node.maintenance),
-        "staff": share * _scenario(node.staff),
-        "idle_energy": share * _scenario(node.idle_energy),
+        "capital": node_months * _scenario(node.capital),
+        "facility": node_months * _scenario(node.facility),
+        "maintenance": node_months * _scenario(node.maintenance),
+        "staff": node_months * _scenario(node.staff),
+        "idle_energy": node_months * _scenario(node.idle_energy),
         "busy_energy": grid.accelerator_hours * _scenario(variable_per_accelerator_hour),
     }
 
@@ -69,15 +75,8 @@ def new_build_lines(
     grid: LayoutGrid, node: NodeMonth, share: NewBuildShare, *, variable_per_accelerator_hour: ArrayLike,
 ) -> Lines:
     """Buy the layout's nodes, carry them for their life, and charge this instance its share."""
-    node_months = grid.nodes * share.carried_months / share.sharing_instances
-    return {
-        "capital": node_months * _scenario(node.capital),
-        "facility": node_months * _scenario(node.facility),
-        "maintenance": node_months * _scenario(node.maintenance),
-        "staff": node_months * _scenario(node.staff),
-        "idle_energy": node_months * _scenario(node.idle_energy),
-        "busy_energy": grid.accelerator_hours * _scenario(variable_per_accelerator_hour),
-    }
+    return _owned_lines(grid.nodes * share.carried_months / share.sharing_instances, node, grid,
+                        variable_per_accelerator_hour)
 
 
 def hourly_lines(grid: LayoutGrid, *, price_per_accelerator_hour: ArrayLike) -> Lines:
