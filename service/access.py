@@ -62,8 +62,10 @@ def revoke_key(storage: Storage, key_id: str, *, now: datetime) -> None:
 
 
 def keys_configured(storage: Storage) -> bool:
+    """Whether keys are in use. Revoked keys count: revoking every key locks the service rather
+    than opening it to loopback callers as local mode would."""
     with storage.reading() as repository:
-        return repository.active_key_count() > 0
+        return repository.key_count() > 0
 
 
 def resolve(storage: Storage, presented: str) -> Principal | None:

@@ -132,14 +132,21 @@ def fleet_plan(catalog_in: CatalogIn, request: FleetPlanIn, *, limits: FleetLimi
         accelerators_per_node=site.node_type.accelerators_per_node, fixed_per_node_month=float(node.total),
         variable_per_accelerator_hour=variable, rented_per_accelerator_hour=price,
         max_utilisation=request.max_utilisation, monthly_rate=float(monthly_rate(catalog.cost_of_capital_annual)))
-    demand = _demand(request, lookup, np.random.default_rng(request.seed))
+    with np.errstate(over="ignore", invalid="ignore"):  # checked below
+        demand = _demand(request, lookup, np.random.default_rng(request.seed))
     c = request.candidate_nodes
     sizes = sizes_between(low=c.min, high=c.max, step=c.step)
     power_limit, why = _site_limit(site, float(economics.pue))
     allowed = sizes <= power_limit
     if not allowed.any():
         raise InvalidInput("no candidate size fits the site", [FieldProblem("candidate_nodes", why)])
-    plan = plan_fleet(sizes=sizes[allowed], demand=demand, economics=fleet)
+    with np.errstate(over="ignore", invalid="ignore"):
+        plan = plan_fleet(sizes=sizes[allowed], demand=demand, economics=fleet)
+    if not (np.isfinite(demand).all() and np.isfinite(plan.present_cost).all()):
+        # Fast doubling (0.01 months over 48) or huge figures overflow float64: the answer would
+        # hold inf and nan, which JSON cannot carry.
+        raise InvalidInput("the demand overflows", [FieldProblem(
+            "demand", "it grows beyond floating-point range over the horizon; slow the doubling or lower it")])
     return _document(catalog_in.currency, request, sizes, allowed, why, plan, fleet, listed, demand)
 
 

@@ -62,7 +62,8 @@ def _is_union_tag(part: object) -> bool:
 
 def validate(model: type[Model], data: Any, *, source: str) -> Model:
     try:
-        return model.model_validate(data)
+        # Lax on purpose: PyYAML (YAML 1.1) reads 1.4e12 as a string, and files may be YAML.
+        return model.model_validate(data, strict=False)
     except ValidationError as error:
         raise InvalidInput(f"{source} is not valid", field_problems(error)) from error
 

@@ -7,6 +7,7 @@ from dataclasses import replace
 from datetime import datetime
 from typing import Any
 
+import numpy as np
 import pycountry
 
 from service import __version__
@@ -55,11 +56,15 @@ def quote(catalog: CatalogIn, request: QuoteRequestIn) -> dict[str, Any]:
         raise InvalidInput("the request does not match the catalog", problems)
     domain_catalog = catalog.to_domain()
     campaign, options, overrides = request.to_domain()
-    evaluation = evaluate_campaign(domain_catalog, campaign, options, overrides)
-    splits = split_options(domain_catalog, campaign, options, overrides, evaluation)
-    if splits:
-        evaluation = replace(evaluation, options=evaluation.options + tuple(splits))
-    return quote_document(domain_catalog, request, evaluation)
+    # Extreme but valid figures (a utilisation or an MTBF of 1e-300) make infinite step and wall
+    # times; the model carries inf through and screens such options out as infeasible. numpy's
+    # warnings about it would only be stray non-JSON lines on stderr.
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+        evaluation = evaluate_campaign(domain_catalog, campaign, options, overrides)
+        splits = split_options(domain_catalog, campaign, options, overrides, evaluation)
+        if splits:
+            evaluation = replace(evaluation, options=evaluation.options + tuple(splits))
+        return quote_document(domain_catalog, request, evaluation)
 
 
 def model_version() -> str:

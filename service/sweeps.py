@@ -13,6 +13,7 @@ from typing import Any
 
 import numpy as np
 
+from service.api.observability import domain_metrics
 from service.api.schemas.catalog import CatalogIn
 from service.api.schemas.sweep import DistributionIn, SweepIn
 from service.document import Money
@@ -139,7 +140,9 @@ def run(prepared: PreparedSweep, *, keep_rows: int = ROWS_IN_JSON,
 def _chunks(prepared: PreparedSweep) -> Iterator[Any]:
     size = chunk_size(prepared.catalog, prepared.plan.options)
     for _, inputs in scenario_chunks(prepared.plan, size):
-        yield evaluate_chunk(prepared.catalog, prepared.plan, inputs)
+        with np.errstate(over="ignore", divide="ignore", invalid="ignore"):  # as in quoting.quote
+            chunk = evaluate_chunk(prepared.catalog, prepared.plan, inputs)
+        yield chunk
 
 
 def _json_rows(chunk: Any, money: Money) -> list[dict[str, Any]]:
@@ -359,6 +362,7 @@ class SweepRunner:
         try:
             prepared = prepared_from_store(self._storage, self._catalogs, sweep_id)
             summary, rows = run(prepared, progress=progress)
+            domain_metrics().sweep_scenarios.inc(prepared.plan.scenarios)
             document = sweep_document(prepared, summary, rows, tornado_bars(prepared))
             with self._storage.writing() as repository:
                 repository.update_sweep(sweep_id, status="done", done=prepared.plan.scenarios, result=document,

@@ -7,6 +7,7 @@ import sys
 from typing import Any
 
 from fastapi import FastAPI
+from fastapi.responses import PlainTextResponse
 from prometheus_client import REGISTRY, CollectorRegistry, Counter, Histogram
 from prometheus_fastapi_instrumentator import Instrumentator
 
@@ -40,7 +41,8 @@ def domain_metrics(registry: CollectorRegistry = REGISTRY) -> DomainMetrics:
 def install_metrics(app: FastAPI) -> None:
     """HTTP metrics from the instrumentator and /metrics, outside auth and rate limits."""
     Instrumentator(excluded_handlers=["/metrics", "/healthz", "/readyz"]).instrument(app).expose(
-        app, endpoint="/metrics", include_in_schema=True, tags=["probes"])
+        app, endpoint="/metrics", include_in_schema=True, tags=["probes"],
+        response_class=PlainTextResponse)  # documents the Prometheus text it answers with
     app.state.metrics = domain_metrics()
 
 

@@ -87,5 +87,5 @@ def _title(status: int) -> str:
 PROBLEM_RESPONSES: dict[int | str, dict[str, Any]] = {
     status: {"description": TYPES[status].replace("-", " "), "model": None,
              "content": {PROBLEM: {"schema": {"$ref": "#/components/schemas/Problem"}}}}
-    for status in (404, 422)
+    for status in (400, 404, 413, 422)  # 400: an unreadable body; 413: one over the size limit
 }

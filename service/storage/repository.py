@@ -318,9 +318,9 @@ class Repository:
     def keys(self) -> list[StoredKey]:
         return [_key(r) for r in self.session.exec(select(ApiKeyRow).order_by(col(ApiKeyRow.created_at))).all()]
 
-    def active_key_count(self) -> int:
-        query = select(func.count()).select_from(ApiKeyRow).where(col(ApiKeyRow.revoked_at).is_(None))
-        return int(self.session.exec(query).one())
+    def key_count(self) -> int:
+        """Every key ever issued, revoked ones included."""
+        return int(self.session.exec(select(func.count()).select_from(ApiKeyRow)).one())
 
     def revoke_key(self, key_id: str, *, now: datetime) -> bool:
         row = self.session.get(ApiKeyRow, key_id)

@@ -51,7 +51,7 @@ def create_catalog(request: Request, body: RawBodyDep, storage: StorageDep, now:
                         headers={"Location": f"/v1/catalogs/{stored.id}"})
 
 
-@router.get("", response_model=CatalogPage)
+@router.get("", response_model=CatalogPage, responses=PROBLEM_RESPONSES)
 def list_catalogs(storage: StorageDep, _viewer: AnyKey, limit: Annotated[int, Query(ge=1, le=200)] = 50,
                   cursor: Annotated[str | None, Query(max_length=200)] = None) -> dict[str, Any]:
     """Catalogs, newest first."""

@@ -7,6 +7,7 @@ from fastapi.responses import HTMLResponse, JSONResponse, Response
 
 from service.api.auth import Analyst
 from service.api.deps import CatalogsDep, NowDep, StorageDep
+from service.api.observability import DomainMetrics
 from service.api.problems import PROBLEM_RESPONSES
 from service.api.schemas.fleet import FleetPlanIn
 from service.config import Settings
@@ -27,12 +28,14 @@ SettingsDep = Annotated[Settings, Depends(_settings)]
 
 
 @router.post("", status_code=201, responses=PROBLEM_RESPONSES)
-def post_fleet_plan(payload: FleetPlanIn, storage: StorageDep, catalogs: CatalogsDep, now: NowDep,
+def post_fleet_plan(request: Request, payload: FleetPlanIn, storage: StorageDep, catalogs: CatalogsDep, now: NowDep,
                     settings: SettingsDep, _analyst: Analyst) -> JSONResponse:
     """Every candidate fleet size against every demand sample and month at once: present cost
     percentiles per size, the best size, the chance it beats renting everything, and its months."""
     document = create_fleet_plan(storage, catalogs, payload, now=now,
                                  limits=FleetLimits(max_cells=settings.fleet_max_cells))
+    metrics: DomainMetrics = request.app.state.metrics
+    metrics.fleet_plans.inc()
     return JSONResponse(document, status_code=201, headers={"Location": document["links"]["self"]})
 
 

@@ -1,14 +1,18 @@
 """Quotes: create (stored, idempotent with a key), list, read, recompute; the report, break-even
 chart and options CSV of a stored quote."""
 
+import re
+import time
 from datetime import datetime
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Header, Query
+from fastapi import APIRouter, Header, Query, Request
 from fastapi.responses import HTMLResponse, JSONResponse, Response, StreamingResponse
+from pydantic import BeforeValidator
 
 from service.api.auth import AnyKey
 from service.api.deps import CatalogsDep, NowDep, RawBodyDep, StorageDep
+from service.api.observability import DomainMetrics
 from service.api.problems import PROBLEM, PROBLEM_RESPONSES
 from service.api.schemas.quote import QuoteOut, QuotePage, Recomputation
 from service.api.schemas.request import QuoteRequestIn
@@ -25,18 +29,34 @@ CONFLICT: dict[int | str, dict[str, Any]] = {
 
 @router.post("", status_code=201, response_model=QuoteOut, responses={**PROBLEM_RESPONSES, **CONFLICT})
 def post_quote(
+    request: Request,
     payload: QuoteRequestIn,
     raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep, now: NowDep, caller: AnyKey,
     idempotency_key: Annotated[str | None, Header(max_length=255)] = None,
 ) -> JSONResponse:
     """Quote one campaign against a catalog (default: the newest), store it, and return it.
     The same Idempotency-Key with the same body returns the first answer."""
+    started = time.perf_counter()
     outcome = create_quote(storage, catalogs, payload, now=now, caller=caller, idempotency_key=idempotency_key,
                            fingerprint=body_fingerprint(raw))
+    if not outcome.replayed:
+        metrics: DomainMetrics = request.app.state.metrics
+        metrics.quote_seconds.observe(time.perf_counter() - started)
+        metrics.quotes_created.inc()
     headers = {"Location": f"/v1/quotes/{outcome.body['id']}"}
     if outcome.replayed:
         headers["Idempotent-Replayed"] = "true"
     return JSONResponse(outcome.body, status_code=outcome.status_code, headers=headers)
+
+
+def _iso_8601(value: object) -> object:
+    """Pydantic would also read a bare number as a Unix time; the API takes ISO 8601 date-times."""
+    if isinstance(value, str) and not re.match(r"\d{4}-\d\d-\d\d", value):
+        raise ValueError("give an ISO 8601 date-time, e.g. 2027-01-01T00:00:00Z")
+    return value
+
+
+IsoDateTime = BeforeValidator(_iso_8601)
 
 
 def summary(stored: StoredQuote) -> dict[str, Any]:
@@ -58,8 +78,8 @@ def list_quotes(
     viewer: AnyKey,
     team: Annotated[str | None, Query(max_length=100)] = None,
     campaign_name: Annotated[str | None, Query(max_length=200)] = None,
-    created_from: Annotated[datetime | None, Query(description="inclusive, ISO 8601")] = None,
-    created_to: Annotated[datetime | None, Query(description="exclusive, ISO 8601")] = None,
+    created_from: Annotated[datetime | None, Query(description="inclusive, ISO 8601"), IsoDateTime] = None,
+    created_to: Annotated[datetime | None, Query(description="exclusive, ISO 8601"), IsoDateTime] = None,
     limit: Annotated[int, Query(ge=1, le=200)] = 50,
     cursor: Annotated[str | None, Query(max_length=200)] = None,
 ) -> dict[str, Any]:

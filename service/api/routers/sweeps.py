@@ -8,6 +8,7 @@ from fastapi.responses import JSONResponse, StreamingResponse
 
 from service.api.auth import Analyst
 from service.api.deps import CatalogsDep, NowDep, StorageDep
+from service.api.observability import DomainMetrics
 from service.api.problems import PROBLEM_RESPONSES
 from service.api.schemas.sweep import SweepIn
 from service.config import Settings
@@ -32,14 +33,17 @@ SettingsDep = Annotated[Settings, Depends(_settings)]
 
 @router.post("", status_code=201, responses={202: {"description": "accepted: running in the background"},
                                              **PROBLEM_RESPONSES})
-def post_sweep(payload: SweepIn, storage: StorageDep, catalogs: CatalogsDep, now: NowDep, runner: RunnerDep,
-               settings: SettingsDep, _analyst: Analyst) -> JSONResponse:
+def post_sweep(request: Request, payload: SweepIn, storage: StorageDep, catalogs: CatalogsDep, now: NowDep,
+               runner: RunnerDep, settings: SettingsDep, _analyst: Analyst) -> JSONResponse:
     """Run a sweep: a grid of every combination, or Monte Carlo samples from distributions, over a
     base quote request. Up to `BERTH_SWEEP_ANSWER_AT_ONCE` scenarios the answer comes back at once
     (201); larger sweeps are accepted (202) and report progress at their Location."""
     limits = SweepLimits(max_scenarios=settings.sweep_max_scenarios, max_grid_values=settings.sweep_max_grid_values)
     outcome = submit_sweep(storage, catalogs, payload, now=now, limits=limits,
                            answer_at_once=settings.sweep_answer_at_once, runner=runner)
+    if outcome.status_code == 201:  # answered at once; a background sweep is counted by its runner
+        metrics: DomainMetrics = request.app.state.metrics
+        metrics.sweep_scenarios.inc(outcome.body["progress"]["scenarios_total"])
     return JSONResponse(outcome.body, status_code=outcome.status_code,
                         headers={"Location": outcome.body["links"]["self"]})
 

@@ -164,7 +164,7 @@ class OfferIn(Strict):
 class CatalogIn(Strict):
     name: str = Field(min_length=1, max_length=200)
     currency: Annotated[str, Field(pattern=r"^[A-Z]{3}$", description="ISO 4217 code")]
-    effective_from: date | None = None
+    effective_from: Annotated[date | None, Field(strict=False)] = None  # an ISO 8601 string in JSON
     jurisdiction_groups: dict[str, list[CountryCode]] = Field(default_factory=dict)
     finance: Finance = Field(default_factory=Finance)
     accelerators: list[AcceleratorIn] = Field(min_length=1)
