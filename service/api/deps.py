@@ -6,6 +6,7 @@ from typing import Annotated
 
 from fastapi import Depends, Request
 
+from service.config import Settings
 from service.storage.repository import Storage
 from service.use_cases import ParsedCatalogs
 
@@ -20,6 +21,11 @@ def _catalogs(request: Request) -> ParsedCatalogs:
     return catalogs
 
 
+def _settings(request: Request) -> Settings:
+    settings: Settings = request.app.state.settings
+    return settings
+
+
 def _now(request: Request) -> datetime:
     clock: Callable[[], datetime] = request.app.state.clock
     return clock()
@@ -32,6 +38,7 @@ async def _raw_body(request: Request) -> bytes:
 StorageDep = Annotated[Storage, Depends(_storage)]
 CatalogsDep = Annotated[ParsedCatalogs, Depends(_catalogs)]
 NowDep = Annotated[datetime, Depends(_now)]
+SettingsDep = Annotated[Settings, Depends(_settings)]
 RawBodyDep = Annotated[bytes, Depends(_raw_body)]
 
 

@@ -1,16 +1,15 @@
 """Fleet plans: size an owned fleet against a demand forecast over a horizon, the overflow rented."""
 
-from typing import Annotated, Any
+from typing import Any
 
-from fastapi import APIRouter, Depends, Request
+from fastapi import APIRouter, Request
 from fastapi.responses import HTMLResponse, JSONResponse, Response
 
 from service.api.auth import Analyst
-from service.api.deps import CatalogsDep, NowDep, StorageDep
+from service.api.deps import CatalogsDep, NowDep, SettingsDep, StorageDep
 from service.api.observability import DomainMetrics
 from service.api.problems import PROBLEM_RESPONSES
 from service.api.schemas.fleet import FleetPlanIn
-from service.config import Settings
 from service.fleet_plans import FleetLimits, create_fleet_plan, get_fleet_plan
 from service.reports import render_plan
 from service.reports.fleet_chart import fleet_figure_svg
@@ -19,12 +18,7 @@ from service.reports.svg import standalone
 router = APIRouter(prefix="/v1/fleet-plans", tags=["fleet plans"])
 
 
-def _settings(request: Request) -> Settings:
-    settings: Settings = request.app.state.settings
-    return settings
 
-
-SettingsDep = Annotated[Settings, Depends(_settings)]
 
 
 @router.post("", status_code=201, responses=PROBLEM_RESPONSES)

@@ -7,11 +7,10 @@ from fastapi import APIRouter, Depends, Request
 from fastapi.responses import JSONResponse, StreamingResponse
 
 from service.api.auth import Analyst
-from service.api.deps import CatalogsDep, NowDep, StorageDep
+from service.api.deps import CatalogsDep, NowDep, SettingsDep, StorageDep
 from service.api.observability import DomainMetrics
 from service.api.problems import PROBLEM_RESPONSES
 from service.api.schemas.sweep import SweepIn
-from service.config import Settings
 from service.sweeps import SweepLimits, SweepRunner, csv_chunks, get_sweep, prepared_from_store, submit_sweep
 
 router = APIRouter(prefix="/v1/sweeps", tags=["sweeps"])
@@ -22,13 +21,8 @@ def _runner(request: Request) -> SweepRunner:
     return runner
 
 
-def _settings(request: Request) -> Settings:
-    settings: Settings = request.app.state.settings
-    return settings
-
 
 RunnerDep = Annotated[SweepRunner, Depends(_runner)]
-SettingsDep = Annotated[Settings, Depends(_settings)]
 
 
 @router.post("", status_code=201, responses={202: {"description": "accepted: running in the background"},
