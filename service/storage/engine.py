@@ -1,5 +1,7 @@
 """Building the engine: SQLite tuned for durability, PostgreSQL with a pool that checks itself."""
 
+import sqlite3
+import time
 from pathlib import Path
 from typing import Any
 
@@ -8,6 +10,7 @@ from sqlalchemy.engine import make_url
 from sqlalchemy.pool import StaticPool
 
 READ_ONLY = "berth_read_only"
+WAL_SWITCH_TIMEOUT_S = 5.0
 
 
 def build_engine(database_url: str) -> Engine:
@@ -31,7 +34,7 @@ def build_engine(database_url: str) -> Engine:
         dbapi_connection.isolation_level = None  # we issue BEGIN ourselves, below
         cursor = dbapi_connection.cursor()
         if not memory:
-            cursor.execute("PRAGMA journal_mode=WAL")
+            _switch_to_wal(cursor)
         cursor.execute("PRAGMA synchronous=FULL")
         cursor.execute("PRAGMA busy_timeout=5000")
         cursor.execute("PRAGMA foreign_keys=ON")
@@ -44,6 +47,21 @@ def build_engine(database_url: str) -> Engine:
         connection.exec_driver_sql("BEGIN" if read_only else "BEGIN IMMEDIATE")
 
     return engine
+
+
+def _switch_to_wal(cursor: Any) -> None:
+    """PRAGMA journal_mode=WAL, retried for a while: when several connections open a brand-new file
+    at the same moment (workers, replicas starting together), they race to convert it, and SQLite
+    answers the losers "database is locked" at once, without waiting out the busy timeout."""
+    deadline = time.monotonic() + WAL_SWITCH_TIMEOUT_S
+    while True:
+        try:
+            cursor.execute("PRAGMA journal_mode=WAL")
+            return
+        except sqlite3.OperationalError as error:
+            if "locked" not in str(error) or time.monotonic() >= deadline:
+                raise
+            time.sleep(0.01)
 
 
 def is_sqlite(engine: Engine) -> bool:

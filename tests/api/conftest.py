@@ -1,5 +1,6 @@
-"""The app on a temporary SQLite file, prepared (migrated, demo catalog loaded), with a clock the
-tests move by hand, and an httpx client talking to it in-process."""
+"""The app on a database of its own, prepared (migrated, demo catalog loaded), with a clock the
+tests move by hand, and an httpx client talking to it in-process. The database is a temporary SQLite
+file, or a fresh PostgreSQL database when BERTH_TEST_DATABASE_URL is set (see tests/databases.py)."""
 
 from collections.abc import AsyncIterator, Iterator
 from datetime import UTC, datetime, timedelta
@@ -12,6 +13,7 @@ from fastapi import FastAPI
 from service.api.app import create_app, prepare
 from service.config import Settings
 from service.storage.repository import Storage
+from tests.databases import database_for_test
 
 START = datetime(2027, 1, 4, 9, 0, tzinfo=UTC)
 
@@ -36,8 +38,14 @@ def clock() -> FakeClock:
 
 
 @pytest.fixture
-def settings(tmp_path: Path) -> Settings:
-    return Settings(database_url=f"sqlite:///{tmp_path / 'berth.db'}", load_demo_catalog=True)
+def database_url(tmp_path: Path) -> Iterator[str]:
+    with database_for_test(tmp_path) as url:
+        yield url
+
+
+@pytest.fixture
+def settings(database_url: str) -> Settings:
+    return Settings(database_url=database_url, load_demo_catalog=True)
 
 
 @pytest.fixture

@@ -9,7 +9,6 @@ import io
 import json
 import time
 from collections.abc import Iterator
-from pathlib import Path
 from typing import Any
 
 import httpx
@@ -28,9 +27,9 @@ MAX_SCENARIOS = 50_000
 
 
 @pytest.fixture
-def settings(tmp_path: Path) -> Settings:
+def settings(database_url: str) -> Settings:
     """The shared app fixture, with small sweeps answered at once only up to ANSWER_AT_ONCE."""
-    return Settings(database_url=f"sqlite:///{tmp_path / 'berth.db'}", load_demo_catalog=True,
+    return Settings(database_url=database_url, load_demo_catalog=True,
                     sweep_answer_at_once=ANSWER_AT_ONCE, sweep_max_scenarios=MAX_SCENARIOS)
 
 

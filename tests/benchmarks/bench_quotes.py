@@ -42,12 +42,14 @@ def free_port() -> int:
         return int(probe.getsockname()[1])
 
 
-def start_server(workdir: Path) -> tuple[subprocess.Popen[bytes], str]:
+def start_server(workdir: Path, database_url: str | None = None,
+                 workers: int = 1) -> tuple[subprocess.Popen[bytes], str]:
+    """`berth serve` on a free port (by default on a SQLite file in `workdir`), once /readyz is 200."""
     port = free_port()
     url = f"http://127.0.0.1:{port}"
     env = {k: v for k, v in os.environ.items() if not k.startswith("BERTH_")}
     command = [sys.executable, "-m", "service.cli", "serve", "--host", "127.0.0.1", "--port", str(port),
-               "--database", f"sqlite:///{workdir / 'bench.db'}"]
+               "--database", database_url or f"sqlite:///{workdir / 'bench.db'}", "--workers", str(workers)]
     with open(workdir / "server.log", "wb") as log:
         process = subprocess.Popen(command, cwd=REPO_ROOT, env=env, stdout=log, stderr=subprocess.STDOUT,
                                    stdin=subprocess.DEVNULL)

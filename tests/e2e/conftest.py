@@ -1,4 +1,5 @@
-"""Real `berth serve` processes on loopback ports, each on a SQLite file the test chooses.
+"""Real `berth serve` processes on loopback ports, each on a SQLite file the test chooses (or on a
+database URL given as a string, as the PostgreSQL replica tests do).
 
 `berth_factory(database)` starts a server (the same file may be reopened after a stop or a kill) and
 returns once `/readyz` answers 200; every server started is stopped at teardown, SIGTERM first and
@@ -38,8 +39,8 @@ def _tail(path: Path, lines: int = 40) -> str:
 class BerthServer:
     """One `berth serve` subprocess; its stdout and stderr go to files beside the database."""
 
-    def __init__(self, database: Path, logs: Path, name: str) -> None:
-        self.database = database
+    def __init__(self, database: Path | str, logs: Path, name: str) -> None:
+        self.database = database  # a SQLite file, or a database URL
         self.stdout_path = logs / f"{name}.out"
         self.stderr_path = logs / f"{name}.err"
         self.port = 0
@@ -48,6 +49,10 @@ class BerthServer:
     @property
     def url(self) -> str:
         return f"http://127.0.0.1:{self.port}"
+
+    @property
+    def database_url(self) -> str:
+        return self.database if isinstance(self.database, str) else f"sqlite:///{self.database}"
 
     @property
     def pid(self) -> int:
@@ -69,7 +74,7 @@ class BerthServer:
     def _spawn(self) -> None:
         env = {k: v for k, v in os.environ.items() if not k.startswith("BERTH_")}
         command = [sys.executable, "-m", "service.cli", "serve", "--host", "127.0.0.1", "--port", str(self.port),
-                   "--database", f"sqlite:///{self.database}"]
+                   "--database", self.database_url]
         with open(self.stdout_path, "ab") as out, open(self.stderr_path, "ab") as err:
             self.process = subprocess.Popen(command, cwd=REPO_ROOT, env=env, stdout=out, stderr=err,
                                             stdin=subprocess.DEVNULL)
@@ -115,7 +120,7 @@ class BerthServer:
         return _tail(self.stderr_path)
 
 
-ServerFactory = Callable[[Path], BerthServer]
+ServerFactory = Callable[[Path | str], BerthServer]
 
 
 @pytest.fixture
@@ -124,7 +129,7 @@ def berth_factory(tmp_path: Path) -> Iterator[ServerFactory]:
     logs = tmp_path / "logs"
     logs.mkdir()
 
-    def start(database: Path) -> BerthServer:
+    def start(database: Path | str) -> BerthServer:
         server = BerthServer(database, logs, f"server-{len(started)}")
         started.append(server)
         server.start()
