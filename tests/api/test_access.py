@@ -24,11 +24,11 @@ from service.api.auth import LOCAL_MODE_RECHECK_SECONDS, LocalMode
 from service.config import Settings
 from service.storage.repository import Storage
 from tests.api.conftest import START, FakeClock
+from tests.api.problems import PROBLEM, problem_of
 from tests.conftest import load_example
 
 pytestmark = pytest.mark.anyio
 
-PROBLEM = "application/problem+json"
 TEAM = "language"  # the team of the demo campaign the quotes are filed for
 OTHER_TEAM = "perception"
 ELSEWHERE = ("203.0.113.5", 4000)  # a documentation address: not loopback
@@ -46,13 +46,6 @@ def bearer(key: str) -> dict[str, str]:
     return {"Authorization": f"Bearer {key}"}
 
 
-def problem_of(response: httpx.Response, status: int) -> dict[str, Any]:
-    assert response.status_code == status, response.text
-    assert response.headers["content-type"] == PROBLEM
-    body: dict[str, Any] = response.json()
-    assert body["status"] == status
-    assert body["type"] and body["title"] and body["detail"]
-    return body
 
 
 def expect_challenge(response: httpx.Response) -> None:

@@ -12,17 +12,7 @@ import pytest
 import yaml
 
 from tests.api.conftest import FakeClock
-
-PROBLEM = "application/problem+json"
-
-
-def problem_of(response: httpx.Response, status: int) -> dict[str, Any]:
-    assert response.status_code == status, response.text
-    assert response.headers["content-type"] == PROBLEM
-    body: dict[str, Any] = response.json()
-    assert body["status"] == status
-    assert body["type"] and body["title"] and body["detail"]
-    return body
+from tests.api.problems import problem_of
 
 
 def another_catalog(demo_catalog: dict[str, Any], name: str = "second-catalog") -> dict[str, Any]:

@@ -28,10 +28,10 @@ from service.api.schemas.request import QuoteRequestIn, TransformerWorkIn
 from service.config import Settings
 from service.loading import load_file
 from service.storage.repository import Storage
+from tests.api.problems import PROBLEM, problem_of
 from tests.conftest import load_example
 
 EXAMPLES = int(os.environ.get("BERTH_FUZZ_EXAMPLES", "25"))
-PROBLEM = "application/problem+json"
 
 # Sweeps are all answered at once (no background runner to outlive the module), and kept small.
 FUZZ_SETTINGS = {"sweep_max_scenarios": 500, "sweep_answer_at_once": 500, "fleet_max_cells": 200_000}
@@ -73,12 +73,6 @@ def test_every_operation_answers_as_documented(case: schemathesis.Case) -> None:
 
 # What the fuzzer found, pinned.
 
-def problem_of(response: httpx.Response, status: int) -> dict[str, Any]:
-    assert response.status_code == status, response.text
-    assert response.headers["content-type"] == PROBLEM
-    body: dict[str, Any] = response.json()
-    assert body["status"] == status
-    return body
 
 
 def test_metrics_are_documented_as_prometheus_text() -> None:

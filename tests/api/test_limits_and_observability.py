@@ -31,22 +31,15 @@ from service.api.observability import JsonFormatter
 from service.config import Settings
 from service.storage.repository import Storage
 from tests.api.conftest import FakeClock
+from tests.api.problems import problem_of
 from tests.conftest import load_example
 
 pytestmark = pytest.mark.anyio
 
-PROBLEM = "application/problem+json"
 MIB = 1024 * 1024
 REPO = Path(__file__).resolve().parents[2]
 
 
-def problem_of(response: httpx.Response, status: int) -> dict[str, Any]:
-    assert response.status_code == status, response.text
-    assert response.headers["content-type"] == PROBLEM
-    body: dict[str, Any] = response.json()
-    assert body["status"] == status
-    assert body["type"] and body["title"] and body["detail"]
-    return body
 
 
 def rows(storage: Storage, table: str) -> int:

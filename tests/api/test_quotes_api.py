@@ -16,19 +16,12 @@ from service.api.schemas.request import QuoteRequestIn
 from service.storage.repository import Storage
 from service.use_cases import IDEMPOTENCY_KEEP, IDEMPOTENCY_LEASE, body_fingerprint
 from tests.api.conftest import FakeClock
+from tests.api.problems import problem_of
 
-PROBLEM = "application/problem+json"
 TOP_LEVEL = {"id", "created_at", "catalog_id", "catalog_hash", "model_version", "request", "work", "options",
              "recommendation", "breakeven", "curves", "assumptions", "cautions"}
 
 
-def problem_of(response: httpx.Response, status: int) -> dict[str, Any]:
-    assert response.status_code == status, response.text
-    assert response.headers["content-type"] == PROBLEM
-    body: dict[str, Any] = response.json()
-    assert body["status"] == status
-    assert body["type"] and body["title"] and body["detail"]
-    return body
 
 
 def fields_of(problem: dict[str, Any]) -> set[str]:

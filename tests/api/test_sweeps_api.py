@@ -19,9 +19,9 @@ from service.api.schemas.catalog import CatalogIn
 from service.api.schemas.sweep import SweepIn
 from service.config import Settings
 from service.sweeps import SweepLimits, prepare_sweep, run
+from tests.api.problems import problem_of
 from tests.conftest import load_example
 
-PROBLEM = "application/problem+json"
 ANSWER_AT_ONCE = 100
 MAX_SCENARIOS = 50_000
 
@@ -59,12 +59,6 @@ def synchronous_summary(sweep: dict[str, Any]) -> dict[str, Any]:
     return as_json
 
 
-def problem_of(response: httpx.Response, status: int) -> dict[str, Any]:
-    assert response.status_code == status, response.text
-    assert response.headers["content-type"] == PROBLEM
-    body: dict[str, Any] = response.json()
-    assert body["status"] == status and body["title"] and body["detail"]
-    return body
 
 
 def read_csv(text: str) -> tuple[list[str], list[dict[str, str]]]:
