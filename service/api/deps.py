@@ -1,4 +1,7 @@
-"""Dependencies, as Annotated aliases: the storage, the parsed-catalog cache, the clock, the caller."""
+"""Dependencies, as Annotated aliases: the storage, the parsed-catalog cache, the clock, the caller.
+
+They are `async` because they only read app state: FastAPI runs a sync dependency on the thread pool,
+a hop per dependency per request that costs more than the work."""
 
 from collections.abc import Callable
 from datetime import UTC, datetime
@@ -11,22 +14,22 @@ from service.storage.repository import Storage
 from service.use_cases import ParsedCatalogs
 
 
-def _storage(request: Request) -> Storage:
+async def _storage(request: Request) -> Storage:
     storage: Storage = request.app.state.storage
     return storage
 
 
-def _catalogs(request: Request) -> ParsedCatalogs:
+async def _catalogs(request: Request) -> ParsedCatalogs:
     catalogs: ParsedCatalogs = request.app.state.catalogs
     return catalogs
 
 
-def _settings(request: Request) -> Settings:
+async def _settings(request: Request) -> Settings:
     settings: Settings = request.app.state.settings
     return settings
 
 
-def _now(request: Request) -> datetime:
+async def _now(request: Request) -> datetime:
     clock: Callable[[], datetime] = request.app.state.clock
     return clock()
 

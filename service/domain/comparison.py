@@ -93,16 +93,12 @@ def breakeven_rows(evaluation: CampaignEvaluation) -> list[BreakEvenRow]:
             campaign_accelerator_hours=campaign_hours,
             demand_hours_per_year=campaign_hours * evaluation.instances_per_year,
             new_nodes=new_nodes, depreciation_months=float(s.depreciation_months))
+        stacked = {f.name: np.broadcast_to(getattr(figures, f.name), prices.shape) for f in fields(figures)}
         for r, option in enumerate(rented):
             rows.append(BreakEvenRow(site_id, option.venue_id, option.term, listed_rented_price(option),
                                      prices[r], site.node.total, site.variable_per_accelerator_hour,
-                                     _row(figures, r, prices.shape)))
+                                     BreakEven(**{name: values[r] for name, values in stacked.items()})))
     return rows
-
-
-def _row(figures: BreakEven, r: int, shape: tuple[int, ...]) -> BreakEven:
-    """One rented option's figures out of a stacked evaluation."""
-    return BreakEven(**{f.name: np.broadcast_to(getattr(figures, f.name), shape)[r] for f in fields(figures)})
 
 
 def curves(evaluation: CampaignEvaluation) -> dict[str, Floats]:

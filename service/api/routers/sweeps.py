@@ -16,7 +16,7 @@ from service.sweeps import SweepLimits, SweepRunner, csv_chunks, get_sweep, prep
 router = APIRouter(prefix="/v1/sweeps", tags=["sweeps"])
 
 
-def _runner(request: Request) -> SweepRunner:
+async def _runner(request: Request) -> SweepRunner:
     runner: SweepRunner = request.app.state.sweeps
     return runner
 
