@@ -79,10 +79,8 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     app.add_middleware(TimeLimit, seconds=settings.request_timeout_seconds)
     app.add_middleware(RequestContext)
     app.include_router(probes.router)
-    app.include_router(catalogs.router)
-    app.include_router(quotes.router)
-    app.include_router(sweeps.router)
-    app.include_router(fleet_plans.router)
+    for router in (catalogs.router, quotes.router, sweeps.router, fleet_plans.router):
+        app.include_router(router, responses=problems.ACCESS_RESPONSES)
     app.openapi = lambda: _openapi(app)  # type: ignore[method-assign]
     return app
 

@@ -84,8 +84,12 @@ def _title(status: int) -> str:
     return TYPES.get(status, "error").replace("-", " ").capitalize()
 
 
-PROBLEM_RESPONSES: dict[int | str, dict[str, Any]] = {
-    status: {"description": TYPES[status].replace("-", " "), "model": None,
-             "content": {PROBLEM: {"schema": {"$ref": "#/components/schemas/Problem"}}}}
-    for status in (400, 404, 413, 422)  # 400: an unreadable body; 413: one over the size limit
-}
+def _problems(*statuses: int) -> dict[int | str, dict[str, Any]]:
+    return {status: {"description": TYPES[status].replace("-", " "), "model": None,
+                     "content": {PROBLEM: {"schema": {"$ref": "#/components/schemas/Problem"}}}}
+            for status in statuses}
+
+
+PROBLEM_RESPONSES = _problems(400, 404, 413, 422)  # 400: an unreadable body; 413: one over the size limit
+# Every route behind a key: no or a wrong key, a role that may not, too many requests, too slow.
+ACCESS_RESPONSES = _problems(401, 403, 429, 503)
