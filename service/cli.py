@@ -20,7 +20,7 @@ from service.api.schemas.request import QuoteRequestIn
 from service.config import Settings
 from service.errors import BerthError, InvalidInput
 from service.loading import load_file
-from service.quoting import envelope, quote
+from service.quoting import catalog_hash, envelope, quote
 from service.tables import print_plan, print_quote
 
 app = typer.Typer(add_completion=False, no_args_is_help=True,
@@ -65,7 +65,8 @@ def quote_command(
     except BerthError as error:
         _fail(error)
         return
-    document = envelope(body, catalog=catalog_in, quote_id=None, catalog_id=None, created_at=datetime.now(UTC))
+    document = envelope(body, catalog_hash=catalog_hash(catalog_in), quote_id=None, catalog_id=None,
+                        created_at=datetime.now(UTC))
     if output is QuoteFormat.json:
         sys.stdout.write(json.dumps(document, indent=2, ensure_ascii=False) + "\n")
     elif output is QuoteFormat.html:

@@ -21,7 +21,7 @@ from service.domain.terms import upfront_financing_factor
 from service.domain.venues import site_economics, sustained_flops
 from service.errors import FieldProblem, InvalidInput, NotFound
 from service.storage.repository import Storage, StoredQuote, new_id
-from service.use_cases import ParsedCatalogs
+from service.use_cases import ParsedCatalogs, catalog_to_use
 
 QuoteLookup = Callable[[Sequence[str]], list[StoredQuote | None]]
 
@@ -216,12 +216,7 @@ def _document(currency: str, request: FleetPlanIn, sizes: np.ndarray, allowed: n
 def create_fleet_plan(storage: Storage, catalogs: ParsedCatalogs, request: FleetPlanIn, *, now: datetime,
                       limits: FleetLimits) -> dict[str, Any]:
     """Plan, store and return the plan with its id and links."""
-    with storage.reading() as repository:
-        stored = repository.newest_catalog() if request.catalog_id is None else repository.catalog(request.catalog_id)
-    if stored is None:
-        if request.catalog_id is None:
-            raise NotFound("no catalog has been uploaded yet")
-        raise InvalidInput("unknown catalog", [FieldProblem("catalog_id", f"no catalog {request.catalog_id!r}")])
+    stored = catalog_to_use(storage, request.catalog_id, field="catalog_id")
 
     def lookup(ids: Sequence[str]) -> list[StoredQuote | None]:
         with storage.reading() as repository:

@@ -74,14 +74,14 @@ def model_version() -> str:
     return f"{__version__}+{hashlib.sha256(defaults.encode('utf-8')).hexdigest()[:12]}"
 
 
-def envelope(body: dict[str, Any], *, catalog: CatalogIn, quote_id: str | None, catalog_id: str | None,
+def envelope(body: dict[str, Any], *, catalog_hash: str, quote_id: str | None, catalog_id: str | None,
              created_at: datetime) -> dict[str, Any]:
     """The full response: identity and provenance first, then the body."""
     return {
         "id": quote_id,
         "created_at": created_at.isoformat().replace("+00:00", "Z"),
         "catalog_id": catalog_id,
-        "catalog_hash": catalog_hash(catalog),
+        "catalog_hash": catalog_hash,
         "model_version": model_version(),
         **body,
     }

@@ -24,7 +24,7 @@ from service.domain.whatif import PATHS, InputPath, apply, base_value
 from service.errors import FieldProblem, InvalidInput, NotFound
 from service.quoting import request_problems
 from service.storage.repository import Storage, StoredSweep, new_id
-from service.use_cases import ParsedCatalogs
+from service.use_cases import ParsedCatalogs, catalog_to_use
 
 log = logging.getLogger("berth.sweeps")
 
@@ -252,22 +252,13 @@ class SweepOutcome:
     body: dict[str, Any]
 
 
-def _catalog_for(storage: Storage, catalogs: ParsedCatalogs, catalog_id: str | None) -> tuple[str, CatalogIn]:
-    with storage.reading() as repository:
-        stored = repository.newest_catalog() if catalog_id is None else repository.catalog(catalog_id)
-    if stored is None:
-        if catalog_id is None:
-            raise NotFound("no catalog has been uploaded yet")
-        raise InvalidInput("unknown catalog", [FieldProblem("base.catalog_id", f"no catalog {catalog_id!r}")])
-    return stored.id, catalogs.get(stored)
-
-
 def submit_sweep(storage: Storage, catalogs: ParsedCatalogs, sweep: SweepIn, *, now: datetime, limits: SweepLimits,
                  answer_at_once: int, runner: "SweepRunner") -> SweepOutcome:
     """Check and store a sweep. Up to `answer_at_once` scenarios it runs now (201 with the answer);
     beyond, it is queued (202) and its progress is at GET /v1/sweeps/{id}."""
-    catalog_id, catalog_in = _catalog_for(storage, catalogs, sweep.base.catalog_id)
-    prepared = prepare_sweep(catalog_in, sweep, limits)
+    stored_catalog = catalog_to_use(storage, sweep.base.catalog_id, field="base.catalog_id")
+    catalog_id = stored_catalog.id
+    prepared = prepare_sweep(catalogs.get(stored_catalog), sweep, limits)
     sweep_id = new_id("sw")
     request = sweep.model_dump(mode="json")
     total = prepared.plan.scenarios

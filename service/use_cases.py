@@ -72,6 +72,30 @@ def load_demo_catalog(storage: Storage, path: Path, *, now: datetime) -> StoredC
     return stored
 
 
+def get_catalog(storage: Storage, catalog_id: str) -> StoredCatalog:
+    with storage.reading() as repository:
+        stored = repository.catalog(catalog_id)
+    if stored is None:
+        raise NotFound(f"no catalog {catalog_id!r}")
+    return stored
+
+
+def find_catalogs(storage: Storage, *, limit: int, cursor: str | None) -> tuple[list[StoredCatalog], str | None]:
+    with storage.reading() as repository:
+        return repository.catalogs(limit=limit, cursor=cursor)
+
+
+def catalog_to_use(storage: Storage, catalog_id: str | None, *, field: str) -> StoredCatalog:
+    """The catalog a request names in `field`, or the newest when it names none."""
+    with storage.reading() as repository:
+        stored = repository.newest_catalog() if catalog_id is None else repository.catalog(catalog_id)
+    if stored is None:
+        if catalog_id is None:
+            raise NotFound("no catalog has been uploaded yet")
+        raise InvalidInput("unknown catalog", [FieldProblem(field, f"no catalog {catalog_id!r}")])
+    return stored
+
+
 def body_fingerprint(body: bytes) -> str:
     """sha256 of the request's JSON, canonicalised, so whitespace and key order do not matter."""
     try:
@@ -117,17 +141,11 @@ def create_quote(storage: Storage, catalogs: ParsedCatalogs, request: QuoteReque
 
 def _quote_and_store(storage: Storage, catalogs: ParsedCatalogs, request: QuoteRequestIn, *, now: datetime,
                      caller: str, key: str | None) -> QuoteOutcome:
-    with storage.reading() as repository:
-        stored_catalog = (repository.newest_catalog() if request.catalog_id is None
-                          else repository.catalog(request.catalog_id))
-    if stored_catalog is None:
-        if request.catalog_id is None:
-            raise NotFound("no catalog has been uploaded yet")
-        raise InvalidInput("unknown catalog", [FieldProblem("catalog_id", f"no catalog {request.catalog_id!r}")])
-    catalog = catalogs.get(stored_catalog)
-    body = quote(catalog, request)
+    stored_catalog = catalog_to_use(storage, request.catalog_id, field="catalog_id")
+    body = quote(catalogs.get(stored_catalog), request)
     quote_id = new_id("q")
-    document = envelope(body, catalog=catalog, quote_id=quote_id, catalog_id=stored_catalog.id, created_at=now)
+    document = envelope(body, catalog_hash=stored_catalog.content_hash, quote_id=quote_id,
+                        catalog_id=stored_catalog.id, created_at=now)
     stored = StoredQuote(id=quote_id, created_at=now, team=request.campaign.team,
                          campaign_name=request.campaign.name, catalog_id=stored_catalog.id,
                          catalog_hash=stored_catalog.content_hash, model_version=document["model_version"],

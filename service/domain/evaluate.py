@@ -46,7 +46,7 @@ from service.domain.owning import (
 from service.domain.recurrence import instances_per_year, instances_total
 from service.domain.residency import allowed_jurisdictions
 from service.domain.terms import Energy, campaign_energy
-from service.domain.units import SECONDS_PER_DAY, SECONDS_PER_HOUR, TB
+from service.domain.units import SECONDS_PER_DAY, TB
 from service.domain.venues import (
     NodeLimit,
     chargeback_limit,
@@ -415,11 +415,3 @@ def _load(campaign: Campaign, options: QuoteOptions, work: WorkAmount, multiplie
         deadline_seconds=np.asarray(deadline),
         restart_seconds=default("restart_minutes") * 60.0,
     )
-
-
-def wall_clock_days(option: OptionResult) -> Floats:
-    return option.layout.wall_seconds / SECONDS_PER_DAY
-
-
-def wall_clock_hours(option: OptionResult) -> Floats:
-    return option.layout.wall_seconds / SECONDS_PER_HOUR

@@ -7,14 +7,11 @@ MONTHS_PER_YEAR = 12.0
 HOURS_PER_MONTH = HOURS_PER_YEAR / MONTHS_PER_YEAR  # 730 h: the trade's planning month
 SECONDS_PER_HOUR = 3600.0
 SECONDS_PER_DAY = 86400.0
-HOURS_PER_DAY = 24.0
 
 BITS_PER_BYTE = 8.0
 GIGA = 1e9
-TERA = 1e12
 
-GB = 1e9  # decimal gigabyte, as storage and transfer are priced
-TB = 1e12
+TB = 1e12  # decimal terabyte, as storage and transfer are priced
 
 # 1 ton of refrigeration = 12,000 Btu_IT/h = 3.516853 kW (NIST SP 811, App. B.8).
 KW_PER_TON_OF_REFRIGERATION = 3.516853

@@ -63,6 +63,3 @@ def _switch_to_wal(cursor: Any) -> None:
                 raise
             time.sleep(0.01)
 
-
-def is_sqlite(engine: Engine) -> bool:
-    return engine.dialect.name == "sqlite"

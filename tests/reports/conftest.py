@@ -17,7 +17,7 @@ from service.api.app import create_app, prepare
 from service.api.schemas.catalog import CatalogIn
 from service.api.schemas.request import QuoteRequestIn
 from service.config import Settings
-from service.quoting import envelope, quote
+from service.quoting import catalog_hash, envelope, quote
 from tests.conftest import EXAMPLES, load_example
 
 Json = dict[str, Any]
@@ -33,8 +33,8 @@ def _catalog() -> CatalogIn:
 @functools.cache
 def _document(name: str) -> Json:
     request = QuoteRequestIn.model_validate(load_example(f"campaign-{name}.json"))
-    return envelope(quote(_catalog(), request), catalog=_catalog(), quote_id=f"q_test_{name.replace('-', '_')}",
-                    catalog_id="c_demo", created_at=CREATED)
+    return envelope(quote(_catalog(), request), catalog_hash=catalog_hash(_catalog()),
+                    quote_id=f"q_test_{name.replace('-', '_')}", catalog_id="c_demo", created_at=CREATED)
 
 
 def offline_document(name: str) -> Json:
@@ -45,7 +45,7 @@ def offline_document(name: str) -> Json:
 def document_for(request: Json) -> Json:
     """The quote document of any request against the demo catalog."""
     validated = QuoteRequestIn.model_validate(request)
-    return envelope(quote(_catalog(), validated), catalog=_catalog(), quote_id="q_test_custom",
+    return envelope(quote(_catalog(), validated), catalog_hash=catalog_hash(_catalog()), quote_id="q_test_custom",
                     catalog_id="c_demo", created_at=CREATED)
 
 

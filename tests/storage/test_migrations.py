@@ -47,13 +47,6 @@ def database_url(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[str
 
 
 @pytest.fixture
-def engine(database_url: str) -> Iterator[Engine]:
-    built = build_engine(database_url)
-    yield built
-    built.dispose()
-
-
-@pytest.fixture
 def connection(engine: Engine) -> Iterator[Connection]:
     """The one connection the runner migrates on (it may hold SQLite's write lock between steps, so
     the tests look at the schema through it too)."""

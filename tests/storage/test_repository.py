@@ -3,7 +3,6 @@ BERTH_TEST_DATABASE_URL is set): SQLite's durability settings, a schema that mat
 and the repository's dedupe, paging, keys and foreign keys."""
 
 import threading
-from collections.abc import Iterator
 from concurrent.futures import ThreadPoolExecutor
 from datetime import UTC, datetime, timedelta, timezone
 from pathlib import Path
@@ -25,13 +24,6 @@ from tests.databases import sqlite_only
 NOW = datetime(2027, 1, 4, 9, 0, tzinfo=UTC)
 LEASE = timedelta(seconds=60)
 KEEP = timedelta(hours=24)
-
-
-@pytest.fixture
-def engine(database_url: str) -> Iterator[Engine]:
-    built = build_engine(database_url)
-    yield built
-    built.dispose()
 
 
 @pytest.fixture

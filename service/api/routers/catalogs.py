@@ -10,10 +10,10 @@ from service.api.deps import NowDep, RawBodyDep, StorageDep
 from service.api.problems import PROBLEM_RESPONSES
 from service.api.schemas.catalog import CatalogIn
 from service.api.schemas.quote import CatalogOut, CatalogPage
-from service.errors import FieldProblem, InvalidInput, NotFound
+from service.errors import FieldProblem, InvalidInput
 from service.loading import parse_document
 from service.storage.repository import StoredCatalog
-from service.use_cases import upload_catalog
+from service.use_cases import find_catalogs, get_catalog, upload_catalog
 
 router = APIRouter(prefix="/v1/catalogs", tags=["catalogs"])
 
@@ -55,19 +55,14 @@ def create_catalog(request: Request, body: RawBodyDep, storage: StorageDep, now:
 def list_catalogs(storage: StorageDep, _viewer: AnyKey, limit: Annotated[int, Query(ge=1, le=200)] = 50,
                   cursor: Annotated[str | None, Query(max_length=200)] = None) -> dict[str, Any]:
     """Catalogs, newest first."""
-    with storage.reading() as repository:
-        items, next_cursor = repository.catalogs(limit=limit, cursor=cursor)
+    items, next_cursor = find_catalogs(storage, limit=limit, cursor=cursor)
     return {"items": [catalog_out(c, with_content=False) for c in items], "next_cursor": next_cursor}
 
 
 @router.get("/{catalog_id}", response_model=CatalogOut, responses=PROBLEM_RESPONSES)
 def read_catalog(catalog_id: str, storage: StorageDep, _viewer: AnyKey) -> dict[str, Any]:
     """One catalog with its content."""
-    with storage.reading() as repository:
-        stored = repository.catalog(catalog_id)
-    if stored is None:
-        raise NotFound(f"no catalog {catalog_id!r}")
-    return catalog_out(stored, with_content=True)
+    return catalog_out(get_catalog(storage, catalog_id), with_content=True)
 
 
 # Referenced from the request body schema above.
