@@ -92,6 +92,8 @@ def sweep_command(
     catalog: Annotated[Path | None, typer.Option(help="catalog file (default: the demo catalog)")] = None,
     output: Annotated[SweepFormat, typer.Option("--format", help="json (summary) or csv (every row)")]
     = SweepFormat.json,
+    processes: Annotated[int, typer.Option("--processes", min=1, help="worker processes (default: one per CPU)")]
+    = os.cpu_count() or 1,
 ) -> None:
     """Run a sweep of what-if scenarios offline, with a progress bar on the terminal's error stream."""
     from service.api.schemas.sweep import SweepIn
@@ -111,10 +113,10 @@ def sweep_command(
             bar.update(task, completed=done)
 
         if output is SweepFormat.csv:
-            for text in csv_chunks(prepared, progress=advance):
+            for text in csv_chunks(prepared, progress=advance, processes=processes):
                 sys.stdout.write(text)
             return
-        summary, rows = run(prepared, progress=advance)
+        summary, rows = run(prepared, progress=advance, processes=processes)
     document = sweep_document(prepared, summary, rows, tornado_bars(prepared))
     sys.stdout.write(json.dumps(document, indent=2, ensure_ascii=False) + "\n")
 

@@ -222,7 +222,7 @@ def create_fleet_plan(storage: Storage, catalogs: ParsedCatalogs, request: Fleet
         with storage.reading() as repository:
             return repository.quotes_by_id(list(ids))
 
-    body = fleet_plan(catalogs.get(stored), request, limits=limits, lookup=lookup)
+    body = fleet_plan(catalogs.get(stored, storage), request, limits=limits, lookup=lookup)
     plan_id = new_id("fp")
     document = {"id": plan_id, "created_at": now.isoformat().replace("+00:00", "Z"), "catalog_id": stored.id,
                 **body, "links": {"self": f"/v1/fleet-plans/{plan_id}",

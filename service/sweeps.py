@@ -16,10 +16,11 @@ import numpy as np
 from service.api.observability import domain_metrics
 from service.api.schemas.catalog import CatalogIn
 from service.api.schemas.sweep import DistributionIn, SweepIn
+from service.chunk_pool import evaluated
 from service.document import Money
 from service.domain.catalog import Catalog
 from service.domain.explain import CAUTIONS
-from service.domain.sweep import SweepPlan, SweepSummary, chunk_size, evaluate_chunk, scenario_chunks, tornado
+from service.domain.sweep import ChunkResult, SweepPlan, SweepSummary, chunk_size, scenario_chunks, tornado
 from service.domain.whatif import PATHS, InputPath, apply, base_value
 from service.errors import FieldProblem, InvalidInput, NotFound
 from service.quoting import request_problems
@@ -116,14 +117,14 @@ def _support_problem(rule: InputPath, spec: DistributionIn) -> str | None:
 Progress = Callable[[int, int], None]
 
 
-def run(prepared: PreparedSweep, *, keep_rows: int = ROWS_IN_JSON,
-        progress: Progress | None = None) -> tuple[dict[str, Any], list[dict[str, Any]]]:
+def run(prepared: PreparedSweep, *, keep_rows: int = ROWS_IN_JSON, progress: Progress | None = None,
+        processes: int = 1) -> tuple[dict[str, Any], list[dict[str, Any]]]:
     """Evaluate every scenario in chunks: the summary, and the first `keep_rows` rows as JSON."""
     summary = SweepSummary(seed=prepared.plan.seed)
     rows: list[dict[str, Any]] = []
     money = Money(prepared.currency)
     total = prepared.plan.scenarios
-    for chunk in _chunks(prepared):
+    for chunk in _chunks(prepared, processes):
         summary.add(chunk)
         if len(rows) < keep_rows and total <= keep_rows:
             rows.extend(_json_rows(chunk, money))
@@ -137,12 +138,12 @@ def run(prepared: PreparedSweep, *, keep_rows: int = ROWS_IN_JSON,
     return result, rows
 
 
-def _chunks(prepared: PreparedSweep) -> Iterator[Any]:
-    size = chunk_size(prepared.catalog, prepared.plan.options)
-    for _, inputs in scenario_chunks(prepared.plan, size):
-        with np.errstate(over="ignore", divide="ignore", invalid="ignore"):  # as in quoting.quote
-            chunk = evaluate_chunk(prepared.catalog, prepared.plan, inputs)
-        yield chunk
+def _chunks(prepared: PreparedSweep, processes: int) -> Iterator[ChunkResult]:
+    plan = prepared.plan
+    size = chunk_size(prepared.catalog, plan.options)
+    inputs = (values for _, values in scenario_chunks(plan, size))
+    # A sweep of one chunk gains nothing from starting worker processes.
+    yield from evaluated(prepared.catalog, plan, inputs, processes=processes if plan.scenarios > size else 1)
 
 
 def _json_rows(chunk: Any, money: Money) -> list[dict[str, Any]]:
@@ -206,12 +207,12 @@ def csv_header(prepared: PreparedSweep, labels: list[str]) -> list[str]:
             + [f"{label} total" for label in labels])
 
 
-def csv_chunks(prepared: PreparedSweep, progress: Progress | None = None) -> Iterator[str]:
+def csv_chunks(prepared: PreparedSweep, progress: Progress | None = None, processes: int = 1) -> Iterator[str]:
     """Every scenario as CSV (RFC 4180), a chunk at a time: bounded memory at any size. Columns are
     formatted by numpy as whole arrays; no Python loop runs per scenario."""
     digits = Money(prepared.currency).digits
     first = 0
-    for chunk in _chunks(prepared):
+    for chunk in _chunks(prepared, processes):
         head = ""
         if first == 0:
             buffer = io.StringIO()
@@ -258,7 +259,7 @@ def submit_sweep(storage: Storage, catalogs: ParsedCatalogs, sweep: SweepIn, *, 
     beyond, it is queued (202) and its progress is at GET /v1/sweeps/{id}."""
     stored_catalog = catalog_to_use(storage, sweep.base.catalog_id, field="base.catalog_id")
     catalog_id = stored_catalog.id
-    prepared = prepare_sweep(catalogs.get(stored_catalog), sweep, limits)
+    prepared = prepare_sweep(catalogs.get(stored_catalog, storage), sweep, limits)
     sweep_id = new_id("sw")
     request = sweep.model_dump(mode="json")
     total = prepared.plan.scenarios
@@ -305,10 +306,10 @@ def get_sweep(storage: Storage, sweep_id: str) -> dict[str, Any]:
 def prepared_from_store(storage: Storage, catalogs: ParsedCatalogs, sweep_id: str) -> PreparedSweep:
     stored = _stored(storage, sweep_id)
     with storage.reading() as repository:
-        catalog = repository.catalog(stored.catalog_id)
+        catalog = repository.catalog_ref(stored.catalog_id)
     if catalog is None:
         raise NotFound(f"the catalog of sweep {sweep_id!r} is gone")
-    return prepare_sweep(catalogs.get(catalog), SweepIn.model_validate(stored.request),
+    return prepare_sweep(catalogs.get(catalog, storage), SweepIn.model_validate(stored.request),
                          SweepLimits(max_scenarios=stored.scenarios_total))
 
 

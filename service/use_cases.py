@@ -17,27 +17,32 @@ from service.api.schemas.request import QuoteRequestIn
 from service.errors import Conflict, FieldProblem, Forbidden, InvalidInput, NotFound
 from service.loading import parse_document, validate
 from service.quoting import catalog_hash, envelope, model_version, quote
-from service.storage.repository import Storage, StoredCatalog, StoredQuote, new_id
+from service.storage.repository import CatalogRef, Storage, StoredCatalog, StoredQuote, new_id
 
 IDEMPOTENCY_KEEP = timedelta(hours=24)
 IDEMPOTENCY_LEASE = timedelta(seconds=60)
 
 
 class ParsedCatalogs:
-    """Validated catalogs by content hash: stored catalogs never change, so parsing once is enough."""
+    """Validated catalogs by content hash: stored catalogs never change, so reading and parsing
+    each once is enough."""
 
     def __init__(self, size: int = 32) -> None:
         self._items: OrderedDict[str, CatalogIn] = OrderedDict()
         self._size = size
 
-    def get(self, stored: StoredCatalog) -> CatalogIn:
-        parsed = self._items.get(stored.content_hash)
+    def get(self, ref: CatalogRef, storage: Storage) -> CatalogIn:
+        parsed = self._items.get(ref.content_hash)
         if parsed is None:
+            with storage.reading() as repository:
+                stored = repository.catalog(ref.id)
+            if stored is None:  # catalogs are never deleted; say so plainly if one is
+                raise NotFound(f"the catalog {ref.id!r} is gone")
             parsed = CatalogIn.model_validate(stored.content)
-            self._items[stored.content_hash] = parsed
+            self._items[ref.content_hash] = parsed
             if len(self._items) > self._size:
                 self._items.popitem(last=False)
-        self._items.move_to_end(stored.content_hash)
+        self._items.move_to_end(ref.content_hash)
         return parsed
 
 
@@ -85,10 +90,11 @@ def find_catalogs(storage: Storage, *, limit: int, cursor: str | None) -> tuple[
         return repository.catalogs(limit=limit, cursor=cursor)
 
 
-def catalog_to_use(storage: Storage, catalog_id: str | None, *, field: str) -> StoredCatalog:
-    """The catalog a request names in `field`, or the newest when it names none."""
+def catalog_to_use(storage: Storage, catalog_id: str | None, *, field: str) -> CatalogRef:
+    """The catalog a request names in `field`, or the newest when it names none (its content is
+    read only when `ParsedCatalogs` has not parsed it yet)."""
     with storage.reading() as repository:
-        stored = repository.newest_catalog() if catalog_id is None else repository.catalog(catalog_id)
+        stored = repository.catalog_ref(catalog_id)
     if stored is None:
         if catalog_id is None:
             raise NotFound("no catalog has been uploaded yet")
@@ -142,7 +148,7 @@ def create_quote(storage: Storage, catalogs: ParsedCatalogs, request: QuoteReque
 def _quote_and_store(storage: Storage, catalogs: ParsedCatalogs, request: QuoteRequestIn, *, now: datetime,
                      caller: str, key: str | None) -> QuoteOutcome:
     stored_catalog = catalog_to_use(storage, request.catalog_id, field="catalog_id")
-    body = quote(catalogs.get(stored_catalog), request)
+    body = quote(catalogs.get(stored_catalog, storage), request)
     quote_id = new_id("q")
     document = envelope(body, catalog_hash=stored_catalog.content_hash, quote_id=quote_id,
                         catalog_id=stored_catalog.id, created_at=now)
@@ -187,12 +193,8 @@ def recompute_quote(storage: Storage, catalogs: ParsedCatalogs, quote_id: str,
                     viewer: Principal = LOCAL) -> dict[str, Any]:
     """Recompute a stored quote from its stored request and catalog, and say what differs."""
     stored = get_quote(storage, quote_id, viewer)
-    with storage.reading() as repository:
-        stored_catalog = repository.catalog(stored.catalog_id)
-    if stored_catalog is None:  # foreign keys make this unreachable, but say so plainly if it happens
-        raise NotFound(f"the catalog {stored.catalog_id!r} of quote {quote_id!r} is gone")
     request = QuoteRequestIn.model_validate(stored.request)
-    recomputed = quote(catalogs.get(stored_catalog), request)
+    recomputed = quote(catalogs.get(CatalogRef(stored.catalog_id, stored.catalog_hash), storage), request)
     previous = {k: v for k, v in stored.response.items()
                 if k not in ("id", "created_at", "catalog_id", "catalog_hash", "model_version")}
     differences = list(_differences(previous, recomputed, ""))

@@ -13,7 +13,7 @@ from fastapi.openapi.utils import get_openapi
 from service import __version__
 from service.api import problems
 from service.api.auth import LocalMode, RateLimiter
-from service.api.deps import utc_now
+from service.api.deps import compute_lane, utc_now
 from service.api.examples import quote_request_examples
 from service.api.middleware import BodyLimit, RequestContext, TimeLimit
 from service.api.observability import install_metrics
@@ -69,6 +69,7 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     app.state.storage = Storage(build_engine(settings.database_url))
     app.state.catalogs = ParsedCatalogs()
     app.state.clock = clock
+    app.state.compute_lane = compute_lane()
     app.state.sweeps = SweepRunner(app.state.storage, app.state.catalogs, clock)
     app.state.local_mode = LocalMode(app.state.storage)
     app.state.rate_limiter = RateLimiter(per_second=settings.rate_limit_per_second, burst=settings.rate_limit_burst)

@@ -9,10 +9,11 @@ import ipaddress
 import math
 import threading
 import time
-from collections.abc import Callable
+from collections.abc import Awaitable, Callable
 from typing import Annotated
 
 from fastapi import Depends, Request
+from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException
 
 from service.access import LOCAL, Principal, Role, keys_configured, resolve
@@ -31,9 +32,16 @@ class LocalMode:
         self._local = True
         self._lock = threading.Lock()
 
+    def known(self) -> bool | None:
+        """The last answer while it is fresh, else None. It never waits on the database or on a check
+        in progress, so the event loop may call it; `active()` does the checking."""
+        checked = self._checked  # read before the answer, which `active()` writes before the time
+        local = self._local
+        return local if time.monotonic() - checked < LOCAL_MODE_RECHECK_SECONDS else None
+
     def active(self) -> bool:
-        now = time.monotonic()
         with self._lock:
+            now = time.monotonic()
             if now - self._checked >= LOCAL_MODE_RECHECK_SECONDS:
                 self._local = not keys_configured(self._storage)
                 self._checked = now
@@ -70,16 +78,21 @@ def _loopback(request: Request) -> bool:
         return host in ("localhost", "testclient")
 
 
-def principal(request: Request) -> Principal:
+async def principal(request: Request) -> Principal:
+    # Async, so a request whose answer is already known (local mode, checked in the last few
+    # seconds) costs no thread hop; the database is only read on a worker thread.
     state = request.app.state
-    if state.local_mode.active():
+    local = state.local_mode.known()
+    if local is None:
+        local = await run_in_threadpool(state.local_mode.active)
+    if local:
         if not _loopback(request):
             raise HTTPException(403, "berth runs in local mode (no API keys configured) and answers loopback only")
         return LOCAL
     scheme, _, presented = request.headers.get("authorization", "").partition(" ")
     if scheme.lower() != "bearer" or not presented.strip():
         raise HTTPException(401, "send Authorization: Bearer <key>", headers=CHALLENGE)
-    found = resolve(state.storage, presented.strip())
+    found = await run_in_threadpool(resolve, state.storage, presented.strip())
     if found is None:
         raise HTTPException(401, "the key is unknown or revoked", headers=CHALLENGE)
     wait = state.rate_limiter.retry_after(found.key_id)
@@ -88,9 +101,9 @@ def principal(request: Request) -> Principal:
     return found
 
 
-def allow(*roles: Role) -> Callable[[Principal], Principal]:
+def allow(*roles: Role) -> Callable[[Principal], Awaitable[Principal]]:
     """A dependency that lets the given roles through and answers 403 to the others."""
-    def check(who: Annotated[Principal, Depends(principal)]) -> Principal:
+    async def check(who: Annotated[Principal, Depends(principal)]) -> Principal:
         if who.role not in roles:
             raise HTTPException(403, f"this needs the role {' or '.join(roles)}; the key is a {who.role}")
         return who

@@ -108,7 +108,9 @@ class BodyLimit:
 
 class TimeLimit:
     """Answers 503 when a request has not started its response within `seconds`. A streaming
-    response that has started may run on (a large CSV takes as long as it takes)."""
+    response that has started may run on (a large CSV takes as long as it takes). One task and one
+    timer per request: the application runs in the task, and whichever comes first of the response
+    starting, the task ending and the timer firing decides."""
 
     def __init__(self, app: ASGIApp, *, seconds: float) -> None:
         self.app = app
@@ -118,25 +120,37 @@ class TimeLimit:
         if scope["type"] != "http":
             await self.app(scope, receive, send)
             return
-        started = asyncio.Event()
-        timed_out = False
+        loop = asyncio.get_running_loop()
+        decided: asyncio.Future[None] = loop.create_future()
+        started = timed_out = False
+
+        def decide(_: object = None) -> None:
+            if not decided.done():
+                decided.set_result(None)
 
         async def guarded_send(message: Message) -> None:
+            nonlocal started
             if timed_out:
                 return  # the caller already has its 503
             if message["type"] == "http.response.start":
-                started.set()
+                started = True
+                decide()
             await send(message)
 
         task = asyncio.ensure_future(self.app(scope, receive, guarded_send))
-        waiter = asyncio.ensure_future(started.wait())
-        done, _ = await asyncio.wait({task, waiter}, timeout=self.seconds, return_when=asyncio.FIRST_COMPLETED)
-        if not done:
+        task.add_done_callback(decide)
+        timer = loop.call_later(self.seconds, decide)
+        try:
+            await decided
+        except asyncio.CancelledError:
+            task.cancel()  # the server gave up on this request: so does the application
+            raise
+        finally:
+            timer.cancel()
+        if not started and not task.done():
             timed_out = True
             task.cancel()
-            waiter.cancel()
             await send_problem(send, 503, "Timed out", f"the request took longer than {self.seconds:g} s; "
                                "large what-ifs belong in a background sweep", headers=[(b"retry-after", b"5")])
             return
-        waiter.cancel()
         await task

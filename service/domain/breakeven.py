@@ -18,15 +18,26 @@ BEYOND_LIFE = "beyond_depreciation_life"
 
 @dataclass(frozen=True)
 class BreakEven:
-    """One owned site against one rented price; NaN where there is no break-even (see `why`)."""
+    """One owned site against one rented price; NaN where there is no break-even (see the reasons)."""
 
     utilisation: Floats
     utilisation_unbounded: Floats
     accelerator_hours_per_year: Floats
     campaigns_per_year: Floats
-    payback_months: Floats
-    utilisation_reason: np.ndarray  # str codes, "" where a break-even exists
-    payback_reason: np.ndarray
+    payback_months: Floats  # NaN beyond the depreciation life
+    payback_months_unbounded: Floats  # inf when renting never saves the running cost
+
+    # The reasons are words for people: sweeps never read them, so they are made on demand.
+    @property
+    def utilisation_reason(self) -> np.ndarray:
+        """A code where there is no break-even utilisation, "" where there is one."""
+        u = self.utilisation_unbounded
+        return np.where(np.isfinite(u), np.where(u <= 1.0, "", ABOVE_FULL_USE), NO_MARGIN)
+
+    @property
+    def payback_reason(self) -> np.ndarray:
+        months = self.payback_months_unbounded
+        return np.where(np.isfinite(months), np.where(np.isnan(self.payback_months), BEYOND_LIFE, ""), NO_SAVING)
 
 
 def breakeven_utilisation(
@@ -75,16 +86,13 @@ def break_even(
         demand_hours_per_month=demand, rented_per_accelerator_hour=rented_per_accelerator_hour,
         variable_per_accelerator_hour=variable_per_accelerator_hour)
     within = months <= depreciation_months
-    u_reason = np.where(np.isfinite(u), np.where(reachable, "", ABOVE_FULL_USE), NO_MARGIN)
-    p_reason = np.where(np.isfinite(months), np.where(within, "", BEYOND_LIFE), NO_SAVING)
     return BreakEven(
         utilisation=np.where(reachable, u, np.nan),
         utilisation_unbounded=u,
         accelerator_hours_per_year=hours,
         campaigns_per_year=hours / as_floats(campaign_accelerator_hours),
         payback_months=np.where(within, months, np.nan),
-        utilisation_reason=u_reason,
-        payback_reason=p_reason,
+        payback_months_unbounded=months,
     )
 
 

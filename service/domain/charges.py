@@ -1,7 +1,13 @@
-"""Cost builders: for one venue and term, a function from the layout grid to its cost lines and
-the term's own figures. `evaluate` calls them once per (venue, term); `terms` holds the formulas."""
+"""Charges: what one term at one venue costs, in the two forms the layout search needs.
+
+`cost` prices every candidate layout of the grid, so the search can keep the cheapest; it may
+leave out what only varies by scenario (such a part cannot change which layout is cheapest), and
+it sums the lines in few whole-grid passes. `itemise` gives the cost lines and the term's own
+figures for the chosen layout. `evaluate` builds one per (venue, term); `terms` holds the formulas.
+"""
 
 from collections.abc import Callable
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -11,72 +17,118 @@ from service.domain.gravity import Transfer
 from service.domain.layout import LayoutGrid
 from service.domain.owning import NodeMonth, SiteEconomics
 from service.domain.terms import (
+    CommittedShare,
     Lines,
+    NewBuildShare,
+    chargeback_cost,
     chargeback_lines,
     committed_lines,
     committed_share,
     data_lines,
     hourly_lines,
+    new_build_cost,
     new_build_lines,
     new_build_share,
+    storage_cost,
 )
 
-CostBuilder = Callable[[LayoutGrid], tuple[Lines, dict[str, Floats]]]
-DataBuilder = Callable[[LayoutGrid], Lines]
+
+@dataclass(frozen=True)
+class Charges:
+    cost: Callable[[LayoutGrid], Floats]
+    itemise: Callable[[LayoutGrid], tuple[Lines, dict[str, Floats]]]
+
+
+@dataclass(frozen=True)
+class DataCharges:
+    """A venue's data lines, and the part of them that depends on the layout (storage)."""
+
+    lines: Callable[[LayoutGrid], Lines]
+    layout_cost: Callable[[LayoutGrid], Floats | float]
 
 
 def data_charges(campaign: Campaign, transfer: Transfer, *, storage_per_gb_month: float | None,
-                 results_egress_per_gb: float) -> DataBuilder:
+                 results_egress_per_gb: float) -> DataCharges:
     data = campaign.data
     checkpoint_tb = 0.0 if data.checkpoint_tb is None else data.checkpoint_tb
 
-    def build(grid: LayoutGrid) -> Lines:
+    def lines(grid: LayoutGrid) -> Lines:
         return data_lines(grid, data, checkpoint_tb=checkpoint_tb, storage_per_gb_month=storage_per_gb_month,
                           transfer=transfer, results_egress_per_gb=results_egress_per_gb)
-    return build
+
+    # The terms of an offer price the same grid: its storage is computed once per grid.
+    stored: dict[int, tuple[LayoutGrid, Floats]] = {}
+
+    def layout_cost(grid: LayoutGrid) -> Floats | float:
+        if storage_per_gb_month is None:
+            return 0.0
+        if id(grid) not in stored:  # the grid is kept with its cost, so its id is not reused
+            stored[id(grid)] = grid, storage_cost(grid, data, checkpoint_tb=checkpoint_tb,
+                                                  storage_per_gb_month=storage_per_gb_month)
+        return stored[id(grid)][1]
+    return DataCharges(lines, layout_cost)
 
 
 def chargeback_charges(node: NodeMonth, variable: Floats, economics: SiteEconomics,
-                       data: DataBuilder) -> CostBuilder:
+                       data: DataCharges) -> Charges:
     per_node = economics.site.node_type.accelerators_per_node
+    utilisation = economics.utilisation_planned
 
-    def build(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
-        lines = chargeback_lines(grid, node, accelerators_per_node=per_node,
-                                 utilisation=economics.utilisation_planned,
-                                 variable_per_accelerator_hour=variable) | data(grid)
-        return lines, {"utilisation": np.asarray(economics.utilisation_planned).reshape(-1, 1)}
-    return build
+    def cost(grid: LayoutGrid) -> Floats:
+        return chargeback_cost(grid, node, accelerators_per_node=per_node, utilisation=utilisation,
+                               variable_per_accelerator_hour=variable)
+
+    def itemise(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
+        lines = chargeback_lines(grid, node, accelerators_per_node=per_node, utilisation=utilisation,
+                                 variable_per_accelerator_hour=variable) | data.lines(grid)
+        return lines, {"utilisation": np.asarray(utilisation).reshape(-1, 1)}
+    return Charges(cost, itemise)
 
 
 def new_build_charges(node: NodeMonth, variable: Floats, economics: SiteEconomics, campaign: Campaign,
-                      data: DataBuilder) -> CostBuilder:
+                      data: DataCharges) -> Charges:
     site = economics.site
 
-    def build(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
-        share = new_build_share(grid, depreciation_months=site.depreciation_months,
-                                accelerators_per_node=site.node_type.accelerators_per_node,
-                                recurrence=campaign.recurrence)
-        lines = new_build_lines(grid, node, share, variable_per_accelerator_hour=variable) | data(grid)
+    def share_of(grid: LayoutGrid) -> NewBuildShare:
+        return new_build_share(grid, depreciation_months=site.depreciation_months,
+                               accelerators_per_node=site.node_type.accelerators_per_node,
+                               recurrence=campaign.recurrence)
+
+    def cost(grid: LayoutGrid) -> Floats:
+        return new_build_cost(grid, node, share_of(grid), variable_per_accelerator_hour=variable)
+
+    def itemise(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
+        share = share_of(grid)
+        lines = new_build_lines(grid, node, share, variable_per_accelerator_hour=variable) | data.lines(grid)
         return lines, {"utilisation": share.utilisation, "sharing_instances": share.sharing_instances,
                        "carried_months": share.carried_months}
-    return build
+    return Charges(cost, itemise)
 
 
-def hourly_charges(price: Floats, data: DataBuilder) -> CostBuilder:
-    def build(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
-        lines = hourly_lines(grid, price_per_accelerator_hour=price) | data(grid)
+def hourly_charges(price: Floats, data: DataCharges) -> Charges:
+    def cost(grid: LayoutGrid) -> Floats:
+        return np.asarray(hourly_lines(grid, price_per_accelerator_hour=price)["compute"] + data.layout_cost(grid))
+
+    def itemise(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
+        lines = hourly_lines(grid, price_per_accelerator_hour=price) | data.lines(grid)
         return lines, {"price_per_accelerator_hour": np.asarray(price).reshape(-1, 1)}
-    return build
+    return Charges(cost, itemise)
 
 
 def committed_charges(months: int, upfront: float, price: Floats, cost_of_capital: Floats,
-                      accelerators_per_node: int, campaign: Campaign, data: DataBuilder) -> CostBuilder:
-    def build(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
+                      accelerators_per_node: int, campaign: Campaign, data: DataCharges) -> Charges:
+    def commitment(grid: LayoutGrid) -> tuple[Lines, CommittedShare]:
         share = committed_share(grid, months=months, upfront_fraction=upfront,
                                 cost_of_capital_annual=cost_of_capital, recurrence=campaign.recurrence)
-        lines = committed_lines(grid, share, months=months, accelerators_per_node=accelerators_per_node,
-                                price_per_accelerator_hour=price) | data(grid)
-        return lines, {"price_per_accelerator_hour": np.asarray(price).reshape(-1, 1),
-                       "terms_needed": share.terms_needed, "sharing_instances": share.sharing_instances,
-                       "financing_factor": share.financing_factor}
-    return build
+        return committed_lines(grid, share, months=months, accelerators_per_node=accelerators_per_node,
+                               price_per_accelerator_hour=price), share
+
+    def cost(grid: LayoutGrid) -> Floats:
+        return np.asarray(commitment(grid)[0]["commitment"] + data.layout_cost(grid))
+
+    def itemise(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
+        lines, share = commitment(grid)
+        return lines | data.lines(grid), {
+            "price_per_accelerator_hour": np.asarray(price).reshape(-1, 1), "terms_needed": share.terms_needed,
+            "sharing_instances": share.sharing_instances, "financing_factor": share.financing_factor}
+    return Charges(cost, itemise)

@@ -6,18 +6,18 @@ venues and terms, never over scenarios.
 
 import functools
 from collections.abc import Iterable
-from dataclasses import dataclass, field
-from typing import Literal
+from dataclasses import dataclass, field, fields
+from typing import Any, Literal
 
 import numpy as np
 
 from service.domain import screens
-from service.domain.arrays import Bools, Floats, Ints, as_floats
+from service.domain.arrays import Bools, Floats, Ints, as_floats, broadcast, largest_count
 from service.domain.assumptions import default
 from service.domain.campaign import Campaign, MeasuredWork, Overrides, QuoteOptions, TransformerWork
 from service.domain.catalog import Catalog, NodeType, Offer, Site
 from service.domain.charges import (
-    CostBuilder,
+    Charges,
     chargeback_charges,
     committed_charges,
     data_charges,
@@ -26,15 +26,19 @@ from service.domain.charges import (
 )
 from service.domain.gravity import Transfer, staging_seconds, transfer
 from service.domain.layout import (
+    Choice,
+    Eligible,
     Hardware,
     LayoutGrid,
     Load,
+    Picker,
     architecture_activation_bytes,
+    as_column,
     candidate_nodes,
     choose,
+    eligible,
     evaluate_layouts,
-    pick,
-    pick_grid,
+    first_columns,
 )
 from service.domain.memory import minimum_shards, model_state_bytes, usable_bytes
 from service.domain.owning import (
@@ -246,6 +250,18 @@ class _Physics:
     grid: LayoutGrid
     min_nodes: Floats
     pinned_nodes: float | None  # options.fixed_accelerators as whole nodes
+    _candidates: dict[int, tuple[NodeLimit, LayoutGrid, Eligible]] = field(default_factory=dict)
+
+    def candidates(self, limit: NodeLimit) -> tuple[LayoutGrid, Eligible]:
+        """The grid up to the limit's largest node count, and which of its layouts a term under
+        that limit may take; computed once per limit, as the terms of an offer share one."""
+        if id(limit) not in self._candidates:  # the limit is kept with them, so its id is not reused
+            count = int(min(self.grid.nodes.shape[-1], largest_count(limit.nodes)))
+            grid = first_columns(self.grid, count)
+            self._candidates[id(limit)] = limit, grid, eligible(grid, node_limit=limit.nodes,
+                                                                deadline_seconds=self.load.deadline_seconds)
+        _, grid, layouts = self._candidates[id(limit)]
+        return grid, layouts
 
 
 def _physics(venue: _Venue, context: _Context, *, top_limit: Floats,
@@ -272,21 +288,27 @@ def _physics(venue: _Venue, context: _Context, *, top_limit: Floats,
     return _Physics(load, hardware, grid, _minimum_nodes(load, hardware), pinned)
 
 
-def _evaluate(venue: _Venue, term: str, limit: NodeLimit, build_cost: CostBuilder, physics: _Physics) -> OptionResult:
+def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, physics: _Physics) -> OptionResult:
+    """Price every candidate layout, keep the cheapest per scenario, then itemise only that one."""
     node = venue.node_type
-    grid = physics.grid
-    lines_grid, details_grid = build_cost(grid)
-    total_grid = sum_lines(lines_grid.values())
-    choice = choose(grid, total_grid, node_limit=limit.nodes, deadline_seconds=physics.load.deadline_seconds)
-    chosen = pick_grid(grid, choice.index)
-    min_nodes = np.broadcast_to(physics.min_nodes, choice.index.shape)
+    grid, layouts = physics.candidates(limit)
+    choice = choose(layouts, charges.cost(grid))
+    chosen = Picker(choice.index).grid(grid)
+    lines_at, details_at = charges.itemise(as_column(chosen))
+    # A line that does not depend on the layout may vary by scenario when nothing else does.
+    shape = (max(choice.index.size, *(np.size(v) for v in (*lines_at.values(), *details_at.values()))),)
+    if shape != choice.index.shape:
+        choice = Choice(*(broadcast(v, shape) for v in (choice.index, choice.any_fits, choice.meets_deadline)))
+        chosen = LayoutGrid(**{f.name: _per_scenario(getattr(chosen, f.name), shape) for f in fields(chosen)})
+    lines = {item: _per_scenario(amount, shape) for item, amount in lines_at.items()}
+    min_nodes = broadcast(physics.min_nodes, shape)
     pinned = physics.pinned_nodes
     # The nodes the option needs: the memory minimum, or the pinned count when one is pinned.
-    needed = min_nodes if pinned is None else np.broadcast_to(pinned, choice.index.shape)
+    needed = min_nodes if pinned is None else broadcast(pinned, shape)
     mask = _screen(venue, physics.hardware, limit, min_nodes, needed, choice.any_fits, choice.meets_deadline,
-                   shape=choice.index.shape)
+                   shape=shape)
     if pinned is not None:
-        holds = pick(grid.fits, np.zeros_like(choice.index))
+        holds = _per_scenario(grid.fits[:, 0], shape)  # the pinned count is the only candidate
         mask |= np.where(~holds & np.isfinite(min_nodes), screens.PINNED_TOO_FEW, 0)
         # A pinned count that cannot hold the model is that problem, not a capacity one.
         mask &= np.where(~holds, ~(screens.CAPACITY | screens.POWER | screens.COOLING), -1)
@@ -304,20 +326,23 @@ def _evaluate(venue: _Venue, term: str, limit: NodeLimit, build_cost: CostBuilde
         min_nodes=min_nodes,
         needed_nodes=needed,
         limit=limit,
-        lines={item: pick(amount, choice.index) for item, amount in lines_grid.items()},
-        total=pick(total_grid, choice.index),
+        lines=lines,
+        total=sum_lines(lines.values()),
         energy=energy,
         transfer=venue.transfer,
-        staging_seconds=np.broadcast_to(physics.hardware.staging_seconds, choice.index.shape),
-        details={name: pick(value, choice.index) for name, value in details_grid.items()},
+        staging_seconds=broadcast(physics.hardware.staging_seconds, shape),
+        details={name: _per_scenario(value, shape) for name, value in details_at.items()},
     )
 
 
+def _per_scenario(values: Any, shape: tuple[int, ...]) -> Any:
+    """A figure of the chosen layout ((S, 1), (1, 1) or a scalar) as an (S,) array."""
+    return broadcast(np.asarray(values).reshape(-1), shape)
+
+
 def sum_lines(lines: Iterable[Floats]) -> Floats:
-    """The sum of cost lines of mixed shapes, the small ones first: lines that do not vary by
-    layout are (S, 1), and adding them together before the (S, K) ones saves whole-grid passes."""
-    ordered = sorted((np.asarray(line) for line in lines), key=lambda line: line.size)
-    return functools.reduce(np.add, ordered)
+    """The total of an option's cost lines, in the order they are listed."""
+    return functools.reduce(np.add, lines)
 
 
 def _screen(

@@ -10,7 +10,7 @@ from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats
+from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats, broadcast, largest_count
 from service.domain.assumptions import default
 from service.domain.campaign import Parallelism, Recompute
 from service.domain.memory import activation_bytes_per_layer, model_state_bytes, usable_bytes
@@ -96,8 +96,7 @@ def candidate_nodes(*, node_limit: ArrayLike, fixed_accelerators: int | None,
     """Node counts to evaluate: 1 to the largest limit of any scenario, or the pinned count."""
     if fixed_accelerators is not None:
         return np.array([float(np.ceil(fixed_accelerators / accelerators_per_node))])
-    top = float(np.nanmax(np.maximum(as_floats(node_limit), 1.0)))
-    return np.arange(1.0, top + 1.0)
+    return np.arange(1.0, largest_count(node_limit) + 1.0)
 
 
 def evaluate_layouts(
@@ -192,8 +191,9 @@ def evaluate_layouts(
         restart_seconds=load.restart_seconds,
         mtbi_seconds=mtbi,
     )
-    solve_seconds = steps_per_run * scenario(load.runs_multiplier) * timing.step_seconds
-    wall = solve_seconds * wall_fraction + scenario(hardware.staging_seconds)
+    # Scenario factors times layout factors: one pass over the (S, K) grid instead of three.
+    wall = ((steps_per_run * scenario(load.runs_multiplier)) * (timing.step_seconds * wall_fraction)
+            + scenario(hardware.staging_seconds))
     return LayoutGrid(
         nodes=column,
         accelerators=accelerators,
@@ -209,54 +209,94 @@ def evaluate_layouts(
         failure_overhead=wall_fraction - 1.0,
         checkpoint_interval_seconds=np.where(np.isfinite(interval), interval, np.nan),
         wall_seconds=wall,
-        accelerator_hours=accelerators * wall / SECONDS_PER_HOUR,
+        accelerator_hours=wall * (accelerators / SECONDS_PER_HOUR),
     )
 
 
 @dataclass(frozen=True)
+class Eligible:
+    """Which candidate layouts a term may take: those that hold the model within its node limit,
+    and of them those that meet the deadline. Terms of a venue with one limit share it."""
+
+    allowed: Bools  # (R, K), R = 1 or S
+    meets: Bools  # (R, K)
+    any_fits: Bools  # (R,): some layout within the limit holds the model
+    meets_deadline: Bools  # (R,)
+    fastest: Ints | None  # (R,): the fastest allowed layout; None when every row meets the deadline
+
+
+def eligible(grid: LayoutGrid, *, node_limit: ArrayLike, deadline_seconds: ArrayLike) -> Eligible:
+    limit = as_floats(node_limit).reshape(-1, 1)
+    deadline = as_floats(deadline_seconds).reshape(-1, 1)
+    # Every input may vary by scenario or not: settle on one shape for all of them.
+    shape = np.broadcast_shapes(grid.wall_seconds.shape, grid.fits.shape, grid.nodes.shape, limit.shape,
+                                deadline.shape)
+    allowed = np.broadcast_to(grid.fits & (grid.nodes <= limit), shape)
+    meets = allowed & (grid.wall_seconds <= deadline)
+    meets_deadline = np.asarray(meets.any(axis=1))
+    # The fallback layout is needed only where nothing meets the deadline, which is rare.
+    fastest = None if meets_deadline.all() else np.argmin(np.where(allowed, grid.wall_seconds, np.inf), axis=1)
+    return Eligible(allowed, meets, np.asarray(allowed.any(axis=1)), meets_deadline, fastest)
+
+
+@dataclass(frozen=True)
 class Choice:
-    """The column kept for each scenario and why."""
+    """The column kept for each scenario and why: (S,) arrays."""
 
     index: Ints
-    any_fits: Bools  # some layout within the limit holds the model
+    any_fits: Bools
     meets_deadline: Bools
 
 
-def choose(grid: LayoutGrid, cost: Floats, *, node_limit: ArrayLike, deadline_seconds: ArrayLike) -> Choice:
-    """Per scenario, the cheapest layout within the limit that meets the deadline; when none
-    meets it, the fastest layout that fits (reported as missing the deadline)."""
-    limit = as_floats(node_limit).reshape(-1, 1)
-    deadline = as_floats(deadline_seconds).reshape(-1, 1)
-    # Every input may vary by scenario or not: settle on the full (S, K) shape once.
-    shape = np.broadcast_shapes(np.shape(cost), grid.wall_seconds.shape, grid.fits.shape, grid.nodes.shape,
-                                limit.shape, deadline.shape)
-    allowed = np.broadcast_to(grid.fits & (grid.nodes <= limit), shape)
-    wall = np.broadcast_to(grid.wall_seconds, shape)
-    meets = allowed & (wall <= deadline)
-    any_meets = meets.any(axis=1)
-    cheapest = np.argmin(np.where(meets, cost, np.inf), axis=1)
-    fastest = np.argmin(np.where(allowed, wall, np.inf), axis=1)
+def choose(layouts: Eligible, cost: Floats) -> Choice:
+    """Per scenario, the cheapest layout that meets the deadline; when none meets it, the fastest
+    layout that fits (reported as missing the deadline)."""
+    cheapest = np.argmin(np.where(layouts.meets, cost, np.inf), axis=1)
+    index = cheapest if layouts.fastest is None else np.where(layouts.meets_deadline, cheapest, layouts.fastest)
+    scenarios = (max(index.shape[0], np.shape(cost)[0]),)
     return Choice(
-        index=np.where(any_meets, cheapest, fastest).astype(np.int64),
-        any_fits=np.asarray(allowed.any(axis=1)),
-        meets_deadline=np.asarray(any_meets),
+        index=broadcast(index, scenarios).astype(np.int64, copy=False),
+        any_fits=broadcast(layouts.any_fits, scenarios),
+        meets_deadline=broadcast(layouts.meets_deadline, scenarios),
     )
 
 
-def pick(values: ArrayLike, index: Ints) -> Any:
-    """The chosen column per scenario of an array that broadcasts to (S, K), as an (S,) array of
-    the same dtype (indexing, not broadcasting, so size-1 axes cost nothing)."""
-    array = np.asarray(values)
-    if array.ndim < 2:
-        return np.broadcast_to(array, index.shape).copy()
-    rows = np.arange(index.shape[0]) if array.shape[0] > 1 else np.zeros_like(index)
-    columns = index if array.shape[1] > 1 else np.zeros_like(index)
-    return array[rows, columns]
+class Picker:
+    """The chosen column per scenario of arrays that broadcast to (S, K), as (S,) arrays of the
+    same dtype (indexing, not broadcasting, so size-1 axes cost nothing)."""
+
+    def __init__(self, index: Ints) -> None:
+        self.index = index
+        self._every_row = np.arange(index.shape[0])
+        self._first = np.zeros_like(index)
+
+    def __call__(self, values: ArrayLike) -> Any:
+        array = np.asarray(values)
+        if array.ndim < 2:
+            return np.broadcast_to(array, self.index.shape).copy()
+        rows = self._every_row if array.shape[0] > 1 else self._first
+        columns = self.index if array.shape[1] > 1 else self._first
+        return array[rows, columns]
+
+    def grid(self, grid: LayoutGrid) -> LayoutGrid:
+        """Every field of the grid at the chosen column: (S,) arrays."""
+        return LayoutGrid(**{f.name: self(getattr(grid, f.name)) for f in fields(grid)})
 
 
-def pick_grid(grid: LayoutGrid, index: Ints) -> LayoutGrid:
-    """Every field of the grid at the chosen column: (S,) arrays."""
-    return LayoutGrid(**{f.name: pick(getattr(grid, f.name), index) for f in fields(grid)})
+def first_columns(grid: LayoutGrid, count: int) -> LayoutGrid:
+    """The grid's first `count` candidate node counts (views, no copies)."""
+    if count >= grid.nodes.shape[-1]:
+        return grid
+
+    def head(values: Any) -> Any:
+        return values[:, :count] if np.ndim(values) == 2 and np.shape(values)[1] > count else values
+    return LayoutGrid(**{f.name: head(getattr(grid, f.name)) for f in fields(grid)})
+
+
+def as_column(grid: LayoutGrid) -> LayoutGrid:
+    """A chosen layout ((S,) arrays) as a grid of one candidate per scenario, (S, 1), so the
+    grid formulas apply to it unchanged."""
+    return LayoutGrid(**{f.name: np.asarray(getattr(grid, f.name))[:, np.newaxis] for f in fields(grid)})
 
 
 def architecture_activation_bytes(

@@ -32,8 +32,8 @@ def instances_sharing(
     (instances run one after another, each taking `wall_hours`); never fewer than one.
     """
     window = as_floats(window_months)
-    if recurrence is None:
-        return np.ones(np.broadcast_shapes(window.shape, as_floats(wall_hours).shape))
+    if recurrence is None:  # one instance: a broadcastable 1 rather than a whole grid of them
+        return np.ones((1,) * max(window.ndim, np.ndim(wall_hours)))
     every, total = as_floats(recurrence.every_months), instances_total(recurrence)
     if window.ndim == 2:  # (S, K) layouts: a swept recurrence varies by scenario, along axis 0
         every, total = every.reshape(-1, 1), total.reshape(-1, 1)

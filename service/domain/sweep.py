@@ -18,7 +18,7 @@ from service.domain.distributions import Distribution, stream
 from service.domain.evaluate import evaluate_campaign
 from service.domain.whatif import apply
 
-CHUNK_ELEMENTS = 400_000  # scenarios × candidate node counts per chunk: bounds memory
+CHUNK_ELEMENTS = 1_600_000  # scenarios × candidate node counts per chunk: bounds memory
 
 
 @dataclass(frozen=True)

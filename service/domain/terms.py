@@ -1,7 +1,9 @@
 """What each term charges a campaign, line by line, for every candidate layout (model.md §6-7).
 
-Each function returns {item: amount} with (S, K) arrays; the line items are named here once and
-explained to people in `service.domain.explain`.
+Each `*_lines` function returns {item: amount} with arrays that broadcast to (S, K); the line
+items are named here once and explained to people in `service.domain.explain`. Beside the lines,
+each `*_cost` function gives their sum in as few whole-grid passes as the algebra allows: the
+layout search prices every candidate with it, and only the chosen layout is itemised.
 """
 
 from dataclasses import dataclass
@@ -18,6 +20,7 @@ from service.domain.recurrence import instances_sharing
 from service.domain.units import HOURS_PER_MONTH, TB
 
 Lines = dict[str, Floats]
+GB_PER_TB = TB / 1e9  # decimal units
 
 
 def _scenario(value: ArrayLike) -> Floats:
@@ -37,6 +40,16 @@ def chargeback_lines(
     used_hours_per_node_month = accelerators_per_node * HOURS_PER_MONTH * _scenario(utilisation)
     return _owned_lines(grid.accelerator_hours / used_hours_per_node_month, node, grid,
                         variable_per_accelerator_hour)
+
+
+def chargeback_cost(
+    grid: LayoutGrid, node: NodeMonth, *, accelerators_per_node: int,
+    utilisation: ArrayLike, variable_per_accelerator_hour: ArrayLike,
+) -> Floats:
+    """The sum of `chargeback_lines`: accelerator-hours × (F / (A · 730 · u) + v)."""
+    used_hours_per_node_month = accelerators_per_node * HOURS_PER_MONTH * _scenario(utilisation)
+    rate = _scenario(node.total) / used_hours_per_node_month + _scenario(variable_per_accelerator_hour)
+    return np.asarray(grid.accelerator_hours * rate)
 
 
 def _owned_lines(node_months: Floats, node: NodeMonth, grid: LayoutGrid,
@@ -79,6 +92,15 @@ def new_build_lines(
                         variable_per_accelerator_hour)
 
 
+def new_build_cost(
+    grid: LayoutGrid, node: NodeMonth, share: NewBuildShare, *, variable_per_accelerator_hour: ArrayLike,
+) -> Floats:
+    """The sum of `new_build_lines`: node-months × F + accelerator-hours × v."""
+    node_months = grid.nodes * share.carried_months / share.sharing_instances
+    return np.asarray(node_months * _scenario(node.total)
+                      + grid.accelerator_hours * _scenario(variable_per_accelerator_hour))
+
+
 def hourly_lines(grid: LayoutGrid, *, price_per_accelerator_hour: ArrayLike) -> Lines:
     """On demand and interruptible: the accelerator-hours used, at the hourly price. The hours
     already include the interruption overhead of the reliability model."""
@@ -112,12 +134,16 @@ def committed_share(
     """A committed term is paid for whole; a campaign longer than one term takes several, and
     recurring instances that fit in the commitment share it."""
     hours = wall_hours(grid)
-    terms = np.maximum(1.0, np.ceil(hours / (months * HOURS_PER_MONTH) - 1e-9))
-    sharing = instances_sharing(window_months=terms * months, wall_hours=hours, recurrence=recurrence)
+    # max(1, ⌈hours / term hours⌉), in place: this runs over every candidate layout.
+    terms = hours / (months * HOURS_PER_MONTH)
+    terms -= 1e-9
+    np.maximum(np.ceil(terms, out=terms), 1.0, out=terms)
+    sharing = (np.ones((1, 1)) if recurrence is None  # a one-off campaign shares with nobody
+               else instances_sharing(window_months=terms * months, wall_hours=hours, recurrence=recurrence))
     factor = upfront_financing_factor(
         upfront_fraction=upfront_fraction, months=months, cost_of_capital_annual=_scenario(cost_of_capital_annual)
     )
-    return CommittedShare(terms, sharing, np.broadcast_to(factor, np.broadcast_shapes(factor.shape, terms.shape)))
+    return CommittedShare(terms, sharing, factor)
 
 
 def committed_lines(
@@ -126,8 +152,9 @@ def committed_lines(
 ) -> Lines:
     """nodes × accelerators per node × term hours × price, paid whether used or not (model.md §7):
     whole nodes are committed even when fewer accelerators are pinned."""
-    fee = grid.nodes * accelerators_per_node * months * HOURS_PER_MONTH * _scenario(price_per_accelerator_hour)
-    return {"commitment": fee * share.terms_needed * share.financing_factor / share.sharing_instances}
+    fee_per_term = grid.nodes * (accelerators_per_node * months * HOURS_PER_MONTH)
+    per_fee = _scenario(price_per_accelerator_hour) * share.financing_factor / share.sharing_instances
+    return {"commitment": fee_per_term * share.terms_needed * per_fee}
 
 
 def data_lines(
@@ -137,17 +164,24 @@ def data_lines(
     """The dataset's and results' costs at one venue, per decimal GB: storage of the dataset and
     kept checkpoints for the months the campaign runs (rented venues; an owned site's storage is
     in its capex), ingress of the dataset, egress at its home when it moves, egress of results."""
-    gb_per_tb = TB / 1e9
-    dataset_gb = _scenario(data.dataset_tb) * gb_per_tb
+    dataset_gb = _scenario(data.dataset_tb) * GB_PER_TB
     lines: Lines = {}  # transfer lines do not depend on the layout: (S, 1), broadcast later
     if storage_per_gb_month is not None:
-        stored_gb = dataset_gb + _scenario(checkpoint_tb) * _scenario(data.checkpoints_kept) * gb_per_tb
-        lines["storage"] = stored_gb * storage_per_gb_month * wall_hours(grid) / HOURS_PER_MONTH
+        lines["storage"] = storage_cost(grid, data, checkpoint_tb=checkpoint_tb,
+                                        storage_per_gb_month=storage_per_gb_month)
     lines["ingress"] = dataset_gb * transfer.ingress_per_gb
     if transfer.moves:
         lines["egress_at_home"] = dataset_gb * transfer.egress_at_home_per_gb
-    lines["egress"] = _scenario(data.results_egress_tb) * gb_per_tb * results_egress_per_gb
+    lines["egress"] = _scenario(data.results_egress_tb) * GB_PER_TB * results_egress_per_gb
     return lines
+
+
+def storage_cost(grid: LayoutGrid, data: DataPlan, *, checkpoint_tb: ArrayLike,
+                 storage_per_gb_month: float) -> Floats:
+    """The dataset and kept checkpoints stored for the months the campaign runs: the only data
+    line that depends on the layout."""
+    stored_gb = (_scenario(data.dataset_tb) + _scenario(checkpoint_tb) * _scenario(data.checkpoints_kept)) * GB_PER_TB
+    return np.asarray(stored_gb * (storage_per_gb_month / HOURS_PER_MONTH) * wall_hours(grid))
 
 
 @dataclass(frozen=True)

@@ -6,8 +6,9 @@
 For each database and worker count: a fresh database (a SQLite file in a temporary directory, or a
 new PostgreSQL database created on the server and dropped afterwards), `berth serve` on a free
 loopback port, a warm-up, then a fixed count of GET /healthz and of POST /v1/quotes from concurrent
-clients (the client code of bench_quotes.py). It prints requests/s, p50 and p99 for each, then the
-ratios measured in this run: quote/healthz, 2 workers/1 worker, PostgreSQL/SQLite.
+clients (the client code of bench_quotes.py). It prints requests/s, p50, p99 and the server's CPU
+time per request for each, then the ratios measured in this run: quote/healthz, 2 workers/1 worker,
+PostgreSQL/SQLite.
 
 PostgreSQL: the server named by --postgresql, else by BERTH_TEST_DATABASE_URL, else the local
 cluster on /var/run/postgresql when one answers; otherwise only SQLite is measured. The role needs
@@ -29,7 +30,7 @@ from sqlalchemy.pool import NullPool
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))  # the repository, for tests.databases
 
-from bench_quotes import Run, bench, start_server, stop_server
+from bench_quotes import ProtocolError, Run, bench, start_server, stop_server, warn_unexpected
 
 from tests.databases import ENVIRONMENT, fresh_postgresql_database
 
@@ -64,7 +65,7 @@ def measure(database: str, workers: int, server: URL | None, args: argparse.Name
     with creating as database_url:
         process, url = start_server(directory, database_url=database_url, workers=workers)
         try:
-            return asyncio.run(bench(url, args.count, args.clients, args.warmup))
+            return asyncio.run(bench(url, args.count, args.clients, args.warmup, process.pid))
         finally:
             stop_server(process)
 
@@ -95,17 +96,18 @@ def main() -> int:
             for workers in args.workers:
                 try:
                     results[(database, workers)] = measure(database, workers, url, args, Path(workdir))
-                except RuntimeError as error:
+                except (RuntimeError, ProtocolError, OSError) as error:
                     print(error, file=sys.stderr)
                     return 1
                 print(f"measured {database} with {workers} worker(s)", file=sys.stderr)
 
     print(f"{'database':<11}{'workers':>8}  {'request':<16}{'count':>7}{'errors':>8}{'req/s':>10}"
-          f"{'p50 ms':>9}{'p99 ms':>9}{'client CPU s':>14}")
+          f"{'p50 ms':>9}{'p99 ms':>9}{'client CPU s':>14}{'server CPU ms/req':>19}")
     for (database, workers), runs in results.items():
         for run in runs:
             print(f"{database:<11}{workers:>8}  {run.name:<16}{run.count:>7}{run.errors:>8}{run.throughput:>10.1f}"
-                  f"{run.percentile(50):>9.2f}{run.percentile(99):>9.2f}{run.client_cpu_s:>14.2f}")
+                  f"{run.percentile(50):>9.2f}{run.percentile(99):>9.2f}{run.client_cpu_s:>14.2f}"
+                  f"{run.server_cpu_ms_per_request:>19}")
     print()
 
     def row(label: str, numerator: Run, denominator: Run) -> None:
@@ -127,8 +129,7 @@ def main() -> int:
             for index, name in enumerate(("healthz", "quote")):
                 row(f"{workers} worker(s), {name}: PostgreSQL / SQLite",
                     results[("postgresql", workers)][index], results[("sqlite", workers)][index])
-    if any(run.errors for runs in results.values() for run in runs):
-        print("WARNING: some requests failed or answered an unexpected status; figures include them")
+    warn_unexpected([run for runs in results.values() for run in runs])
     return 0
 
 

@@ -9,6 +9,10 @@ import sys
 from pathlib import Path
 from typing import Any
 
+from service.api.schemas.catalog import CatalogIn
+from service.api.schemas.sweep import SweepIn
+from service.domain.sweep import chunk_size
+from service.sweeps import SweepLimits, prepare_sweep
 from tests.conftest import EXAMPLES
 
 BERTH = [sys.executable, "-m", "service.cli"]
@@ -84,6 +88,19 @@ def test_the_json_summary_and_the_csv_rows_agree(tmp_path: Path) -> None:
     for option in document["summary"]["options"]:
         shares = sum(1 for r in records if r["cheapest"] == option["option"]) / 500
         assert option["cheapest_share"] == shares
+
+
+def test_worker_processes_give_the_same_bytes_as_one_process(tmp_path: Path) -> None:
+    sweep = demo(30_000)
+    prepared = prepare_sweep(CatalogIn.model_validate_json(Path(CATALOG).read_text(encoding="utf-8")),
+                             SweepIn.model_validate(sweep), SweepLimits())
+    assert sweep["samples"] > 2 * chunk_size(prepared.catalog, prepared.plan.options)  # the work is really shared
+    path = write(tmp_path, sweep)
+    for output in ("json", "csv"):
+        one, two = (berth("sweep", path, "--catalog", CATALOG, "--format", output, "--processes", n)
+                    for n in ("1", "2"))
+        assert one.returncode == two.returncode == 0, one.stderr + two.stderr
+        assert one.stdout == two.stdout and len(one.stdout) > 1000
 
 
 def test_bad_input_exits_2_with_field_messages_and_no_traceback(tmp_path: Path) -> None:

@@ -2,8 +2,8 @@
 
 Concurrent quotes are stored, listed and survive a restart; an Idempotency-Key stores one quote
 however often and however concurrently it is retried; quotes acknowledged with 201 survive a SIGKILL
-in the middle of a burst, and the file passes PRAGMA integrity_check; the finance script prints the
-recommended option."""
+in the middle of a burst, and the file passes PRAGMA integrity_check; the server parses HTTP with
+httptools on uvloop; the finance script prints the recommended option."""
 
 import asyncio
 import copy
@@ -265,6 +265,13 @@ FINANCE_SCRIPT = EXAMPLES / "finance_script.py"
 def run_finance_script(*args: str) -> subprocess.CompletedProcess[str]:
     return subprocess.run([sys.executable, str(FINANCE_SCRIPT), *args], capture_output=True, text=True,
                           timeout=60, check=False)
+
+
+@pytest.mark.skipif(not Path("/proc/self/maps").exists(), reason="reads the server's memory map from /proc")
+def test_the_server_parses_http_with_httptools_on_uvloop(berth: BerthServer) -> None:
+    mapped = Path(f"/proc/{berth.pid}/maps").read_text(encoding="utf-8")
+    assert "httptools" in mapped, "berth serve fell back to the pure-Python HTTP parser"
+    assert "uvloop" in mapped, "berth serve fell back to asyncio's own event loop"
 
 
 def test_the_finance_script_prints_the_ranked_options_and_the_recommendation(berth: BerthServer) -> None:

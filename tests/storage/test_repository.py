@@ -2,6 +2,8 @@
 BERTH_TEST_DATABASE_URL is set): SQLite's durability settings, a schema that matches the tables,
 and the repository's dedupe, paging, keys and foreign keys."""
 
+import json
+import math
 import threading
 from concurrent.futures import ThreadPoolExecutor
 from datetime import UTC, datetime, timedelta, timezone
@@ -11,14 +13,14 @@ from typing import Any
 import pytest
 from alembic.autogenerate import compare_metadata
 from alembic.runtime.migration import MigrationContext
-from sqlalchemy import Engine
+from sqlalchemy import Engine, text
 from sqlalchemy.exc import IntegrityError
 from sqlmodel import SQLModel
 
 from service.storage.engine import build_engine
 from service.storage.migrate import is_at_head, upgrade
-from service.storage.repository import Storage, StoredCatalog, StoredQuote, new_id
-from service.use_cases import upload_catalog
+from service.storage.repository import CatalogRef, Storage, StoredCatalog, StoredQuote, new_id
+from service.use_cases import ParsedCatalogs, upload_catalog
 from tests.databases import sqlite_only
 
 NOW = datetime(2027, 1, 4, 9, 0, tzinfo=UTC)
@@ -105,6 +107,30 @@ def test_a_catalog_with_known_content_is_found_by_its_hash_and_never_stored_twic
         repository.add_catalog(name="again", currency="EUR", content_hash="a" * 64, content={}, created_at=NOW)
     with storage.reading() as repository:
         assert repository.catalogs(limit=10, cursor=None) == ([catalog], None)
+
+
+def test_a_catalog_reference_names_the_newest_catalog_or_the_one_asked_for(
+    storage: Storage, catalog: StoredCatalog
+) -> None:
+    with storage.writing() as repository:
+        newer = repository.add_catalog(name="d", currency="EUR", content_hash="b" * 64, content={"name": "d"},
+                                       created_at=NOW + timedelta(minutes=1))
+    with storage.reading() as repository:
+        assert repository.catalog_ref(None) == CatalogRef(newer.id, "b" * 64)
+        assert repository.catalog_ref(catalog.id) == CatalogRef(catalog.id, "a" * 64)
+        assert repository.catalog_ref("cat_unknown") is None
+
+
+def test_a_catalog_is_read_and_parsed_once_then_served_from_the_cache(
+    storage: Storage, demo_catalog: dict[str, Any]
+) -> None:
+    stored, _ = upload_catalog(storage, demo_catalog, now=NOW)
+    catalogs = ParsedCatalogs()
+    first = catalogs.get(CatalogRef(stored.id, stored.content_hash), storage)
+    assert first.name == demo_catalog["name"]
+    with storage.writing() as repository:  # were the content read again, it would now be missing
+        repository.session.execute(text("DELETE FROM catalog"))
+    assert catalogs.get(CatalogRef(stored.id, stored.content_hash), storage) is first
 
 
 def test_uploading_the_same_catalog_twice_returns_the_first_one(
@@ -239,3 +265,30 @@ def test_a_released_claim_can_be_claimed_again_but_a_finished_one_is_kept(storag
         repository.complete_key(caller="local", key="k", status_code=201, response={"id": "q_2"})
         repository.release_key(caller="local", key="k")
     assert claim(storage, body="c" * 64).state == "done"
+
+
+def test_a_stored_document_reads_back_equal_with_non_finite_numbers_as_null(
+    storage: Storage, catalog: StoredCatalog
+) -> None:
+    response = {"total": 1234.57, "tiny": 1e-07, "huge": 1.2345678901234568e17, "lines": [{"amount": 0.1}],
+                "unknown": math.nan, "unbounded": math.inf}
+    quote = a_quote(catalog.id, NOW, response=response)
+    with storage.writing() as repository:
+        repository.add_quote(quote)
+    with storage.reading() as repository:
+        stored = repository.quote(quote.id)
+    assert stored is not None
+    assert stored.response == {**response, "unknown": None, "unbounded": None}
+
+
+def test_a_row_written_with_nan_by_the_standard_library_encoder_still_reads(
+    storage: Storage, catalog: StoredCatalog
+) -> None:
+    quote = a_quote(catalog.id, NOW)
+    with storage.writing() as repository:
+        repository.add_quote(quote)
+        repository.session.execute(text("UPDATE quote SET response = :text WHERE id = :id"),
+                                   {"text": json.dumps({"total": math.nan}), "id": quote.id})
+    with storage.reading() as repository:
+        stored = repository.quote(quote.id)
+    assert stored is not None and math.isnan(stored.response["total"])

@@ -4,21 +4,25 @@ chart and options CSV of a stored quote."""
 import re
 import time
 from datetime import datetime
+from functools import partial
 from typing import Annotated, Any
 
+from anyio import to_thread
 from fastapi import APIRouter, Header, Query, Request
-from fastapi.responses import HTMLResponse, JSONResponse, Response, StreamingResponse
+from fastapi.responses import HTMLResponse, Response, StreamingResponse
 from pydantic import BeforeValidator
 
+from service.access import Principal
 from service.api.auth import AnyKey
-from service.api.deps import CatalogsDep, NowDep, RawBodyDep, StorageDep
+from service.api.deps import CatalogsDep, ComputeLaneDep, NowDep, RawBodyDep, StorageDep
 from service.api.observability import DomainMetrics
 from service.api.problems import PROBLEM, PROBLEM_RESPONSES
+from service.api.responses import FastJSONResponse
 from service.api.schemas.quote import QuoteOut, QuotePage, Recomputation
 from service.api.schemas.request import QuoteRequestIn
 from service.reports import breakeven_svg, options_csv, render_report
-from service.storage.repository import StoredQuote
-from service.use_cases import body_fingerprint, create_quote, find_quotes, get_quote, recompute_quote
+from service.storage.repository import Storage, StoredQuote
+from service.use_cases import ParsedCatalogs, body_fingerprint, create_quote, find_quotes, get_quote, recompute_quote
 
 router = APIRouter(prefix="/v1/quotes", tags=["quotes"])
 
@@ -28,25 +32,33 @@ CONFLICT: dict[int | str, dict[str, Any]] = {
 
 
 @router.post("", status_code=201, response_model=QuoteOut, responses={**PROBLEM_RESPONSES, **CONFLICT})
-def post_quote(
+async def post_quote(
     request: Request,
     payload: QuoteRequestIn,
-    raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep, now: NowDep, caller: AnyKey,
+    raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep, now: NowDep, caller: AnyKey, lane: ComputeLaneDep,
     idempotency_key: Annotated[str | None, Header(max_length=255)] = None,
-) -> JSONResponse:
+) -> Response:
     """Quote one campaign against a catalog (default: the newest), store it, and return it.
     The same Idempotency-Key with the same body returns the first answer."""
+    metrics: DomainMetrics = request.app.state.metrics
+    create = partial(_create_quote, payload, raw=raw, storage=storage, catalogs=catalogs, now=now, caller=caller,
+                     idempotency_key=idempotency_key, metrics=metrics)
+    return await to_thread.run_sync(create, limiter=lane)
+
+
+def _create_quote(payload: QuoteRequestIn, *, raw: bytes, storage: Storage, catalogs: ParsedCatalogs, now: datetime,
+                  caller: Principal, idempotency_key: str | None, metrics: DomainMetrics) -> Response:
+    """On the compute lane: quote, store, and encode the answer."""
     started = time.perf_counter()
     outcome = create_quote(storage, catalogs, payload, now=now, caller=caller, idempotency_key=idempotency_key,
                            fingerprint=body_fingerprint(raw))
     if not outcome.replayed:
-        metrics: DomainMetrics = request.app.state.metrics
         metrics.quote_seconds.observe(time.perf_counter() - started)
         metrics.quotes_created.inc()
     headers = {"Location": f"/v1/quotes/{outcome.body['id']}"}
     if outcome.replayed:
         headers["Idempotent-Replayed"] = "true"
-    return JSONResponse(outcome.body, status_code=outcome.status_code, headers=headers)
+    return FastJSONResponse(outcome.body, status_code=outcome.status_code, headers=headers)
 
 
 def _iso_8601(value: object) -> object:
@@ -91,9 +103,9 @@ def list_quotes(
 
 
 @router.get("/{quote_id}", response_model=QuoteOut, responses=PROBLEM_RESPONSES)
-def read_quote(quote_id: str, storage: StorageDep, viewer: AnyKey) -> JSONResponse:
+def read_quote(quote_id: str, storage: StorageDep, viewer: AnyKey) -> FastJSONResponse:
     """One stored quote, exactly as it was returned when created."""
-    return JSONResponse(get_quote(storage, quote_id, viewer).response)
+    return FastJSONResponse(get_quote(storage, quote_id, viewer).response)
 
 
 @router.get("/{quote_id}/report", response_class=HTMLResponse, responses={
