@@ -2,6 +2,7 @@
 same whatever the number of processes) and worker processes evaluate them. Results come back in
 order, and at most two chunks per worker are in flight, so memory stays bounded at any size."""
 
+import ctypes
 import multiprocessing
 from collections import deque
 from collections.abc import Iterable, Iterator, Mapping
@@ -48,6 +49,28 @@ def evaluated(catalog: Catalog, plan: SweepPlan, chunks: Iterable[Mapping[str, F
 def _start_worker(catalog: Catalog, plan: SweepPlan) -> None:
     global _worker_sweep
     _worker_sweep = catalog, plan
+    keep_freed_arrays()
+
+
+# glibc's mallopt parameters (malloc.h): M_TRIM_THRESHOLD and M_MMAP_THRESHOLD.
+_M_TRIM_THRESHOLD, _M_MMAP_THRESHOLD = -1, -3
+_MMAP_THRESHOLD_BYTES = 32 * 2**20  # the largest glibc accepts on 64-bit
+_TRIM_THRESHOLD_BYTES = 256 * 2**20
+
+
+def keep_freed_arrays() -> bool:
+    """Let this process reuse the memory of the large arrays it frees instead of handing it back to
+    the system and faulting fresh pages in for the next one. A worker allocates and frees arrays of
+    ~10 MB all the time: by default glibc maps each one afresh, and in a 1,000,000-scenario sweep
+    that was ~1.9 million page faults and a fifth of the CPU time (measured with /usr/bin/time).
+    Arrays up to 32 MB now come from the heap, and up to 256 MB of freed heap is kept. Only on
+    glibc; elsewhere nothing changes. Returns whether the setting took."""
+    try:
+        libc = ctypes.CDLL("libc.so.6")
+        return bool(libc.mallopt(_M_MMAP_THRESHOLD, _MMAP_THRESHOLD_BYTES)
+                    and libc.mallopt(_M_TRIM_THRESHOLD, _TRIM_THRESHOLD_BYTES))
+    except (OSError, AttributeError):
+        return False
 
 
 def _evaluate_in_worker(inputs: dict[str, Floats]) -> ChunkResult:

@@ -97,7 +97,10 @@ def sweep_command(
 ) -> None:
     """Run a sweep of what-if scenarios offline, with a progress bar on the terminal's error stream."""
     from service.api.schemas.sweep import SweepIn
+    from service.chunk_pool import keep_freed_arrays
     from service.sweeps import SweepLimits, csv_chunks, prepare_sweep, run, sweep_document, tornado_bars
+
+    keep_freed_arrays()  # this process only sweeps, as its workers do
 
     try:
         catalog_in = load_file(CatalogIn, catalog or Settings().demo_catalog)

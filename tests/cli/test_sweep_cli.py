@@ -4,10 +4,13 @@ that the standard library's csv module reads, and refusals that name their field
 import csv
 import io
 import json
+import platform
 import subprocess
 import sys
 from pathlib import Path
 from typing import Any
+
+import pytest
 
 from service.api.schemas.catalog import CatalogIn
 from service.api.schemas.sweep import SweepIn
@@ -126,3 +129,11 @@ def test_a_sweep_over_the_limit_exits_2_naming_the_limit(tmp_path: Path) -> None
     assert result.returncode == 2
     assert "10,000,000" in result.stderr and "samples" in result.stderr
     assert "Traceback" not in result.stderr
+
+
+@pytest.mark.skipif(platform.libc_ver()[0] != "glibc", reason="the allocator setting is glibc's")
+def test_sweep_processes_keep_the_memory_of_freed_arrays_on_glibc() -> None:
+    # In a process of its own, so the test process keeps its allocator as it was.
+    done = subprocess.run([sys.executable, "-c", "from service.chunk_pool import keep_freed_arrays as k; "
+                           "print(k())"], capture_output=True, text=True, timeout=60, check=False)
+    assert done.returncode == 0 and done.stdout.strip() == "True", done.stderr
