@@ -71,7 +71,7 @@ def upload_catalog(storage: Storage, data: Any, *, now: datetime) -> tuple[Store
 def load_demo_catalog(storage: Storage, path: Path, *, now: datetime) -> StoredCatalog | None:
     """Store the demo catalog when the database holds none, so a new service answers at once."""
     with storage.reading() as repository:
-        if repository.newest_catalog() is not None:
+        if repository.catalog_ref(None) is not None:
             return None
     stored, _ = upload_catalog(storage, parse_document(path.read_text(encoding="utf-8"), source=str(path)), now=now)
     return stored

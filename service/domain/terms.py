@@ -138,8 +138,7 @@ def committed_share(
     terms = hours / (months * HOURS_PER_MONTH)
     terms -= 1e-9
     np.maximum(np.ceil(terms, out=terms), 1.0, out=terms)
-    sharing = (np.ones((1, 1)) if recurrence is None  # a one-off campaign shares with nobody
-               else instances_sharing(window_months=terms * months, wall_hours=hours, recurrence=recurrence))
+    sharing = instances_sharing(window_months=terms * months, wall_hours=hours, recurrence=recurrence)
     factor = upfront_financing_factor(
         upfront_fraction=upfront_fraction, months=months, cost_of_capital_annual=_scenario(cost_of_capital_annual)
     )

@@ -172,11 +172,6 @@ class Repository:
         row = self.session.get(CatalogRow, catalog_id)
         return None if row is None else _catalog(row)
 
-    def newest_catalog(self) -> StoredCatalog | None:
-        query = select(CatalogRow).order_by(col(CatalogRow.created_at).desc(), col(CatalogRow.id).desc())
-        row = self.session.exec(query.limit(1)).first()
-        return None if row is None else _catalog(row)
-
     def catalog_ref(self, catalog_id: str | None) -> CatalogRef | None:
         """The named catalog, or the newest when none is named, without reading its content."""
         query = select(CatalogRow.id, CatalogRow.content_hash)
