@@ -1,6 +1,7 @@
 """Throughput and latency of POST /v1/quotes against GET /healthz, on one real `berth serve`.
 
     .venv/bin/python tests/benchmarks/bench_quotes.py [--count 2000] [--clients 20] [--warmup 100] [--workers 1]
+                                                     [--floor]
 
 Starts `berth serve` on a temporary SQLite file on a free loopback port, warms up, then sends a fixed
 count of each request from concurrent async clients and prints requests/s and p50/p99 latency, the
@@ -15,7 +16,12 @@ is shown. The client runs on the same machine and takes CPU from the server; its
 printed, and so is the server's CPU time per request (all its processes, read from /proc), which
 moves less than throughput when something else shares the machine. It reports and does not gate:
 it exits 0 whether or not the targets are met (1 only if the server cannot be started, goes away, or
-answers in a way this client does not read, e.g. a chunked body). The server is stopped at the end in every case."""
+answers in a way this client does not read, e.g. a chunked body). The server is stopped at the end in every case.
+
+With --floor the server is `floor_app.py` (the service plus routes that each do only part of a quote) and
+three more rows come between healthz and quotes: the same bodies answered with a canned quote (HTTP and
+validation), that quote also stored (plus the database write), and the quote computed but not stored
+(plus the model). Their ratios to healthz bound what any quote model could reach on this server."""
 
 import argparse
 import asyncio
@@ -64,14 +70,22 @@ def _ready(url: str) -> bool:
         return False
 
 
-def start_server(workdir: Path, database_url: str | None = None,
-                 workers: int = 1) -> tuple[subprocess.Popen[bytes], str]:
-    """`berth serve` on a free port (by default on a SQLite file in `workdir`), once /readyz is 200."""
+FLOOR_APP = Path(__file__).resolve().parent / "floor_app.py"
+FLOOR_ROUTES = (("POST floor/validated", "/floor/validated"), ("POST floor/stored", "/floor/stored"),
+                ("POST floor/computed", "/floor/computed"))
+
+
+def start_server(workdir: Path, database_url: str | None = None, workers: int = 1,
+                 floor: bool = False) -> tuple[subprocess.Popen[bytes], str]:
+    """`berth serve` (or with `floor`, the floor app in one process) on a free port (by default on a
+    SQLite file in `workdir`), once /readyz is 200."""
     port = free_port()
     url = f"http://127.0.0.1:{port}"
     env = {k: v for k, v in os.environ.items() if not k.startswith("BERTH_")}
-    command = [sys.executable, "-m", "service.cli", "serve", "--host", "127.0.0.1", "--port", str(port),
-               "--database", database_url or f"sqlite:///{workdir / 'bench.db'}", "--workers", str(workers)]
+    database = database_url or f"sqlite:///{workdir / 'bench.db'}"
+    command = ([sys.executable, str(FLOOR_APP), "--port", str(port), "--database", database] if floor else
+               [sys.executable, "-m", "service.cli", "serve", "--host", "127.0.0.1", "--port", str(port),
+                "--database", database, "--workers", str(workers)])
     with open(workdir / "server.log", "wb") as log:
         process = subprocess.Popen(command, cwd=REPO_ROOT, env=env, stdout=log, stderr=subprocess.STDOUT,
                                    stdin=subprocess.DEVNULL)
@@ -254,9 +268,12 @@ def report(runs: list[Run], clients: int) -> None:
         print(f"{run.name:<16}{run.count:>7}{run.errors:>8}{run.wall_s:>9.2f}{run.throughput:>10.1f}"
               f"{run.percentile(50):>9.2f}{run.percentile(99):>9.2f}{run.client_cpu_s:>14.2f}"
               f"{run.server_cpu_ms_per_request:>19}")
-    health, quote = runs
+    health, *floors, quote = runs
     throughput_ratio = quote.throughput / health.throughput
     print()
+    for floor in floors:
+        print(f"ratio {floor.name[5:]}/healthz throughput: {floor.throughput / health.throughput:.3f} "
+              "(a bound: a quote does all of this and more)")
     print(f"ratio quote/healthz throughput: {throughput_ratio:.3f}")
     print(f"ratio quote/healthz p50 latency: {quote.percentile(50) / health.percentile(50):.1f}")
     print(f"ratio quote/healthz p99 latency: {quote.percentile(99) / health.percentile(99):.1f}")
@@ -277,19 +294,20 @@ def warn_unexpected(runs: list[Run]) -> None:
                   f"status (answers: {run.statuses}); first: {run.first_unexpected}; figures include them")
 
 
-async def bench(url: str, count: int, clients: int, warmup: int, server_pid: int | None = None) -> list[Run]:
+async def bench(url: str, count: int, clients: int, warmup: int, server_pid: int | None = None,
+                floor: bool = False) -> list[Run]:
     host = urllib.parse.urlsplit(url).netloc
     campaign = json.loads(CAMPAIGN.read_text(encoding="utf-8"))
     health_request = encode_request("GET", "/healthz", host)
-    # Every quote request is encoded here, before any clock starts; warm-up and timed bodies differ too.
-    warmup_quotes = [encode_request("POST", "/v1/quotes", host, body) for body in quote_bodies(campaign, 0, warmup)]
-    timed_quotes = [encode_request("POST", "/v1/quotes", host, body)
-                    for body in quote_bodies(campaign, warmup, count)]
+    # Every request is encoded here, before any clock starts; warm-up and timed bodies differ too.
+    warmup_bodies, timed_bodies = quote_bodies(campaign, 0, warmup), quote_bodies(campaign, warmup, count)
     await load(url, "warmup healthz", [health_request] * warmup, 200, clients)
-    await load(url, "warmup quote", warmup_quotes, 201, clients)
-    health = await load(url, "GET /healthz", [health_request] * count, 200, clients, server_pid)
-    quote = await load(url, "POST /v1/quotes", timed_quotes, 201, clients, server_pid)
-    return [health, quote]
+    runs = [await load(url, "GET /healthz", [health_request] * count, 200, clients, server_pid)]
+    for name, path in (*(FLOOR_ROUTES if floor else ()), ("POST /v1/quotes", "/v1/quotes")):
+        await load(url, "warmup", [encode_request("POST", path, host, body) for body in warmup_bodies], 201, clients)
+        timed = [encode_request("POST", path, host, body) for body in timed_bodies]
+        runs.append(await load(url, name, timed, 201, clients, server_pid))
+    return runs
 
 
 def main() -> int:
@@ -298,20 +316,24 @@ def main() -> int:
     parser.add_argument("--clients", type=int, default=20, help="concurrent clients (default %(default)s)")
     parser.add_argument("--warmup", type=int, default=100, help="warm-up requests of each kind")
     parser.add_argument("--workers", type=int, default=1, help="passed to `berth serve --workers`")
+    parser.add_argument("--floor", action="store_true", help="also time the floor routes (one worker)")
     args = parser.parse_args()
+    if args.floor and args.workers != 1:
+        parser.error("--floor runs one worker")
     with tempfile.TemporaryDirectory(prefix="berth-bench-") as workdir:
         try:
-            process, url = start_server(Path(workdir), workers=args.workers)
+            process, url = start_server(Path(workdir), workers=args.workers, floor=args.floor)
         except RuntimeError as error:
             print(error, file=sys.stderr)
             return 1
         try:
-            print(f"berth serve at {url} ({args.workers} worker(s)), {args.clients} concurrent clients, "
+            server = "floor app (the service plus floor routes)" if args.floor else "berth serve"
+            print(f"{server} at {url} ({args.workers} worker(s)), {args.clients} concurrent clients, "
                   f"{args.count} requests each, {args.warmup} warm-up; {os.cpu_count()} CPUs shared by server "
                   "and clients")
             print(f"quote body: {CAMPAIGN.name}, tokens varied per request")
             print()
-            runs = asyncio.run(bench(url, args.count, args.clients, args.warmup, process.pid))
+            runs = asyncio.run(bench(url, args.count, args.clients, args.warmup, process.pid, args.floor))
         except ProtocolError as error:
             print(f"the server answered in a way this client does not read: {error}", file=sys.stderr)
             return 1

@@ -1,0 +1,107 @@
+"""The service with three extra routes that each do only part of what POST /v1/quotes does: a
+benchmark instrument for `bench_quotes.py --floor`, never part of the service.
+
+Each takes the same body (validated as a quote request), runs on the compute lane as quotes do, and
+answers 201 with a quote document:
+  - POST /floor/validated: a canned document (a real quote, computed once): HTTP, validation, the answer.
+  - POST /floor/stored: the canned document under a new id, stored durably as a quote: the above plus
+    the database write.
+  - POST /floor/computed: the quote computed for this body, not stored: the above but the model
+    instead of the write.
+What a route costs the server beyond GET /healthz is the least any quote model could add on top of it.
+
+    .venv/bin/python tests/benchmarks/floor_app.py --port 8001 --database sqlite:///floor.db
+"""
+
+import argparse
+import sys
+from collections.abc import Callable
+from datetime import datetime
+from functools import partial
+from pathlib import Path
+from typing import Any
+
+import uvicorn
+from anyio import to_thread
+from fastapi import FastAPI
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
+
+from service.api.app import create_app
+from service.api.deps import CatalogsDep, ComputeLaneDep, NowDep, StorageDep
+from service.api.observability import configure_logging
+from service.api.responses import FastJSONResponse
+from service.api.schemas.request import QuoteRequestIn
+from service.config import Settings
+from service.quoting import envelope, quote
+from service.storage.repository import CatalogRef, Storage, StoredQuote, new_id
+from service.use_cases import ParsedCatalogs, catalog_to_use
+
+
+def _computed(payload: QuoteRequestIn, storage: Storage, catalogs: ParsedCatalogs, now: datetime
+              ) -> tuple[CatalogRef, dict[str, Any]]:
+    ref = catalog_to_use(storage, payload.catalog_id, field="catalog_id")
+    body = quote(catalogs.get(ref, storage), payload)
+    return ref, envelope(body, catalog_hash=ref.content_hash, quote_id=new_id("q"), catalog_id=ref.id,
+                         created_at=now)
+
+
+def create_floor_app(settings: Settings) -> FastAPI:
+    app = create_app(settings)
+    canned: dict[str, Any] = {}  # the first request's quote, with its catalog
+
+    def canned_quote(payload: QuoteRequestIn, storage: Storage, catalogs: ParsedCatalogs,
+                     now: datetime) -> tuple[CatalogRef, dict[str, Any]]:
+        if not canned:
+            canned["ref"], canned["document"] = _computed(payload, storage, catalogs, now)
+        return canned["ref"], canned["document"]
+
+    def validated(payload: QuoteRequestIn, storage: Storage, catalogs: ParsedCatalogs,
+                  now: datetime) -> FastJSONResponse:
+        return FastJSONResponse(canned_quote(payload, storage, catalogs, now)[1], status_code=201)
+
+    def stored(payload: QuoteRequestIn, storage: Storage, catalogs: ParsedCatalogs,
+               now: datetime) -> FastJSONResponse:
+        ref, document = canned_quote(payload, storage, catalogs, now)
+        document = {**document, "id": new_id("q")}
+        row = StoredQuote(id=document["id"], created_at=now, team=payload.campaign.team,
+                          campaign_name=payload.campaign.name, catalog_id=ref.id, catalog_hash=ref.content_hash,
+                          model_version=document["model_version"], request=payload.model_dump(mode="json"),
+                          response=document)
+        with storage.writing() as repository:
+            repository.add_quote(row)
+        return FastJSONResponse(document, status_code=201)
+
+    def computed(payload: QuoteRequestIn, storage: Storage, catalogs: ParsedCatalogs,
+                 now: datetime) -> FastJSONResponse:
+        return FastJSONResponse(_computed(payload, storage, catalogs, now)[1], status_code=201)
+
+    for path, handler in (("/floor/validated", validated), ("/floor/stored", stored), ("/floor/computed", computed)):
+        app.add_api_route(path, _on_compute_lane(handler), methods=["POST"], status_code=201)
+    return app
+
+
+def _on_compute_lane(handler: Callable[..., FastJSONResponse]) -> Callable[..., Any]:
+    """A route that runs `handler` on the compute lane, as POST /v1/quotes runs its work."""
+    async def route(payload: QuoteRequestIn, storage: StorageDep, catalogs: CatalogsDep, now: NowDep,
+                    lane: ComputeLaneDep) -> FastJSONResponse:
+        response: FastJSONResponse = await to_thread.run_sync(partial(handler, payload, storage, catalogs, now),
+                                                              limiter=lane)
+        return response
+    return route
+
+
+def main() -> None:
+    """Serve the floor app as `berth serve` serves the service (one process, the same server options)."""
+    parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--host", default="127.0.0.1")
+    parser.add_argument("--port", type=int, required=True)
+    parser.add_argument("--database", required=True)
+    args = parser.parse_args()
+    settings = Settings(host=args.host, port=args.port, database_url=args.database)
+    configure_logging(settings.log_level)
+    uvicorn.run(create_floor_app(settings), host=settings.host, port=settings.port, log_config=None)
+
+
+if __name__ == "__main__":
+    main()

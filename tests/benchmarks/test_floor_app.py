@@ -1,0 +1,37 @@
+"""The floor app that `bench_quotes.py --floor` times: each floor route answers a quote request with
+a real quote document, doing only its part of what POST /v1/quotes does."""
+
+from pathlib import Path
+from typing import Any
+
+import httpx
+import pytest
+from floor_app import create_floor_app
+
+from service.api.app import prepare
+from service.config import Settings
+
+
+@pytest.mark.anyio
+async def test_each_floor_route_does_its_part_of_a_quote(tmp_path: Path, owned_wins_request: dict[str, Any]) -> None:
+    app = create_floor_app(Settings(database_url=f"sqlite:///{tmp_path / 'floor.db'}"))
+    prepare(app)
+    try:
+        async with httpx.AsyncClient(transport=httpx.ASGITransport(app=app), base_url="http://berth.test") as http:
+            quoted = await http.post("/v1/quotes", json=owned_wins_request)
+            validated = [await http.post("/floor/validated", json=owned_wins_request) for _ in range(2)]
+            stored = await http.post("/floor/stored", json=owned_wins_request)
+            computed = await http.post("/floor/computed", json=owned_wins_request)
+            bad = await http.post("/floor/validated", json={"campaign": {}})
+            assert [r.status_code for r in (quoted, *validated, stored, computed)] == [201] * 5
+            assert bad.status_code == 422  # the body is validated as a quote request
+            expected = quoted.json()["recommendation"]
+            for answer in (*validated, stored, computed):
+                assert answer.json()["recommendation"] == expected
+            # The canned document is answered as it is; the stored one is a new quote, readable back.
+            assert validated[0].json() == validated[1].json()
+            assert stored.json()["id"] != validated[0].json()["id"]
+            assert (await http.get(f"/v1/quotes/{stored.json()['id']}")).json() == stored.json()
+            assert (await http.get(f"/v1/quotes/{computed.json()['id']}")).status_code == 404
+    finally:
+        app.state.storage.dispose()
