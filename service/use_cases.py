@@ -4,6 +4,7 @@ the storage and owns its transaction; the HTTP layer and the command line only c
 import hashlib
 import json
 from collections import OrderedDict
+from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from pathlib import Path
@@ -118,8 +119,9 @@ class QuoteOutcome:
     replayed: bool = False
 
 
-def create_quote(storage: Storage, catalogs: ParsedCatalogs, request: QuoteRequestIn, *, now: datetime,
-                 caller: Principal, idempotency_key: str | None, fingerprint: str) -> QuoteOutcome:
+def create_quote(storage: Storage, catalogs: ParsedCatalogs, request: QuoteRequestIn, *,
+                 clock: Callable[[], datetime], caller: Principal, idempotency_key: str | None,
+                 fingerprint: str) -> QuoteOutcome:
     """Quote and store. With an Idempotency-Key: the same body replays the first answer, another
     body is refused, and a retry while the first runs is told to wait. A requester files quotes for
     its own team only."""
@@ -127,7 +129,7 @@ def create_quote(storage: Storage, catalogs: ParsedCatalogs, request: QuoteReque
         raise Forbidden(f"this key files quotes for team {caller.team!r}, not {request.campaign.team!r}")
     if idempotency_key is not None:
         with storage.writing() as repository:
-            claim = repository.claim_key(caller=caller.key_id, key=idempotency_key, body_hash=fingerprint, now=now,
+            claim = repository.claim_key(caller=caller.key_id, key=idempotency_key, body_hash=fingerprint, now=clock(),
                                          lease=IDEMPOTENCY_LEASE, keep=IDEMPOTENCY_KEEP)
         if not claim.same_body:
             raise InvalidInput("this Idempotency-Key was used with a different request body")
@@ -136,7 +138,8 @@ def create_quote(storage: Storage, catalogs: ParsedCatalogs, request: QuoteReque
         if claim.state == "done" and claim.response is not None:
             return QuoteOutcome(claim.status_code or 201, claim.response, replayed=True)
     try:
-        outcome = _quote_and_store(storage, catalogs, request, now=now, caller=caller.key_id, key=idempotency_key)
+        outcome = _quote_and_store(storage, catalogs, request, clock=clock, caller=caller.key_id,
+                                   key=idempotency_key)
     except Exception:
         if idempotency_key is not None:
             with storage.writing() as repository:
@@ -145,18 +148,24 @@ def create_quote(storage: Storage, catalogs: ParsedCatalogs, request: QuoteReque
     return outcome
 
 
-def _quote_and_store(storage: Storage, catalogs: ParsedCatalogs, request: QuoteRequestIn, *, now: datetime,
-                     caller: str, key: str | None) -> QuoteOutcome:
+def _quote_and_store(storage: Storage, catalogs: ParsedCatalogs, request: QuoteRequestIn, *,
+                     clock: Callable[[], datetime], caller: str, key: str | None) -> QuoteOutcome:
     stored_catalog = catalog_to_use(storage, request.catalog_id, field="catalog_id")
     body = quote(catalogs.get(stored_catalog, storage), request)
     quote_id = new_id("q")
-    document = envelope(body, catalog_hash=stored_catalog.content_hash, quote_id=quote_id,
-                        catalog_id=stored_catalog.id, created_at=now)
-    stored = StoredQuote(id=quote_id, created_at=now, team=request.campaign.team,
-                         campaign_name=request.campaign.name, catalog_id=stored_catalog.id,
-                         catalog_hash=stored_catalog.content_hash, model_version=document["model_version"],
-                         request=request.model_dump(mode="json"), response=document)
+    normalised = request.model_dump(mode="json")
     with storage.writing() as repository:
+        # Stamped once the write lock is held, not when the request arrived: quotes are then created
+        # in the order they are stored, so a client that asks for those created after the newest it
+        # has seen never misses one that took longer to compute (on SQLite, whose writers queue;
+        # PostgreSQL commits concurrent writers in any order).
+        now = clock()
+        document = envelope(body, catalog_hash=stored_catalog.content_hash, quote_id=quote_id,
+                            catalog_id=stored_catalog.id, created_at=now)
+        stored = StoredQuote(id=quote_id, created_at=now, team=request.campaign.team,
+                             campaign_name=request.campaign.name, catalog_id=stored_catalog.id,
+                             catalog_hash=stored_catalog.content_hash, model_version=document["model_version"],
+                             request=normalised, response=document)
         repository.add_quote(stored)
         if key is not None:
             repository.complete_key(caller=caller, key=key, status_code=201, response=document)

@@ -1,5 +1,5 @@
-"""Dependencies, as Annotated aliases: the storage, the parsed-catalog cache, the clock, the caller,
-the compute lane.
+"""Dependencies, as Annotated aliases: the storage, the parsed-catalog cache, the clock (or the moment
+of the request), the caller, the compute lane.
 
 They are `async` because they only read app state: FastAPI runs a sync dependency on the thread pool,
 a hop per dependency per request that costs more than the work."""
@@ -29,6 +29,11 @@ async def _catalogs(request: Request) -> ParsedCatalogs:
 async def _settings(request: Request) -> Settings:
     settings: Settings = request.app.state.settings
     return settings
+
+
+async def _clock(request: Request) -> Callable[[], datetime]:
+    clock: Callable[[], datetime] = request.app.state.clock
+    return clock
 
 
 async def _now(request: Request) -> datetime:
@@ -61,6 +66,7 @@ async def _compute_lane(request: Request) -> CapacityLimiter:
 StorageDep = Annotated[Storage, Depends(_storage)]
 CatalogsDep = Annotated[ParsedCatalogs, Depends(_catalogs)]
 NowDep = Annotated[datetime, Depends(_now)]
+ClockDep = Annotated[Callable[[], datetime], Depends(_clock)]
 SettingsDep = Annotated[Settings, Depends(_settings)]
 RawBodyDep = Annotated[bytes, Depends(_raw_body)]
 ComputeLaneDep = Annotated[CapacityLimiter, Depends(_compute_lane)]

@@ -11,6 +11,7 @@ import httpx
 import pytest
 from sqlalchemy import text
 
+from service import use_cases
 from service.api.schemas.quote import QuoteOut
 from service.api.schemas.request import QuoteRequestIn
 from service.storage.repository import Storage
@@ -155,6 +156,27 @@ async def test_quotes_are_filtered_by_team_campaign_and_creation_time_newest_fir
     assert await listed(client, created_from=one_hour) == [c["id"], b["id"]]  # inclusive
     assert await listed(client, created_to=two_hours) == [b["id"], a["id"]]  # exclusive
     assert await listed(client, created_from=one_hour, created_to=two_hours) == [b["id"]]
+
+
+@pytest.mark.anyio
+async def test_a_quote_is_stamped_when_it_is_stored_not_when_its_request_arrived(
+    client: httpx.AsyncClient, clock: FakeClock, owned_wins_request: dict[str, Any], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """Stamped at the write, quotes are created in the order they are stored: a client asking for those
+    created after the newest it has seen does not miss one that arrived earlier but computed longer."""
+    compute = use_cases.quote
+
+    def slow_quote(*args: Any, **kwargs: Any) -> dict[str, Any]:
+        clock.advance(seconds=30)  # the model runs for half a minute after the request arrived
+        return compute(*args, **kwargs)
+
+    monkeypatch.setattr(use_cases, "quote", slow_quote)
+    arrived = clock.now
+    slow = await create(client, owned_wins_request)
+    stored_at = arrived + timedelta(seconds=30)
+    assert slow["created_at"] == stored_at.isoformat().replace("+00:00", "Z")
+    assert (await client.get(f"/v1/quotes/{slow['id']}")).json()["created_at"] == slow["created_at"]
+    assert await listed(client, created_from=(arrived + timedelta(seconds=1)).isoformat()) == [slow["id"]]
 
 
 @pytest.mark.anyio

@@ -3,6 +3,7 @@ chart and options CSV of a stored quote."""
 
 import re
 import time
+from collections.abc import Callable
 from datetime import datetime
 from functools import partial
 from typing import Annotated, Any
@@ -14,7 +15,7 @@ from pydantic import BeforeValidator
 
 from service.access import Principal
 from service.api.auth import AnyKey
-from service.api.deps import CatalogsDep, ComputeLaneDep, NowDep, RawBodyDep, StorageDep
+from service.api.deps import CatalogsDep, ClockDep, ComputeLaneDep, RawBodyDep, StorageDep
 from service.api.observability import DomainMetrics
 from service.api.problems import PROBLEM, PROBLEM_RESPONSES
 from service.api.responses import FastJSONResponse
@@ -35,22 +36,23 @@ CONFLICT: dict[int | str, dict[str, Any]] = {
 async def post_quote(
     request: Request,
     payload: QuoteRequestIn,
-    raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep, now: NowDep, caller: AnyKey, lane: ComputeLaneDep,
+    raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep, clock: ClockDep, caller: AnyKey, lane: ComputeLaneDep,
     idempotency_key: Annotated[str | None, Header(max_length=255)] = None,
 ) -> Response:
     """Quote one campaign against a catalog (default: the newest), store it, and return it.
     The same Idempotency-Key with the same body returns the first answer."""
     metrics: DomainMetrics = request.app.state.metrics
-    create = partial(_create_quote, payload, raw=raw, storage=storage, catalogs=catalogs, now=now, caller=caller,
+    create = partial(_create_quote, payload, raw=raw, storage=storage, catalogs=catalogs, clock=clock, caller=caller,
                      idempotency_key=idempotency_key, metrics=metrics)
     return await to_thread.run_sync(create, limiter=lane)
 
 
-def _create_quote(payload: QuoteRequestIn, *, raw: bytes, storage: Storage, catalogs: ParsedCatalogs, now: datetime,
-                  caller: Principal, idempotency_key: str | None, metrics: DomainMetrics) -> Response:
+def _create_quote(payload: QuoteRequestIn, *, raw: bytes, storage: Storage, catalogs: ParsedCatalogs,
+                  clock: Callable[[], datetime], caller: Principal, idempotency_key: str | None,
+                  metrics: DomainMetrics) -> Response:
     """On the compute lane: quote, store, and encode the answer."""
     started = time.perf_counter()
-    outcome = create_quote(storage, catalogs, payload, now=now, caller=caller, idempotency_key=idempotency_key,
+    outcome = create_quote(storage, catalogs, payload, clock=clock, caller=caller, idempotency_key=idempotency_key,
                            fingerprint=body_fingerprint(raw))
     if not outcome.replayed:
         metrics.quote_seconds.observe(time.perf_counter() - started)
