@@ -135,6 +135,9 @@ def run(prepared: PreparedSweep, *, keep_rows: int = ROWS_IN_JSON, progress: Pro
     for option in result["options"]:  # type: ignore[attr-defined]
         for key in ("total_p5", "total_p50", "total_p95"):
             option[key] = None if option[key] is None else money(option[key])
+    for row in result["breakeven_utilisation"]:  # type: ignore[attr-defined]
+        for key in ("utilisation_p5", "utilisation_p50", "utilisation_p95"):
+            row[key] = None if row[key] is None else round(row[key], 4)  # as a quote gives utilisation
     return result, rows
 
 
