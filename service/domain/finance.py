@@ -30,10 +30,3 @@ def capital_recovery_payment(
     with_interest = (p * growth - f) * safe_i / np.where(i == 0.0, 1.0, np.expm1(n * np.log1p(i)))
     return np.where(i == 0.0, (p - f) / n, with_interest)
 
-
-def present_value_factor(*, rate: ArrayLike, periods: ArrayLike) -> Floats:
-    """Present value of 1 paid at the end of each of n periods: (1 − (1+i)^−n)/i, n when i = 0."""
-    i = as_floats(rate)
-    n = as_floats(periods)
-    safe_i = np.where(i == 0.0, 1.0, i)
-    return np.where(i == 0.0, n, -np.expm1(-n * np.log1p(i)) / safe_i)

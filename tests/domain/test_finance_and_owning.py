@@ -5,7 +5,7 @@ import numpy_financial as npf
 import pytest
 from numpy.testing import assert_allclose
 
-from service.domain.finance import capital_recovery_payment, monthly_rate, present_value_factor
+from service.domain.finance import capital_recovery_payment, monthly_rate
 from service.domain.owning import (
     chargeback_per_accelerator_hour,
     cooling_tons,
@@ -56,16 +56,6 @@ def test_capital_recovery_handles_zero_and_nonzero_rates_in_one_array() -> None:
     rates = np.array([0.0, 0.005, 0.01])
     payment = capital_recovery_payment(principal=12_000.0, rate=rates, periods=24, residual=1_000.0)
     assert_allclose(payment, npf.pmt(rates, 24, -12_000.0, 1_000.0), rtol=1e-12)
-
-
-def test_present_value_factor_matches_numpy_financial() -> None:
-    rates = np.array([0.0, 0.004, 0.01])
-    # numpy_financial.pv computes both branches of its rate == 0 switch and warns on the unused
-    # one; its result is still the documented n at rate 0.
-    with np.errstate(divide="ignore", invalid="ignore"):
-        reference = npf.pv(rates, 60, -1.0)
-    assert_allclose(present_value_factor(rate=rates, periods=60), reference, rtol=1e-12)
-    assert_allclose(reference[0], 60.0, rtol=0)
 
 
 def test_a_ton_of_refrigeration_is_twelve_thousand_btu_per_hour() -> None:
