@@ -10,8 +10,9 @@ router = APIRouter(tags=["probes"])
 
 
 @router.get("/healthz")
-def healthz() -> dict[str, str]:
-    """Liveness: the process answers. Checks nothing external."""
+async def healthz() -> dict[str, str]:
+    """Liveness: the process answers. Checks nothing external, and runs on the event loop, so it
+    answers even while slow work holds every worker thread."""
     return {"status": "ok"}
 
 
