@@ -18,6 +18,7 @@ from service.storage.repository import Storage
 from service.use_cases import IDEMPOTENCY_KEEP, IDEMPOTENCY_LEASE, body_fingerprint
 from tests.api.conftest import FakeClock
 from tests.api.problems import problem_of
+from tests.conftest import load_example
 
 TOP_LEVEL = {"id", "created_at", "catalog_id", "catalog_hash", "model_version", "request", "work", "options",
              "recommendation", "breakeven", "curves", "assumptions", "cautions"}
@@ -67,6 +68,19 @@ async def test_a_quote_is_created_with_every_documented_field_and_a_location(
     assert body["created_at"] == "2027-01-04T09:00:00Z"
     assert body["request"]["campaign"]["name"] == owned_wins_request["campaign"]["name"]
     assert body["options"] and body["assumptions"]
+
+
+@pytest.mark.anyio
+@pytest.mark.parametrize("example", ["campaign-owned-wins.json", "campaign-renting-wins.json",
+                                     "campaign-residency-blocked.json", "campaign-recurring.json",
+                                     "campaign-split.json"])
+async def test_every_demo_campaign_quotes_to_the_documented_schema(client: httpx.AsyncClient, example: str) -> None:
+    """The OpenAPI's quote schema describes every answer, a split of an owned and a rented part included."""
+    body = await create(client, load_example(example))
+    QuoteOut.model_validate(body)
+    if example == "campaign-split.json":
+        split = next(o for o in body["options"] if o["venue"]["kind"] == "split")
+        assert len(split["parts"]) == 2 and "+" in split["venue"]["jurisdiction"]
 
 
 @pytest.mark.anyio

@@ -13,7 +13,11 @@ class Open(BaseModel):
 
 
 class Venue(Open):
-    kind: Literal["owned", "rented"]
+    """Where an option runs. A split runs part of the campaign's runs at an owned site and the rest
+    on a rented offer: its id and jurisdiction join the two parts' with "+" (for example "NO+FR"),
+    and the option lists both under `parts`."""
+
+    kind: Literal["owned", "rented", "split"]
     id: str
     jurisdiction: str
     node_type: str
