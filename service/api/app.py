@@ -15,7 +15,7 @@ from service.api import problems
 from service.api.auth import LocalMode, RateLimiter
 from service.api.deps import compute_lane, utc_now
 from service.api.examples import quote_request_examples
-from service.api.middleware import BodyLimit, RequestContext, TimeLimit
+from service.api.middleware import BodyLimit, HeadAsGet, RequestContext, TimeLimit
 from service.api.observability import install_metrics
 from service.api.routers import catalogs, fleet_plans, probes, quotes, sweeps
 from service.api.schemas.catalog import CatalogIn
@@ -75,7 +75,9 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     app.state.rate_limiter = RateLimiter(per_second=settings.rate_limit_per_second, burst=settings.rate_limit_burst)
     problems.install(app)
     install_metrics(app)
-    # Outermost first: every response carries a request id, then time and size limits apply.
+    # Outermost first: every response carries a request id, then time and size limits apply, and
+    # innermost HEAD becomes GET.
+    app.add_middleware(HeadAsGet)
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     app.add_middleware(TimeLimit, seconds=settings.request_timeout_seconds)
     app.add_middleware(RequestContext)

@@ -1,5 +1,6 @@
 """ASGI middleware: request ids, body-size limits and time limits, each answering with an RFC 9457
-problem of its own. Pure ASGI (no BaseHTTPMiddleware) so streaming responses pass through."""
+problem of its own, and HEAD answered as GET. Pure ASGI (no BaseHTTPMiddleware) so streaming
+responses pass through."""
 
 import asyncio
 import contextvars
@@ -59,6 +60,28 @@ class RequestContext:
             log.info("request", extra={"method": scope["method"], "path": scope["path"], "status": status[0],
                                        "duration_ms": round((time.perf_counter() - started) * 1000, 2)})
             REQUEST_ID.reset(token)
+
+
+class HeadAsGet:
+    """Answers HEAD as the same GET without its body: the same status and header fields, Content-Length
+    included (RFC 9110 §9.3.2, which also says every general-purpose server supports HEAD)."""
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http" or scope["method"] != "HEAD":
+            await self.app(scope, receive, send)
+            return
+
+        async def without_body(message: Message) -> None:
+            if message["type"] == "http.response.body":
+                if message.get("more_body", False):
+                    return  # a streamed body's parts are dropped; its end is sent, empty
+                message = {"type": "http.response.body", "body": b""}
+            await send(message)
+
+        await self.app({**scope, "method": "GET"}, receive, without_body)
 
 
 class BodyLimit:

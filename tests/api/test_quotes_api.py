@@ -369,3 +369,20 @@ async def test_an_unknown_route_and_a_wrong_method_are_problems_too(client: http
     wrong = await client.put("/v1/quotes/q_any/recompute")
     problem_of(wrong, 405)
     assert wrong.headers["allow"] == "POST"
+    assert (await client.put("/v1/quotes")).headers["allow"] == "GET, HEAD, POST"
+
+
+@pytest.mark.anyio
+async def test_head_answers_as_get_without_the_body(
+    client: httpx.AsyncClient, owned_wins_request: dict[str, Any]
+) -> None:
+    """Every readable resource answers HEAD, as the Allow header of a 405 promises (RFC 9110 §9.3.2)."""
+    quote_id = (await create(client, owned_wins_request))["id"]
+    for path in ("/healthz", f"/v1/quotes/{quote_id}", f"/v1/quotes/{quote_id}/options.csv", "/v1/quotes/q_none"):
+        got, head = await client.get(path), await client.head(path)
+        assert head.status_code == got.status_code and head.content == b""
+        assert head.headers["content-type"] == got.headers["content-type"]
+        if "content-length" in got.headers:
+            assert head.headers["content-length"] == got.headers["content-length"] == str(len(got.content))
+    refused = await client.head("/v1/quotes/q_any/recompute")  # POST only
+    assert refused.status_code == 405 and refused.headers["allow"] == "POST" and refused.content == b""
