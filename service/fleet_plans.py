@@ -21,7 +21,7 @@ from service.domain.terms import upfront_financing_factor
 from service.domain.venues import site_economics, sustained_flops
 from service.errors import FieldProblem, InvalidInput, NotFound
 from service.storage.repository import Storage, StoredQuote, new_id
-from service.use_cases import ParsedCatalogs, catalog_to_use
+from service.use_cases import Created, KeepAnswer, ParsedCatalogs, catalog_to_use
 
 QuoteLookup = Callable[[Sequence[str]], list[StoredQuote | None]]
 
@@ -214,8 +214,9 @@ def _document(currency: str, request: FleetPlanIn, sizes: np.ndarray, allowed: n
 
 
 def create_fleet_plan(storage: Storage, catalogs: ParsedCatalogs, request: FleetPlanIn, *, now: datetime,
-                      limits: FleetLimits) -> dict[str, Any]:
-    """Plan, store and return the plan with its id and links."""
+                      limits: FleetLimits, keep: KeepAnswer | None = None) -> Created:
+    """Plan, store and return the plan with its id and links. `keep` (from `once_per_key`) is given
+    the answer in the transaction that stores the plan."""
     stored = catalog_to_use(storage, request.catalog_id, field="catalog_id")
 
     def lookup(ids: Sequence[str]) -> list[StoredQuote | None]:
@@ -231,7 +232,9 @@ def create_fleet_plan(storage: Storage, catalogs: ParsedCatalogs, request: Fleet
     with storage.writing() as repository:
         repository.add_fleet_plan(plan_id=plan_id, created_at=now, catalog_id=stored.id,
                                   request=request.model_dump(mode="json"), response=document)
-    return document
+        if keep is not None:
+            keep(repository, 201, document)
+    return Created(201, document)
 
 
 def get_fleet_plan(storage: Storage, plan_id: str) -> dict[str, Any]:

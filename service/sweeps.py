@@ -25,7 +25,7 @@ from service.domain.whatif import PATHS, InputPath, apply, base_value
 from service.errors import FieldProblem, InvalidInput, NotFound
 from service.quoting import request_problems
 from service.storage.repository import Storage, StoredSweep, new_id
-from service.use_cases import ParsedCatalogs, catalog_to_use
+from service.use_cases import Created, KeepAnswer, ParsedCatalogs, catalog_to_use
 
 log = logging.getLogger("berth.sweeps")
 
@@ -250,34 +250,33 @@ def _decimals(values: np.ndarray) -> np.ndarray:
 
 # Stored sweeps: submitted over HTTP, small ones answered at once, large ones run in the background.
 
-@dataclass(frozen=True)
-class SweepOutcome:
-    status_code: int
-    body: dict[str, Any]
-
-
 def submit_sweep(storage: Storage, catalogs: ParsedCatalogs, sweep: SweepIn, *, now: datetime, limits: SweepLimits,
-                 answer_at_once: int, runner: "SweepRunner") -> SweepOutcome:
+                 answer_at_once: int, runner: "SweepRunner", keep: KeepAnswer | None = None) -> Created:
     """Check and store a sweep. Up to `answer_at_once` scenarios it runs now (201 with the answer);
-    beyond, it is queued (202) and its progress is at GET /v1/sweeps/{id}."""
+    beyond, it is queued (202) and its progress is at GET /v1/sweeps/{id}. `keep` (from
+    `once_per_key`) is given the answer in the transaction that stores the sweep."""
     stored_catalog = catalog_to_use(storage, sweep.base.catalog_id, field="base.catalog_id")
-    catalog_id = stored_catalog.id
     prepared = prepare_sweep(catalogs.get(stored_catalog, storage), sweep, limits)
     sweep_id = new_id("sw")
-    request = sweep.model_dump(mode="json")
     total = prepared.plan.scenarios
-    if total <= answer_at_once:
+    at_once = total <= answer_at_once
+    document = None
+    if at_once:
         summary, rows = run(prepared)
         document = sweep_document(prepared, summary, rows, tornado_bars(prepared))
-        with storage.writing() as repository:
-            repository.add_sweep(sweep_id=sweep_id, created_at=now, catalog_id=catalog_id, status="done",
-                                 total=total, request=request, result=document)
-        return SweepOutcome(201, status_body(_stored(storage, sweep_id)))
+    status_code = 201 if at_once else 202
     with storage.writing() as repository:
-        repository.add_sweep(sweep_id=sweep_id, created_at=now, catalog_id=catalog_id, status="queued",
-                             total=total, request=request)
-    runner.submit(sweep_id)
-    return SweepOutcome(202, status_body(_stored(storage, sweep_id)))
+        repository.add_sweep(sweep_id=sweep_id, created_at=now, catalog_id=stored_catalog.id,
+                             status="done" if at_once else "queued", total=total,
+                             request=sweep.model_dump(mode="json"), result=document)
+        stored = repository.sweep(sweep_id)
+        assert stored is not None  # just written, in this transaction
+        body = status_body(stored)
+        if keep is not None:
+            keep(repository, status_code, body)
+    if not at_once:
+        runner.submit(sweep_id)
+    return Created(status_code, body)
 
 
 def _stored(storage: Storage, sweep_id: str) -> StoredSweep:

@@ -18,7 +18,7 @@ from service.api.schemas.request import QuoteRequestIn
 from service.errors import Conflict, FieldProblem, Forbidden, InvalidInput, NotFound
 from service.loading import parse_document, validate
 from service.quoting import catalog_hash, envelope, model_version, quote
-from service.storage.repository import CatalogRef, Storage, StoredCatalog, StoredQuote, new_id
+from service.storage.repository import CatalogRef, Repository, Storage, StoredCatalog, StoredQuote, new_id
 
 IDEMPOTENCY_KEEP = timedelta(hours=24)
 IDEMPOTENCY_LEASE = timedelta(seconds=60)
@@ -47,26 +47,45 @@ class ParsedCatalogs:
         return parsed
 
 
-def upload_catalog(storage: Storage, data: Any, *, now: datetime) -> tuple[StoredCatalog, bool]:
-    """Validate and store a catalog; identical content returns the catalog already stored."""
+def catalog_body(stored: StoredCatalog, *, with_content: bool) -> dict[str, Any]:
+    """A stored catalog as the API answers it."""
+    body: dict[str, Any] = {
+        "id": stored.id, "name": stored.name, "currency": stored.currency, "content_hash": stored.content_hash,
+        "created_at": stored.created_at.isoformat().replace("+00:00", "Z"),
+    }
+    if with_content:
+        body["content"] = stored.content
+    return body
+
+
+def upload_catalog(storage: Storage, data: Any, *, now: datetime,
+                   keep: "KeepAnswer | None" = None) -> tuple[StoredCatalog, bool]:
+    """Validate and store a catalog; identical content returns the catalog already stored. `keep`
+    (from `once_per_key`) is given the answer in the same transaction."""
     catalog = validate(CatalogIn, data, source="catalog")
     content = catalog.model_dump(mode="json")
     digest = catalog_hash(catalog)
+
+    def answered(repository: Repository, stored: StoredCatalog, created: bool) -> tuple[StoredCatalog, bool]:
+        if keep is not None:
+            keep(repository, 201 if created else 200, catalog_body(stored, with_content=True))
+        return stored, created
+
     try:
         with storage.writing() as repository:
             existing = repository.catalog_by_hash(digest)
             if existing is not None:
-                return existing, False
+                return answered(repository, existing, False)
             stored = repository.add_catalog(name=catalog.name, currency=catalog.currency, content_hash=digest,
                                             content=content, created_at=now)
-            return stored, True
+            return answered(repository, stored, True)
     except IntegrityError:
         # Another replica stored the same content between our read and our insert.
-        with storage.reading() as repository:
+        with storage.writing() as repository:
             existing = repository.catalog_by_hash(digest)
-        if existing is None:
-            raise
-        return existing, False
+            if existing is None:
+                raise
+            return answered(repository, existing, False)
 
 
 def load_demo_catalog(storage: Storage, path: Path, *, now: datetime) -> StoredCatalog | None:
@@ -113,43 +132,53 @@ def body_fingerprint(body: bytes) -> str:
 
 
 @dataclass(frozen=True)
-class QuoteOutcome:
+class Created:
+    """What a creating request answers: its status and body, and whether it replays a first answer."""
+
     status_code: int
     body: dict[str, Any]
     replayed: bool = False
 
 
+# Called by a creating use case inside the transaction that stores what it created, with the answer:
+# the answer is then kept under the request's Idempotency-Key in that same commit.
+KeepAnswer = Callable[[Repository, int, dict[str, Any]], None]
+
+
+def once_per_key(storage: Storage, *, caller: Principal, key: str | None, body: bytes, clock: Callable[[], datetime],
+                 create: Callable[[KeepAnswer | None], Created]) -> Created:
+    """Run a creating use case at most once per Idempotency-Key of the caller (conventions.md): the
+    same key with the same body replays the first answer, with another body is refused, and a retry
+    while the first still runs is told to wait. Without a key, `create` just runs."""
+    if key is None:
+        return create(None)
+    with storage.writing() as repository:
+        claim = repository.claim_key(caller=caller.key_id, key=key, body_hash=body_fingerprint(body), now=clock(),
+                                     lease=IDEMPOTENCY_LEASE, keep=IDEMPOTENCY_KEEP)
+    if not claim.same_body:
+        raise InvalidInput("this Idempotency-Key was used with a different request body", [
+            FieldProblem("header.idempotency-key", "already used with another request body; send a new key")])
+    if claim.state == "in_flight":
+        raise Conflict("a request with this Idempotency-Key is still being processed; retry shortly")
+    if claim.state == "done" and claim.response is not None:
+        return Created(claim.status_code or 201, claim.response, replayed=True)
+
+    def keep(repository: Repository, status_code: int, answer: dict[str, Any]) -> None:
+        repository.complete_key(caller=caller.key_id, key=key, status_code=status_code, response=answer)
+
+    try:
+        return create(keep)
+    except Exception:
+        with storage.writing() as repository:
+            repository.release_key(caller=caller.key_id, key=key)
+        raise
+
+
 def create_quote(storage: Storage, catalogs: ParsedCatalogs, request: QuoteRequestIn, *,
-                 clock: Callable[[], datetime], caller: Principal, idempotency_key: str | None,
-                 fingerprint: str) -> QuoteOutcome:
-    """Quote and store. With an Idempotency-Key: the same body replays the first answer, another
-    body is refused, and a retry while the first runs is told to wait. A requester files quotes for
-    its own team only."""
+                 clock: Callable[[], datetime], caller: Principal, keep: KeepAnswer | None = None) -> Created:
+    """Quote and store. A requester files quotes for its own team only."""
     if caller.role == "requester" and request.campaign.team != caller.team:
         raise Forbidden(f"this key files quotes for team {caller.team!r}, not {request.campaign.team!r}")
-    if idempotency_key is not None:
-        with storage.writing() as repository:
-            claim = repository.claim_key(caller=caller.key_id, key=idempotency_key, body_hash=fingerprint, now=clock(),
-                                         lease=IDEMPOTENCY_LEASE, keep=IDEMPOTENCY_KEEP)
-        if not claim.same_body:
-            raise InvalidInput("this Idempotency-Key was used with a different request body")
-        if claim.state == "in_flight":
-            raise Conflict("a request with this Idempotency-Key is still being processed; retry shortly")
-        if claim.state == "done" and claim.response is not None:
-            return QuoteOutcome(claim.status_code or 201, claim.response, replayed=True)
-    try:
-        outcome = _quote_and_store(storage, catalogs, request, clock=clock, caller=caller.key_id,
-                                   key=idempotency_key)
-    except Exception:
-        if idempotency_key is not None:
-            with storage.writing() as repository:
-                repository.release_key(caller=caller.key_id, key=idempotency_key)
-        raise
-    return outcome
-
-
-def _quote_and_store(storage: Storage, catalogs: ParsedCatalogs, request: QuoteRequestIn, *,
-                     clock: Callable[[], datetime], caller: str, key: str | None) -> QuoteOutcome:
     stored_catalog = catalog_to_use(storage, request.catalog_id, field="catalog_id")
     body = quote(catalogs.get(stored_catalog, storage), request)
     quote_id = new_id("q")
@@ -167,9 +196,9 @@ def _quote_and_store(storage: Storage, catalogs: ParsedCatalogs, request: QuoteR
                              catalog_hash=stored_catalog.content_hash, model_version=document["model_version"],
                              request=normalised, response=document)
         repository.add_quote(stored)
-        if key is not None:
-            repository.complete_key(caller=caller, key=key, status_code=201, response=document)
-    return QuoteOutcome(201, document)
+        if keep is not None:
+            keep(repository, 201, document)
+    return Created(201, document)
 
 
 def find_quotes(storage: Storage, viewer: Principal, *, team: str | None, campaign_name: str | None,

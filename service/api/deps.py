@@ -9,7 +9,7 @@ from datetime import UTC, datetime
 from typing import Annotated
 
 from anyio import CapacityLimiter
-from fastapi import Depends, Request
+from fastapi import Depends, Header, Request
 
 from service.config import Settings
 from service.storage.repository import Storage
@@ -67,6 +67,8 @@ StorageDep = Annotated[Storage, Depends(_storage)]
 CatalogsDep = Annotated[ParsedCatalogs, Depends(_catalogs)]
 NowDep = Annotated[datetime, Depends(_now)]
 ClockDep = Annotated[Callable[[], datetime], Depends(_clock)]
+# Every POST that creates takes one (conventions.md); `once_per_key` gives it its meaning.
+IdempotencyKeyDep = Annotated[str | None, Header(alias="Idempotency-Key", max_length=255)]
 SettingsDep = Annotated[Settings, Depends(_settings)]
 RawBodyDep = Annotated[bytes, Depends(_raw_body)]
 ComputeLaneDep = Annotated[CapacityLimiter, Depends(_compute_lane)]

@@ -91,5 +91,9 @@ def _problems(*statuses: int) -> dict[int | str, dict[str, Any]]:
 
 
 PROBLEM_RESPONSES = _problems(400, 404, 413, 422)  # 400: an unreadable body; 413: one over the size limit
+# A creating route with an Idempotency-Key whose first request is still running.
+CONFLICT: dict[int | str, dict[str, Any]] = {
+    409: {"description": "a request with this Idempotency-Key is still in flight",
+          "content": {PROBLEM: {"schema": {"$ref": "#/components/schemas/Problem"}}}}}
 # Every route behind a key: no or a wrong key, a role that may not, too many requests, too slow.
 ACCESS_RESPONSES = _problems(401, 403, 429, 503)

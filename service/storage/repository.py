@@ -252,8 +252,11 @@ class Repository:
                 self.session.add(IdempotencyRow(caller=caller, key=key, body_hash=body_hash, state="in_flight",
                                                 claimed_at=now, expires_at=now + keep))
         except IntegrityError:
-            # Another replica claimed it between our read and our write.
-            return Claim("in_flight", True)
+            # Another replica claimed it between our read and our write; its claim is committed now.
+            winner = self.session.exec(
+                select(IdempotencyRow).where(IdempotencyRow.caller == caller, IdempotencyRow.key == key)
+            ).first()
+            return Claim("in_flight", winner is None or winner.body_hash == body_hash)
         return Claim("claimed", True)
 
     def complete_key(self, *, caller: str, key: str, status_code: int, response: dict[str, Any]) -> None:

@@ -20,6 +20,7 @@ from sqlmodel import SQLModel
 from service.storage.engine import build_engine
 from service.storage.migrate import is_at_head, upgrade
 from service.storage.repository import CatalogRef, Storage, StoredCatalog, StoredQuote, new_id
+from service.storage.tables import IdempotencyRow
 from service.use_cases import ParsedCatalogs, upload_catalog
 from tests.databases import sqlite_only
 
@@ -220,6 +221,29 @@ def test_a_fresh_key_is_claimed_and_a_second_claim_finds_it_in_flight(storage: S
     second = claim(storage, at=NOW + timedelta(seconds=59))
     assert (second.state, second.same_body) == ("in_flight", True)
     assert claim(storage, body="c" * 64, at=NOW + timedelta(seconds=1)).same_body is False
+
+
+@pytest.mark.parametrize(("winner_body", "same"), [("b" * 64, True), ("c" * 64, False)])
+def test_a_claim_that_loses_a_race_compares_its_body_with_the_winners(storage: Storage, winner_body: str,
+                                                                      same: bool) -> None:
+    """Another replica's claim lands between this claim's read and its insert: the claim is in flight,
+    and whether the bodies match is read from the winner, so a retry with another body is refused."""
+    with storage.writing() as repository:
+        read = repository.session.exec
+        raced: list[bool] = []
+
+        def read_then_lose_the_race(statement: Any, *args: Any, **kwargs: Any) -> Any:
+            result = read(statement, *args, **kwargs)
+            if not raced:  # right after the first read, which found no claim
+                raced.append(True)
+                repository.session.add(IdempotencyRow(caller="local", key="k", body_hash=winner_body,
+                                                      state="in_flight", claimed_at=NOW, expires_at=NOW + KEEP))
+                repository.session.flush()
+            return result
+
+        repository.session.exec = read_then_lose_the_race  # type: ignore[method-assign]
+        lost = repository.claim_key(caller="local", key="k", body_hash="b" * 64, now=NOW, lease=LEASE, keep=KEEP)
+    assert (lost.state, lost.same_body) == ("in_flight", same)
 
 
 def test_keys_belong_to_one_caller(storage: Storage) -> None:

@@ -3,17 +3,19 @@
 from typing import Any
 
 from fastapi import APIRouter, Request
-from fastapi.responses import HTMLResponse, JSONResponse, Response
+from fastapi.responses import HTMLResponse, Response
 
 from service.api.auth import Analyst
-from service.api.deps import CatalogsDep, NowDep, SettingsDep, StorageDep
+from service.api.deps import CatalogsDep, ClockDep, IdempotencyKeyDep, NowDep, RawBodyDep, SettingsDep, StorageDep
 from service.api.observability import DomainMetrics
-from service.api.problems import PROBLEM_RESPONSES
+from service.api.problems import CONFLICT, PROBLEM_RESPONSES
+from service.api.responses import created_response
 from service.api.schemas.fleet import FleetPlanIn
 from service.fleet_plans import FleetLimits, create_fleet_plan, get_fleet_plan
 from service.reports import render_plan
 from service.reports.fleet_chart import fleet_figure_svg
 from service.reports.svg import standalone
+from service.use_cases import Created, KeepAnswer, once_per_key
 
 router = APIRouter(prefix="/v1/fleet-plans", tags=["fleet plans"])
 
@@ -21,16 +23,22 @@ router = APIRouter(prefix="/v1/fleet-plans", tags=["fleet plans"])
 
 
 
-@router.post("", status_code=201, responses=PROBLEM_RESPONSES)
-def post_fleet_plan(request: Request, payload: FleetPlanIn, storage: StorageDep, catalogs: CatalogsDep, now: NowDep,
-                    settings: SettingsDep, _analyst: Analyst) -> JSONResponse:
+@router.post("", status_code=201, responses={**PROBLEM_RESPONSES, **CONFLICT})
+def post_fleet_plan(request: Request, payload: FleetPlanIn, raw: RawBodyDep, storage: StorageDep,
+                    catalogs: CatalogsDep, now: NowDep, clock: ClockDep, settings: SettingsDep, caller: Analyst,
+                    idempotency_key: IdempotencyKeyDep = None) -> Response:
     """Every candidate fleet size against every demand sample and month at once: present cost
-    percentiles per size, the best size, the chance it beats renting everything, and its months."""
-    document = create_fleet_plan(storage, catalogs, payload, now=now,
-                                 limits=FleetLimits(max_cells=settings.fleet_max_cells))
-    metrics: DomainMetrics = request.app.state.metrics
-    metrics.fleet_plans.inc()
-    return JSONResponse(document, status_code=201, headers={"Location": document["links"]["self"]})
+    percentiles per size, the best size, the chance it beats renting everything, and its months.
+    The same Idempotency-Key with the same body returns the first answer."""
+    def create(keep: KeepAnswer | None) -> Created:
+        created = create_fleet_plan(storage, catalogs, payload, now=now,
+                                    limits=FleetLimits(max_cells=settings.fleet_max_cells), keep=keep)
+        metrics: DomainMetrics = request.app.state.metrics
+        metrics.fleet_plans.inc()
+        return created
+
+    outcome = once_per_key(storage, caller=caller, key=idempotency_key, body=raw, clock=clock, create=create)
+    return created_response(outcome, location=outcome.body["links"]["self"])
 
 
 @router.get("/{plan_id}/chart.svg", response_class=Response, responses={

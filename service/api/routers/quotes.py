@@ -3,64 +3,56 @@ chart and options CSV of a stored quote."""
 
 import re
 import time
-from collections.abc import Callable
 from datetime import datetime
-from functools import partial
 from typing import Annotated, Any
 
 from anyio import to_thread
-from fastapi import APIRouter, Header, Query, Request
+from fastapi import APIRouter, Query, Request
 from fastapi.responses import HTMLResponse, Response, StreamingResponse
 from pydantic import BeforeValidator
 
-from service.access import Principal
 from service.api.auth import AnyKey
-from service.api.deps import CatalogsDep, ClockDep, ComputeLaneDep, RawBodyDep, StorageDep
+from service.api.deps import CatalogsDep, ClockDep, ComputeLaneDep, IdempotencyKeyDep, RawBodyDep, StorageDep
 from service.api.observability import DomainMetrics
-from service.api.problems import PROBLEM, PROBLEM_RESPONSES
-from service.api.responses import FastJSONResponse
+from service.api.problems import CONFLICT, PROBLEM_RESPONSES
+from service.api.responses import FastJSONResponse, created_response
 from service.api.schemas.quote import QuoteOut, QuotePage, Recomputation
 from service.api.schemas.request import QuoteRequestIn
 from service.reports import breakeven_svg, options_csv, render_report
-from service.storage.repository import Storage, StoredQuote
-from service.use_cases import ParsedCatalogs, body_fingerprint, create_quote, find_quotes, get_quote, recompute_quote
+from service.storage.repository import StoredQuote
+from service.use_cases import (
+    Created,
+    KeepAnswer,
+    create_quote,
+    find_quotes,
+    get_quote,
+    once_per_key,
+    recompute_quote,
+)
 
 router = APIRouter(prefix="/v1/quotes", tags=["quotes"])
 
-CONFLICT: dict[int | str, dict[str, Any]] = {
-    409: {"description": "a request with this Idempotency-Key is still in flight",
-          "content": {PROBLEM: {"schema": {"$ref": "#/components/schemas/Problem"}}}}}
-
-
 @router.post("", status_code=201, response_model=QuoteOut, responses={**PROBLEM_RESPONSES, **CONFLICT})
 async def post_quote(
-    request: Request,
-    payload: QuoteRequestIn,
-    raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep, clock: ClockDep, caller: AnyKey, lane: ComputeLaneDep,
-    idempotency_key: Annotated[str | None, Header(max_length=255)] = None,
+    request: Request, payload: QuoteRequestIn, raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep,
+    clock: ClockDep, caller: AnyKey, lane: ComputeLaneDep, idempotency_key: IdempotencyKeyDep = None,
 ) -> Response:
     """Quote one campaign against a catalog (default: the newest), store it, and return it.
     The same Idempotency-Key with the same body returns the first answer."""
     metrics: DomainMetrics = request.app.state.metrics
-    create = partial(_create_quote, payload, raw=raw, storage=storage, catalogs=catalogs, clock=clock, caller=caller,
-                     idempotency_key=idempotency_key, metrics=metrics)
-    return await to_thread.run_sync(create, limiter=lane)
 
-
-def _create_quote(payload: QuoteRequestIn, *, raw: bytes, storage: Storage, catalogs: ParsedCatalogs,
-                  clock: Callable[[], datetime], caller: Principal, idempotency_key: str | None,
-                  metrics: DomainMetrics) -> Response:
-    """On the compute lane: quote, store, and encode the answer."""
-    started = time.perf_counter()
-    outcome = create_quote(storage, catalogs, payload, clock=clock, caller=caller, idempotency_key=idempotency_key,
-                           fingerprint=body_fingerprint(raw))
-    if not outcome.replayed:
+    def create(keep: KeepAnswer | None) -> Created:
+        started = time.perf_counter()
+        created = create_quote(storage, catalogs, payload, clock=clock, caller=caller, keep=keep)
         metrics.quote_seconds.observe(time.perf_counter() - started)
         metrics.quotes_created.inc()
-    headers = {"Location": f"/v1/quotes/{outcome.body['id']}"}
-    if outcome.replayed:
-        headers["Idempotent-Replayed"] = "true"
-    return FastJSONResponse(outcome.body, status_code=outcome.status_code, headers=headers)
+        return created
+
+    def on_compute_lane() -> Response:
+        outcome = once_per_key(storage, caller=caller, key=idempotency_key, body=raw, clock=clock, create=create)
+        return created_response(outcome, location=f"/v1/quotes/{outcome.body['id']}")
+
+    return await to_thread.run_sync(on_compute_lane, limiter=lane)
 
 
 def _iso_8601(value: object) -> object:

@@ -4,14 +4,16 @@ background with progress; every row as streamed CSV."""
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, Request
-from fastapi.responses import JSONResponse, StreamingResponse
+from fastapi.responses import Response, StreamingResponse
 
 from service.api.auth import Analyst
-from service.api.deps import CatalogsDep, NowDep, SettingsDep, StorageDep
+from service.api.deps import CatalogsDep, ClockDep, IdempotencyKeyDep, NowDep, RawBodyDep, SettingsDep, StorageDep
 from service.api.observability import DomainMetrics
-from service.api.problems import PROBLEM_RESPONSES
+from service.api.problems import CONFLICT, PROBLEM_RESPONSES
+from service.api.responses import created_response
 from service.api.schemas.sweep import SweepIn
 from service.sweeps import SweepLimits, SweepRunner, csv_chunks, get_sweep, prepared_from_store, submit_sweep
+from service.use_cases import Created, KeepAnswer, once_per_key
 
 router = APIRouter(prefix="/v1/sweeps", tags=["sweeps"])
 
@@ -26,20 +28,26 @@ RunnerDep = Annotated[SweepRunner, Depends(_runner)]
 
 
 @router.post("", status_code=201, responses={202: {"description": "accepted: running in the background"},
-                                             **PROBLEM_RESPONSES})
-def post_sweep(request: Request, payload: SweepIn, storage: StorageDep, catalogs: CatalogsDep, now: NowDep,
-               runner: RunnerDep, settings: SettingsDep, _analyst: Analyst) -> JSONResponse:
+                                             **PROBLEM_RESPONSES, **CONFLICT})
+def post_sweep(request: Request, payload: SweepIn, raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep,
+               now: NowDep, clock: ClockDep, runner: RunnerDep, settings: SettingsDep, caller: Analyst,
+               idempotency_key: IdempotencyKeyDep = None) -> Response:
     """Run a sweep: a grid of every combination, or Monte Carlo samples from distributions, over a
     base quote request. Up to `BERTH_SWEEP_ANSWER_AT_ONCE` scenarios the answer comes back at once
-    (201); larger sweeps are accepted (202) and report progress at their Location."""
+    (201); larger sweeps are accepted (202) and report progress at their Location. The same
+    Idempotency-Key with the same body returns the first answer."""
     limits = SweepLimits(max_scenarios=settings.sweep_max_scenarios, max_grid_values=settings.sweep_max_grid_values)
-    outcome = submit_sweep(storage, catalogs, payload, now=now, limits=limits,
-                           answer_at_once=settings.sweep_answer_at_once, runner=runner)
-    if outcome.status_code == 201:  # answered at once; a background sweep is counted by its runner
-        metrics: DomainMetrics = request.app.state.metrics
-        metrics.sweep_scenarios.inc(outcome.body["progress"]["scenarios_total"])
-    return JSONResponse(outcome.body, status_code=outcome.status_code,
-                        headers={"Location": outcome.body["links"]["self"]})
+
+    def create(keep: KeepAnswer | None) -> Created:
+        created = submit_sweep(storage, catalogs, payload, now=now, limits=limits,
+                               answer_at_once=settings.sweep_answer_at_once, runner=runner, keep=keep)
+        if created.status_code == 201:  # answered at once; a background sweep is counted by its runner
+            metrics: DomainMetrics = request.app.state.metrics
+            metrics.sweep_scenarios.inc(created.body["progress"]["scenarios_total"])
+        return created
+
+    outcome = once_per_key(storage, caller=caller, key=idempotency_key, body=raw, clock=clock, create=create)
+    return created_response(outcome, location=outcome.body["links"]["self"])
 
 
 @router.get("/{sweep_id}", responses=PROBLEM_RESPONSES)
