@@ -52,6 +52,9 @@ def print_quote(quote: dict[str, Any]) -> None:
         print("No option is feasible. Next steps:")
         for step in quote.get("next_steps", []):
             print(f"  - {step}")
+    print()
+    for caution in quote.get("cautions", []):  # the quote's own words: these figures are estimates
+        print(f"Note: {caution}")
 
 
 def print_problem(response: httpx.Response) -> None:

@@ -292,6 +292,8 @@ def test_the_finance_script_prints_the_ranked_options_and_the_recommendation(ber
         assert row.split()[0] == str(option["rank"])
         assert f"{option['cost']['total']:,.2f} {quote['currency']}" in row
     assert sum("ruled out: " in line for line in lines) == len(quote["options"]) - len(ranked)
+    notes = [f"Note: {caution}" for caution in quote["cautions"]]
+    assert notes and lines[-len(notes):] == notes  # the cautions close the printout
 
 
 def test_the_finance_script_says_when_nothing_is_feasible_and_when_refused(berth: BerthServer,
