@@ -2,9 +2,11 @@
 
 import json
 import os
+import re
 import sys
 import tempfile
 from collections.abc import Sequence
+from dataclasses import dataclass
 from datetime import UTC, datetime
 from enum import StrEnum
 from pathlib import Path
@@ -18,7 +20,7 @@ from rich.table import Table
 from service.api.schemas.catalog import CatalogIn
 from service.api.schemas.request import QuoteRequestIn
 from service.config import Settings
-from service.errors import BerthError, InvalidInput
+from service.errors import BerthError, FieldProblem, InvalidInput
 from service.loading import load_file
 from service.quoting import catalog_hash, envelope, quote
 from service.tables import print_plan, print_quote
@@ -49,23 +51,42 @@ def _fail(error: BerthError) -> None:
     raise typer.Exit(code=2)
 
 
+DatabaseOption = Annotated[str | None, typer.Option("--database", help="database URL (BERTH_DATABASE_URL)")]
+
+
+def _storage(database: str | None) -> Any:
+    from service.storage.engine import build_engine
+    from service.storage.migrate import upgrade
+    from service.storage.repository import Storage
+
+    storage = Storage(build_engine(database or Settings().database_url))
+    upgrade(storage.engine)
+    return storage
+
+
 @app.command("quote")
 def quote_command(
     request_path: Annotated[Path, typer.Argument(metavar="REQUEST.json", help="the quote request")],
-    catalog: Annotated[Path | None, typer.Option(help="catalog file (default: the demo catalog)")] = None,
+    catalog: Annotated[str | None, typer.Option(
+        metavar="FILE_OR_ID", help="catalog file (JSON or YAML), or the id of a catalog stored in the database "
+                                   "(default: the demo catalog file)")] = None,
     output: Annotated[QuoteFormat, typer.Option("--format", help="table, json, html (the report) or csv (the options)")]
     = QuoteFormat.table,
+    database: DatabaseOption = None,
 ) -> None:
-    """Quote one campaign offline, against a catalog file."""
-    catalog_path = catalog or Settings().demo_catalog
+    """Quote one campaign offline, against a catalog file or a stored catalog. Nothing is stored."""
     try:
-        catalog_in = load_file(CatalogIn, catalog_path)
         request_in = load_file(QuoteRequestIn, request_path)
-        body = quote(catalog_in, request_in)
+        chosen = _quote_catalog(catalog, database)
+        if chosen.catalog_id is not None and request_in.catalog_id not in (None, chosen.catalog_id):
+            problem = FieldProblem("catalog_id", f"the request names {request_in.catalog_id!r}, "
+                                                 f"--catalog names {chosen.catalog_id!r}; drop one or make them equal")
+            raise InvalidInput("the request and --catalog name different catalogs", [problem])
+        body = quote(chosen.content, request_in)
     except BerthError as error:
         _fail(error)
         return
-    document = envelope(body, catalog_hash=catalog_hash(catalog_in), quote_id=None, catalog_id=None,
+    document = envelope(body, catalog_hash=chosen.content_hash, quote_id=None, catalog_id=chosen.catalog_id,
                         created_at=datetime.now(UTC))
     if output is QuoteFormat.json:
         sys.stdout.write(json.dumps(document, indent=2, ensure_ascii=False) + "\n")
@@ -79,6 +100,53 @@ def quote_command(
         sys.stdout.writelines(options_csv(document))
     else:
         print_quote(out, document)
+
+
+# The form `new_id("cat")` gives stored catalogs; anything else is never looked up in a database.
+CATALOG_ID = re.compile(r"cat_[A-Za-z0-9]+")
+
+
+@dataclass(frozen=True)
+class QuoteCatalog:
+    content: CatalogIn
+    content_hash: str
+    catalog_id: str | None  # None for a file
+
+
+def _quote_catalog(value: str | None, database: str | None) -> QuoteCatalog:
+    """A value that names an existing file is that file; else a stored catalog's id, read through the
+    same use cases as `POST /v1/quotes`. Only an id opens a database: a file quotes offline."""
+    path = Settings().demo_catalog if value is None else Path(value)
+    if value is None or path.exists():
+        catalog_in = load_file(CatalogIn, path)
+        return QuoteCatalog(catalog_in, catalog_hash(catalog_in), None)
+    neither = f"--catalog {value!r} is neither a readable file nor a stored catalog id"
+    if not CATALOG_ID.fullmatch(value):
+        raise InvalidInput(neither, [FieldProblem("--catalog", "no file of that name, and stored catalog ids "
+                                                               "look like cat_ followed by letters and digits")])
+    from sqlalchemy.exc import SQLAlchemyError
+
+    from service.use_cases import ParsedCatalogs, catalog_to_use
+
+    try:
+        storage = _storage(database)
+    except SQLAlchemyError as error:
+        raise InvalidInput(f"cannot open the database to look up catalog {value!r}: {_first_line(error)}") from error
+    try:
+        ref = catalog_to_use(storage, value, field="--catalog")
+        return QuoteCatalog(ParsedCatalogs().get(ref, storage), ref.content_hash, ref.id)
+    except InvalidInput as error:
+        where = storage.engine.url.render_as_string(hide_password=True)
+        raise InvalidInput(neither, [FieldProblem("--catalog", f"no file of that name, and no catalog with that "
+                                                               f"id in {where}")]) from error
+    except SQLAlchemyError as error:
+        raise InvalidInput(f"cannot read catalog {value!r} from the database: {_first_line(error)}") from error
+    finally:
+        storage.dispose()
+
+
+def _first_line(error: Exception) -> str:
+    return str(error).splitlines()[0] if str(error) else type(error).__name__
 
 
 class SweepFormat(StrEnum):
@@ -135,7 +203,8 @@ def plan_command(
     plan_path: Annotated[Path, typer.Argument(metavar="PLAN.json", help="the fleet-plan request")],
     catalog: Annotated[Path | None, typer.Option(help="catalog file (default: the demo catalog)")] = None,
     database: Annotated[str | None, typer.Option(help="database URL, for demand from stored quotes")] = None,
-    output: Annotated[PlanFormat, typer.Option("--format", help="table or json")] = PlanFormat.table,
+    output: Annotated[PlanFormat, typer.Option("--format", help="table, json or html (the page with its chart)")] \
+        = PlanFormat.table,
 ) -> None:
     """Plan how many nodes to own against a demand forecast, offline."""
     from service.api.schemas.fleet import FleetPlanIn
@@ -186,7 +255,8 @@ def serve(
     host: Annotated[str | None, typer.Option(help="address to listen on (BERTH_HOST)")] = None,
     port: Annotated[int | None, typer.Option(help="port (BERTH_PORT)")] = None,
     database: Annotated[str | None, typer.Option(help="database URL (BERTH_DATABASE_URL)")] = None,
-    workers: Annotated[int, typer.Option(min=1, help="worker processes (SQLite: keep 1 per file)")] = 1,
+    workers: Annotated[int, typer.Option(min=1, help="worker processes, about one per core (they share a SQLite "
+                                                     "file safely: WAL, queued writers)")] = 1,
 ) -> None:
     """Run the HTTP service. Logs are JSON lines on standard error."""
     import uvicorn
@@ -206,19 +276,6 @@ def serve(
     os.environ.setdefault("PROMETHEUS_MULTIPROC_DIR", tempfile.mkdtemp(prefix="berth-metrics-"))
     uvicorn.run("service.api.app:create_app", factory=True, host=settings.host, port=settings.port,
                 workers=workers, log_config=None)
-
-
-DatabaseOption = Annotated[str | None, typer.Option("--database", help="database URL (BERTH_DATABASE_URL)")]
-
-
-def _storage(database: str | None) -> Any:
-    from service.storage.engine import build_engine
-    from service.storage.migrate import upgrade
-    from service.storage.repository import Storage
-
-    storage = Storage(build_engine(database or Settings().database_url))
-    upgrade(storage.engine)
-    return storage
 
 
 class KeyRole(StrEnum):
