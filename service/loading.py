@@ -1,6 +1,7 @@
 """Reading catalogs and requests from JSON or YAML text, with every problem named by field."""
 
 import json
+import re
 from pathlib import Path
 from typing import Any, TypeVar
 
@@ -51,8 +52,10 @@ def field_problems_from_list(items: list[Any]) -> list[FieldProblem]:
 
 
 def _plain(message: str) -> str:
-    # Pydantic prefixes messages of our own validators with "Value error, ".
-    return message.removeprefix("Value error, ")
+    # Pydantic prefixes messages of our own validators with "Value error, ", and names the model class
+    # where it wants an object ("a valid dictionary or instance of CampaignIn"): neither means anything
+    # to the caller.
+    return re.sub(r" or instance of \w+", "", message.removeprefix("Value error, "))
 
 
 def _is_union_tag(part: object) -> bool:
@@ -61,6 +64,10 @@ def _is_union_tag(part: object) -> bool:
 
 
 def validate(model: type[Model], data: Any, *, source: str) -> Model:
+    if not isinstance(data, dict):  # e.g. text that is neither JSON nor a YAML mapping
+        kind = "nothing" if data is None else f"a {type(data).__name__}"
+        raise InvalidInput(f"{source} is not valid", [FieldProblem("(body)", f"expected a JSON or YAML object, "
+                                                                             f"found {kind}")])
     try:
         # Lax on purpose: PyYAML (YAML 1.1) reads 1.4e12 as a string, and files may be YAML.
         return model.model_validate(data, strict=False)

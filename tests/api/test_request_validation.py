@@ -25,6 +25,19 @@ def test_the_demo_request_is_valid_and_fills_defaults(owned_wins_request: dict[s
     assert "interruptible" in request.options.terms
 
 
+@pytest.mark.parametrize(("data", "found"), [("not json", "a str"), ([1, 2], "a list"), (None, "nothing")])
+def test_a_document_that_is_not_an_object_says_so(data: Any, found: str) -> None:
+    with pytest.raises(InvalidInput) as caught:
+        validate(QuoteRequestIn, data, source="request.json")
+    assert [(p.field, p.reason) for p in caught.value.problems] == [
+        ("(body)", f"expected a JSON or YAML object, found {found}")]
+
+
+def test_a_field_that_should_be_an_object_says_so_without_naming_a_class(owned_wins_request: dict[str, Any]) -> None:
+    owned_wins_request["campaign"] = "support-assistant"
+    assert problems_of(owned_wins_request) == {"campaign": "Input should be a valid dictionary"}
+
+
 def test_an_unknown_work_field_is_named(owned_wins_request: dict[str, Any]) -> None:
     owned_wins_request["campaign"]["work"]["paramters"] = 7e9
     assert "campaign.work.paramters" in problems_of(owned_wins_request)
