@@ -100,6 +100,7 @@ def _openapi(app: FastAPI) -> dict[str, Any]:
         components.update(model_schema.pop("$defs", {}))
         components[model.__name__] = model_schema
     body = schema["paths"]["/v1/quotes"]["post"]["requestBody"]["content"]["application/json"]
-    body["examples"] = quote_request_examples()
+    settings: Settings = app.state.settings
+    body["examples"] = quote_request_examples(settings.demo_catalog.parent)
     app.openapi_schema = schema
     return schema

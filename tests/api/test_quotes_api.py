@@ -4,7 +4,9 @@ nothing, and the OpenAPI document carries the demo examples."""
 
 import copy
 import json
+import shutil
 from datetime import timedelta
+from pathlib import Path
 from typing import Any
 
 import httpx
@@ -12,13 +14,15 @@ import pytest
 from sqlalchemy import text
 
 from service import use_cases
+from service.api.app import create_app
 from service.api.schemas.quote import QuoteOut
 from service.api.schemas.request import QuoteRequestIn
+from service.config import Settings
 from service.storage.repository import Storage
 from service.use_cases import IDEMPOTENCY_KEEP, IDEMPOTENCY_LEASE, body_fingerprint
 from tests.api.conftest import FakeClock
 from tests.api.problems import problem_of
-from tests.conftest import load_example
+from tests.conftest import EXAMPLES, load_example
 
 TOP_LEVEL = {"id", "created_at", "catalog_id", "catalog_hash", "model_version", "request", "work", "options",
              "recommendation", "breakeven", "curves", "assumptions", "cautions"}
@@ -352,7 +356,7 @@ async def test_the_openapi_document_has_the_demo_examples_and_the_problem_and_ca
 ) -> None:
     schema = (await client.get("/openapi.json")).json()
     body = schema["paths"]["/v1/quotes"]["post"]["requestBody"]["content"]["application/json"]
-    assert set(body["examples"]) == {"owned_wins", "renting_wins", "residency_blocked", "recurring"}
+    assert set(body["examples"]) == {"owned_wins", "renting_wins", "residency_blocked", "recurring", "split"}
     for example in body["examples"].values():
         QuoteRequestIn.model_validate(example["value"])
     components = schema["components"]["schemas"]
@@ -361,6 +365,16 @@ async def test_the_openapi_document_has_the_demo_examples_and_the_problem_and_ca
     docs = await client.get("/docs")
     assert docs.status_code == 200
     assert "text/html" in docs.headers["content-type"]
+
+
+def test_the_openapi_examples_are_the_campaigns_beside_the_demo_catalog(tmp_path: Path) -> None:
+    """An installed service finds them where BERTH_DEMO_CATALOG points, not in a source checkout."""
+    shutil.copy(EXAMPLES / "catalog.json", tmp_path / "catalog.json")
+    shutil.copy(EXAMPLES / "campaign-split.json", tmp_path / "campaign-split.json")
+    app = create_app(Settings(database_url="sqlite://", demo_catalog=tmp_path / "catalog.json"))
+    body = app.openapi()["paths"]["/v1/quotes"]["post"]["requestBody"]["content"]["application/json"]
+    assert body["examples"] == {"split": {"summary": "Split between an owned site and a rented offer",
+                                          "value": load_example("campaign-split.json")}}
 
 
 @pytest.mark.anyio
