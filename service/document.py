@@ -184,6 +184,7 @@ def _part(p: OptionResult, runs: float, i: int, money: Money) -> Json:
         "wall_clock_days": _number(p.layout.wall_seconds[i] / SECONDS_PER_DAY, 4),
         "accelerator_hours": _number(p.layout.accelerator_hours[i], 2),
         "total": money(p.total[i]),
+        "currency": money.currency,
     }
 
 

@@ -170,21 +170,23 @@ def _document(currency: str, request: FleetPlanIn, sizes: np.ndarray, allowed: n
     feasible_rows = iter(range(plan.sizes.size))
     candidates = []
     for n, ok in zip(sizes.tolist(), allowed.tolist(), strict=True):
-        if not ok:
-            candidates.append({"nodes": n, "feasible": False, "reason": why})
+        if not ok:  # the same fields as a feasible size, with nothing to say in them
+            candidates.append({"nodes": n, "feasible": False, "reason": why, "present_cost_p5": None,
+                               "present_cost_p50": None, "present_cost_p95": None, "present_cost_mean": None,
+                               "currency": currency, "owned_utilisation": None, "rented_accelerator_hours": None})
             continue
         k = next(feasible_rows)
         candidates.append({
             "nodes": n, "feasible": True, "reason": None,
             "present_cost_p5": money(p5[k]), "present_cost_p50": money(p50[k]), "present_cost_p95": money(p95[k]),
-            "present_cost_mean": money(mean[k]),
+            "present_cost_mean": money(mean[k]), "currency": currency,
             "owned_utilisation": (float(plan.owned_hours[k] / plan.capacity_hours[k])
                                   if plan.capacity_hours[k] else None),
             "rented_accelerator_hours": round(float(plan.rented_hours[k]), 1)})
     best = int(plan.sizes[plan.best])
     months = [{"month": t + 1, "demand_accelerator_hours": round(float(d), 1),
                "owned_accelerator_hours": round(float(o), 1), "rented_accelerator_hours": round(float(r), 1),
-               "spend": money(s), "utilisation": float(o / plan.months_capacity) if plan.months_capacity else None}
+               "spend": money(s), "currency": currency, "utilisation": float(o / plan.months_capacity) if plan.months_capacity else None}
               for t, (d, o, r, s) in enumerate(zip(demand.mean(axis=0), plan.months_owned, plan.months_rented,
                                                    plan.months_spend, strict=True))]
     ratio = critical_ratio(fleet) if fleet.rented_per_accelerator_hour > fleet.variable_per_accelerator_hour else None

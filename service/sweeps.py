@@ -158,6 +158,7 @@ def _json_rows(chunk: Any, money: Money) -> list[dict[str, Any]]:
             "inputs": {p: float(chunk.inputs[p][s]) for p in paths},
             "cheapest": None if pick < 0 else chunk.labels[pick],
             "totals": {label: money(chunk.totals[k, s]) for k, label in enumerate(chunk.labels)},
+            "currency": money.currency,
         })
     return rows
 

@@ -47,6 +47,10 @@ async def test_sizes_beyond_the_sites_power_are_marked_infeasible(client: httpx.
     rows = {c["nodes"]: c for c in response.json()["candidates"]}
     assert rows[96]["feasible"] and not rows[97]["feasible"]
     assert "nodes_max" in rows[97]["reason"]
+    # Every size has the same fields (api.md), empty where infeasible; money carries its currency.
+    assert set(rows[97]) == set(rows[96]) and rows[97]["present_cost_p50"] is None
+    plan = response.json()
+    assert {c["currency"] for c in plan["candidates"]} == {m["currency"] for m in plan["months"]} == {"EUR"}
 
 
 async def test_a_plan_over_the_size_limit_is_refused_naming_the_limit(client: httpx.AsyncClient) -> None:

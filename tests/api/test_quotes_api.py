@@ -85,6 +85,7 @@ async def test_every_demo_campaign_quotes_to_the_documented_schema(client: httpx
     if example == "campaign-split.json":
         split = next(o for o in body["options"] if o["venue"]["kind"] == "split")
         assert len(split["parts"]) == 2 and "+" in split["venue"]["jurisdiction"]
+        assert {part["currency"] for part in split["parts"]} == {body["currency"]}
 
 
 @pytest.mark.anyio

@@ -96,7 +96,7 @@ async def test_a_small_sweep_is_answered_at_once_with_summary_rows_and_tornado(c
     # Break-even utilisation comes to 4 decimals, as in a quote.
     figures = [row[f"utilisation_p{q}"] for row in result["summary"]["breakeven_utilisation"] for q in (5, 50, 95)]
     assert figures and all(u is None or u == round(u, 4) for u in figures) and any(u is not None for u in figures)
-    assert len(result["rows"]) == 12
+    assert len(result["rows"]) == 12 and {row["currency"] for row in result["rows"]} == {"EUR"}
     assert {row["cheapest"] for row in result["rows"]} <= set(result["rows"][0]["totals"])
     assert [v["path"] for v in result["varied"]] == ["overrides.electricity_price_per_kwh", "campaign.work.tokens"]
     effects = [bar["effect"] for bar in result["tornado"]]
