@@ -186,7 +186,8 @@ def _document(currency: str, request: FleetPlanIn, sizes: np.ndarray, allowed: n
     best = int(plan.sizes[plan.best])
     months = [{"month": t + 1, "demand_accelerator_hours": round(float(d), 1),
                "owned_accelerator_hours": round(float(o), 1), "rented_accelerator_hours": round(float(r), 1),
-               "spend": money(s), "currency": currency, "utilisation": float(o / plan.months_capacity) if plan.months_capacity else None}
+               "spend": money(s), "currency": currency,
+               "utilisation": float(o / plan.months_capacity) if plan.months_capacity else None}
               for t, (d, o, r, s) in enumerate(zip(demand.mean(axis=0), plan.months_owned, plan.months_rented,
                                                    plan.months_spend, strict=True))]
     ratio = critical_ratio(fleet) if fleet.rented_per_accelerator_hour > fleet.variable_per_accelerator_hour else None
