@@ -1,5 +1,6 @@
-"""Use cases over storage: upload a catalog, create, list, read and recompute quotes. Each takes
-the storage and owns its transaction; the HTTP layer and the command line only call these."""
+"""Use cases over storage: upload a catalog, create, list, read and recompute quotes, and run any
+creating request once per Idempotency-Key. Each takes the storage and owns its transaction; the HTTP
+layer and the command line only call these."""
 
 import hashlib
 import json
@@ -47,6 +48,20 @@ class ParsedCatalogs:
         return parsed
 
 
+@dataclass(frozen=True)
+class Created:
+    """What a creating request answers: its status and body, and whether it replays a first answer."""
+
+    status_code: int
+    body: dict[str, Any]
+    replayed: bool = False
+
+
+# Called by a creating use case inside the transaction that stores what it created, with the answer:
+# the answer is then kept under the request's Idempotency-Key in that same commit.
+KeepAnswer = Callable[[Repository, int, dict[str, Any]], None]
+
+
 def catalog_body(stored: StoredCatalog, *, with_content: bool) -> dict[str, Any]:
     """A stored catalog as the API answers it."""
     body: dict[str, Any] = {
@@ -59,7 +74,7 @@ def catalog_body(stored: StoredCatalog, *, with_content: bool) -> dict[str, Any]
 
 
 def upload_catalog(storage: Storage, data: Any, *, now: datetime,
-                   keep: "KeepAnswer | None" = None) -> tuple[StoredCatalog, bool]:
+                   keep: KeepAnswer | None = None) -> tuple[StoredCatalog, bool]:
     """Validate and store a catalog; identical content returns the catalog already stored. `keep`
     (from `once_per_key`) is given the answer in the same transaction."""
     catalog = validate(CatalogIn, data, source="catalog")
@@ -129,20 +144,6 @@ def body_fingerprint(body: bytes) -> str:
     except (ValueError, UnicodeDecodeError):
         canonical = body
     return hashlib.sha256(canonical).hexdigest()
-
-
-@dataclass(frozen=True)
-class Created:
-    """What a creating request answers: its status and body, and whether it replays a first answer."""
-
-    status_code: int
-    body: dict[str, Any]
-    replayed: bool = False
-
-
-# Called by a creating use case inside the transaction that stores what it created, with the answer:
-# the answer is then kept under the request's Idempotency-Key in that same commit.
-KeepAnswer = Callable[[Repository, int, dict[str, Any]], None]
 
 
 def once_per_key(storage: Storage, *, caller: Principal, key: str | None, body: bytes, clock: Callable[[], datetime],
