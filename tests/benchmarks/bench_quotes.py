@@ -262,10 +262,10 @@ async def load(url: str, name: str, requests: list[bytes], expected: int, client
 
 
 def report(runs: list[Run], clients: int) -> None:
-    print(f"{'request':<16}{'count':>7}{'errors':>8}{'wall s':>9}{'req/s':>10}{'p50 ms':>9}{'p99 ms':>9}"
+    print(f"{'request':<22}{'count':>7}{'errors':>8}{'wall s':>9}{'req/s':>10}{'p50 ms':>9}{'p99 ms':>9}"
           f"{'client CPU s':>14}{'server CPU ms/req':>19}")
     for run in runs:
-        print(f"{run.name:<16}{run.count:>7}{run.errors:>8}{run.wall_s:>9.2f}{run.throughput:>10.1f}"
+        print(f"{run.name:<22}{run.count:>7}{run.errors:>8}{run.wall_s:>9.2f}{run.throughput:>10.1f}"
               f"{run.percentile(50):>9.2f}{run.percentile(99):>9.2f}{run.client_cpu_s:>14.2f}"
               f"{run.server_cpu_ms_per_request:>19}")
     health, *floors, quote = runs
