@@ -6,7 +6,7 @@ from fastapi import APIRouter, Query
 from fastapi.responses import Response
 
 from service.api.auth import Admin, AnyKey
-from service.api.deps import ClockDep, IdempotencyKeyDep, NowDep, RawBodyDep, StorageDep
+from service.api.deps import ClockDep, IdempotencyKeyDep, RawBodyDep, StorageDep
 from service.api.problems import CONFLICT, PROBLEM_RESPONSES
 from service.api.responses import created_response
 from service.api.schemas.catalog import CatalogIn
@@ -36,7 +36,7 @@ router = APIRouter(prefix="/v1/catalogs", tags=["catalogs"])
         "application/json": {"schema": {"$ref": "#/components/schemas/CatalogIn"}},
         "application/yaml": {"schema": {"$ref": "#/components/schemas/CatalogIn"}}}}},
 )
-def create_catalog(body: RawBodyDep, storage: StorageDep, now: NowDep, clock: ClockDep, caller: Admin,
+def create_catalog(body: RawBodyDep, storage: StorageDep, clock: ClockDep, caller: Admin,
                    idempotency_key: IdempotencyKeyDep = None) -> Response:
     """Upload a catalog (JSON, or YAML with a YAML content type). Identical content returns the
     catalog already stored, with 200. The same Idempotency-Key with the same body returns the first
@@ -48,7 +48,7 @@ def create_catalog(body: RawBodyDep, storage: StorageDep, now: NowDep, clock: Cl
         raise InvalidInput("a catalog is an object", [FieldProblem("(body)", "expected a JSON or YAML object")])
 
     def create(keep: KeepAnswer | None) -> Created:
-        stored, created = upload_catalog(storage, data, now=now, keep=keep)
+        stored, created = upload_catalog(storage, data, now=clock(), keep=keep)
         return Created(201 if created else 200, catalog_body(stored, with_content=True))
 
     outcome = once_per_key(storage, caller=caller, key=idempotency_key, body=body, clock=clock, create=create)

@@ -6,7 +6,7 @@ from fastapi import APIRouter, Request
 from fastapi.responses import HTMLResponse, Response
 
 from service.api.auth import Analyst
-from service.api.deps import CatalogsDep, ClockDep, IdempotencyKeyDep, NowDep, RawBodyDep, SettingsDep, StorageDep
+from service.api.deps import CatalogsDep, ClockDep, IdempotencyKeyDep, RawBodyDep, SettingsDep, StorageDep
 from service.api.observability import DomainMetrics
 from service.api.problems import CONFLICT, PROBLEM_RESPONSES
 from service.api.responses import created_response
@@ -25,13 +25,13 @@ router = APIRouter(prefix="/v1/fleet-plans", tags=["fleet plans"])
 
 @router.post("", status_code=201, responses={**PROBLEM_RESPONSES, **CONFLICT})
 def post_fleet_plan(request: Request, payload: FleetPlanIn, raw: RawBodyDep, storage: StorageDep,
-                    catalogs: CatalogsDep, now: NowDep, clock: ClockDep, settings: SettingsDep, caller: Analyst,
+                    catalogs: CatalogsDep, clock: ClockDep, settings: SettingsDep, caller: Analyst,
                     idempotency_key: IdempotencyKeyDep = None) -> Response:
     """Every candidate fleet size against every demand sample and month at once: present cost
     percentiles per size, the best size, the chance it beats renting everything, and its months.
     The same Idempotency-Key with the same body returns the first answer."""
     def create(keep: KeepAnswer | None) -> Created:
-        created = create_fleet_plan(storage, catalogs, payload, now=now,
+        created = create_fleet_plan(storage, catalogs, payload, now=clock(),
                                     limits=FleetLimits(max_cells=settings.fleet_max_cells), keep=keep)
         metrics: DomainMetrics = request.app.state.metrics
         metrics.fleet_plans.inc()

@@ -7,7 +7,7 @@ from fastapi import APIRouter, Depends, Request
 from fastapi.responses import Response, StreamingResponse
 
 from service.api.auth import Analyst
-from service.api.deps import CatalogsDep, ClockDep, IdempotencyKeyDep, NowDep, RawBodyDep, SettingsDep, StorageDep
+from service.api.deps import CatalogsDep, ClockDep, IdempotencyKeyDep, RawBodyDep, SettingsDep, StorageDep
 from service.api.observability import DomainMetrics
 from service.api.problems import CONFLICT, PROBLEM_RESPONSES
 from service.api.responses import created_response
@@ -30,7 +30,7 @@ RunnerDep = Annotated[SweepRunner, Depends(_runner)]
 @router.post("", status_code=201, responses={202: {"description": "accepted: running in the background"},
                                              **PROBLEM_RESPONSES, **CONFLICT})
 def post_sweep(request: Request, payload: SweepIn, raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep,
-               now: NowDep, clock: ClockDep, runner: RunnerDep, settings: SettingsDep, caller: Analyst,
+               clock: ClockDep, runner: RunnerDep, settings: SettingsDep, caller: Analyst,
                idempotency_key: IdempotencyKeyDep = None) -> Response:
     """Run a sweep: a grid of every combination, or Monte Carlo samples from distributions, over a
     base quote request. Up to `BERTH_SWEEP_ANSWER_AT_ONCE` scenarios the answer comes back at once
@@ -39,7 +39,7 @@ def post_sweep(request: Request, payload: SweepIn, raw: RawBodyDep, storage: Sto
     limits = SweepLimits(max_scenarios=settings.sweep_max_scenarios, max_grid_values=settings.sweep_max_grid_values)
 
     def create(keep: KeepAnswer | None) -> Created:
-        created = submit_sweep(storage, catalogs, payload, now=now, limits=limits,
+        created = submit_sweep(storage, catalogs, payload, now=clock(), limits=limits,
                                answer_at_once=settings.sweep_answer_at_once, runner=runner, keep=keep)
         if created.status_code == 201:  # answered at once; a background sweep is counted by its runner
             metrics: DomainMetrics = request.app.state.metrics
