@@ -18,14 +18,14 @@ from service.api.examples import quote_request_examples
 from service.api.middleware import BodyLimit, HeadAsGet, RequestContext, TimeLimit
 from service.api.observability import install_metrics
 from service.api.routers import catalogs, fleet_plans, probes, quotes, sweeps
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.quote import Problem
 from service.config import Settings
+from service.contract.answers import Problem
+from service.contract.catalog import CatalogIn
 from service.storage.engine import build_engine
 from service.storage.migrate import upgrade
 from service.storage.repository import Storage
-from service.sweeps import SweepRunner
-from service.use_cases import ParsedCatalogs, load_demo_catalog
+from service.usecases.catalogs import ParsedCatalogs, load_demo_catalog
+from service.usecases.sweeps import SweepRunner
 
 log = logging.getLogger("berth")
 
@@ -70,11 +70,12 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     app.state.catalogs = ParsedCatalogs()
     app.state.clock = clock
     app.state.compute_lane = compute_lane()
-    app.state.sweeps = SweepRunner(app.state.storage, app.state.catalogs, clock)
     app.state.local_mode = LocalMode(app.state.storage)
     app.state.rate_limiter = RateLimiter(per_second=settings.rate_limit_per_second, burst=settings.rate_limit_burst)
     problems.install(app)
     install_metrics(app)
+    app.state.sweeps = SweepRunner(app.state.storage, app.state.catalogs, clock,
+                                   count_scenarios=app.state.metrics.sweep_scenarios.inc)
     # Outermost first: every response carries a request id, then time and size limits apply, and
     # innermost HEAD becomes GET.
     app.add_middleware(HeadAsGet)

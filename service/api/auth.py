@@ -16,8 +16,8 @@ from fastapi import Depends, Request
 from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException
 
-from service.access import LOCAL, Principal, Role, keys_configured, resolve
 from service.storage.repository import Storage
+from service.usecases.access import LOCAL, Principal, Role, keys_configured, resolve
 
 CHALLENGE = {"WWW-Authenticate": 'Bearer realm="berth"'}
 LOCAL_MODE_RECHECK_SECONDS = 5.0

@@ -13,7 +13,7 @@ from fastapi import Depends, Header, Request
 
 from service.config import Settings
 from service.storage.repository import Storage
-from service.use_cases import ParsedCatalogs
+from service.usecases.catalogs import ParsedCatalogs
 
 
 async def _storage(request: Request) -> Storage:

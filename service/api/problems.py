@@ -14,7 +14,7 @@ from starlette.requests import ClientDisconnect
 
 from service.api.observability import domain_metrics
 from service.errors import BerthError, InvalidInput
-from service.loading import field_problems_from_list
+from service.usecases.loading import field_problems_from_list
 
 PROBLEM = "application/problem+json"
 log = logging.getLogger("berth.errors")

@@ -8,7 +8,7 @@ from typing import Any
 import orjson
 from fastapi.responses import JSONResponse
 
-from service.use_cases import Created
+from service.usecases.idempotency import Created
 
 OPTIONS = orjson.OPT_NON_STR_KEYS | orjson.OPT_SERIALIZE_NUMPY  # keys and numbers as the stdlib encoder takes them
 

@@ -18,11 +18,11 @@ from fastapi import FastAPI
 from sqlalchemy import text
 
 import service.api.auth
-from service.access import issue_key, revoke_key
 from service.api.app import create_app, prepare
 from service.api.auth import LOCAL_MODE_RECHECK_SECONDS, LocalMode
 from service.config import Settings
 from service.storage.repository import Storage
+from service.usecases.access import issue_key, revoke_key
 from tests.api.conftest import START, FakeClock
 from tests.api.problems import PROBLEM, problem_of
 from tests.conftest import load_example

@@ -5,9 +5,9 @@ from typing import Any
 
 import pytest
 
-from service.api.schemas.catalog import CatalogIn
+from service.contract.catalog import CatalogIn
 from service.errors import InvalidInput
-from service.loading import validate
+from service.usecases.loading import validate
 
 
 def problems_of(data: dict[str, Any]) -> dict[str, str]:

@@ -24,10 +24,10 @@ from hypothesis import HealthCheck, settings
 from sqlalchemy import text
 
 from service.api.app import create_app
-from service.api.schemas.request import QuoteRequestIn, TransformerWorkIn
 from service.config import Settings
-from service.loading import load_file
+from service.contract.request import QuoteRequestIn, TransformerWorkIn
 from service.storage.repository import Storage
+from service.usecases.loading import load_file
 from tests.api.problems import PROBLEM, problem_of
 from tests.conftest import load_example
 

@@ -13,13 +13,13 @@ import httpx
 import pytest
 from sqlalchemy import text
 
-from service import use_cases
 from service.api.app import create_app
-from service.api.schemas.quote import QuoteOut
-from service.api.schemas.request import QuoteRequestIn
 from service.config import Settings
+from service.contract.answers import QuoteOut
+from service.contract.request import QuoteRequestIn
 from service.storage.repository import Storage
-from service.use_cases import IDEMPOTENCY_KEEP, IDEMPOTENCY_LEASE, body_fingerprint
+from service.usecases import quotes as quote_use_cases
+from service.usecases.idempotency import IDEMPOTENCY_KEEP, IDEMPOTENCY_LEASE, body_fingerprint
 from tests.api.conftest import FakeClock
 from tests.api.problems import problem_of
 from tests.conftest import EXAMPLES, load_example
@@ -183,13 +183,13 @@ async def test_a_quote_is_stamped_when_it_is_stored_not_when_its_request_arrived
 ) -> None:
     """Stamped at the write, quotes are created in the order they are stored: a client asking for those
     created after the newest it has seen does not miss one that arrived earlier but computed longer."""
-    compute = use_cases.quote
+    compute = quote_use_cases.quote
 
     def slow_quote(*args: Any, **kwargs: Any) -> dict[str, Any]:
         clock.advance(seconds=30)  # the model runs for half a minute after the request arrived
         return compute(*args, **kwargs)
 
-    monkeypatch.setattr(use_cases, "quote", slow_quote)
+    monkeypatch.setattr(quote_use_cases, "quote", slow_quote)
     arrived = clock.now
     slow = await create(client, owned_wins_request)
     stored_at = arrived + timedelta(seconds=30)

@@ -5,11 +5,11 @@ from typing import Any
 
 import pytest
 
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.request import QuoteRequestIn
+from service.contract.catalog import CatalogIn
+from service.contract.request import QuoteRequestIn
 from service.errors import InvalidInput
-from service.loading import validate
-from service.quoting import quote, request_problems
+from service.usecases.loading import validate
+from service.usecases.quoting import quote, request_problems
 
 
 def problems_of(data: dict[str, Any]) -> dict[str, str]:

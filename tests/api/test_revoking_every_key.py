@@ -4,7 +4,7 @@ import httpx
 import pytest
 from fastapi import FastAPI
 
-from service.access import issue_key, revoke_key
+from service.usecases.access import issue_key, revoke_key
 from tests.api.conftest import START
 
 pytestmark = pytest.mark.anyio

@@ -15,10 +15,10 @@ import httpx
 import pytest
 from fastapi import FastAPI
 
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.sweep import SweepIn
 from service.config import Settings
-from service.sweeps import SweepLimits, prepare_sweep, run
+from service.contract.catalog import CatalogIn
+from service.contract.sweep import SweepIn
+from service.usecases.sweeps import SweepLimits, prepare_sweep, run
 from tests.api.problems import problem_of
 from tests.conftest import load_example
 

@@ -45,12 +45,12 @@ import numpy as np  # noqa: E402
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-from service.api.schemas.catalog import CatalogIn  # noqa: E402
-from service.api.schemas.sweep import SweepIn  # noqa: E402
+from service.contract.catalog import CatalogIn  # noqa: E402
+from service.contract.sweep import SweepIn  # noqa: E402
 from service.domain.evaluate import evaluate_campaign  # noqa: E402
 from service.domain.sweep import chunk_size, evaluate_chunk, scenario_chunks  # noqa: E402
 from service.domain.whatif import apply  # noqa: E402
-from service.sweeps import SweepLimits, prepare_sweep  # noqa: E402
+from service.usecases.sweeps import SweepLimits, prepare_sweep  # noqa: E402
 
 EXAMPLES = ROOT / "pricing_examples"
 DEMO_SWEEP = EXAMPLES / "sweep-electricity-and-utilisation.json"

@@ -31,11 +31,11 @@ from service.api.app import create_app
 from service.api.deps import CatalogsDep, ComputeLaneDep, NowDep, StorageDep
 from service.api.observability import configure_logging
 from service.api.responses import FastJSONResponse
-from service.api.schemas.request import QuoteRequestIn
 from service.config import Settings
-from service.quoting import envelope, quote
+from service.contract.request import QuoteRequestIn
 from service.storage.repository import CatalogRef, Storage, StoredQuote, new_id
-from service.use_cases import ParsedCatalogs, catalog_to_use
+from service.usecases.catalogs import ParsedCatalogs, catalog_to_use
+from service.usecases.quoting import envelope, quote
 
 
 def _computed(payload: QuoteRequestIn, storage: Storage, catalogs: ParsedCatalogs, now: datetime

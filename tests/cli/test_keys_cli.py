@@ -1,6 +1,6 @@
 """`berth keys add/list/revoke`, run as an operator runs them: a real process against a database
 file. The key is printed once, on the last line; the list shows only its public prefix; a revoked
-key no longer resolves (checked without a server, through service.access.resolve)."""
+key no longer resolves (checked without a server, through service.usecases.access.resolve)."""
 
 import os
 import re
@@ -11,9 +11,9 @@ from pathlib import Path
 
 import pytest
 
-from service.access import Principal, resolve
 from service.storage.engine import build_engine
 from service.storage.repository import Storage
+from service.usecases.access import Principal, resolve
 
 BERTH = [sys.executable, "-m", "service.cli"]
 KEY = re.compile(r"berth_[A-Za-z0-9_-]{43}")

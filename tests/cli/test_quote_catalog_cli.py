@@ -23,7 +23,7 @@ from service.config import Settings
 from service.storage.engine import build_engine
 from service.storage.migrate import upgrade
 from service.storage.repository import Storage
-from service.use_cases import load_demo_catalog
+from service.usecases.catalogs import load_demo_catalog
 from tests.conftest import EXAMPLES
 
 BERTH = [sys.executable, "-m", "service.cli"]

@@ -12,10 +12,10 @@ from typing import Any
 
 import pytest
 
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.sweep import SweepIn
+from service.contract.catalog import CatalogIn
+from service.contract.sweep import SweepIn
 from service.domain.sweep import chunk_size
-from service.sweeps import SweepLimits, prepare_sweep
+from service.usecases.sweeps import SweepLimits, prepare_sweep
 from tests.conftest import EXAMPLES
 
 BERTH = [sys.executable, "-m", "service.cli"]
@@ -134,6 +134,6 @@ def test_a_sweep_over_the_limit_exits_2_naming_the_limit(tmp_path: Path) -> None
 @pytest.mark.skipif(platform.libc_ver()[0] != "glibc", reason="the allocator setting is glibc's")
 def test_sweep_processes_keep_the_memory_of_freed_arrays_on_glibc() -> None:
     # In a process of its own, so the test process keeps its allocator as it was.
-    done = subprocess.run([sys.executable, "-c", "from service.chunk_pool import keep_freed_arrays as k; "
+    done = subprocess.run([sys.executable, "-c", "from service.usecases.chunk_pool import keep_freed_arrays as k; "
                            "print(k())"], capture_output=True, text=True, timeout=60, check=False)
     assert done.returncode == 0 and done.stdout.strip() == "True", done.stderr

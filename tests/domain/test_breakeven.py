@@ -16,8 +16,8 @@ from hypothesis import example, given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.request import QuoteRequestIn
+from service.contract.catalog import CatalogIn
+from service.contract.request import QuoteRequestIn
 from service.domain.breakeven import (
     ABOVE_FULL_USE,
     BEYOND_LIFE,

@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.request import QuoteRequestIn
+from service.contract.catalog import CatalogIn
+from service.contract.request import QuoteRequestIn
 from service.domain.charges import (
     Charges,
     chargeback_charges,

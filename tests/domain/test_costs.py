@@ -16,15 +16,15 @@ import numpy as np
 import numpy_financial as npf
 from numpy.testing import assert_allclose
 
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.request import QuoteRequestIn
+from service.contract.catalog import CatalogIn
+from service.contract.request import QuoteRequestIn
 from service.domain import screens
 from service.domain.campaign import Overrides
 from service.domain.evaluate import CampaignEvaluation, OptionResult, evaluate_campaign
 from service.domain.owning import cooling_tons, node_month
 from service.domain.terms import upfront_financing_factor
 from service.domain.venues import site_economics
-from service.quoting import quote
+from service.usecases.quoting import quote
 
 RTOL = 1e-12
 

@@ -22,13 +22,13 @@ import numpy as np
 import pycountry
 import pytest
 
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.request import QuoteRequestIn
+from service.contract.catalog import CatalogIn
+from service.contract.request import QuoteRequestIn
 from service.domain import screens
 from service.domain.evaluate import CampaignEvaluation, evaluate_campaign
 from service.domain.residency import allowed_jurisdictions
 from service.errors import InvalidInput
-from service.quoting import quote
+from service.usecases.quoting import quote
 
 EXAMPLES = Path(__file__).resolve().parents[2] / "pricing_examples"
 DAY = 86400.0

@@ -1,5 +1,5 @@
 """The quote document (api.md, "The quote response") built from the demo catalog and campaigns
-in pricing_examples/ through `service.quoting.quote`.
+in pricing_examples/ through `service.usecases.quoting.quote`.
 
 Money is rounded to the currency's ISO 4217 minor unit (ISO 4217:2015, the list of currency
 codes and minor units: EUR 2, JPY 0), read from babel's `get_currency_precision` as the
@@ -17,9 +17,9 @@ from typing import Any
 import pytest
 from babel.numbers import get_currency_precision
 
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.request import QuoteRequestIn
-from service.quoting import quote
+from service.contract.catalog import CatalogIn
+from service.contract.request import QuoteRequestIn
+from service.usecases.quoting import quote
 
 EXAMPLES = Path(__file__).resolve().parents[2] / "pricing_examples"
 CAMPAIGNS = ["owned-wins", "renting-wins", "residency-blocked", "recurring"]

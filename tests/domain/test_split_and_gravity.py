@@ -22,12 +22,12 @@ from typing import Any
 import pytest
 from numpy.testing import assert_allclose
 
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.request import QuoteRequestIn
+from service.contract.catalog import CatalogIn
+from service.contract.request import QuoteRequestIn
 from service.domain import screens
 from service.domain.evaluate import CampaignEvaluation, OptionResult, evaluate_campaign
 from service.domain.split import split_options, split_points
-from service.quoting import quote
+from service.usecases.quoting import quote
 
 DAY = 86400.0
 SUSTAINED, PER_NODE = 100e12 * 0.5, 4

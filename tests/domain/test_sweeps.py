@@ -18,16 +18,16 @@ from typing import Any
 import numpy as np
 import pytest
 
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.request import QuoteRequestIn
-from service.api.schemas.sweep import SweepIn
+from service.contract.catalog import CatalogIn
+from service.contract.request import QuoteRequestIn
+from service.contract.sweep import SweepIn
 from service.domain.distributions import Distribution, stream
 from service.domain.evaluate import evaluate_campaign
 from service.domain.sweep import Reservoir, evaluate_chunk, scenario_chunks, tornado
 from service.domain.whatif import PATHS
 from service.errors import InvalidInput
-from service.quoting import quote
-from service.sweeps import PreparedSweep, SweepLimits, prepare_sweep, run, tornado_bars
+from service.usecases.quoting import quote
+from service.usecases.sweeps import PreparedSweep, SweepLimits, prepare_sweep, run, tornado_bars
 
 EXAMPLES = Path(__file__).resolve().parents[2] / "pricing_examples"
 CATALOG_IN = CatalogIn.model_validate(json.loads((EXAMPLES / "catalog.json").read_text(encoding="utf-8")))

@@ -14,10 +14,10 @@ import pytest
 from fastapi import FastAPI
 
 from service.api.app import create_app, prepare
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.request import QuoteRequestIn
 from service.config import Settings
-from service.quoting import catalog_hash, envelope, quote
+from service.contract.catalog import CatalogIn
+from service.contract.request import QuoteRequestIn
+from service.usecases.quoting import catalog_hash, envelope, quote
 from tests.conftest import EXAMPLES, load_example
 
 Json = dict[str, Any]

@@ -9,11 +9,11 @@ from typing import Any
 import httpx
 import pytest
 
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.fleet import FleetPlanIn
-from service.fleet_plans import FleetLimits, fleet_plan
+from service.contract.catalog import CatalogIn
+from service.contract.fleet import FleetPlanIn
 from service.reports import render_plan
 from service.reports.fleet_chart import fleet_figure_svg
+from service.usecases.fleet_plans import FleetLimits, fleet_plan
 from tests.conftest import EXAMPLES, load_example
 from tests.reports.page import parse
 

@@ -21,7 +21,7 @@ from service.storage.engine import build_engine
 from service.storage.migrate import is_at_head, upgrade
 from service.storage.repository import CatalogRef, Storage, StoredCatalog, StoredQuote, new_id
 from service.storage.tables import IdempotencyRow
-from service.use_cases import ParsedCatalogs, upload_catalog
+from service.usecases.catalogs import ParsedCatalogs, upload_catalog
 from tests.databases import sqlite_only
 
 NOW = datetime(2027, 1, 4, 9, 0, tzinfo=UTC)

@@ -9,19 +9,12 @@ from service.api.auth import Admin, AnyKey
 from service.api.deps import ClockDep, IdempotencyKeyDep, RawBodyDep, StorageDep
 from service.api.problems import CONFLICT, PROBLEM_RESPONSES
 from service.api.responses import created_response
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.quote import CatalogOut, CatalogPage
+from service.contract.answers import CatalogOut, CatalogPage
+from service.contract.catalog import CatalogIn
 from service.errors import FieldProblem, InvalidInput
-from service.loading import parse_document
-from service.use_cases import (
-    Created,
-    KeepAnswer,
-    catalog_body,
-    find_catalogs,
-    get_catalog,
-    once_per_key,
-    upload_catalog,
-)
+from service.usecases.catalogs import catalog_body, find_catalogs, get_catalog, upload_catalog
+from service.usecases.idempotency import Created, KeepAnswer, once_per_key
+from service.usecases.loading import parse_document
 
 router = APIRouter(prefix="/v1/catalogs", tags=["catalogs"])
 

@@ -10,12 +10,12 @@ from service.api.deps import CatalogsDep, ClockDep, IdempotencyKeyDep, RawBodyDe
 from service.api.observability import DomainMetrics
 from service.api.problems import CONFLICT, PROBLEM_RESPONSES
 from service.api.responses import created_response
-from service.api.schemas.fleet import FleetPlanIn
-from service.fleet_plans import FleetLimits, create_fleet_plan, get_fleet_plan
+from service.contract.fleet import FleetPlanIn
 from service.reports import render_plan
 from service.reports.fleet_chart import fleet_figure_svg
 from service.reports.svg import standalone
-from service.use_cases import Created, KeepAnswer, once_per_key
+from service.usecases.fleet_plans import FleetLimits, create_fleet_plan, get_fleet_plan
+from service.usecases.idempotency import Created, KeepAnswer, once_per_key
 
 router = APIRouter(prefix="/v1/fleet-plans", tags=["fleet plans"])
 

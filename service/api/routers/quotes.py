@@ -16,19 +16,12 @@ from service.api.deps import CatalogsDep, ClockDep, ComputeLaneDep, IdempotencyK
 from service.api.observability import DomainMetrics
 from service.api.problems import CONFLICT, PROBLEM_RESPONSES
 from service.api.responses import FastJSONResponse, created_response
-from service.api.schemas.quote import QuoteOut, QuotePage, Recomputation
-from service.api.schemas.request import QuoteRequestIn
+from service.contract.answers import QuoteOut, QuotePage, Recomputation
+from service.contract.request import QuoteRequestIn
 from service.reports import breakeven_svg, options_csv, render_report
 from service.storage.repository import StoredQuote
-from service.use_cases import (
-    Created,
-    KeepAnswer,
-    create_quote,
-    find_quotes,
-    get_quote,
-    once_per_key,
-    recompute_quote,
-)
+from service.usecases.idempotency import Created, KeepAnswer, once_per_key
+from service.usecases.quotes import create_quote, find_quotes, get_quote, recompute_quote
 
 router = APIRouter(prefix="/v1/quotes", tags=["quotes"])
 

@@ -11,9 +11,9 @@ from service.api.deps import CatalogsDep, ClockDep, IdempotencyKeyDep, RawBodyDe
 from service.api.observability import DomainMetrics
 from service.api.problems import CONFLICT, PROBLEM_RESPONSES
 from service.api.responses import created_response
-from service.api.schemas.sweep import SweepIn
-from service.sweeps import SweepLimits, SweepRunner, csv_chunks, get_sweep, prepared_from_store, submit_sweep
-from service.use_cases import Created, KeepAnswer, once_per_key
+from service.contract.sweep import SweepIn
+from service.usecases.idempotency import Created, KeepAnswer, once_per_key
+from service.usecases.sweeps import SweepLimits, SweepRunner, csv_chunks, get_sweep, prepared_from_store, submit_sweep
 
 router = APIRouter(prefix="/v1/sweeps", tags=["sweeps"])
 

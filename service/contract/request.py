@@ -4,7 +4,7 @@ from typing import Annotated, Literal, get_args
 
 from pydantic import Field, model_validator
 
-from service.api.schemas.common import (
+from service.contract.common import (
     Identifier,
     NonNegativeFloat,
     PositiveFloat,

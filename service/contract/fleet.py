@@ -5,7 +5,7 @@ from typing import Annotated
 
 from pydantic import Field, model_validator
 
-from service.api.schemas.common import Identifier, PositiveFloat, Strict
+from service.contract.common import Identifier, PositiveFloat, Strict
 
 MAX_SEED = 2**63 - 1
 

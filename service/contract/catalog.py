@@ -7,7 +7,7 @@ from typing import Annotated, Literal
 import pycountry
 from pydantic import Field, field_validator, model_validator
 
-from service.api.schemas.common import (
+from service.contract.common import (
     CountryCode,
     Fraction,
     Identifier,

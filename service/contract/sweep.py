@@ -5,8 +5,8 @@ from typing import Annotated, Literal
 
 from pydantic import Field, model_validator
 
-from service.api.schemas.common import Strict
-from service.api.schemas.request import QuoteRequestIn
+from service.contract.common import Strict
+from service.contract.request import QuoteRequestIn
 from service.domain.distributions import Distribution
 
 MAX_SEED = 2**63 - 1

@@ -17,13 +17,13 @@ from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 from rich.table import Table
 
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.request import QuoteRequestIn
+from service.cli.render import print_plan, print_quote
 from service.config import Settings
+from service.contract.catalog import CatalogIn
+from service.contract.request import QuoteRequestIn
 from service.errors import BerthError, FieldProblem, InvalidInput
-from service.loading import load_file
-from service.quoting import catalog_hash, envelope, quote
-from service.tables import print_plan, print_quote
+from service.usecases.loading import load_file
+from service.usecases.quoting import catalog_hash, envelope, quote
 
 app = typer.Typer(add_completion=False, no_args_is_help=True,
                   help="Where a training campaign should run, and what it will cost.")
@@ -126,7 +126,7 @@ def _quote_catalog(value: str | None, database: str | None) -> QuoteCatalog:
                                                                "look like cat_ followed by letters and digits")])
     from sqlalchemy.exc import SQLAlchemyError
 
-    from service.use_cases import ParsedCatalogs, catalog_to_use
+    from service.usecases.catalogs import ParsedCatalogs, catalog_to_use
 
     try:
         storage = _storage(database)
@@ -164,9 +164,9 @@ def sweep_command(
     = os.cpu_count() or 1,
 ) -> None:
     """Run a sweep of what-if scenarios offline, with a progress bar on the terminal's error stream."""
-    from service.api.schemas.sweep import SweepIn
-    from service.chunk_pool import keep_freed_arrays
-    from service.sweeps import SweepLimits, csv_chunks, prepare_sweep, run, sweep_document, tornado_bars
+    from service.contract.sweep import SweepIn
+    from service.usecases.chunk_pool import keep_freed_arrays
+    from service.usecases.sweeps import SweepLimits, csv_chunks, prepare_sweep, run, sweep_document, tornado_bars
 
     keep_freed_arrays()  # this process only sweeps, as its workers do
 
@@ -207,10 +207,10 @@ def plan_command(
         = PlanFormat.table,
 ) -> None:
     """Plan how many nodes to own against a demand forecast, offline."""
-    from service.api.schemas.fleet import FleetPlanIn
-    from service.fleet_plans import FleetLimits, fleet_plan
+    from service.contract.fleet import FleetPlanIn
     from service.storage.engine import build_engine
     from service.storage.repository import Storage
+    from service.usecases.fleet_plans import FleetLimits, fleet_plan
 
     storage = None if database is None else Storage(build_engine(database))
 
@@ -289,7 +289,7 @@ def keys_add(role: Annotated[KeyRole, typer.Option(help="what the key may do")],
              team: Annotated[str, typer.Option(help="the team it acts for")],
              database: DatabaseOption = None) -> None:
     """Issue a key. It is printed once, on the last line, and only its sha256 is kept."""
-    from service.access import issue_key
+    from service.usecases.access import issue_key
 
     try:
         stored, key = issue_key(_storage(database), role=role.value, team=team, now=datetime.now(UTC))
@@ -304,7 +304,7 @@ def keys_add(role: Annotated[KeyRole, typer.Option(help="what the key may do")],
 @keys_app.command("list")
 def keys_list(database: DatabaseOption = None) -> None:
     """Every key: id, prefix, role, team, created, revoked."""
-    from service.access import list_keys
+    from service.usecases.access import list_keys
 
     table = Table(title="API keys", title_justify="left")
     for header in ("id", "prefix", "role", "team", "created", "revoked"):
@@ -319,7 +319,7 @@ def keys_list(database: DatabaseOption = None) -> None:
 def keys_revoke(key_id: Annotated[str, typer.Argument(help="the key's id, from `berth keys list`")],
                 database: DatabaseOption = None) -> None:
     """Revoke a key at once (running servers stop accepting it on its next use)."""
-    from service.access import revoke_key
+    from service.usecases.access import revoke_key
 
     try:
         revoke_key(_storage(database), key_id, now=datetime.now(UTC))

@@ -8,9 +8,9 @@ from typing import Any
 
 import numpy as np
 
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.fleet import FleetPlanIn
-from service.document import Money
+from service.contract.catalog import CatalogIn
+from service.contract.document import Money
+from service.contract.fleet import FleetPlanIn
 from service.domain.campaign import Overrides
 from service.domain.catalog import Catalog, Offer, Site
 from service.domain.explain import CAUTIONS
@@ -21,7 +21,8 @@ from service.domain.terms import upfront_financing_factor
 from service.domain.venues import site_economics, sustained_flops
 from service.errors import FieldProblem, InvalidInput, NotFound
 from service.storage.repository import Storage, StoredQuote, new_id
-from service.use_cases import Created, KeepAnswer, ParsedCatalogs, catalog_to_use
+from service.usecases.catalogs import ParsedCatalogs, catalog_to_use
+from service.usecases.idempotency import Created, KeepAnswer
 
 QuoteLookup = Callable[[Sequence[str]], list[StoredQuote | None]]
 

@@ -13,19 +13,19 @@ from typing import Any
 
 import numpy as np
 
-from service.api.observability import domain_metrics
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.sweep import DistributionIn, SweepIn
-from service.chunk_pool import evaluated
-from service.document import Money
+from service.contract.catalog import CatalogIn
+from service.contract.document import Money
+from service.contract.sweep import DistributionIn, SweepIn
 from service.domain.catalog import Catalog
 from service.domain.explain import CAUTIONS
 from service.domain.sweep import ChunkResult, SweepPlan, SweepSummary, chunk_size, scenario_chunks, tornado
 from service.domain.whatif import PATHS, InputPath, apply, base_value
 from service.errors import FieldProblem, InvalidInput, NotFound
-from service.quoting import request_problems
 from service.storage.repository import Storage, StoredSweep, new_id
-from service.use_cases import Created, KeepAnswer, ParsedCatalogs, catalog_to_use
+from service.usecases.catalogs import ParsedCatalogs, catalog_to_use
+from service.usecases.chunk_pool import evaluated
+from service.usecases.idempotency import Created, KeepAnswer
+from service.usecases.quoting import request_problems
 
 log = logging.getLogger("berth.sweeps")
 
@@ -317,10 +317,14 @@ def prepared_from_store(storage: Storage, catalogs: ParsedCatalogs, sweep_id: st
 
 
 class SweepRunner:
-    """Runs queued sweeps one at a time on a background thread, writing progress as it goes."""
+    """Runs queued sweeps one at a time on a background thread, writing progress as it goes.
+    `count_scenarios` is told how many scenarios each finished sweep evaluated (the HTTP layer hands
+    in its metrics counter; use cases never import it)."""
 
-    def __init__(self, storage: Storage, catalogs: ParsedCatalogs, clock: Callable[[], datetime]) -> None:
+    def __init__(self, storage: Storage, catalogs: ParsedCatalogs, clock: Callable[[], datetime], *,
+                 count_scenarios: Callable[[int], None] = lambda _scenarios: None) -> None:
         self._storage, self._catalogs, self._clock = storage, catalogs, clock
+        self._count_scenarios = count_scenarios
         self._executor: ThreadPoolExecutor | None = None
 
     def submit(self, sweep_id: str) -> Future[None]:
@@ -357,7 +361,7 @@ class SweepRunner:
         try:
             prepared = prepared_from_store(self._storage, self._catalogs, sweep_id)
             summary, rows = run(prepared, progress=progress)
-            domain_metrics().sweep_scenarios.inc(prepared.plan.scenarios)
+            self._count_scenarios(prepared.plan.scenarios)
             document = sweep_document(prepared, summary, rows, tornado_bars(prepared))
             with self._storage.writing() as repository:
                 repository.update_sweep(sweep_id, status="done", done=prepared.plan.scenarios, result=document,

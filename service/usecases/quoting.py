@@ -11,9 +11,9 @@ import numpy as np
 import pycountry
 
 from service import __version__
-from service.api.schemas.catalog import CatalogIn
-from service.api.schemas.request import MeasuredWorkIn, QuoteRequestIn
-from service.document import quote_document
+from service.contract.catalog import CatalogIn
+from service.contract.document import quote_document
+from service.contract.request import MeasuredWorkIn, QuoteRequestIn
 from service.domain.assumptions import DEFAULTS
 from service.domain.evaluate import evaluate_campaign
 from service.domain.split import split_options

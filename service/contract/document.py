@@ -7,7 +7,7 @@ from typing import Any
 import numpy as np
 from babel.numbers import get_currency_precision
 
-from service.api.schemas.request import QuoteRequestIn, TransformerWorkIn
+from service.contract.request import QuoteRequestIn, TransformerWorkIn
 from service.domain import explain
 from service.domain.assumptions import DEFAULTS
 from service.domain.catalog import Catalog

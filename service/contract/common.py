@@ -17,6 +17,6 @@ CountryCode = Annotated[str, Field(pattern=r"^[A-Z]{2}$", description="ISO 3166-
 class Strict(BaseModel):
     """Unknown fields are rejected, so a typo never silently falls back to a default; and types are
     strict, so a JSON body's `true` or `"0.4"` is not taken for a number. Files read through
-    `service.loading` (JSON or YAML) are validated laxly instead: YAML 1.1 reads 1.4e12 as a string."""
+    `service.usecases.loading` (JSON or YAML) are validated laxly instead: YAML 1.1 reads 1.4e12 as a string."""
 
     model_config = ConfigDict(extra="forbid", frozen=True, strict=True)

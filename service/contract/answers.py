@@ -1,5 +1,5 @@
 """The quote response as documented in the OpenAPI (api.md). The service builds the body in
-`service.document` and these models describe it; a test checks that real quotes validate."""
+`service.contract.document` and these models describe it; a test checks that real quotes validate."""
 
 from typing import Any, Literal
 

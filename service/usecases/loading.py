@@ -8,7 +8,7 @@ from typing import Any, TypeVar
 import yaml
 from pydantic import BaseModel, ValidationError
 
-from service.api.schemas.catalog import ReferenceProblems
+from service.contract.catalog import ReferenceProblems
 from service.errors import FieldProblem, InvalidInput
 
 Model = TypeVar("Model", bound=BaseModel)

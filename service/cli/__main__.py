@@ -1,0 +1,5 @@
+"""`python -m service.cli`: the same as the `berth` console script."""
+
+from service.cli.commands import main
+
+main()
