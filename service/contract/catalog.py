@@ -41,7 +41,8 @@ class Finance(Strict):
 
 class AcceleratorIn(Strict):
     id: Identifier
-    memory_gb: PositiveFloat
+    memory_gb: PositiveFloat = Field(description="memory per accelerator in binary gigabytes (GiB, 2^30 bytes), "
+                                             "as accelerator memory is sold")
     peak_tflops: dict[str, PositiveFloat] = Field(min_length=1, description="by precision, e.g. bf16")
     utilisation: Utilisation = Field(description="model- or hardware-FLOPs utilisation, in (0, 1]")
 
@@ -108,6 +109,9 @@ class SiteIn(Strict):
     utilisation_current: Fraction = 0.0
     egress_per_gb: NonNegativeFloat = Field(0.0, description="what the site pays to send data out")
     wan_gbps: PositiveFloat | None = Field(None, description="the site's link to the outside")
+    storage_write_gbps: PositiveFloat | None = Field(
+        None, description="the shared storage's write bandwidth that checkpoints of all nodes share (default in "
+                          "assumptions)")
 
     _country = field_validator("jurisdiction")(_known_country)
 
@@ -143,6 +147,9 @@ class OfferIn(Strict):
     interruptible: InterruptibleIn | None = None
     storage_per_gb_month: NonNegativeFloat = 0.0
     ingress_per_gb: NonNegativeFloat = 0.0
+    storage_write_gbps: PositiveFloat | None = Field(
+        None, description="the shared storage's write bandwidth that checkpoints of all nodes share (default in "
+                          "assumptions)")
     egress_per_gb: NonNegativeFloat = 0.0
     ingress_gbps: PositiveFloat | None = None
     pue: Annotated[float, Field(ge=1, le=5)] | None = None
@@ -263,7 +270,7 @@ def _site(s: SiteIn, node_types: dict[str, domain.NodeType]) -> domain.Site:
         electricity_price_per_kwh=s.electricity_price_per_kwh, grid_kgco2e_per_kwh=s.grid_kgco2e_per_kwh,
         power_capacity_kw=s.power_capacity_kw, cooling_capacity_kw=s.cooling_capacity_kw,
         utilisation_planned=s.utilisation_planned, utilisation_current=s.utilisation_current,
-        egress_per_gb=s.egress_per_gb, wan_gbps=s.wan_gbps,
+        egress_per_gb=s.egress_per_gb, wan_gbps=s.wan_gbps, storage_write_gbps=s.storage_write_gbps,
     )
 
 
@@ -278,5 +285,5 @@ def _offer(o: OfferIn, node_types: dict[str, domain.NodeType]) -> domain.Offer:
             o.interruptible.per_accelerator_hour, o.interruptible.mean_hours_between_interruptions),
         storage_per_gb_month=o.storage_per_gb_month, ingress_per_gb=o.ingress_per_gb,
         egress_per_gb=o.egress_per_gb, ingress_gbps=o.ingress_gbps, pue=o.pue,
-        grid_kgco2e_per_kwh=o.grid_kgco2e_per_kwh,
+        grid_kgco2e_per_kwh=o.grid_kgco2e_per_kwh, storage_write_gbps=o.storage_write_gbps,
     )

@@ -8,11 +8,12 @@ import numpy as np
 from babel.numbers import get_currency_precision
 
 from service.contract.request import QuoteRequestIn, TransformerWorkIn
-from service.domain import explain
+from service.domain import explain, screens
 from service.domain.assumptions import DEFAULTS
 from service.domain.catalog import Catalog
 from service.domain.comparison import CURVE_UTILISATIONS, breakeven_rows, curves, rank
 from service.domain.evaluate import CampaignEvaluation, OptionResult
+from service.domain.layout import LayoutGrid, decided_by
 from service.domain.owning import cooling_tons
 from service.domain.units import SECONDS_PER_DAY, SECONDS_PER_HOUR
 
@@ -120,12 +121,7 @@ def _option(o: OptionResult, position: int, i: int, catalog: Catalog, evaluation
         "feasible": feasible,
         "reasons": explain.reasons(o, i, catalog, request.campaign.data.allowed_jurisdictions,
                                    request.campaign.deadline_days, site),
-        "layout": {
-            "nodes": int(layout.nodes[i]),
-            "accelerators": int(layout.accelerators[i]),
-            "strategy": "sharded" if bool(layout.sharded[i]) else "replicated",
-            "shards": int(layout.shards[i]),
-        },
+        "layout": _layout(layout, i, missed_deadline=bool(o.screens[i] & screens.DEADLINE)),
         "memory": {
             "model_state_bytes_per_accelerator": _number(layout.state_bytes[i], 0),
             "activation_bytes_per_accelerator": _number(layout.activation_bytes[i], 0),
@@ -133,6 +129,9 @@ def _option(o: OptionResult, position: int, i: int, catalog: Catalog, evaluation
         },
         "timing": {
             "step_seconds": _number(layout.step_seconds[i], 6),
+            "compute_seconds": _number(layout.compute_seconds[i], 6),
+            "pipeline_bubble_seconds": _number(layout.bubble_seconds[i], 6),
+            "collectives": _collectives(layout, i),
             "scaling_efficiency": _number(layout.scaling_efficiency[i], 6),
             "exposed_communication_fraction": _number(layout.exposed_fraction[i], 6),
             "network_gbps_needed_for_95pct": _number(layout.network_gbps_needed[i], 1),
@@ -161,6 +160,50 @@ def _option(o: OptionResult, position: int, i: int, catalog: Catalog, evaluation
                       zip(o.parts, (o.details["owned_runs"][i], o.details["rented_runs"][i]), strict=True)]}
            if o.parts else {}),
     }
+
+
+def _layout(layout: LayoutGrid, i: int, *, missed_deadline: bool) -> Json:
+    """The chosen (t, p, d) layout in the words of api.md; `strategy` and `shards` stay for
+    clients of the first model version (replicated or fully sharded data parallelism)."""
+    t, p, d, stage = int(layout.tensor[i]), int(layout.pipeline[i]), int(layout.data[i]), int(layout.zero_stage[i])
+    plain = t == 1 and p == 1
+    return {
+        "nodes": int(layout.nodes[i]),
+        "accelerators": int(layout.accelerators[i]),
+        "tensor": t,
+        "pipeline": p,
+        "data": d,
+        "zero_stage": stage,
+        "sequence_parallel": bool(layout.sequence_parallel[i]),
+        "micro_batch": int(layout.micro_batch[i]),
+        "micro_batches": _number(layout.micro_batches[i], 4),
+        "pipeline_chunks": int(layout.pipeline_chunks[i]),
+        "pipeline_bubble_fraction": _number(layout.bubble_seconds[i] / layout.compute_seconds[i], 6),
+        "decided_by": decided_by(int(layout.origin[i]), missed_deadline=missed_deadline),
+        "strategy": ("replicated" if stage == 0 else "sharded") if plain else "tensor-pipeline-data",
+        "shards": t * p * (d if stage == 3 else 1),
+    }
+
+
+def _collectives(layout: LayoutGrid, i: int) -> list[Json]:
+    """Time per optimiser step of each kind of collective, where it runs and what hides it."""
+    crosses = "node link" if layout.nodes[i] > 1 else "intra-node fabric"
+    sharded = int(layout.zero_stage[i]) == 3
+    return [
+        {"collective": "tensor_parallel", "link": "intra-node fabric",
+         "seconds_per_step": _number(layout.tensor_seconds[i], 6),
+         "exposed_seconds_per_step": _number(layout.tensor_seconds[i], 6),
+         "overlap": "none: on the critical path of every layer"},
+        {"collective": "pipeline", "link": crosses if layout.pipeline[i] > 1 else "none",
+         "seconds_per_step": _number(layout.pipeline_seconds[i], 6),
+         "exposed_seconds_per_step": _number(layout.pipeline_seconds[i], 6),
+         "overlap": "none: between micro-batches on the critical path"},
+        {"collective": "data_parallel", "link": crosses if layout.data[i] > 1 else "none",
+         "seconds_per_step": _number(layout.data_seconds[i], 6),
+         "exposed_seconds_per_step": _number(layout.data_exposed_seconds[i], 6),
+         "overlap": ("parameter gathers prefetched behind every micro-batch" if sharded
+                     else "gradient reduction behind the last micro-batch's backward pass")},
+    ]
 
 
 def _lines(o: OptionResult, i: int, catalog: Catalog, evaluation: CampaignEvaluation, money: Money) -> list[Json]:

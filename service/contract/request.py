@@ -101,12 +101,31 @@ class CampaignIn(Strict):
     data: DataIn = Field(default_factory=DataIn)
 
 
+class LayoutIn(Strict):
+    """Parts of the parallel layout to pin; berth completes the rest (model.md §5)."""
+
+    tensor: Annotated[int, Field(ge=1, le=1024)] | None = Field(
+        None, description="tensor-parallel degree t, inside one node (divides its accelerators)")
+    pipeline: Annotated[int, Field(ge=1, le=4096)] | None = Field(
+        None, description="pipeline stages p (divides the layer count)")
+    zero_stage: Annotated[int, Field(ge=0, le=3)] | None = Field(
+        None, description="ZeRO stage of the data-parallel part; 2 and 3 only without pipelining")
+    micro_batch: Annotated[int, Field(ge=1, le=4096)] | None = Field(None, description="sequences per micro-batch")
+    sequence_parallel: bool | None = Field(None, description="sequence parallelism beside tensor parallelism")
+    pipeline_chunks: Annotated[int, Field(ge=1, le=64)] | None = Field(
+        None, description="model chunks per pipeline stage (interleaved 1F1B; 1 is plain 1F1B)")
+
+    def to_domain(self) -> domain.LayoutPins:
+        return domain.LayoutPins(**self.model_dump())
+
+
 class OptionsIn(Strict):
     terms: list[Term] = Field(default_factory=lambda: list(ALL_TERMS), min_length=1)
     max_accelerators: PositiveInt | None = None
     fixed_accelerators: PositiveInt | None = None
     utilisation_basis: Literal["model", "hardware"] = "model"
     rank_by: Literal["cost", "wall_clock", "carbon"] = "cost"
+    layout: LayoutIn = Field(default_factory=LayoutIn)
 
 
 class OverridesIn(Strict):
@@ -163,6 +182,7 @@ class QuoteRequestIn(Strict):
         o = self.options
         options = domain.QuoteOptions(
             terms=tuple(dict.fromkeys(o.terms)), max_accelerators=o.max_accelerators,
-            fixed_accelerators=o.fixed_accelerators, utilisation_basis=o.utilisation_basis, rank_by=o.rank_by)
+            fixed_accelerators=o.fixed_accelerators, utilisation_basis=o.utilisation_basis, rank_by=o.rank_by,
+            layout=o.layout.to_domain())
         overrides = domain.Overrides(**self.overrides.model_dump())
         return campaign, options, overrides

@@ -34,7 +34,8 @@ _TABLE = (
     Assumption("usable_memory_fraction", 0.90, "fraction of accelerator memory",
                PRACTICE + " (allocator headroom)"),
     Assumption("micro_batch_sequences", 1.0, "sequences",
-               PRACTICE + " (per-accelerator micro-batch for the activation estimate)"),
+               "Narayanan et al. 2021, SC21, Table 2 (micro-batch 1; a larger one only adds memory and "
+               "pipeline bubble in this model, whose sustained efficiency does not vary with it)"),
     Assumption("head_dim", 128.0, "d_model per attention head",
                PRACTICE + " (attention heads = d_model / 128 when not given)"),
     Assumption("global_batch_tokens", 4.0e6, "tokens per step", PRACTICE),
@@ -44,7 +45,16 @@ _TABLE = (
                PRACTICE + " (virtual function passed through to the guest)"),
     Assumption("path_efficiency_rdma", 0.95, "fraction of link speed", PRACTICE),
     Assumption("communication_overlap", 0.80, "fraction of compute time",
-               PRACTICE + " (share of compute time that can hide communication)"),
+               PRACTICE + " (share of the compute a collective overlaps with that hides it: the gradient "
+               "reduction overlaps the last micro-batch's backward pass, ZeRO-3's gathers every micro-batch; "
+               "tensor-parallel and pipeline sends are on the critical path)"),
+    Assumption("latency_intra_node_us", 5.0, "µs per algorithm step",
+               PRACTICE + " (α of the α–β model inside a node; Hockney 1994, Parallel Computing 20(3))"),
+    Assumption("latency_inter_node_us", 10.0, "µs per algorithm step",
+               PRACTICE + " (α of the α–β model across nodes; Hockney 1994, Parallel Computing 20(3))"),
+    Assumption("storage_write_gbps", 800.0, "Gb/s",
+               PRACTICE + " (the shared storage's write bandwidth that checkpoints of all nodes share, "
+               "when a site or offer does not state it)"),
     Assumption("target_scaling_efficiency", 0.95, "fraction", PRACTICE),
     Assumption("restart_minutes", 10.0, "minutes",
                "Daly 2006, FGCS 22(3), worked examples use R = 10 min; " + PRACTICE),

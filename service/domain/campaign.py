@@ -96,12 +96,25 @@ class Campaign:
 
 
 @dataclass(frozen=True)
+class LayoutPins:
+    """Parts of the layout a request fixes; berth completes the rest (api.md `options.layout`)."""
+
+    tensor: int | None = None
+    pipeline: int | None = None
+    zero_stage: int | None = None
+    micro_batch: int | None = None
+    sequence_parallel: bool | None = None
+    pipeline_chunks: int | None = None
+
+
+@dataclass(frozen=True)
 class QuoteOptions:
     terms: tuple[str, ...] = ALL_TERMS
     max_accelerators: int | None = None
     fixed_accelerators: int | None = None
     utilisation_basis: UtilisationBasis = "model"
     rank_by: RankBy = "cost"
+    layout: LayoutPins = field(default_factory=LayoutPins)
 
 
 @dataclass(frozen=True)

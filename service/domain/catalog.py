@@ -13,7 +13,7 @@ NetworkPath = Literal["overlay", "direct", "rdma"]
 @dataclass(frozen=True)
 class Accelerator:
     id: str
-    memory_gb: float
+    memory_gb: float  # binary gigabytes (GiB), as accelerator memory is sold
     peak_tflops: Mapping[str, float]
     utilisation: float
 
@@ -87,6 +87,7 @@ class Site:
     name: str = ""
     egress_per_gb: float = 0.0  # what the site pays to send data out (its network contract)
     wan_gbps: float | None = None  # the site's link to the outside, for moving datasets
+    storage_write_gbps: float | None = None  # what the shared storage takes for checkpoints, all nodes together
 
 
 @dataclass(frozen=True)
@@ -121,6 +122,7 @@ class Offer:
     pue: float | None = None
     grid_kgco2e_per_kwh: float | None = None
     path_efficiency: float | None = None
+    storage_write_gbps: float | None = None
 
 
 @dataclass(frozen=True)

@@ -12,7 +12,7 @@ from typing import Any, Literal
 import numpy as np
 
 from service.domain import screens
-from service.domain.arrays import Bools, Floats, Ints, as_floats, broadcast, largest_count
+from service.domain.arrays import Bools, Floats, Ints, as_floats, broadcast
 from service.domain.assumptions import default
 from service.domain.campaign import Campaign, MeasuredWork, Overrides, QuoteOptions, TransformerWork
 from service.domain.catalog import Catalog, NodeType, Offer, Site
@@ -26,21 +26,18 @@ from service.domain.charges import (
 )
 from service.domain.gravity import Transfer, staging_seconds, transfer
 from service.domain.layout import (
+    Architecture,
     Choice,
     Eligible,
     Hardware,
     LayoutGrid,
     Load,
     Picker,
-    architecture_activation_bytes,
     as_column,
-    candidate_nodes,
     choose,
     eligible,
     evaluate_layouts,
-    first_columns,
 )
-from service.domain.memory import minimum_shards, model_state_bytes, usable_bytes
 from service.domain.owning import (
     NodeMonth,
     SiteEconomics,
@@ -50,7 +47,7 @@ from service.domain.owning import (
 from service.domain.recurrence import instances_per_year, instances_total
 from service.domain.residency import allowed_jurisdictions
 from service.domain.terms import Energy, campaign_energy
-from service.domain.units import SECONDS_PER_DAY, TB
+from service.domain.units import GIB, SECONDS_PER_DAY, TB
 from service.domain.venues import (
     NodeLimit,
     chargeback_limit,
@@ -193,8 +190,7 @@ def _site_options(site: Site, figures: SiteFigures, context: _Context) -> list[O
         return []
     data = data_charges(context.campaign, link, storage_per_gb_month=None,
                         results_egress_per_gb=site.egress_per_gb)
-    top_limit = np.maximum.reduce(np.broadcast_arrays(*[limit.nodes for limit in limits.values()]))
-    physics = _physics(venue, context, top_limit=top_limit)
+    physics = _physics(venue, context, limits=[limit.nodes for limit in limits.values()])
     results = []
     if "owned_chargeback" in limits:
         results.append(_evaluate(venue, "owned_chargeback", limits["owned_chargeback"],
@@ -218,7 +214,7 @@ def _offer_options(offer: Offer, context: _Context) -> list[OptionResult]:
     data = data_charges(context.campaign, link, storage_per_gb_month=offer.storage_per_gb_month,
                         results_egress_per_gb=offer.egress_per_gb)
     results = []
-    physics = _physics(venue, context, top_limit=limit.nodes)
+    physics = _physics(venue, context, limits=[limit.nodes])
     if "on_demand" in terms and offer.on_demand_per_accelerator_hour is not None:
         price = offer.on_demand_per_accelerator_hour * rented_price_factor(overrides, on_demand=True)
         results.append(_evaluate(venue, "on_demand", limit, hourly_charges(price, data), physics))
@@ -235,7 +231,7 @@ def _offer_options(offer: Offer, context: _Context) -> list[OptionResult]:
     if "interruptible" in terms and offer.interruptible is not None:
         price = offer.interruptible.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
         # Interruptions change the wall clock, so this term gets physics of its own.
-        interrupted = _physics(venue, context, top_limit=limit.nodes,
+        interrupted = _physics(venue, context, limits=[limit.nodes],
                                interruption_mean_hours=offer.interruptible.mean_hours_between_interruptions)
         results.append(_evaluate(venue, "interruptible", limit, hourly_charges(price, data), interrupted))
     return results
@@ -243,55 +239,54 @@ def _offer_options(offer: Offer, context: _Context) -> list[OptionResult]:
 
 @dataclass(frozen=True)
 class _Physics:
-    """What a venue does with the campaign at every candidate node count, shared by its terms."""
+    """What a venue does with the campaign at every candidate layout, shared by its terms."""
 
     load: Load
     hardware: Hardware
     grid: LayoutGrid
-    min_nodes: Floats
+    min_nodes: Floats  # the fewest nodes any layout needs to hold the model; inf when none can
     pinned_nodes: float | None  # options.fixed_accelerators as whole nodes
-    _candidates: dict[int, tuple[NodeLimit, LayoutGrid, Eligible]] = field(default_factory=dict)
+    _candidates: dict[int, tuple[NodeLimit, Eligible]] = field(default_factory=dict)
 
-    def candidates(self, limit: NodeLimit) -> tuple[LayoutGrid, Eligible]:
-        """The grid up to the limit's largest node count, and which of its layouts a term under
-        that limit may take; computed once per limit, as the terms of an offer share one."""
+    def candidates(self, limit: NodeLimit) -> Eligible:
+        """Which layouts a term under that limit may take; computed once per limit, as the terms
+        of an offer share one."""
         if id(limit) not in self._candidates:  # the limit is kept with them, so its id is not reused
-            count = int(min(self.grid.nodes.shape[-1], largest_count(limit.nodes)))
-            grid = first_columns(self.grid, count)
-            self._candidates[id(limit)] = limit, grid, eligible(grid, node_limit=limit.nodes,
-                                                                deadline_seconds=self.load.deadline_seconds)
-        _, grid, layouts = self._candidates[id(limit)]
-        return grid, layouts
+            self._candidates[id(limit)] = limit, eligible(self.grid, node_limit=limit.nodes,
+                                                          deadline_seconds=self.load.deadline_seconds)
+        return self._candidates[id(limit)][1]
 
 
-def _physics(venue: _Venue, context: _Context, *, top_limit: Floats,
+def _physics(venue: _Venue, context: _Context, *, limits: list[Floats],
              interruption_mean_hours: float = np.inf) -> _Physics:
     node = venue.node_type
     campaign, options, overrides = context.campaign, context.options, context.overrides
-    load = _load(campaign, options, context.work, context.multiplier, node)
+    load = _load(campaign, options, context.work, context.multiplier)
+    storage = venue.source.storage_write_gbps
     hardware = Hardware(
         accelerators_per_node=node.accelerators_per_node,
-        memory_bytes=node.accelerator.memory_gb * 1e9,
+        memory_bytes=node.accelerator.memory_gb * GIB,
         sustained_flops_per_accelerator=_venue_sustained(node, campaign, overrides, context.work),
         intra_node_gbps=node.intra_node_gbps,
         network_gbps=network_gbps(node, overrides),
         path_efficiency=venue_path_efficiency(venue.source),
         checkpoint_write_gbps=node.checkpoint_write_gbps,
+        storage_write_gbps=default("storage_write_gbps") if storage is None else storage,
         node_mtbf_hours=node_mtbf_hours(node, overrides),
         interruption_mean_hours=interruption_mean_hours,
         staging_seconds=staging_seconds(dataset_tb=campaign.data.dataset_tb, link=venue.transfer),
     )
-    nodes = candidate_nodes(node_limit=top_limit, fixed_accelerators=options.fixed_accelerators,
-                            accelerators_per_node=node.accelerators_per_node)
-    grid = evaluate_layouts(load, hardware, nodes, fixed_accelerators=options.fixed_accelerators)
-    pinned = None if options.fixed_accelerators is None else float(nodes[0])
-    return _Physics(load, hardware, grid, _minimum_nodes(load, hardware), pinned)
+    grid, min_nodes = evaluate_layouts(load, hardware, node_limits=limits,
+                                       fixed_accelerators=options.fixed_accelerators)
+    pinned = None if options.fixed_accelerators is None else float(grid.nodes[0, 0])
+    return _Physics(load, hardware, grid, min_nodes, pinned)
 
 
 def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, physics: _Physics) -> OptionResult:
     """Price every candidate layout, keep the cheapest per scenario, then itemise only that one."""
     node = venue.node_type
-    grid, layouts = physics.candidates(limit)
+    grid = physics.grid
+    layouts = physics.candidates(limit)
     choice = choose(layouts, charges.cost(grid))
     chosen = Picker(choice.index).grid(grid)
     lines_at, details_at = charges.itemise(as_column(chosen))
@@ -308,7 +303,7 @@ def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, phys
     mask = _screen(venue, physics.hardware, limit, min_nodes, needed, choice.any_fits, choice.meets_deadline,
                    shape=shape)
     if pinned is not None:
-        holds = _per_scenario(grid.fits[:, 0], shape)  # the pinned count is the only candidate
+        holds = _per_scenario(grid.fits.any(axis=1), shape)  # the pinned count is the only one evaluated
         mask |= np.where(~holds & np.isfinite(min_nodes), screens.PINNED_TOO_FEW, 0)
         # A pinned count that cannot hold the model is that problem, not a capacity one.
         mask &= np.where(~holds, ~(screens.CAPACITY | screens.POWER | screens.COOLING), -1)
@@ -366,28 +361,6 @@ def _screen(
     return mask
 
 
-def _minimum_nodes(load: Load, hardware: Hardware) -> Floats:
-    """The fewest nodes that hold the model's states and activations; inf when none can."""
-    per_node = hardware.accelerators_per_node
-    memory = hardware.memory_bytes
-    if load.architecture_activation_bytes is None:
-        activation = as_floats(default("activation_reserve_fraction") * memory)
-    else:
-        activation = load.architecture_activation_bytes
-    if load.parameters is None:
-        return np.ones(np.shape(load.timed_flops_per_run))
-    replicated_fits = model_state_bytes(parameters=load.parameters, shards=1.0) + activation <= usable_bytes(memory)
-    shards = minimum_shards(parameters=load.parameters, activation_bytes=activation, memory_bytes=memory)
-    sharded_nodes = np.ceil(shards / per_node)
-    if load.parallelism == "replicated":
-        nodes = np.where(replicated_fits, 1.0, np.inf)
-    elif load.parallelism == "sharded":
-        nodes = sharded_nodes
-    else:
-        nodes = np.where(replicated_fits, 1.0, sharded_nodes)
-    return np.asarray(nodes * np.ones(np.shape(load.timed_flops_per_run)))
-
-
 def _work(catalog: Catalog, campaign: Campaign, options: QuoteOptions, overrides: Overrides) -> WorkAmount:
     reference = None
     if isinstance(campaign.work, MeasuredWork):
@@ -408,20 +381,20 @@ def _venue_sustained(node: NodeType, campaign: Campaign, overrides: Overrides, w
     return sustained_flops(node, campaign.training.precision, overrides)
 
 
-def _load(campaign: Campaign, options: QuoteOptions, work: WorkAmount, multiplier: Floats, node: NodeType) -> Load:
+def _load(campaign: Campaign, options: QuoteOptions, work: WorkAmount, multiplier: Floats) -> Load:
     training = campaign.training
-    activation = None
+    architecture = None
     transformer = campaign.work
     if (isinstance(transformer, TransformerWork) and transformer.layers is not None
             and transformer.d_model is not None and transformer.sequence_length is not None):
-        heads = (as_floats(transformer.d_model) / default("head_dim")
-                 if transformer.attention_heads is None else transformer.attention_heads)
-        activation = architecture_activation_bytes(
-            layers=transformer.layers, sequence_length=transformer.sequence_length, d_model=transformer.d_model,
-            attention_heads=heads,
-            micro_batch=(default("micro_batch_sequences") if training.micro_batch_sequences is None
-                         else training.micro_batch_sequences),
-            recompute=training.activation_recompute)
+        heads = (float(transformer.d_model) / default("head_dim")  # type: ignore[arg-type]
+                 if transformer.attention_heads is None else float(transformer.attention_heads))  # type: ignore[arg-type]
+        architecture = Architecture(int(transformer.layers), float(transformer.d_model),  # type: ignore[arg-type]
+                                    float(transformer.sequence_length), heads)  # type: ignore[arg-type]
+    pins = options.layout
+    micro_batch = (pins.micro_batch if pins.micro_batch is not None
+                   else training.micro_batch_sequences if training.micro_batch_sequences is not None
+                   else default("micro_batch_sequences"))
     checkpoint = None if campaign.data.checkpoint_tb is None else as_floats(campaign.data.checkpoint_tb) * TB
     deadline = (np.asarray(np.inf) if campaign.deadline_days is None
                 else as_floats(campaign.deadline_days) * SECONDS_PER_DAY)
@@ -433,10 +406,12 @@ def _load(campaign: Campaign, options: QuoteOptions, work: WorkAmount, multiplie
         tokens_per_run=work.tokens,
         global_batch_tokens=as_floats(default("global_batch_tokens") if training.global_batch_tokens is None
                                       else training.global_batch_tokens),
-        architecture_activation_bytes=activation,
+        architecture=architecture,
+        micro_batch=float(micro_batch),  # type: ignore[arg-type]
         checkpoint_bytes=checkpoint,
         recompute=training.activation_recompute,
         parallelism=campaign.parallelism,
+        pins=pins,
         deadline_seconds=np.asarray(deadline),
         restart_seconds=default("restart_minutes") * 60.0,
     )

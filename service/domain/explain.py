@@ -48,12 +48,13 @@ def reasons(option: OptionResult, i: int, catalog: Catalog, campaign_allowed: Se
                        "precision")
         elif bit == screens.MEMORY:
             out.append(f"memory: the model's states and activations do not fit on any number of "
-                       f"{node.accelerator.id} accelerators ({_n(node.accelerator.memory_gb)} GB each); "
-                       "use full activation recompute or a larger accelerator")
+                       f"{node.accelerator.id} accelerators ({_n(node.accelerator.memory_gb)} GiB each) with any "
+                       "tensor, pipeline and data split berth may use here; use full activation recompute, allow "
+                       "more splits (campaign.parallelism auto, options.layout) or a larger accelerator")
         elif bit == screens.PINNED_TOO_FEW:
             out.append(f"memory: the pinned {_n(option.layout.accelerators[i])} accelerators cannot hold the "
                        f"model's states and activations; it needs at least {_n(np.ceil(option.min_nodes[i]))} "
-                       "nodes, or a sharded layout over more accelerators (options.fixed_accelerators)")
+                       "nodes, or another split over these accelerators (options.layout)")
         elif bit == screens.CAPACITY:
             out.append(f"capacity: {_needs(option, i)}; "
                        f"{_capacity_words(option, i, catalog)}")
@@ -285,7 +286,8 @@ def next_steps(options: Sequence[OptionResult], i: int, deadline_days: float | N
     if any(int(o.screens[i]) & screens.CAPACITY for o in options):
         steps.append("raise max_accelerators, free capacity on an owned site, or add an offer with more nodes")
     if any(int(o.screens[i]) & screens.MEMORY for o in options):
-        steps.append("use full activation recompute, sharded parallelism or accelerators with more memory")
+        steps.append("use full activation recompute, let berth split the model (parallelism auto) or use "
+                     "accelerators with more memory")
     if any(int(o.screens[i]) & (screens.POWER | screens.COOLING) for o in options):
         steps.append("add facility power or cooling at the site, or build at another site")
     if any(int(o.screens[i]) & screens.OWNED_ONLY for o in options):

@@ -20,12 +20,13 @@ def job_mtbi_seconds(
 
 
 def checkpoint_write_seconds(
-    *, checkpoint_bytes: ArrayLike, nodes: ArrayLike, write_gbps_per_node: ArrayLike
+    *, checkpoint_bytes: ArrayLike, nodes: ArrayLike, write_gbps_per_node: ArrayLike,
+    storage_write_gbps: ArrayLike = np.inf,
 ) -> Floats:
-    """δ = checkpoint bytes / (nodes × per-node checkpoint write bandwidth)."""
-    return as_floats(checkpoint_bytes) / (
-        as_floats(nodes) * gbps_to_bytes_per_second(write_gbps_per_node)
-    )
+    """δ = checkpoint bytes / min(nodes × per-node write bandwidth, the storage system's write
+    bandwidth): every node writes its shard, but no faster than the storage they share takes it."""
+    bandwidth = np.minimum(as_floats(nodes) * as_floats(write_gbps_per_node), as_floats(storage_write_gbps))
+    return np.asarray(as_floats(checkpoint_bytes) / gbps_to_bytes_per_second(bandwidth))
 
 
 def young_interval(*, checkpoint_seconds: ArrayLike, mtbi_seconds: ArrayLike) -> Floats:

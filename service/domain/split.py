@@ -7,7 +7,8 @@ wall clock is the longer part's. A split is offered only when it beats both pure
 pair, or when neither pure option is feasible.
 """
 
-from dataclasses import replace
+from collections.abc import Callable
+from dataclasses import fields, replace
 
 import numpy as np
 
@@ -80,20 +81,8 @@ def combine(owned: OptionResult, rented: OptionResult, *, owned_runs: int, rente
     def weighted(a: np.ndarray, b: np.ndarray) -> np.ndarray:
         return np.asarray((a * owned.layout.accelerator_hours + b * rented.layout.accelerator_hours) / hours)
 
-    o, r = owned.layout, rented.layout
-    layout = LayoutGrid(
-        nodes=o.nodes + r.nodes, accelerators=o.accelerators + r.accelerators, sharded=o.sharded | r.sharded,
-        shards=np.maximum(o.shards, r.shards), state_bytes=np.maximum(o.state_bytes, r.state_bytes),
-        activation_bytes=np.maximum(o.activation_bytes, r.activation_bytes), fits=o.fits & r.fits,
-        step_seconds=np.maximum(o.step_seconds, r.step_seconds),
-        scaling_efficiency=weighted(o.scaling_efficiency, r.scaling_efficiency),
-        exposed_fraction=weighted(o.exposed_fraction, r.exposed_fraction),
-        network_gbps_needed=np.fmax(o.network_gbps_needed, r.network_gbps_needed),
-        failure_overhead=weighted(o.failure_overhead, r.failure_overhead),
-        checkpoint_interval_seconds=np.fmin(o.checkpoint_interval_seconds, r.checkpoint_interval_seconds),
-        wall_seconds=np.maximum(o.wall_seconds, r.wall_seconds),
-        accelerator_hours=hours,
-    )
+    layout = LayoutGrid(**{f.name: _combined(f.name, owned.layout, rented.layout, weighted)
+                           for f in fields(LayoutGrid) if f.name != "accelerator_hours"}, accelerator_hours=hours)
     e, f = owned.energy, rented.energy
     lines = {f"{owned.venue_id}: {k}": v for k, v in owned.lines.items()}
     lines.update({f"{rented.venue_id}: {k}": v for k, v in rented.lines.items()})
@@ -117,3 +106,30 @@ def combine(owned: OptionResult, rented: OptionResult, *, owned_runs: int, rente
         details={"owned_runs": np.full_like(hours, owned_runs), "rented_runs": np.full_like(hours, rented_runs)},
         parts=(owned, rented),
     )
+
+
+# How a split's two layouts, running at the same time, combine into one figure (the layout's shape
+# is the owned part's; the rented part's is in `parts`).
+_SUMMED = {"nodes", "accelerators"}
+_SLOWER = {"state_bytes", "activation_bytes", "compute_seconds", "bubble_seconds", "tensor_seconds",
+           "pipeline_seconds", "data_seconds", "data_exposed_seconds", "step_seconds", "checkpoint_seconds",
+           "wall_seconds"}
+_WEIGHTED = {"scaling_efficiency", "exposed_fraction", "failure_overhead"}
+
+
+def _combined(name: str, owned: LayoutGrid, rented: LayoutGrid,
+              weighted: Callable[[np.ndarray, np.ndarray], np.ndarray]) -> np.ndarray:
+    a, b = getattr(owned, name), getattr(rented, name)
+    if name in _SUMMED:
+        return np.asarray(a + b)
+    if name in _SLOWER:
+        return np.asarray(np.maximum(a, b))
+    if name in _WEIGHTED:
+        return weighted(a, b)
+    if name == "fits":
+        return np.asarray(a & b)
+    if name == "network_gbps_needed":
+        return np.asarray(np.fmax(a, b))
+    if name == "checkpoint_interval_seconds":
+        return np.asarray(np.fmin(a, b))
+    return np.asarray(a)

@@ -12,6 +12,7 @@ BITS_PER_BYTE = 8.0
 GIGA = 1e9
 
 TB = 1e12  # decimal terabyte, as storage and transfer are priced
+GIB = 2.0**30  # binary gigabyte, as accelerator memory is sold
 
 # 1 ton of refrigeration = 12,000 Btu_IT/h = 3.516853 kW (NIST SP 811, App. B.8).
 KW_PER_TON_OF_REFRIGERATION = 3.516853

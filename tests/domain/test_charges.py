@@ -23,9 +23,10 @@ from service.domain.charges import (
     new_build_charges,
 )
 from service.domain.gravity import transfer
-from service.domain.layout import Hardware, LayoutGrid, Load, evaluate_layouts
+from service.domain.layout import LayoutGrid, evaluate_layouts
 from service.domain.owning import busy_energy_per_accelerator_hour, node_month
 from service.domain.venues import site_economics
+from tests.domain.builders import hardware, load
 from tests.domain.test_costs import CATALOG, DATA
 
 TOKENS = np.array([2e9, 3e10, 4e11])  # three scenarios, so every (S, K) path is exercised
@@ -34,16 +35,14 @@ RECURRENCES: list[dict[str, Any] | None] = [None, {"every_months": 1, "for_month
 
 def grid_of(per_node: int) -> LayoutGrid:
     parameters = np.full(3, 1.3e9)
-    load = Load(
-        timed_flops_per_run=6.0 * parameters * TOKENS, timed_flops_per_token=6.0 * parameters,
-        runs_multiplier=np.ones(3), parameters=parameters, tokens_per_run=TOKENS,
-        global_batch_tokens=np.full(3, 4e6), architecture_activation_bytes=None, checkpoint_bytes=None,
-        recompute="none", parallelism="auto", deadline_seconds=np.full(3, np.inf), restart_seconds=600.0)
-    hardware = Hardware(
-        accelerators_per_node=per_node, memory_bytes=80e9, sustained_flops_per_accelerator=np.full(3, 5e13),
-        intra_node_gbps=1000.0, network_gbps=np.full(3, 200.0), path_efficiency=0.9, checkpoint_write_gbps=10.0,
-        node_mtbf_hours=np.full(3, 5e4), interruption_mean_hours=np.inf, staging_seconds=np.full(3, 3600.0))
-    return evaluate_layouts(load, hardware, np.arange(1.0, 41.0))
+    run = load(parameters=parameters, tokens=TOKENS, runs_multiplier=np.ones(3), global_batch_tokens=np.full(3, 4e6),
+               deadline_seconds=np.full(3, np.inf))
+    venue = hardware(accelerators_per_node=per_node, memory_bytes=80e9, sustained_flops_per_accelerator=np.full(3, 5e13),
+                     intra_node_gbps=1000.0, network_gbps=np.full(3, 200.0), path_efficiency=0.9,
+                     node_mtbf_hours=np.full(3, 5e4), staging_seconds=np.full(3, 3600.0))
+    # One node limit per count from 1 to 40: the most each allows is a candidate of its own.
+    grid, _ = evaluate_layouts(run, venue, node_limits=[float(n) for n in range(1, 41)])
+    return grid
 
 
 def every_charge(recurrence: dict[str, Any] | None) -> dict[str, Charges]:
@@ -78,7 +77,7 @@ def test_the_itemised_lines_exceed_the_layout_cost_by_the_same_amount_at_every_n
         cost = np.asarray(charges.cost(grid))
         lines, _ = charges.itemise(grid)
         total = sum(np.broadcast_to(line, cost.shape) for line in lines.values())
-        assert isinstance(total, np.ndarray) and total.shape == (3, 40), term
+        assert isinstance(total, np.ndarray) and total.shape == (3, 41), term
         beside = total - cost
         assert_allclose(beside, np.broadcast_to(beside[:, :1], beside.shape), rtol=0,
                         atol=1e-12 * float(np.abs(total).max()), err_msg=term)

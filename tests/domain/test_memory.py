@@ -1,4 +1,5 @@
-"""Memory: model states, activations and the fewest shards (model.md §2)."""
+"""Memory: model states by ZeRO stage, activations by tensor, sequence and pipeline parallelism, and
+the fewest data-parallel replicas that hold a model (model.md §2)."""
 
 import numpy as np
 import pytest
@@ -6,12 +7,13 @@ from numpy.testing import assert_allclose
 
 from service.domain.memory import (
     activation_bytes_per_layer,
-    fits,
-    minimum_shards,
-    model_state_bytes,
+    micro_batches_in_flight,
+    minimum_data_parallel,
+    parameters_per_model_rank,
     usable_bytes,
     zero_model_state_bytes,
 )
+from service.domain.units import GIB
 
 GB = 1e9  # ZeRO's Fig. 1 reports decimal gigabytes
 
@@ -28,81 +30,95 @@ def test_zero_stages_reproduce_figure_1_to_its_rounding(stage: int, published_gb
     assert_allclose(per_device / GB, published_gb, rtol=0.0, atol=0.05)
 
 
-def test_mixed_precision_adam_keeps_sixteen_bytes_per_parameter() -> None:
-    # ZeRO §3.1: 2Ψ fp16 weights + 2Ψ fp16 gradients + KΨ = 12Ψ fp32 optimizer states.
-    assert_allclose(model_state_bytes(parameters=7.5e9, shards=1), 16 * 7.5e9, rtol=0.0)
+def test_the_stage_may_vary_per_candidate_and_unsharded_replicas_keep_sixteen_bytes() -> None:
+    # ZeRO §3.1: 2Ψ fp16 weights + 2Ψ fp16 gradients + KΨ = 12Ψ fp32 optimizer states; with one
+    # replica every stage keeps all 16 bytes.
+    stages = np.array([0, 1, 2, 3])
+    assert_allclose(zero_model_state_bytes(parameters=7.5e9, data_parallel=1.0, stage=stages), 16 * 7.5e9,
+                    rtol=1e-15)
+    assert_allclose(zero_model_state_bytes(parameters=7.5e9, data_parallel=64.0, stage=stages) / GB,
+                    [120.0, 31.40625, 16.640625, 1.875], rtol=1e-12)
 
 
-def test_full_sharding_divides_the_states_over_the_shards_as_zero_stage_3_does() -> None:
-    shards = np.array([1.0, 8.0, 64.0, 1000.0])
-    assert_allclose(
-        model_state_bytes(parameters=7.5e9, shards=shards),
-        zero_model_state_bytes(parameters=7.5e9, data_parallel=shards, stage=3),
-        rtol=1e-15,
+def test_tensor_and_pipeline_parallelism_divide_the_parameters_of_a_rank() -> None:
+    # Narayanan et al. 2021, SC21, §3: each of the t·p model-parallel ranks holds N/(t·p).
+    assert_allclose(parameters_per_model_rank(parameters=174.6e9, tensor=8, pipeline=12), 174.6e9 / 96, rtol=1e-15)
+
+
+# Korthikanti et al. 2022, "Reducing Activation Recomputation in Large Transformer Models",
+# Eq. 1 and Table 2, for the GPT-3 175B layer (s = 2048, b = 1, h = 12288, a = 96) and t = 8.
+# s·b·h = 25,165,824; 5·a·s/h = 80; 5·a·s/(h·t) = 10. Integers that float64 holds exactly.
+SBH = 2048 * 12288
+KORTHIKANTI_TABLE_2 = [
+    # (recompute, t, sequence parallel, bytes per layer)
+    ("none", 1, False, SBH * (34 + 80)),  # Eq. 1: 2,868,903,936
+    ("none", 8, False, SBH * (10 + 24 / 8 + 10)),  # tensor parallel (baseline): sbh(10 + 24/t + 5as/(ht))
+    ("none", 8, True, SBH * (34 / 8 + 10)),  # tensor + sequence parallel: sbh(34/t + 5as/(ht))
+    ("selective", 8, False, SBH * (10 + 24 / 8)),  # tensor parallel + selective: sbh(10 + 24/t)
+    ("selective", 8, True, SBH * 34 / 8),  # tensor + sequence parallel + selective: sbh·34/t
+    ("full", 1, False, SBH * 2),  # full recomputation: the layer input, 2sbh
+    ("full", 8, True, SBH * 2 / 8),  # ... split along the sequence by sequence parallelism
+]
+
+
+@pytest.mark.parametrize(("recompute", "tensor", "sequence_parallel", "published"), KORTHIKANTI_TABLE_2)
+def test_activations_per_layer_follow_korthikanti_table_2_exactly(
+    recompute: str, tensor: int, sequence_parallel: bool, published: float
+) -> None:
+    per_layer = activation_bytes_per_layer(
+        sequence_length=2048, micro_batch=1, d_model=12288, attention_heads=96, recompute=recompute,  # type: ignore[arg-type]
+        tensor=tensor, sequence_parallel=sequence_parallel,
     )
+    assert_allclose(per_layer, published, rtol=0.0, atol=0.0)
 
 
-def test_korthikanti_equation_1_gives_the_gpt3_layer_activations_exactly() -> None:
-    # Korthikanti et al. 2022, "Reducing Activation Recomputation in Large Transformer Models",
-    # Eq. 1: s·b·h·(34 + 5·a·s/h) bytes per layer. s = 2048, b = 1, h = 12288, a = 96:
-    # 2048·12288·(34 + 80) = 2,868,903,936 bytes, an integer float64 holds exactly.
+def test_korthikanti_equation_1_gives_the_gpt3_layer_activations() -> None:
     per_layer = activation_bytes_per_layer(
         sequence_length=2048, micro_batch=1, d_model=12288, attention_heads=96, recompute="none"
     )
     assert_allclose(per_layer, 2_868_903_936, rtol=0.0, atol=0.0)
 
 
-def test_full_recomputation_keeps_only_each_layers_two_byte_input() -> None:
-    # Korthikanti et al. 2022 (full recomputation stores only the layer input, 2·s·b·h bytes);
-    # model.md §2 marks this [secondary]. 2·2048·4·12288 = 201,326,592.
-    per_layer = activation_bytes_per_layer(
-        sequence_length=2048, micro_batch=4, d_model=12288, attention_heads=96, recompute="full"
-    )
-    assert_allclose(per_layer, 201_326_592, rtol=0.0, atol=0.0)
-
-
 def test_activations_grow_linearly_with_the_micro_batch() -> None:
     micro_batch = np.array([1.0, 2.0, 8.0])
     per_layer = activation_bytes_per_layer(
-        sequence_length=2048, micro_batch=micro_batch, d_model=12288, attention_heads=96,
-        recompute="none",
+        sequence_length=2048, micro_batch=micro_batch, d_model=12288, attention_heads=96, recompute="none",
     )
     assert_allclose(per_layer, 2_868_903_936 * micro_batch, rtol=1e-15)
 
 
-def test_states_and_activations_must_fit_in_ninety_percent_of_memory() -> None:
-    # The 90% allocator headroom is common practice (model.md §2); demo 80 GB accelerator.
-    memory = 80 * GB
-    assert_allclose(usable_bytes(memory), 72 * GB, rtol=1e-15)
-    verdict = fits(
-        state_bytes=np.array([50, 50, 50]) * GB,
-        activation_bytes=np.array([21, 22, 23]) * GB,
-        memory_bytes=memory,
-    )
-    np.testing.assert_array_equal(verdict, [True, True, False])
+def test_the_first_pipeline_stage_holds_p_micro_batches_under_1f1b() -> None:
+    # Narayanan et al. 2021, §2.2.1: with 1F1B at most p micro-batches are in flight; fewer when the
+    # step has fewer micro-batches.
+    assert_allclose(micro_batches_in_flight(pipeline=np.array([1.0, 8.0, 8.0]), micro_batches=np.array([64, 64, 3])),
+                    [1.0, 8.0, 3.0], rtol=0)
 
 
-def test_minimum_shards_is_the_smallest_count_whose_share_fits() -> None:
-    # Demo: 7.5B parameters (120 GB of states), 80 GB accelerators, 20 GB kept for activations:
-    # room 72 − 20 = 52 GB per accelerator, so ⌈120/52⌉ = 3 shards.
+def test_accelerator_memory_is_counted_in_binary_gigabytes_with_ten_percent_headroom() -> None:
+    # 80 GiB = 80·2^30 bytes (model.md §2); 90% usable is common practice.
+    assert_allclose(usable_bytes(80 * GIB), 0.9 * 80 * 2**30, rtol=1e-15)
+
+
+@pytest.mark.parametrize("stage", [1, 2, 3])
+def test_the_fewest_replicas_are_the_smallest_count_whose_states_fit(stage: int) -> None:
+    # Demo: 7.5B parameters, 80 GB accelerators (decimal here), 20 GB kept for activations.
     memory, activations = 80 * GB, 20 * GB
-    shards = minimum_shards(parameters=7.5e9, activation_bytes=activations, memory_bytes=memory)
-    assert_allclose(shards, 3.0, rtol=0.0)
-    at_minimum = model_state_bytes(parameters=7.5e9, shards=shards)
-    one_fewer = model_state_bytes(parameters=7.5e9, shards=shards - 1.0)
-    assert fits(state_bytes=at_minimum, activation_bytes=activations, memory_bytes=memory)
-    assert not fits(state_bytes=one_fewer, activation_bytes=activations, memory_bytes=memory)
+    replicas = minimum_data_parallel(parameters_per_rank=7.5e9, activation_bytes=activations, memory_bytes=memory,
+                                     stage=stage)
+    room = 0.9 * memory - activations
+    assert zero_model_state_bytes(parameters=7.5e9, data_parallel=replicas, stage=stage) <= room
+    assert zero_model_state_bytes(parameters=7.5e9, data_parallel=replicas - 1.0, stage=stage) > room
 
 
-def test_a_model_that_fits_on_one_accelerator_needs_one_shard() -> None:
-    shards = minimum_shards(parameters=1e9, activation_bytes=10 * GB, memory_bytes=80 * GB)
-    assert_allclose(shards, 1.0, rtol=0.0)
+def test_zero_stage_3_needs_three_replicas_where_52_gb_are_free_for_120_gb_of_states() -> None:
+    # 72 − 20 = 52 GB free per accelerator; ⌈120/52⌉ = 3.
+    assert_allclose(minimum_data_parallel(parameters_per_rank=7.5e9, activation_bytes=20 * GB,
+                                          memory_bytes=80 * GB, stage=3), 3.0, rtol=0)
 
 
-def test_no_shard_count_helps_when_activations_alone_overflow() -> None:
-    shards = minimum_shards(
-        parameters=np.array([1e9, 1e9]), activation_bytes=np.array([71 * GB, 73 * GB]),
-        memory_bytes=80 * GB,
-    )
-    assert np.isfinite(shards[0])
-    assert np.isinf(shards[1])
+def test_no_replica_count_helps_when_the_unsharded_part_overflows() -> None:
+    # Stage 0 shards nothing; stage 1 keeps 4 bytes a parameter on every replica: 4·15e9 = 60 GB.
+    replicas = minimum_data_parallel(parameters_per_rank=np.array([1e9, 15e9]), activation_bytes=13 * GB,
+                                     memory_bytes=80 * GB, stage=np.array([0, 1]))
+    assert replicas[0] == 1.0
+    assert np.isinf(replicas[1])

@@ -33,6 +33,7 @@ from service.usecases.quoting import quote
 EXAMPLES = Path(__file__).resolve().parents[2] / "pricing_examples"
 DAY = 86400.0
 GB = 1e9
+GIB = 2**30
 
 # One accelerator type: 80 GB, 100 TFLOP/s bf16 at 50% utilisation = 50e12 FLOP/s sustained.
 MEMORY_GB, SUSTAINED, PER_NODE, PEAK_KW, PUE = 80.0, 100e12 * 0.5, 4, 6.0, 1.2
@@ -190,25 +191,29 @@ def test_owned_only_rules_out_every_rented_option_with_its_reason():
 # --- the screens, each with its reason -----------------------------------------------------------
 
 @pytest.mark.parametrize(("work", "parallelism"), [
-    # Activations: 40 layers × 34 × s 8192 × b 1 × h 8192 = 91.3 GB > 90% of 80 GB = 72 GB, and
-    # sharding the states cannot shrink them.
+    # Activations without recomputation at a 65,536-token context: one layer's attention term
+    # alone, split over the node's 4 accelerators, is 5·a·s²/t = 5 × 64 × 65536² / 4 = 344 GB
+    # (Korthikanti Table 2) > 90% of 80 GiB = 77.3 GB; no pipeline split divides a layer, and
+    # sharding the states cannot shrink it.
     ({"kind": "transformer", "parameters": 1e9, "tokens": 1e10, "layers": 40, "d_model": 8192,
-      "sequence_length": 8192, "activation_recompute": "selective"}, "auto"),
-    # Replicated: 16 × 4e9 = 64 GB of states + 25% × 80 = 20 GB reserve = 84 GB > 72 GB.
+      "sequence_length": 65536, "attention_heads": 64, "activation_recompute": "none"}, "auto"),
+    # Replicated: 16 × 4e9 = 64 GB of states + 25% × 80 GiB = 21.5 GB reserve = 85.5 GB > 77.3 GB.
     ({"kind": "flops", "total_flops": 1e20, "parameters": 4e9}, "replicated"),
 ])
 def test_a_model_too_big_for_any_count_is_ruled_out_everywhere_by_memory(work, parallelism):
     document = body(base(), request(work, parallelism=parallelism))
     assert document["recommendation"] is None
     for o in document["options"]:
-        assert o["reasons"] == ["memory: the model's states and activations do not fit on any number of test-acc "
-                                "accelerators (80 GB each); use full activation recompute or a larger accelerator"]
-    assert "use full activation recompute, sharded parallelism or accelerators with more memory" in (
-        document["next_steps"])
+        assert o["reasons"] == [
+            "memory: the model's states and activations do not fit on any number of test-acc accelerators "
+            "(80 GiB each) with any tensor, pipeline and data split berth may use here; use full activation "
+            "recompute, allow more splits (campaign.parallelism auto, options.layout) or a larger accelerator"]
+    assert ("use full activation recompute, let berth split the model (parallelism auto) or use accelerators "
+            "with more memory") in document["next_steps"]
 
 
 def test_a_model_just_small_enough_to_replicate_fits_on_one_node():
-    # 16 × 3e9 = 48 GB of states + 20 GB reserve = 68 GB ≤ 72 GB.
+    # 16 × 3e9 = 48 GB of states + 21.5 GB reserve = 69.5 GB ≤ 77.3 GB.
     work = {"kind": "flops", "total_flops": 1e20, "parameters": 3e9}
     o = option(body(base(), request(work, parallelism="replicated")), "fr-offer", "on_demand")
     assert o["feasible"] and o["memory"]["fits"] and o["layout"]["strategy"] == "replicated"
@@ -229,10 +234,11 @@ def test_precision_the_accelerator_has_no_figure_for_is_ruled_out():
         assert o["reasons"] == ["precision: accelerator test-acc has no peak figure for the requested precision"]
 
 
-# 3.8e11 parameters: 16 × 3.8e11 = 6.08e12 bytes of states over (90% − 25%) × 80 GB = 52 GB of
-# room per accelerator = 116.9 → 117 shards → ceil(117 / 4) = 30 nodes at least.
+# 3.8e11 parameters, no architecture (so no tensor or pipeline split): fully sharded (ZeRO-3),
+# 16 × 3.8e11 = 6.08e12 bytes of states over (90% − 25%) × 80 GiB = 55.8 GB of room per
+# accelerator = 108.9 → 109 replicas → ceil(109 / 4) = 28 nodes at least.
 BIG = {"kind": "flops", "total_flops": 1e21, "parameters": 3.8e11}
-BIG_NODES = math.ceil(math.ceil(16 * 3.8e11 / ((0.90 - 0.25) * MEMORY_GB * GB)) / PER_NODE)
+BIG_NODES = math.ceil(math.ceil(16 * 3.8e11 / ((0.90 - 0.25) * MEMORY_GB * GIB)) / PER_NODE)
 
 
 def test_capacity_reasons_state_each_venues_limit_against_the_memory_minimum():
@@ -272,25 +278,25 @@ def new_build(catalog: dict[str, Any]) -> dict[str, Any]:
 
 
 def test_power_rules_out_a_new_build_the_site_cannot_feed_in_kw():
-    # Power allows floor(300 / (6 × 1.2)) − 20 = 21 new nodes < 30; cooling floor(400 / 6) − 20 = 46.
-    need = BIG_NODES * PEAK_KW * PUE  # 216 kW at the facility
+    # Power allows floor(300 / (6 × 1.2)) − 20 = 21 new nodes < 28; cooling floor(400 / 6) − 20 = 46.
+    need = BIG_NODES * PEAK_KW * PUE  # 201.6 kW at the facility
     used = OWNED * PEAK_KW * PUE  # 144 kW for the owned fleet
     o = new_build(site_with(300, 400))
     assert o["reasons"] == [
         f"power: {BIG_NODES} new nodes draw {need:.1f} kW at the facility at peak ({BIG_NODES * PEAK_KW:.1f} kW IT "
         f"× PUE 1.2); the site's 300.0 kW less the owned fleet's {used:.1f} kW leaves {300 - used:.1f} kW, "
         f"{need - (300 - used):.1f} kW short"]
-    assert "216.0 kW" in o["reasons"][0] and "60.0 kW short" in o["reasons"][0]
+    assert "201.6 kW" in o["reasons"][0] and "45.6 kW short" in o["reasons"][0]
 
 
 def test_cooling_rules_out_a_new_build_whose_heat_the_site_cannot_remove_in_kw():
-    # Cooling allows floor(250 / 6) − 20 = 21 new nodes < 30; power floor(600 / 7.2) − 20 = 63.
-    heat, used = BIG_NODES * PEAK_KW, OWNED * PEAK_KW  # 180 kW; 120 kW
+    # Cooling allows floor(250 / 6) − 20 = 21 new nodes < 28; power floor(600 / 7.2) − 20 = 63.
+    heat, used = BIG_NODES * PEAK_KW, OWNED * PEAK_KW  # 168 kW; 120 kW
     o = new_build(site_with(600, 250))
     assert o["reasons"] == [
         f"cooling: {BIG_NODES} new nodes reject {heat:.1f} kW of heat at peak; the site's 250.0 kW of cooling less "
         f"the owned fleet's {used:.1f} kW leaves {250 - used:.1f} kW, {heat - (250 - used):.1f} kW short"]
-    assert "50.0 kW short" in o["reasons"][0]
+    assert "38.0 kW short" in o["reasons"][0]
 
 
 def test_a_site_with_power_and_cooling_to_spare_builds_the_big_model():

@@ -8,7 +8,7 @@ from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
-from service.domain.campaign import Campaign, Overrides, QuoteOptions, TransformerWork
+from service.domain.campaign import Campaign, LayoutPins, Overrides, QuoteOptions, TransformerWork
 from service.domain.catalog import (
     Accelerator,
     Catalog,
@@ -22,10 +22,10 @@ from service.domain.catalog import (
     Site,
 )
 from service.domain.evaluate import evaluate_campaign
-from service.domain.layout import Hardware, Load, evaluate_layouts
+from service.domain.layout import evaluate_layouts
 from service.domain.reliability import daly_interval, expected_wall_fraction, job_mtbi_seconds
-from service.domain.scaling import bandwidth_per_accelerator, step_timing
 from service.domain.units import SECONDS_PER_HOUR
+from tests.domain.builders import architecture, hardware, load
 
 # No example database on disk, and no timing deadline: the engine's first call may be slow.
 PROPERTY = settings(database=None, deadline=None, max_examples=150)
@@ -44,56 +44,44 @@ def one(value: float) -> np.ndarray:
     network_gbps=st.floats(1.0, 3200.0),
     node_mtbf_hours=st.one_of(st.just(np.inf), st.floats(100.0, 1e6)),
     max_nodes=st.integers(1, 128),
+    deadline_days=st.one_of(st.just(np.inf), st.floats(0.5, 400.0)),
 )
-def test_accelerator_hours_never_fall_below_the_ideal_at_any_accelerator_count(
+def test_accelerator_hours_never_fall_below_the_ideal_in_any_candidate_layout(
     parameters: float, tokens: float, runs: float, sustained_tflops: float, network_gbps: float,
-    node_mtbf_hours: float, max_nodes: int,
+    node_mtbf_hours: float, max_nodes: int, deadline_days: float,
 ) -> None:
-    timed_flops = 6.0 * parameters * tokens
-    load = Load(
-        timed_flops_per_run=one(timed_flops), timed_flops_per_token=one(6.0 * parameters),
-        runs_multiplier=one(runs), parameters=one(parameters),
-        tokens_per_run=one(tokens), global_batch_tokens=one(4e6), architecture_activation_bytes=None,
-        checkpoint_bytes=None, recompute="none", parallelism="auto", deadline_seconds=one(np.inf),
-        restart_seconds=600.0,
-    )
-    hardware = Hardware(
-        accelerators_per_node=8, memory_bytes=80e9,
-        sustained_flops_per_accelerator=one(sustained_tflops * 1e12), intra_node_gbps=3600.0,
-        network_gbps=one(network_gbps), path_efficiency=0.95, checkpoint_write_gbps=50.0,
-        node_mtbf_hours=one(node_mtbf_hours), interruption_mean_hours=np.inf,
-        staging_seconds=np.zeros(1),
-    )
-    grid = evaluate_layouts(load, hardware, np.arange(1.0, max_nodes + 1.0))
-    ideal = timed_flops * runs / (sustained_tflops * 1e12) / SECONDS_PER_HOUR
+    run = load(parameters=one(parameters), tokens=one(tokens), runs_multiplier=one(runs),
+               architecture=architecture(32, 4096.0, 4096.0, 32.0), deadline_seconds=one(deadline_days * 86400.0))
+    venue = hardware(sustained_flops_per_accelerator=one(sustained_tflops * 1e12), network_gbps=one(network_gbps),
+                     node_mtbf_hours=one(node_mtbf_hours))
+    grid, _ = evaluate_layouts(run, venue, node_limits=[float(max_nodes)])
+    ideal = 6.0 * parameters * tokens * runs / (sustained_tflops * 1e12) / SECONDS_PER_HOUR
     assert np.all(grid.accelerator_hours >= ideal * (1.0 - 1e-12))
 
 
 @PROPERTY
 @given(
-    flops_per_step=st.floats(1e12, 1e20),
+    parameters=st.floats(1e8, 2e11),
     nodes=st.integers(2, 512),
     sustained_tflops=st.floats(10.0, 2000.0),
-    payload_bytes=st.floats(0.0, 1e12),
     network_gbps=st.floats(1.0, 3200.0),
     faster=st.floats(1.0, 100.0),
-    overlap=st.floats(0.0, 1.0),
+    tensor=st.sampled_from([1, 2, 8]),
+    pipeline=st.sampled_from([1, 2, 4]),
+    zero_stage=st.sampled_from([0, 1, 3]),
 )
 def test_more_network_bandwidth_never_lowers_scaling_efficiency(
-    flops_per_step: float, nodes: int, sustained_tflops: float, payload_bytes: float,
-    network_gbps: float, faster: float, overlap: float,
+    parameters: float, nodes: int, sustained_tflops: float, network_gbps: float, faster: float,
+    tensor: int, pipeline: int, zero_stage: int,
 ) -> None:
-    links = np.array([network_gbps, network_gbps * faster])
-    bandwidth = bandwidth_per_accelerator(
-        nodes=float(nodes), accelerators_per_node=8, intra_node_gbps=3600.0, network_gbps=links,
-        path_efficiency=0.9,
-    )
-    timing = step_timing(
-        flops_per_step=flops_per_step, accelerators=nodes * 8.0,
-        sustained_flops_per_accelerator=sustained_tflops * 1e12, communication_bytes=payload_bytes,
-        bandwidth_bytes_per_second=bandwidth, overlap=overlap,
-    )
-    assert timing.scaling_efficiency[1] >= timing.scaling_efficiency[0]
+    pins = LayoutPins(tensor=tensor, pipeline=pipeline, zero_stage=zero_stage if pipeline == 1 else min(zero_stage, 1))
+    run = load(parameters=np.full(2, parameters), tokens=np.full(2, 1e11), runs_multiplier=np.ones(2),
+               global_batch_tokens=np.full(2, 8e6), architecture=architecture(32, 4096.0, 4096.0, 32.0), pins=pins,
+               deadline_seconds=np.full(2, np.inf))
+    venue = hardware(sustained_flops_per_accelerator=np.full(2, sustained_tflops * 1e12),
+                     network_gbps=np.array([network_gbps, network_gbps * faster]))
+    grid, _ = evaluate_layouts(run, venue, node_limits=[float(nodes)], fixed_accelerators=8 * nodes)
+    assert np.all(grid.scaling_efficiency[1] >= grid.scaling_efficiency[0] * (1.0 - 1e-12))
 
 
 @PROPERTY

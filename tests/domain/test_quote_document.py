@@ -27,9 +27,10 @@ WITH_A_WINNER = ["owned-wins", "renting-wins", "recurring"]
 
 OPTION_KEYS = {
     "venue": {"kind", "id", "jurisdiction"},
-    "layout": {"nodes", "accelerators", "strategy", "shards"},
+    "layout": {"nodes", "accelerators", "tensor", "pipeline", "data", "zero_stage", "sequence_parallel",
+               "micro_batch", "micro_batches", "pipeline_bubble_fraction", "decided_by", "strategy", "shards"},
     "memory": {"model_state_bytes_per_accelerator", "activation_bytes_per_accelerator", "fits"},
-    "timing": {"step_seconds", "scaling_efficiency", "exposed_communication_fraction",
+    "timing": {"step_seconds", "compute_seconds", "pipeline_bubble_seconds", "collectives", "scaling_efficiency", "exposed_communication_fraction",
                "network_gbps_needed_for_95pct", "failure_overhead_fraction", "checkpoint_interval_hours",
                "wall_clock_days", "accelerator_hours"},
     "energy": {"it_kwh", "facility_kwh", "peak_it_kw", "cooling_kw_thermal", "cooling_tons", "kgco2e"},
@@ -68,7 +69,10 @@ def test_every_option_carries_the_fields_of_the_api_contract(campaign):
         for group, keys in OPTION_KEYS.items():
             assert keys <= set(option[group]), (group, keys - set(option[group]))
         assert option["venue"]["kind"] in {"owned", "rented"}
-        assert option["layout"]["strategy"] in {"replicated", "sharded"}
+        layout = option["layout"]
+        assert layout["strategy"] in {"replicated", "sharded", "tensor-pipeline-data"}
+        assert layout["tensor"] * layout["pipeline"] * layout["data"] == layout["accelerators"]
+        assert layout["decided_by"] in {"memory", "deadline", "node_limit", "cost", "pinned"}
         for line in option["cost"]["lines"]:
             assert set(line) >= {"item", "amount", "basis"} and line["basis"]
 

@@ -141,7 +141,7 @@ EVERY_PATH: dict[str, tuple[str, list[float]]] = {
     "campaign.work.total_flops": ("flops", [5e21, 1e22]),
     "campaign.work.samples": ("measured", [1e9, 3e9]),
     "campaign.work.samples_per_second_per_accelerator": ("measured", [200, 400]),
-    "campaign.work.global_batch_tokens": ("transformer", [2e6, 8e6]),
+    "campaign.work.global_batch_tokens": ("transformer", [2.5e5, 8e6]),  # 61 sequences cap the replicas
     "campaign.runs.count": ("transformer", [1, 3]),
     "campaign.runs.exploration_fraction": ("transformer", [0.0, 0.3]),
     "campaign.runs.evaluation_fraction": ("transformer", [0.0, 0.1]),
