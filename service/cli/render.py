@@ -5,6 +5,8 @@ from typing import Any
 from rich.console import Console
 from rich.table import Table
 
+from service.reports.formatting import layout_words
+
 
 def _money(value: float | None) -> str:
     return "—" if value is None else f"{value:,.0f}"
@@ -43,6 +45,18 @@ def print_quote(console: Console, quote: dict[str, Any]) -> None:
     console.print(options)
     for label, reasons in ruled_out:
         console.print(f"[dim]ruled out[/] {label}: " + "; ".join(reasons), highlight=False)
+    layouts = Table(title="How each feasible option runs", title_justify="left")
+    for header in ("option", "nodes", "layout", "decided by", "step s", "scaling", "link for 95% Gb/s"):
+        layouts.add_column(header, justify="right" if header in ("nodes", "step s", "scaling", "link for 95% Gb/s")
+                           else "left")
+    for option in quote["options"]:
+        if option["feasible"]:
+            timing, layout = option["timing"], option["layout"]
+            layouts.add_row(f"{option['venue']['id']}/{option['term']}", str(layout["nodes"]), layout_words(layout),
+                            layout.get("decided_by", ""), _fixed(timing["step_seconds"], 2),
+                            _pct(timing["scaling_efficiency"]), _fixed(timing["network_gbps_needed_for_95pct"], 0))
+    if layouts.row_count:
+        console.print(layouts)
 
     recommendation = quote["recommendation"]
     if recommendation:

@@ -24,9 +24,22 @@ class Venue(Open):
 
 
 class Layout(Open):
+    """How the campaign is split over its accelerators: tensor × pipeline × data = accelerators
+    (model.md §2-§5). `strategy` and `shards` are kept from the first model version: deprecated."""
+
     nodes: int
     accelerators: int
-    strategy: Literal["replicated", "sharded"]
+    tensor: int
+    pipeline: int
+    data: int
+    zero_stage: Literal[0, 1, 2, 3]
+    sequence_parallel: bool
+    micro_batch: int
+    micro_batches: float | None
+    pipeline_chunks: int
+    pipeline_bubble_fraction: float | None
+    decided_by: Literal["memory", "deadline", "cost", "node_limit", "pinned"]
+    strategy: Literal["replicated", "sharded", "tensor-pipeline-data"]
     shards: int
 
 
@@ -36,8 +49,22 @@ class Memory(Open):
     fits: bool
 
 
+class Collective(Open):
+    """One kind of collective in one optimiser step: its time on its link and what of it is not
+    hidden behind compute."""
+
+    collective: Literal["tensor_parallel", "pipeline", "data_parallel"]
+    link: str
+    seconds_per_step: float | None
+    exposed_seconds_per_step: float | None
+    overlap: str
+
+
 class Timing(Open):
     step_seconds: float | None
+    compute_seconds: float | None
+    pipeline_bubble_seconds: float | None
+    collectives: list[Collective]
     scaling_efficiency: float | None
     exposed_communication_fraction: float | None
     network_gbps_needed_for_95pct: float | None

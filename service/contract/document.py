@@ -11,9 +11,10 @@ from service.contract.request import QuoteRequestIn, TransformerWorkIn
 from service.domain import explain, screens
 from service.domain.assumptions import DEFAULTS
 from service.domain.catalog import Catalog
+from service.domain.choice import decided_by
 from service.domain.comparison import CURVE_UTILISATIONS, breakeven_rows, curves, rank
 from service.domain.evaluate import CampaignEvaluation, OptionResult
-from service.domain.layout import LayoutGrid, decided_by
+from service.domain.layout import LayoutGrid
 from service.domain.owning import cooling_tons
 from service.domain.units import SECONDS_PER_DAY, SECONDS_PER_HOUR
 

@@ -24,20 +24,9 @@ from service.domain.charges import (
     hourly_charges,
     new_build_charges,
 )
+from service.domain.choice import Choice, Eligible, Picker, as_column, choose, eligible
 from service.domain.gravity import Transfer, staging_seconds, transfer
-from service.domain.layout import (
-    Architecture,
-    Choice,
-    Eligible,
-    Hardware,
-    LayoutGrid,
-    Load,
-    Picker,
-    as_column,
-    choose,
-    eligible,
-    evaluate_layouts,
-)
+from service.domain.layout import Architecture, Hardware, LayoutGrid, Load, evaluate_layouts
 from service.domain.owning import (
     NodeMonth,
     SiteEconomics,

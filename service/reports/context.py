@@ -16,11 +16,13 @@ from service.reports.figures import (
     site_panels,
 )
 from service.reports.formatting import (
+    DECIDED_BY_WORDS,
     KIND_LABELS,
     MISSING,
     fixed,
     item_label,
     jurisdiction_label,
+    layout_words,
     money,
     money_precise,
     number,
@@ -93,12 +95,24 @@ def _breakdown(option: Json, currency: str) -> Json:
 
 def _engineering(option: Json) -> Json:
     t, e, layout = option["timing"], option["energy"], option["layout"]
-    strategy = layout["strategy"] + (f", {number(layout['shards'])} shards" if layout["strategy"] == "sharded" else "")
+    collectives = {c["collective"]: c for c in t.get("collectives", [])}
+
+    def seconds(name: str, key: str = "seconds_per_step") -> Cell:
+        value = collectives.get(name, {}).get(key)
+        return cell(value, fixed(value, 3))
+
     return {
         **_option_name(option),
         "nodes": cell(layout["nodes"], number(layout["nodes"])),
         "accelerators": cell(layout["accelerators"], number(layout["accelerators"])),
-        "strategy": strategy,
+        "layout": layout_words(layout),
+        "decided_by": DECIDED_BY_WORDS.get(layout.get("decided_by", ""), layout.get("decided_by", "")),
+        "compute_seconds": cell(t.get("compute_seconds"), fixed(t.get("compute_seconds"), 3)),
+        "bubble_seconds": cell(t.get("pipeline_bubble_seconds"), fixed(t.get("pipeline_bubble_seconds"), 3)),
+        "tensor_seconds": seconds("tensor_parallel"),
+        "pipeline_seconds": seconds("pipeline"),
+        "data_seconds": seconds("data_parallel"),
+        "data_exposed": seconds("data_parallel", "exposed_seconds_per_step"),
         "step_seconds": cell(t["step_seconds"], fixed(t["step_seconds"], 2)),
         "scaling_efficiency": cell(t["scaling_efficiency"], percent(t["scaling_efficiency"])),
         "exposed": cell(t["exposed_communication_fraction"], percent(t["exposed_communication_fraction"])),

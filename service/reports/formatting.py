@@ -121,3 +121,31 @@ def jurisdiction_label(code: str) -> str:
         return " + ".join(jurisdiction_label(part) for part in code.split("+"))
     name = Locale.parse(LOCALE).territories.get(code) if len(code) == 2 and code.isalpha() else None
     return f"{code} ({name})" if name else code
+
+
+DECIDED_BY_WORDS = {
+    "memory": "the fewest nodes that hold the model",
+    "deadline": "the fewest nodes that meet the deadline",
+    "node_limit": "the deadline is missed: the fastest layout within the node limit",
+    "cost": "the cheapest layout that meets the deadline",
+    "pinned": "the accelerator count the request pins",
+}
+
+
+def layout_words(layout: dict[str, object]) -> str:
+    """A layout as an architect says it: '8-way tensor (sequence parallel) × 12 pipeline stages ×
+    4 data-parallel replicas, ZeRO stage 1; 384 micro-batches of 1 a step, bubble 2.9%'."""
+    t, p, d = int(layout["tensor"]), int(layout["pipeline"]), int(layout["data"])  # type: ignore[call-overload]
+    parts = []
+    if t > 1:
+        parts.append(f"{t}-way tensor" + (" (sequence parallel)" if layout.get("sequence_parallel") else ""))
+    if p > 1:
+        chunks = int(layout.get("pipeline_chunks") or 1)  # type: ignore[call-overload]
+        parts.append(f"{p} pipeline stages" + (f" of {chunks} interleaved chunks" if chunks > 1 else ""))
+    parts.append(f"{d} data-parallel replica{'s' if d != 1 else ''}")
+    words = " × ".join(parts) + f", ZeRO stage {layout['zero_stage']}"
+    micro = f"{fixed(layout.get('micro_batches'), 0)} micro-batch{'es' if layout.get('micro_batches') != 1 else ''}"  # type: ignore[arg-type]
+    words += f"; {micro} of {layout['micro_batch']} sequence{'s' if layout['micro_batch'] != 1 else ''} a step"
+    if p > 1:
+        words += f", pipeline bubble {percent(layout.get('pipeline_bubble_fraction'))}"  # type: ignore[arg-type]
+    return words

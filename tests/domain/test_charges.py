@@ -37,7 +37,8 @@ def grid_of(per_node: int) -> LayoutGrid:
     parameters = np.full(3, 1.3e9)
     run = load(parameters=parameters, tokens=TOKENS, runs_multiplier=np.ones(3), global_batch_tokens=np.full(3, 4e6),
                deadline_seconds=np.full(3, np.inf))
-    venue = hardware(accelerators_per_node=per_node, memory_bytes=80e9, sustained_flops_per_accelerator=np.full(3, 5e13),
+    venue = hardware(accelerators_per_node=per_node, memory_bytes=80e9,
+                     sustained_flops_per_accelerator=np.full(3, 5e13),
                      intra_node_gbps=1000.0, network_gbps=np.full(3, 200.0), path_efficiency=0.9,
                      node_mtbf_hours=np.full(3, 5e4), staging_seconds=np.full(3, 3600.0))
     # One node limit per count from 1 to 40: the most each allows is a candidate of its own.

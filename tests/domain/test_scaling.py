@@ -185,7 +185,8 @@ def pure_data_parallel_link_needed(accelerators_per_node: int, nodes: int) -> fl
     """The node link a 7B data-parallel job needs for 95% of its infinite-link speed."""
     run = load(parameters=7e9, tokens=1e12, architecture=architecture(32, 4096.0, 4096.0, 32.0),
                pins=LayoutPins(tensor=1, pipeline=1, zero_stage=1))
-    grid, _ = evaluate_layouts(run, hardware(accelerators_per_node=accelerators_per_node, network_gbps=np.full(1, 400.0)),
+    venue = hardware(accelerators_per_node=accelerators_per_node, network_gbps=np.full(1, 400.0))
+    grid, _ = evaluate_layouts(run, venue,
                                node_limits=[nodes], fixed_accelerators=nodes * accelerators_per_node)
     return float(grid.network_gbps_needed[0, 0])
 
