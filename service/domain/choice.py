@@ -3,12 +3,11 @@ deadline, the cheapest of those per scenario, and the chosen column of every fig
 """
 
 from dataclasses import dataclass, fields
-from typing import Any
 
 import numpy as np
 
 from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats, broadcast
-from service.domain.layout import DEADLINE, MEMORY, PINNED, LayoutGrid
+from service.domain.layout import DEADLINE, MEMORY, PINNED, Candidates, LayoutGrid
 
 
 @dataclass(frozen=True)
@@ -23,17 +22,18 @@ class Eligible:
     fastest: Ints | None  # (R,): the fastest allowed layout; None when every row meets the deadline
 
 
-def eligible(grid: LayoutGrid, *, node_limit: ArrayLike, deadline_seconds: ArrayLike) -> Eligible:
+def eligible(candidates: Candidates, *, node_limit: ArrayLike, deadline_seconds: ArrayLike) -> Eligible:
     limit = as_floats(node_limit).reshape(-1, 1)
     deadline = as_floats(deadline_seconds).reshape(-1, 1)
+    allowed = candidates.each(lambda block: block.fits & (block.nodes <= limit))
+    wall = candidates.each(lambda block: block.wall_seconds)
     # Every input may vary by scenario or not: settle on one shape for all of them.
-    shape = np.broadcast_shapes(grid.wall_seconds.shape, grid.fits.shape, grid.nodes.shape, limit.shape,
-                                deadline.shape)
-    allowed = np.broadcast_to(grid.fits & (grid.nodes <= limit), shape)
-    meets = allowed & (grid.wall_seconds <= deadline)
+    shape = np.broadcast_shapes(allowed.shape, wall.shape, deadline.shape)
+    allowed = np.broadcast_to(allowed, shape)
+    meets = allowed & (wall <= deadline)
     meets_deadline = np.asarray(meets.any(axis=1))
     # The fallback layout is needed only where nothing meets the deadline, which is rare.
-    fastest = None if meets_deadline.all() else np.argmin(np.where(allowed, grid.wall_seconds, np.inf), axis=1)
+    fastest = None if meets_deadline.all() else np.argmin(np.where(allowed, wall, np.inf), axis=1)
     return Eligible(allowed, meets, np.asarray(allowed.any(axis=1)), meets_deadline, fastest)
 
 
@@ -57,28 +57,6 @@ def choose(layouts: Eligible, cost: Floats) -> Choice:
         any_fits=broadcast(layouts.any_fits, scenarios),
         meets_deadline=broadcast(layouts.meets_deadline, scenarios),
     )
-
-
-class Picker:
-    """The chosen column per scenario of arrays that broadcast to (S, K), as (S,) arrays of the
-    same dtype (indexing, not broadcasting, so size-1 axes cost nothing)."""
-
-    def __init__(self, index: Ints) -> None:
-        self.index = index
-        self._every_row = np.arange(index.shape[0])
-        self._first = np.zeros_like(index)
-
-    def __call__(self, values: ArrayLike) -> Any:
-        array = np.asarray(values)
-        if array.ndim < 2:
-            return np.broadcast_to(array, self.index.shape).copy()
-        rows = self._every_row if array.shape[0] > 1 else self._first
-        columns = self.index if array.shape[1] > 1 else self._first
-        return array[rows, columns]
-
-    def grid(self, grid: LayoutGrid) -> LayoutGrid:
-        """Every field of the grid at the chosen column: (S,) arrays."""
-        return LayoutGrid(**{f.name: self(getattr(grid, f.name)) for f in fields(grid)})
 
 
 def as_column(grid: LayoutGrid) -> LayoutGrid:

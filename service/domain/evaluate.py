@@ -24,9 +24,9 @@ from service.domain.charges import (
     hourly_charges,
     new_build_charges,
 )
-from service.domain.choice import Choice, Eligible, Picker, as_column, choose, eligible
+from service.domain.choice import Choice, Eligible, as_column, choose, eligible
 from service.domain.gravity import Transfer, staging_seconds, transfer
-from service.domain.layout import Architecture, Hardware, LayoutGrid, Load, evaluate_layouts
+from service.domain.layout import Architecture, Candidates, Hardware, LayoutGrid, Load, evaluate_layouts
 from service.domain.owning import (
     NodeMonth,
     SiteEconomics,
@@ -232,7 +232,7 @@ class _Physics:
 
     load: Load
     hardware: Hardware
-    grid: LayoutGrid
+    grid: Candidates
     min_nodes: Floats  # the fewest nodes any layout needs to hold the model; inf when none can
     pinned_nodes: float | None  # options.fixed_accelerators as whole nodes
     _candidates: dict[int, tuple[NodeLimit, Eligible]] = field(default_factory=dict)
@@ -267,7 +267,7 @@ def _physics(venue: _Venue, context: _Context, *, limits: list[Floats],
     )
     grid, min_nodes = evaluate_layouts(load, hardware, node_limits=limits,
                                        fixed_accelerators=options.fixed_accelerators)
-    pinned = None if options.fixed_accelerators is None else float(grid.nodes[0, 0])
+    pinned = None if options.fixed_accelerators is None else float(grid.blocks[0].nodes[0, 0])
     return _Physics(load, hardware, grid, min_nodes, pinned)
 
 
@@ -276,8 +276,8 @@ def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, phys
     node = venue.node_type
     grid = physics.grid
     layouts = physics.candidates(limit)
-    choice = choose(layouts, charges.cost(grid))
-    chosen = Picker(choice.index).grid(grid)
+    choice = choose(layouts, grid.each(charges.cost))
+    chosen = grid.pick(choice.index)
     lines_at, details_at = charges.itemise(as_column(chosen))
     # A line that does not depend on the layout may vary by scenario when nothing else does.
     shape = (max(choice.index.size, *(np.size(v) for v in (*lines_at.values(), *details_at.values()))),)
@@ -292,7 +292,7 @@ def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, phys
     mask = _screen(venue, physics.hardware, limit, min_nodes, needed, choice.any_fits, choice.meets_deadline,
                    shape=shape)
     if pinned is not None:
-        holds = _per_scenario(grid.fits.any(axis=1), shape)  # the pinned count is the only one evaluated
+        holds = _per_scenario(grid.each(lambda block: block.fits).any(axis=1), shape)  # only the pin is evaluated
         mask |= np.where(~holds & np.isfinite(min_nodes), screens.PINNED_TOO_FEW, 0)
         # A pinned count that cannot hold the model is that problem, not a capacity one.
         mask &= np.where(~holds, ~(screens.CAPACITY | screens.POWER | screens.COOLING), -1)

@@ -1,163 +1,103 @@
-"""Layout search: a bounded set of (tensor, pipeline, data) layouts per venue, evaluated as one array
-(model.md §2, §3, §5).
+"""Layout search: a bounded set of (tensor, pipeline, data) layouts per venue (model.md §5).
 
-Scenarios run along axis 0 and candidate layouts along axis 1, so for S scenarios and K candidates
-every quantity is an (S, K) array (a figure that does not vary by scenario is (1, K)); `choose` then
-keeps one column per scenario. The candidates are, for each shape (t, p) of `parallelism.shapes`,
-the fewest nodes that hold the model, the most each node limit allows, and the fewest that meet the
-deadline (found by false position on wall = α/k + β): a handful per shape whatever the venue's size.
+The candidates are, for each shape (t, p) of `parallelism.shapes`, the fewest nodes that hold the
+model, the most each node limit allows, and the fewest that meet the deadline (solved on a table of
+node counts, or by false position where the step varies by scenario): a handful per shape whatever
+the venue's size. `step.py` evaluates each candidate; `choice.py` picks among them.
 """
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, fields
-from functools import cached_property
 from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats
-from service.domain.assumptions import default
-from service.domain.campaign import (
-    LayoutPins,
-    Parallelism,
-    Recompute,
-)
-from service.domain.memory import (
-    activation_bytes_per_layer,
-    micro_batches_in_flight,
-    minimum_data_parallel,
-    parameters_per_model_rank,
-    usable_bytes,
-    zero_model_state_bytes,
-)
+from service.domain.arrays import ArrayLike, Floats, Ints, as_floats
+from service.domain.memory import minimum_data_parallel
 from service.domain.parallelism import Shapes, shapes
-from service.domain.reliability import (
-    checkpoint_write_seconds,
-    daly_interval,
-    expected_wall_fraction,
-    job_mtbi_seconds,
+from service.domain.step import (
+    Architecture,
+    Columns,
+    Hardware,
+    LayoutGrid,
+    Load,
+    activations,
+    batch_sequences,
+    evaluate_columns,
+    rank_parameters,
+    scenario_terms,
+    step_figures,
+    with_wall,
 )
-from service.domain.scaling import (
-    exposed,
-    hierarchical_allreduce,
-    network_gbps_for_efficiency,
-    node_link_bytes_per_second,
-    pipeline_traffic,
-    tensor_parallel_traffic,
-)
-from service.domain.units import SECONDS_PER_HOUR, gbps_to_bytes_per_second
+
+__all__ = ["DEADLINE", "MEMORY", "NODE_LIMIT", "PINNED", "Architecture", "Candidates", "Hardware", "LayoutGrid",
+           "Load", "evaluate_layouts"]
 
 # Why a candidate is in the set (`LayoutGrid.origin`): what decided the layout when it is chosen.
 MEMORY, NODE_LIMIT, DEADLINE, PINNED = 0, 1, 2, 3
 DEADLINE_ITERATIONS = 4  # false-position steps towards the fewest nodes that meet the deadline
+TABLE_RUNGS = 16  # node counts per shape in the table the deadline is solved on
+TABLE_KEY = 2.0**40  # (shape, count) keys: shape × TABLE_KEY + count, counts below it
 
 
 @dataclass(frozen=True)
-class Architecture:
-    """The transformer's shape, when the request gives it."""
+class Candidates:
+    """A venue's candidate layouts in blocks of columns, each a LayoutGrid of arrays that broadcast
+    to (R, K_b): the blocks that do not vary by scenario stay one row instead of being copied into
+    one (S, K) grid. Column j of the whole is column j − offset of its block."""
 
-    layers: int
-    d_model: float
-    sequence_length: float
-    attention_heads: float
-
-
-@dataclass(frozen=True)
-class Load:
-    """What the campaign asks of any venue; arrays of one element per scenario."""
-
-    timed_flops_per_run: Floats
-    timed_flops_per_token: Floats | None
-    runs_multiplier: Floats
-    parameters: Floats | None
-    tokens_per_run: Floats | None
-    global_batch_tokens: Floats
-    architecture: Architecture | None
-    micro_batch: float
-    checkpoint_bytes: Floats | None
-    recompute: Recompute
-    parallelism: Parallelism
-    pins: LayoutPins
-    deadline_seconds: Floats  # inf when there is no deadline
-    restart_seconds: float
+    blocks: tuple[LayoutGrid, ...]
 
     @property
-    def zero_stages(self) -> tuple[int, ...]:
-        """ZeRO stages the shorthand allows: replicated keeps every state on each replica,
-        sharded shards them all (stage 3), auto tries each."""
-        return {"replicated": (0,), "sharded": (3,)}.get(self.parallelism, (0, 1, 2, 3))
+    def widths(self) -> list[int]:
+        return [int(block.nodes.shape[1]) for block in self.blocks]
+
+    def each(self, figure: Callable[[LayoutGrid], ArrayLike]) -> Any:
+        """`figure` of every block, side by side along axis 1 (rows broadcast where needed)."""
+        parts = [np.asarray(figure(block)) for block in self.blocks]
+        parts = [part.reshape(-1, 1) if part.ndim < 2 else part for part in parts]
+        widths = self.widths
+        if len(parts) == 1:
+            return parts[0]
+        rows = max(part.shape[0] for part in parts)
+        return np.concatenate([np.broadcast_to(part, (rows, width))
+                               for part, width in zip(parts, widths, strict=True)], axis=1)
+
+    def whole(self) -> LayoutGrid:
+        """Every field as one (R, K) array: for tests and inspection, not the hot path."""
+        return LayoutGrid(**{f.name: self.each(_field(f.name)) for f in fields(LayoutGrid)})
+
+    def pick(self, index: Ints) -> LayoutGrid:
+        """Every figure at the column `index` chosen per scenario: (S,) arrays of each field's dtype."""
+        ends = np.cumsum(self.widths)
+        block_of = np.searchsorted(ends, index, side="right")
+        rows = np.arange(index.shape[0])
+        picked = {}
+        for f in fields(LayoutGrid):
+            out: Any = None
+            for b, block in enumerate(self.blocks):
+                chosen = block_of == b
+                if not chosen.any():
+                    continue
+                values = np.asarray(getattr(block, f.name))
+                start = ends[b] - block.nodes.shape[1]
+                taken = values[rows[chosen] if values.shape[0] > 1 else 0,
+                               index[chosen] - start if values.shape[1] > 1 else 0]
+                if out is None:
+                    out = np.empty(index.shape, dtype=values.dtype)
+                out[chosen] = taken
+            picked[f.name] = out
+        return LayoutGrid(**picked)
 
 
-@dataclass(frozen=True)
-class Hardware:
-    """What a venue offers the campaign; arrays broadcast over scenarios."""
-
-    accelerators_per_node: int
-    memory_bytes: float
-    sustained_flops_per_accelerator: Floats
-    intra_node_gbps: float
-    network_gbps: Floats
-    path_efficiency: float
-    checkpoint_write_gbps: float
-    storage_write_gbps: float
-    node_mtbf_hours: Floats  # inf when failures are not modelled
-    interruption_mean_hours: float  # inf unless interruptible
-    staging_seconds: Floats  # time to bring the data in before training starts
-
-
-@dataclass(frozen=True)
-class LayoutGrid:
-    """Every figure of every candidate layout: arrays that broadcast to (S, K)."""
-
-    nodes: Floats
-    accelerators: Floats
-    tensor: Floats
-    pipeline: Floats
-    data: Floats
-    zero_stage: Ints
-    micro_batch: Floats
-    micro_batches: Floats
-    sequence_parallel: Bools
-    pipeline_chunks: Floats
-    origin: Ints
-    state_bytes: Floats
-    activation_bytes: Floats
-    fits: Bools
-    compute_seconds: Floats  # the ideal step: FLOPs over sustained speed, no bubble, no communication
-    bubble_seconds: Floats
-    tensor_seconds: Floats
-    pipeline_seconds: Floats
-    data_seconds: Floats
-    data_exposed_seconds: Floats
-    step_seconds: Floats
-    scaling_efficiency: Floats
-    exposed_fraction: Floats
-    network_gbps_needed: Floats
-    failure_overhead: Floats
-    checkpoint_seconds: Floats
-    checkpoint_interval_seconds: Floats
-    wall_seconds: Floats
-    accelerator_hours: Floats
-
-    @cached_property
-    def wall_hours(self) -> Floats:
-        """Wall clock in hours, computed once: every term's cost lines use it."""
-        return np.asarray(self.wall_seconds / SECONDS_PER_HOUR)
-
-
-@dataclass(frozen=True)
-class Columns:
-    """Candidate layouts before evaluation: arrays that broadcast to (S, K)."""
-
-    tensor: Floats
-    pipeline: Floats
-    nodes: Floats
-    accelerators: Floats
-    origin: Ints
+def _field(name: str) -> Callable[[LayoutGrid], ArrayLike]:
+    def figure(block: LayoutGrid) -> ArrayLike:
+        return np.asarray(getattr(block, name))
+    return figure
 
 
 def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[ArrayLike],
-                     fixed_accelerators: int | None = None) -> tuple[LayoutGrid, Floats]:
+                     fixed_accelerators: int | None = None) -> tuple[Candidates, Floats]:
     """Every candidate layout of the venue, and the fewest nodes any layout needs to hold the
     model (inf when none can): the memory minimum the screens report."""
     per_node = hardware.accelerators_per_node
@@ -172,28 +112,35 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
         nodes = np.full_like(tensor, np.ceil(count / per_node))
         pinned = Columns(tensor, found.pipeline[np.newaxis, :], nodes, np.full_like(tensor, count),
                          np.full(tensor.shape, PINNED))
-        return _physics(load, hardware, pinned, found), fewest
+        return Candidates((evaluate_columns(load, hardware, pinned, found),)), fewest
     tensor, pipeline = found.tensor[np.newaxis, :], found.pipeline[np.newaxis, :]
     k_min = np.where(np.isfinite(k_min), k_min, 1.0)  # evaluated all the same; it will not fit
     k_batch = _batch_units(load, hardware, found, unit)
     tops = [np.maximum(np.minimum(np.floor(as_floats(limit).reshape(-1, 1) / unit + 1e-9), k_batch), 1.0)
             for limit in node_limits]
-    k_top = np.maximum.reduce(np.broadcast_arrays(*tops))
-    k_top = np.where(np.isfinite(k_top), k_top, k_min)
+    k_top = np.maximum(np.maximum.reduce(np.broadcast_arrays(*tops)), k_min)
 
     def columns(k: Floats, origin: int) -> Columns:
         nodes = k * unit
         return Columns(tensor, pipeline, nodes, nodes * per_node, np.full(np.shape(nodes), origin))
 
-    grids = [_physics(load, hardware, columns(k_min, MEMORY), found)]
-    grids += [_physics(load, hardware, columns(top, NODE_LIMIT), found) for top in tops]
+    # The memory minimum and the most each limit allows, per shape, as one block.
+    counts = np.concatenate(np.broadcast_arrays(k_min, *tops), axis=1)
+    copies = len(tops) + 1
+    nodes = counts * np.tile(unit, copies)
+    origins = np.repeat(np.array([MEMORY] + [NODE_LIMIT] * len(tops)), found.count)[np.newaxis, :]
+    blocks = [evaluate_columns(load, hardware, Columns(np.tile(tensor, copies), np.tile(pipeline, copies), nodes,
+                                               nodes * per_node, origins), found)]
     deadline = as_floats(load.deadline_seconds).reshape(-1, 1)
     if np.isfinite(deadline).any():
-        top_grid = grids[1] if len(tops) == 1 else _physics(load, hardware, columns(k_top, NODE_LIMIT), found)
-        k_met = _fewest_meeting(load, hardware, found, columns, deadline,
-                                low=(k_min, grids[0].wall_seconds), high=(k_top, top_grid.wall_seconds))
-        grids.append(_physics(load, hardware, columns(k_met, DEADLINE), found))
-    return concatenate(grids), fewest
+        if max(np.shape(v)[0] for v in (blocks[0].effective_step_seconds, k_min, k_top)) == 1:
+            # The step and the counts do not vary by scenario: solve every scenario on one table.
+            blocks.append(_deadline_block(load, hardware, found, k_min, k_top, deadline))
+        else:
+            k_met = _fewest_meeting(load, hardware, found, columns, deadline,
+                                    low=(k_min, blocks[0].wall_seconds[:, :found.count]), high=k_top)
+            blocks.append(evaluate_columns(load, hardware, columns(k_met, DEADLINE), found))
+    return Candidates(tuple(blocks)), fewest
 
 
 def _shapes(load: Load, accelerators_per_node: int, *, fixed_accelerators: int | None) -> Shapes:
@@ -203,27 +150,79 @@ def _shapes(load: Load, accelerators_per_node: int, *, fixed_accelerators: int |
                   zero_stages=load.zero_stages, fixed_accelerators=fixed_accelerators)
 
 
-def _fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Any, deadline: Floats, *,
-                    low: tuple[Floats, Floats], high: tuple[Floats, Floats]) -> Floats:
-    """Per shape, the fewest node units that meet the deadline, by false position on
-    wall(k) = α/k + β between a bracket that misses it and one that meets it; the count that
-    meets it where the smallest already does, the largest where none does."""
+def _interpolated(k_lo: Floats, g_lo: Floats, k_hi: Floats, g_hi: Floats, target: Floats) -> Floats:
+    """The count k at which g(k) = α/k + β through (k_lo, g_lo) and (k_hi, g_hi) reaches the target,
+    rounded up and kept inside (k_lo, k_hi]; k_hi where the line does not reach it."""
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        alpha = (g_lo - g_hi) / (1.0 / k_lo - 1.0 / k_hi)
+        beta = g_hi - alpha / k_hi
+        guess = np.ceil(alpha / (target - beta) - 1e-9)
+    return np.asarray(np.clip(np.where(np.isfinite(guess) & (guess > 0), guess, k_hi), k_lo + 1.0, k_hi))
+
+
+def _shape_columns(found: Shapes, shape: Ints, units: Floats, accelerators_per_node: int) -> Columns:
+    """One row of deadline candidates: shape `shape[j]` at `units[j]` node units."""
+    nodes = (units * found.node_unit(accelerators_per_node)[shape])[np.newaxis, :]
+    return Columns(found.tensor[shape][np.newaxis, :], found.pipeline[shape][np.newaxis, :], nodes,
+                   nodes * accelerators_per_node, np.full(nodes.shape, DEADLINE))
+
+
+def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats, k_top: Floats,
+                    deadline: Floats) -> LayoutGrid:
+    """Per scenario and shape, the fewest node units that meet the deadline, when the step does not
+    vary by scenario: the effective step g(k) on TABLE_RUNGS geometric counts from the memory
+    minimum to the node limit (one row for all scenarios); each scenario's allowance
+    (deadline − staging) / steps located in it and interpolated as α/k + β; then the counts just
+    below, at and above that evaluated exactly, each distinct (shape, count) once."""
+    steps, staging = scenario_terms(load, hardware)
+    allowance = np.asarray((deadline - staging) / steps)  # (S, 1): the effective step each scenario affords
+    h = found.count
+    fraction = np.linspace(0.0, 1.0, TABLE_RUNGS)
+    rungs = np.ceil(k_min[0][:, np.newaxis] * (k_top[0] / k_min[0])[:, np.newaxis] ** fraction - 1e-9)  # (H, G)
+    table = step_figures(load, hardware, _shape_columns(found, np.repeat(np.arange(h), TABLE_RUNGS),
+                                                        rungs.reshape(-1), hardware.accelerators_per_node), found)
+    g = np.where(table["fits"], table["effective_step_seconds"], np.inf).reshape(h, TABLE_RUNGS)
+    meets = g[np.newaxis, :, :] <= allowance[:, :, np.newaxis]  # (S, H, G)
+    first = np.argmax(meets, axis=2)
+    reached = meets.any(axis=2)
+    shape_index = np.broadcast_to(np.arange(h), first.shape)
+    below = np.maximum(first - 1, 0)
+    k_lo, k_hi = rungs[shape_index, below], rungs[shape_index, first]
+    guess = _interpolated(k_lo, g[shape_index, below], k_hi, g[shape_index, first],
+                          np.broadcast_to(allowance, first.shape))
+    guess = np.where(first == 0, k_lo, guess)
+    guess = np.where(reached, guess, rungs[shape_index, -1])
+    # The exact counts around the guess, each distinct (shape, count) evaluated once.
+    near = np.clip(np.stack([guess - 1.0, guess, guess + 1.0], axis=-1),
+                   k_min[0][shape_index][..., np.newaxis], k_top[0][shape_index][..., np.newaxis])
+    unique, inverse = np.unique(shape_index[..., np.newaxis] * TABLE_KEY + near, return_inverse=True)
+    exact_shape = (unique // TABLE_KEY).astype(np.int64)
+    exact = step_figures(load, hardware, _shape_columns(found, exact_shape, unique - exact_shape * TABLE_KEY,
+                                                        hardware.accelerators_per_node), found)
+    inverse = inverse.reshape(near.shape)
+    ok = (exact["effective_step_seconds"][0][inverse] <= allowance[:, :, np.newaxis]) & exact["fits"][0][inverse]
+    pick = np.where(ok.any(axis=-1), np.argmax(ok, axis=-1), 2)
+    column = np.take_along_axis(inverse, pick[..., np.newaxis], axis=-1)[..., 0]  # (S, H)
+    return with_wall(load, hardware, {name: np.asarray(value)[0][column] for name, value in exact.items()})
+
+
+def _fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Callable[[Floats, int], Columns],
+                    deadline: Floats, *, low: tuple[Floats, Floats], high: Floats) -> Floats:
+    """Per scenario and shape, the fewest node units that meet the deadline when the step varies by
+    scenario: false position on wall(k) = α/k + β between a count that misses it and one that
+    meets it; the smallest count where it already meets it, the largest where none does."""
+    w_top = evaluate_columns(load, hardware, columns(high, DEADLINE), found).wall_seconds
     k_lo, w_lo = (np.asarray(v, dtype=np.float64) for v in np.broadcast_arrays(*low))
-    k_hi, w_hi = (np.asarray(v, dtype=np.float64) for v in np.broadcast_arrays(*high))
-    shape = np.broadcast_shapes(k_lo.shape, k_hi.shape, deadline.shape)
-    k_lo, w_lo, k_hi, w_hi = (np.broadcast_to(v, shape).copy() for v in (k_lo, w_lo, k_hi, w_hi))
+    shape = np.broadcast_shapes(k_lo.shape, np.shape(high), np.shape(w_top), deadline.shape)
+    k_lo, w_lo, k_hi, w_hi = (np.broadcast_to(v, shape).copy() for v in (k_lo, w_lo, high, w_top))
     met_at_low = w_lo <= deadline
+    target = np.broadcast_to(deadline, shape)
     for _ in range(DEADLINE_ITERATIONS):
         open_bracket = (k_hi - k_lo > 1.0) & (w_lo > deadline) & (w_hi <= deadline)
         if not open_bracket.any():
             break
-        with np.errstate(divide="ignore", invalid="ignore"):
-            alpha = (w_lo - w_hi) / (1.0 / k_lo - 1.0 / k_hi)
-            beta = w_hi - alpha / k_hi
-            guess = np.ceil(alpha / (deadline - beta) - 1e-9)
-        guess = np.clip(np.where(np.isnan(guess), k_hi - 1.0, guess), k_lo + 1.0, k_hi - 1.0)
-        guess = np.where(open_bracket, guess, k_hi)
-        wall = np.broadcast_to(_physics(load, hardware, columns(guess, DEADLINE), found).wall_seconds, shape)
+        guess = np.where(open_bracket, np.minimum(_interpolated(k_lo, w_lo, k_hi, w_hi, target), k_hi - 1.0), k_hi)
+        wall = np.broadcast_to(evaluate_columns(load, hardware, columns(guess, DEADLINE), found).wall_seconds, shape)
         meets = wall <= deadline
         k_hi, w_hi = np.where(open_bracket & meets, guess, k_hi), np.where(open_bracket & meets, wall, w_hi)
         k_lo, w_lo = np.where(open_bracket & ~meets, guess, k_lo), np.where(open_bracket & ~meets, wall, w_lo)
@@ -236,8 +235,8 @@ def _minimum_units(load: Load, hardware: Hardware, found: Shapes, unit: Floats) 
     across micro-batches needs whole gradients); inf when no count does. Activations are taken
     at p micro-batches in flight, an upper bound."""
     tensor, pipeline = found.tensor[np.newaxis, :], found.pipeline[np.newaxis, :]
-    psi = _rank_parameters(load, tensor, pipeline)
-    activation = _activations(load, hardware, tensor, pipeline, in_flight=pipeline)
+    psi = rank_parameters(load, tensor, pipeline)
+    activation = activations(load, hardware, tensor, pipeline, in_flight=pipeline)
     best = np.full(np.broadcast_shapes(psi.shape, np.shape(activation)), np.inf)
     for stage in found.zero_stages:
         needed = minimum_data_parallel(parameters_per_rank=psi, activation_bytes=activation,
@@ -250,163 +249,8 @@ def _minimum_units(load: Load, hardware: Hardware, found: Shapes, unit: Floats) 
 
 def _batch_units(load: Load, hardware: Hardware, found: Shapes, unit: Floats) -> Floats:
     """The most node units whose replicas each still get a whole micro-batch: d·b ≤ batch."""
-    sequences = _batch_sequences(load)
+    sequences = batch_sequences(load)
     if sequences is None:
         return np.asarray(np.inf)
     per_unit = unit * hardware.accelerators_per_node / (found.tensor * found.pipeline)[np.newaxis, :]
     return np.asarray(np.maximum(1.0, np.floor(sequences / (load.micro_batch * per_unit) + 1e-9)))
-
-
-def _batch_sequences(load: Load) -> Floats | None:
-    if load.architecture is None:
-        return None
-    return np.asarray(as_floats(load.global_batch_tokens).reshape(-1, 1) / load.architecture.sequence_length)
-
-
-def _rank_parameters(load: Load, tensor: Floats, pipeline: Floats) -> Floats:
-    parameters = 0.0 if load.parameters is None else as_floats(load.parameters).reshape(-1, 1)
-    return parameters_per_model_rank(parameters=parameters, tensor=tensor, pipeline=pipeline)
-
-
-def _sequence_parallel(load: Load, tensor: Floats) -> Bools:
-    """Sequence parallelism alongside tensor parallelism unless the request turns it off: it
-    only saves memory (Korthikanti et al. 2022, §4.2.2: same communication volume)."""
-    wanted = True if load.pins.sequence_parallel is None else load.pins.sequence_parallel
-    return np.asarray((tensor > 1.0) & wanted)
-
-
-def _activations(load: Load, hardware: Hardware, tensor: Floats, pipeline: Floats, *, in_flight: ArrayLike) -> Floats:
-    """Activation bytes per accelerator: the stage's L/p layers for each micro-batch in flight;
-    without an architecture, a reserved share of memory."""
-    arch = load.architecture
-    if arch is None:
-        return np.asarray(default("activation_reserve_fraction") * hardware.memory_bytes)
-    per_layer = activation_bytes_per_layer(
-        sequence_length=arch.sequence_length, micro_batch=load.micro_batch, d_model=arch.d_model,
-        attention_heads=arch.attention_heads, recompute=load.recompute, tensor=tensor,
-        sequence_parallel=_sequence_parallel(load, tensor))
-    return np.asarray(per_layer * (arch.layers / pipeline) * as_floats(in_flight))
-
-
-def _physics(load: Load, hardware: Hardware, c: Columns, found: Shapes) -> LayoutGrid:
-    """Memory, step time, failures and wall clock of each candidate column."""
-    per_node = hardware.accelerators_per_node
-    t, p, nodes, accelerators = c.tensor, c.pipeline, c.nodes, c.accelerators
-    data = accelerators / (t * p)
-    b = load.micro_batch
-    sequences = _batch_sequences(load)
-    micro_batches = np.asarray(1.0) if sequences is None else np.asarray(sequences / (b * data))
-    chunks = float(load.pins.pipeline_chunks or 1)
-
-    # Memory: the lowest allowed ZeRO stage that holds the states beside the activations.
-    psi = _rank_parameters(load, t, p)
-    activation = _activations(load, hardware, t, p,
-                              in_flight=micro_batches_in_flight(pipeline=p, micro_batches=micro_batches))
-    room = usable_bytes(hardware.memory_bytes) - activation
-    stage = np.full(np.broadcast_shapes(psi.shape, data.shape, room.shape), found.zero_stages[-1], dtype=np.int64)
-    chosen = np.zeros(stage.shape, dtype=bool)
-    for z in found.zero_stages:
-        holds = (zero_model_state_bytes(parameters=psi, data_parallel=data, stage=z) <= room) & ((p == 1.0) | (z <= 1))
-        stage = np.where(~chosen & holds, z, stage)
-        chosen |= holds
-    state = zero_model_state_bytes(parameters=psi, data_parallel=data, stage=stage)
-    fits = chosen & (micro_batches >= 1.0 - 1e-9) & (data >= 1.0 - 1e-9)
-
-    # Compute, bubble and each collective (model.md §3).
-    flops_per_step, steps_per_run = _step_work(load)
-    compute = flops_per_step / (accelerators * as_floats(hardware.sustained_flops_per_accelerator).reshape(-1, 1))
-    bubble = compute * (p - 1.0) / (chunks * micro_batches)
-    in_node = np.minimum(float(per_node), accelerators)
-    inside = gbps_to_bytes_per_second(hardware.intra_node_gbps)
-    link = node_link_bytes_per_second(network_gbps=as_floats(hardware.network_gbps).reshape(-1, 1),
-                                      path_efficiency=hardware.path_efficiency)
-    alpha_in, alpha_out = default("latency_intra_node_us") * 1e-6, default("latency_inter_node_us") * 1e-6
-    message = 0.0 if load.architecture is None else (
-        2.0 * b * load.architecture.sequence_length * load.architecture.d_model)
-    layers = 1.0 if load.architecture is None else load.architecture.layers
-    tp = tensor_parallel_traffic(message_bytes=message, tensor=t, layers=layers / p, micro_batches=micro_batches,
-                                 recompute=load.recompute)
-    tensor_seconds = tp.intra_bytes / inside + tp.intra_steps * alpha_in
-    across = np.where(nodes > 1.0, np.minimum(1.0, t * data / per_node), 0.0)
-    pp = pipeline_traffic(message_bytes=message, tensor=t, stages=p, micro_batches=micro_batches, chunks=chunks,
-                          ranks_per_node=in_node, crossing_fraction=across)
-    pipeline_fixed = pp.intra_bytes / inside + pp.intra_steps * alpha_in + pp.inter_steps * alpha_out
-    pipeline_seconds = pipeline_fixed + pp.inter_bytes / link
-    members = np.minimum(data, np.maximum(in_node / t, 1.0))  # a data group's ranks in one node
-    dp = hierarchical_allreduce(
-        payload_bytes=default("gradient_bytes_per_parameter") * psi, ranks_per_node=members,
-        nodes=np.maximum(data / members, 1.0), groups_per_node=in_node / members,
-        volumes=np.where(stage == 3, 3.0 * micro_batches, 2.0), pieces=np.where(stage == 3, layers / p, 1.0))
-    data_fixed = dp.intra_bytes / inside + dp.intra_steps * alpha_in + dp.inter_steps * alpha_out
-    data_seconds = data_fixed + dp.inter_bytes / link
-    # Overlap per collective: tensor-parallel and pipeline sends sit on the critical path; the
-    # gradient reduction of stages 0-2 hides behind the last micro-batch's backward pass (2/3 of
-    # its compute); ZeRO-3's gathers are prefetched behind every micro-batch.
-    overlap = default("communication_overlap")
-    hidden = overlap * np.where(stage == 3, compute, (2.0 / 3.0) * compute / micro_batches)
-    data_exposed = exposed(data_seconds, hidden)
-    step = compute + bubble + tensor_seconds + pipeline_seconds + data_exposed
-    without_link = compute + bubble + tensor_seconds + pipeline_fixed + exposed(data_fixed, hidden)
-    needed = network_gbps_for_efficiency(
-        target_efficiency=default("target_scaling_efficiency"), step_without_link_seconds=without_link,
-        exposed_only_bytes=pp.inter_bytes, overlapped_bytes=dp.inter_bytes, overlapped_other_seconds=data_fixed,
-        hidden_behind_seconds=hidden, path_efficiency=hardware.path_efficiency)
-
-    # Failures and checkpoints (model.md §4), then the wall clock (§5).
-    mtbi = job_mtbi_seconds(nodes=nodes, node_mtbf_hours=as_floats(hardware.node_mtbf_hours).reshape(-1, 1),
-                            interruption_mean_hours=hardware.interruption_mean_hours)
-    checkpoint_bytes = (default("bytes_per_parameter_model_states") * _rank_parameters(load, np.ones(1), np.ones(1))
-                        if load.checkpoint_bytes is None else as_floats(load.checkpoint_bytes).reshape(-1, 1))
-    delta = checkpoint_write_seconds(checkpoint_bytes=checkpoint_bytes, nodes=nodes,
-                                     write_gbps_per_node=hardware.checkpoint_write_gbps,
-                                     storage_write_gbps=hardware.storage_write_gbps)
-    interval = daly_interval(checkpoint_seconds=delta, mtbi_seconds=mtbi)
-    wall_fraction = expected_wall_fraction(interval_seconds=interval, checkpoint_seconds=delta,
-                                           restart_seconds=load.restart_seconds, mtbi_seconds=mtbi)
-    scenario = (steps_per_run * as_floats(load.runs_multiplier).reshape(-1, 1))
-    wall = scenario * (step * wall_fraction) + as_floats(hardware.staging_seconds).reshape(-1, 1)
-    values: dict[str, Any] = dict(
-        nodes=nodes, accelerators=accelerators, tensor=t, pipeline=p, data=data, zero_stage=stage,
-        micro_batch=np.asarray(float(b)), micro_batches=micro_batches,
-        sequence_parallel=_sequence_parallel(load, t), pipeline_chunks=np.asarray(chunks), origin=c.origin,
-        state_bytes=state, activation_bytes=activation, fits=fits, compute_seconds=compute,
-        bubble_seconds=bubble, tensor_seconds=tensor_seconds, pipeline_seconds=pipeline_seconds,
-        data_seconds=data_seconds, data_exposed_seconds=data_exposed, step_seconds=step,
-        scaling_efficiency=compute / step, exposed_fraction=(step - compute - bubble) / step,
-        network_gbps_needed=np.where(nodes > 1.0, needed, np.nan), failure_overhead=wall_fraction - 1.0,
-        checkpoint_seconds=delta, checkpoint_interval_seconds=np.where(np.isfinite(interval), interval, np.nan),
-        wall_seconds=wall, accelerator_hours=wall * (accelerators / SECONDS_PER_HOUR),
-    )
-    columns = np.shape(nodes)[1]
-    return LayoutGrid(**{name: _two_d(value, columns) for name, value in values.items()})
-
-
-def _two_d(value: Any, columns: int) -> Any:
-    """A figure as an (R, K) array, R = 1 when it does not vary by scenario: a scalar is one value
-    for all, a 1-D array one value per scenario."""
-    array = np.asarray(value)
-    if array.ndim < 2:
-        array = array.reshape(-1, 1)
-    return array if array.shape[1] == columns else np.broadcast_to(array, (array.shape[0], columns))
-
-
-def _step_work(load: Load) -> tuple[Floats, Floats]:
-    """(timed FLOPs per optimiser step, steps per run): a step trains one global batch, and a run of
-    fewer tokens counts as that fraction of a step; without tokens, one step."""
-    if load.tokens_per_run is None or load.timed_flops_per_token is None:
-        return as_floats(load.timed_flops_per_run).reshape(-1, 1), np.ones((1, 1))
-    batch = as_floats(load.global_batch_tokens).reshape(-1, 1)
-    return (as_floats(load.timed_flops_per_token).reshape(-1, 1) * batch,
-            as_floats(load.tokens_per_run).reshape(-1, 1) / batch)
-
-
-def concatenate(grids: Sequence[LayoutGrid]) -> LayoutGrid:
-    """Grids side by side: their candidates along axis 1, scenario rows broadcast."""
-    if len(grids) == 1:
-        return grids[0]
-    out = {}
-    for f in fields(LayoutGrid):
-        parts = [np.asarray(getattr(g, f.name)) for g in grids]
-        rows = max(part.shape[0] for part in parts)
-        out[f.name] = np.concatenate([np.broadcast_to(part, (rows, part.shape[1])) for part in parts], axis=1)
-    return LayoutGrid(**out)

@@ -6,7 +6,7 @@ from typing import Any
 import numpy as np
 
 from service.domain.campaign import LayoutPins
-from service.domain.layout import Architecture, Hardware, Load
+from service.domain.layout import Architecture, Hardware, LayoutGrid, Load, evaluate_layouts
 
 
 def load(**changes: Any) -> Load:
@@ -38,3 +38,9 @@ def hardware(**changes: Any) -> Hardware:
 
 def architecture(layers: int, d_model: float, sequence_length: float, heads: float) -> Architecture:
     return Architecture(layers, d_model, sequence_length, heads)
+
+
+def whole(load: Load, hardware: Hardware, **options: Any) -> tuple[LayoutGrid, Any]:
+    """evaluate_layouts with its candidates as one (R, K) grid."""
+    candidates, fewest = evaluate_layouts(load, hardware, **options)
+    return candidates.whole(), fewest

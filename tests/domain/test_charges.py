@@ -23,10 +23,10 @@ from service.domain.charges import (
     new_build_charges,
 )
 from service.domain.gravity import transfer
-from service.domain.layout import LayoutGrid, evaluate_layouts
+from service.domain.layout import LayoutGrid
 from service.domain.owning import busy_energy_per_accelerator_hour, node_month
 from service.domain.venues import site_economics
-from tests.domain.builders import hardware, load
+from tests.domain.builders import hardware, load, whole
 from tests.domain.test_costs import CATALOG, DATA
 
 TOKENS = np.array([2e9, 3e10, 4e11])  # three scenarios, so every (S, K) path is exercised
@@ -42,7 +42,7 @@ def grid_of(per_node: int) -> LayoutGrid:
                      intra_node_gbps=1000.0, network_gbps=np.full(3, 200.0), path_efficiency=0.9,
                      node_mtbf_hours=np.full(3, 5e4), staging_seconds=np.full(3, 3600.0))
     # One node limit per count from 1 to 40: the most each allows is a candidate of its own.
-    grid, _ = evaluate_layouts(run, venue, node_limits=[float(n) for n in range(1, 41)])
+    grid, _ = whole(run, venue, node_limits=[float(n) for n in range(1, 41)])
     return grid
 
 

@@ -22,10 +22,9 @@ from service.domain.catalog import (
     Site,
 )
 from service.domain.evaluate import evaluate_campaign
-from service.domain.layout import evaluate_layouts
 from service.domain.reliability import daly_interval, expected_wall_fraction, job_mtbi_seconds
 from service.domain.units import SECONDS_PER_HOUR
-from tests.domain.builders import architecture, hardware, load
+from tests.domain.builders import architecture, hardware, load, whole
 
 # No example database on disk, and no timing deadline: the engine's first call may be slow.
 PROPERTY = settings(database=None, deadline=None, max_examples=150)
@@ -54,7 +53,7 @@ def test_accelerator_hours_never_fall_below_the_ideal_in_any_candidate_layout(
                architecture=architecture(32, 4096.0, 4096.0, 32.0), deadline_seconds=one(deadline_days * 86400.0))
     venue = hardware(sustained_flops_per_accelerator=one(sustained_tflops * 1e12), network_gbps=one(network_gbps),
                      node_mtbf_hours=one(node_mtbf_hours))
-    grid, _ = evaluate_layouts(run, venue, node_limits=[float(max_nodes)])
+    grid, _ = whole(run, venue, node_limits=[float(max_nodes)])
     ideal = 6.0 * parameters * tokens * runs / (sustained_tflops * 1e12) / SECONDS_PER_HOUR
     assert np.all(grid.accelerator_hours >= ideal * (1.0 - 1e-12))
 
@@ -80,7 +79,7 @@ def test_more_network_bandwidth_never_lowers_scaling_efficiency(
                deadline_seconds=np.full(2, np.inf))
     venue = hardware(sustained_flops_per_accelerator=np.full(2, sustained_tflops * 1e12),
                      network_gbps=np.array([network_gbps, network_gbps * faster]))
-    grid, _ = evaluate_layouts(run, venue, node_limits=[float(nodes)], fixed_accelerators=8 * nodes)
+    grid, _ = whole(run, venue, node_limits=[float(nodes)], fixed_accelerators=8 * nodes)
     assert np.all(grid.scaling_efficiency[1] >= grid.scaling_efficiency[0] * (1.0 - 1e-12))
 
 

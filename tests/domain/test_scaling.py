@@ -7,7 +7,6 @@ import pytest
 from numpy.testing import assert_allclose
 
 from service.domain.campaign import FlopsWork, LayoutPins, TransformerWork
-from service.domain.layout import evaluate_layouts
 from service.domain.scaling import (
     hierarchical_allreduce,
     pipeline_traffic,
@@ -16,7 +15,7 @@ from service.domain.scaling import (
 )
 from service.domain.units import SECONDS_PER_DAY
 from service.domain.work import work_amount
-from tests.domain.builders import architecture, hardware, load
+from tests.domain.builders import architecture, hardware, load, whole
 
 # Narayanan et al. 2021, "Efficient Large-Scale Language Model Training on GPU Clusters Using
 # Megatron-LM", SC21: GPT vocabulary V and sequence length s used throughout the paper.
@@ -186,7 +185,7 @@ def pure_data_parallel_link_needed(accelerators_per_node: int, nodes: int) -> fl
     run = load(parameters=7e9, tokens=1e12, architecture=architecture(32, 4096.0, 4096.0, 32.0),
                pins=LayoutPins(tensor=1, pipeline=1, zero_stage=1))
     venue = hardware(accelerators_per_node=accelerators_per_node, network_gbps=np.full(1, 400.0))
-    grid, _ = evaluate_layouts(run, venue,
+    grid, _ = whole(run, venue,
                                node_limits=[nodes], fixed_accelerators=nodes * accelerators_per_node)
     return float(grid.network_gbps_needed[0, 0])
 
@@ -206,11 +205,11 @@ def test_the_link_reported_for_95_percent_gives_95_percent() -> None:
     run = load(parameters=np.full(2, 7e9), tokens=np.full(2, 1e12), runs_multiplier=np.ones(2),
                global_batch_tokens=np.full(2, 4e6), architecture=architecture(32, 4096.0, 4096.0, 32.0),
                pins=LayoutPins(tensor=2, pipeline=4, zero_stage=1), deadline_seconds=np.full(2, np.inf))
-    first, _ = evaluate_layouts(run, hardware(sustained_flops_per_accelerator=np.full(2, 2e14),
+    first, _ = whole(run, hardware(sustained_flops_per_accelerator=np.full(2, 2e14),
                                               network_gbps=np.full(2, 100.0)),
                                 node_limits=[64.0], fixed_accelerators=512)
     needed = float(first.network_gbps_needed[0, 0])
-    grid, _ = evaluate_layouts(run, hardware(sustained_flops_per_accelerator=np.full(2, 2e14),
+    grid, _ = whole(run, hardware(sustained_flops_per_accelerator=np.full(2, 2e14),
                                              network_gbps=np.array([needed, 1e12])),
                                node_limits=[64.0], fixed_accelerators=512)
     assert_allclose(grid.step_seconds[1, 0] / grid.step_seconds[0, 0], 0.95, rtol=1e-9)
