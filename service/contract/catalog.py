@@ -108,6 +108,8 @@ class SiteIn(Strict):
     utilisation_current: Fraction = 0.0
     egress_per_gb: NonNegativeFloat = Field(0.0, description="what the site pays to send data out")
     wan_gbps: PositiveFloat | None = Field(None, description="the site's link to the outside")
+    resale_fraction: Fraction | None = Field(
+        None, description="share of node_price a retired node fetches (fleet plans); default under assumptions")
 
     _country = field_validator("jurisdiction")(_known_country)
 
@@ -263,7 +265,7 @@ def _site(s: SiteIn, node_types: dict[str, domain.NodeType]) -> domain.Site:
         electricity_price_per_kwh=s.electricity_price_per_kwh, grid_kgco2e_per_kwh=s.grid_kgco2e_per_kwh,
         power_capacity_kw=s.power_capacity_kw, cooling_capacity_kw=s.cooling_capacity_kw,
         utilisation_planned=s.utilisation_planned, utilisation_current=s.utilisation_current,
-        egress_per_gb=s.egress_per_gb, wan_gbps=s.wan_gbps,
+        egress_per_gb=s.egress_per_gb, wan_gbps=s.wan_gbps, resale_fraction=s.resale_fraction,
     )
 
 

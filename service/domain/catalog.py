@@ -87,6 +87,7 @@ class Site:
     name: str = ""
     egress_per_gb: float = 0.0  # what the site pays to send data out (its network contract)
     wan_gbps: float | None = None  # the site's link to the outside, for moving datasets
+    resale_fraction: float | None = None  # share of node_price a retired node fetches; None: the default
 
 
 @dataclass(frozen=True)
