@@ -27,6 +27,7 @@ from service.domain.fleet import (
 )
 from service.domain.owning import busy_energy_per_accelerator_hour, node_month
 from service.domain.terms import upfront_financing_factor
+from service.domain.units import HOURS_PER_MONTH
 from service.domain.venues import site_economics, sustained_flops
 from service.errors import FieldProblem, InvalidInput, NotFound
 from service.storage.repository import Storage, StoredQuote, new_id
@@ -231,6 +232,8 @@ def _document(currency: str, request: FleetPlanIn, sizes: np.ndarray, allowed: n
         "rented_listed_per_accelerator_hour": round(listed, 4),
         "rented_per_accelerator_hour": round(fleet.rented_per_accelerator_hour, 4),
         "max_utilisation": round(fleet.max_utilisation, 4),
+        "usable_accelerator_hours_per_node_month": round(
+            fleet.accelerators_per_node * HOURS_PER_MONTH * fleet.max_utilisation, 1),
         "stages": _stages(plan, money),
         "staged": staged,
         "single_purchase": single,

@@ -21,10 +21,10 @@ import pytest
 from service.contract.catalog import CatalogIn
 from service.contract.request import QuoteRequestIn
 from service.contract.sweep import SweepIn
+from service.domain.campaign import OFFER_OVERRIDES, SITE_OVERRIDES
 from service.domain.distributions import Distribution, stream
 from service.domain.evaluate import evaluate_campaign
 from service.domain.sweep import Reservoir, evaluate_chunk, scenario_chunks, tornado
-from service.domain.campaign import OFFER_OVERRIDES, SITE_OVERRIDES
 from service.domain.whatif import PATHS, input_path, venue_of
 from service.errors import InvalidInput
 from service.usecases.quoting import quote
@@ -197,7 +197,7 @@ def test_the_path_table_covers_every_sweepable_path() -> None:
 def test_a_per_site_electricity_distribution_changes_only_that_sites_totals() -> None:
     # Norway and Germany no longer share one draw: fjordvik-hall's price varies, every other
     # option (rhine-campus's included) keeps its base total in every row.
-    summary, rows = run(prepared(owned_wins(samples=200, seed=3, distributions={
+    _, rows = run(prepared(owned_wins(samples=200, seed=3, distributions={
         SITE_PATH + "electricity_price_per_kwh": {"kind": "uniform", "low": 0.03, "high": 0.12}})))
     assert len(rows) == 200
     labels = rows[0]["totals"].keys()
@@ -242,7 +242,8 @@ def test_unknown_venues_and_fields_of_per_venue_paths_are_named() -> None:
         "overrides.offers.fjordvik-hall.rented_price_factor": {"kind": "uniform", "low": 0.9, "high": 1.1}}))
     assert "no owned site 'nowhere'" in found["distributions.overrides.sites.nowhere.pue"]
     assert "cannot be overridden per offer" in found["distributions.overrides.offers.nimbrel-dublin-acc96.pue"]
-    assert "no rental offer 'fjordvik-hall'" in found["distributions.overrides.offers.fjordvik-hall.rented_price_factor"]
+    assert "no rental offer 'fjordvik-hall'" in found[
+        "distributions.overrides.offers.fjordvik-hall.rented_price_factor"]
     found = problems(owned_wins(grid={SITE_PATH + "pue": [0.5, 1.2]}))
     assert "outside the valid range" in found["grid." + SITE_PATH + "pue"]
 
