@@ -6,6 +6,7 @@ from typing import Any
 import httpx
 import pytest
 
+from service.contract.answers import FleetPlanOut
 from tests.conftest import load_example
 
 pytestmark = pytest.mark.anyio
@@ -38,6 +39,10 @@ async def test_a_plan_is_stored_and_answers_every_candidate_size(client: httpx.A
     stored = await client.get(f"/v1/fleet-plans/{plan['id']}")
     assert stored.status_code == 200
     assert stored.json() == plan
+    FleetPlanOut.model_validate(plan)  # the answer is what the OpenAPI documents
+    schema = (await client.get("/openapi.json")).json()
+    documented = schema["paths"]["/v1/fleet-plans"]["post"]["responses"]["201"]["content"]["application/json"]
+    assert documented["schema"]["$ref"].endswith("/FleetPlanOut")
 
 
 async def test_sizes_beyond_the_sites_power_are_marked_infeasible(client: httpx.AsyncClient) -> None:
