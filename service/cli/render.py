@@ -74,7 +74,8 @@ def print_quote(console: Console, quote: dict[str, Any]) -> None:
 def print_plan(console: Console, plan: dict[str, Any]) -> None:
     currency = plan["currency"]
     console.print(f"[bold]Fleet plan[/] at {plan['site']} against {plan['offer']}/{plan['term']}, "
-                  f"{plan['horizon_months']} months, {plan['samples']:,} demand samples", highlight=False)
+                  f"{plan['horizon_months']} months, {plan['samples']:,} demand samples, owned hours usable to "
+                  f"{_pct(plan['max_utilisation'])}", highlight=False)
     sizes = Table(title=f"Present cost by owned fleet size ({currency})", title_justify="left")
     for header in ("nodes", "p5", "p50", "p95", "owned util.", "rented acc.-h"):
         sizes.add_column(header, justify="right")

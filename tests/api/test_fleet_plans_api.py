@@ -7,6 +7,9 @@ import httpx
 import pytest
 
 from service.contract.answers import FleetPlanOut
+from service.contract.catalog import CatalogIn
+from service.contract.fleet import FleetPlanIn
+from service.usecases.fleet_plans import FleetLimits, fleet_plan
 from tests.conftest import load_example
 
 pytestmark = pytest.mark.anyio
@@ -141,3 +144,17 @@ async def test_decisions_may_come_every_month_within_the_limit(client: httpx.Asy
     response = await client.post("/v1/fleet-plans", json=plan_request(decision_every_months=0))
     assert response.status_code == 422
     assert response.json()["errors"][0]["field"] == "decision_every_months"
+
+
+def test_a_sites_own_resale_fraction_replaces_the_listed_default() -> None:
+    catalog = load_example("catalog.json")
+    site = next(s for s in catalog["sites"] if s["id"] == "fjordvik-hall")
+    site["resale_fraction"] = 0.4
+    body = fleet_plan(CatalogIn.model_validate(catalog), FleetPlanIn.model_validate(plan_request()),
+                      limits=FleetLimits())
+    assert body["resale_per_node"] == 0.4 * site["capex"]["node_price"]
+    assert body["assumptions"] == []
+    default = fleet_plan(CatalogIn.model_validate(load_example("catalog.json")),
+                         FleetPlanIn.model_validate(plan_request()), limits=FleetLimits())
+    assert [a["name"] for a in default["assumptions"]] == ["resale_fraction"]
+    assert default["resale_per_node"] == 0.25 * site["capex"]["node_price"]
