@@ -2,9 +2,11 @@
 rented (model.md §10). Every candidate size, every demand sample and every month in one array.
 
 Each month t = 1…T an owned fleet of n nodes offers n·A·730·u_max usable accelerator-hours; it
-serves min(demand, capacity) and the rest is rented. The month costs n·F (the fleet's fixed cost:
-capital, facility, maintenance, staff, idle energy) + v·owned hours + p·rented hours, and is
-discounted to the start at the monthly cost of capital, paid at the end of each month.
+serves min(demand, capacity) and the rest is rented. The month costs the running cost of the n
+nodes (facility, maintenance, staff, idle energy), the capital charge of every node bought in the
+plan (today's nodes are sunk), v·owned hours and p·rented hours, paid at the end of the month and
+discounted to the start at the monthly cost of capital. The fleet may change at decision points;
+the staged plan is the sequence of sizes with the lowest expected present cost (`plan_fleet`).
 """
 
 from dataclasses import dataclass
@@ -145,7 +147,7 @@ def plan_fleet(*, sizes: ArrayLike, demand: Floats, economics: FleetEconomics,
     the discount factors of each stage in chunks of sizes.
 
     The stage sequence is found exactly by dynamic programming (Bellman 1957, Dynamic
-    Programming, ch. 1, the principle of optimality): the stage costs are expectations over demand
+    Programming, Princeton University Press: the principle of optimality): the stage costs are expectations over demand
     samples whose monthly noise is independent of the past, so the fleet held in a stage affects
     later stages only through the size carried over, and the backward recursion
     V_j(a) = min_b [move_j(a, b) + E_j(b) + V_{j+1}(b)] over candidate sizes a, b is exact.

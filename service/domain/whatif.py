@@ -176,7 +176,7 @@ def input_path(path: str) -> tuple[InputPath, Setter]:
     if name not in VENUE_OVERRIDES[kind]:
         raise UnknownPath(f"{name!r} cannot be overridden per {kind[:-1]}; one of: {', '.join(VENUE_OVERRIDES[kind])}")
     spec = _OVERRIDE_RANGES[name]
-    return replace(spec, path=path, description=f"{spec.description} at {venue_id} only"), \
+    return replace(spec, path=path, description=f"{name.replace('_', ' ')} at {venue_id}"), \
         _venue_override(kind, venue_id, name)
 
 
