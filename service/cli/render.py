@@ -88,7 +88,8 @@ def print_quote(console: Console, quote: dict[str, Any]) -> None:
 def print_plan(console: Console, plan: dict[str, Any]) -> None:
     currency = plan["currency"]
     console.print(f"[bold]Fleet plan[/] at {plan['site']} against {plan['offer']}/{plan['term']}, "
-                  f"{plan['horizon_months']} months, {plan['samples']:,} demand samples", highlight=False)
+                  f"{plan['horizon_months']} months, {plan['samples']:,} demand samples, owned hours usable to "
+                  f"{_pct(plan['max_utilisation'])}", highlight=False)
     sizes = Table(title=f"Present cost by owned fleet size ({currency})", title_justify="left")
     for header in ("nodes", "p5", "p50", "p95", "owned util.", "rented acc.-h"):
         sizes.add_column(header, justify="right")
@@ -102,8 +103,29 @@ def print_plan(console: Console, plan: dict[str, Any]) -> None:
                       style="bold green" if row["nodes"] == plan["best_nodes"] else None)
     console.print(sizes)
     probability = plan["probability_owning_beats_renting"]
-    console.print(f"[bold green]Best:[/] own {plan['best_nodes']} nodes"
+    console.print(f"One purchase now: own {plan['best_nodes']} nodes"
                   + ("" if probability is None else f"; owning beats renting everything in {_pct(probability)} "
                      "of demand samples"), highlight=False)
+    stages = Table(title=f"Staged plan from the {plan['nodes_owned']} nodes owned today, decisions every "
+                         f"{plan['decision_every_months']} months ({currency})", title_justify="left")
+    for header in ("from month", "to month", "nodes", "added", "retired", "purchase", "resale", "rented acc.-h",
+                   "owned util."):
+        stages.add_column(header, justify="right")
+    for st in plan["stages"]:
+        stages.add_row(str(st["month"]), str(st["until_month"]), str(st["nodes"]), str(st["added"]),
+                       str(st["retired"]), _money(st["purchase"]), _money(st["resale"]),
+                       _money(st["rented_accelerator_hours"]), _pct(st["owned_utilisation"]))
+    console.print(stages)
+    cash = Table(title=f"Cash flow by year, staged plan ({currency})", title_justify="left")
+    for header in ("year", "capital", "operating", "rent", "total", "rented acc.-h"):
+        cash.add_column(header, justify="right")
+    for y in plan["cash_flow"]:
+        cash.add_row(str(y["year"]), _money(y["capital"]), _money(y["operating"]), _money(y["rent"]),
+                     _money(y["total"]), _money(y["rented_accelerator_hours"]))
+    console.print(cash)
+    staged, single = plan["staged"], plan["single_purchase"]
+    console.print(f"[bold green]Staged:[/] expected present cost {_money(staged['present_cost_mean'])} "
+                  f"against {_money(single['present_cost_mean'])} for one purchase now "
+                  f"(saving {_money(staged['saving_vs_single_purchase'])})", highlight=False)
     for caution in plan["cautions"]:
         console.print(f"  • {caution}", highlight=False)

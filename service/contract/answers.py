@@ -180,6 +180,80 @@ class QuoteOut(Open):
     cautions: list[str]
 
 
+class PlanCost(Open):
+    """Present cost of a plan over the demand samples."""
+
+    present_cost_mean: float
+    present_cost_p5: float
+    present_cost_p50: float
+    present_cost_p95: float
+    currency: str
+
+
+class StagedCost(PlanCost):
+    saving_vs_single_purchase: float
+
+
+class SinglePurchase(PlanCost):
+    """The best fleet bought (or retired to) now and held for the whole horizon."""
+
+    nodes: int
+    added: int
+    retired: int
+
+
+class PlanStage(Open):
+    """A run of decision points holding one fleet: from `month` to `until_month` (1-based)."""
+
+    month: int
+    until_month: int
+    nodes: int
+    added: int
+    retired: int
+    purchase: float
+    resale: float
+    rented_accelerator_hours: float
+    owned_utilisation: float | None
+    currency: str
+
+
+class PlanYear(Open):
+    year: int
+    capital: float
+    operating: float
+    rent: float
+    total: float
+    rented_accelerator_hours: float
+    currency: str
+
+
+class FleetPlanOut(Open):
+    """A fleet plan (api.md, Fleet plans): the staged plan from today's fleet, the single purchase
+    for comparison, every candidate size, the cash flow by year and the months of the staged plan."""
+
+    id: str
+    created_at: str
+    catalog_id: str
+    site: str
+    offer: str
+    term: str
+    currency: str
+    horizon_months: int
+    nodes_owned: int
+    decision_every_months: int
+    stages: list[PlanStage]
+    staged: StagedCost
+    single_purchase: SinglePurchase
+    cash_flow: list[PlanYear]
+    value_at_horizon_end: float
+    candidates: list[dict[str, Any]]
+    best_nodes: int
+    probability_owning_beats_renting: float | None
+    months: list[dict[str, Any]]
+    assumptions: list[AssumptionOut]
+    cautions: list[str]
+
+
 class QuoteSummary(Open):
     id: str
     created_at: str

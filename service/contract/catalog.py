@@ -112,6 +112,8 @@ class SiteIn(Strict):
     storage_write_gbps: PositiveFloat | None = Field(
         None, description="the shared storage's write bandwidth that checkpoints of all nodes share (default in "
                           "assumptions)")
+    resale_fraction: Fraction | None = Field(
+        None, description="share of node_price a retired node fetches (fleet plans); default under assumptions")
 
     _country = field_validator("jurisdiction")(_known_country)
 
@@ -271,6 +273,7 @@ def _site(s: SiteIn, node_types: dict[str, domain.NodeType]) -> domain.Site:
         power_capacity_kw=s.power_capacity_kw, cooling_capacity_kw=s.cooling_capacity_kw,
         utilisation_planned=s.utilisation_planned, utilisation_current=s.utilisation_current,
         egress_per_gb=s.egress_per_gb, wan_gbps=s.wan_gbps, storage_write_gbps=s.storage_write_gbps,
+        resale_fraction=s.resale_fraction,
     )
 
 

@@ -59,4 +59,6 @@ class FleetPlanIn(Strict):
     samples: Annotated[int, Field(ge=1)] = 1000
     seed: Annotated[int, Field(ge=0, le=MAX_SEED)] = 0
     max_utilisation: Annotated[float, Field(gt=0, le=1, allow_inf_nan=False)] = 0.85
+    decision_every_months: Annotated[int, Field(ge=1, le=240)] = Field(
+        12, description="months between the points at which the owned fleet may grow or retire nodes")
     precision: str = Field("bf16", min_length=1, max_length=20)

@@ -128,20 +128,45 @@ class OptionsIn(Strict):
     layout: LayoutIn = Field(default_factory=LayoutIn)
 
 
-class OverridesIn(Strict):
-    """Catalog values replaced for this request; sweeps vary them as `overrides.<name>`."""
+class _NodeOverrides(Strict):
+    utilisation: Utilisation | None = Field(None, description="the accelerators' utilisation")
+    mtbf_hours: PositiveFloat | None = Field(None, description="node MTBF")
+    network_gbps: PositiveFloat | None = Field(None, description="the node link")
 
-    utilisation: Utilisation | None = Field(None, description="every accelerator's utilisation")
-    electricity_price_per_kwh: NonNegativeFloat | None = Field(None, description="every owned site")
+
+class SiteOverridesIn(_NodeOverrides):
+    """Catalog values replaced at one owned site (`overrides.sites.<site id>`); a factor multiplies
+    the global one."""
+
+    electricity_price_per_kwh: NonNegativeFloat | None = Field(None, description="owned sites' electricity price")
+    electricity_price_factor: PositiveFloat | None = Field(None, description="multiplies electricity prices")
+    pue: Annotated[float, Field(ge=1, le=5)] | None = Field(None, description="owned sites' PUE")
+    node_price_factor: PositiveFloat | None = Field(None, description="multiplies owned node prices")
+    utilisation_planned: Utilisation | None = Field(None, description="owned sites' planned utilisation")
+    grid_kgco2e_per_kwh: NonNegativeFloat | None = Field(None, description="owned sites' grid carbon factor")
+
+
+class OfferOverridesIn(_NodeOverrides):
+    """Catalog values replaced at one rental offer (`overrides.offers.<offer id>`); a factor
+    multiplies the global one."""
+
     on_demand_price_factor: PositiveFloat | None = Field(None, description="multiplies on-demand prices")
     rented_price_factor: PositiveFloat | None = Field(None, description="multiplies every rented price")
-    pue: Annotated[float, Field(ge=1, le=5)] | None = Field(None, description="every owned site")
+
+
+class OverridesIn(SiteOverridesIn, OfferOverridesIn):
+    """Catalog values replaced for this request, at every venue, and per site or offer in `sites`
+    and `offers`; sweeps vary them as `overrides.<name>` and `overrides.sites.<id>.<name>`."""
+
     cost_of_capital_annual: Annotated[float, Field(ge=0, le=1)] | None = None
-    node_price_factor: PositiveFloat | None = Field(None, description="multiplies owned node prices")
-    utilisation_planned: Utilisation | None = Field(None, description="every owned site's plan")
-    grid_kgco2e_per_kwh: NonNegativeFloat | None = Field(None, description="every owned site")
-    mtbf_hours: PositiveFloat | None = Field(None, description="every node type")
-    network_gbps: PositiveFloat | None = Field(None, description="every node type's node link")
+    sites: dict[Identifier, SiteOverridesIn] = Field(default_factory=dict, description="by site id")
+    offers: dict[Identifier, OfferOverridesIn] = Field(default_factory=dict, description="by offer id")
+
+    def to_domain(self) -> domain.Overrides:
+        return domain.Overrides(
+            **self.model_dump(exclude={"sites", "offers"}),
+            sites={k: v.model_dump(exclude_none=True) for k, v in self.sites.items()},
+            offers={k: v.model_dump(exclude_none=True) for k, v in self.offers.items()})
 
 
 class QuoteRequestIn(Strict):
@@ -184,5 +209,4 @@ class QuoteRequestIn(Strict):
             terms=tuple(dict.fromkeys(o.terms)), max_accelerators=o.max_accelerators,
             fixed_accelerators=o.fixed_accelerators, utilisation_basis=o.utilisation_basis, rank_by=o.rank_by,
             layout=o.layout.to_domain())
-        overrides = domain.Overrides(**self.overrides.model_dump())
-        return campaign, options, overrides
+        return campaign, options, self.overrides.to_domain()

@@ -63,6 +63,9 @@ _TABLE = (
     Assumption("hours_per_month", 730.0, "hours", "8760 h / 12"),
     Assumption("kw_per_ton_of_refrigeration", 3.516853, "kW",
                "NIST SP 811, App. B.8 (1 ton = 12,000 Btu_IT/h)"),
+    Assumption("resale_fraction", 0.25, "fraction of a node's price",
+               "assumed, no published source: what a retired node fetches when sold, for fleet plans; "
+               "set each site's resale_fraction"),
     Assumption("data_link_gbps", 10.0, "Gb/s",
                PRACTICE + " (link for copying a dataset when neither end states one)"),
 )

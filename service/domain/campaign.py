@@ -3,6 +3,7 @@
 Numeric fields may hold a scalar or an array with one element per scenario; the core broadcasts.
 """
 
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Literal
 
@@ -117,9 +118,17 @@ class QuoteOptions:
     layout: LayoutPins = field(default_factory=LayoutPins)
 
 
+# The overrides one site or one offer may take for itself (`overrides.sites.<id>.<name>`).
+SITE_OVERRIDES = ("utilisation", "electricity_price_per_kwh", "electricity_price_factor", "pue",
+                  "utilisation_planned", "grid_kgco2e_per_kwh", "node_price_factor", "mtbf_hours", "network_gbps")
+OFFER_OVERRIDES = ("utilisation", "on_demand_price_factor", "rented_price_factor", "mtbf_hours", "network_gbps")
+
+
 @dataclass(frozen=True)
 class Overrides:
-    """Catalog values replaced for one request (or varied by a sweep)."""
+    """Catalog values replaced for one request (or varied by a sweep): for every venue, and per
+    site or offer id in `sites` and `offers` (name → value), where a value replaces the global one
+    and a `_factor` multiplies it."""
 
     utilisation: ArrayLike | None = None
     electricity_price_per_kwh: ArrayLike | None = None
@@ -132,3 +141,6 @@ class Overrides:
     grid_kgco2e_per_kwh: ArrayLike | None = None
     mtbf_hours: ArrayLike | None = None
     network_gbps: ArrayLike | None = None
+    electricity_price_factor: ArrayLike | None = None
+    sites: Mapping[str, Mapping[str, ArrayLike]] = field(default_factory=dict)
+    offers: Mapping[str, Mapping[str, ArrayLike]] = field(default_factory=dict)

@@ -88,6 +88,7 @@ class Site:
     egress_per_gb: float = 0.0  # what the site pays to send data out (its network contract)
     wan_gbps: float | None = None  # the site's link to the outside, for moving datasets
     storage_write_gbps: float | None = None  # what the shared storage takes for checkpoints, all nodes together
+    resale_fraction: float | None = None  # share of node_price a retired node fetches; None: the default
 
 
 @dataclass(frozen=True)

@@ -6,7 +6,7 @@ venues and terms, never over scenarios.
 
 import functools
 from collections.abc import Iterable
-from dataclasses import dataclass, field, fields
+from dataclasses import dataclass, field, fields, replace
 from typing import Any, Literal
 
 import numpy as np
@@ -39,6 +39,7 @@ from service.domain.terms import Energy, campaign_energy
 from service.domain.units import GIB, SECONDS_PER_DAY, TB
 from service.domain.venues import (
     NodeLimit,
+    at_venue,
     chargeback_limit,
     network_gbps,
     new_build_limit,
@@ -136,12 +137,13 @@ def evaluate_campaign(
     results: list[OptionResult] = []
     sites: dict[str, SiteFigures] = {}
     for site in catalog.sites:
-        economics = site_economics(site, catalog, overrides)
+        local = replace(context, overrides=at_venue(overrides, site))  # per-venue overrides resolved
+        economics = site_economics(site, catalog, local.overrides)
         figures = SiteFigures(economics, node_month(economics), busy_energy_per_accelerator_hour(economics))
         sites[site.id] = figures
-        results.extend(_site_options(site, figures, context))
+        results.extend(_site_options(site, figures, local))
     for offer in catalog.offers:
-        results.extend(_offer_options(offer, context))
+        results.extend(_offer_options(offer, replace(context, overrides=at_venue(overrides, offer))))
     return CampaignEvaluation(
         work=context.work,
         runs_multiplier=context.multiplier,

@@ -1,7 +1,8 @@
 """Venues and terms: what each owned site and rental offer can do for a campaign, with the
 request's overrides applied. Arrays broadcast over scenarios."""
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
+from typing import Any
 
 import numpy as np
 
@@ -15,6 +16,18 @@ from service.domain.scaling import path_efficiency
 
 def _or(value: ArrayLike | None, fallback: ArrayLike) -> Floats:
     return as_floats(fallback if value is None else value)
+
+
+def at_venue(overrides: Overrides, venue: Site | Offer) -> Overrides:
+    """The overrides that apply at one site or offer: its own values (`overrides.sites.<id>`,
+    `overrides.offers.<id>`) replace the global ones, and its `_factor`s multiply them."""
+    local = (overrides.sites if isinstance(venue, Site) else overrides.offers).get(venue.id)
+    if not local:
+        return overrides
+    changes: dict[str, Any] = {
+        name: as_floats(value) * _or(getattr(overrides, name), 1.0) if name.endswith("_factor") else value
+        for name, value in local.items()}
+    return replace(overrides, **changes)
 
 
 def sustained_flops(node: NodeType, precision: str, overrides: Overrides) -> Floats:
@@ -35,7 +48,8 @@ def site_economics(site: Site, catalog: Catalog, overrides: Overrides) -> SiteEc
             node_price + capex.network_per_node + capex.storage_per_node + capex.install_per_node
         ),
         cost_of_capital_annual=_or(overrides.cost_of_capital_annual, catalog.cost_of_capital_annual),
-        electricity_price_per_kwh=_or(overrides.electricity_price_per_kwh, site.electricity_price_per_kwh),
+        electricity_price_per_kwh=(_or(overrides.electricity_price_per_kwh, site.electricity_price_per_kwh)
+                                   * _or(overrides.electricity_price_factor, 1.0)),
         pue=_or(overrides.pue, site.pue),
         grid_kgco2e_per_kwh=_or(overrides.grid_kgco2e_per_kwh, site.grid_kgco2e_per_kwh),
         utilisation_planned=_or(overrides.utilisation_planned, site.utilisation_planned),

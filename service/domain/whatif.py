@@ -1,8 +1,10 @@
 """What-if inputs: the request fields and catalog overrides a sweep may vary, by path.
 
 Each path names a field of the quote request (`campaign.work.tokens`) or an override of catalog
-values (`overrides.electricity_price_per_kwh`), with its unit, its valid range, and where the
-varied values go in the domain objects. Values arrive as arrays, one element per scenario.
+values, for every venue (`overrides.electricity_price_per_kwh`) or for one site or offer
+(`overrides.sites.<id>.electricity_price_per_kwh`, `overrides.offers.<id>.on_demand_price_factor`),
+with its unit, its valid range, and where the varied values go in the domain objects. Values
+arrive as arrays, one element per scenario.
 """
 
 from collections.abc import Callable, Mapping
@@ -13,6 +15,8 @@ import numpy as np
 
 from service.domain.arrays import Floats
 from service.domain.campaign import (
+    OFFER_OVERRIDES,
+    SITE_OVERRIDES,
     Campaign,
     FlopsWork,
     MeasuredWork,
@@ -117,6 +121,8 @@ _OVERRIDE_RANGES: Mapping[str, InputPath] = {
                              description="every accelerator's model- or hardware-FLOPs utilisation"),
     "electricity_price_per_kwh": InputPath("overrides.electricity_price_per_kwh", "currency/kWh", 0, False,
                                            description="every owned site's electricity price"),
+    "electricity_price_factor": InputPath("overrides.electricity_price_factor", "factor", 0, True,
+                                          description="multiplies every owned site's electricity price"),
     "on_demand_price_factor": InputPath("overrides.on_demand_price_factor", "factor", 0, True,
                                         description="multiplies every on-demand price"),
     "rented_price_factor": InputPath("overrides.rented_price_factor", "factor", 0, True,
@@ -136,14 +142,57 @@ _OVERRIDE_RANGES: Mapping[str, InputPath] = {
 
 PATHS: dict[str, tuple[InputPath, Setter]] = {p.path: (p, s) for p, s in _CAMPAIGN_PATHS}
 PATHS.update({spec.path: (spec, _override(name)) for name, spec in _OVERRIDE_RANGES.items()})
-assert {f.name for f in fields(Overrides)} == set(_OVERRIDE_RANGES), "every override has a sweep path"
+VENUE_OVERRIDES = {"sites": SITE_OVERRIDES, "offers": OFFER_OVERRIDES}
+assert {f.name for f in fields(Overrides)} - set(VENUE_OVERRIDES) == set(_OVERRIDE_RANGES), \
+    "every override has a sweep path"
+assert set(SITE_OVERRIDES) | set(OFFER_OVERRIDES) <= set(_OVERRIDE_RANGES), "venue overrides are overrides"
+
+
+class UnknownPath(KeyError):
+    """A path no sweep can vary; the message says why."""
+
+    def __str__(self) -> str:
+        return str(self.args[0])
+
+
+def venue_of(path: str) -> tuple[str, str, str] | None:
+    """("sites" or "offers", venue id, override name) of a per-venue path, else None. Ids may hold
+    dots; names do not."""
+    for kind in VENUE_OVERRIDES:
+        venue, dot, name = path.removeprefix(f"overrides.{kind}.").rpartition(".")
+        if path.startswith(f"overrides.{kind}.") and dot and venue:
+            return kind, venue, name
+    return None
+
+
+def input_path(path: str) -> tuple[InputPath, Setter]:
+    """The valid range and the setter of a sweepable path; UnknownPath says what is wrong."""
+    if path in PATHS:
+        return PATHS[path]
+    venue = venue_of(path)
+    if venue is None:
+        raise UnknownPath("unknown input path; see the list of sweepable paths in the README")
+    kind, venue_id, name = venue
+    if name not in VENUE_OVERRIDES[kind]:
+        raise UnknownPath(f"{name!r} cannot be overridden per {kind[:-1]}; one of: {', '.join(VENUE_OVERRIDES[kind])}")
+    spec = _OVERRIDE_RANGES[name]
+    return replace(spec, path=path, description=f"{name.replace('_', ' ')} at {venue_id}"), \
+        _venue_override(kind, venue_id, name)
+
+
+def _venue_override(kind: str, venue_id: str, name: str) -> Setter:
+    def apply(campaign: Campaign, overrides: Overrides, values: Floats) -> tuple[Campaign, Overrides]:
+        venues = getattr(overrides, kind)
+        changed = {**venues, venue_id: {**venues.get(venue_id, {}), name: values}}
+        return campaign, replace(overrides, **_change(kind, changed))
+    return apply
 
 
 def apply(campaign: Campaign, overrides: Overrides, values: Mapping[str, Floats]) -> tuple[Campaign, Overrides]:
-    """The campaign and overrides with each path's values in place. Raises KeyError for an unknown
-    path and LookupError for a path the base request cannot take."""
+    """The campaign and overrides with each path's values in place. Raises UnknownPath (a KeyError)
+    for an unknown path and LookupError for a path the base request cannot take."""
     for path, array in values.items():
-        _, setter = PATHS[path]
+        _, setter = input_path(path)
         campaign, overrides = setter(campaign, overrides, array)
     return campaign, overrides
 
@@ -176,5 +225,10 @@ _GETTERS.update({spec.path: _override_getter(name) for name, spec in _OVERRIDE_R
 
 def base_value(campaign: Campaign, overrides: Overrides, path: str) -> float | None:
     """The base request's own value for a path, or None when it leaves it to the catalog."""
-    value = _GETTERS[path](campaign, overrides)
+    venue = venue_of(path)
+    if venue is None:
+        value = _GETTERS[path](campaign, overrides)
+    else:
+        kind, venue_id, name = venue
+        value = getattr(overrides, kind).get(venue_id, {}).get(name)
     return None if value is None else float(np.asarray(value))

@@ -14,7 +14,7 @@ OVERRIDE_UNITS = {
     "pue": "power usage effectiveness", "cost_of_capital_annual": "a year",
     "node_price_factor": "× node prices", "utilisation_planned": "planned utilisation of owned sites",
     "grid_kgco2e_per_kwh": "kg CO2e per kWh", "mtbf_hours": "hours between failures per node",
-    "network_gbps": "Gbps per node",
+    "network_gbps": "Gbps per node", "electricity_price_factor": "× electricity prices",
 }
 
 
@@ -104,11 +104,14 @@ def campaign_facts(document: Json) -> list[tuple[str, str]]:
         scope += f" At most {number(options['max_accelerators'])} accelerators."
     scope += f" Ranked by {str(options.get('rank_by', 'cost')).replace('_', '-')}."
     facts.append(("Scope", scope))
-    overrides = {k: v for k, v in (request.get("overrides") or {}).items() if v is not None}
+    given = request.get("overrides") or {}
+    overrides = [(k, "", v) for k, v in given.items() if v is not None and k not in ("sites", "offers")]
+    overrides += [(k, f" at {venue}", v) for kind in ("sites", "offers")
+                  for venue, values in given.get(kind, {}).items() for k, v in values.items() if v is not None]
     if overrides:
         facts.append(("Overrides", "Catalog values replaced for this quote: " + "; ".join(
-            f"{k.replace('_', ' ')} = {number(v, 4)} {OVERRIDE_UNITS.get(k, '')}".rstrip()
-            for k, v in overrides.items()) + "."))
+            f"{k.replace('_', ' ')}{where} = {number(v, 4)} {OVERRIDE_UNITS.get(k, '')}".rstrip()
+            for k, where, v in overrides) + "."))
     return facts
 
 

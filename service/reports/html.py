@@ -8,7 +8,7 @@ from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescap
 from markupsafe import Markup
 
 from service.reports.breakeven_chart import breakeven_figure_svg
-from service.reports.context import report_context
+from service.reports.context import moment, report_context
 from service.reports.cost_chart import cost_figure_svg
 from service.reports.fleet_chart import fleet_figure_svg
 from service.reports.formatting import money, money_precise, number, percent, term_label
@@ -61,6 +61,7 @@ def render_plan(plan: Json) -> str:
     probability = plan.get("probability_owning_beats_renting")
     return environment().get_template("plan.html").render(
         plan=plan, best=best, term=term_label(str(plan["term"])), cautions=cautions(plan),
+        created_at=moment(plan.get("created_at")) if plan.get("created_at") else "not stored",
         chart=Markup(fleet_figure_svg(plan)),
         probability="not compared (0 nodes is not a candidate)" if probability is None else percent(probability),
         money=lambda v: money(v, currency), money_precise=lambda v: money_precise(v, currency),

@@ -11,13 +11,23 @@ import numpy as np
 from service.contract.catalog import CatalogIn
 from service.contract.document import Money
 from service.contract.fleet import FleetPlanIn
+from service.domain.assumptions import DEFAULTS, default
 from service.domain.campaign import Overrides
 from service.domain.catalog import Catalog, Offer, Site
 from service.domain.explain import CAUTIONS
 from service.domain.finance import monthly_rate
-from service.domain.fleet import FleetEconomics, critical_ratio, monthly_demand, plan_fleet, sizes_between
+from service.domain.fleet import (
+    FleetEconomics,
+    FleetPlan,
+    MonthlyPlan,
+    critical_ratio,
+    monthly_demand,
+    plan_fleet,
+    sizes_between,
+)
 from service.domain.owning import busy_energy_per_accelerator_hour, node_month
 from service.domain.terms import upfront_financing_factor
+from service.domain.units import HOURS_PER_MONTH
 from service.domain.venues import site_economics, sustained_flops
 from service.errors import FieldProblem, InvalidInput, NotFound
 from service.storage.repository import Storage, StoredQuote, new_id
@@ -30,6 +40,7 @@ QuoteLookup = Callable[[Sequence[str]], list[StoredQuote | None]]
 @dataclass(frozen=True)
 class FleetLimits:
     max_cells: int = 50_000_000  # candidate sizes × samples × months
+    max_stage_moves: int = 20_000_000  # candidate sizes² × decision points, for the staged plan
 
 
 def _venues(catalog: Catalog, request: FleetPlanIn) -> tuple[Site, Offer]:
@@ -113,12 +124,21 @@ def _demand_from_quotes(request: FleetPlanIn, lookup: QuoteLookup | None) -> np.
 def fleet_plan(catalog_in: CatalogIn, request: FleetPlanIn, *, limits: FleetLimits,
                lookup: QuoteLookup | None = None) -> dict[str, Any]:
     """The plan's answer body (without the stored id)."""
-    cells = request.candidate_nodes.count * request.samples * request.horizon_months
+    catalog = catalog_in.to_domain()
+    site, offer = _venues(catalog, request)
+    c = request.candidate_nodes
+    # Keeping today's fleet is always a candidate.
+    sizes = np.union1d(sizes_between(low=c.min, high=c.max, step=c.step), [site.nodes_owned]).astype(np.int64)
+    cells = sizes.size * request.samples * request.horizon_months
     if cells > limits.max_cells:
         raise InvalidInput("the plan is too large", [FieldProblem(
             "candidate_nodes", f"{cells:,} sizes × samples × months exceed the limit of {limits.max_cells:,}")])
-    catalog = catalog_in.to_domain()
-    site, offer = _venues(catalog, request)
+    stages = -(-request.horizon_months // request.decision_every_months)
+    moves = sizes.size**2 * stages
+    if moves > limits.max_stage_moves:
+        raise InvalidInput("the staged plan is too large", [FieldProblem(
+            "decision_every_months", f"{sizes.size:,} sizes² × {stages:,} decision points = {moves:,} moves exceed "
+            f"the limit of {limits.max_stage_moves:,}; decide less often or give fewer candidate sizes")])
     economics = site_economics(site, catalog, Overrides())
     node = node_month(economics)
     variable = float(busy_energy_per_accelerator_hour(economics))
@@ -129,26 +149,31 @@ def fleet_plan(catalog_in: CatalogIn, request: FleetPlanIn, *, limits: FleetLimi
     listed = _rented_price(offer, request.term, catalog)
     # Demand is in the site's accelerator-hours; renting the same work takes speed-ratio as many.
     price = listed * site_speed / offer_speed
+    resale_fraction = default("resale_fraction") if site.resale_fraction is None else site.resale_fraction
     fleet = FleetEconomics(
         accelerators_per_node=site.node_type.accelerators_per_node, fixed_per_node_month=float(node.total),
         variable_per_accelerator_hour=variable, rented_per_accelerator_hour=price,
-        max_utilisation=request.max_utilisation, monthly_rate=float(monthly_rate(catalog.cost_of_capital_annual)))
+        max_utilisation=request.max_utilisation, monthly_rate=float(monthly_rate(catalog.cost_of_capital_annual)),
+        running_per_node_month=float(node.running), nodes_owned=site.nodes_owned,
+        resale_per_node=resale_fraction * site.capex.node_price, capex_per_node=float(economics.capex_per_node))
     with np.errstate(over="ignore", invalid="ignore"):  # checked below
         demand = _demand(request, lookup, np.random.default_rng(request.seed))
-    c = request.candidate_nodes
-    sizes = sizes_between(low=c.min, high=c.max, step=c.step)
     power_limit, why = _site_limit(site, float(economics.pue))
-    allowed = sizes <= power_limit
-    if not allowed.any():
-        raise InvalidInput("no candidate size fits the site", [FieldProblem("candidate_nodes", why)])
+    allowed = (sizes <= power_limit) | (sizes == site.nodes_owned)
     with np.errstate(over="ignore", invalid="ignore"):
-        plan = plan_fleet(sizes=sizes[allowed], demand=demand, economics=fleet)
+        plan = plan_fleet(sizes=sizes[allowed], demand=demand, economics=fleet,
+                          decision_every_months=request.decision_every_months)
     if not (np.isfinite(demand).all() and np.isfinite(plan.present_cost).all()):
         # Fast doubling (0.01 months over 48) or huge figures overflow float64: the answer would
         # hold inf and nan, which JSON cannot carry.
         raise InvalidInput("the demand overflows", [FieldProblem(
             "demand", "it grows beyond floating-point range over the horizon; slow the doubling or lower it")])
-    return _document(catalog_in.currency, request, sizes, allowed, why, plan, fleet, listed, demand)
+    document = _document(catalog_in.currency, request, sizes, allowed, why, plan, fleet, listed, demand)
+    document["resale_fraction"] = resale_fraction
+    document["assumptions"] = [
+        {"name": a.name, "value": a.value, "unit": a.unit, "source": a.source}
+        for a in [DEFAULTS["resale_fraction"]] if site.resale_fraction is None]
+    return document
 
 
 def _site_limit(site: Site, pue: float) -> tuple[float, str]:
@@ -163,8 +188,8 @@ def _site_limit(site: Site, pue: float) -> tuple[float, str]:
     return bounds[name], f"more than {bounds[name]:,.0f} nodes exceed {name} at {site.id}"
 
 
-def _document(currency: str, request: FleetPlanIn, sizes: np.ndarray, allowed: np.ndarray, why: str, plan: Any,
-              fleet: FleetEconomics, listed: float, demand: np.ndarray) -> dict[str, Any]:
+def _document(currency: str, request: FleetPlanIn, sizes: np.ndarray, allowed: np.ndarray, why: str,
+              plan: FleetPlan, fleet: FleetEconomics, listed: float, demand: np.ndarray) -> dict[str, Any]:
     money = Money(currency)
     p5, p50, p95 = np.percentile(plan.present_cost, (5, 50, 95), axis=1)
     mean = plan.expected_present_cost
@@ -181,40 +206,109 @@ def _document(currency: str, request: FleetPlanIn, sizes: np.ndarray, allowed: n
             "nodes": n, "feasible": True, "reason": None,
             "present_cost_p5": money(p5[k]), "present_cost_p50": money(p50[k]), "present_cost_p95": money(p95[k]),
             "present_cost_mean": money(mean[k]), "currency": currency,
-            "owned_utilisation": (float(plan.owned_hours[k] / plan.capacity_hours[k])
-                                  if plan.capacity_hours[k] else None),
+            "owned_utilisation": _share(plan.owned_hours[k], plan.capacity_hours[k]),
             "rented_accelerator_hours": round(float(plan.rented_hours[k]), 1)})
     best = int(plan.sizes[plan.best])
-    months = [{"month": t + 1, "demand_accelerator_hours": round(float(d), 1),
+    single = {"nodes": best, "added": max(best - fleet.nodes_owned, 0), "retired": max(fleet.nodes_owned - best, 0),
+              **_spread(plan.present_cost[plan.best], money)}
+    staged = {**_spread(plan.staged_present_cost, money),
+              "saving_vs_single_purchase": money(mean[plan.best] - plan.staged_present_cost.mean())}
+    m = plan.months
+    months = [{"month": t + 1, "nodes": int(n), "demand_accelerator_hours": round(float(d), 1),
                "owned_accelerator_hours": round(float(o), 1), "rented_accelerator_hours": round(float(r), 1),
-               "spend": money(s), "currency": currency,
-               "utilisation": float(o / plan.months_capacity) if plan.months_capacity else None}
-              for t, (d, o, r, s) in enumerate(zip(demand.mean(axis=0), plan.months_owned, plan.months_rented,
-                                                   plan.months_spend, strict=True))]
+               "spend": money(s), "currency": currency, "utilisation": _share(o, c)}
+              for t, (n, d, o, r, s, c) in enumerate(zip(m.nodes, demand.mean(axis=0), m.owned_hours, m.rented_hours,
+                                                          m.spend, m.capacity_hours, strict=True))]
     ratio = critical_ratio(fleet) if fleet.rented_per_accelerator_hour > fleet.variable_per_accelerator_hour else None
     probability = plan.probability_owning_beats_renting
     return {
         "site": request.site, "offer": request.offer, "term": request.term, "currency": currency,
         "horizon_months": request.horizon_months, "samples": request.samples, "seed": request.seed,
+        "nodes_owned": fleet.nodes_owned, "decision_every_months": request.decision_every_months,
         "owned_fixed_per_node_month": money(fleet.fixed_per_node_month),
+        "owned_running_per_node_month": money(fleet.running),
         "owned_variable_per_accelerator_hour": round(fleet.variable_per_accelerator_hour, 4),
+        "resale_per_node": money(fleet.resale_per_node),
         "rented_listed_per_accelerator_hour": round(listed, 4),
         "rented_per_accelerator_hour": round(fleet.rented_per_accelerator_hour, 4),
-        "max_utilisation": fleet.max_utilisation,
+        "max_utilisation": round(fleet.max_utilisation, 4),
+        "usable_accelerator_hours_per_node_month": round(
+            fleet.accelerators_per_node * HOURS_PER_MONTH * fleet.max_utilisation, 1),
+        "stages": _stages(plan, money),
+        "staged": staged,
+        "single_purchase": single,
+        "cash_flow": _cash_flow(m, money),
+        "value_at_horizon_end": money(m.value_at_end),
         "candidates": candidates,
         "best_nodes": best,
-        "probability_owning_beats_renting": None if np.isnan(probability) else probability,
-        "critical_ratio": ratio,
+        "probability_owning_beats_renting": None if np.isnan(probability) else round(probability, 4),
+        "critical_ratio": None if ratio is None else round(ratio, 4),
         "months": months,
         "notes": [
+            f"The plan starts from the {fleet.nodes_owned} nodes the site owns today. Their capital is sunk: keeping "
+            "them costs their running cost (facility, maintenance, staff, idle energy); retiring one returns its "
+            "resale value.",
+            f"Every {request.decision_every_months} months the fleet may grow or retire nodes. The stages are the "
+            "sequence of fleet sizes with the lowest expected present cost over the candidate sizes, found exactly by "
+            "dynamic programming (Bellman 1957, Dynamic Programming, the principle of optimality).",
+            "A node bought in the plan is charged the site's capital annuity (capex less residual over the "
+            "depreciation months) for every month left in the horizon; the cash flow shows the purchase when it is "
+            "paid, and value_at_horizon_end what the bought nodes are still worth on that annuity.",
+            "The single-purchase row is the best fleet bought (or retired to) now and held for the whole horizon.",
             "Demand is in accelerator-hours of the site's node type; rented hours are converted by the ratio "
             "of sustained FLOP/s of the two accelerators.",
             "Each month is paid at its end and discounted at the catalog's cost of capital / 12.",
             "Committed terms are priced per hour with their up-front financing; their block sizes are not modelled.",
-            "The probability compares the best size with renting everything, when 0 nodes is a candidate.",
+            "The probability compares the best single purchase with renting everything, when 0 nodes is a candidate.",
         ],
         "cautions": list(CAUTIONS),
     }
+
+
+def _share(part: float, whole: float) -> float | None:
+    """A fraction for display and JSON: 4 decimals, as quotes give utilisation."""
+    return round(float(part / whole), 4) if whole else None
+
+
+def _spread(costs: np.ndarray, money: Money) -> dict[str, Any]:
+    p5, p50, p95 = np.percentile(costs, (5, 50, 95))
+    return {"present_cost_mean": money(costs.mean()), "present_cost_p5": money(p5), "present_cost_p50": money(p50),
+            "present_cost_p95": money(p95), "currency": money.currency}
+
+
+def _stages(plan: FleetPlan, money: Money) -> list[dict[str, Any]]:
+    """One row per change of the fleet, and the first decision point: a run of decision points
+    that keep the fleet is one stage."""
+    m = plan.months
+    nodes = plan.staged_nodes
+    changed = np.flatnonzero(np.concatenate([[True], nodes[1:] != nodes[:-1]]))
+    first_months = plan.stages.starts[changed]
+    ends = np.append(first_months[1:], m.nodes.size)
+    rows = []
+    for begin, end in zip(first_months.tolist(), ends.tolist(), strict=True):
+        span = slice(begin, end)
+        rows.append({
+            "month": begin + 1, "until_month": end, "nodes": int(m.nodes[begin]), "added": int(m.added[begin]),
+            "retired": int(m.retired[begin]), "purchase": money(m.purchases[begin]), "resale": money(m.resale[begin]),
+            "rented_accelerator_hours": round(float(m.rented_hours[span].sum()), 1),
+            "owned_utilisation": _share(m.owned_hours[span].sum(), m.capacity_hours[span].sum()),
+            "currency": money.currency})
+    return rows
+
+
+def _cash_flow(m: MonthlyPlan, money: Money) -> list[dict[str, Any]]:
+    """Cash by year of the horizon: purchases less resale, running and busy energy, rent."""
+    year = np.arange(m.nodes.size) // 12
+
+    def by_year(values: np.ndarray) -> np.ndarray:
+        return np.bincount(year, weights=values)
+
+    capital, operating, rent = by_year(m.purchases - m.resale), by_year(m.running + m.energy), by_year(m.rent)
+    rented = by_year(m.rented_hours)
+    return [{"year": y + 1, "capital": money(capital[y]), "operating": money(operating[y]), "rent": money(rent[y]),
+             "total": money(capital[y] + operating[y] + rent[y]),
+             "rented_accelerator_hours": round(float(rented[y]), 1), "currency": money.currency}
+            for y in range(capital.size)]
 
 
 def create_fleet_plan(storage: Storage, catalogs: ParsedCatalogs, request: FleetPlanIn, *, now: datetime,

@@ -46,7 +46,20 @@ def request_problems(catalog: CatalogIn, request: QuoteRequestIn) -> list[FieldP
     venues = {s.id for s in catalog.sites} | {o.id for o in catalog.offers}
     if data.home is not None and data.home not in venues:
         problems.append(FieldProblem("campaign.data.home", f"unknown venue {data.home!r}"))
+    for kind in ("sites", "offers"):
+        for venue in getattr(request.overrides, kind):
+            if (reason := unknown_venue(catalog, kind, venue)) is not None:
+                problems.append(FieldProblem(f"overrides.{kind}.{venue}", reason))
     return problems
+
+
+def unknown_venue(catalog: CatalogIn, kind: str, venue: str) -> str | None:
+    """Why a per-venue override names no venue of the catalog (kind: "sites" or "offers"), or None."""
+    ids = {s.id for s in catalog.sites} if kind == "sites" else {o.id for o in catalog.offers}
+    if venue in ids:
+        return None
+    what = "owned site" if kind == "sites" else "rental offer"
+    return f"no {what} {venue!r} in catalog {catalog.name!r} (its {kind}: {', '.join(sorted(ids)) or 'none'})"
 
 
 def quote(catalog: CatalogIn, request: QuoteRequestIn) -> dict[str, Any]:

@@ -19,13 +19,13 @@ from service.contract.sweep import DistributionIn, SweepIn
 from service.domain.catalog import Catalog
 from service.domain.explain import CAUTIONS
 from service.domain.sweep import ChunkResult, SweepPlan, SweepSummary, chunk_size, scenario_chunks, tornado
-from service.domain.whatif import PATHS, InputPath, apply, base_value
+from service.domain.whatif import InputPath, UnknownPath, apply, base_value, input_path, venue_of
 from service.errors import FieldProblem, InvalidInput, NotFound
 from service.storage.repository import Storage, StoredSweep, new_id
 from service.usecases.catalogs import ParsedCatalogs, catalog_to_use
 from service.usecases.chunk_pool import evaluated
 from service.usecases.idempotency import Created, KeepAnswer
-from service.usecases.quoting import request_problems
+from service.usecases.quoting import request_problems, unknown_venue
 
 log = logging.getLogger("berth.sweeps")
 
@@ -58,10 +58,15 @@ def prepare_sweep(catalog_in: CatalogIn, sweep: SweepIn, limits: SweepLimits) ->
         problems.append(FieldProblem(where, f"at most {limits.max_paths} inputs may vary in one sweep"))
     for path, spec in varied.items():
         field = f"{where}.{path}"
-        if path not in PATHS:
-            problems.append(FieldProblem(field, "unknown input path; see the list of sweepable paths in the README"))
+        try:
+            rule, _ = input_path(path)
+        except UnknownPath as error:
+            problems.append(FieldProblem(field, str(error)))
             continue
-        rule, _ = PATHS[path]
+        venue = venue_of(path)
+        if venue is not None and (reason := unknown_venue(catalog_in, *venue[:2])) is not None:
+            problems.append(FieldProblem(field, reason))
+            continue
         try:
             apply(campaign, overrides, {path: np.ones(1)})
         except LookupError as error:
@@ -86,7 +91,7 @@ def prepare_sweep(catalog_in: CatalogIn, sweep: SweepIn, limits: SweepLimits) ->
                                      "per sweep"))
     if problems:
         raise InvalidInput("the sweep cannot run as asked", problems)
-    units = {path: PATHS[path][0].unit.replace("currency", catalog_in.currency) for path in plan.paths}
+    units = {path: input_path(path)[0].unit.replace("currency", catalog_in.currency) for path in plan.paths}
     return PreparedSweep(catalog_in.to_domain(), plan, sweep, catalog_in.currency, units)
 
 
@@ -175,7 +180,7 @@ def tornado_bars(prepared: PreparedSweep) -> list[dict[str, Any]] | None:
         if value is None:
             value = float(np.median(plan.grid[path])) if plan.grid else plan.distributions[path].centre()
         centres[path] = value
-    ranges = {path: _closed_range(PATHS[path][0]) for path in plan.paths}
+    ranges = {path: _closed_range(input_path(path)[0]) for path in plan.paths}
     money = Money(prepared.currency)
     bars = tornado(prepared.catalog, plan, centres, ranges, prepared.request.tornado.swing)
     return [{"input": bar.path, "centre": bar.centre, "low": bar.low, "high": bar.high,

@@ -1,4 +1,8 @@
-"""Fleet plans (model.md §10): checked against inventory theory and numpy-financial."""
+"""Fleet plans (model.md §10): checked against inventory theory, numpy-financial, and brute force
+over every stage sequence."""
+
+import itertools
+from dataclasses import replace
 
 import numpy as np
 import numpy_financial as npf
@@ -6,7 +10,14 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
-from service.domain.fleet import FleetEconomics, critical_ratio, discount_factors, monthly_demand, plan_fleet
+from service.domain.fleet import (
+    FleetEconomics,
+    FleetPlan,
+    critical_ratio,
+    discount_factors,
+    monthly_demand,
+    plan_fleet,
+)
 from service.domain.units import HOURS_PER_MONTH
 
 # Demo figures (invented): an 8-accelerator node costing 11,668 a month, 0.067 of energy per busy
@@ -83,8 +94,8 @@ def test_an_owned_fleet_costs_its_fixed_charge_plus_energy_and_the_overflow_rent
     owned = USABLE_PER_NODE
     month = 11_668.0 + 0.067 * owned + 4.10 * (6_000.0 - owned)
     assert_allclose(plan.present_cost[0, 0], month / (1 + 0.08 / 12), rtol=1e-12)
-    assert_allclose(plan.months_owned, [owned], rtol=1e-12)
-    assert_allclose(plan.months_rented, [6_000.0 - owned], rtol=1e-12)
+    assert_allclose(plan.months.owned_hours, [owned], rtol=1e-12)
+    assert_allclose(plan.months.rented_hours, [6_000.0 - owned], rtol=1e-12)
 
 
 def test_growing_demand_doubles_on_schedule_and_the_spread_keeps_its_mean() -> None:
@@ -94,3 +105,103 @@ def test_growing_demand_doubles_on_schedule_and_the_spread_keeps_its_mean() -> N
     means = demand.mean(axis=0)
     # Lognormal with mu = −sigma²/2 has mean 1; the standard error of 50,000 draws is ~0.11%.
     assert_allclose(means[[0, 12, 24]], [1_000, 2_000, 4_000], rtol=0.01)
+
+
+# Staged plans from today's fleet. Demo figures (invented): of the 11,668 a node costs a month,
+# 3,994 is running cost; today's 32 nodes are owned; a retired node fetches 71,250; a new one costs
+# 339,000.
+OWNED = replace(ECONOMICS, running_per_node_month=3_994.0, nodes_owned=32, resale_per_node=71_250.0,
+                capex_per_node=339_000.0)
+
+
+def staged_plan(demand: np.ndarray, sizes: np.ndarray, economics: FleetEconomics = OWNED,
+                every: int = 12) -> FleetPlan:
+    return plan_fleet(sizes=sizes, demand=demand, economics=economics, decision_every_months=every)
+
+
+def test_flat_demand_filling_todays_fleet_keeps_it_in_one_stage() -> None:
+    demand = np.full((1, 48), 32 * USABLE_PER_NODE)
+    plan = staged_plan(demand, np.arange(0, 97, 2))
+    assert_allclose(plan.staged_nodes, [32, 32, 32, 32])
+    assert plan.months.added.sum() == 0 and plan.months.retired.sum() == 0
+    assert plan.sizes[plan.best] == 32
+    # Staying put is the single purchase too: the two plans cost the same.
+    assert_allclose(plan.staged_present_cost.mean(), plan.expected_present_cost[plan.best], rtol=1e-12)
+
+
+def test_growing_demand_adds_nodes_at_later_decision_points_and_never_costs_more_than_one_purchase() -> None:
+    demand = monthly_demand(first_month_hours=60_000, months=48, doubling_months=18, spread=0.25, samples=500,
+                            generator=np.random.default_rng(7))
+    plan = staged_plan(demand, np.arange(0, 97, 2))
+    nodes = plan.staged_nodes
+    assert np.all(np.diff(nodes) >= 0), nodes
+    assert nodes[-1] > nodes[0]
+    assert plan.months.added[12:].sum() > 0  # additions after the first decision point
+    assert plan.staged_present_cost.mean() <= plan.expected_present_cost.min() + 1e-6
+
+
+def test_an_idle_fleet_is_retired_for_its_resale_value() -> None:
+    plan = staged_plan(np.zeros((1, 24)), np.arange(0, 41, 4))
+    assert_allclose(plan.staged_nodes, [0, 0])
+    assert plan.months.retired[0] == 32
+    # Only the resale, received at the start: nothing is bought, run or rented.
+    assert_allclose(plan.staged_present_cost, [-32 * 71_250.0], rtol=1e-12)
+
+
+def test_the_cash_flow_less_the_bought_nodes_value_at_the_end_is_the_plans_present_cost() -> None:
+    # Monthly cash: purchases and resale at the start of a stage (time m, as values[m]), running,
+    # energy and rent at each month's end (values[t]); numpy_financial.npv discounts values[k] by
+    # (1 + r)^-k. Less the bought nodes' outstanding annuity balance at the horizon's end, it is
+    # the expected present cost the plan minimised.
+    demand = monthly_demand(first_month_hours=80_000, months=36, doubling_months=12, spread=0.2, samples=300,
+                            generator=np.random.default_rng(5))
+    plan = staged_plan(demand, np.arange(0, 97, 4))
+    m = plan.months
+    values = np.zeros(37)
+    values[:36] += m.purchases - m.resale
+    values[1:] += m.running + m.energy + m.rent
+    values[36] -= m.value_at_end
+    assert m.added.sum() > 0
+    assert_allclose(npf.npv(OWNED.monthly_rate, values), plan.staged_present_cost.mean(), rtol=1e-9)
+
+
+def _brute_force(sizes: list[float], demand: np.ndarray, e: FleetEconomics, every: int) -> float:
+    """The lowest expected present cost over every stage sequence, month by month in plain Python."""
+    months = demand.shape[1]
+    starts = list(range(0, months, every))
+    usable = e.accelerators_per_node * HOURS_PER_MONTH * e.max_utilisation
+    capital = e.fixed_per_node_month - (e.running_per_node_month or 0.0)
+    best = np.inf
+    for sequence in itertools.product(sizes, repeat=len(starts)):
+        cost = np.zeros(demand.shape[0])
+        held, bought = float(e.nodes_owned), 0.0
+        for t in range(months):
+            if t in starts:
+                n = sequence[starts.index(t)]
+                bought += max(n - held, 0.0)
+                cost -= max(held - n, 0.0) * e.resale_per_node / (1 + e.monthly_rate) ** t
+                held = n
+            served = np.minimum(demand[:, t], held * usable)
+            month = (bought * capital + held * (e.running_per_node_month or 0.0)
+                     + e.variable_per_accelerator_hour * served
+                     + e.rented_per_accelerator_hour * (demand[:, t] - served))
+            cost += month / (1 + e.monthly_rate) ** (t + 1)
+        best = min(best, float(cost.mean()))
+    return best
+
+
+@settings(max_examples=30, deadline=None)
+# At most 4 sizes and 4 decision points: brute force tries up to 4⁴ sequences per example.
+@given(sizes=st.lists(st.integers(0, 12), min_size=2, max_size=4, unique=True), owned=st.integers(0, 12),
+       every=st.integers(2, 4), months=st.integers(1, 8), growth=st.floats(-0.3, 0.6),
+       rent=st.floats(1.0, 12.0), resale=st.floats(0.0, 200_000.0), seed=st.integers(0, 1_000))
+def test_the_staged_optimum_equals_brute_force_over_every_stage_sequence(
+        sizes: list[int], owned: int, every: int, months: int, growth: float, rent: float, resale: float,
+        seed: int) -> None:
+    trend = 20_000.0 * np.exp(growth * np.arange(months))
+    demand = trend * np.random.default_rng(seed).lognormal(0.0, 0.3, size=(4, months))
+    economics = replace(OWNED, rented_per_accelerator_hour=rent, nodes_owned=owned, resale_per_node=resale)
+    candidates = np.asarray(sorted(sizes), dtype=np.float64)
+    plan = staged_plan(demand, candidates, economics, every)
+    expected = _brute_force(candidates.tolist(), demand, economics, every)
+    assert_allclose(plan.staged_present_cost.mean(), expected, rtol=1e-9)

@@ -21,10 +21,11 @@ import pytest
 from service.contract.catalog import CatalogIn
 from service.contract.request import QuoteRequestIn
 from service.contract.sweep import SweepIn
+from service.domain.campaign import OFFER_OVERRIDES, SITE_OVERRIDES
 from service.domain.distributions import Distribution, stream
 from service.domain.evaluate import evaluate_campaign
 from service.domain.sweep import Reservoir, evaluate_chunk, scenario_chunks, tornado
-from service.domain.whatif import PATHS
+from service.domain.whatif import PATHS, input_path, venue_of
 from service.errors import InvalidInput
 from service.usecases.quoting import quote
 from service.usecases.sweeps import PreparedSweep, SweepLimits, prepare_sweep, run, tornado_bars
@@ -47,9 +48,10 @@ def request_with(base: dict[str, Any], inputs: dict[str, float]) -> QuoteRequest
     """The single quote request equal to one sweep scenario: the base with each path's value set."""
     request = copy.deepcopy(base)
     for path, value in inputs.items():
-        rule, _ = PATHS[path]
+        rule, _ = input_path(path)
         node = request
-        *parents, name = path.split(".")
+        venue = venue_of(path)
+        *parents, name = ["overrides", venue[0], venue[1], venue[2]] if venue else path.split(".")
         for part in parents:
             node = node.setdefault(part, {})
         node[name] = round(value) if rule.integer else float(value)
@@ -163,7 +165,13 @@ EVERY_PATH: dict[str, tuple[str, list[float]]] = {
     "overrides.grid_kgco2e_per_kwh": ("transformer", [0.0, 0.5]),
     "overrides.mtbf_hours": ("transformer", [5000, 50000]),
     "overrides.network_gbps": ("transformer", [100, 800]),
+    "overrides.electricity_price_factor": ("transformer", [0.5, 2.0]),
 }
+# Every per-venue override, at one site or offer of the demo catalog, with the same values.
+SITE_PATH = "overrides.sites.fjordvik-hall."
+OFFER_PATH = "overrides.offers.nimbrel-dublin-acc96."
+EVERY_PATH.update({SITE_PATH + name: EVERY_PATH["overrides." + name] for name in SITE_OVERRIDES})
+EVERY_PATH.update({OFFER_PATH + name: EVERY_PATH["overrides." + name] for name in OFFER_OVERRIDES})
 
 
 def base_for(kind: str) -> dict[str, Any]:
@@ -181,7 +189,63 @@ def base_for(kind: str) -> dict[str, Any]:
 
 
 def test_the_path_table_covers_every_sweepable_path() -> None:
-    assert set(EVERY_PATH) == set(PATHS)
+    assert {p for p in EVERY_PATH if venue_of(p) is None} == set(PATHS)
+    assert {p.rpartition(".")[2] for p in EVERY_PATH if p.startswith(SITE_PATH)} == set(SITE_OVERRIDES)
+    assert {p.rpartition(".")[2] for p in EVERY_PATH if p.startswith(OFFER_PATH)} == set(OFFER_OVERRIDES)
+
+
+def test_a_per_site_electricity_distribution_changes_only_that_sites_totals() -> None:
+    # Norway and Germany no longer share one draw: fjordvik-hall's price varies, every other
+    # option (rhine-campus's included) keeps its base total in every row.
+    _, rows = run(prepared(owned_wins(samples=200, seed=3, distributions={
+        SITE_PATH + "electricity_price_per_kwh": {"kind": "uniform", "low": 0.03, "high": 0.12}})))
+    assert len(rows) == 200
+    labels = rows[0]["totals"].keys()
+    varying = {label for label in labels if len({row["totals"][label] for row in rows}) > 1}
+    assert varying and all(label.startswith("fjordvik-hall/") for label in varying), varying
+    assert any(label.startswith("rhine-campus/") for label in labels)
+    # Each row is the single quote with that price at fjordvik-hall only.
+    for row in rows[:3]:
+        value = row["inputs"][SITE_PATH + "electricity_price_per_kwh"]
+        single = evaluate_campaign(CATALOG, *request_with(owned_wins()["base"], {
+            SITE_PATH + "electricity_price_per_kwh": value}).to_domain())
+        for option in single.options:
+            if bool(np.asarray(option.feasible).reshape(-1)[0]):
+                assert row["totals"][option.label] == pytest.approx(float(np.asarray(option.total).reshape(-1)[0]),
+                                                                    abs=0.006)
+
+
+def test_a_venues_factor_multiplies_the_global_one_and_its_own_value_replaces_the_global_value() -> None:
+    base = owned_wins()["base"]
+    def totals(overrides: dict[str, Any]) -> dict[str, float]:
+        request = QuoteRequestIn.model_validate({**base, "overrides": overrides})
+        return {o.label: float(np.asarray(o.total).reshape(-1)[0])
+                for o in evaluate_campaign(CATALOG, *request.to_domain()).options}
+    both = totals({"on_demand_price_factor": 0.8, "offers": {"nimbrel-dublin-acc96": {"on_demand_price_factor": 1.5}}})
+    product = totals({"offers": {"nimbrel-dublin-acc96": {"on_demand_price_factor": 1.2}}})
+    assert both["nimbrel-dublin-acc96/on_demand"] == pytest.approx(product["nimbrel-dublin-acc96/on_demand"],
+                                                                   rel=1e-12)
+    assert both["tidewell-ashburn-acc96/on_demand"] == pytest.approx(
+        totals({"on_demand_price_factor": 0.8})["tidewell-ashburn-acc96/on_demand"], rel=1e-12)
+    local = totals({"electricity_price_per_kwh": 0.3, "sites": {"rhine-campus": {"electricity_price_per_kwh": 0.19}}})
+    plain = totals({"electricity_price_per_kwh": 0.3})
+    assert local["rhine-campus/owned_chargeback"] == pytest.approx(totals({})["rhine-campus/owned_chargeback"],
+                                                                   rel=1e-12)  # 0.19 is its catalog price
+    assert local["fjordvik-hall/owned_chargeback"] == pytest.approx(plain["fjordvik-hall/owned_chargeback"],
+                                                                    rel=1e-12)
+
+
+def test_unknown_venues_and_fields_of_per_venue_paths_are_named() -> None:
+    found = problems(owned_wins(samples=10, distributions={
+        "overrides.sites.nowhere.pue": {"kind": "uniform", "low": 1.1, "high": 1.3},
+        "overrides.offers.nimbrel-dublin-acc96.pue": {"kind": "uniform", "low": 1.1, "high": 1.3},
+        "overrides.offers.fjordvik-hall.rented_price_factor": {"kind": "uniform", "low": 0.9, "high": 1.1}}))
+    assert "no owned site 'nowhere'" in found["distributions.overrides.sites.nowhere.pue"]
+    assert "cannot be overridden per offer" in found["distributions.overrides.offers.nimbrel-dublin-acc96.pue"]
+    assert "no rental offer 'fjordvik-hall'" in found[
+        "distributions.overrides.offers.fjordvik-hall.rented_price_factor"]
+    found = problems(owned_wins(grid={SITE_PATH + "pue": [0.5, 1.2]}))
+    assert "outside the valid range" in found["grid." + SITE_PATH + "pue"]
 
 
 @pytest.mark.parametrize("path", sorted(EVERY_PATH))
@@ -203,7 +267,7 @@ def test_each_path_varied_alone_equals_its_single_quotes(path: str) -> None:
             if feasible:
                 expected = float(np.asarray(option.total).reshape(-1)[0])
                 assert chunk.totals[k, s] == pytest.approx(expected, rel=1e-9, abs=0.0), (path, value, option.label)
-    if path == "overrides.grid_kgco2e_per_kwh":  # moves the carbon of owned sites, not their cost
+    if path.endswith(".grid_kgco2e_per_kwh"):  # moves the carbon of owned sites, not their cost
         assert np.array_equal(chunk.totals[:, 0], chunk.totals[:, 1], equal_nan=True)
         assert carbon[0] != carbon[1]
     else:  # the two values change at least one option's total or feasibility, or the path would do nothing

@@ -36,20 +36,30 @@ def test_the_chart_marks_the_plans_best_size_and_is_byte_identical_across_render
     mean = next(c["present_cost_mean"] for c in plan["candidates"] if c["nodes"] == plan["best_nodes"])
     assert float(best.get("data-present-cost-mean", "nan")) == pytest.approx(mean, abs=0.005)
     assert root.get("role") == "img" and root.find(f"{SVG}title") is not None
+    # The staged plan is drawn below: its stages' months and fleet sizes, as the plan gives them.
+    stages = next(g for g in root.iter(f"{SVG}g") if g.get("id") == "fleet-stages")
+    assert stages.get("data-months") == " ".join(str(st["month"]) for st in plan["stages"])
+    assert stages.get("data-nodes") == " ".join(str(st["nodes"]) for st in plan["stages"])
     assert fleet_figure_svg(plan) == svg
 
 
-def test_the_page_shows_the_best_size_every_candidate_the_months_and_the_cautions() -> None:
+def test_the_page_shows_the_stages_the_comparison_the_cash_flow_every_candidate_and_the_months() -> None:
     plan = demo_plan()
     page = parse(render_plan(plan))
     assert page.by_id("best-nodes").text.startswith(f"{plan['best_nodes']} nodes")
-    tables = page.find_all("table")
-    candidate_rows = tables[0].find_all("tr")[1:]
-    assert len(candidate_rows) == len(plan["candidates"])
-    assert len(tables[1].find_all("tr")[1:]) == plan["horizon_months"]
+    assert page.by_id("staged-nodes").text.startswith(f"{plan['stages'][0]['nodes']} nodes from month 1")
+    stages, comparison, cash, candidates, months = page.find_all("table")
+    assert len(stages.find_all("tr")[1:]) == len(plan["stages"]) > 1
+    assert [r.find_all("th")[0].text for r in comparison.find_all("tr")[1:]] == ["Staged", "One purchase now"]
+    assert len(cash.find_all("tr")[1:]) == plan["horizon_months"] // 12
+    assert len(candidates.find_all("tr")[1:]) == len(plan["candidates"])
+    assert len(months.find_all("tr")[1:]) == plan["horizon_months"]
     values = [float(d.attrs["value"]) for d in page.find_all("data")]
-    assert next(c["present_cost_mean"] for c in plan["candidates"] if c["nodes"] == plan["best_nodes"]) in values
+    assert plan["staged"]["present_cost_mean"] in values
     text = page.text
+    assert "2027-01-04 09:00 UTC" in text and "2027-01-04T09:00:00Z" not in text  # a date people read
+    assert "85.0%" in text  # the usable share of owned hours, rounded
+    assert "resale_fraction = 0.25" in text  # the default used, listed
     for phrase in ("not a vendor quote", "licensed engineers", "not legal advice"):
         assert phrase in text
 
@@ -64,7 +74,7 @@ async def test_the_stored_plan_serves_its_chart_and_page(report_client: httpx.As
     assert ET.fromstring(chart.text.split("?>", 1)[1]).get("role") == "img"
     page = await report_client.get(plan["links"]["report"])
     assert page.status_code == 200 and page.headers["content-type"].startswith("text/html")
-    assert f"{plan['best_nodes']} nodes at fjordvik-hall" in page.text
+    assert "Staged owned fleet" in page.text and f"the {plan['nodes_owned']} nodes owned at fjordvik-hall" in page.text
     missing = await report_client.get("/v1/fleet-plans/fp_missing/report")
     assert missing.status_code == 404
 
@@ -74,4 +84,4 @@ def test_berth_plan_prints_the_page_offline() -> None:
                              "--format", "html"], capture_output=True, text=True, timeout=120, check=False)
     assert result.returncode == 0, result.stderr
     assert result.stdout.startswith("<!DOCTYPE html>")
-    assert "Best owned fleet" in result.stdout
+    assert "Staged owned fleet" in result.stdout

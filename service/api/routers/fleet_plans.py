@@ -10,6 +10,7 @@ from service.api.deps import CatalogsDep, ClockDep, IdempotencyKeyDep, RawBodyDe
 from service.api.observability import DomainMetrics
 from service.api.problems import CONFLICT, PROBLEM_RESPONSES
 from service.api.responses import created_response
+from service.contract.answers import FleetPlanOut
 from service.contract.fleet import FleetPlanIn
 from service.reports import render_plan
 from service.reports.fleet_chart import fleet_figure_svg
@@ -23,13 +24,15 @@ router = APIRouter(prefix="/v1/fleet-plans", tags=["fleet plans"])
 
 
 
-@router.post("", status_code=201, responses={**PROBLEM_RESPONSES, **CONFLICT})
+@router.post("", status_code=201, responses={201: {"model": FleetPlanOut, "description": "the stored plan"},
+                                             **PROBLEM_RESPONSES, **CONFLICT})
 def post_fleet_plan(request: Request, payload: FleetPlanIn, raw: RawBodyDep, storage: StorageDep,
                     catalogs: CatalogsDep, clock: ClockDep, settings: SettingsDep, caller: Analyst,
                     idempotency_key: IdempotencyKeyDep = None) -> Response:
-    """Every candidate fleet size against every demand sample and month at once: present cost
-    percentiles per size, the best size, the chance it beats renting everything, and its months.
-    The same Idempotency-Key with the same body returns the first answer."""
+    """The staged plan from the site's nodes owned today: the fleet at each decision point
+    (`decision_every_months`) with the lowest expected present cost, found by dynamic programming, its
+    cash flow by year and months; beside it one purchase now, and every candidate size against every
+    demand sample. The same Idempotency-Key with the same body returns the first answer."""
     def create(keep: KeepAnswer | None) -> Created:
         created = create_fleet_plan(storage, catalogs, payload, now=clock(),
                                     limits=FleetLimits(max_cells=settings.fleet_max_cells), keep=keep)
@@ -42,9 +45,11 @@ def post_fleet_plan(request: Request, payload: FleetPlanIn, raw: RawBodyDep, sto
 
 
 @router.get("/{plan_id}/chart.svg", response_class=Response, responses={
-    200: {"content": {"image/svg+xml": {}}, "description": "present cost against fleet size"}, **PROBLEM_RESPONSES})
+    200: {"content": {"image/svg+xml": {}}, "description": "present cost by size; the staged plan by month"},
+    **PROBLEM_RESPONSES})
 def fleet_plan_chart(plan_id: str, storage: StorageDep, _analyst: Analyst) -> Response:
-    """Present cost against owned fleet size: the median and the 5th-95th percentile band."""
+    """Present cost against owned fleet size (median and 5th-95th percentile band), and the staged
+    plan's owned hours against expected demand month by month."""
     return Response(standalone(fleet_figure_svg(get_fleet_plan(storage, plan_id))), media_type="image/svg+xml")
 
 
@@ -55,7 +60,8 @@ def fleet_plan_report(plan_id: str, storage: StorageDep, _analyst: Analyst) -> H
     return HTMLResponse(render_plan(get_fleet_plan(storage, plan_id)))
 
 
-@router.get("/{plan_id}", responses=PROBLEM_RESPONSES)
+@router.get("/{plan_id}", responses={200: {"model": FleetPlanOut, "description": "the plan as it was returned"},
+                                     **PROBLEM_RESPONSES})
 def read_fleet_plan(plan_id: str, storage: StorageDep, _analyst: Analyst) -> dict[str, Any]:
     """A stored fleet plan, as it was returned."""
     return get_fleet_plan(storage, plan_id)
