@@ -19,7 +19,7 @@ def problems_of(data: dict[str, Any]) -> dict[str, str]:
 def test_the_demo_catalog_is_valid(demo_catalog: dict[str, Any]) -> None:
     catalog = validate(CatalogIn, demo_catalog, source="catalog").to_domain()
     assert {s.id for s in catalog.sites} == {"fjordvik-hall", "rhine-campus"}
-    assert catalog.sites[0].node_type.accelerator.id == "acc-96"
+    assert catalog.sites[0].node_type.accelerator.id == "acc-a88"
 
 
 def test_an_unknown_field_is_rejected_by_name(demo_catalog: dict[str, Any]) -> None:

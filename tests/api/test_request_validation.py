@@ -94,10 +94,10 @@ def test_an_unknown_reference_node_type_is_named(demo_catalog: dict[str, Any]) -
 def test_per_venue_overrides_name_an_unknown_venue_or_field(demo_catalog: dict[str, Any],
                                                             owned_wins_request: dict[str, Any]) -> None:
     owned_wins_request["overrides"] = {"sites": {"fjordvik-hall": {"sunshine": 1.0, "pue": 0.5}},
-                                       "offers": {"nimbrel-dublin-acc96": {"electricity_price_per_kwh": 0.1}}}
+                                       "offers": {"nimbrel-ardvolly-a88": {"electricity_price_per_kwh": 0.1}}}
     found = problems_of(owned_wins_request)
     assert set(found) == {"overrides.sites.fjordvik-hall.sunshine", "overrides.sites.fjordvik-hall.pue",
-                          "overrides.offers.nimbrel-dublin-acc96.electricity_price_per_kwh"}
+                          "overrides.offers.nimbrel-ardvolly-a88.electricity_price_per_kwh"}
     owned_wins_request["overrides"] = {"sites": {"nowhere": {"pue": 1.2}, "fjordvik-hall": {"pue": 1.2}},
                                        "offers": {"fjordvik-hall": {"rented_price_factor": 0.9}}}
     catalog = validate(CatalogIn, demo_catalog, source="catalog")

@@ -195,11 +195,11 @@ async def test_an_invalid_sweep_is_a_422_naming_each_field(client: httpx.AsyncCl
     assert fields == {"grid.overrides.sunshine", "grid.overrides.utilisation", "grid.campaign.recurrence.every_months"}
 
     venues = small_grid()
-    venues["grid"] = {"overrides.sites.nowhere.pue": [1.2], "overrides.offers.nimbrel-dublin-acc96.sunshine": [1.0]}
+    venues["grid"] = {"overrides.sites.nowhere.pue": [1.2], "overrides.offers.nimbrel-ardvolly-a88.sunshine": [1.0]}
     venues["base"]["overrides"] = {"sites": {"nowhere": {"pue": 1.2}}}
     problem = problem_of(await client.post("/v1/sweeps", json=venues), 422)
     assert {error["field"] for error in problem["errors"]} == {
-        "grid.overrides.sites.nowhere.pue", "grid.overrides.offers.nimbrel-dublin-acc96.sunshine",
+        "grid.overrides.sites.nowhere.pue", "grid.overrides.offers.nimbrel-ardvolly-a88.sunshine",
         "base.overrides.sites.nowhere"}
 
     schema = copy.deepcopy(small_grid())

@@ -169,7 +169,7 @@ EVERY_PATH: dict[str, tuple[str, list[float]]] = {
 }
 # Every per-venue override, at one site or offer of the demo catalog, with the same values.
 SITE_PATH = "overrides.sites.fjordvik-hall."
-OFFER_PATH = "overrides.offers.nimbrel-dublin-acc96."
+OFFER_PATH = "overrides.offers.nimbrel-ardvolly-a88."
 EVERY_PATH.update({SITE_PATH + name: EVERY_PATH["overrides." + name] for name in SITE_OVERRIDES})
 EVERY_PATH.update({OFFER_PATH + name: EVERY_PATH["overrides." + name] for name in OFFER_OVERRIDES})
 
@@ -183,7 +183,7 @@ def base_for(kind: str) -> dict[str, Any]:
         base["campaign"]["work"] = {"kind": "flops", "total_flops": 8e21, "parameters": work["parameters"],
                                     "global_batch_tokens": work["global_batch_tokens"]}
     elif kind == "measured":
-        base["campaign"]["work"] = {"kind": "measured", "reference_node_type": "acc96-x8", "samples": 2e9,
+        base["campaign"]["work"] = {"kind": "measured", "reference_node_type": "a88-x8", "samples": 2e9,
                                     "samples_per_second_per_accelerator": 300, "parameters": work["parameters"]}
     return base
 
@@ -221,12 +221,12 @@ def test_a_venues_factor_multiplies_the_global_one_and_its_own_value_replaces_th
         request = QuoteRequestIn.model_validate({**base, "overrides": overrides})
         return {o.label: float(np.asarray(o.total).reshape(-1)[0])
                 for o in evaluate_campaign(CATALOG, *request.to_domain()).options}
-    both = totals({"on_demand_price_factor": 0.8, "offers": {"nimbrel-dublin-acc96": {"on_demand_price_factor": 1.5}}})
-    product = totals({"offers": {"nimbrel-dublin-acc96": {"on_demand_price_factor": 1.2}}})
-    assert both["nimbrel-dublin-acc96/on_demand"] == pytest.approx(product["nimbrel-dublin-acc96/on_demand"],
+    both = totals({"on_demand_price_factor": 0.8, "offers": {"nimbrel-ardvolly-a88": {"on_demand_price_factor": 1.5}}})
+    product = totals({"offers": {"nimbrel-ardvolly-a88": {"on_demand_price_factor": 1.2}}})
+    assert both["nimbrel-ardvolly-a88/on_demand"] == pytest.approx(product["nimbrel-ardvolly-a88/on_demand"],
                                                                    rel=1e-12)
-    assert both["tidewell-ashburn-acc96/on_demand"] == pytest.approx(
-        totals({"on_demand_price_factor": 0.8})["tidewell-ashburn-acc96/on_demand"], rel=1e-12)
+    assert both["tidewell-halvert-a88/on_demand"] == pytest.approx(
+        totals({"on_demand_price_factor": 0.8})["tidewell-halvert-a88/on_demand"], rel=1e-12)
     local = totals({"electricity_price_per_kwh": 0.3, "sites": {"rhine-campus": {"electricity_price_per_kwh": 0.19}}})
     plain = totals({"electricity_price_per_kwh": 0.3})
     assert local["rhine-campus/owned_chargeback"] == pytest.approx(totals({})["rhine-campus/owned_chargeback"],
@@ -238,10 +238,10 @@ def test_a_venues_factor_multiplies_the_global_one_and_its_own_value_replaces_th
 def test_unknown_venues_and_fields_of_per_venue_paths_are_named() -> None:
     found = problems(owned_wins(samples=10, distributions={
         "overrides.sites.nowhere.pue": {"kind": "uniform", "low": 1.1, "high": 1.3},
-        "overrides.offers.nimbrel-dublin-acc96.pue": {"kind": "uniform", "low": 1.1, "high": 1.3},
+        "overrides.offers.nimbrel-ardvolly-a88.pue": {"kind": "uniform", "low": 1.1, "high": 1.3},
         "overrides.offers.fjordvik-hall.rented_price_factor": {"kind": "uniform", "low": 0.9, "high": 1.1}}))
     assert "no owned site 'nowhere'" in found["distributions.overrides.sites.nowhere.pue"]
-    assert "cannot be overridden per offer" in found["distributions.overrides.offers.nimbrel-dublin-acc96.pue"]
+    assert "cannot be overridden per offer" in found["distributions.overrides.offers.nimbrel-ardvolly-a88.pue"]
     assert "no rental offer 'fjordvik-hall'" in found[
         "distributions.overrides.offers.fjordvik-hall.rented_price_factor"]
     found = problems(owned_wins(grid={SITE_PATH + "pue": [0.5, 1.2]}))

@@ -54,10 +54,10 @@ def test_the_breakeven_svg_marks_the_quotes_breakeven_utilisations(any_document:
 
 def test_the_marked_breakeven_agrees_with_the_recommendations_why() -> None:
     document = offline_document("owned-wins")
-    assert "below 54.9% the best rented option, nimbrel-dublin-acc96/interruptible" in \
+    assert "below 69.5% the best rented option, nimbrel-ardvolly-a88/interruptible" in \
         document["recommendation"]["why"]
-    mark = groups(breakeven_svg(document), "breakeven-")["breakeven-rhine-campus-nimbrel-dublin-acc96-interruptible"]
-    assert round(float(mark.attrib["data-utilisation"]) * 100, 1) == 54.9
+    mark = groups(breakeven_svg(document), "breakeven-")["breakeven-fjordvik-hall-nimbrel-ardvolly-a88-interruptible"]
+    assert round(float(mark.attrib["data-utilisation"]) * 100, 1) == 69.5
 
 
 def test_each_rented_line_is_drawn_at_the_quotes_price(any_document: Json) -> None:
@@ -85,7 +85,7 @@ def test_the_breakeven_svg_has_axes_with_units_and_currency_and_a_text_alternati
     title_id, desc_id = root.attrib["aria-labelledby"].split()
     assert root.find(f"{SVG}title").attrib["id"] == title_id
     desc = root.find(f"{SVG}desc")
-    assert desc.attrib["id"] == desc_id and "break-even at 54.9%" in desc.text
+    assert desc.attrib["id"] == desc_id and "break-even at 69.5%" in desc.text
     texts = " ".join("".join(t.itertext()) for t in root.iter(f"{SVG}text"))
     assert "EUR per used accelerator-hour" in texts
     assert "utilisation of the site's accelerators" in texts
