@@ -18,6 +18,7 @@ from service.domain.parallelism import Shapes, shapes
 from service.domain.step import (
     Architecture,
     Columns,
+    GatheredGrid,
     Hardware,
     LayoutGrid,
     Load,
@@ -27,7 +28,7 @@ from service.domain.step import (
     rank_parameters,
     scenario_terms,
     step_figures,
-    with_wall,
+    wall_figures,
 )
 
 __all__ = ["DEADLINE", "MEMORY", "NODE_LIMIT", "PINNED", "Architecture", "Candidates", "Hardware", "LayoutGrid",
@@ -79,12 +80,10 @@ class Candidates:
                 chosen = block_of == b
                 if not chosen.any():
                     continue
-                values = np.asarray(getattr(block, f.name))
                 start = ends[b] - block.nodes.shape[1]
-                taken = values[rows[chosen] if values.shape[0] > 1 else 0,
-                               index[chosen] - start if values.shape[1] > 1 else 0]
+                taken = np.asarray(block.at(f.name, rows[chosen], index[chosen] - start))
                 if out is None:
-                    out = np.empty(index.shape, dtype=values.dtype)
+                    out = np.empty(index.shape, dtype=taken.dtype)
                 out[chosen] = taken
             picked[f.name] = out
         return LayoutGrid(**picked)
@@ -193,17 +192,26 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     guess = np.where(first == 0, k_lo, guess)
     guess = np.where(reached, guess, rungs[shape_index, -1])
     # The exact counts around the guess, each distinct (shape, count) evaluated once.
-    near = np.clip(np.stack([guess - 1.0, guess, guess + 1.0], axis=-1),
-                   k_min[0][shape_index][..., np.newaxis], k_top[0][shape_index][..., np.newaxis])
-    unique, inverse = np.unique(shape_index[..., np.newaxis] * TABLE_KEY + near, return_inverse=True)
-    exact_shape = (unique // TABLE_KEY).astype(np.int64)
-    exact = step_figures(load, hardware, _shape_columns(found, exact_shape, unique - exact_shape * TABLE_KEY,
-                                                        hardware.accelerators_per_node), found)
-    inverse = inverse.reshape(near.shape)
-    ok = (exact["effective_step_seconds"][0][inverse] <= allowance[:, :, np.newaxis]) & exact["fits"][0][inverse]
+    low, high = k_min[0][shape_index], k_top[0][shape_index]
+    keys = shape_index * TABLE_KEY + guess  # (S, H): one key per distinct (shape, count)
+    distinct = np.unique(keys)  # few: scenarios share their answers
+    around = np.unique(np.concatenate([distinct - 1.0, distinct, distinct + 1.0]))
+    exact_shape = (around // TABLE_KEY).astype(np.int64)
+    counts = around - exact_shape * TABLE_KEY
+    inside = (counts >= k_min[0][exact_shape]) & (counts <= k_top[0][exact_shape])
+    around, exact_shape, counts = around[inside], exact_shape[inside], counts[inside]
+    exact = step_figures(load, hardware, _shape_columns(found, exact_shape, counts, hardware.accelerators_per_node),
+                         found)
+    g_exact = np.where(exact["fits"][0], exact["effective_step_seconds"][0], np.inf)
+    # The exact counts just below, at and above the guess, each found among the distinct ones.
+    near = np.clip(np.stack([guess - 1.0, guess, guess + 1.0], axis=-1), low[..., np.newaxis], high[..., np.newaxis])
+    where = np.searchsorted(around, shape_index[..., np.newaxis] * TABLE_KEY + near)
+    ok = g_exact[where] <= allowance[:, :, np.newaxis]
     pick = np.where(ok.any(axis=-1), np.argmax(ok, axis=-1), 2)
-    column = np.take_along_axis(inverse, pick[..., np.newaxis], axis=-1)[..., 0]  # (S, H)
-    return with_wall(load, hardware, {name: np.asarray(value)[0][column] for name, value in exact.items()})
+    column = np.take_along_axis(where, pick[..., np.newaxis], axis=-1)[..., 0]  # (S, H)
+    eager = {name: np.asarray(exact[name])[0][column] for name in ("nodes", "accelerators", "fits")}
+    wall = wall_figures(load, hardware, np.asarray(exact["effective_step_seconds"])[0][column], eager["accelerators"])
+    return GatheredGrid(exact, column, **eager, **wall)
 
 
 def _fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Callable[[Floats, int], Columns],

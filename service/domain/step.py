@@ -133,6 +133,38 @@ class LayoutGrid:
         """Wall clock in hours, computed once: every term's cost lines use it."""
         return np.asarray(self.wall_seconds / SECONDS_PER_HOUR)
 
+    def at(self, name: str, rows: Ints, columns: Ints) -> Any:
+        """Field `name` at (rows[i], columns[i]) for each i, size-1 axes broadcast."""
+        values = np.asarray(getattr(self, name))
+        return values[rows if values.shape[0] > 1 else 0, columns if values.shape[1] > 1 else 0]
+
+
+class GatheredGrid(LayoutGrid):
+    """A block whose figures are drawn from one row of distinct candidates, `table[name][0, column]`
+    for an (S, K) array of columns: a figure is gathered only when it is read, and `at` takes single
+    cells straight from the table, so the many figures that only the chosen layout needs are never
+    spread over every scenario."""
+
+    def __init__(self, table: dict[str, Any], column: Ints, **eager: Any) -> None:
+        object.__setattr__(self, "_table", table)
+        object.__setattr__(self, "_column", column)
+        for name, value in eager.items():
+            object.__setattr__(self, name, value)
+
+    def __getattr__(self, name: str) -> Any:
+        table = self.__dict__.get("_table")
+        if table is None or name not in table:
+            raise AttributeError(name)
+        value = np.asarray(table[name])[0][self._column]
+        object.__setattr__(self, name, value)
+        return value
+
+    def at(self, name: str, rows: Ints, columns: Ints) -> Any:
+        if name in self.__dict__ or name not in self._table:
+            return super().at(name, rows, columns)
+        column = self._column
+        return np.asarray(self._table[name])[0][column[rows if column.shape[0] > 1 else 0, columns]]
+
 
 @dataclass(frozen=True)
 class Columns:
@@ -274,11 +306,18 @@ def step_figures(load: Load, hardware: Hardware, c: Columns, found: Shapes) -> d
 
 
 def with_wall(load: Load, hardware: Hardware, figures: dict[str, Any]) -> LayoutGrid:
-    """The wall clock of a run: steps × runs × the effective step, plus staging (model.md §5)."""
+    """The grid of the figures and their wall clock."""
+    wall = wall_figures(load, hardware, figures["effective_step_seconds"], figures["accelerators"])
+    return LayoutGrid(**figures, wall_seconds=wall["wall_seconds"], accelerator_hours=wall["accelerator_hours"])
+
+
+def wall_figures(load: Load, hardware: Hardware, effective_step_seconds: Floats,
+                 accelerators: Floats) -> dict[str, Floats]:
+    """The wall clock of a run, steps × runs × the effective step plus staging (model.md §5), and
+    its accelerator-hours."""
     steps, staging = scenario_terms(load, hardware)
-    wall = steps * figures["effective_step_seconds"] + staging
-    hours = wall * (figures["accelerators"] / SECONDS_PER_HOUR)
-    return LayoutGrid(**figures, wall_seconds=wall, accelerator_hours=hours)
+    wall = np.asarray(steps * effective_step_seconds + staging)
+    return {"wall_seconds": wall, "accelerator_hours": np.asarray(wall * (accelerators / SECONDS_PER_HOUR))}
 
 
 def scenario_terms(load: Load, hardware: Hardware) -> tuple[Floats, Floats]:
