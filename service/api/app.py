@@ -45,7 +45,7 @@ def prepare(app: FastAPI) -> None:
     if settings.load_demo_catalog and settings.demo_catalog.exists():
         loaded = load_demo_catalog(storage, settings.demo_catalog, now=app.state.clock())
         if loaded is not None:
-            log.info("loaded the demo catalog %s as %s", loaded.name, loaded.id)
+            log.info("loaded the demo catalog %s as %s", loaded["name"], loaded["id"])
     if app.state.local_mode.active():
         log.warning("local mode: no API keys are configured, so berth answers loopback callers only; "
                     "issue keys with `berth keys add --role ROLE --team TEAM`")

@@ -133,9 +133,11 @@ def _quote_catalog(value: str | None, database: str | None) -> QuoteCatalog:
     except SQLAlchemyError as error:
         raise InvalidInput(f"cannot open the database to look up catalog {value!r}: {_first_line(error)}") from error
     try:
-        ref = catalog_to_use(storage, value, field="--catalog")
+        ref = catalog_to_use(storage, value, field="--catalog", on=datetime.now(UTC).date())
         return QuoteCatalog(ParsedCatalogs().get(ref, storage), ref.content_hash, ref.id)
     except InvalidInput as error:
+        if error.detail != "unknown catalog":
+            raise  # it exists, but is retired or not effective today: say that
         where = storage.engine.url.render_as_string(hide_password=True)
         raise InvalidInput(neither, [FieldProblem("--catalog", f"no file of that name, and no catalog with that "
                                                                f"id in {where}")]) from error

@@ -191,6 +191,10 @@ class CatalogSummary(Open):
     currency: str
     content_hash: str
     created_at: str
+    status: Literal["active", "retired"]
+    default: bool
+    effective_from: str | None
+    effective_until: str | None
 
 
 class CatalogOut(CatalogSummary):

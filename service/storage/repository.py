@@ -8,17 +8,26 @@ import uuid
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
-from datetime import UTC, datetime, timedelta
+from datetime import UTC, date, datetime, timedelta
 from typing import Any
 
 import orjson
 from sqlalchemy import Engine, and_, delete, func, or_, text, update
+from sqlalchemy import select as sa_select
 from sqlalchemy.exc import IntegrityError
 from sqlmodel import Session, col, select
 
 from service.errors import FieldProblem, InvalidInput
 from service.storage.engine import READ_ONLY
-from service.storage.tables import ApiKeyRow, CatalogRow, FleetPlanRow, IdempotencyRow, QuoteRow, SweepRow
+from service.storage.tables import (
+    ApiKeyRow,
+    CatalogRow,
+    DefaultCatalogRow,
+    FleetPlanRow,
+    IdempotencyRow,
+    QuoteRow,
+    SweepRow,
+)
 
 
 def utc(moment: datetime) -> datetime:
@@ -55,14 +64,22 @@ class StoredCatalog:
     content_hash: str
     content: dict[str, Any]
     created_at: datetime
+    status: str = "active"
+    effective_from: date | None = None
+    effective_until: date | None = None
 
 
 @dataclass(frozen=True)
 class CatalogRef:
-    """Which catalog, without its content: enough to find it parsed in a cache."""
+    """Which catalog, without its content: enough to find it parsed in a cache, and to say whether
+    a quote may use it on a date."""
 
     id: str
     content_hash: str
+    name: str = ""
+    status: str = "active"
+    effective_from: date | None = None
+    effective_until: date | None = None
 
 
 @dataclass(frozen=True)
@@ -126,7 +143,11 @@ class Claim:
 
 def _catalog(row: CatalogRow) -> StoredCatalog:
     return StoredCatalog(row.id, row.name, row.currency, row.content_hash, from_text(row.content),
-                         utc(row.created_at))
+                         utc(row.created_at), row.status, row.effective_from, row.effective_until)
+
+
+_CATALOG_REF = (col(CatalogRow.id), col(CatalogRow.content_hash), col(CatalogRow.name), col(CatalogRow.status),
+                col(CatalogRow.effective_from), col(CatalogRow.effective_until))
 
 
 def _quote(row: QuoteRow) -> StoredQuote:
@@ -161,9 +182,11 @@ class Repository:
         return None if row is None else _catalog(row)
 
     def add_catalog(self, *, name: str, currency: str, content_hash: str, content: dict[str, Any],
-                    created_at: datetime) -> StoredCatalog:
+                    created_at: datetime, effective_from: date | None = None,
+                    effective_until: date | None = None) -> StoredCatalog:
         row = CatalogRow(id=new_id("cat"), name=name, currency=currency, content_hash=content_hash,
-                         content=as_text(content, sort_keys=True), created_at=created_at)
+                         content=as_text(content, sort_keys=True), created_at=created_at, status="active",
+                         effective_from=effective_from, effective_until=effective_until)
         self.session.add(row)
         self.session.flush()
         return _catalog(row)
@@ -173,17 +196,34 @@ class Repository:
         return None if row is None else _catalog(row)
 
     def catalog_ref(self, catalog_id: str | None) -> CatalogRef | None:
-        """The named catalog, or the newest when none is named, without reading its content."""
-        query = select(CatalogRow.id, CatalogRow.content_hash)
+        """The named catalog, or the default when none is named, without reading its content."""
+        query = sa_select(*_CATALOG_REF)
         if catalog_id is None:
-            query = query.order_by(col(CatalogRow.created_at).desc(), col(CatalogRow.id).desc())
+            query = query.join(DefaultCatalogRow, col(DefaultCatalogRow.catalog_id) == col(CatalogRow.id))
         else:
-            query = query.where(CatalogRow.id == catalog_id)
-        row = self.session.exec(query.limit(1)).first()
-        return None if row is None else CatalogRef(row[0], row[1])
+            query = query.where(col(CatalogRow.id) == catalog_id)
+        row = self.session.execute(query.limit(1)).first()
+        return None if row is None else CatalogRef(*row)
 
-    def catalogs(self, *, limit: int, cursor: str | None) -> tuple[list[StoredCatalog], str | None]:
+    def default_catalog_id(self) -> str | None:
+        return self.session.exec(select(DefaultCatalogRow.catalog_id)).first()
+
+    def set_default_catalog(self, catalog_id: str, *, now: datetime) -> None:
+        row = self.session.get(DefaultCatalogRow, 1)
+        if row is None:
+            row = DefaultCatalogRow(slot=1, catalog_id=catalog_id, set_at=now)
+        row.catalog_id, row.set_at = catalog_id, now
+        self.session.add(row)
+        self.session.flush()
+
+    def set_catalog_status(self, catalog_id: str, status: str) -> None:
+        self.session.execute(update(CatalogRow).where(col(CatalogRow.id) == catalog_id).values(status=status))
+
+    def catalogs(self, *, limit: int, cursor: str | None, status: str | None = None,
+                 ) -> tuple[list[StoredCatalog], str | None]:
         query = select(CatalogRow)
+        if status is not None:
+            query = query.where(CatalogRow.status == status)
         if cursor:
             moment, ident = decode_cursor(cursor)
             query = query.where(or_(col(CatalogRow.created_at) < moment,

@@ -221,7 +221,7 @@ def create_fleet_plan(storage: Storage, catalogs: ParsedCatalogs, request: Fleet
                       limits: FleetLimits, keep: KeepAnswer | None = None) -> Created:
     """Plan, store and return the plan with its id and links. `keep` (from `once_per_key`) is given
     the answer in the transaction that stores the plan."""
-    stored = catalog_to_use(storage, request.catalog_id, field="catalog_id")
+    stored = catalog_to_use(storage, request.catalog_id, field="catalog_id", on=now.date())
 
     def lookup(ids: Sequence[str]) -> list[StoredQuote | None]:
         with storage.reading() as repository:

@@ -19,7 +19,7 @@ def create_quote(storage: Storage, catalogs: ParsedCatalogs, request: QuoteReque
     """Quote and store. A requester files quotes for its own team only."""
     if caller.role == "requester" and request.campaign.team != caller.team:
         raise Forbidden(f"this key files quotes for team {caller.team!r}, not {request.campaign.team!r}")
-    stored_catalog = catalog_to_use(storage, request.catalog_id, field="catalog_id")
+    stored_catalog = catalog_to_use(storage, request.catalog_id, field="catalog_id", on=clock().date())
     body = quote(catalogs.get(stored_catalog, storage), request)
     quote_id = new_id("q")
     normalised = request.model_dump(mode="json")

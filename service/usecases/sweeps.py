@@ -256,7 +256,7 @@ def submit_sweep(storage: Storage, catalogs: ParsedCatalogs, sweep: SweepIn, *, 
     """Check and store a sweep. Up to `answer_at_once` scenarios it runs now (201 with the answer);
     beyond, it is queued (202) and its progress is at GET /v1/sweeps/{id}. `keep` (from
     `once_per_key`) is given the answer in the transaction that stores the sweep."""
-    stored_catalog = catalog_to_use(storage, sweep.base.catalog_id, field="base.catalog_id")
+    stored_catalog = catalog_to_use(storage, sweep.base.catalog_id, field="base.catalog_id", on=now.date())
     prepared = prepare_sweep(catalogs.get(stored_catalog, storage), sweep, limits)
     sweep_id = new_id("sw")
     total = prepared.plan.scenarios

@@ -99,7 +99,7 @@ async def test_a_stored_quote_reads_back_identical(
 
 
 @pytest.mark.anyio
-async def test_the_newest_catalog_is_the_default_and_an_explicit_one_is_used(
+async def test_the_default_catalog_is_used_until_an_admin_changes_it_and_an_explicit_one_always(
     client: httpx.AsyncClient, clock: FakeClock, demo_catalog: dict[str, Any], owned_wins_request: dict[str, Any]
 ) -> None:
     demo = (await client.get("/v1/catalogs")).json()["items"][0]
@@ -108,9 +108,11 @@ async def test_the_newest_catalog_is_the_default_and_an_explicit_one_is_used(
     newer_content["name"] = "newer"
     newer = (await client.post("/v1/catalogs", json=newer_content)).json()
     by_default = await create(client, owned_wins_request)
-    assert (by_default["catalog_id"], by_default["catalog_hash"]) == (newer["id"], newer["content_hash"])
-    explicit = await create(client, {**owned_wins_request, "catalog_id": demo["id"]})
-    assert (explicit["catalog_id"], explicit["catalog_hash"]) == (demo["id"], demo["content_hash"])
+    assert (by_default["catalog_id"], by_default["catalog_hash"]) == (demo["id"], demo["content_hash"])
+    explicit = await create(client, {**owned_wins_request, "catalog_id": newer["id"]})
+    assert (explicit["catalog_id"], explicit["catalog_hash"]) == (newer["id"], newer["content_hash"])
+    assert (await client.put("/v1/catalogs/default", json={"catalog_id": newer["id"]})).status_code == 200
+    assert (await create(client, owned_wins_request))["catalog_id"] == newer["id"]
 
 
 @pytest.mark.anyio
