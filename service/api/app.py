@@ -14,6 +14,7 @@ from service import __version__
 from service.api import problems
 from service.api.auth import LocalMode, RateLimiter
 from service.api.deps import compute_lane, utc_now
+from service.api.docs import install_docs
 from service.api.examples import quote_request_examples
 from service.api.middleware import BodyLimit, HeadAsGet, RequestContext, TimeLimit
 from service.api.observability import install_metrics
@@ -64,7 +65,8 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
         app.state.sweeps.shutdown()
         app.state.storage.dispose()
 
-    app = FastAPI(title="berth", version=__version__, description=DESCRIPTION, lifespan=lifespan)
+    app = FastAPI(title="berth", version=__version__, description=DESCRIPTION, lifespan=lifespan,
+                  docs_url=None, redoc_url=None)
     app.state.settings = settings
     app.state.storage = Storage(build_engine(settings.database_url))
     app.state.catalogs = ParsedCatalogs()
@@ -83,6 +85,7 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     app.add_middleware(TimeLimit, seconds=settings.request_timeout_seconds)
     app.add_middleware(RequestContext)
     app.include_router(probes.router)
+    install_docs(app)
     for router in (catalogs.router, quotes.router, sweeps.router, fleet_plans.router):
         app.include_router(router, responses=problems.ACCESS_RESPONSES)
     app.openapi = lambda: _openapi(app)  # type: ignore[method-assign]

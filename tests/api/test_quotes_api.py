@@ -4,6 +4,7 @@ nothing, and the OpenAPI document carries the demo examples."""
 
 import copy
 import json
+import re
 import shutil
 from datetime import timedelta
 from pathlib import Path
@@ -300,7 +301,7 @@ async def test_the_same_key_and_body_replays_the_first_answer(
     again = await client.post("/v1/quotes", content=reordered,
                               headers={"Idempotency-Key": "k-1", "content-type": "application/json"})
     assert again.status_code == 201
-    assert again.headers["idempotent-replayed"] == "true"
+    assert again.headers["berth-replayed"] == "true"
     assert again.headers["location"] == f"/v1/quotes/{first['id']}"
     assert again.json() == first
     assert count(storage) == 1
@@ -334,7 +335,7 @@ async def test_a_key_still_in_flight_is_a_conflict_until_its_lease_runs_out(
     clock.advance(seconds=2)  # 61 s after the claim: the first request is presumed dead
     response = await client.post("/v1/quotes", content=raw, headers=headers)
     assert response.status_code == 201
-    assert "idempotent-replayed" not in response.headers
+    assert "berth-replayed" not in response.headers
     assert count(storage) == 1
 
 
@@ -368,6 +369,19 @@ async def test_the_openapi_document_has_the_demo_examples_and_the_problem_and_ca
     docs = await client.get("/docs")
     assert docs.status_code == 200
     assert "text/html" in docs.headers["content-type"]
+
+
+@pytest.mark.anyio
+async def test_the_docs_page_loads_its_assets_from_berth_itself(client: httpx.AsyncClient) -> None:
+    page = (await client.get("/docs")).text
+    assert "://" not in page  # no absolute URL: nothing from a public network
+    assets = re.findall(r'(?:src|href)="([^"]+)"', page)
+    assert {"/docs/assets/swagger-ui-bundle.js", "/docs/assets/swagger-ui.css"} <= set(assets)
+    for asset in assets:
+        response = await client.get(asset)
+        assert response.status_code == 200 and len(response.content) > 0, asset
+    assert "SwaggerUIBundle" in (await client.get("/docs/assets/swagger-ui-bundle.js")).text
+    assert (await client.get("/redoc")).status_code == 404  # its scripts would come from a public network
 
 
 def test_the_openapi_examples_are_the_campaigns_beside_the_demo_catalog(tmp_path: Path) -> None:
