@@ -9,6 +9,7 @@ from typing import Any
 
 from fastapi import FastAPI
 from fastapi.openapi.utils import get_openapi
+from starlette.middleware.gzip import GZipMiddleware
 
 from service import __version__
 from service.api import problems
@@ -16,6 +17,7 @@ from service.api.auth import LocalMode, RateLimiter
 from service.api.deps import compute_lane, utc_now
 from service.api.docs import install_docs
 from service.api.examples import quote_request_examples
+from service.api.manners import KnownQueryOnly
 from service.api.middleware import BodyLimit, HeadAsGet, RequestContext, TimeLimit
 from service.api.observability import install_metrics
 from service.api.routers import catalogs, fleet_plans, probes, quotes, sweeps
@@ -29,6 +31,7 @@ from service.usecases.catalogs import ParsedCatalogs, load_demo_catalog
 from service.usecases.sweeps import SweepRunner
 
 log = logging.getLogger("berth")
+GZIP_FROM_BYTES = 1024  # smaller answers gain little and cost a compression each
 
 DESCRIPTION = """Where a machine-learning training campaign should run, and what it will cost.
 
@@ -78,16 +81,17 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     install_metrics(app)
     app.state.sweeps = SweepRunner(app.state.storage, app.state.catalogs, clock,
                                    count_scenarios=app.state.metrics.sweep_scenarios.inc)
-    # Outermost first: every response carries a request id, then time and size limits apply, and
-    # innermost HEAD becomes GET.
+    # Outermost first: every response carries a request id, answers over 1 KB are gzipped for clients
+    # that accept it, then time and size limits apply, and innermost HEAD becomes GET.
     app.add_middleware(HeadAsGet)
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     app.add_middleware(TimeLimit, seconds=settings.request_timeout_seconds)
+    app.add_middleware(GZipMiddleware, minimum_size=GZIP_FROM_BYTES)
     app.add_middleware(RequestContext)
     app.include_router(probes.router)
     install_docs(app)
     for router in (catalogs.router, quotes.router, sweeps.router, fleet_plans.router):
-        app.include_router(router, responses=problems.ACCESS_RESPONSES)
+        app.include_router(router, responses=problems.ACCESS_RESPONSES, dependencies=[KnownQueryOnly])
     app.openapi = lambda: _openapi(app)  # type: ignore[method-assign]
     return app
 

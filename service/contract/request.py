@@ -101,6 +101,12 @@ class CampaignIn(Strict):
     data: DataIn = Field(default_factory=DataIn)
 
 
+class RequoteIn(Strict):
+    """`POST /v1/quotes/{id}/requote`: the catalog to quote the stored request against."""
+
+    catalog_id: Identifier
+
+
 class OptionsIn(Strict):
     terms: list[Term] = Field(default_factory=lambda: list(ALL_TERMS), min_length=1)
     max_accelerators: PositiveInt | None = None

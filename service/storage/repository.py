@@ -117,6 +117,14 @@ def _sweep(row: SweepRow) -> StoredSweep:
 
 
 @dataclass(frozen=True)
+class StoredFleetPlan:
+    id: str
+    created_at: datetime
+    catalog_id: str
+    response: dict[str, Any]
+
+
+@dataclass(frozen=True)
 class StoredKey:
     id: str
     prefix: str
@@ -224,12 +232,7 @@ class Repository:
         query = select(CatalogRow)
         if status is not None:
             query = query.where(CatalogRow.status == status)
-        if cursor:
-            moment, ident = decode_cursor(cursor)
-            query = query.where(or_(col(CatalogRow.created_at) < moment,
-                                    and_(col(CatalogRow.created_at) == moment, col(CatalogRow.id) < ident)))
-        query = query.order_by(col(CatalogRow.created_at).desc(), col(CatalogRow.id).desc()).limit(limit + 1)
-        rows = [_catalog(r) for r in self.session.exec(query).all()]
+        rows = [_catalog(r) for r in self.session.exec(_newest_first(query, CatalogRow, cursor, limit)).all()]
         return _page(rows, limit)
 
     # quotes
@@ -257,11 +260,7 @@ class Repository:
             query = query.where(QuoteRow.created_at >= utc(created_from).astimezone(UTC))
         if created_to is not None:
             query = query.where(QuoteRow.created_at < utc(created_to).astimezone(UTC))
-        if cursor:
-            moment, ident = decode_cursor(cursor)
-            query = query.where(or_(col(QuoteRow.created_at) < moment,
-                                    and_(col(QuoteRow.created_at) == moment, col(QuoteRow.id) < ident)))
-        query = query.order_by(col(QuoteRow.created_at).desc(), col(QuoteRow.id).desc()).limit(limit + 1)
+        query = _newest_first(query, QuoteRow, cursor, limit)
         return _page([_quote(r) for r in self.session.exec(query).all()], limit)
 
     def count_quotes(self) -> int:
@@ -359,6 +358,10 @@ class Repository:
             .values(status="running", heartbeat_at=now, scenarios_done=0))
         return bool(getattr(result, "rowcount", 0) == 1)
 
+    def sweeps(self, *, limit: int, cursor: str | None) -> tuple[list[StoredSweep], str | None]:
+        query = _newest_first(select(SweepRow), SweepRow, cursor, limit)
+        return _page([_sweep(r) for r in self.session.exec(query).all()], limit)
+
     def unfinished_sweeps(self) -> list[StoredSweep]:
         query = select(SweepRow).where(col(SweepRow.status).in_(("queued", "running")))
         return [_sweep(r) for r in self.session.exec(query.order_by(col(SweepRow.created_at))).all()]
@@ -369,6 +372,12 @@ class Repository:
         self.session.add(FleetPlanRow(id=plan_id, created_at=created_at, catalog_id=catalog_id,
                                       request=as_text(request, sort_keys=True), response=as_text(response)))
         self.session.flush()
+
+    def fleet_plans(self, *, limit: int, cursor: str | None) -> tuple[list[StoredFleetPlan], str | None]:
+        query = _newest_first(select(FleetPlanRow), FleetPlanRow, cursor, limit)
+        rows = [StoredFleetPlan(r.id, utc(r.created_at), r.catalog_id, from_text(r.response))
+                for r in self.session.exec(query).all()]
+        return _page(rows, limit)
 
     def fleet_plan(self, plan_id: str) -> dict[str, Any] | None:
         row = self.session.get(FleetPlanRow, plan_id)
@@ -407,6 +416,16 @@ class Repository:
 
     def ping(self) -> None:
         self.session.execute(text("SELECT 1"))
+
+
+def _newest_first(query: Any, table: Any, cursor: str | None, limit: int) -> Any:
+    """A page of `limit` rows (and one more, to know whether another page follows), newest first, after
+    the cursor's (created_at, id)."""
+    if cursor:
+        moment, ident = decode_cursor(cursor)
+        query = query.where(or_(col(table.created_at) < moment,
+                                and_(col(table.created_at) == moment, col(table.id) < ident)))
+    return query.order_by(col(table.created_at).desc(), col(table.id).desc()).limit(limit + 1)
 
 
 def _page(rows: list[Any], limit: int) -> tuple[list[Any], str | None]:

@@ -241,6 +241,17 @@ def create_fleet_plan(storage: Storage, catalogs: ParsedCatalogs, request: Fleet
     return Created(201, document)
 
 
+def find_fleet_plans(storage: Storage, *, limit: int, cursor: str | None) -> tuple[list[dict[str, Any]], str | None]:
+    """A page of fleet plans, newest first: what each sized and its answer's headline."""
+    with storage.reading() as repository:
+        items, next_cursor = repository.fleet_plans(limit=limit, cursor=cursor)
+    listed = [{"id": p.id, "created_at": p.created_at.isoformat().replace("+00:00", "Z"), "catalog_id": p.catalog_id,
+               **{k: p.response.get(k) for k in ("site", "offer", "term", "best_nodes",
+                                                 "probability_owning_beats_renting", "currency")},
+               "links": p.response.get("links", {"self": f"/v1/fleet-plans/{p.id}"})} for p in items]
+    return listed, next_cursor
+
+
 def get_fleet_plan(storage: Storage, plan_id: str) -> dict[str, Any]:
     with storage.reading() as repository:
         document = repository.fleet_plan(plan_id)

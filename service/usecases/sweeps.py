@@ -306,6 +306,14 @@ def get_sweep(storage: Storage, sweep_id: str) -> dict[str, Any]:
     return status_body(_stored(storage, sweep_id))
 
 
+def find_sweeps(storage: Storage, *, limit: int, cursor: str | None) -> tuple[list[dict[str, Any]], str | None]:
+    """A page of sweeps, newest first: each one's status wrapper without its result."""
+    with storage.reading() as repository:
+        items, next_cursor = repository.sweeps(limit=limit, cursor=cursor)
+    listed = [{k: v for k, v in status_body(s).items() if k not in ("result", "error")} for s in items]
+    return listed, next_cursor
+
+
 def prepared_from_store(storage: Storage, catalogs: ParsedCatalogs, sweep_id: str) -> PreparedSweep:
     stored = _stored(storage, sweep_id)
     with storage.reading() as repository:

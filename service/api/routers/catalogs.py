@@ -8,7 +8,8 @@ from fastapi.responses import Response
 
 from service.api.auth import Admin, AnyKey
 from service.api.deps import ClockDep, IdempotencyKeyDep, RawBodyDep, StorageDep
-from service.api.problems import CONFLICT, PROBLEM_RESPONSES
+from service.api.manners import JsonBody, JsonOrYamlBody
+from service.api.problems import CONFLICT, MEDIA_TYPE_RESPONSES, PROBLEM_RESPONSES
 from service.api.responses import created_response
 from service.contract.answers import CatalogOut, CatalogPage, CatalogSummary
 from service.contract.catalog import CatalogIn, CatalogStatusIn, DefaultCatalogIn
@@ -30,8 +31,9 @@ router = APIRouter(prefix="/v1/catalogs", tags=["catalogs"])
     "",
     status_code=201,
     response_model=CatalogOut,
+    dependencies=[JsonOrYamlBody],
     responses={200: {"model": CatalogOut, "description": "identical content was already stored"},
-               **PROBLEM_RESPONSES, **CONFLICT},
+               **PROBLEM_RESPONSES, **MEDIA_TYPE_RESPONSES, **CONFLICT},
     openapi_extra={"requestBody": {"required": True, "content": {
         "application/json": {"schema": {"$ref": "#/components/schemas/CatalogIn"}},
         "application/yaml": {"schema": {"$ref": "#/components/schemas/CatalogIn"}}}}},
@@ -71,7 +73,8 @@ def read_default_catalog(storage: StorageDep, _viewer: AnyKey) -> dict[str, Any]
     return get_catalog(storage, None)
 
 
-@router.put("/default", response_model=CatalogSummary, responses=PROBLEM_RESPONSES)
+@router.put("/default", response_model=CatalogSummary, dependencies=[JsonBody],
+            responses={**PROBLEM_RESPONSES, **MEDIA_TYPE_RESPONSES})
 def put_default_catalog(payload: DefaultCatalogIn, storage: StorageDep, clock: ClockDep,
                         _admin: Admin) -> dict[str, Any]:
     """Make an active catalog, effective today, the default for requests that name none. Uploads
@@ -85,7 +88,8 @@ def read_catalog(catalog_id: str, storage: StorageDep, _viewer: AnyKey) -> dict[
     return get_catalog(storage, catalog_id)
 
 
-@router.patch("/{catalog_id}", response_model=CatalogSummary, responses={**PROBLEM_RESPONSES, **CONFLICT})
+@router.patch("/{catalog_id}", response_model=CatalogSummary, dependencies=[JsonBody],
+              responses={**PROBLEM_RESPONSES, **MEDIA_TYPE_RESPONSES, **CONFLICT})
 def patch_catalog(catalog_id: str, payload: CatalogStatusIn, storage: StorageDep, _admin: Admin) -> dict[str, Any]:
     """Retire a catalog (new quotes, sweeps and plans may no longer use it; stored quotes keep it and
     recompute still reads it) or make it active again. Its content never changes. The default cannot
