@@ -7,6 +7,7 @@ from typing import Any
 from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter
 
+from service.reports.cautions import cautions
 from service.reports.formatting import money_whole
 from service.reports.svg import chart_style, finish
 
@@ -42,6 +43,6 @@ def fleet_figure_svg(plan: Json, *, prefix: str = "chart-fleet") -> str:
         ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:,.1f}"))
         ax.set_xlim(min(nodes), max(nodes) if max(nodes) > min(nodes) else min(nodes) + 1)
         ax.legend(loc="upper left", ncols=3)
-        return finish(figure, prefix=prefix, title=title, description=description,
+        return finish(figure, prefix=prefix, cautions=cautions(plan), title=title, description=description,
                       groups={"fleet-best": {"nodes": str(best),
                                              "present-cost-mean": f"{best_row['present_cost_mean']:.2f}"}})

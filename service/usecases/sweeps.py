@@ -208,12 +208,21 @@ def sweep_document(prepared: PreparedSweep, summary: dict[str, Any], rows: list[
 
 def csv_header(prepared: PreparedSweep, labels: list[str]) -> list[str]:
     return (["scenario"] + [f"{p} [{prepared.units[p]}]" for p in prepared.plan.paths] + ["cheapest", "currency"]
-            + [f"{label} total" for label in labels])
+            + [f"{label} total" for label in labels] + ["cautions"])
+
+
+def _quoted(text: str) -> str:
+    return '"' + text.replace('"', '""') + '"'
+
+
+CSV_CAUTIONS = _quoted(" ".join(CAUTIONS))
 
 
 def csv_chunks(prepared: PreparedSweep, progress: Progress | None = None, processes: int = 1) -> Iterator[str]:
     """Every scenario as CSV (RFC 4180), a chunk at a time: bounded memory at any size. Columns are
-    formatted by numpy as whole arrays; no Python loop runs per scenario."""
+    formatted by numpy as whole arrays; no Python loop runs per scenario. The cautions are the last
+    column of the first row (empty below it, which keeps millions of rows small): a spreadsheet shows
+    them at the top, and a reader that takes the first row as the header reads every row."""
     digits = Money(prepared.currency).digits
     first = 0
     for chunk in _chunks(prepared, processes):
@@ -228,6 +237,10 @@ def csv_chunks(prepared: PreparedSweep, progress: Progress | None = None, proces
         columns += [_decimals(chunk.inputs[p]) for p in prepared.plan.paths]
         columns += [cheapest, np.full(chunk.size, prepared.currency)]
         columns += [_decimals(np.round(totals, digits)) for totals in chunk.totals]
+        said = np.full(chunk.size, "", dtype=f"<U{len(CSV_CAUTIONS)}")
+        if first == 0:
+            said[0] = CSV_CAUTIONS
+        columns.append(said)
         lines = columns[0]
         for column in columns[1:]:
             lines = np.char.add(np.char.add(lines, ","), column)
