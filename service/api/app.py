@@ -37,7 +37,11 @@ DESCRIPTION = """Where a machine-learning training campaign should run, and what
 
 Estimates are for planning, not vendor quotes. Power, cooling and electrical figures must be confirmed
 by licensed engineers under local codes. A residency result is a screen against the rules entered with
-the request, not legal advice."""
+the request, not legal advice.
+
+Every POST that creates takes an `Idempotency-Key` header: the same key and body answer the first answer
+again, marked by the reply header `Berth-Replayed: true` (absent on a first answer). Quote answers take
+`?view=summary` for a lean shape; answers over 1 KB are gzipped when the client accepts it."""
 
 
 def prepare(app: FastAPI) -> None:
@@ -81,12 +85,13 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     install_metrics(app)
     app.state.sweeps = SweepRunner(app.state.storage, app.state.catalogs, clock,
                                    count_scenarios=app.state.metrics.sweep_scenarios.inc)
-    # Outermost first: every response carries a request id, answers over 1 KB are gzipped for clients
-    # that accept it, then time and size limits apply, and innermost HEAD becomes GET.
+    # Outermost first: every response carries a request id, then time and size limits apply, HEAD
+    # becomes GET, and innermost answers over 1 KB are gzipped for clients that accept it (inside
+    # HEAD, so a HEAD gets the same Content-Encoding and Content-Length as its GET).
+    app.add_middleware(GZipMiddleware, minimum_size=GZIP_FROM_BYTES)
     app.add_middleware(HeadAsGet)
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     app.add_middleware(TimeLimit, seconds=settings.request_timeout_seconds)
-    app.add_middleware(GZipMiddleware, minimum_size=GZIP_FROM_BYTES)
     app.add_middleware(RequestContext)
     app.include_router(probes.router)
     install_docs(app)

@@ -90,6 +90,8 @@ async def test_large_answers_are_gzipped_when_the_client_accepts_it(
         assert "content-encoding" not in small.headers  # under 1 KB: sent as it is
     csv = await client.get(f"/v1/quotes/{quote_id}/options.csv", headers={"accept-encoding": "gzip"})
     assert csv.headers["content-encoding"] == "gzip" and csv.text.startswith("rank,")  # streamed, too
+    head = await client.head(f"/v1/quotes/{quote_id}", headers={"accept-encoding": "gzip"})
+    assert (head.headers["content-encoding"], head.headers["content-length"]) == ("gzip", str(len(raw)))
 
 
 async def test_the_quote_list_names_the_recommended_option_its_programme_total_and_currency(
