@@ -15,6 +15,7 @@ import orjson
 from sqlalchemy import Engine, and_, delete, func, or_, text, update
 from sqlalchemy import select as sa_select
 from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import defer
 from sqlmodel import Session, col, select
 
 from service.errors import FieldProblem, InvalidInput
@@ -109,11 +110,13 @@ class StoredSweep:
     finished_at: datetime | None
 
 
-def _sweep(row: SweepRow) -> StoredSweep:
-    result = None if row.result is None else from_text(row.result)
+def _sweep(row: SweepRow, *, documents: bool = True) -> StoredSweep:
+    """A stored sweep; without its `documents` (request and result, which a listing does not show and
+    which may be megabytes), they are left empty and never read."""
+    result = None if not documents or row.result is None else from_text(row.result)
     finished = None if row.finished_at is None else utc(row.finished_at)
     return StoredSweep(row.id, utc(row.created_at), row.catalog_id, row.status, row.scenarios_total,
-                       row.scenarios_done, from_text(row.request), result, row.error, finished)
+                       row.scenarios_done, from_text(row.request) if documents else {}, result, row.error, finished)
 
 
 @dataclass(frozen=True)
@@ -359,8 +362,9 @@ class Repository:
         return bool(getattr(result, "rowcount", 0) == 1)
 
     def sweeps(self, *, limit: int, cursor: str | None) -> tuple[list[StoredSweep], str | None]:
-        query = _newest_first(select(SweepRow), SweepRow, cursor, limit)
-        return _page([_sweep(r) for r in self.session.exec(query).all()], limit)
+        query = _newest_first(select(SweepRow).options(defer(SweepRow.request), defer(SweepRow.result)),  # type: ignore[arg-type]
+                              SweepRow, cursor, limit)
+        return _page([_sweep(r, documents=False) for r in self.session.exec(query).all()], limit)
 
     def unfinished_sweeps(self) -> list[StoredSweep]:
         query = select(SweepRow).where(col(SweepRow.status).in_(("queued", "running")))

@@ -40,9 +40,6 @@ class ParsedCatalogs:
         return parsed
 
 
-STATUSES = ("active", "retired")
-
-
 def catalog_body(stored: StoredCatalog, *, with_content: bool, default_id: str | None) -> dict[str, Any]:
     """A stored catalog as the API answers it."""
     body: dict[str, Any] = {

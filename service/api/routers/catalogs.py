@@ -89,7 +89,8 @@ def read_catalog(catalog_id: str, storage: StorageDep, _viewer: AnyKey) -> dict[
 
 
 @router.patch("/{catalog_id}", response_model=CatalogSummary, dependencies=[JsonBody],
-              responses={**PROBLEM_RESPONSES, **MEDIA_TYPE_RESPONSES, **CONFLICT})
+              responses={**PROBLEM_RESPONSES, **MEDIA_TYPE_RESPONSES,
+                         409: {**CONFLICT[409], "description": "the default catalog cannot be retired"}})
 def patch_catalog(catalog_id: str, payload: CatalogStatusIn, storage: StorageDep, _admin: Admin) -> dict[str, Any]:
     """Retire a catalog (new quotes, sweeps and plans may no longer use it; stored quotes keep it and
     recompute still reads it) or make it active again. Its content never changes. The default cannot
