@@ -3,26 +3,34 @@ PYTHON ?= python3
 VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
+TEST_STAMP := $(VENV)/.test-installed
 BERTH_HOST ?= 127.0.0.1
 BERTH_PORT ?= 8000
 
 .PHONY: run test check lint typecheck bench clean
 
+# What the service needs, and nothing else: `make run` installs only this.
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/pip install --quiet --upgrade pip
-	$(BIN)/pip install --quiet -e '.[test]'
+	$(BIN)/pip install --quiet -e .
 	touch $(STAMP)
+
+# The test extras (pytest, type checker, linter, browser driver, fuzzer, PostgreSQL driver), added
+# by `make test` on top of the service's own install.
+$(TEST_STAMP): $(STAMP)
+	$(BIN)/pip install --quiet -e '.[test]'
+	touch $(TEST_STAMP)
 
 run: $(STAMP)
 	$(BIN)/berth serve --host $(BERTH_HOST) --port $(BERTH_PORT)
 
-test: $(STAMP)
+test: $(TEST_STAMP)
 	$(BIN)/ruff check service tests
 	$(BIN)/mypy
 	$(BIN)/pytest -q
 
-bench: $(STAMP)
+bench: $(TEST_STAMP)
 	@for script in tests/benchmarks/bench_*.py; do $(BIN)/python $$script; done
 
 clean:

@@ -9,12 +9,15 @@ from typing import Any
 
 from fastapi import FastAPI
 from fastapi.openapi.utils import get_openapi
+from starlette.middleware.gzip import GZipMiddleware
 
 from service import __version__
 from service.api import problems
 from service.api.auth import LocalMode, RateLimiter
 from service.api.deps import compute_lane, utc_now
+from service.api.docs import install_docs
 from service.api.examples import quote_request_examples
+from service.api.manners import KnownQueryOnly
 from service.api.middleware import BodyLimit, HeadAsGet, RequestContext, TimeLimit
 from service.api.observability import install_metrics
 from service.api.routers import catalogs, fleet_plans, probes, quotes, sweeps
@@ -28,12 +31,17 @@ from service.usecases.catalogs import ParsedCatalogs, load_demo_catalog
 from service.usecases.sweeps import SweepRunner
 
 log = logging.getLogger("berth")
+GZIP_FROM_BYTES = 1024  # smaller answers gain little and cost a compression each
 
 DESCRIPTION = """Where a machine-learning training campaign should run, and what it will cost.
 
 Estimates are for planning, not vendor quotes. Power, cooling and electrical figures must be confirmed
 by licensed engineers under local codes. A residency result is a screen against the rules entered with
-the request, not legal advice."""
+the request, not legal advice.
+
+Every POST that creates takes an `Idempotency-Key` header: the same key and body answer the first answer
+again, marked by the reply header `Berth-Replayed: true` (absent on a first answer). Quote answers take
+`?view=summary` for a lean shape; answers over 1 KB are gzipped when the client accepts it."""
 
 
 def prepare(app: FastAPI) -> None:
@@ -45,7 +53,7 @@ def prepare(app: FastAPI) -> None:
     if settings.load_demo_catalog and settings.demo_catalog.exists():
         loaded = load_demo_catalog(storage, settings.demo_catalog, now=app.state.clock())
         if loaded is not None:
-            log.info("loaded the demo catalog %s as %s", loaded.name, loaded.id)
+            log.info("loaded the demo catalog %s as %s", loaded["name"], loaded["id"])
     if app.state.local_mode.active():
         log.warning("local mode: no API keys are configured, so berth answers loopback callers only; "
                     "issue keys with `berth keys add --role ROLE --team TEAM`")
@@ -64,7 +72,8 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
         app.state.sweeps.shutdown()
         app.state.storage.dispose()
 
-    app = FastAPI(title="berth", version=__version__, description=DESCRIPTION, lifespan=lifespan)
+    app = FastAPI(title="berth", version=__version__, description=DESCRIPTION, lifespan=lifespan,
+                  docs_url=None, redoc_url=None)
     app.state.settings = settings
     app.state.storage = Storage(build_engine(settings.database_url))
     app.state.catalogs = ParsedCatalogs()
@@ -76,15 +85,18 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     install_metrics(app)
     app.state.sweeps = SweepRunner(app.state.storage, app.state.catalogs, clock,
                                    count_scenarios=app.state.metrics.sweep_scenarios.inc)
-    # Outermost first: every response carries a request id, then time and size limits apply, and
-    # innermost HEAD becomes GET.
+    # Outermost first: every response carries a request id, then time and size limits apply, HEAD
+    # becomes GET, and innermost answers over 1 KB are gzipped for clients that accept it (inside
+    # HEAD, so a HEAD gets the same Content-Encoding and Content-Length as its GET).
+    app.add_middleware(GZipMiddleware, minimum_size=GZIP_FROM_BYTES)
     app.add_middleware(HeadAsGet)
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     app.add_middleware(TimeLimit, seconds=settings.request_timeout_seconds)
     app.add_middleware(RequestContext)
     app.include_router(probes.router)
+    install_docs(app)
     for router in (catalogs.router, quotes.router, sweeps.router, fleet_plans.router):
-        app.include_router(router, responses=problems.ACCESS_RESPONSES)
+        app.include_router(router, responses=problems.ACCESS_RESPONSES, dependencies=[KnownQueryOnly])
     app.openapi = lambda: _openapi(app)  # type: ignore[method-assign]
     return app
 

@@ -9,6 +9,7 @@ from typing import Any
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
+from pydantic import BaseModel
 from starlette.exceptions import HTTPException
 from starlette.requests import ClientDisconnect
 
@@ -46,8 +47,9 @@ def install(app: FastAPI) -> None:
         return problem(error.status, error.title, error.detail, errors=errors)
 
     @app.exception_handler(RequestValidationError)
-    async def _validation(_request: Request, error: RequestValidationError) -> JSONResponse:
-        errors = [{"field": p.field, "reason": p.reason} for p in field_problems_from_list(list(error.errors()))]
+    async def _validation(request: Request, error: RequestValidationError) -> JSONResponse:
+        problems = field_problems_from_list(list(error.errors()), _body_model(request))
+        errors = [{"field": p.field, "reason": p.reason} for p in problems]
         return problem(422, "Invalid input", "the request does not match the schema", errors=errors)
 
     @app.exception_handler(HTTPException)
@@ -69,12 +71,23 @@ def install(app: FastAPI) -> None:
         return problem(500, "Internal error", "the service failed to answer; the error was logged")
 
 
+def _body_model(request: Request) -> type[BaseModel] | None:
+    """The model the route validates its body with, to suggest the field a typo meant."""
+    route = request.scope.get("route")
+    field = getattr(route, "body_field", None)
+    model = getattr(getattr(field, "field_info", None), "annotation", None)
+    return model if isinstance(model, type) and issubclass(model, BaseModel) else None
+
+
 def allowed_methods(request: Request) -> list[str]:
-    """Every method any route of this path answers, read from the app's OpenAPI paths."""
+    """Every method any route of this path answers, read from the app's OpenAPI paths. A path named
+    literally (`/v1/catalogs/default`) is its own resource, not an instance of a template beside it."""
+    paths = request.app.openapi().get("paths", {})
+    matching = [t for t in paths if re.fullmatch(re.sub(r"\{[^/]+\}", "[^/]+", t), request.url.path)]
+    literal = [t for t in matching if t == request.url.path]
     methods: set[str] = set()
-    for template, operations in request.app.openapi().get("paths", {}).items():
-        if re.fullmatch(re.sub(r"\{[^/]+\}", "[^/]+", template), request.url.path):
-            methods |= {m.upper() for m in operations}
+    for template in literal or matching:
+        methods |= {m.upper() for m in paths[template]}
     if "GET" in methods:
         methods.add("HEAD")
     return sorted(methods)
@@ -91,6 +104,8 @@ def _problems(*statuses: int) -> dict[int | str, dict[str, Any]]:
 
 
 PROBLEM_RESPONSES = _problems(400, 404, 413, 422)  # 400: an unreadable body; 413: one over the size limit
+# A route that reads a body: one in a media type it does not read.
+MEDIA_TYPE_RESPONSES = _problems(415)
 # A creating route with an Idempotency-Key whose first request is still running.
 CONFLICT: dict[int | str, dict[str, Any]] = {
     409: {"description": "a request with this Idempotency-Key is still in flight",

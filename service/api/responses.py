@@ -10,6 +10,9 @@ from fastapi.responses import JSONResponse
 
 from service.usecases.idempotency import Created
 
+# Marks an answer replayed for a repeated Idempotency-Key (the IETF draft defines no reply header, so
+# the name is berth's own): present, with the value "true", only on a replay.
+REPLAYED_HEADER = "Berth-Replayed"
 OPTIONS = orjson.OPT_NON_STR_KEYS | orjson.OPT_SERIALIZE_NUMPY  # keys and numbers as the stdlib encoder takes them
 
 
@@ -23,5 +26,5 @@ def created_response(outcome: Created, *, location: str) -> FastJSONResponse:
     replays the first answer to its Idempotency-Key."""
     headers = {"Location": location}
     if outcome.replayed:
-        headers["Idempotent-Replayed"] = "true"
+        headers[REPLAYED_HEADER] = "true"
     return FastJSONResponse(outcome.body, status_code=outcome.status_code, headers=headers)

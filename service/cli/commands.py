@@ -17,7 +17,7 @@ from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 from rich.table import Table
 
-from service.cli.render import print_plan, print_quote
+from service.cli.render import print_comparison, print_plan, print_quote
 from service.config import Settings
 from service.contract.catalog import CatalogIn
 from service.contract.request import QuoteRequestIn
@@ -102,6 +102,62 @@ def quote_command(
         print_quote(out, document)
 
 
+class CompareFormat(StrEnum):
+    table = "table"
+    json = "json"
+
+
+@app.command("compare")
+def compare_command(
+    first: Annotated[str, typer.Argument(metavar="A", help="a stored-quote file (JSON, as GET /v1/quotes/{id} or "
+                                                           "`berth quote --format json` gives it) or a quote id")],
+    second: Annotated[str, typer.Argument(metavar="B", help="the same, for the quote to compare A with")],
+    output: Annotated[CompareFormat, typer.Option("--format", help="table or json")] = CompareFormat.table,
+    database: DatabaseOption = None,
+) -> None:
+    """What changed from quote A to quote B: the recommendation, each option's total, days and layout,
+    the break-even rows that moved and the inputs that differ. Ids are read from the database."""
+    from service.usecases.comparing import compare_documents
+
+    try:
+        comparison = compare_documents(_quote_document(first, database), _quote_document(second, database))
+    except BerthError as error:
+        _fail(error)
+        return
+    if output is CompareFormat.json:
+        sys.stdout.write(json.dumps(comparison, indent=2, ensure_ascii=False) + "\n")
+    else:
+        print_comparison(out, comparison)
+
+
+QUOTE_ID = re.compile(r"q_[A-Za-z0-9]+")
+
+
+def _quote_document(value: str, database: str | None) -> dict[str, Any]:
+    """A quote document from a file, or from the database when `value` is a stored quote's id."""
+    path = Path(value)
+    if path.exists() or not QUOTE_ID.fullmatch(value):
+        try:
+            document = json.loads(path.read_text(encoding="utf-8"))
+        except OSError as error:
+            raise InvalidInput(f"cannot read {value}: {error.strerror}; give a stored-quote file or a quote id "
+                               f"(q_...)") from error
+        except ValueError as error:
+            raise InvalidInput(f"{value} is not JSON: {error}") from error
+        if not isinstance(document, dict) or not isinstance(document.get("options"), list) \
+                or document.get("view") == "summary":
+            raise InvalidInput(f"{value} is not a full stored quote (GET /v1/quotes/{{id}} or "
+                               f"`berth quote --format json`)")
+        return document
+    from service.usecases.quotes import get_quote
+
+    storage = _storage(database)
+    try:
+        return get_quote(storage, value).response
+    finally:
+        storage.dispose()
+
+
 # The form `new_id("cat")` gives stored catalogs; anything else is never looked up in a database.
 CATALOG_ID = re.compile(r"cat_[A-Za-z0-9]+")
 
@@ -133,9 +189,11 @@ def _quote_catalog(value: str | None, database: str | None) -> QuoteCatalog:
     except SQLAlchemyError as error:
         raise InvalidInput(f"cannot open the database to look up catalog {value!r}: {_first_line(error)}") from error
     try:
-        ref = catalog_to_use(storage, value, field="--catalog")
+        ref = catalog_to_use(storage, value, field="--catalog", on=datetime.now(UTC).date())
         return QuoteCatalog(ParsedCatalogs().get(ref, storage), ref.content_hash, ref.id)
     except InvalidInput as error:
+        if error.detail != "unknown catalog":
+            raise  # it exists, but is retired or not effective today: say that
         where = storage.engine.url.render_as_string(hide_password=True)
         raise InvalidInput(neither, [FieldProblem("--catalog", f"no file of that name, and no catalog with that "
                                                                f"id in {where}")]) from error

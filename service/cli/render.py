@@ -129,3 +129,54 @@ def print_plan(console: Console, plan: dict[str, Any]) -> None:
                   f"(saving {_money(staged['saving_vs_single_purchase'])})", highlight=False)
     for caution in plan["cautions"]:
         console.print(f"  • {caution}", highlight=False)
+
+
+def _signed(value: float | None, digits: int = 0) -> str:
+    return "—" if value is None else f"{value:+,.{digits}f}"
+
+
+def print_comparison(console: Console, comparison: dict[str, Any]) -> None:
+    """What changed from quote A to quote B: inputs, the recommendation, each option, break-even."""
+    a, b = comparison["a"], comparison["b"]
+    console.print(f"[bold]A[/] {a['id'] or '(not stored)'} ({a['created_at']}, catalog {a['catalog_id']})\n"
+                  f"[bold]B[/] {b['id'] or '(not stored)'} ({b['created_at']}, catalog {b['catalog_id']})",
+                  highlight=False)
+    if not comparison["changed"]:
+        console.print("No differences.")
+        return
+    inputs = comparison["inputs_changed"]
+    if inputs:
+        table = Table(title="Inputs that differ", title_justify="left")
+        for header in ("input", "A", "B"):
+            table.add_column(header, overflow="fold")
+        for change in inputs:
+            table.add_row(change["path"], str(change["a"]), str(change["b"]))
+        console.print(table)
+    recommendation = comparison["recommendation"]
+    names = [(r or {}).get("option") or "none" for r in (recommendation["a"], recommendation["b"])]
+    verb = "changed" if recommendation["changed"] else "unchanged"
+    console.print(f"Recommendation {verb}: {names[0]} → {names[1]} "
+                  f"(programme total {_signed(recommendation['programme_total_change'])})", highlight=False)
+    unit = "" if comparison["currency_changed"] else f" ({a['currency']})"
+    options = Table(title=f"Options{unit}", title_justify="left")
+    for header in ("option", "total A", "total B", "change", "days A", "days B", "layout"):
+        options.add_column(header, justify="left" if header in ("option", "layout") else "right")
+    for row in comparison["options"]:
+        fa, fb = row["a"] or {}, row["b"] or {}
+        layout = ", ".join(f"{c['field']} {c['a']}→{c['b']}" for c in row.get("layout_changes", []))
+        options.add_row(row["option"], _money(fa.get("total")), _money(fb.get("total")),
+                        _signed(row.get("total_change")), _fixed(fa.get("wall_clock_days")),
+                        _fixed(fb.get("wall_clock_days")), layout or ("only in " + ("B" if not fa else "A")
+                                                                        if not (fa and fb) else ""),
+                        style=None if row["changed"] else "dim")
+    console.print(options)
+    if comparison["breakeven_changed"]:
+        table = Table(title="Break-even that moved", title_justify="left")
+        for header in ("site", "rented option", "A", "B", "payback mo A", "payback mo B"):
+            table.add_column(header, justify="left" if header in ("site", "rented option") else "right")
+        for row in comparison["breakeven_changed"]:
+            ra, rb = row["a"] or {}, row["b"] or {}
+            table.add_row(row["site"], f"{row['offer']}/{row['term']}", _pct(ra.get("utilisation")),
+                          _pct(rb.get("utilisation")), _fixed(ra.get("payback_months")),
+                          _fixed(rb.get("payback_months")))
+        console.print(table)

@@ -262,11 +262,114 @@ class QuoteSummary(Open):
     catalog_id: str
     model_version: str
     recommendation: Recommendation | None
+    recommended_option: str | None
+    programme_total: float | None
+    currency: str | None
     links: dict[str, str]
 
 
 class QuotePage(Open):
     items: list[QuoteSummary]
+    next_cursor: str | None
+
+
+class OptionRow(Open):
+    """One option in the summary view: its whole layout and every cost total, without cost lines."""
+
+    rank: int | None
+    venue: Venue
+    term: str
+    feasible: bool
+    reasons: list[str]
+    layout: dict[str, Any]
+    wall_clock_days: float | None
+    accelerator_hours: float | None
+    cost: dict[str, Any]
+
+
+class BreakEvenBrief(Open):
+    site: str
+    offer: str
+    term: str
+    utilisation: float | None
+    payback_months: float | None
+    reason: str | None
+
+
+class QuoteSummaryView(Open):
+    """`?view=summary`: what a portal shows, about a fifth of the full document."""
+
+    view: Literal["summary"]
+    id: str | None
+    created_at: str
+    catalog_id: str | None
+    catalog_hash: str
+    model_version: str
+    currency: str
+    campaign: dict[str, Any]
+    recommendation: Recommendation | None
+    options: list[OptionRow]
+    breakeven: list[BreakEvenBrief]
+    next_steps: list[str]
+    cautions: list[str]
+    links: dict[str, str]
+
+
+class OptionChange(Open):
+    option: str
+    a: dict[str, Any] | None
+    b: dict[str, Any] | None
+    changed: bool
+
+
+class Comparison(Open):
+    """What changed from quote `a` to quote `b`."""
+
+    a: dict[str, Any]
+    b: dict[str, Any]
+    changed: bool
+    recommendation: dict[str, Any]
+    inputs_changed: list[dict[str, Any]]
+    inputs_changed_total: int
+    currency_changed: bool
+    options: list[OptionChange]
+    breakeven_changed: list[dict[str, Any]]
+
+
+class Requoted(Open):
+    quote: dict[str, Any]
+    comparison: Comparison
+
+
+class SweepSummary(Open):
+    id: str
+    status: str
+    created_at: str
+    finished_at: str | None
+    catalog_id: str
+    progress: dict[str, int]
+    links: dict[str, str]
+
+
+class SweepPage(Open):
+    items: list[SweepSummary]
+    next_cursor: str | None
+
+
+class FleetPlanSummary(Open):
+    id: str
+    created_at: str
+    catalog_id: str
+    site: str | None
+    offer: str | None
+    term: str | None
+    best_nodes: int | None
+    currency: str | None
+    links: dict[str, str]
+
+
+class FleetPlanPage(Open):
+    items: list[FleetPlanSummary]
     next_cursor: str | None
 
 
@@ -292,6 +395,10 @@ class CatalogSummary(Open):
     currency: str
     content_hash: str
     created_at: str
+    status: Literal["active", "retired"]
+    default: bool
+    effective_from: str | None
+    effective_until: str | None
 
 
 class CatalogOut(CatalogSummary):

@@ -2,10 +2,10 @@
 
 from collections import Counter
 from datetime import date
-from typing import Annotated, Literal
+from typing import Annotated, Any, Literal
 
 import pycountry
-from pydantic import Field, field_validator, model_validator
+from pydantic import Field, SerializerFunctionWrapHandler, field_validator, model_serializer, model_validator
 
 from service.contract.common import (
     CountryCode,
@@ -170,10 +170,24 @@ class OfferIn(Strict):
         return self
 
 
+class DefaultCatalogIn(Strict):
+    """`PUT /v1/catalogs/default`: which catalog requests that name none use."""
+
+    catalog_id: Identifier
+
+
+class CatalogStatusIn(Strict):
+    """`PATCH /v1/catalogs/{id}`: a catalog's lifecycle, the one thing about it that changes."""
+
+    status: Literal["active", "retired"]
+
+
 class CatalogIn(Strict):
     name: str = Field(min_length=1, max_length=200)
     currency: Annotated[str, Field(pattern=r"^[A-Z]{3}$", description="ISO 4217 code")]
-    effective_from: Annotated[date | None, Field(strict=False)] = None  # an ISO 8601 string in JSON
+    effective_from: Annotated[date | None, Field(strict=False, description="first day a quote may use it")] = None
+    effective_until: Annotated[date | None, Field(
+        strict=False, description="last day a quote may use it (inclusive); absent: no end")] = None
     jurisdiction_groups: dict[str, list[CountryCode]] = Field(default_factory=dict)
     finance: Finance = Field(default_factory=Finance)
     accelerators: list[AcceleratorIn] = Field(min_length=1)
@@ -198,9 +212,20 @@ class CatalogIn(Strict):
                 _known_country(code)
         return groups
 
+    @model_serializer(mode="wrap")
+    def _without_open_end(self, handler: SerializerFunctionWrapHandler) -> dict[str, Any]:
+        # A catalog without an end date dumps (and so hashes) as it did before the field existed.
+        dumped: dict[str, Any] = handler(self)
+        if dumped.get("effective_until", 0) is None:
+            del dumped["effective_until"]
+        return dumped
+
     @model_validator(mode="after")
     def _references(self) -> "CatalogIn":
         problems: list[tuple[str, str]] = []
+        if self.effective_from and self.effective_until and self.effective_until < self.effective_from:
+            problems.append(("effective_until", f"{self.effective_until} is before effective_from "
+                                                f"{self.effective_from}"))
         for kind, items in (("accelerators", self.accelerators), ("node_types", self.node_types),
                             ("sites", self.sites), ("offers", self.offers)):
             for ident, count in Counter(item.id for item in items).items():

@@ -119,6 +119,12 @@ class LayoutIn(Strict):
         return domain.LayoutPins(**self.model_dump())
 
 
+class RequoteIn(Strict):
+    """`POST /v1/quotes/{id}/requote`: the catalog to quote the stored request against."""
+
+    catalog_id: Identifier
+
+
 class OptionsIn(Strict):
     terms: list[Term] = Field(default_factory=lambda: list(ALL_TERMS), min_length=1)
     max_accelerators: PositiveInt | None = None

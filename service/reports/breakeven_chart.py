@@ -11,6 +11,7 @@ from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter, PercentFormatter
 
+from service.reports.cautions import cautions
 from service.reports.figures import RentedLine, SitePanel, marker_of, site_panels
 from service.reports.formatting import fixed, jurisdiction_label, percent, term_label
 from service.reports.svg import chart_style, finish, standalone
@@ -163,7 +164,7 @@ def breakeven_figure_svg(document: Json, *, prefix: str = "chart-breakeven") -> 
             figure = Figure(figsize=(WIDTH_IN, 1.2))
             figure.text(0.02, 0.5, "This quote has no owned site, so there is no break-even to draw.",
                         va="center", fontsize=10)
-            return finish(figure, prefix=prefix, title=title, groups=groups,
+            return finish(figure, prefix=prefix, cautions=cautions(document), title=title, groups=groups,
                           description="No owned site in this quote; nothing to compare with renting.")
         figure = Figure(figsize=(WIDTH_IN, 0.5 + PANEL_HEIGHT_IN * len(panels)))
         axes = figure.subplots(len(panels), 1, squeeze=False)[:, 0]
@@ -171,7 +172,8 @@ def breakeven_figure_svg(document: Json, *, prefix: str = "chart-breakeven") -> 
                                bottom=0.55 / figure.get_figheight(), hspace=0.55)
         for ax, panel in zip(axes, panels, strict=True):
             _panel(ax, panel, currency, groups)
-        return finish(figure, prefix=prefix, title=title, description=_description(panels, currency), groups=groups)
+        return finish(figure, prefix=prefix, cautions=cautions(document), title=title,
+                      description=_description(panels, currency), groups=groups)
 
 
 def breakeven_svg(document: Json) -> str:

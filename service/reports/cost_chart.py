@@ -8,6 +8,7 @@ from matplotlib.figure import Figure
 from matplotlib.patches import Patch
 from matplotlib.ticker import FuncFormatter
 
+from service.reports.cautions import cautions
 from service.reports.figures import category_labels, charted_options, cost_by_category, option_label
 from service.reports.formatting import money_whole, number, term_label
 from service.reports.svg import chart_style, finish
@@ -36,7 +37,7 @@ def cost_figure_svg(document: Json, *, prefix: str = "chart-costs") -> str:
         if not options:
             figure = Figure(figsize=(WIDTH_IN, 1.0))
             figure.text(0.02, 0.5, "No feasible option: nothing to break down.", va="center", fontsize=10)
-            return finish(figure, prefix=prefix, title=title, groups=groups,
+            return finish(figure, prefix=prefix, cautions=cautions(document), title=title, groups=groups,
                           description="No option passed every screen, so no cost breakdown is drawn.")
         height = 1.3 + BAR_IN * len(options)
         figure = Figure(figsize=(WIDTH_IN, height))
@@ -86,4 +87,5 @@ def cost_figure_svg(document: Json, *, prefix: str = "chart-costs") -> str:
         if left_out:
             description += (f". {left_out} further feasible option(s) cost over ten times the cheapest "
                             "and are not drawn.")
-        return finish(figure, prefix=prefix, title=title, description=description, groups=groups)
+        return finish(figure, prefix=prefix, cautions=cautions(document), title=title, description=description,
+                      groups=groups)

@@ -1,11 +1,14 @@
 """The options of a stored quote as CSV for spreadsheets (RFC 4180: CRLF line ends, quoted where
-needed): one row per option, units in the column names, plain decimals, a currency column."""
+needed): one row per option, units in the column names, plain decimals, a currency column, and the
+cautions in a last column on every row: a person sees them beside the figures (and they survive a
+sort or a filter), while a reader that takes the first row as the header reads every row as data."""
 
 import csv
 import io
 from collections.abc import Iterator
 from typing import Any
 
+from service.reports.cautions import cautions
 from service.reports.formatting import plain
 
 Json = dict[str, Any]
@@ -14,10 +17,11 @@ OPTIONS_CSV_HEADER = (
     "rank", "venue_kind", "venue_id", "jurisdiction", "term", "feasible", "reasons",
     "nodes", "accelerators", "wall_clock_days", "accelerator_hours",
     "total", "per_accelerator_hour", "it_kwh", "facility_kwh", "peak_it_kw", "cooling_tons", "kgco2e", "currency",
+    "cautions",
 )
 
 
-def _row(option: Json, currency: str) -> list[str]:
+def _row(option: Json, currency: str, cautions: str) -> list[str]:
     venue, layout, timing = option["venue"], option["layout"], option["timing"]
     cost, energy = option["cost"], option["energy"]
     values: list[object] = [
@@ -25,7 +29,7 @@ def _row(option: Json, currency: str) -> list[str]:
         "; ".join(option["reasons"]),
         layout["nodes"], layout["accelerators"], timing["wall_clock_days"], timing["accelerator_hours"],
         cost["total"], cost["per_accelerator_hour"], energy["it_kwh"], energy["facility_kwh"], energy["peak_it_kw"],
-        energy["cooling_tons"], energy["kgco2e"], cost.get("currency") or currency,
+        energy["cooling_tons"], energy["kgco2e"], cost.get("currency") or currency, cautions,
     ]
     return [plain(v) for v in values]
 
@@ -35,7 +39,8 @@ def options_csv(document: Json) -> Iterator[str]:
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\r\n")
     currency = str(document["currency"])
-    for row in (list(OPTIONS_CSV_HEADER), *(_row(o, currency) for o in document["options"])):
+    said = " ".join(cautions(document))
+    for row in (list(OPTIONS_CSV_HEADER), *(_row(o, currency, said) for o in document["options"])):
         writer.writerow(row)
         yield buffer.getvalue()
         buffer.seek(0)

@@ -9,6 +9,7 @@ from typing import Any
 from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter
 
+from service.reports.cautions import cautions
 from service.reports.formatting import money_whole
 from service.reports.svg import chart_style, finish
 
@@ -53,7 +54,8 @@ def fleet_figure_svg(plan: Json, *, prefix: str = "chart-fleet") -> str:
             _stages_panel(figure.add_axes((0.09, 0.08, 0.88, 0.37)), plan)
             groups["fleet-stages"] = {"months": " ".join(str(st["month"]) for st in stages),
                                       "nodes": " ".join(str(st["nodes"]) for st in stages)}
-        return finish(figure, prefix=prefix, title=title, description=description, groups=groups)
+        return finish(figure, prefix=prefix, cautions=cautions(plan), title=title, description=description,
+                      groups=groups)
 
 
 def _stages_panel(ax: Any, plan: Json) -> None:

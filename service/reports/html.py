@@ -8,23 +8,13 @@ from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescap
 from markupsafe import Markup
 
 from service.reports.breakeven_chart import breakeven_figure_svg
+from service.reports.cautions import cautions
 from service.reports.context import moment, report_context
 from service.reports.cost_chart import cost_figure_svg
 from service.reports.fleet_chart import fleet_figure_svg
 from service.reports.formatting import money, money_precise, number, percent, term_label
 
 Json = dict[str, Any]
-
-# The three cautions every report carries; a quote's own wording is kept when it says the same.
-CAUTIONS = (
-    ("vendor quote", "Planning estimate, not a vendor quote: the figures come from the catalog and the model's "
-                     "published methods, not from offers by any supplier."),
-    ("licensed engineers", "Power, cooling and electrical figures are for sizing discussions only and must be "
-                           "confirmed by licensed engineers under local codes."),
-    ("legal advice", "The residency result is a screen against the jurisdiction rules entered with the request, "
-                     "not legal advice."),
-)
-
 
 @cache
 def environment() -> Environment:
@@ -36,12 +26,6 @@ def environment() -> Environment:
         lstrip_blocks=True,
         keep_trailing_newline=True,
     )
-
-
-def cautions(document: Json) -> list[str]:
-    given = [str(c) for c in document.get("cautions", [])]
-    missing = [text for phrase, text in CAUTIONS if not any(phrase in c for c in given)]
-    return given + missing
 
 
 def render_report(document: Json) -> str:

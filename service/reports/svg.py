@@ -1,12 +1,14 @@
 """Matplotlib figures to SVG that is byte-identical on every render (conventions.md: a fixed
 `svg.hashsalt` and no date in the metadata), accessible (`role="img"`, `<title>` and `<desc>` named
 by `aria-labelledby`), safe to inline beside other charts in one page (every generated id is
-prefixed), and carrying figures for machines as `data-*` attributes on named groups."""
+prefixed), carrying figures for machines as `data-*` attributes on named groups, and the cautions
+twice: in the `<desc>` and as a footnote drawn below the chart, since a chart is also served alone."""
 
 import io
 import re
+import textwrap
 import threading
-from collections.abc import Iterator, Mapping
+from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from typing import Any
 from xml.sax.saxutils import escape, quoteattr
@@ -59,11 +61,42 @@ _URL = re.compile(r"url\(#([^)]+)\)")
 _HREF = re.compile(r'((?:xlink:)?href)="#([^"]+)"')
 
 
+FOOTNOTE_PT = 7.0
+FOOTNOTE_LINE_PT = 9.0
+FOOTNOTE_MARGIN_PT = 8.0
+# DejaVu Sans averages about 0.55 em a character; 0.6 leaves room for wide words.
+FOOTNOTE_CHAR_PT = 0.6 * FOOTNOTE_PT
+_SIZE = re.compile(r'width="([\d.]+)pt" height="([\d.]+)pt" viewBox="0 0 ([\d.]+) ([\d.]+)"')
+
+
+def _with_footnote(text: str, *, prefix: str, cautions: Sequence[str]) -> str:
+    """The SVG made taller by a footnote below the figure: the cautions in small type, wrapped to the
+    chart's width, on white. The figure itself is not redrawn, so its layout is unchanged."""
+    size = _SIZE.search(text)
+    if size is None or not cautions:
+        return text
+    width, height = float(size.group(3)), float(size.group(4))
+    columns = max(40, int((width - 2 * FOOTNOTE_MARGIN_PT) / FOOTNOTE_CHAR_PT))
+    lines = [line for caution in cautions for line in textwrap.wrap(caution, columns)]
+    extra = FOOTNOTE_MARGIN_PT + FOOTNOTE_LINE_PT * len(lines)
+    total = height + extra
+    text = text.replace(size.group(0), f'width="{width:g}pt" height="{total:g}pt" viewBox="0 0 {width:g} {total:g}"', 1)
+    rows = "".join(
+        f'\n  <text x="{FOOTNOTE_MARGIN_PT:g}" y="{height + FOOTNOTE_LINE_PT * (k + 1):g}" '
+        f'style="font-family: \'{FONT}\', sans-serif; font-size: {FOOTNOTE_PT:g}px; fill: #3b4652">'
+        f"{escape(line)}</text>" for k, line in enumerate(lines))
+    footnote = (f'<g id="{prefix}-cautions" class="cautions">\n  <rect x="0" y="{height:g}" width="{width:g}" '
+                f'height="{extra:g}" style="fill: #ffffff"/>{rows}\n </g>\n')
+    end = text.rindex("</svg>")
+    return text[:end] + footnote + text[end:]
+
+
 def finish(figure: Figure, *, prefix: str, title: str, description: str,
-           groups: Mapping[str, Mapping[str, str]]) -> str:
+           groups: Mapping[str, Mapping[str, str]], cautions: Sequence[str]) -> str:
     """The figure as an `<svg>` element (no XML prolog, so it can be inlined in HTML or served
     alone). `groups` maps the gids given to artists to the `data-*` attributes their group gets;
-    those gids are kept as they are and every other id is prefixed with `prefix`."""
+    those gids are kept as they are and every other id is prefixed with `prefix`. The cautions end
+    the `<desc>` and are drawn as a footnote below the figure."""
     buffer = io.StringIO()
     figure.savefig(buffer, format="svg", metadata=SVG_METADATA)
     text = buffer.getvalue()
@@ -84,9 +117,10 @@ def finish(figure: Figure, *, prefix: str, title: str, description: str,
     head_end = text.index(">") + 1
     opening = text[:head_end - 1] + (f' role="img" aria-labelledby="{prefix}-title {prefix}-desc"'
                                      f' class="chart" data-chart="{prefix}">')
+    described = " ".join([description, "Cautions:", *cautions]) if cautions else description
     heading = (f'\n <title id="{prefix}-title">{escape(title)}</title>'
-               f'\n <desc id="{prefix}-desc">{escape(description)}</desc>')
-    return opening + heading + text[head_end:]
+               f'\n <desc id="{prefix}-desc">{escape(described)}</desc>')
+    return _with_footnote(opening + heading + text[head_end:], prefix=prefix, cautions=cautions)
 
 
 def standalone(svg: str) -> str:

@@ -8,17 +8,27 @@ import uuid
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
-from datetime import UTC, datetime, timedelta
+from datetime import UTC, date, datetime, timedelta
 from typing import Any
 
 import orjson
 from sqlalchemy import Engine, and_, delete, func, or_, text, update
+from sqlalchemy import select as sa_select
 from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import defer
 from sqlmodel import Session, col, select
 
 from service.errors import FieldProblem, InvalidInput
 from service.storage.engine import READ_ONLY
-from service.storage.tables import ApiKeyRow, CatalogRow, FleetPlanRow, IdempotencyRow, QuoteRow, SweepRow
+from service.storage.tables import (
+    ApiKeyRow,
+    CatalogRow,
+    DefaultCatalogRow,
+    FleetPlanRow,
+    IdempotencyRow,
+    QuoteRow,
+    SweepRow,
+)
 
 
 def utc(moment: datetime) -> datetime:
@@ -55,14 +65,22 @@ class StoredCatalog:
     content_hash: str
     content: dict[str, Any]
     created_at: datetime
+    status: str = "active"
+    effective_from: date | None = None
+    effective_until: date | None = None
 
 
 @dataclass(frozen=True)
 class CatalogRef:
-    """Which catalog, without its content: enough to find it parsed in a cache."""
+    """Which catalog, without its content: enough to find it parsed in a cache, and to say whether
+    a quote may use it on a date."""
 
     id: str
     content_hash: str
+    name: str = ""
+    status: str = "active"
+    effective_from: date | None = None
+    effective_until: date | None = None
 
 
 @dataclass(frozen=True)
@@ -92,11 +110,21 @@ class StoredSweep:
     finished_at: datetime | None
 
 
-def _sweep(row: SweepRow) -> StoredSweep:
-    result = None if row.result is None else from_text(row.result)
+def _sweep(row: SweepRow, *, documents: bool = True) -> StoredSweep:
+    """A stored sweep; without its `documents` (request and result, which a listing does not show and
+    which may be megabytes), they are left empty and never read."""
+    result = None if not documents or row.result is None else from_text(row.result)
     finished = None if row.finished_at is None else utc(row.finished_at)
     return StoredSweep(row.id, utc(row.created_at), row.catalog_id, row.status, row.scenarios_total,
-                       row.scenarios_done, from_text(row.request), result, row.error, finished)
+                       row.scenarios_done, from_text(row.request) if documents else {}, result, row.error, finished)
+
+
+@dataclass(frozen=True)
+class StoredFleetPlan:
+    id: str
+    created_at: datetime
+    catalog_id: str
+    response: dict[str, Any]
 
 
 @dataclass(frozen=True)
@@ -126,7 +154,11 @@ class Claim:
 
 def _catalog(row: CatalogRow) -> StoredCatalog:
     return StoredCatalog(row.id, row.name, row.currency, row.content_hash, from_text(row.content),
-                         utc(row.created_at))
+                         utc(row.created_at), row.status, row.effective_from, row.effective_until)
+
+
+_CATALOG_REF = (col(CatalogRow.id), col(CatalogRow.content_hash), col(CatalogRow.name), col(CatalogRow.status),
+                col(CatalogRow.effective_from), col(CatalogRow.effective_until))
 
 
 def _quote(row: QuoteRow) -> StoredQuote:
@@ -161,9 +193,11 @@ class Repository:
         return None if row is None else _catalog(row)
 
     def add_catalog(self, *, name: str, currency: str, content_hash: str, content: dict[str, Any],
-                    created_at: datetime) -> StoredCatalog:
+                    created_at: datetime, effective_from: date | None = None,
+                    effective_until: date | None = None) -> StoredCatalog:
         row = CatalogRow(id=new_id("cat"), name=name, currency=currency, content_hash=content_hash,
-                         content=as_text(content, sort_keys=True), created_at=created_at)
+                         content=as_text(content, sort_keys=True), created_at=created_at, status="active",
+                         effective_from=effective_from, effective_until=effective_until)
         self.session.add(row)
         self.session.flush()
         return _catalog(row)
@@ -173,23 +207,35 @@ class Repository:
         return None if row is None else _catalog(row)
 
     def catalog_ref(self, catalog_id: str | None) -> CatalogRef | None:
-        """The named catalog, or the newest when none is named, without reading its content."""
-        query = select(CatalogRow.id, CatalogRow.content_hash)
+        """The named catalog, or the default when none is named, without reading its content."""
+        query = sa_select(*_CATALOG_REF)
         if catalog_id is None:
-            query = query.order_by(col(CatalogRow.created_at).desc(), col(CatalogRow.id).desc())
+            query = query.join(DefaultCatalogRow, col(DefaultCatalogRow.catalog_id) == col(CatalogRow.id))
         else:
-            query = query.where(CatalogRow.id == catalog_id)
-        row = self.session.exec(query.limit(1)).first()
-        return None if row is None else CatalogRef(row[0], row[1])
+            query = query.where(col(CatalogRow.id) == catalog_id)
+        row = self.session.execute(query.limit(1)).first()
+        return None if row is None else CatalogRef(*row)
 
-    def catalogs(self, *, limit: int, cursor: str | None) -> tuple[list[StoredCatalog], str | None]:
+    def default_catalog_id(self) -> str | None:
+        return self.session.exec(select(DefaultCatalogRow.catalog_id)).first()
+
+    def set_default_catalog(self, catalog_id: str, *, now: datetime) -> None:
+        row = self.session.get(DefaultCatalogRow, 1)
+        if row is None:
+            row = DefaultCatalogRow(slot=1, catalog_id=catalog_id, set_at=now)
+        row.catalog_id, row.set_at = catalog_id, now
+        self.session.add(row)
+        self.session.flush()
+
+    def set_catalog_status(self, catalog_id: str, status: str) -> None:
+        self.session.execute(update(CatalogRow).where(col(CatalogRow.id) == catalog_id).values(status=status))
+
+    def catalogs(self, *, limit: int, cursor: str | None, status: str | None = None,
+                 ) -> tuple[list[StoredCatalog], str | None]:
         query = select(CatalogRow)
-        if cursor:
-            moment, ident = decode_cursor(cursor)
-            query = query.where(or_(col(CatalogRow.created_at) < moment,
-                                    and_(col(CatalogRow.created_at) == moment, col(CatalogRow.id) < ident)))
-        query = query.order_by(col(CatalogRow.created_at).desc(), col(CatalogRow.id).desc()).limit(limit + 1)
-        rows = [_catalog(r) for r in self.session.exec(query).all()]
+        if status is not None:
+            query = query.where(CatalogRow.status == status)
+        rows = [_catalog(r) for r in self.session.exec(_newest_first(query, CatalogRow, cursor, limit)).all()]
         return _page(rows, limit)
 
     # quotes
@@ -217,11 +263,7 @@ class Repository:
             query = query.where(QuoteRow.created_at >= utc(created_from).astimezone(UTC))
         if created_to is not None:
             query = query.where(QuoteRow.created_at < utc(created_to).astimezone(UTC))
-        if cursor:
-            moment, ident = decode_cursor(cursor)
-            query = query.where(or_(col(QuoteRow.created_at) < moment,
-                                    and_(col(QuoteRow.created_at) == moment, col(QuoteRow.id) < ident)))
-        query = query.order_by(col(QuoteRow.created_at).desc(), col(QuoteRow.id).desc()).limit(limit + 1)
+        query = _newest_first(query, QuoteRow, cursor, limit)
         return _page([_quote(r) for r in self.session.exec(query).all()], limit)
 
     def count_quotes(self) -> int:
@@ -319,6 +361,11 @@ class Repository:
             .values(status="running", heartbeat_at=now, scenarios_done=0))
         return bool(getattr(result, "rowcount", 0) == 1)
 
+    def sweeps(self, *, limit: int, cursor: str | None) -> tuple[list[StoredSweep], str | None]:
+        query = _newest_first(select(SweepRow).options(defer(SweepRow.request), defer(SweepRow.result)),  # type: ignore[arg-type]
+                              SweepRow, cursor, limit)
+        return _page([_sweep(r, documents=False) for r in self.session.exec(query).all()], limit)
+
     def unfinished_sweeps(self) -> list[StoredSweep]:
         query = select(SweepRow).where(col(SweepRow.status).in_(("queued", "running")))
         return [_sweep(r) for r in self.session.exec(query.order_by(col(SweepRow.created_at))).all()]
@@ -329,6 +376,12 @@ class Repository:
         self.session.add(FleetPlanRow(id=plan_id, created_at=created_at, catalog_id=catalog_id,
                                       request=as_text(request, sort_keys=True), response=as_text(response)))
         self.session.flush()
+
+    def fleet_plans(self, *, limit: int, cursor: str | None) -> tuple[list[StoredFleetPlan], str | None]:
+        query = _newest_first(select(FleetPlanRow), FleetPlanRow, cursor, limit)
+        rows = [StoredFleetPlan(r.id, utc(r.created_at), r.catalog_id, from_text(r.response))
+                for r in self.session.exec(query).all()]
+        return _page(rows, limit)
 
     def fleet_plan(self, plan_id: str) -> dict[str, Any] | None:
         row = self.session.get(FleetPlanRow, plan_id)
@@ -367,6 +420,16 @@ class Repository:
 
     def ping(self) -> None:
         self.session.execute(text("SELECT 1"))
+
+
+def _newest_first(query: Any, table: Any, cursor: str | None, limit: int) -> Any:
+    """A page of `limit` rows (and one more, to know whether another page follows), newest first, after
+    the cursor's (created_at, id)."""
+    if cursor:
+        moment, ident = decode_cursor(cursor)
+        query = query.where(or_(col(table.created_at) < moment,
+                                and_(col(table.created_at) == moment, col(table.id) < ident)))
+    return query.order_by(col(table.created_at).desc(), col(table.id).desc()).limit(limit + 1)
 
 
 def _page(rows: list[Any], limit: int) -> tuple[list[Any], str | None]:

@@ -1,8 +1,8 @@
 """The tables. JSON documents are stored as text so SQLite and PostgreSQL hold the same bytes."""
 
-from datetime import datetime
+from datetime import date, datetime
 
-from sqlalchemy import Column, DateTime, Index, Text, UniqueConstraint
+from sqlalchemy import Column, Date, DateTime, Index, Text, UniqueConstraint
 from sqlmodel import Field, SQLModel
 
 
@@ -19,6 +19,22 @@ class CatalogRow(SQLModel, table=True):
     content_hash: str = Field(max_length=64, unique=True)
     content: str = Field(sa_column=Column(Text, nullable=False))
     created_at: datetime = Field(sa_column=_utc_column(index=True))
+    # The lifecycle: "active" or "retired" (the only thing about a catalog that changes), and the
+    # dates, copied from the content, on which a quote may use it (both inclusive; None: unbounded).
+    status: str = Field(default="active", max_length=16, sa_column_kwargs={"server_default": "active"})
+    effective_from: date | None = Field(default=None, sa_column=Column(Date, nullable=True))
+    effective_until: date | None = Field(default=None, sa_column=Column(Date, nullable=True))
+
+
+class DefaultCatalogRow(SQLModel, table=True):
+    """The catalog a request that names none uses: one row at most (`slot` is always 1), set by an
+    admin and never by an upload."""
+
+    __tablename__ = "default_catalog"
+
+    slot: int = Field(default=1, primary_key=True)
+    catalog_id: str = Field(foreign_key="catalog.id", max_length=40)
+    set_at: datetime = Field(sa_column=_utc_column())
 
 
 class QuoteRow(SQLModel, table=True):

@@ -315,7 +315,7 @@ def create_fleet_plan(storage: Storage, catalogs: ParsedCatalogs, request: Fleet
                       limits: FleetLimits, keep: KeepAnswer | None = None) -> Created:
     """Plan, store and return the plan with its id and links. `keep` (from `once_per_key`) is given
     the answer in the transaction that stores the plan."""
-    stored = catalog_to_use(storage, request.catalog_id, field="catalog_id")
+    stored = catalog_to_use(storage, request.catalog_id, field="catalog_id", on=now.date())
 
     def lookup(ids: Sequence[str]) -> list[StoredQuote | None]:
         with storage.reading() as repository:
@@ -333,6 +333,17 @@ def create_fleet_plan(storage: Storage, catalogs: ParsedCatalogs, request: Fleet
         if keep is not None:
             keep(repository, 201, document)
     return Created(201, document)
+
+
+def find_fleet_plans(storage: Storage, *, limit: int, cursor: str | None) -> tuple[list[dict[str, Any]], str | None]:
+    """A page of fleet plans, newest first: what each sized and its answer's headline."""
+    with storage.reading() as repository:
+        items, next_cursor = repository.fleet_plans(limit=limit, cursor=cursor)
+    listed = [{"id": p.id, "created_at": p.created_at.isoformat().replace("+00:00", "Z"), "catalog_id": p.catalog_id,
+               **{k: p.response.get(k) for k in ("site", "offer", "term", "best_nodes",
+                                                 "probability_owning_beats_renting", "currency")},
+               "links": p.response.get("links", {"self": f"/v1/fleet-plans/{p.id}"})} for p in items]
+    return listed, next_cursor
 
 
 def get_fleet_plan(storage: Storage, plan_id: str) -> dict[str, Any]:

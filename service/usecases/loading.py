@@ -1,7 +1,11 @@
 """Reading catalogs and requests from JSON or YAML text, with every problem named by field."""
 
+import difflib
 import json
 import re
+import types
+import typing
+from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import Any, TypeVar
 
@@ -25,13 +29,14 @@ def parse_document(text: str, *, source: str) -> Any:
             raise InvalidInput(f"{source} is neither valid JSON nor YAML: {json_error}") from json_error
 
 
-def field_problems(error: ValidationError) -> list[FieldProblem]:
+def field_problems(error: ValidationError, model: type[BaseModel] | None = None) -> list[FieldProblem]:
     """Pydantic's errors as {field, reason}, the field a dotted path with list indexes."""
-    return field_problems_from_list(list(error.errors(include_url=False)))
+    return field_problems_from_list(list(error.errors(include_url=False)), model)
 
 
-def field_problems_from_list(items: list[Any]) -> list[FieldProblem]:
-    """The same, from the error dictionaries pydantic and FastAPI produce."""
+def field_problems_from_list(items: list[Any], model: type[BaseModel] | None = None) -> list[FieldProblem]:
+    """The same, from the error dictionaries pydantic and FastAPI produce. With the `model` that was
+    validated, an unknown field close to a known one gets a "did you mean"."""
     problems = []
     for item in items:
         location = list(item["loc"])
@@ -46,9 +51,65 @@ def field_problems_from_list(items: list[Any]) -> list[FieldProblem]:
         if isinstance(cause, ReferenceProblems):
             prefix = f"{path}." if path else ""
             problems += [FieldProblem(prefix + field, reason) for field, reason in cause.problems]
+        elif item.get("type") == "extra_forbidden" and location:
+            known = None if model is None else fields_at(model, location[:-1])
+            match = None if not known else closest(str(location[-1]), known)
+            reason = f"unknown field; did you mean {match!r}?" if match else "unknown field"
+            problems.append(FieldProblem(field=path, reason=reason))
         else:
             problems.append(FieldProblem(field=path or "(body)", reason=_plain(item["msg"])))
     return problems
+
+
+def closest(name: str, known: Iterable[str]) -> str | None:
+    """The known name a mistyped one most likely meant, if any is close (difflib's ratio ≥ 0.6)."""
+    matches = difflib.get_close_matches(name, sorted(known), n=1, cutoff=0.6)
+    return matches[0] if matches else None
+
+
+def fields_at(model: type[BaseModel], location: Sequence[Any]) -> set[str] | None:
+    """The field names of the object found at `location` (an error's path) inside `model`, following
+    nested models, lists, dicts, optional values and unions (a discriminated union's tag, which pydantic
+    puts in the path, picks the member); None when the path leads to no model."""
+    current: Any = model
+    for part in location:
+        current = _step(current, part)
+        if current is None:
+            return None
+    current = _unwrap(current)
+    if isinstance(current, type) and issubclass(current, BaseModel):
+        return {field.alias or name for name, field in current.model_fields.items()}
+    return None
+
+
+def _unwrap(annotation: Any) -> Any:
+    while typing.get_origin(annotation) is typing.Annotated:
+        annotation = typing.get_args(annotation)[0]
+    return annotation
+
+
+def _step(annotation: Any, part: Any) -> Any:
+    annotation = _unwrap(annotation)
+    origin = typing.get_origin(annotation)
+    if origin in (typing.Union, types.UnionType):
+        members = [m for m in typing.get_args(annotation) if m is not type(None)]
+        for member in members:  # a discriminated union's tag names the member
+            if isinstance(member, type) and issubclass(member, BaseModel) and any(
+                    part in typing.get_args(_unwrap(f.annotation)) for f in member.model_fields.values()
+                    if typing.get_origin(_unwrap(f.annotation)) is typing.Literal):
+                return member
+        stepped = (_step(member, part) for member in members)
+        return next((s for s in stepped if s is not None), None)
+    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
+        for name, field in annotation.model_fields.items():
+            if part in (name, field.alias):
+                return field.annotation
+        return None
+    if origin in (list, tuple) and isinstance(part, int):
+        return typing.get_args(annotation)[0]
+    if origin is dict:
+        return typing.get_args(annotation)[1]
+    return None
 
 
 def _plain(message: str) -> str:
@@ -72,7 +133,7 @@ def validate(model: type[Model], data: Any, *, source: str) -> Model:
         # Lax on purpose: PyYAML (YAML 1.1) reads 1.4e12 as a string, and files may be YAML.
         return model.model_validate(data, strict=False)
     except ValidationError as error:
-        raise InvalidInput(f"{source} is not valid", field_problems(error)) from error
+        raise InvalidInput(f"{source} is not valid", field_problems(error, model)) from error
 
 
 def load_file(model: type[Model], path: Path) -> Model:

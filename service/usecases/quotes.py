@@ -10,6 +10,7 @@ from service.errors import FieldProblem, Forbidden, InvalidInput, NotFound
 from service.storage.repository import CatalogRef, Storage, StoredQuote, new_id
 from service.usecases.access import LOCAL, Principal
 from service.usecases.catalogs import ParsedCatalogs, catalog_to_use
+from service.usecases.differences import differences
 from service.usecases.idempotency import Created, KeepAnswer
 from service.usecases.quoting import envelope, model_version, quote
 
@@ -19,7 +20,7 @@ def create_quote(storage: Storage, catalogs: ParsedCatalogs, request: QuoteReque
     """Quote and store. A requester files quotes for its own team only."""
     if caller.role == "requester" and request.campaign.team != caller.team:
         raise Forbidden(f"this key files quotes for team {caller.team!r}, not {request.campaign.team!r}")
-    stored_catalog = catalog_to_use(storage, request.catalog_id, field="catalog_id")
+    stored_catalog = catalog_to_use(storage, request.catalog_id, field="catalog_id", on=clock().date())
     body = quote(catalogs.get(stored_catalog, storage), request)
     quote_id = new_id("q")
     normalised = request.model_dump(mode="json")
@@ -75,31 +76,13 @@ def recompute_quote(storage: Storage, catalogs: ParsedCatalogs, quote_id: str,
     recomputed = quote(catalogs.get(CatalogRef(stored.catalog_id, stored.catalog_hash), storage), request)
     previous = {k: v for k, v in stored.response.items()
                 if k not in ("id", "created_at", "catalog_id", "catalog_hash", "model_version")}
-    differences = list(_differences(previous, recomputed, ""))
+    found = [{"path": d["path"], "stored": d["a"], "recomputed": d["b"]} for d in differences(previous, recomputed)]
     return {
         "quote_id": quote_id,
         "catalog_id": stored.catalog_id,
         "model_version_stored": stored.model_version,
         "model_version_now": model_version(),
-        "changed": bool(differences),
-        "differences": differences[:1000],
-        "differences_total": len(differences),
+        "changed": bool(found),
+        "differences": found[:1000],
+        "differences_total": len(found),
     }
-
-
-def _differences(old: Any, new: Any, path: str) -> Any:
-    if isinstance(old, dict) and isinstance(new, dict):
-        for key in sorted(set(old) | set(new)):
-            yield from _differences(old.get(key), new.get(key), f"{path}.{key}" if path else key)
-    elif isinstance(old, list) and isinstance(new, list) and len(old) == len(new):
-        for k, (a, b) in enumerate(zip(old, new, strict=True)):
-            yield from _differences(a, b, f"{path}[{k}]")
-    elif _numbers(old, new):
-        if abs(old - new) > 1e-9 * max(abs(old), abs(new), 1e-300):
-            yield {"path": path, "stored": old, "recomputed": new}
-    elif old != new:
-        yield {"path": path, "stored": old, "recomputed": new}
-
-
-def _numbers(a: Any, b: Any) -> bool:
-    return all(isinstance(x, int | float) and not isinstance(x, bool) for x in (a, b))

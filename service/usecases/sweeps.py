@@ -213,12 +213,21 @@ def sweep_document(prepared: PreparedSweep, summary: dict[str, Any], rows: list[
 
 def csv_header(prepared: PreparedSweep, labels: list[str]) -> list[str]:
     return (["scenario"] + [f"{p} [{prepared.units[p]}]" for p in prepared.plan.paths] + ["cheapest", "currency"]
-            + [f"{label} total" for label in labels])
+            + [f"{label} total" for label in labels] + ["cautions"])
+
+
+def _quoted(text: str) -> str:
+    return '"' + text.replace('"', '""') + '"'
+
+
+CSV_CAUTIONS = _quoted(" ".join(CAUTIONS))
 
 
 def csv_chunks(prepared: PreparedSweep, progress: Progress | None = None, processes: int = 1) -> Iterator[str]:
     """Every scenario as CSV (RFC 4180), a chunk at a time: bounded memory at any size. Columns are
-    formatted by numpy as whole arrays; no Python loop runs per scenario."""
+    formatted by numpy as whole arrays; no Python loop runs per scenario. The cautions are the last
+    column of the first row (empty below it, which keeps millions of rows small): a spreadsheet shows
+    them at the top, and a reader that takes the first row as the header reads every row."""
     digits = Money(prepared.currency).digits
     first = 0
     for chunk in _chunks(prepared, processes):
@@ -233,6 +242,10 @@ def csv_chunks(prepared: PreparedSweep, progress: Progress | None = None, proces
         columns += [_decimals(chunk.inputs[p]) for p in prepared.plan.paths]
         columns += [cheapest, np.full(chunk.size, prepared.currency)]
         columns += [_decimals(np.round(totals, digits)) for totals in chunk.totals]
+        said = np.full(chunk.size, "", dtype=f"<U{len(CSV_CAUTIONS)}")
+        if first == 0:
+            said[0] = CSV_CAUTIONS
+        columns.append(said)
         lines = columns[0]
         for column in columns[1:]:
             lines = np.char.add(np.char.add(lines, ","), column)
@@ -261,7 +274,7 @@ def submit_sweep(storage: Storage, catalogs: ParsedCatalogs, sweep: SweepIn, *, 
     """Check and store a sweep. Up to `answer_at_once` scenarios it runs now (201 with the answer);
     beyond, it is queued (202) and its progress is at GET /v1/sweeps/{id}. `keep` (from
     `once_per_key`) is given the answer in the transaction that stores the sweep."""
-    stored_catalog = catalog_to_use(storage, sweep.base.catalog_id, field="base.catalog_id")
+    stored_catalog = catalog_to_use(storage, sweep.base.catalog_id, field="base.catalog_id", on=now.date())
     prepared = prepare_sweep(catalogs.get(stored_catalog, storage), sweep, limits)
     sweep_id = new_id("sw")
     total = prepared.plan.scenarios
@@ -309,6 +322,14 @@ def status_body(stored: StoredSweep) -> dict[str, Any]:
 
 def get_sweep(storage: Storage, sweep_id: str) -> dict[str, Any]:
     return status_body(_stored(storage, sweep_id))
+
+
+def find_sweeps(storage: Storage, *, limit: int, cursor: str | None) -> tuple[list[dict[str, Any]], str | None]:
+    """A page of sweeps, newest first: each one's status wrapper without its result."""
+    with storage.reading() as repository:
+        items, next_cursor = repository.sweeps(limit=limit, cursor=cursor)
+    listed = [{k: v for k, v in status_body(s).items() if k not in ("result", "error")} for s in items]
+    return listed, next_cursor
 
 
 def prepared_from_store(storage: Storage, catalogs: ParsedCatalogs, sweep_id: str) -> PreparedSweep:

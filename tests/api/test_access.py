@@ -95,12 +95,20 @@ class Route:
     allowed: dict[str, int]  # actor → the status it gets; actors not named get `refused`
     refused: int = 403
     body: Callable[[], dict[str, Any]] | None = None
+    body_naming: Callable[[dict[str, str]], dict[str, Any]] | None = None  # a body that names a stored id
+    uses: tuple[str, ...] = ()  # ids the body names
 
     def url(self, ids: dict[str, str]) -> str:
-        return self.path.format(**ids)
+        return self.path.format(**ids, other_id=ids["quote_id"])
+
+    def json(self, ids: dict[str, str]) -> dict[str, Any] | None:
+        if self.body_naming is not None:
+            return self.body_naming(ids)
+        return self.body() if self.body else None
 
     def needs(self) -> set[str]:
-        return {name for name in ("quote_id", "sweep_id", "plan_id", "catalog_id") if "{" + name + "}" in self.path}
+        named = {name for name in ("quote_id", "sweep_id", "plan_id", "catalog_id") if "{" + name + "}" in self.path}
+        return named | set(self.uses) | ({"quote_id"} if "{other_id}" in self.path else set())
 
 
 EVERYONE_200 = {actor: 200 for actor in ACTORS}
@@ -111,7 +119,11 @@ ANALYSTS_CREATE = {"analyst": 201, "admin": 201}
 ROUTES = [
     Route("POST", "/v1/catalogs", {"admin": 201}, body=catalog_body),
     Route("GET", "/v1/catalogs", EVERYONE_200),
+    Route("GET", "/v1/catalogs/default", EVERYONE_200),
+    Route("PUT", "/v1/catalogs/default", {"admin": 200}, body_naming=lambda ids: {"catalog_id": ids["catalog_id"]},
+          uses=("catalog_id",)),
     Route("GET", "/v1/catalogs/{catalog_id}", EVERYONE_200),
+    Route("PATCH", "/v1/catalogs/{catalog_id}", {"admin": 200}, body=lambda: {"status": "active"}),
     # The demo campaign is filed for TEAM: its requester may file it, the other team's may not.
     Route("POST", "/v1/quotes", {"requester": 201, "analyst": 201, "admin": 201}, body=quote_body),
     Route("GET", "/v1/quotes", EVERYONE_200),
@@ -120,9 +132,14 @@ ROUTES = [
     Route("GET", "/v1/quotes/{quote_id}/breakeven.svg", OWN_TEAM_200, refused=404),
     Route("GET", "/v1/quotes/{quote_id}/options.csv", OWN_TEAM_200, refused=404),
     Route("POST", "/v1/quotes/{quote_id}/recompute", OWN_TEAM_200, refused=404),
+    Route("GET", "/v1/quotes/{quote_id}/compare/{other_id}", OWN_TEAM_200, refused=404),
+    Route("POST", "/v1/quotes/{quote_id}/requote", {"requester": 201, "analyst": 201, "admin": 201}, refused=404,
+          body_naming=lambda ids: {"catalog_id": ids["catalog_id"]}, uses=("catalog_id",)),
+    Route("GET", "/v1/sweeps", ANALYSTS),
     Route("POST", "/v1/sweeps", ANALYSTS_CREATE, body=sweep_body),
     Route("GET", "/v1/sweeps/{sweep_id}", ANALYSTS),
     Route("GET", "/v1/sweeps/{sweep_id}/rows.csv", ANALYSTS),
+    Route("GET", "/v1/fleet-plans", ANALYSTS),
     Route("POST", "/v1/fleet-plans", ANALYSTS_CREATE, body=plan_body),
     Route("GET", "/v1/fleet-plans/{plan_id}", ANALYSTS),
     Route("GET", "/v1/fleet-plans/{plan_id}/chart.svg", ANALYSTS),
@@ -144,8 +161,7 @@ class World:
     async def send(self, route: Route, *, headers: dict[str, str] | None = None) -> httpx.Response:
         ids = {name: self.ids.get(name, f"{name[:-3]}_missing") for name in ("quote_id", "sweep_id", "plan_id",
                                                                               "catalog_id")}
-        return await self.client.request(route.method, route.url(ids), headers=headers,
-                                         json=route.body() if route.body else None)
+        return await self.client.request(route.method, route.url(ids), headers=headers, json=route.json(ids))
 
     async def seed(self, needs: set[str]) -> None:
         """Store what the route reads (as the admin), so a 404 can only mean "not yours"."""
@@ -203,7 +219,8 @@ async def test_another_teams_quote_is_exactly_a_missing_quote(world: World, rout
     await world.seed(route.needs())
     other = bearer(world.keys["other_requester"])
     theirs = await world.send(route, headers=other)
-    missing = await world.client.request(route.method, route.url({"quote_id": "q_missing"}), headers=other)
+    missing = await world.client.request(route.method, route.url({"quote_id": "q_missing"}), headers=other,
+                                         json=route.json(world.ids))
     hidden, absent = problem_of(theirs, 404), problem_of(missing, 404)
     assert hidden["detail"].replace(world.ids["quote_id"], "ID") == absent["detail"].replace("q_missing", "ID")
     assert {k: v for k, v in hidden.items() if k != "detail"} == {k: v for k, v in absent.items() if k != "detail"}

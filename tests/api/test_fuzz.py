@@ -50,6 +50,11 @@ RULES_BEYOND_THE_SCHEMA = {
     "GET /v1/catalogs": "the cursor is opaque: only one this service issued is accepted",
     "POST /v1/sweeps": "a grid or samples with distributions, not both; paths that the catalog supports",
     "POST /v1/fleet-plans": "exactly one demand source; a site and an offer of the catalog",
+    "PUT /v1/catalogs/default": "the catalog must exist, be active and be effective today",
+    "POST /v1/quotes/{quote_id}/requote": "the catalog must exist, be active, be effective today and know the "
+                                          "request's venues and groups",
+    "GET /v1/sweeps": "the cursor is opaque: only one this service issued is accepted",
+    "GET /v1/fleet-plans": "the cursor is opaque: only one this service issued is accepted",
 }
 
 

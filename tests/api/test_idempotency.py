@@ -69,7 +69,7 @@ async def test_the_same_key_and_body_replay_the_first_answer_and_create_nothing_
     assert first.status_code == 201, first.text
     again = await client.post(path, json=body(), headers={"Idempotency-Key": "same-1"})
     assert again.status_code == 201 and again.json() == first.json()
-    assert again.headers["idempotent-replayed"] == "true" and "idempotent-replayed" not in first.headers
+    assert again.headers["berth-replayed"] == "true" and "berth-replayed" not in first.headers
     assert again.headers["location"] == first.headers["location"]
     assert rows(storage, table) == before + 1
     fresh = await client.post(path, json=body(), headers={"Idempotency-Key": "same-2"})

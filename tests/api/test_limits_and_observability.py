@@ -316,7 +316,7 @@ async def test_the_domain_counters_move(client: httpx.AsyncClient, owned_wins_re
     created = await client.post("/v1/quotes", json=owned_wins_request, headers={"Idempotency-Key": "k-1"})
     assert created.status_code == 201, created.text
     replayed = await client.post("/v1/quotes", json=owned_wins_request, headers={"Idempotency-Key": "k-1"})
-    assert replayed.headers["idempotent-replayed"] == "true"  # a replay stores nothing and is not counted
+    assert replayed.headers["berth-replayed"] == "true"  # a replay stores nothing and is not counted
     sweep = await client.post("/v1/sweeps", json=small_grid())
     assert sweep.status_code == 201, sweep.text
     plan = await client.post("/v1/fleet-plans", json=plan_request())

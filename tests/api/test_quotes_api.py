@@ -4,6 +4,7 @@ nothing, and the OpenAPI document carries the demo examples."""
 
 import copy
 import json
+import re
 import shutil
 from datetime import timedelta
 from pathlib import Path
@@ -99,7 +100,7 @@ async def test_a_stored_quote_reads_back_identical(
 
 
 @pytest.mark.anyio
-async def test_the_newest_catalog_is_the_default_and_an_explicit_one_is_used(
+async def test_the_default_catalog_is_used_until_an_admin_changes_it_and_an_explicit_one_always(
     client: httpx.AsyncClient, clock: FakeClock, demo_catalog: dict[str, Any], owned_wins_request: dict[str, Any]
 ) -> None:
     demo = (await client.get("/v1/catalogs")).json()["items"][0]
@@ -108,9 +109,11 @@ async def test_the_newest_catalog_is_the_default_and_an_explicit_one_is_used(
     newer_content["name"] = "newer"
     newer = (await client.post("/v1/catalogs", json=newer_content)).json()
     by_default = await create(client, owned_wins_request)
-    assert (by_default["catalog_id"], by_default["catalog_hash"]) == (newer["id"], newer["content_hash"])
-    explicit = await create(client, {**owned_wins_request, "catalog_id": demo["id"]})
-    assert (explicit["catalog_id"], explicit["catalog_hash"]) == (demo["id"], demo["content_hash"])
+    assert (by_default["catalog_id"], by_default["catalog_hash"]) == (demo["id"], demo["content_hash"])
+    explicit = await create(client, {**owned_wins_request, "catalog_id": newer["id"]})
+    assert (explicit["catalog_id"], explicit["catalog_hash"]) == (newer["id"], newer["content_hash"])
+    assert (await client.put("/v1/catalogs/default", json={"catalog_id": newer["id"]})).status_code == 200
+    assert (await create(client, owned_wins_request))["catalog_id"] == newer["id"]
 
 
 @pytest.mark.anyio
@@ -298,7 +301,7 @@ async def test_the_same_key_and_body_replays_the_first_answer(
     again = await client.post("/v1/quotes", content=reordered,
                               headers={"Idempotency-Key": "k-1", "content-type": "application/json"})
     assert again.status_code == 201
-    assert again.headers["idempotent-replayed"] == "true"
+    assert again.headers["berth-replayed"] == "true"
     assert again.headers["location"] == f"/v1/quotes/{first['id']}"
     assert again.json() == first
     assert count(storage) == 1
@@ -332,7 +335,7 @@ async def test_a_key_still_in_flight_is_a_conflict_until_its_lease_runs_out(
     clock.advance(seconds=2)  # 61 s after the claim: the first request is presumed dead
     response = await client.post("/v1/quotes", content=raw, headers=headers)
     assert response.status_code == 201
-    assert "idempotent-replayed" not in response.headers
+    assert "berth-replayed" not in response.headers
     assert count(storage) == 1
 
 
@@ -368,6 +371,19 @@ async def test_the_openapi_document_has_the_demo_examples_and_the_problem_and_ca
     assert "text/html" in docs.headers["content-type"]
 
 
+@pytest.mark.anyio
+async def test_the_docs_page_loads_its_assets_from_berth_itself(client: httpx.AsyncClient) -> None:
+    page = (await client.get("/docs")).text
+    assert "://" not in page  # no absolute URL: nothing from a public network
+    assets = re.findall(r'(?:src|href)="([^"]+)"', page)
+    assert {"/docs/assets/swagger-ui-bundle.js", "/docs/assets/swagger-ui.css"} <= set(assets)
+    for asset in assets:
+        response = await client.get(asset)
+        assert response.status_code == 200 and len(response.content) > 0, asset
+    assert "SwaggerUIBundle" in (await client.get("/docs/assets/swagger-ui-bundle.js")).text
+    assert (await client.get("/redoc")).status_code == 404  # its scripts would come from a public network
+
+
 def test_the_openapi_examples_are_the_campaigns_beside_the_demo_catalog(tmp_path: Path) -> None:
     """An installed service finds them where BERTH_DEMO_CATALOG points, not in a source checkout."""
     shutil.copy(EXAMPLES / "catalog.json", tmp_path / "catalog.json")
@@ -393,11 +409,15 @@ async def test_head_answers_as_get_without_the_body(
 ) -> None:
     """Every readable resource answers HEAD, as the Allow header of a 405 promises (RFC 9110 §9.3.2)."""
     quote_id = (await create(client, owned_wins_request))["id"]
+    plain = {"accept-encoding": "identity"}  # httpx asks for gzip by default, and decodes it
     for path in ("/healthz", f"/v1/quotes/{quote_id}", f"/v1/quotes/{quote_id}/options.csv", "/v1/quotes/q_none"):
-        got, head = await client.get(path), await client.head(path)
+        got, head = await client.get(path, headers=plain), await client.head(path, headers=plain)
         assert head.status_code == got.status_code and head.content == b""
         assert head.headers["content-type"] == got.headers["content-type"]
         if "content-length" in got.headers:
             assert head.headers["content-length"] == got.headers["content-length"] == str(len(got.content))
+        zipped, zipped_head = await client.get(path), await client.head(path)
+        for name in ("content-encoding", "content-length"):
+            assert zipped_head.headers.get(name) == zipped.headers.get(name)
     refused = await client.head("/v1/quotes/q_any/recompute")  # POST only
     assert refused.status_code == 405 and refused.headers["allow"] == "POST" and refused.content == b""

@@ -165,8 +165,11 @@ async def test_rows_csv_has_units_a_currency_and_the_json_rows_values(client: ht
     header, records = read_csv(response.text)
     labels = list(created["result"]["rows"][0]["totals"])
     assert header == (["scenario", "overrides.electricity_price_per_kwh [EUR/kWh]", "campaign.work.tokens [tokens]",
-                       "cheapest", "currency"] + [f"{label} total" for label in labels])
+                       "cheapest", "currency"] + [f"{label} total" for label in labels] + ["cautions"])
     assert len(records) == 12
+    # The cautions sit in the first row's last cell, every other row leaves it empty.
+    assert "licensed engineers" in records[0]["cautions"] and "not legal advice" in records[0]["cautions"]
+    assert all(record["cautions"] == "" for record in records[1:])
     for record, row in zip(records, created["result"]["rows"], strict=True):
         assert record["currency"] == "EUR"
         assert record["cheapest"] == (row["cheapest"] or "")

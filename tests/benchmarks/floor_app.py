@@ -40,7 +40,7 @@ from service.usecases.quoting import envelope, quote
 
 def _computed(payload: QuoteRequestIn, storage: Storage, catalogs: ParsedCatalogs, now: datetime
               ) -> tuple[CatalogRef, dict[str, Any]]:
-    ref = catalog_to_use(storage, payload.catalog_id, field="catalog_id")
+    ref = catalog_to_use(storage, payload.catalog_id, field="catalog_id", on=now.date())
     body = quote(catalogs.get(ref, storage), payload)
     return ref, envelope(body, catalog_hash=ref.content_hash, quote_id=new_id("q"), catalog_id=ref.id,
                          created_at=now)

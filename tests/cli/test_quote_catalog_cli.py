@@ -76,7 +76,7 @@ def catalog_id(database: str) -> str:
     finally:
         storage.dispose()
     assert stored is not None
-    return stored.id
+    return str(stored["id"])
 
 
 @pytest.fixture

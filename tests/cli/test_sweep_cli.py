@@ -65,7 +65,9 @@ def test_sweep_csv_has_one_row_per_scenario(tmp_path: Path) -> None:
                           "overrides.utilisation_planned [fraction]", "overrides.rented_price_factor [factor]",
                           "campaign.work.tokens [tokens]"]
     assert header[5:7] == ["cheapest", "currency"]
-    assert all(name.endswith(" total") for name in header[7:]) and len(header) > 7
+    assert all(name.endswith(" total") for name in header[7:-1]) and len(header) > 8
+    assert header[-1] == "cautions" and "not a vendor quote" in records[0]["cautions"]
+    assert {r["cautions"] for r in records[1:]} == {""}
     assert {r["currency"] for r in records} == {"EUR"}
     # the drawn inputs respect the distributions' supports
     prices = [float(r["overrides.electricity_price_per_kwh [EUR/kWh]"]) for r in records]

@@ -159,7 +159,7 @@ def test_one_idempotency_key_sent_to_both_replicas_at_once_stores_one_quote(
         assert [r.status for r in replies] == [201] * (2 * CLIENTS_PER_REPLICA), [r.content[:200] for r in replies]
         assert len({r.json()["id"] for r in replies}) == 1, f"round {round_}: one key gave several quotes"
         assert len({r.content for r in replies}) == 1
-        originals = [r for r in replies if r.headers.get("idempotent-replayed") != "true"]
+        originals = [r for r in replies if r.headers.get("berth-replayed") != "true"]
         assert len(originals) == 1, f"round {round_}: {len(originals)} originals; exactly one was expected"
         quote_id = replies[0].json()["id"]
         for server in replicas:
@@ -174,7 +174,7 @@ def test_one_idempotency_key_sent_to_both_replicas_at_once_stores_one_quote(
                 assert refused.headers["content-type"].startswith("application/problem+json")
                 assert "Idempotency-Key" in refused.json()["detail"]
                 again = client.post(f"{server.url}/v1/quotes", json=body, headers={"Idempotency-Key": key})
-                assert again.status_code == 201 and again.headers.get("idempotent-replayed") == "true"
+                assert again.status_code == 201 and again.headers.get("berth-replayed") == "true"
                 assert again.content == replies[0].content
     for server in replicas:
         assert len(all_ids(server)) == before + IDEMPOTENCY_ROUNDS

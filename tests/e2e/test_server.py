@@ -158,7 +158,7 @@ def test_an_idempotency_key_replays_its_quote_and_refuses_another_body(berth: Be
         before = count(client)
         first = client.post("/v1/quotes", json=body, headers=key)
         assert first.status_code == 201, first.text
-        assert "idempotent-replayed" not in first.headers
+        assert "berth-replayed" not in first.headers
         stored = count(client)
         assert stored == before + 1
 
@@ -169,7 +169,7 @@ def test_an_idempotency_key_replays_its_quote_and_refuses_another_body(berth: Be
                                    headers={**key, "Content-Type": "application/json"}))
         for retry in retries:
             assert retry.status_code == 201, retry.text
-            assert retry.headers.get("idempotent-replayed") == "true"
+            assert retry.headers.get("berth-replayed") == "true"
             assert retry.content == first.content
 
         other = copy.deepcopy(body)
@@ -218,12 +218,12 @@ def test_concurrent_retries_of_one_key_store_exactly_one_quote(berth: BerthServe
     assert [r.status for r in replies] == [201] * 8, [r.content[:200] for r in replies]
     assert len({r.json()["id"] for r in replies}) == 1
     assert len({r.content for r in replies}) == 1
-    originals = [r for r in replies if r.headers.get("idempotent-replayed") != "true"]
+    originals = [r for r in replies if r.headers.get("berth-replayed") != "true"]
     assert len(originals) == 1, "exactly one client must get the original, the others replays"
     with httpx.Client(base_url=berth.url, timeout=REQUEST_TIMEOUT_S) as client:
         assert count(client) == before + 1
         sequential = client.post("/v1/quotes", json=body, headers={"Idempotency-Key": key})
-        assert sequential.status_code == 201 and sequential.headers.get("idempotent-replayed") == "true"
+        assert sequential.status_code == 201 and sequential.headers.get("berth-replayed") == "true"
         assert sequential.json()["id"] == replies[0].json()["id"]
         assert count(client) == before + 1
 

@@ -10,7 +10,7 @@ from tests.reports.conftest import Json, offline_document
 
 HEADER = ["rank", "venue_kind", "venue_id", "jurisdiction", "term", "feasible", "reasons", "nodes", "accelerators",
           "wall_clock_days", "accelerator_hours", "total", "per_accelerator_hour", "it_kwh", "facility_kwh",
-          "peak_it_kw", "cooling_tons", "kgco2e", "currency"]
+          "peak_it_kw", "cooling_tons", "kgco2e", "currency", "cautions"]
 NUMERIC = ["nodes", "accelerators", "wall_clock_days", "accelerator_hours", "total", "per_accelerator_hour", "it_kwh",
            "facility_kwh", "peak_it_kw", "cooling_tons", "kgco2e"]
 PLAIN_DECIMAL = re.compile(r"^-?\d+(\.\d+)?$")
@@ -24,6 +24,15 @@ def rows_of(document: Json) -> tuple[str, list[dict[str, str]]]:
 def test_the_header_names_each_column_with_its_unit() -> None:
     text, _rows = rows_of(offline_document("owned-wins"))
     assert next(csv.reader(io.StringIO(text))) == HEADER == list(OPTIONS_CSV_HEADER)
+
+
+def test_every_row_carries_the_cautions_and_a_header_first_reader_reads_every_option(any_document: Json) -> None:
+    text, rows = rows_of(any_document)
+    assert len(rows) == len(any_document["options"])  # no preamble line taken for a header or a row
+    for row in rows:
+        for phrase in ("not a vendor quote", "licensed engineers", "not legal advice"):
+            assert phrase in row["cautions"]
+    assert all(len(record) == len(HEADER) for record in csv.reader(io.StringIO(text, newline="")))
 
 
 def test_one_row_per_option_with_the_quotes_figures(any_document: Json) -> None:

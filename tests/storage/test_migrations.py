@@ -22,14 +22,14 @@ from pytest_alembic.tests.default import (
 from pytest_alembic.tests.default import test_single_head_revision as single_head_revision
 from pytest_alembic.tests.default import test_up_down_consistency as up_down_consistency
 from pytest_alembic.tests.default import test_upgrade as upgrade_from_base
-from sqlalchemy import Column, Connection, Engine, Integer, MetaData, inspect
+from sqlalchemy import Column, Connection, Engine, Integer, MetaData, inspect, text
 from sqlmodel import SQLModel
 
 from service.storage.engine import build_engine
 from service.storage.migrate import MIGRATIONS, alembic_config, head_revision, is_at_head, upgrade
 from tests.databases import fresh_postgresql_database, needs_postgresql, postgresql_server
 
-TABLES = {"catalog", "quote", "idempotency_key", "sweep", "fleet_plan", "api_key"}
+TABLES = {"catalog", "default_catalog", "quote", "idempotency_key", "sweep", "fleet_plan", "api_key"}
 REVISIONS = sorted(path.name.split("_", 1)[0] for path in (MIGRATIONS / "versions").glob("[0-9]*_*.py"))
 STARTING_TOGETHER = 4
 
@@ -157,3 +157,25 @@ def test_replicas_starting_together_migrate_one_empty_database_once(database_url
     finally:
         for engine in engines:
             engine.dispose()
+
+
+def test_the_lifecycle_migration_keeps_existing_catalogs_and_makes_the_newest_the_default_once(
+    alembic_runner: pytest_alembic.MigrationContext, connection: Connection,
+) -> None:
+    """A database from before catalogs had a lifecycle: every catalog stays usable (active, its dates
+    read from its content) and requests that name no catalog keep getting the one they got before."""
+    alembic_runner.migrate_up_to("0004", return_current=False)
+    rows = [("cat_old", "h1", '{"name": "old", "effective_from": "2026-01-01"}', "2026-12-01 10:00:00+00:00"),
+            ("cat_new", "h2", '{"name": "new", "effective_from": "2027-01-01", "effective_until": "2027-06-30"}',
+             "2026-12-02 10:00:00+00:00")]
+    for ident, digest, content, created in rows:
+        connection.execute(text("INSERT INTO catalog (id, name, currency, content_hash, content, created_at) "
+                                "VALUES (:i, :i, 'EUR', :h, :c, :t)"),
+                           {"i": ident, "h": digest, "c": content, "t": created})
+    connection.commit()
+    alembic_runner.migrate_up_one()
+    catalogs = connection.execute(text(
+        "SELECT id, status, effective_from, effective_until FROM catalog ORDER BY id")).all()
+    assert [(c[0], c[1], str(c[2]), str(c[3])) for c in catalogs] == [
+        ("cat_new", "active", "2027-01-01", "2027-06-30"), ("cat_old", "active", "2026-01-01", "None")]
+    assert connection.execute(text("SELECT slot, catalog_id FROM default_catalog")).all() == [(1, "cat_new")]

@@ -110,15 +110,19 @@ def test_a_catalog_with_known_content_is_found_by_its_hash_and_never_stored_twic
         assert repository.catalogs(limit=10, cursor=None) == ([catalog], None)
 
 
-def test_a_catalog_reference_names_the_newest_catalog_or_the_one_asked_for(
+def test_a_catalog_reference_names_the_default_catalog_or_the_one_asked_for(
     storage: Storage, catalog: StoredCatalog
 ) -> None:
     with storage.writing() as repository:
         newer = repository.add_catalog(name="d", currency="EUR", content_hash="b" * 64, content={"name": "d"},
                                        created_at=NOW + timedelta(minutes=1))
     with storage.reading() as repository:
-        assert repository.catalog_ref(None) == CatalogRef(newer.id, "b" * 64)
-        assert repository.catalog_ref(catalog.id) == CatalogRef(catalog.id, "a" * 64)
+        assert repository.catalog_ref(None) is None  # no default yet: the newest is not taken for one
+    with storage.writing() as repository:
+        repository.set_default_catalog(catalog.id, now=NOW)
+    with storage.reading() as repository:
+        assert repository.catalog_ref(None) == CatalogRef(catalog.id, "a" * 64, catalog.name)
+        assert repository.catalog_ref(newer.id) == CatalogRef(newer.id, "b" * 64, "d")
         assert repository.catalog_ref("cat_unknown") is None
 
 
@@ -127,11 +131,12 @@ def test_a_catalog_is_read_and_parsed_once_then_served_from_the_cache(
 ) -> None:
     stored, _ = upload_catalog(storage, demo_catalog, now=NOW)
     catalogs = ParsedCatalogs()
-    first = catalogs.get(CatalogRef(stored.id, stored.content_hash), storage)
+    first = catalogs.get(CatalogRef(stored["id"], stored["content_hash"]), storage)
     assert first.name == demo_catalog["name"]
     with storage.writing() as repository:  # were the content read again, it would now be missing
+        repository.session.execute(text("DELETE FROM default_catalog"))
         repository.session.execute(text("DELETE FROM catalog"))
-    assert catalogs.get(CatalogRef(stored.id, stored.content_hash), storage) is first
+    assert catalogs.get(CatalogRef(stored["id"], stored["content_hash"]), storage) is first
 
 
 def test_uploading_the_same_catalog_twice_returns_the_first_one(
@@ -142,7 +147,7 @@ def test_uploading_the_same_catalog_twice_returns_the_first_one(
     assert (created, created_again) == (True, False)
     assert again == first
     with storage.reading() as repository:
-        assert [c.id for c in repository.catalogs(limit=10, cursor=None)[0]] == [first.id]
+        assert [c.id for c in repository.catalogs(limit=10, cursor=None)[0]] == [first["id"]]
 
 
 def test_quotes_page_newest_first_by_time_then_id_even_when_times_are_equal(

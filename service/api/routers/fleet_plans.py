@@ -1,21 +1,22 @@
 """Fleet plans: size an owned fleet against a demand forecast over a horizon, the overflow rented."""
 
-from typing import Any
+from typing import Annotated, Any
 
-from fastapi import APIRouter, Request
+from fastapi import APIRouter, Query, Request
 from fastapi.responses import HTMLResponse, Response
 
 from service.api.auth import Analyst
 from service.api.deps import CatalogsDep, ClockDep, IdempotencyKeyDep, RawBodyDep, SettingsDep, StorageDep
+from service.api.manners import JsonBody
 from service.api.observability import DomainMetrics
-from service.api.problems import CONFLICT, PROBLEM_RESPONSES
+from service.api.problems import CONFLICT, MEDIA_TYPE_RESPONSES, PROBLEM_RESPONSES
 from service.api.responses import created_response
-from service.contract.answers import FleetPlanOut
+from service.contract.answers import FleetPlanOut, FleetPlanPage
 from service.contract.fleet import FleetPlanIn
 from service.reports import render_plan
 from service.reports.fleet_chart import fleet_figure_svg
 from service.reports.svg import standalone
-from service.usecases.fleet_plans import FleetLimits, create_fleet_plan, get_fleet_plan
+from service.usecases.fleet_plans import FleetLimits, create_fleet_plan, find_fleet_plans, get_fleet_plan
 from service.usecases.idempotency import Created, KeepAnswer, once_per_key
 
 router = APIRouter(prefix="/v1/fleet-plans", tags=["fleet plans"])
@@ -24,8 +25,9 @@ router = APIRouter(prefix="/v1/fleet-plans", tags=["fleet plans"])
 
 
 
-@router.post("", status_code=201, responses={201: {"model": FleetPlanOut, "description": "the stored plan"},
-                                             **PROBLEM_RESPONSES, **CONFLICT})
+@router.post("", status_code=201, dependencies=[JsonBody],
+             responses={201: {"model": FleetPlanOut, "description": "the stored plan"},
+                        **PROBLEM_RESPONSES, **MEDIA_TYPE_RESPONSES, **CONFLICT})
 def post_fleet_plan(request: Request, payload: FleetPlanIn, raw: RawBodyDep, storage: StorageDep,
                     catalogs: CatalogsDep, clock: ClockDep, settings: SettingsDep, caller: Analyst,
                     idempotency_key: IdempotencyKeyDep = None) -> Response:
@@ -42,6 +44,14 @@ def post_fleet_plan(request: Request, payload: FleetPlanIn, raw: RawBodyDep, sto
 
     outcome = once_per_key(storage, caller=caller, key=idempotency_key, body=raw, clock=clock, create=create)
     return created_response(outcome, location=outcome.body["links"]["self"])
+
+
+@router.get("", response_model=FleetPlanPage, responses=PROBLEM_RESPONSES)
+def list_fleet_plans(storage: StorageDep, _analyst: Analyst, limit: Annotated[int, Query(ge=1, le=200)] = 50,
+                     cursor: Annotated[str | None, Query(max_length=200)] = None) -> dict[str, Any]:
+    """Fleet plans, newest first: site, offer, term and the best size of each."""
+    items, next_cursor = find_fleet_plans(storage, limit=limit, cursor=cursor)
+    return {"items": items, "next_cursor": next_cursor}
 
 
 @router.get("/{plan_id}/chart.svg", response_class=Response, responses={

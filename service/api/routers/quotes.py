@@ -1,8 +1,9 @@
-"""Quotes: create (stored, idempotent with a key), list, read, recompute; the report, break-even
-chart and options CSV of a stored quote."""
+"""Quotes: create (stored, idempotent with a key), list, read (full or summary), recompute, compare,
+re-quote against another catalog; the report, break-even chart and options CSV of a stored quote."""
 
 import re
 import time
+from dataclasses import replace
 from datetime import datetime
 from typing import Annotated, Any
 
@@ -13,25 +14,34 @@ from pydantic import BeforeValidator
 
 from service.api.auth import AnyKey
 from service.api.deps import CatalogsDep, ClockDep, ComputeLaneDep, IdempotencyKeyDep, RawBodyDep, StorageDep
+from service.api.manners import JsonBody
 from service.api.observability import DomainMetrics
-from service.api.problems import CONFLICT, PROBLEM_RESPONSES
+from service.api.problems import CONFLICT, MEDIA_TYPE_RESPONSES, PROBLEM_RESPONSES
 from service.api.responses import FastJSONResponse, created_response
-from service.contract.answers import QuoteOut, QuotePage, Recomputation
-from service.contract.request import QuoteRequestIn
+from service.contract.answers import Comparison, QuoteOut, QuotePage, QuoteSummaryView, Recomputation, Requoted
+from service.contract.request import QuoteRequestIn, RequoteIn
+from service.contract.views import View, recommended, shaped
 from service.reports import breakeven_svg, options_csv, render_report
 from service.storage.repository import StoredQuote
+from service.usecases.comparing import compare_quotes, requote
 from service.usecases.idempotency import Created, KeepAnswer, once_per_key
 from service.usecases.quotes import create_quote, find_quotes, get_quote, recompute_quote
 
 router = APIRouter(prefix="/v1/quotes", tags=["quotes"])
+ViewQuery = Annotated[View, Query(description="`full` (the default): the whole stored document; `summary`: the "
+                                              "recommendation and one row per option, about a fifth of the size")]
 
-@router.post("", status_code=201, response_model=QuoteOut, responses={**PROBLEM_RESPONSES, **CONFLICT})
+
+@router.post("", status_code=201, response_model=QuoteOut | QuoteSummaryView, dependencies=[JsonBody],
+             responses={**PROBLEM_RESPONSES, **MEDIA_TYPE_RESPONSES, **CONFLICT})
 async def post_quote(
     request: Request, payload: QuoteRequestIn, raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep,
     clock: ClockDep, caller: AnyKey, lane: ComputeLaneDep, idempotency_key: IdempotencyKeyDep = None,
+    view: ViewQuery = "full",
 ) -> Response:
-    """Quote one campaign against a catalog (default: the newest), store it, and return it.
-    The same Idempotency-Key with the same body returns the first answer."""
+    """Quote one campaign against a catalog (default: the default catalog), store it, and return it
+    (`?view=summary` for the lean shape; the full document is stored either way). The same
+    Idempotency-Key with the same body returns the first answer."""
     metrics: DomainMetrics = request.app.state.metrics
 
     def create(keep: KeepAnswer | None) -> Created:
@@ -43,7 +53,8 @@ async def post_quote(
 
     def on_compute_lane() -> Response:
         outcome = once_per_key(storage, caller=caller, key=idempotency_key, body=raw, clock=clock, create=create)
-        return created_response(outcome, location=f"/v1/quotes/{outcome.body['id']}")
+        return created_response(replace(outcome, body=shaped(outcome.body, view)),
+                                location=f"/v1/quotes/{outcome.body['id']}")
 
     return await to_thread.run_sync(on_compute_lane, limiter=lane)
 
@@ -59,6 +70,7 @@ IsoDateTime = BeforeValidator(_iso_8601)
 
 
 def summary(stored: StoredQuote) -> dict[str, Any]:
+    picked = recommended(stored.response)
     return {
         "id": stored.id,
         "created_at": stored.created_at.isoformat().replace("+00:00", "Z"),
@@ -67,6 +79,9 @@ def summary(stored: StoredQuote) -> dict[str, Any]:
         "catalog_id": stored.catalog_id,
         "model_version": stored.model_version,
         "recommendation": stored.response.get("recommendation"),
+        "recommended_option": None if picked is None else picked["option"],
+        "programme_total": None if picked is None else picked["programme_total"],
+        "currency": stored.response.get("currency"),
         "links": {"self": f"/v1/quotes/{stored.id}"},
     }
 
@@ -89,10 +104,42 @@ def list_quotes(
     return {"items": [summary(q) for q in items], "next_cursor": next_cursor}
 
 
-@router.get("/{quote_id}", response_model=QuoteOut, responses=PROBLEM_RESPONSES)
-def read_quote(quote_id: str, storage: StorageDep, viewer: AnyKey) -> FastJSONResponse:
-    """One stored quote, exactly as it was returned when created."""
-    return FastJSONResponse(get_quote(storage, quote_id, viewer).response)
+@router.get("/{quote_id}", response_model=QuoteOut | QuoteSummaryView, responses=PROBLEM_RESPONSES)
+def read_quote(quote_id: str, storage: StorageDep, viewer: AnyKey, view: ViewQuery = "full") -> FastJSONResponse:
+    """One stored quote, exactly as it was returned when created (`?view=summary`: the
+    recommendation and one row per option)."""
+    return FastJSONResponse(shaped(get_quote(storage, quote_id, viewer).response, view))
+
+
+@router.get("/{quote_id}/compare/{other_id}", response_model=Comparison, responses=PROBLEM_RESPONSES)
+def compare(quote_id: str, other_id: str, storage: StorageDep, viewer: AnyKey) -> FastJSONResponse:
+    """What changed from one stored quote to another: the recommendation, each option's total, days
+    and layout, the break-even rows that moved, the request fields, catalog and model version that
+    differ, and (when the catalogs differ) which catalog figures changed."""
+    return FastJSONResponse(compare_quotes(storage, quote_id, other_id, viewer))
+
+
+@router.post("/{quote_id}/requote", status_code=201, response_model=Requoted, dependencies=[JsonBody],
+             responses={**PROBLEM_RESPONSES, **MEDIA_TYPE_RESPONSES, **CONFLICT})
+async def post_requote(
+    quote_id: str, payload: RequoteIn, raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep, clock: ClockDep,
+    caller: AnyKey, lane: ComputeLaneDep, idempotency_key: IdempotencyKeyDep = None, view: ViewQuery = "full",
+) -> Response:
+    """Quote a stored quote's request again against another catalog (active and effective today),
+    store the new quote, and return it with the comparison from the old quote to the new one."""
+    def on_compute_lane() -> Response:
+        def create(keep: KeepAnswer | None) -> Created:
+            return requote(storage, catalogs, quote_id, payload.catalog_id, clock=clock, caller=caller, keep=keep)
+
+        # The key's fingerprint covers which quote is re-quoted, not only the body naming the catalog.
+        fingerprinted = b"requote " + quote_id.encode() + b"\n" + raw
+        outcome = once_per_key(storage, caller=caller, key=idempotency_key, body=fingerprinted, clock=clock,
+                               create=create)
+        new_id = outcome.body["quote"]["id"]
+        body = {**outcome.body, "quote": shaped(outcome.body["quote"], view)}
+        return created_response(replace(outcome, body=body), location=f"/v1/quotes/{new_id}")
+
+    return await to_thread.run_sync(on_compute_lane, limiter=lane)
 
 
 @router.get("/{quote_id}/report", response_class=HTMLResponse, responses={

@@ -3,17 +3,27 @@ background with progress; every row as streamed CSV."""
 
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Depends, Request
+from fastapi import APIRouter, Depends, Query, Request
 from fastapi.responses import Response, StreamingResponse
 
 from service.api.auth import Analyst
 from service.api.deps import CatalogsDep, ClockDep, IdempotencyKeyDep, RawBodyDep, SettingsDep, StorageDep
+from service.api.manners import JsonBody
 from service.api.observability import DomainMetrics
-from service.api.problems import CONFLICT, PROBLEM_RESPONSES
+from service.api.problems import CONFLICT, MEDIA_TYPE_RESPONSES, PROBLEM_RESPONSES
 from service.api.responses import created_response
+from service.contract.answers import SweepPage
 from service.contract.sweep import SweepIn
 from service.usecases.idempotency import Created, KeepAnswer, once_per_key
-from service.usecases.sweeps import SweepLimits, SweepRunner, csv_chunks, get_sweep, prepared_from_store, submit_sweep
+from service.usecases.sweeps import (
+    SweepLimits,
+    SweepRunner,
+    csv_chunks,
+    find_sweeps,
+    get_sweep,
+    prepared_from_store,
+    submit_sweep,
+)
 
 router = APIRouter(prefix="/v1/sweeps", tags=["sweeps"])
 
@@ -27,8 +37,9 @@ async def _runner(request: Request) -> SweepRunner:
 RunnerDep = Annotated[SweepRunner, Depends(_runner)]
 
 
-@router.post("", status_code=201, responses={202: {"description": "accepted: running in the background"},
-                                             **PROBLEM_RESPONSES, **CONFLICT})
+@router.post("", status_code=201, dependencies=[JsonBody],
+             responses={202: {"description": "accepted: running in the background"}, **PROBLEM_RESPONSES,
+                        **MEDIA_TYPE_RESPONSES, **CONFLICT})
 def post_sweep(request: Request, payload: SweepIn, raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep,
                clock: ClockDep, runner: RunnerDep, settings: SettingsDep, caller: Analyst,
                idempotency_key: IdempotencyKeyDep = None) -> Response:
@@ -48,6 +59,14 @@ def post_sweep(request: Request, payload: SweepIn, raw: RawBodyDep, storage: Sto
 
     outcome = once_per_key(storage, caller=caller, key=idempotency_key, body=raw, clock=clock, create=create)
     return created_response(outcome, location=outcome.body["links"]["self"])
+
+
+@router.get("", response_model=SweepPage, responses=PROBLEM_RESPONSES)
+def list_sweeps(storage: StorageDep, _analyst: Analyst, limit: Annotated[int, Query(ge=1, le=200)] = 50,
+                cursor: Annotated[str | None, Query(max_length=200)] = None) -> dict[str, Any]:
+    """Sweeps, newest first: status and progress (the result is at each one's own link)."""
+    items, next_cursor = find_sweeps(storage, limit=limit, cursor=cursor)
+    return {"items": items, "next_cursor": next_cursor}
 
 
 @router.get("/{sweep_id}", responses=PROBLEM_RESPONSES)
