@@ -19,7 +19,11 @@ thread before numpy loads, and CPU time of this process is what the rates divide
    the largest single process's peak from the kernel. A run that would pass RUN_LIMIT_SECONDS is
    stopped, and its full time is then an extrapolation from the rows it wrote, printed as such.
 
-It prints PASS or MISS per target and exits 0 whatever the figures. `--quick` shrinks the end-to-end
+1b. Venue size: section 1's chunk and one quote with every offer at 64 nodes and at 100,000 (target:
+   within 1.2x; the layout search must not grow with a venue's node limit).
+
+It prints PASS or MISS per target and exits 0 whatever the figures. `--core` runs sections 1 and 1b
+only. `--quick` shrinks the end-to-end
 runs (100,000 and 1,000,000 scenarios) to check the script itself; its figures are not the targets'.
 """
 
@@ -46,10 +50,12 @@ ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
 from service.contract.catalog import CatalogIn  # noqa: E402
+from service.contract.request import QuoteRequestIn  # noqa: E402
 from service.contract.sweep import SweepIn  # noqa: E402
 from service.domain.evaluate import evaluate_campaign  # noqa: E402
 from service.domain.sweep import chunk_size, evaluate_chunk, scenario_chunks  # noqa: E402
 from service.domain.whatif import apply  # noqa: E402
+from service.usecases.quoting import quote  # noqa: E402
 from service.usecases.sweeps import SweepLimits, prepare_sweep  # noqa: E402
 
 EXAMPLES = ROOT / "pricing_examples"
@@ -166,6 +172,36 @@ def core_benchmark() -> None:
             verdict(f"vectorised rate ≥ {TARGET_RATE:,.0f} scenarios/s per core ({label})",
                     vector_rate >= TARGET_RATE,
                     f"{vector_rate:,.0f} scenarios/s per core ({vector_rate / TARGET_RATE:.4f} of the target)")
+
+
+def venue_size_benchmark() -> None:
+    """The same sweep chunk and the same quote with every offer limited to 64 nodes and to 100,000:
+    the layout search prices a bounded set of candidates, so the venue's size must not matter
+    (target: within 1.2x)."""
+    print("== 1b. Venue size: every offer at 64 nodes against 100,000", flush=True)
+    request = QuoteRequestIn.model_validate(load(EXAMPLES / "campaign-renting-wins.json"))
+    figures = {}
+    for nodes_max in (64, 100_000):
+        catalog_json = ten_venue_catalog()
+        for offer in catalog_json["offers"]:
+            offer["nodes_max"] = nodes_max
+        catalog_in = CatalogIn.model_validate(catalog_json)
+        sweep = load(DEMO_SWEEP)
+        sweep["samples"] = VECTOR_SCENARIOS
+        prepared = prepare_sweep(catalog_in, SweepIn.model_validate(sweep), SweepLimits())
+        (_, inputs), = list(scenario_chunks(prepared.plan, VECTOR_SCENARIOS))
+        evaluate_chunk(prepared.catalog, prepared.plan, inputs)  # warm-up
+        sweep_cpu, _ = timed(lambda: evaluate_chunk(prepared.catalog, prepared.plan, inputs), 3)  # noqa: B023
+        quote(catalog_in, request)  # warm-up
+        quote_cpu, _ = timed(lambda: quote(catalog_in, request), 10)  # noqa: B023
+        figures[nodes_max] = sweep_cpu, quote_cpu
+        print(f"    offers of {nodes_max:,} nodes: sweep chunk of {VECTOR_SCENARIOS:,} {sweep_cpu:.3f} s CPU "
+              f"({VECTOR_SCENARIOS / sweep_cpu:,.0f} scenarios/s per core); one quote {quote_cpu * 1e3:.1f} ms CPU",
+              flush=True)
+    sweep_ratio = figures[100_000][0] / figures[64][0]
+    quote_ratio = figures[100_000][1] / figures[64][1]
+    verdict("a 100,000-node offer sweeps within 1.2x of a 64-node one", sweep_ratio <= 1.2, f"{sweep_ratio:.2f}x")
+    verdict("a 100,000-node offer quotes within 1.2x of a 64-node one", quote_ratio <= 1.2, f"{quote_ratio:.2f}x")
 
 
 def sweep_file(directory: Path, samples: int) -> Path:
@@ -330,9 +366,11 @@ def main() -> None:
     print(f"python {sys.version.split()[0]}, numpy {np.__version__}, {os.cpu_count()} CPUs seen; "
           "BLAS/OpenMP pools limited to 1 thread", flush=True)
     core_benchmark()
-    with tempfile.TemporaryDirectory(prefix="bench-sweeps-") as scratch:
-        end_to_end_json(Path(scratch), E2E_SCENARIOS // 10 if quick else E2E_SCENARIOS)
-        end_to_end_csv(Path(scratch), CSV_SCENARIOS // 10 if quick else CSV_SCENARIOS)
+    venue_size_benchmark()
+    if "--core" not in sys.argv[1:]:
+        with tempfile.TemporaryDirectory(prefix="bench-sweeps-") as scratch:
+            end_to_end_json(Path(scratch), E2E_SCENARIOS // 10 if quick else E2E_SCENARIOS)
+            end_to_end_csv(Path(scratch), CSV_SCENARIOS // 10 if quick else CSV_SCENARIOS)
     print("== Summary" + (" (--quick: the end-to-end sizes are not the targets')" if quick else ""))
     for name, ok, figure in results:
         print(f"  {'PASS' if ok else 'MISS'}  {name}: {figure}")
