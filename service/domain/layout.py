@@ -73,18 +73,20 @@ class Candidates:
         ends = np.cumsum(self.widths)
         block_of = np.searchsorted(ends, index, side="right")
         rows = np.arange(index.shape[0])
+        # Per block, the scenarios whose choice lies in it, and the chosen column within the block.
+        parts = [(block, chosen, rows[chosen], index[chosen] - (end - width))
+                 for block, end, width, chosen in ((block, end, width, block_of == b) for b, (block, end, width)
+                                                   in enumerate(zip(self.blocks, ends, self.widths, strict=True)))
+                 if chosen.any()]
+        if len(parts) == 1:  # every scenario chose from one block
+            block, _, at_rows, at_columns = parts[0]
+            return LayoutGrid(**{f.name: np.asarray(block.at(f.name, at_rows, at_columns)) for f in fields(LayoutGrid)})
         picked = {}
         for f in fields(LayoutGrid):
-            out: Any = None
-            for b, block in enumerate(self.blocks):
-                chosen = block_of == b
-                if not chosen.any():
-                    continue
-                start = ends[b] - block.nodes.shape[1]
-                taken = np.asarray(block.at(f.name, rows[chosen], index[chosen] - start))
-                if out is None:
-                    out = np.empty(index.shape, dtype=taken.dtype)
-                out[chosen] = taken
+            taken = [np.asarray(block.at(f.name, at_rows, at_columns)) for block, _, at_rows, at_columns in parts]
+            out = np.empty(index.shape, dtype=np.result_type(*taken))
+            for (_, chosen, _, _), values in zip(parts, taken, strict=True):
+                out[chosen] = values
             picked[f.name] = out
         return LayoutGrid(**picked)
 

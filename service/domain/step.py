@@ -136,7 +136,8 @@ class LayoutGrid:
     def at(self, name: str, rows: Ints, columns: Ints) -> Any:
         """Field `name` at (rows[i], columns[i]) for each i, size-1 axes broadcast."""
         values = np.asarray(getattr(self, name))
-        return values[rows if values.shape[0] > 1 else 0, columns if values.shape[1] > 1 else 0]
+        first = np.zeros_like(rows)  # an index array keeps the result one value per row
+        return values[rows if values.shape[0] > 1 else first, columns if values.shape[1] > 1 else first]
 
 
 class GatheredGrid(LayoutGrid):
@@ -163,7 +164,7 @@ class GatheredGrid(LayoutGrid):
         if name in self.__dict__ or name not in self._table:
             return super().at(name, rows, columns)
         column = self._column
-        return np.asarray(self._table[name])[0][column[rows if column.shape[0] > 1 else 0, columns]]
+        return np.asarray(self._table[name])[0][column[rows if column.shape[0] > 1 else np.zeros_like(rows), columns]]
 
 
 @dataclass(frozen=True)
