@@ -8,7 +8,8 @@ pair, or when neither pure option is feasible.
 """
 
 from collections.abc import Callable
-from dataclasses import fields, replace
+from dataclasses import fields, is_dataclass, replace
+from typing import Any
 
 import numpy as np
 
@@ -29,7 +30,7 @@ def split_points(run_count: int) -> list[int]:
     return [int(p) for p in points]
 
 
-def _part(campaign: Campaign, runs: int, total_runs: int) -> Campaign:
+def _part(campaign: Campaign, runs: np.ndarray, total_runs: int) -> Campaign:
     share = runs / total_runs
     data = replace(campaign.data, results_egress_tb=np.asarray(campaign.data.results_egress_tb) * share)
     return replace(campaign, runs=Runs(runs, campaign.runs.exploration_fraction, campaign.runs.evaluation_fraction),
@@ -48,23 +49,44 @@ def split_options(catalog: Catalog, campaign: Campaign, options: QuoteOptions, o
         return []
     pure = {o.label: o for o in evaluation.options}
     best: dict[str, OptionResult] = {}
-    for owned_runs in split_points(total):
-        owned_eval = evaluate_campaign(catalog, _part(campaign, owned_runs, total),
-                                       replace(options, terms=("owned_chargeback",)), overrides)
-        rented_eval = evaluate_campaign(catalog, _part(campaign, total - owned_runs, total),
-                                        replace(options, terms=rented_terms), overrides)
-        feasible_rented = [o for o in rented_eval.options if bool(o.feasible[0])]
+    # Every split point at once, as scenarios of one evaluation per side.
+    points = split_points(total)
+    if not points:
+        return []
+    owned_runs = np.array(points, dtype=np.float64)
+    owned_eval = evaluate_campaign(catalog, _part(campaign, owned_runs, total),
+                                   replace(options, terms=("owned_chargeback",)), overrides)
+    rented_eval = evaluate_campaign(catalog, _part(campaign, total - owned_runs, total),
+                                    replace(options, terms=rented_terms), overrides)
+    for k, owned_count in enumerate(points):
+        feasible_rented = [o for o in rented_eval.options if bool(o.feasible[k])]
         if not feasible_rented:
             continue
-        rented = min(feasible_rented, key=lambda o: float(o.total[0]))
+        rented = at_scenario(min(feasible_rented, key=lambda o: float(o.total[k])), k, len(points))
         for owned in owned_eval.options:
-            if not bool(owned.feasible[0]):
+            if not bool(owned.feasible[k]):
                 continue
-            candidate = combine(owned, rented, owned_runs=owned_runs, rented_runs=total - owned_runs)
+            candidate = combine(at_scenario(owned, k, len(points)), rented, owned_runs=owned_count,
+                                rented_runs=total - owned_count)
             key = owned.venue_id
             if key not in best or float(candidate.total[0]) < float(best[key].total[0]):
                 best[key] = candidate
     return [s for s in best.values() if _worth_showing(s, pure)]
+
+
+def at_scenario(value: Any, k: int, scenarios: int) -> Any:
+    """Scenario k of an evaluation's result, as a result of one scenario: every array with one
+    element per scenario sliced to [k:k+1], dataclasses and dicts throughout."""
+    if isinstance(value, np.ndarray):
+        return value[k:k + 1] if value.ndim >= 1 and value.shape[0] == scenarios > 1 else value
+    if isinstance(value, dict):
+        return {name: at_scenario(item, k, scenarios) for name, item in value.items()}
+    if isinstance(value, tuple):
+        return tuple(at_scenario(item, k, scenarios) for item in value)
+    if is_dataclass(value) and not isinstance(value, type):
+        return replace(value, **{f.name: at_scenario(getattr(value, f.name), k, scenarios) for f in fields(value)
+                                 if f.init})
+    return value
 
 
 def _worth_showing(split: OptionResult, pure: dict[str, OptionResult]) -> bool:

@@ -23,7 +23,7 @@ from service.domain.whatif import InputPath, UnknownPath, apply, base_value, inp
 from service.errors import FieldProblem, InvalidInput, NotFound
 from service.storage.repository import Storage, StoredSweep, new_id
 from service.usecases.catalogs import ParsedCatalogs, catalog_to_use
-from service.usecases.chunk_pool import evaluated
+from service.usecases.chunk_pool import evaluated, keep_freed_arrays
 from service.usecases.idempotency import Created, KeepAnswer
 from service.usecases.quoting import request_problems, unknown_venue
 
@@ -355,6 +355,9 @@ class SweepRunner:
 
     def submit(self, sweep_id: str) -> Future[None]:
         if self._executor is None:
+            # The service's sweeps allocate and free the same large arrays as the command line's
+            # workers: keep that memory rather than fault it in afresh (at most 256 MB kept freed).
+            keep_freed_arrays()
             self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="sweep")
         return self._executor.submit(self._run, sweep_id)
 
