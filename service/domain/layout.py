@@ -29,6 +29,7 @@ from service.domain.step import (
     scenario_terms,
     step_figures,
     wall_figures,
+    with_wall,
 )
 
 __all__ = ["DEADLINE", "MEMORY", "NODE_LIMIT", "PINNED", "Architecture", "Candidates", "Hardware", "LayoutGrid",
@@ -130,17 +131,25 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
     copies = len(tops) + 1
     nodes = counts * np.tile(unit, copies)
     origins = np.repeat(np.array([MEMORY] + [NODE_LIMIT] * len(tops)), found.count)[np.newaxis, :]
-    blocks = [evaluate_columns(load, hardware, Columns(np.tile(tensor, copies), np.tile(pipeline, copies), nodes,
-                                               nodes * per_node, origins), found)]
+    base = Columns(np.tile(tensor, copies), np.tile(pipeline, copies), nodes, nodes * per_node, origins)
     deadline = as_floats(load.deadline_seconds).reshape(-1, 1)
-    if np.isfinite(deadline).any():
-        if max(np.shape(v)[0] for v in (blocks[0].effective_step_seconds, k_min, k_top)) == 1:
-            # The step and the counts do not vary by scenario: solve every scenario on one table.
-            blocks.append(_deadline_block(load, hardware, found, k_min, k_top, deadline))
-        else:
-            k_met = _fewest_meeting(load, hardware, found, columns, deadline,
-                                    low=(k_min, blocks[0].wall_seconds[:, :found.count]), high=k_top)
-            blocks.append(evaluate_columns(load, hardware, columns(k_met, DEADLINE), found))
+    if not np.isfinite(deadline).any():
+        return Candidates((evaluate_columns(load, hardware, base, found),)), fewest
+    if not _step_varies(load, hardware, k_min, k_top):
+        # Solve every scenario on one table of node counts, evaluated with the base block in one pass.
+        rungs = _rungs(k_min, k_top)
+        table_columns = _shape_columns(found, np.repeat(np.arange(found.count), TABLE_RUNGS), rungs.reshape(-1),
+                                       per_node)
+        both = step_figures(load, hardware, _side_by_side(base, table_columns), found)
+        width = base.nodes.shape[1]
+        first = with_wall(load, hardware, {name: value[:, :width] for name, value in both.items()})
+        table = {name: value[:, width:] for name, value in both.items()}
+        return Candidates((first, _deadline_block(load, hardware, found, k_min, k_top, rungs, table,
+                                                  deadline))), fewest
+    first = evaluate_columns(load, hardware, base, found)
+    k_met = _fewest_meeting(load, hardware, found, columns, deadline,
+                            low=(k_min, first.wall_seconds[:, :found.count]), high=k_top)
+    blocks = [first, evaluate_columns(load, hardware, columns(k_met, DEADLINE), found)]
     return Candidates(tuple(blocks)), fewest
 
 
@@ -168,8 +177,27 @@ def _shape_columns(found: Shapes, shape: Ints, units: Floats, accelerators_per_n
                    nodes * accelerators_per_node, np.full(nodes.shape, DEADLINE))
 
 
-def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats, k_top: Floats,
-                    deadline: Floats) -> LayoutGrid:
+def _step_varies(load: Load, hardware: Hardware, k_min: Floats, k_top: Floats) -> bool:
+    """Whether one step's figures vary by scenario: only when an input of the step does (not tokens,
+    runs, staging or prices)."""
+    inputs = (load.parameters, load.timed_flops_per_token, load.global_batch_tokens, load.checkpoint_bytes,
+              hardware.sustained_flops_per_accelerator, hardware.network_gbps, hardware.node_mtbf_hours, k_min, k_top)
+    return any(np.size(value) > 1 and np.shape(value)[0] > 1 for value in inputs if value is not None)
+
+
+def _rungs(k_min: Floats, k_top: Floats) -> Floats:
+    """TABLE_RUNGS geometric node-unit counts per shape from the memory minimum to the top: (H, G)."""
+    fraction = np.linspace(0.0, 1.0, TABLE_RUNGS)
+    return np.asarray(np.ceil(k_min[0][:, np.newaxis] * (k_top[0] / k_min[0])[:, np.newaxis] ** fraction - 1e-9))
+
+
+def _side_by_side(a: Columns, b: Columns) -> Columns:
+    """Two one-row sets of candidate columns as one."""
+    return Columns(*(np.concatenate([getattr(a, f.name), getattr(b, f.name)], axis=1) for f in fields(Columns)))
+
+
+def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats, k_top: Floats, rungs: Floats,
+                    table: dict[str, Any], deadline: Floats) -> LayoutGrid:
     """Per scenario and shape, the fewest node units that meet the deadline, when the step does not
     vary by scenario: the effective step g(k) on TABLE_RUNGS geometric counts from the memory
     minimum to the node limit (one row for all scenarios); each scenario's allowance
@@ -178,10 +206,6 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     steps, staging = scenario_terms(load, hardware)
     allowance = np.asarray((deadline - staging) / steps)  # (S, 1): the effective step each scenario affords
     h = found.count
-    fraction = np.linspace(0.0, 1.0, TABLE_RUNGS)
-    rungs = np.ceil(k_min[0][:, np.newaxis] * (k_top[0] / k_min[0])[:, np.newaxis] ** fraction - 1e-9)  # (H, G)
-    table = step_figures(load, hardware, _shape_columns(found, np.repeat(np.arange(h), TABLE_RUNGS),
-                                                        rungs.reshape(-1), hardware.accelerators_per_node), found)
     g = np.where(table["fits"], table["effective_step_seconds"], np.inf).reshape(h, TABLE_RUNGS)
     meets = g[np.newaxis, :, :] <= allowance[:, :, np.newaxis]  # (S, H, G)
     first = np.argmax(meets, axis=2)
