@@ -12,6 +12,7 @@ Recompute = Literal["none", "selective", "full"]
 Parallelism = Literal["auto", "replicated", "sharded"]
 UtilisationBasis = Literal["model", "hardware"]
 RankBy = Literal["cost", "wall_clock", "carbon"]
+OwnedCostView = Literal["full", "incremental"]
 
 OWNED_TERMS = ("owned_chargeback", "owned_new_build")
 RENTED_TERMS = ("on_demand", "committed", "interruptible")
@@ -115,6 +116,7 @@ class QuoteOptions:
     utilisation_basis: UtilisationBasis = "model"
     rank_by: RankBy = "cost"
     layout: LayoutPins = field(default_factory=LayoutPins)
+    owned_cost_view: OwnedCostView = "full"  # which cost of owned capacity ranks (model.md §6)
 
 
 @dataclass(frozen=True)
