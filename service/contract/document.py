@@ -79,7 +79,8 @@ def quote_document(catalog: Catalog, request: QuoteRequestIn, evaluation: Campai
         "options": options,
         "recommendation": None if not feasible else _recommendation(feasible, i, evaluation, catalog, request, costs),
         "next_steps": [] if feasible else explain.next_steps(ranked, i, campaign.deadline_days, catalog.currency),
-        "breakeven": [_breakeven(row, i, money, evaluation) for row in rows if not bool(_pick(row.figures.ruled_out, i))],
+        "breakeven": [_breakeven(row, i, money, evaluation) for row in rows
+                      if not bool(_pick(row.figures.ruled_out, i))],
         "breakeven_left_out": [
             {"offer": o.venue_id, "term": o.term,
              "reasons": explain.reasons(o, i, catalog, campaign.data.allowed_jurisdictions, campaign.deadline_days)}

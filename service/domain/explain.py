@@ -12,6 +12,7 @@ from service.domain.campaign import OwnedCostView
 from service.domain.catalog import Catalog, Colocation, Offer, Site
 from service.domain.comparison import BreakEvenRow, listed_rented_price, work_conversion
 from service.domain.evaluate import CampaignEvaluation, OptionResult, SiteFigures
+from service.domain.owning import fixed_cost_sharing_kw
 from service.domain.programme import OptionCosts
 from service.domain.units import HOURS_PER_MONTH, SECONDS_PER_DAY, SECONDS_PER_HOUR
 
@@ -188,7 +189,7 @@ def _owned_basis(option: OptionResult, item: str, i: int, site: SiteFigures, cur
         "capital": (node.capital, f"annuity of {_n(_at(e.capex_per_node, i))} {currency} capex less "
                     f"{_pct(s.residual_fraction)} residual over {s.depreciation_months} months at "
                     f"{_pct(_at(e.cost_of_capital_annual, i))}/12 a month"),
-        "facility": (node.facility, _facility_words(s, currency)),
+        "facility": (node.facility, _facility_words(site, i, currency)),
         "maintenance": (node.maintenance, f"{_pct(s.maintenance_fraction_per_year)} of capex a year"),
         "staff": (node.staff, f"{_n(s.staff_cost_per_node_year)} {currency} per node-year"),
         "idle_energy": (node.idle_energy, f"{s.node_type.power_kw_idle:g} kW idle × 730 h × PUE "
@@ -204,12 +205,21 @@ def _owned_basis(option: OptionResult, item: str, i: int, site: SiteFigures, cur
             f"{_n(d['sharing_instances'][i])} recurring instance(s) sharing them × {monthly}")
 
 
-def _facility_words(site: Site, currency: str) -> str:
-    f = site.facility
+def _facility_words(site: SiteFigures, i: int, currency: str) -> str:
+    s = site.economics.site
+    f = s.facility
     if isinstance(f, Colocation):
-        return f"colocation {f.price_per_kw_month:g} {currency} per kW-month × {site.node_type.power_kw_peak:g} kW"
+        return f"colocation {f.price_per_kw_month:g} {currency} per kW-month × {s.node_type.power_kw_peak:g} kW"
+    sharing = _at(fixed_cost_sharing_kw(site.economics), i)
+    if f.allocate == "installed" and s.nodes_owned > 0:
+        shared = (f"the installed IT load of {s.nodes_owned} owned nodes × {s.node_type.power_kw_peak:g} kW = "
+                  f"{_n(sharing, 1)} kW (facility.allocate installed)")
+    else:
+        shared = (f"the IT power it can feed, {_n(s.power_capacity_kw or 0.0, 1)} kW / PUE "
+                  f"{_at(site.economics.pue, i):g} = {_n(sharing, 1)} kW (facility.allocate {f.allocate}"
+                  + ("; no nodes installed" if f.allocate == "installed" else "") + ")")
     return (f"owned hall {f.capex_per_kw:g} {currency}/kW over {f.life_years:g} years plus "
-            f"{_n(f.fixed_cost_per_year)} {currency} a year shared by IT kW")
+            f"{_n(f.fixed_cost_per_year)} {currency} a year × {s.node_type.power_kw_peak:g} kW / {shared}")
 
 
 VIEW_WORDS = {
@@ -250,7 +260,10 @@ def why(ranked: Sequence[OptionResult], i: int, evaluation: CampaignEvaluation, 
     elif rank_by == "carbon":
         head = (f"{best.label} emits {_n(best.energy.kgco2e[i])} kgCO2e against "
                 f"{_n(runner.energy.kgco2e[i])} for {runner.label}, at {figure}")
-    return (head + "; " + _hinge(ranked, i, evaluation) + "."
+    hinge = (_hinge(ranked, i, evaluation) if view == "full" or best.venue_kind != "owned" else
+             "on this view the site's fixed cost is already paid, so running the campaign there adds only its "
+             "busy energy and data")
+    return (head + "; " + hinge + "."
             + _views(best, other_best, costs[0], i, view, currency, owned_compared))
 
 
