@@ -40,13 +40,11 @@ def rank(evaluation: CampaignEvaluation, i: int, rank_by: RankBy, view: OwnedCos
     """Option indices in the order people should read them for scenario i: feasible ones by
     the ranking keys, then the infeasible ones by cost."""
     options = evaluation.options
-    keys = [ranking_keys(o, evaluation, rank_by, view) for o in options]
 
     def key(k: int) -> tuple[bool, float, float, float]:
-        first, second, third = (np.asarray(v).reshape(-1) for v in keys[k])
-        at = i if first.size > 1 else 0
-        return (not bool(options[k].feasible[i]), float(first[at]), float(second[min(i, second.size - 1)]),
-                float(third[min(i, third.size - 1)]))
+        first, second, third = (float(np.broadcast_to(v, np.shape(options[k].total))[i])
+                                for v in ranking_keys(options[k], evaluation, rank_by, view))
+        return (not bool(options[k].feasible[i]), first, second, third)
     return sorted(range(len(options)), key=key)
 
 

@@ -22,7 +22,7 @@ from service.domain.campaign import OwnedCostView
 from service.domain.evaluate import CampaignEvaluation, OptionResult, sum_lines
 from service.domain.finance import monthly_rate, present_value
 from service.domain.recurrence import instances_by_month, programme_months, starts_by_month
-from service.domain.units import MONTHS_PER_YEAR
+from service.domain.units import HOURS_PER_MONTH, MONTHS_PER_YEAR
 
 FIXED_ITEMS = ("capital", "facility", "maintenance", "staff", "idle_energy")  # an owned node's month
 Column = Literal["capital", "operating", "rent"]
@@ -74,14 +74,25 @@ def view_total(option: OptionResult, evaluation: CampaignEvaluation, view: Owned
     return sum_lines(view_lines(option, evaluation, view).values())
 
 
-def shared_per_instance(option: OptionResult) -> Floats:
-    """The part of one instance's cost that is its share of a commitment bought whole (a new
-    build's node-months, a committed fee); 0 for terms that commit to nothing."""
+def shared_items(option: OptionResult) -> tuple[str, ...]:
+    """The cost lines that are an instance's share of a commitment bought whole: a new build's
+    node-months, a committed fee; none for terms that commit to nothing."""
     if option.term == "owned_new_build":
-        return sum_lines(option.lines[item] for item in FIXED_ITEMS)
+        return FIXED_ITEMS
     if option.term.startswith("committed_"):
-        return option.lines["commitment"]
-    return np.zeros_like(option.total)
+        return ("commitment",)
+    return ()
+
+
+def term_months(option: OptionResult) -> float:
+    """A committed term's length: `committed_12m` → 12."""
+    return float(option.term.removeprefix("committed_").removesuffix("m"))
+
+
+def shared_per_instance(option: OptionResult) -> Floats:
+    """The part of one instance's cost that is its share of a commitment bought whole."""
+    items = shared_items(option)
+    return sum_lines(option.lines[item] for item in items) if items else np.zeros_like(option.total)
 
 
 def commitments(option: OptionResult, evaluation: CampaignEvaluation) -> Floats:
@@ -154,14 +165,14 @@ def cash_flow(option: OptionResult, evaluation: CampaignEvaluation, view: OwnedC
         if option.term == "owned_new_build":
             length = np.ceil(option.details["carried_months"] - 1e-9)
         else:
-            length = option.details["terms_needed"] * float(option.term.split("_")[1][:-1])
+            length = option.details["terms_needed"] * term_months(option)
     months = _horizon(option, evaluation, spacing, length)
     instances = np.broadcast_to(instances_by_month(evaluation.recurrence, months), (*shape, months))
     # Each instance's own lines, paid in the month it starts in.
-    per_instance = {item: amount for item, amount in lines.items()
-                    if sharing is None or (option.term == "owned_new_build" and item not in FIXED_ITEMS)
-                    or (option.term.startswith("committed_") and item != "commitment")}
-    for item, amount in per_instance.items():
+    shared = shared_items(option)
+    for item, amount in lines.items():
+        if item in shared:
+            continue
         column = column_of(item)
         columns[column] = columns.get(column, 0.0) + instances * np.asarray(amount)[..., np.newaxis]
     if sharing is not None:
@@ -190,19 +201,19 @@ def _commitment_flows(option: OptionResult, evaluation: CampaignEvaluation, star
         returned = _lagged(started, length - 1.0) - _lagged(started, length)
         capital = bought * capex[..., np.newaxis] - returned * residual[..., np.newaxis]
         return {"capital": capital, "operating": active * np.asarray(running)[..., np.newaxis]}
-    term_months = float(option.term.split("_")[1][:-1])
+    months = term_months(option)
     details = option.details
-    fee = (nodes * option.node_type.accelerators_per_node * term_months * 730.0
+    fee = (nodes * option.node_type.accelerators_per_node * months * HOURS_PER_MONTH
            * details["price_per_accelerator_hour"])
     upfront = details["upfront_fraction"]
     rent = np.zeros_like(started)
     for q in range(int(np.max(details["terms_needed"]))):
         held = (q < details["terms_needed"])[..., np.newaxis]
-        lag = np.full(shape, q * term_months)
+        lag = np.full(shape, q * months)
         begun = _lagged(started, lag) - _lagged(started, lag + 1.0)
-        active = _lagged(started, lag) - _lagged(started, lag + term_months)
+        active = _lagged(started, lag) - _lagged(started, lag + months)
         rent += held * (begun * (upfront * fee)[..., np.newaxis]
-                        + active * ((1.0 - upfront) * fee / term_months)[..., np.newaxis])
+                        + active * ((1.0 - upfront) * fee / months)[..., np.newaxis])
     return {"rent": rent}
 
 

@@ -211,7 +211,8 @@ def test_money_in_a_currency_without_a_minor_unit_is_rounded_to_whole_units():
 @pytest.mark.parametrize("campaign", ["owned-wins", "recurring"])
 def test_the_breakeven_table_pairs_every_site_only_with_rented_options_that_passed_every_screen(campaign):
     body = document(campaign)
-    passed = {(o["venue"]["id"], o["term"]) for o in body["options"] if o["venue"]["kind"] == "rented" and o["feasible"]}
+    passed = {(o["venue"]["id"], o["term"]) for o in body["options"]
+              if o["venue"]["kind"] == "rented" and o["feasible"]}
     ruled_out = {(o["venue"]["id"], o["term"]) for o in body["options"]
                  if o["venue"]["kind"] == "rented" and not o["feasible"]}
     assert passed and ruled_out  # the US offer is ruled out by residency in both
@@ -252,8 +253,7 @@ def test_each_rented_price_is_the_listed_price_converted_per_unit_of_work_and_sh
             else:  # financed up-front share: dearer than listed, never cheaper
                 assert row["rented_listed_per_accelerator_hour"] > listed
             listed = row["rented_listed_per_accelerator_hour"]
-        if row["term"] != "committed_36m" and not row["term"].startswith("committed"):
-            assert row["rented_listed_per_accelerator_hour"] == pytest.approx(listed, rel=1e-9)
+        assert row["rented_listed_per_accelerator_hour"] == pytest.approx(listed, rel=1e-9)
         speed = sustained(sites[row["site"]]["node_type"]) / sustained(offer["node_type"])
         if row["term"] == "interruptible":
             assert row["conversion"] >= speed * (1 - 1e-6)  # plus the hours interruptions lose

@@ -30,7 +30,7 @@ def test_the_header_names_each_column_with_its_unit() -> None:
     items = list(dict.fromkeys(line["item"] for o in document["options"] for line in o["cost"]["lines"]))
     assert {"capital", "facility", "busy_energy", "compute", "commitment", "storage", "egress"} <= set(items)
     assert next(csv.reader(io.StringIO(text))) == HEADER + items
-    assert HEADER == list(OPTIONS_CSV_HEADER)
+    assert list(OPTIONS_CSV_HEADER) == HEADER
 
 
 def test_every_cost_line_is_a_column_with_the_options_amount(any_document: Json) -> None:
