@@ -9,7 +9,7 @@ from service.domain.arrays import Floats, Ints
 from service.domain.breakeven import CURVE_UTILISATIONS, BreakEven, Payback, break_even, chargeback_curve, payback
 from service.domain.campaign import OwnedCostView, RankBy
 from service.domain.evaluate import CampaignEvaluation, OptionResult
-from service.domain.programme import programme_total
+from service.domain.programme import MAX_CASH_FLOW_MONTHS, programme_total
 from service.domain.recurrence import instances_by_month
 from service.domain.units import HOURS_PER_MONTH
 
@@ -123,7 +123,7 @@ def _payback(evaluation: CampaignEvaluation, site_id: str, new_build: OptionResu
     site = evaluation.sites[site_id]
     s = site.economics.site
     nodes = new_build.layout.nodes
-    life = s.depreciation_months
+    life = min(s.depreciation_months, MAX_CASH_FLOW_MONTHS)
     campaign = (instances_by_month(evaluation.recurrence, life)
                 * np.asarray(new_build.layout.accelerator_hours)[..., np.newaxis])
     figures = payback(

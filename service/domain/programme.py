@@ -25,6 +25,7 @@ from service.domain.recurrence import instances_by_month, programme_months, star
 from service.domain.units import HOURS_PER_MONTH, MONTHS_PER_YEAR
 
 FIXED_ITEMS = ("capital", "facility", "maintenance", "staff", "idle_energy")  # an owned node's month
+MAX_CASH_FLOW_MONTHS = 1200  # a programme longer than a century has no cash flow (NaN), only its totals
 Column = Literal["capital", "operating", "rent"]
 
 
@@ -144,11 +145,15 @@ def _lagged(cumulative: Floats, lag: Floats) -> Floats:
     return np.where(index >= 0, taken, 0.0)
 
 
-def _horizon(option: OptionResult, evaluation: CampaignEvaluation, spacing: Floats, length: Floats) -> int:
-    """Months the cash flow needs: the programme plus the last commitment's whole length."""
+def _horizon(option: OptionResult, evaluation: CampaignEvaluation, spacing: Floats,
+             length: Floats) -> tuple[int, Floats]:
+    """Months the cash flow needs (the programme plus the last commitment's whole length), and
+    which scenarios have one: those whose figures are finite and need at most MAX_CASH_FLOW_MONTHS."""
     last_start = np.floor((commitments(option, evaluation) - 1.0).clip(0.0) * spacing + 1e-9)
-    needed = np.maximum(programme_months(evaluation.recurrence), last_start + length)
-    return int(np.max(needed))
+    needed = np.broadcast_to(np.maximum(programme_months(evaluation.recurrence), last_start + length),
+                             np.shape(option.total))
+    shown = np.isfinite(needed) & (needed <= MAX_CASH_FLOW_MONTHS)
+    return int(np.max(needed, where=shown, initial=1.0)), np.asarray(shown)
 
 
 def cash_flow(option: OptionResult, evaluation: CampaignEvaluation, view: OwnedCostView) -> CashFlow:
@@ -166,7 +171,8 @@ def cash_flow(option: OptionResult, evaluation: CampaignEvaluation, view: OwnedC
             length = np.ceil(option.details["carried_months"] - 1e-9)
         else:
             length = option.details["terms_needed"] * term_months(option)
-    months = _horizon(option, evaluation, spacing, length)
+    months, shown = _horizon(option, evaluation, spacing, length)
+    spacing, length = np.where(shown, spacing, 1.0), np.where(shown, length, 0.0)
     instances = np.broadcast_to(instances_by_month(evaluation.recurrence, months), (*shape, months))
     # Each instance's own lines, paid in the month it starts in.
     shared = shared_items(option)
@@ -176,10 +182,11 @@ def cash_flow(option: OptionResult, evaluation: CampaignEvaluation, view: OwnedC
         column = column_of(item)
         columns[column] = columns.get(column, 0.0) + instances * np.asarray(amount)[..., np.newaxis]
     if sharing is not None:
-        starts = starts_by_month(spacing_months=spacing, count=commitments(option, evaluation), months=months)
+        count = np.where(shown, commitments(option, evaluation), 0.0)
+        starts = starts_by_month(spacing_months=spacing, count=count, months=months)
         for column, flow in _commitment_flows(option, evaluation, starts, length).items():
             columns[column] = columns.get(column, 0.0) + flow
-    zero = np.zeros((*shape, months))
+    zero = np.where(shown[..., np.newaxis], np.zeros((*shape, months)), np.nan)
     return CashFlow(*(np.asarray(columns.get(c, zero) + zero) for c in ("capital", "operating", "rent")))
 
 
@@ -207,7 +214,8 @@ def _commitment_flows(option: OptionResult, evaluation: CampaignEvaluation, star
            * details["price_per_accelerator_hour"])
     upfront = details["upfront_fraction"]
     rent = np.zeros_like(started)
-    for q in range(int(np.max(details["terms_needed"]))):
+    terms = np.where(np.isfinite(details["terms_needed"]), details["terms_needed"], 0.0)
+    for q in range(int(min(np.max(terms), MAX_CASH_FLOW_MONTHS / months))):
         held = (q < details["terms_needed"])[..., np.newaxis]
         lag = np.full(shape, q * months)
         begun = _lagged(started, lag) - _lagged(started, lag + 1.0)

@@ -251,3 +251,13 @@ def test_at_the_break_even_utilisation_owning_and_renting_the_same_work_cost_the
     totals = {o["venue"]["id"]: o["cost"]["total"]
               for o in quote(catalog, QuoteRequestIn.model_validate(at_break_even))["options"]}
     assert totals["test-site"] == pytest.approx(totals[offer], rel=0.005)
+
+
+def test_a_programme_longer_than_a_century_has_totals_but_no_cash_flow():
+    request = demo_request("recurring")
+    request["campaign"]["recurrence"] = {"every_months": 1, "for_months": 1300}
+    evaluation = evaluate(demo_catalog(), request)
+    on_demand = option(evaluation, "corvane-paris-acc192/on_demand")
+    assert_allclose(programme_total(on_demand, evaluation, "full"), 1300 * on_demand.total, rtol=1e-12)
+    flow = cash_flow(on_demand, evaluation, "full")
+    assert np.isnan(flow.total).all() and np.isnan(npv(flow, evaluation)).all()
