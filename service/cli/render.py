@@ -20,6 +20,11 @@ def _pct(value: float | None) -> str:
     return "—" if value is None else f"{value * 100:.1f}%"
 
 
+def _no_payback(row: dict[str, Any]) -> str:
+    """"none" only where the rent saved never covers the running cost; otherwise beyond the life."""
+    return "none" if "never covers" in (row.get("payback_reason") or "") else "> life"
+
+
 def print_quote(console: Console, quote: dict[str, Any]) -> None:
     campaign = quote["request"]["campaign"]
     currency = quote["currency"]
@@ -27,18 +32,27 @@ def print_quote(console: Console, quote: dict[str, Any]) -> None:
     console.print(f"[bold]{campaign['name']}[/] (team {campaign['team']}): "
                   f"{work['runs_total_flops']:.3g} FLOPs in all", highlight=False)
 
-    options = Table(title=f"Placement options, ranked ({currency})", title_justify="left")
-    for header in ("#", "option", "acc.", "days", "acc.-hours", "total", "per acc.-h", "kgCO2e"):
+    recurring = (work.get("instances") or 1) > 1
+    view = quote["options"][0]["cost"].get("view", "full") if quote["options"] else "full"
+    other = "incremental" if view == "full" else "full"
+    over = f" over the programme of {work['instances']:,.0f} instances" if recurring else ""
+    title = f"Placement options, ranked{over}"
+    options = Table(title=f"{title} ({currency}; {view} view ranks)", title_justify="left")
+    headers = ["#", "option", "acc.", "days", "acc.-hours", *(["programme"] if recurring else []),
+               "per instance" if recurring else "total", other, "per acc.-h", "kgCO2e"]
+    for header in headers:
         options.add_column(header, justify="left" if header == "option" else "right",
                            no_wrap=header == "option")
     ruled_out = []
     for option in quote["options"]:
         timing = option["timing"]
         label = f"{option['venue']['id']}/{option['term']}"
+        cost = option["cost"]
         options.add_row(
             str(option["rank"] or "–"), label, str(option["layout"]["accelerators"]),
             _fixed(timing["wall_clock_days"]), _money(timing["accelerator_hours"]),
-            _money(option["cost"]["total"]), _fixed(option["cost"]["per_accelerator_hour"], 2),
+            *([_money(cost.get("programme_total"))] if recurring else []),
+            _money(cost["total"]), _money(cost.get(f"{other}_total")), _fixed(cost["per_accelerator_hour"], 2),
             _money(option["energy"]["kgco2e"]), style=None if option["feasible"] else "dim")
         if option["reasons"]:
             ruled_out.append((label, option["reasons"]))
@@ -66,20 +80,30 @@ def print_quote(console: Console, quote: dict[str, Any]) -> None:
         for step in quote["next_steps"]:
             console.print(f"  • {step}", highlight=False)
 
-    breakeven = Table(title="Break-even: owning against each rented price", title_justify="left")
-    for header in ("site", "rented option", "rent/acc.-h", "owned F/node-mo", "owned v/acc.-h",
-                   "break-even", "acc.-h/year", "campaigns/yr", "payback mo"):
+    breakeven = Table(title="Break-even: owning against each rented option that passed every screen "
+                      "(rented price per unit of work on the site's accelerator)", title_justify="left")
+    for header in ("site", "rented option", "listed/acc.-h", "× work", "rent/acc.-h", "owned F/node-mo",
+                   "owned v/acc.-h", "break-even", "acc.-h/year", "campaigns/yr", "payback mo"):
         breakeven.add_column(header, justify="left" if header in ("site", "rented option") else "right",
                              no_wrap=header in ("site", "rented option"))
     for row in quote["breakeven"]:
         breakeven.add_row(
-            row["site"], f"{row['offer']}/{row['term']}", _fixed(row["rented_per_accelerator_hour"], 2),
+            row["site"], f"{row['offer']}/{row['term']}", _fixed(row.get("rented_listed_per_accelerator_hour"), 2),
+            _fixed(row.get("conversion"), 3), _fixed(row["rented_per_accelerator_hour"], 2),
             _money(row["owned_fixed_per_month"]), _fixed(row["owned_variable_per_accelerator_hour"], 3),
             _pct(row["utilisation"]) if row["utilisation"] is not None else "never",
             _money(row["accelerator_hours_per_year"]), _fixed(row["campaigns_per_year"]),
-            _fixed(row["payback_months"], 0) if row["payback_months"] is not None else "none",
+            _fixed(row["payback_months"], 1) if row["payback_months"] is not None else _no_payback(row),
         )
-    console.print(breakeven)
+    if breakeven.row_count:
+        console.print(breakeven)
+    paybacks = dict.fromkeys(f"payback at {row['site']}: {row['payback_basis']}" for row in quote["breakeven"]
+                             if row.get("payback_basis"))
+    for words in paybacks:
+        console.print(f"[dim]{words}[/]", highlight=False)
+    for left in quote.get("breakeven_left_out", []):
+        console.print(f"[dim]no break-even against[/] {left['offer']}/{left['term']}: " + "; ".join(left["reasons"]),
+                      highlight=False)
     console.print("[bold]Cautions[/]")
     for caution in quote["cautions"]:
         console.print(f"  • {caution}", highlight=False)

@@ -85,16 +85,46 @@ class Energy(Open):
 
 
 class CostLine(Open):
+    """One cost line of one instance; `incremental_amount` is what the line adds on the incremental
+    view (an owned site's fixed lines count only for nodes beyond its free capacity)."""
+
     item: str
     amount: float | None
+    incremental_amount: float | None = None
     basis: str
 
 
 class Cost(Open):
+    """An option's cost (model.md §6). `total` and `per_instance_total`: one instance in the view
+    that ranks (`view`, the request's `options.owned_cost_view`); `full_total` and
+    `incremental_total`: one instance in each view; `programme_total`: every instance of a
+    recurring campaign in the ranking view, commitments bought whole, capital in its annuity;
+    `npv`: the present value of `cash_flow` at the catalog's cost of capital. Quotes stored before
+    these fields existed lack them."""
+
     currency: str
+    view: Literal["full", "incremental"] = "full"
     total: float | None
+    per_instance_total: float | None = None
+    programme_total: float | None = None
+    npv: float | None = None
+    full_total: float | None = None
+    incremental_total: float | None = None
     per_accelerator_hour: float | None
     lines: list[CostLine]
+
+
+class CashFlowYear(Open):
+    """Money paid in one year of the programme, in the ranking view: capital (a new build's
+    purchase, its residual back as a negative amount; a chargeback's capital line), operating and
+    rent (rented compute and committed fees)."""
+
+    year: int
+    capital: float | None
+    operating: float | None
+    rent: float | None
+    total: float | None
+    currency: str
 
 
 class Option(Open):
@@ -108,23 +138,44 @@ class Option(Open):
     timing: Timing
     energy: Energy
     cost: Cost
+    cash_flow: list[CashFlowYear] = []
     term_figures: dict[str, float | None]
 
 
+class OtherView(Open):
+    view: Literal["full", "incremental"]
+    venue: str
+    term: str
+
+
 class Recommendation(Open):
+    """The first option; `views_agree` says whether the other view of owned cost (`other_view`)
+    ranks the same option first."""
+
     option_index: int
     venue: str
     term: str
     why: str
+    view: Literal["full", "incremental"] | None = None
+    views_agree: bool | None = None
+    other_view: OtherView | None = None
 
 
 class BreakEvenRow(Open):
+    """An owned site against a rented option that passed every screen (model.md §8).
+    `rented_per_accelerator_hour` = `rented_listed_per_accelerator_hour` (a committed term's at
+    full use of the commitment) × `conversion` (rented accelerator-hours doing the work of one of
+    the site's), as `conversion_basis` shows. Payback is discounted, for the demand stated in
+    `payback_basis`; null with `payback_reason` where there is none within the depreciation life."""
+
     site: str
     offer: str
     term: str
     currency: str
     rented_per_accelerator_hour: float | None
     rented_listed_per_accelerator_hour: float | None
+    conversion: float | None = None
+    conversion_basis: str = ""
     owned_fixed_per_month: float | None
     owned_variable_per_accelerator_hour: float | None
     utilisation: float | None
@@ -133,7 +184,17 @@ class BreakEvenRow(Open):
     payback_months: float | None
     reason: str | None
     payback_reason: str | None
+    payback_demand_accelerator_hours_per_month: float | None = None
+    payback_basis: str = ""
     note: str | None
+
+
+class LeftOut(Open):
+    """A rented option with no break-even row: it failed a screen."""
+
+    offer: str
+    term: str
+    reasons: list[str]
 
 
 class CurvePoint(Open):
@@ -160,6 +221,7 @@ class WorkOut(Open):
     flops_per_token: float | None
     runs_total_flops: float | None
     instances: float | None
+    programme_months: float | None = None
 
 
 class QuoteOut(Open):
@@ -175,6 +237,7 @@ class QuoteOut(Open):
     recommendation: Recommendation | None
     next_steps: list[str]
     breakeven: list[BreakEvenRow]
+    breakeven_left_out: list[LeftOut] = []
     curves: list[Curve]
     assumptions: list[AssumptionOut]
     cautions: list[str]

@@ -83,6 +83,9 @@ class OwnedHallIn(Strict):
     capex_per_kw: NonNegativeFloat
     life_years: PositiveFloat
     fixed_cost_per_year: NonNegativeFloat = 0.0
+    allocate: Literal["installed", "capacity"] = Field(
+        "installed", description="what shares the fixed yearly cost: the installed IT load (owned nodes at peak "
+                                 "kW) or the IT power the hall can feed (power capacity / PUE)")
 
 
 class SiteIn(Strict):
@@ -247,9 +250,11 @@ class CatalogIn(Strict):
             if node_type not in node_types:
                 problems.append((f"{kind}.{i}.node_type", f"unknown node type {node_type!r}"))
         for i, s in enumerate(self.sites):
-            if isinstance(s.facility, OwnedHallIn) and s.power_capacity_kw is None and s.facility.fixed_cost_per_year:
+            if (isinstance(s.facility, OwnedHallIn) and s.power_capacity_kw is None and s.facility.fixed_cost_per_year
+                    and (s.facility.allocate == "capacity" or s.nodes_owned == 0)):
                 problems.append((f"sites.{i}.power_capacity_kw", "an owned hall's fixed cost is shared by its "
-                                 "power capacity, so it must be given"))
+                                 "power capacity (facility.allocate capacity, or no nodes installed), so it "
+                                 "must be given"))
         if problems:
             raise ReferenceProblems(problems)
         return self
@@ -284,7 +289,8 @@ def _site(s: SiteIn, node_types: dict[str, domain.NodeType]) -> domain.Site:
     if isinstance(s.facility, ColocationIn):
         facility = domain.Colocation(s.facility.price_per_kw_month)
     else:
-        facility = domain.OwnedHall(s.facility.capex_per_kw, s.facility.life_years, s.facility.fixed_cost_per_year)
+        facility = domain.OwnedHall(s.facility.capex_per_kw, s.facility.life_years, s.facility.fixed_cost_per_year,
+                                    allocate=s.facility.allocate)
     return domain.Site(
         id=s.id, name=s.name, jurisdiction=s.jurisdiction, node_type=node_types[s.node_type],
         nodes_owned=s.nodes_owned, nodes_max=s.nodes_max, network_path=s.network_path,

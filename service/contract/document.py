@@ -10,12 +10,15 @@ from babel.numbers import get_currency_precision
 from service.contract.request import QuoteRequestIn, TransformerWorkIn
 from service.domain import explain, screens
 from service.domain.assumptions import DEFAULTS
+from service.domain.campaign import OwnedCostView
 from service.domain.catalog import Catalog
 from service.domain.choice import decided_by
-from service.domain.comparison import CURVE_UTILISATIONS, breakeven_rows, curves, rank
+from service.domain.comparison import CURVE_UTILISATIONS, BreakEvenRow, breakeven_rows, curves, rank
 from service.domain.evaluate import CampaignEvaluation, OptionResult
 from service.domain.layout import LayoutGrid
 from service.domain.owning import cooling_tons
+from service.domain.programme import OptionCosts, cash_flow, npv, option_costs, view_lines
+from service.domain.recurrence import programme_months
 from service.domain.units import SECONDS_PER_DAY, SECONDS_PER_HOUR
 
 Json = dict[str, Any]
@@ -52,13 +55,16 @@ def quote_document(catalog: Catalog, request: QuoteRequestIn, evaluation: Campai
     i = scenario
     money = Money(catalog.currency)
     campaign = request.campaign
-    order = rank(evaluation.options, i, request.options.rank_by)
+    view = request.options.owned_cost_view
+    order = rank(evaluation, i, request.options.rank_by, view)
     ranked = [evaluation.options[k] for k in order]
+    costs = {id(o): option_costs(o, evaluation, view) for o in ranked}
     feasible = [o for o in ranked if bool(o.feasible[i])]
-    options = [_option(o, position, i, catalog, evaluation, request, money)
+    options = [_option(o, position, i, catalog, evaluation, request, money, costs[id(o)])
                for position, o in enumerate(ranked)]
     rows = breakeven_rows(evaluation)
     work = evaluation.work
+    instances = float(_pick(evaluation.instances_total, i))
     body: Json = {
         "request": request.model_dump(mode="json"),
         "currency": catalog.currency,
@@ -67,17 +73,18 @@ def quote_document(catalog: Catalog, request: QuoteRequestIn, evaluation: Campai
             "hardware_flops": _number(_pick(work.hardware_flops, i)),
             "flops_per_token": None if work.flops_per_token is None else _number(_pick(work.flops_per_token, i)),
             "runs_total_flops": _number(_pick(work.model_flops * evaluation.runs_multiplier, i)),
-            "instances": _number(_pick(evaluation.instances_total, i)),
+            "instances": _number(instances),
+            "programme_months": _number(_pick(programme_months(evaluation.recurrence), i)),
         },
         "options": options,
-        "recommendation": None if not feasible else {
-            "option_index": 0,
-            "venue": feasible[0].venue_id,
-            "term": feasible[0].term,
-            "why": explain.why(feasible, i, evaluation, catalog.currency, request.options.rank_by),
-        },
+        "recommendation": None if not feasible else _recommendation(feasible, i, evaluation, catalog, request, costs),
         "next_steps": [] if feasible else explain.next_steps(ranked, i, campaign.deadline_days, catalog.currency),
-        "breakeven": [_breakeven(row, i, money) for row in rows],
+        "breakeven": [_breakeven(row, i, money, evaluation) for row in rows
+                      if not bool(_pick(row.figures.ruled_out, i))],
+        "breakeven_left_out": [
+            {"offer": o.venue_id, "term": o.term,
+             "reasons": explain.reasons(o, i, catalog, campaign.data.allowed_jurisdictions, campaign.deadline_days)}
+            for o in evaluation.options if o.venue_kind == "rented" and evaluation.sites and not bool(o.feasible[i])],
         "curves": [
             {"site": site_id, "currency": catalog.currency,
              "points": [{"utilisation": float(u), "owned_per_accelerator_hour": _number(c, 4)}
@@ -108,8 +115,33 @@ def _given(request: QuoteRequestIn) -> dict[str, bool]:
     }
 
 
+def _recommendation(feasible: list[OptionResult], i: int, evaluation: CampaignEvaluation, catalog: Catalog,
+                    request: QuoteRequestIn, costs: dict[int, OptionCosts]) -> Json:
+    """The first feasible option, why, and whether the other view of owned cost would rank another first."""
+    view = request.options.owned_cost_view
+    other_view: OwnedCostView = "incremental" if view == "full" else "full"
+    by_other = min(feasible, key=lambda o: (float(_pick(costs[id(o)].other(view), i)), feasible.index(o)))
+    owned_compared = any(o.venue_kind == "owned" for o in feasible)
+    best = feasible[0]
+    return {
+        "option_index": 0,
+        "venue": best.venue_id,
+        "term": best.term,
+        "view": view,
+        "views_agree": by_other is best or not owned_compared,
+        "other_view": {"view": other_view, "venue": by_other.venue_id, "term": by_other.term},
+        "why": explain.why(feasible, i, evaluation, catalog.currency, request.options.rank_by,
+                           [costs[id(o)] for o in feasible], view,
+                           other_best=None if by_other is best or not owned_compared else by_other,
+                           owned_compared=owned_compared),
+    }
+
+
 def _option(o: OptionResult, position: int, i: int, catalog: Catalog, evaluation: CampaignEvaluation,
-            request: QuoteRequestIn, money: Money) -> Json:
+            request: QuoteRequestIn, money: Money, costs: OptionCosts) -> Json:
+    view = request.options.owned_cost_view
+    flow = cash_flow(o, evaluation, view)
+    yearly = flow.by_year()
     layout = o.layout
     feasible = bool(o.feasible[i])
     site = evaluation.sites.get(o.venue_id) if o.venue_kind == "owned" else None
@@ -152,10 +184,20 @@ def _option(o: OptionResult, position: int, i: int, catalog: Catalog, evaluation
         },
         "cost": {
             "currency": money.currency,
-            "total": money(o.total[i]),
-            "per_accelerator_hour": _number(o.per_accelerator_hour[i], 4),
+            "view": view,
+            "total": money(_pick(costs.ranked, i)),
+            "per_instance_total": money(_pick(costs.ranked, i)),
+            "programme_total": money(_pick(costs.programme, i)),
+            "npv": money(_pick(npv(flow, evaluation), i)),
+            "full_total": money(_pick(costs.full, i)),
+            "incremental_total": money(_pick(costs.incremental, i)),
+            "per_accelerator_hour": _number(_pick(costs.ranked, i) / layout.accelerator_hours[i], 4),
             "lines": _lines(o, i, catalog, evaluation, money),
         },
+        "cash_flow": [
+            {"year": year + 1, "capital": money(yearly.capital[i, year]), "operating": money(yearly.operating[i, year]),
+             "rent": money(yearly.rent[i, year]), "total": money(yearly.total[i, year]), "currency": money.currency}
+            for year in range(yearly.capital.shape[-1])],
         "term_figures": details,
         **({"parts": [_part(p, runs, i, money) for p, runs in
                       zip(o.parts, (o.details["owned_runs"][i], o.details["rented_runs"][i]), strict=True)]}
@@ -213,7 +255,8 @@ def _lines(o: OptionResult, i: int, catalog: Catalog, evaluation: CampaignEvalua
         return [{**line, "item": f"{part.venue_id}: {line['item']}"}
                 for part in o.parts for line in _lines(part, i, catalog, evaluation, money)]
     site = evaluation.sites.get(o.venue_id) if o.venue_kind == "owned" else None
-    return [{"item": item, "amount": money(amount[i]),
+    incremental = view_lines(o, evaluation, "incremental")
+    return [{"item": item, "amount": money(amount[i]), "incremental_amount": money(_pick(incremental[item], i)),
              "basis": explain.line_basis(o, item, i, catalog, site, money.currency)}
             for item, amount in o.lines.items()]
 
@@ -232,22 +275,22 @@ def _part(p: OptionResult, runs: float, i: int, money: Money) -> Json:
     }
 
 
-def _breakeven(row: Any, i: int, money: Money) -> Json:
+def _breakeven(row: BreakEvenRow, i: int, money: Money, evaluation: CampaignEvaluation) -> Json:
     f = row.figures
+    paid = row.payback
 
     def at(values: Any) -> Any:
         return _pick(values, i)
 
     reason = str(at(f.utilisation_reason))
-    payback_reason = str(at(f.payback_reason))
+    site = evaluation.sites[row.site]
     words = {
         "rent_below_owned_energy": "the rented price is below the owned busy-energy cost: owning never wins",
         "needs_more_than_full_utilisation": (
             f"owning would need {_number(at(f.utilisation_unbounded) * 100, 1)}% utilisation: "
             "renting wins at any achievable use"),
-        "rent_never_covers_running_cost": "the rent saved never covers the new nodes' running cost",
-        "beyond_depreciation_life": "the new nodes do not pay back within their depreciation life",
     }
+    payback = {} if paid is None else explain.payback_words(paid, i, site, money.currency)
     return {
         "site": row.site,
         "offer": row.offer,
@@ -255,16 +298,21 @@ def _breakeven(row: Any, i: int, money: Money) -> Json:
         "currency": money.currency,
         "rented_per_accelerator_hour": _number(at(row.rented_per_accelerator_hour), 4),
         "rented_listed_per_accelerator_hour": _number(at(row.rented_listed_per_accelerator_hour), 4),
+        "conversion": _number(at(row.conversion), 6),
+        "conversion_basis": explain.conversion_words(row, i, evaluation, money.currency),
         "owned_fixed_per_month": money(at(row.owned_fixed_per_month)),
         "owned_variable_per_accelerator_hour": _number(at(row.owned_variable_per_accelerator_hour), 4),
         "utilisation": _number(at(f.utilisation), 4),
         "accelerator_hours_per_year": _number(at(f.accelerator_hours_per_year), 0),
         "campaigns_per_year": _number(at(f.campaigns_per_year), 2),
-        "payback_months": _number(at(f.payback_months), 0),
         "reason": words.get(reason) if reason else None,
-        "payback_reason": words.get(payback_reason) if payback_reason else None,
+        **payback,
         "note": " ".join(filter(None, (
-            "Rented price expressed per accelerator-hour of the site's node type doing the same work.",
-            "Committed hours are paid whether used or not; compared here at full use of the commitment."
-            if row.term.startswith("committed_") else None))),
+            "Rented price per unit of work: the listed price per accelerator-hour converted to the site's "
+            "accelerator by relative speed.",
+            COMMITTED_NOTE if row.term.startswith("committed_") else None))),
     }
+
+
+COMMITTED_NOTE = ("Committed hours are paid whether used or not; compared here at full use of the commitment, "
+                  "its up-front share financed at the cost of capital.")

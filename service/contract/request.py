@@ -132,6 +132,11 @@ class OptionsIn(Strict):
     utilisation_basis: Literal["model", "hardware"] = "model"
     rank_by: Literal["cost", "wall_clock", "carbon"] = "cost"
     layout: LayoutIn = Field(default_factory=LayoutIn)
+    owned_cost_view: Literal["full", "incremental"] = Field(
+        "full", description="which cost of owned capacity ranks the options: `full` (the chargeback at planned "
+                            "utilisation, every cost line) or `incremental` (what running the campaign adds: busy "
+                            "energy, data, and the fixed cost of nodes beyond the site's free capacity); the other "
+                            "is shown beside it")
 
 
 class _NodeOverrides(Strict):
@@ -214,5 +219,5 @@ class QuoteRequestIn(Strict):
         options = domain.QuoteOptions(
             terms=tuple(dict.fromkeys(o.terms)), max_accelerators=o.max_accelerators,
             fixed_accelerators=o.fixed_accelerators, utilisation_basis=o.utilisation_basis, rank_by=o.rank_by,
-            layout=o.layout.to_domain())
+            layout=o.layout.to_domain(), owned_cost_view=o.owned_cost_view)
         return campaign, options, self.overrides.to_domain()

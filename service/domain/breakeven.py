@@ -4,7 +4,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Floats, as_floats
+from service.domain.arrays import ArrayLike, Bools, Floats, as_floats
+from service.domain.finance import discounted_payback, monthly_rate
 from service.domain.owning import chargeback_per_accelerator_hour
 from service.domain.units import HOURS_PER_MONTH, HOURS_PER_YEAR
 
@@ -12,32 +13,28 @@ CURVE_UTILISATIONS = np.round(np.linspace(0.05, 1.0, 20), 2)
 
 NO_MARGIN = "rent_below_owned_energy"
 ABOVE_FULL_USE = "needs_more_than_full_utilisation"
+RULED_OUT = "rented_option_ruled_out"
 NO_SAVING = "rent_never_covers_running_cost"
 BEYOND_LIFE = "beyond_depreciation_life"
 
 
 @dataclass(frozen=True)
 class BreakEven:
-    """One owned site against one rented price; NaN where there is no break-even (see the reasons)."""
+    """One owned site against one rented price; NaN where there is no break-even (see the reason)."""
 
     utilisation: Floats
     utilisation_unbounded: Floats
     accelerator_hours_per_year: Floats
     campaigns_per_year: Floats
-    payback_months: Floats  # NaN beyond the depreciation life
-    payback_months_unbounded: Floats  # inf when renting never saves the running cost
+    ruled_out: Bools  # the rented option failed a screen: it has no break-even row
 
     # The reasons are words for people: sweeps never read them, so they are made on demand.
     @property
     def utilisation_reason(self) -> np.ndarray:
         """A code where there is no break-even utilisation, "" where there is one."""
         u = self.utilisation_unbounded
-        return np.where(np.isfinite(u), np.where(u <= 1.0, "", ABOVE_FULL_USE), NO_MARGIN)
-
-    @property
-    def payback_reason(self) -> np.ndarray:
-        months = self.payback_months_unbounded
-        return np.where(np.isfinite(months), np.where(np.isnan(self.payback_months), BEYOND_LIFE, ""), NO_SAVING)
+        reason = np.where(np.isfinite(u), np.where(u <= 1.0, "", ABOVE_FULL_USE), NO_MARGIN)
+        return np.where(self.ruled_out, RULED_OUT, reason)
 
 
 def breakeven_utilisation(
@@ -51,48 +48,72 @@ def breakeven_utilisation(
     return np.where(margin > 0.0, value, np.inf)
 
 
-def payback_months(
-    *, capex: ArrayLike, running_per_month: ArrayLike, demand_hours_per_month: ArrayLike,
-    rented_per_accelerator_hour: ArrayLike, variable_per_accelerator_hour: ArrayLike,
-) -> Floats:
-    """Months until the rent saved on a recurring demand repays the capex: the first month m in
-    which m · (h·(p − v) − R) ≥ capex, with R the owned running cost a month; inf without saving."""
-    saving = as_floats(demand_hours_per_month) * (
-        as_floats(rented_per_accelerator_hour) - as_floats(variable_per_accelerator_hour)
-    ) - as_floats(running_per_month)
-    safe = np.where(saving > 0.0, saving, 1.0)
-    return np.where(saving > 0.0, np.ceil(as_floats(capex) / safe - 1e-9), np.inf)
-
-
 def break_even(
-    *, fixed_per_node_month: ArrayLike, running_per_node_month: ArrayLike, capex_per_node: ArrayLike,
-    accelerators_per_node: int, variable_per_accelerator_hour: ArrayLike,
+    *, fixed_per_node_month: ArrayLike, accelerators_per_node: int, variable_per_accelerator_hour: ArrayLike,
     rented_per_accelerator_hour: ArrayLike, fleet_nodes: ArrayLike, campaign_accelerator_hours: ArrayLike,
-    demand_hours_per_year: ArrayLike, new_nodes: ArrayLike, depreciation_months: float,
+    ruled_out: ArrayLike = False,
 ) -> BreakEven:
-    """Break-even utilisation and demand of a fleet of `fleet_nodes`, and the payback of buying
-    `new_nodes` for the campaign's recurring demand (capped by what those nodes can serve)."""
+    """Break-even utilisation of a fleet of `fleet_nodes` against a rented price, and the demand it
+    means: u* · A · nodes · 8760 accelerator-hours a year, or that many campaigns."""
     u = breakeven_utilisation(
         fixed_per_node_month=fixed_per_node_month, accelerators_per_node=accelerators_per_node,
         variable_per_accelerator_hour=variable_per_accelerator_hour,
         rented_per_accelerator_hour=rented_per_accelerator_hour)
-    reachable = u <= 1.0
+    out = np.asarray(ruled_out, dtype=bool)
+    reachable = (u <= 1.0) & ~out
     hours = np.where(reachable, u * accelerators_per_node * as_floats(fleet_nodes) * HOURS_PER_YEAR, np.nan)
-    capacity_per_month = as_floats(new_nodes) * accelerators_per_node * HOURS_PER_MONTH
-    demand = np.minimum(as_floats(demand_hours_per_year) / 12.0, capacity_per_month)
-    months = payback_months(
-        capex=as_floats(capex_per_node) * as_floats(new_nodes),
-        running_per_month=as_floats(running_per_node_month) * as_floats(new_nodes),
-        demand_hours_per_month=demand, rented_per_accelerator_hour=rented_per_accelerator_hour,
-        variable_per_accelerator_hour=variable_per_accelerator_hour)
-    within = months <= depreciation_months
     return BreakEven(
         utilisation=np.where(reachable, u, np.nan),
-        utilisation_unbounded=u,
+        utilisation_unbounded=np.where(out, np.nan, u),
         accelerator_hours_per_year=hours,
         campaigns_per_year=hours / as_floats(campaign_accelerator_hours),
-        payback_months=np.where(within, months, np.nan),
-        payback_months_unbounded=months,
+        ruled_out=np.broadcast_to(out, np.shape(u)),
+    )
+
+
+@dataclass(frozen=True)
+class Payback:
+    """Discounted payback of buying new nodes instead of renting (model.md §8)."""
+
+    months: Floats  # NaN where they do not pay back within the depreciation life
+    recovered_fraction: Floats  # the discounted saving within the life over the capex
+    demand_hours_per_month: Floats  # the stated demand the new nodes serve, on average
+    saving_never_positive: Bools
+
+    @property
+    def reason(self) -> np.ndarray:
+        return np.where(np.isfinite(self.months), "", np.where(self.saving_never_positive, NO_SAVING, BEYOND_LIFE))
+
+
+def payback(
+    *, capex: ArrayLike, running_per_month: ArrayLike, capacity_hours_per_month: ArrayLike,
+    campaign_hours_by_month: ArrayLike, background_utilisation: ArrayLike,
+    rented_per_accelerator_hour: ArrayLike, variable_per_accelerator_hour: ArrayLike,
+    cost_of_capital_annual: ArrayLike,
+) -> Payback:
+    """Months until the discounted rent saved repays the capex of new nodes (model.md §8).
+
+    Demand in month t (t = 1 … life, the last axis of `campaign_hours_by_month`): the campaign's
+    accelerator-hours that month plus background work at the site's current utilisation, at most
+    the new nodes' hours: h_t = min(capacity, campaign_t + u_bg · capacity). Saved in month t:
+    h_t · (p − v) − R, with R the nodes' running cost a month (everything but capital); discounted
+    at the monthly cost of capital (`finance.discounted_payback`).
+    """
+    capacity = as_floats(capacity_hours_per_month)[..., np.newaxis]
+    campaign = as_floats(campaign_hours_by_month)
+    demand = np.minimum(capacity, campaign + as_floats(background_utilisation)[..., np.newaxis] * capacity)
+    margin = as_floats(rented_per_accelerator_hour) - as_floats(variable_per_accelerator_hour)
+    saving = demand * margin[..., np.newaxis] - as_floats(running_per_month)[..., np.newaxis]
+    rate = monthly_rate(cost_of_capital_annual)
+    months = discounted_payback(investment=capex, inflows=saving, rate=rate)
+    discounted = (saving * np.power(1.0 + as_floats(rate)[..., np.newaxis],
+                                    -np.arange(1, saving.shape[-1] + 1))).sum(axis=-1)
+    capex_array = as_floats(capex)
+    return Payback(
+        months=np.where(np.isfinite(months), months, np.nan),
+        recovered_fraction=discounted / np.where(capex_array > 0.0, capex_array, 1.0),
+        demand_hours_per_month=demand.mean(axis=-1),
+        saving_never_positive=np.asarray((saving <= 0.0).all(axis=-1)),
     )
 
 

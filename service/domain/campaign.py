@@ -13,6 +13,7 @@ Recompute = Literal["none", "selective", "full"]
 Parallelism = Literal["auto", "replicated", "sharded"]
 UtilisationBasis = Literal["model", "hardware"]
 RankBy = Literal["cost", "wall_clock", "carbon"]
+OwnedCostView = Literal["full", "incremental"]
 
 OWNED_TERMS = ("owned_chargeback", "owned_new_build")
 RENTED_TERMS = ("on_demand", "committed", "interruptible")
@@ -116,6 +117,7 @@ class QuoteOptions:
     utilisation_basis: UtilisationBasis = "model"
     rank_by: RankBy = "cost"
     layout: LayoutPins = field(default_factory=LayoutPins)
+    owned_cost_view: OwnedCostView = "full"  # which cost of owned capacity ranks (model.md §6)
 
 
 # The overrides one site or one offer may take for itself (`overrides.sites.<id>.<name>`).

@@ -51,12 +51,18 @@ class Colocation:
     kind: Literal["colocation"] = "colocation"
 
 
+FacilityAllocation = Literal["installed", "capacity"]
+
+
 @dataclass(frozen=True)
 class OwnedHall:
     capex_per_kw: float
     life_years: float
     fixed_cost_per_year: float
     kind: Literal["owned"] = "owned"
+    # What shares the fixed yearly cost: the installed IT load (owned nodes at peak) or the IT
+    # power the hall can feed.
+    allocate: FacilityAllocation = "installed"
 
 
 Facility = Colocation | OwnedHall

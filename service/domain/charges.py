@@ -130,5 +130,6 @@ def committed_charges(months: int, upfront: float, price: Floats, cost_of_capita
         lines, share = commitment(grid)
         return lines | data.lines(grid), {
             "price_per_accelerator_hour": np.asarray(price).reshape(-1, 1), "terms_needed": share.terms_needed,
-            "sharing_instances": share.sharing_instances, "financing_factor": share.financing_factor}
+            "sharing_instances": share.sharing_instances, "financing_factor": share.financing_factor,
+            "upfront_fraction": np.full((1, 1), upfront)}
     return Charges(cost, itemise)

@@ -6,54 +6,66 @@ from dataclasses import dataclass, fields
 import numpy as np
 
 from service.domain.arrays import Floats, Ints
-from service.domain.breakeven import CURVE_UTILISATIONS, BreakEven, break_even, chargeback_curve
-from service.domain.campaign import RankBy
+from service.domain.breakeven import CURVE_UTILISATIONS, BreakEven, Payback, break_even, chargeback_curve, payback
+from service.domain.campaign import OwnedCostView, RankBy
 from service.domain.evaluate import CampaignEvaluation, OptionResult
+from service.domain.programme import MAX_CASH_FLOW_MONTHS, programme_total
+from service.domain.recurrence import instances_by_month
+from service.domain.units import HOURS_PER_MONTH
 
 
-def ranking_keys(option: OptionResult, rank_by: RankBy) -> tuple[Floats, Floats, Floats]:
-    """Sort keys, most significant first: total cost, then wall clock, then carbon; `rank_by`
-    brings wall clock or carbon to the front. Unknown carbon sorts last."""
+def ranking_keys(option: OptionResult, evaluation: CampaignEvaluation, rank_by: RankBy,
+                 view: OwnedCostView = "full") -> tuple[Floats, Floats, Floats]:
+    """Sort keys, most significant first: the programme's total cost in the chosen view of owned
+    cost (one instance's for a one-off campaign), then wall clock, then carbon; `rank_by` brings
+    wall clock or carbon to the front. Unknown carbon sorts last."""
     carbon = np.where(np.isnan(option.energy.kgco2e), np.inf, option.energy.kgco2e)
-    keys = {"cost": option.total, "wall_clock": option.layout.wall_seconds, "carbon": carbon}
+    keys = {"cost": programme_total(option, evaluation, view), "wall_clock": option.layout.wall_seconds,
+            "carbon": carbon}
     order = [rank_by] + [k for k in ("cost", "wall_clock", "carbon") if k != rank_by]
     first, second, third = (np.asarray(keys[k], dtype=np.float64) for k in order)
     return first, second, third
 
 
-def cheapest(options: tuple[OptionResult, ...], rank_by: RankBy = "cost") -> Ints:
+def cheapest(evaluation: CampaignEvaluation, rank_by: RankBy = "cost", view: OwnedCostView = "full") -> Ints:
     """Per scenario, the index of the best feasible option by the first ranking key; -1 if none."""
-    firsts = np.stack(np.broadcast_arrays(*[np.where(o.feasible, ranking_keys(o, rank_by)[0], np.inf)
+    options = evaluation.options
+    firsts = np.stack(np.broadcast_arrays(*[np.where(o.feasible, ranking_keys(o, evaluation, rank_by, view)[0], np.inf)
                                             for o in options]))
     best = np.argmin(firsts, axis=0)
     return np.where(np.isfinite(firsts.min(axis=0)), best, -1).astype(np.int64)
 
 
-def rank(options: tuple[OptionResult, ...], i: int, rank_by: RankBy) -> list[int]:
+def rank(evaluation: CampaignEvaluation, i: int, rank_by: RankBy, view: OwnedCostView = "full") -> list[int]:
     """Option indices in the order people should read them for scenario i: feasible ones by
     the ranking keys, then the infeasible ones by cost."""
+    options = evaluation.options
+
     def key(k: int) -> tuple[bool, float, float, float]:
-        first, second, third = ranking_keys(options[k], rank_by)
-        return (not bool(options[k].feasible[i]), float(first[i]), float(second[i]), float(third[i]))
+        first, second, third = (float(np.broadcast_to(v, np.shape(options[k].total))[i])
+                                for v in ranking_keys(options[k], evaluation, rank_by, view))
+        return (not bool(options[k].feasible[i]), first, second, third)
     return sorted(range(len(options)), key=key)
 
 
 def listed_rented_price(option: OptionResult) -> Floats:
-    """The rented price per accelerator-hour after overrides; committed terms with their
-    up-front financing."""
+    """The rented price per accelerator-hour after overrides; a committed term's at full use of the
+    commitment, with its up-front share financed at the cost of capital."""
     price = option.details["price_per_accelerator_hour"]
     if option.term.startswith("committed_"):
         return price * option.details["financing_factor"]
     return price
 
 
-def rented_price_in_site_hours(option: OptionResult, site_accelerator_hours: Floats) -> Floats:
-    """What renting costs per accelerator-hour of the site's own node type doing the same work:
-    listed price × rented accelerator-hours / the site's accelerator-hours for the campaign.
-
-    This puts accelerators of different speed on one scale, and carries the hours interruptible
-    capacity loses to interruptions (they are in its accelerator-hours)."""
-    return listed_rented_price(option) * option.layout.accelerator_hours / site_accelerator_hours
+def work_conversion(rented: OptionResult, owned: OptionResult) -> Floats:
+    """Rented accelerator-hours that do the work of one owned accelerator-hour: the owned
+    accelerator's sustained FLOP/s over the rented one's (relative speed on this work); for
+    interruptible capacity also × (1 + its share of hours lost to interruptions and failures) /
+    (1 + the owned site's)."""
+    speed = owned.sustained_flops_per_accelerator / rented.sustained_flops_per_accelerator
+    if rented.term != "interruptible":
+        return np.asarray(speed)
+    return np.asarray(speed * (1.0 + rented.layout.failure_overhead) / (1.0 + owned.layout.failure_overhead))
 
 
 @dataclass(frozen=True)
@@ -62,43 +74,66 @@ class BreakEvenRow:
     offer: str
     term: str
     rented_listed_per_accelerator_hour: Floats
-    rented_per_accelerator_hour: Floats
+    conversion: Floats  # rented accelerator-hours per owned accelerator-hour of work
+    rented_per_accelerator_hour: Floats  # listed × conversion
     owned_fixed_per_month: Floats
     owned_variable_per_accelerator_hour: Floats
     figures: BreakEven
+    payback: Payback | None
 
 
-def breakeven_rows(evaluation: CampaignEvaluation) -> list[BreakEvenRow]:
-    """One row per (owned site, rented offer, term)."""
+def breakeven_rows(evaluation: CampaignEvaluation, *, with_payback: bool = True) -> list[BreakEvenRow]:
+    """One row per (owned site, rented offer, term); a rented option that failed a screen in a
+    scenario has no break-even there (`figures.ruled_out`). Payback (model.md §8) is made only
+    when asked: sweeps do not read it."""
     rows = []
     rented = [o for o in evaluation.options if o.venue_kind == "rented"]
+    if not rented:
+        return []
     for site_id, site in evaluation.sites.items():
         owned = [o for o in evaluation.options if o.venue_kind == "owned" and o.venue_id == site_id]
-        reference = next((o for o in owned if o.term == "owned_chargeback"), owned[0] if owned else None)
+        if not owned:
+            continue
+        reference = next((o for o in owned if o.term == "owned_chargeback"), owned[0])
         new_build = next((o for o in owned if o.term == "owned_new_build"), reference)
         s = site.economics.site
         per_node = s.node_type.accelerators_per_node
-        campaign_hours = reference.layout.accelerator_hours if reference else np.asarray(np.nan)
-        new_nodes = new_build.layout.nodes if new_build else np.asarray(1.0)
-        fleet = np.asarray(float(s.nodes_owned)) if s.nodes_owned else new_nodes
-        if not rented:
-            continue
-        # Every rented option against this site at once: (rented options, scenarios).
-        prices = np.stack(np.broadcast_arrays(*(rented_price_in_site_hours(o, campaign_hours) for o in rented)))
+        fleet = np.asarray(float(s.nodes_owned)) if s.nodes_owned else new_build.layout.nodes
+        listed = np.stack(np.broadcast_arrays(*(listed_rented_price(o) for o in rented)))
+        conversion = np.stack(np.broadcast_arrays(*(work_conversion(o, reference) for o in rented)))
+        prices = listed * conversion  # every rented option against this site at once: (rented, scenarios)
+        out = np.stack(np.broadcast_arrays(*(~o.feasible for o in rented)))
         figures = break_even(
-            fixed_per_node_month=site.node.total, running_per_node_month=site.node.running,
-            capex_per_node=site.economics.capex_per_node, accelerators_per_node=per_node,
-            variable_per_accelerator_hour=site.variable_per_accelerator_hour,
-            rented_per_accelerator_hour=prices, fleet_nodes=fleet,
-            campaign_accelerator_hours=campaign_hours,
-            demand_hours_per_year=campaign_hours * evaluation.instances_per_year,
-            new_nodes=new_nodes, depreciation_months=float(s.depreciation_months))
+            fixed_per_node_month=site.node.total, accelerators_per_node=per_node,
+            variable_per_accelerator_hour=site.variable_per_accelerator_hour, rented_per_accelerator_hour=prices,
+            fleet_nodes=fleet, campaign_accelerator_hours=reference.layout.accelerator_hours, ruled_out=out)
+        paid = _payback(evaluation, site_id, new_build, prices) if with_payback else None
         stacked = {f.name: np.broadcast_to(getattr(figures, f.name), prices.shape) for f in fields(figures)}
         for r, option in enumerate(rented):
-            rows.append(BreakEvenRow(site_id, option.venue_id, option.term, listed_rented_price(option),
-                                     prices[r], site.node.total, site.variable_per_accelerator_hour,
-                                     BreakEven(**{name: values[r] for name, values in stacked.items()})))
+            rows.append(BreakEvenRow(
+                site_id, option.venue_id, option.term, listed[r], conversion[r], prices[r], site.node.total,
+                site.variable_per_accelerator_hour, BreakEven(**{name: values[r] for name, values in stacked.items()}),
+                None if paid is None else Payback(**{f.name: getattr(paid, f.name)[r] for f in fields(paid)})))
     return rows
+
+
+def _payback(evaluation: CampaignEvaluation, site_id: str, new_build: OptionResult, prices: Floats) -> Payback:
+    """Payback of the nodes a new build for this campaign buys, for the stated demand: the
+    campaign's instances plus background work at the site's current utilisation."""
+    site = evaluation.sites[site_id]
+    s = site.economics.site
+    nodes = new_build.layout.nodes
+    life = min(s.depreciation_months, MAX_CASH_FLOW_MONTHS)
+    campaign = (instances_by_month(evaluation.recurrence, life)
+                * np.asarray(new_build.layout.accelerator_hours)[..., np.newaxis])
+    figures = payback(
+        capex=nodes * site.economics.capex_per_node, running_per_month=nodes * site.node.running,
+        capacity_hours_per_month=nodes * s.node_type.accelerators_per_node * HOURS_PER_MONTH,
+        campaign_hours_by_month=campaign, background_utilisation=s.utilisation_current,
+        rented_per_accelerator_hour=prices, variable_per_accelerator_hour=site.variable_per_accelerator_hour,
+        cost_of_capital_annual=site.economics.cost_of_capital_annual)
+    shape = prices.shape
+    return Payback(**{f.name: np.broadcast_to(getattr(figures, f.name), shape) for f in fields(figures)})
 
 
 def curves(evaluation: CampaignEvaluation) -> dict[str, Floats]:
@@ -112,4 +147,4 @@ def curves(evaluation: CampaignEvaluation) -> dict[str, Floats]:
     }
 
 
-__all__ = ["CURVE_UTILISATIONS", "BreakEvenRow", "breakeven_rows", "cheapest", "curves", "rank"]
+__all__ = ["CURVE_UTILISATIONS", "BreakEvenRow", "breakeven_rows", "cheapest", "curves", "rank", "work_conversion"]

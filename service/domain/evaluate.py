@@ -14,7 +14,7 @@ import numpy as np
 from service.domain import screens
 from service.domain.arrays import Bools, Floats, Ints, as_floats, broadcast
 from service.domain.assumptions import default
-from service.domain.campaign import Campaign, MeasuredWork, Overrides, QuoteOptions, TransformerWork
+from service.domain.campaign import Campaign, MeasuredWork, Overrides, QuoteOptions, Recurrence, TransformerWork
 from service.domain.catalog import Catalog, NodeType, Offer, Site
 from service.domain.charges import (
     Charges,
@@ -72,6 +72,7 @@ class OptionResult:
     energy: Energy
     transfer: Transfer
     staging_seconds: Floats
+    sustained_flops_per_accelerator: Floats  # the venue's speed on this work (model.md §1, §8)
     details: dict[str, Floats] = field(default_factory=dict)
     parts: tuple["OptionResult", ...] = ()  # a split's owned and rented parts
 
@@ -105,6 +106,8 @@ class CampaignEvaluation:
     instances_per_year: Floats
     options: tuple[OptionResult, ...]
     sites: dict[str, SiteFigures]
+    cost_of_capital_annual: Floats
+    recurrence: Recurrence | None
 
 
 @dataclass(frozen=True)
@@ -151,6 +154,8 @@ def evaluate_campaign(
         instances_per_year=instances_per_year(campaign.recurrence),
         options=tuple(results),
         sites=sites,
+        cost_of_capital_annual=_cost_of_capital(catalog, overrides),
+        recurrence=campaign.recurrence,
     )
 
 
@@ -210,9 +215,7 @@ def _offer_options(offer: Offer, context: _Context) -> list[OptionResult]:
         price = offer.on_demand_per_accelerator_hour * rented_price_factor(overrides, on_demand=True)
         results.append(_evaluate(venue, "on_demand", limit, hourly_charges(price, data), physics))
     if "committed" in terms:
-        cost_of_capital = as_floats(
-            context.catalog.cost_of_capital_annual if overrides.cost_of_capital_annual is None
-            else overrides.cost_of_capital_annual)
+        cost_of_capital = _cost_of_capital(context.catalog, overrides)
         for commitment in offer.committed:
             price = commitment.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
             results.append(_evaluate(
@@ -317,8 +320,14 @@ def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, phys
         energy=energy,
         transfer=venue.transfer,
         staging_seconds=broadcast(physics.hardware.staging_seconds, shape),
+        sustained_flops_per_accelerator=broadcast(physics.hardware.sustained_flops_per_accelerator, shape),
         details={name: _per_scenario(value, shape) for name, value in details_at.items()},
     )
+
+
+def _cost_of_capital(catalog: Catalog, overrides: Overrides) -> Floats:
+    return as_floats(catalog.cost_of_capital_annual if overrides.cost_of_capital_annual is None
+                     else overrides.cost_of_capital_annual)
 
 
 def _per_scenario(values: Any, shape: tuple[int, ...]) -> Any:

@@ -7,9 +7,13 @@ from collections.abc import Sequence
 import numpy as np
 
 from service.domain import screens
+from service.domain.breakeven import BEYOND_LIFE, NO_SAVING, Payback
+from service.domain.campaign import OwnedCostView
 from service.domain.catalog import Catalog, Colocation, Offer, Site
-from service.domain.comparison import rented_price_in_site_hours
+from service.domain.comparison import BreakEvenRow, listed_rented_price, work_conversion
 from service.domain.evaluate import CampaignEvaluation, OptionResult, SiteFigures
+from service.domain.owning import fixed_cost_sharing_kw
+from service.domain.programme import OptionCosts
 from service.domain.units import HOURS_PER_MONTH, SECONDS_PER_DAY, SECONDS_PER_HOUR
 
 CAUTIONS = (
@@ -185,7 +189,7 @@ def _owned_basis(option: OptionResult, item: str, i: int, site: SiteFigures, cur
         "capital": (node.capital, f"annuity of {_n(_at(e.capex_per_node, i))} {currency} capex less "
                     f"{_pct(s.residual_fraction)} residual over {s.depreciation_months} months at "
                     f"{_pct(_at(e.cost_of_capital_annual, i))}/12 a month"),
-        "facility": (node.facility, _facility_words(s, currency)),
+        "facility": (node.facility, _facility_words(site, i, currency)),
         "maintenance": (node.maintenance, f"{_pct(s.maintenance_fraction_per_year)} of capex a year"),
         "staff": (node.staff, f"{_n(s.staff_cost_per_node_year)} {currency} per node-year"),
         "idle_energy": (node.idle_energy, f"{s.node_type.power_kw_idle:g} kW idle × 730 h × PUE "
@@ -201,34 +205,84 @@ def _owned_basis(option: OptionResult, item: str, i: int, site: SiteFigures, cur
             f"{_n(d['sharing_instances'][i])} recurring instance(s) sharing them × {monthly}")
 
 
-def _facility_words(site: Site, currency: str) -> str:
-    f = site.facility
+def _facility_words(site: SiteFigures, i: int, currency: str) -> str:
+    s = site.economics.site
+    f = s.facility
     if isinstance(f, Colocation):
-        return f"colocation {f.price_per_kw_month:g} {currency} per kW-month × {site.node_type.power_kw_peak:g} kW"
+        return f"colocation {f.price_per_kw_month:g} {currency} per kW-month × {s.node_type.power_kw_peak:g} kW"
+    sharing = _at(fixed_cost_sharing_kw(site.economics), i)
+    if f.allocate == "installed" and s.nodes_owned > 0:
+        shared = (f"the installed IT load of {s.nodes_owned} owned nodes × {s.node_type.power_kw_peak:g} kW = "
+                  f"{_n(sharing, 1)} kW (facility.allocate installed)")
+    else:
+        shared = (f"the IT power it can feed, {_n(s.power_capacity_kw or 0.0, 1)} kW / PUE "
+                  f"{_at(site.economics.pue, i):g} = {_n(sharing, 1)} kW (facility.allocate {f.allocate}"
+                  + ("; no nodes installed" if f.allocate == "installed" else "") + ")")
     return (f"owned hall {f.capex_per_kw:g} {currency}/kW over {f.life_years:g} years plus "
-            f"{_n(f.fixed_cost_per_year)} {currency} a year shared by IT kW")
+            f"{_n(f.fixed_cost_per_year)} {currency} a year × {s.node_type.power_kw_peak:g} kW / {shared}")
+
+
+VIEW_WORDS = {
+    "full": "the full view (owned capacity charged its chargeback at planned utilisation)",
+    "incremental": ("the incremental view (only what running the campaign adds to a site: busy energy, data, "
+                    "and nodes beyond its free capacity)"),
+}
 
 
 def why(ranked: Sequence[OptionResult], i: int, evaluation: CampaignEvaluation, currency: str,
-        rank_by: str) -> str:
-    """Why the first option wins: against the runner-up, and the input the answer hinges on."""
+        rank_by: str, costs: Sequence[OptionCosts], view: OwnedCostView,
+        other_best: OptionResult | None = None, owned_compared: bool = False) -> str:
+    """Why the first option wins: against the runner-up, over the whole programme when the campaign
+    recurs, the input the answer hinges on, and whether the other view of owned cost agrees."""
     best = ranked[0]
-    total = float(best.total[i])
+    instances = _at(evaluation.instances_total, i)
+    recurring = instances > 1
+
+    def amount(k: int) -> float:
+        return _at(costs[k].programme if recurring else costs[k].ranked, i)
+
+    total = amount(0)
+    figure = (f"{_n(total)} {currency} over the programme of {_n(instances)} instances "
+              f"({_n(_at(costs[0].ranked, i))} {currency} an instance{_outlay(best, i, evaluation, currency)})"
+              if recurring else f"{_n(total)} {currency}{_outlay(best, i, evaluation, currency)}")
+    on_view = "" if view == "full" else " on the incremental view"
     if len(ranked) == 1:
-        return (f"{best.label} is the only feasible option, at {_n(total)} {currency}; every other option "
-                "was ruled out (see its reasons).")
+        head = (f"{best.label} is the only feasible option, at {figure}{on_view}; every other option was ruled "
+                "out (see its reasons)")
+        return head + "." + _views(best, other_best, costs[0], i, view, currency, owned_compared)
     runner = ranked[1]
-    gap = float(runner.total[i]) - total
-    head = (f"{best.label} costs {_n(total)} {currency}, {_n(gap)} {currency} "
-            f"({_pct(gap / float(runner.total[i]))}) less than the runner-up {runner.label}")
+    gap = amount(1) - total
+    head = (f"{best.label} costs {figure}{on_view}, {_n(gap)} {currency} "
+            f"({_pct(gap / amount(1))}) less than the runner-up {runner.label}")
     if rank_by == "wall_clock":
         head = (f"{best.label} finishes in {_n(best.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} days against "
-                f"{_n(runner.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} for {runner.label}, "
-                f"at {_n(total)} {currency}")
+                f"{_n(runner.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} for {runner.label}, at {figure}")
     elif rank_by == "carbon":
         head = (f"{best.label} emits {_n(best.energy.kgco2e[i])} kgCO2e against "
-                f"{_n(runner.energy.kgco2e[i])} for {runner.label}, at {_n(total)} {currency}")
-    return head + "; " + _hinge(ranked, i, evaluation) + "."
+                f"{_n(runner.energy.kgco2e[i])} for {runner.label}, at {figure}")
+    hinge = (_hinge(ranked, i, evaluation) if view == "full" or best.venue_kind != "owned" else
+             "on this view the site's fixed cost is already paid, so running the campaign there adds only its "
+             "busy energy and data")
+    return (head + "; " + hinge + "."
+            + _views(best, other_best, costs[0], i, view, currency, owned_compared))
+
+
+def _outlay(option: OptionResult, i: int, evaluation: CampaignEvaluation, currency: str) -> str:
+    """A new build's capital when bought, which its annuity spreads over the nodes' life."""
+    if option.term != "owned_new_build":
+        return ""
+    site = evaluation.sites[option.venue_id]
+    capex = option.layout.nodes[i] * _at(site.economics.capex_per_node, i)
+    return f", its {_n(option.layout.nodes[i])} new nodes {_n(capex)} {currency} of capital when bought"
+
+
+def _views(best: OptionResult, other_best: OptionResult | None, cost: OptionCosts, i: int,
+           view: OwnedCostView, currency: str, owned_compared: bool) -> str:
+    other: OwnedCostView = "incremental" if view == "full" else "full"
+    if other_best is None:
+        return f" It ranks first on {VIEW_WORDS[other]} too." if owned_compared else ""
+    return (f" The views disagree: on {VIEW_WORDS[other]} {other_best.label} ranks first, and "
+            f"{best.label} costs {_n(_at(cost.other(view), i))} {currency} an instance there.")
 
 
 def _hinge(ranked: Sequence[OptionResult], i: int, evaluation: CampaignEvaluation) -> str:
@@ -244,15 +298,17 @@ def _hinge(ranked: Sequence[OptionResult], i: int, evaluation: CampaignEvaluatio
     owned = next((o for o in ranked if o.term == "owned_chargeback"), None)
     if owned is not None and rented is not None and best in (owned, rented):
         site = evaluation.sites[owned.venue_id]
-        # The rented price on the site's own scale, as in the break-even table.
-        price = float(rented_price_in_site_hours(rented, owned.layout.accelerator_hours)[i])
+        # The rented price per unit of work on the site's accelerator, as in the break-even table.
+        price = float((listed_rented_price(rented) * work_conversion(rented, owned))[i])
         v = _at(site.variable_per_accelerator_hour, i)
         planned = _at(site.economics.utilisation_planned, i)
+        current = site.economics.site.utilisation_current
         if price > v:
             u = _at(site.node.total, i) / (owned.node_type.accelerators_per_node * HOURS_PER_MONTH * (price - v))
             if best is owned:
-                return (f"it hinges on {owned.venue_id}'s planned utilisation of {_pct(planned)}: below {_pct(u)} "
-                        f"the best rented option, {rented.label}, would cost less")
+                return (f"it hinges on {owned.venue_id}'s planned utilisation of {_pct(planned)} (its current "
+                        f"utilisation is {_pct(current)}): below {_pct(u)} the best rented option, {rented.label}, "
+                        "would cost less")
             if u <= 1.0:
                 return (f"owning at {owned.venue_id} would win only above {_pct(u)} planned utilisation "
                         f"(the plan is {_pct(planned)})")
@@ -265,6 +321,50 @@ def _hinge(ranked: Sequence[OptionResult], i: int, evaluation: CampaignEvaluatio
     return (f"it hinges on price and speed: {_n(best.layout.accelerator_hours[i])} accelerator-hours at "
             f"{_n(best.per_accelerator_hour[i], 2)} all-in against {_n(runner.layout.accelerator_hours[i])} at "
             f"{_n(runner.per_accelerator_hour[i], 2)}")
+
+
+def conversion_words(row: BreakEvenRow, i: int, evaluation: CampaignEvaluation, currency: str) -> str:
+    """How a rented price became a price per unit of work on the site's accelerator."""
+    rented = next(o for o in evaluation.options if o.venue_id == row.offer and o.term == row.term)
+    owned = next(o for o in evaluation.options if o.venue_id == row.site)
+    listed = _at(row.rented_listed_per_accelerator_hour, i)
+    committed = (f" ({_at(rented.details['price_per_accelerator_hour'], i):.4g} at full use of the commitment, × "
+                 f"{_at(rented.details['financing_factor'], i):.4f} up-front financing)"
+                 if row.term.startswith("committed_") else "")
+    speed = _at(owned.sustained_flops_per_accelerator, i) / _at(rented.sustained_flops_per_accelerator, i)
+    words = (f"{listed:,.4f} {currency} per {rented.node_type.accelerator.id} accelerator-hour{committed} × "
+             f"{speed:.4f} ({owned.node_type.accelerator.id} sustains "
+             f"{_at(owned.sustained_flops_per_accelerator, i) / 1e12:,.1f} TFLOP/s on this work, "
+             f"{rented.node_type.accelerator.id} {_at(rented.sustained_flops_per_accelerator, i) / 1e12:,.1f})")
+    if row.term == "interruptible":
+        words += (f" × (1 + {_pct(rented.layout.failure_overhead[i])} of hours lost to interruptions and failures) "
+                  f"/ (1 + {_pct(owned.layout.failure_overhead[i])} on the site)")
+    price = _at(row.rented_per_accelerator_hour, i)
+    return words + f" = {price:,.4f} {currency} per {row.site} accelerator-hour of work"
+
+
+def payback_words(paid: Payback, i: int, site: SiteFigures, currency: str) -> dict[str, object]:
+    """The payback fields of a break-even row: months, the reason where there are none, and the
+    stated demand it assumes."""
+    s = site.economics.site
+    months = _at(paid.months, i)
+    reason = str(np.asarray(paid.reason).reshape(-1)[i if np.size(paid.reason) > 1 else 0])
+    reasons = {
+        NO_SAVING: "none: the rent saved never covers the new nodes' running cost",
+        BEYOND_LIFE: (f"not within the {s.depreciation_months}-month depreciation life: the discounted saving "
+                      f"repays {_pct(_at(paid.recovered_fraction, i))} of the capex by then"),
+    }
+    return {
+        "payback_months": None if not np.isfinite(months) else round(months, 1),
+        "payback_reason": reasons.get(reason),
+        "payback_demand_accelerator_hours_per_month": round(_at(paid.demand_hours_per_month, i), 0),
+        "payback_basis": (
+            f"the nodes a new build at {s.id} buys for this campaign, paid for now; each month they serve the "
+            f"campaign's instances plus background work at the site's current utilisation of "
+            f"{_pct(s.utilisation_current)} of their hours (at most all of them), which would otherwise be rented "
+            f"at this price; saving = hours × (rented price − busy energy) − their running cost, discounted at "
+            f"{_pct(_at(site.economics.cost_of_capital_annual, i))} a year (monthly); no residual value counted"),
+    }
 
 
 def next_steps(options: Sequence[OptionResult], i: int, deadline_days: float | None,

@@ -30,3 +30,39 @@ def capital_recovery_payment(
     with_interest = (p * growth - f) * safe_i / np.where(i == 0.0, 1.0, np.expm1(n * np.log1p(i)))
     return np.where(i == 0.0, (p - f) / n, with_interest)
 
+
+
+def discount_factors(rate: ArrayLike, periods: int) -> Floats:
+    """(1 + i)^−t for t = 0 … periods − 1, along the last axis: (…, periods)."""
+    i = as_floats(rate)[..., np.newaxis]
+    return np.power(1.0 + i, -np.arange(periods, dtype=np.float64))
+
+
+def present_value(flows: ArrayLike, rate: ArrayLike) -> Floats:
+    """Σ_t flows[t] / (1 + i)^t over the last axis, t from 0: numpy-financial's `npv(rate, values)`."""
+    values = as_floats(flows)
+    return np.asarray((values * discount_factors(rate, values.shape[-1])).sum(axis=-1))
+
+
+def discounted_payback(*, investment: ArrayLike, inflows: ArrayLike, rate: ArrayLike) -> Floats:
+    """Periods until the discounted inflows repay an investment made at t = 0.
+
+    `inflows[..., t]` arrives at the end of period t + 1 and is discounted by (1 + i)^−(t+1); the
+    answer is the last whole period before the cumulative discounted inflow reaches the investment
+    plus the share of the next period's inflow needed, the textbook convention (Ross, Westerfield
+    and Jordan, "Fundamentals of Corporate Finance", ch. 9, "The Discounted Payback"). inf when the
+    inflows never repay it within the periods given; 0 for no investment.
+    """
+    values = as_floats(inflows)
+    periods = values.shape[-1]
+    discounted = values * discount_factors(rate, periods + 1)[..., 1:]
+    cumulative = np.cumsum(discounted, axis=-1)
+    owed = as_floats(investment)[..., np.newaxis]
+    reached = cumulative >= owed * (1.0 - 1e-12)
+    first = np.argmax(reached, axis=-1)[..., np.newaxis]
+    before = np.where(first > 0, np.take_along_axis(cumulative, np.maximum(first - 1, 0), axis=-1), 0.0)
+    step = np.take_along_axis(discounted, first, axis=-1)
+    fraction = np.where(step > 0.0, (owed - before) / np.where(step > 0.0, step, 1.0), 1.0)
+    answer = (first + np.clip(fraction, 0.0, 1.0))[..., 0]
+    answer = np.where(reached.any(axis=-1), answer, np.inf)
+    return np.asarray(np.where(as_floats(investment) <= 0.0, 0.0, answer))

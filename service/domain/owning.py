@@ -5,7 +5,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from service.domain.arrays import ArrayLike, Floats, as_floats
-from service.domain.catalog import Colocation, Site
+from service.domain.catalog import Colocation, OwnedHall, Site
 from service.domain.finance import capital_recovery_payment, monthly_rate
 from service.domain.units import HOURS_PER_MONTH, KW_PER_TON_OF_REFRIGERATION, MONTHS_PER_YEAR
 
@@ -101,10 +101,24 @@ def facility_per_node_month(economics: SiteEconomics, *, rate: ArrayLike) -> Flo
         rate=rate,
         periods=facility.life_years * MONTHS_PER_YEAR,
     )
-    # The hall's fixed yearly cost is shared by the IT power it can feed: capacity / PUE.
-    hall_it_kw = hall_it_capacity_kw(economics)
-    fixed_share = facility.fixed_cost_per_year / MONTHS_PER_YEAR * node_kw / hall_it_kw
+    fixed_share = facility.fixed_cost_per_year / MONTHS_PER_YEAR * node_kw / fixed_cost_sharing_kw(economics)
     return np.asarray(hall_capital + fixed_share)
+
+
+def installed_it_kw(site: Site) -> float:
+    """The IT load installed on a site: its owned nodes at peak power."""
+    return site.nodes_owned * site.node_type.power_kw_peak
+
+
+def fixed_cost_sharing_kw(economics: SiteEconomics) -> Floats:
+    """The IT kW an owned hall's fixed yearly cost is shared by (`facility.allocate`): the installed
+    load, or the IT power the hall can feed (capacity / PUE). A site with no nodes installed
+    shares it by capacity."""
+    site = economics.site
+    facility = site.facility
+    if isinstance(facility, OwnedHall) and facility.allocate == "installed" and site.nodes_owned > 0:
+        return np.full_like(economics.pue, installed_it_kw(site))
+    return hall_it_capacity_kw(economics)
 
 
 def hall_it_capacity_kw(economics: SiteEconomics) -> Floats:

@@ -40,3 +40,28 @@ def instances_sharing(
     by_calendar = np.floor(window / every + 1e-9)
     by_capacity = np.floor(window * HOURS_PER_MONTH / as_floats(wall_hours) + 1e-9)
     return np.maximum(1.0, np.minimum(np.minimum(by_calendar, by_capacity), total))
+
+
+def starts_by_month(*, spacing_months: ArrayLike, count: ArrayLike, months: int) -> Floats:
+    """How many of `count` events, event j starting in month ⌊j · spacing⌋ (months counted from 0),
+    start in each of months 0 … months − 1: (…, months)."""
+    spacing = as_floats(spacing_months)[..., np.newaxis]
+    total = as_floats(count)[..., np.newaxis]
+    through = np.clip(np.ceil(np.arange(1, months + 1) / spacing - 1e-9), 0.0, total)  # started in 0 … m
+    return np.diff(through, axis=-1, prepend=0.0)
+
+
+def instances_by_month(recurrence: Recurrence | None, months: int) -> Floats:
+    """Instances of the campaign starting in each month 0 … months − 1: one every `every_months`
+    while the recurrence lasts; a one-off campaign starts in month 0."""
+    if recurrence is None:
+        return starts_by_month(spacing_months=1.0, count=1.0, months=months)
+    return starts_by_month(spacing_months=recurrence.every_months, count=instances_total(recurrence),
+                           months=months)
+
+
+def programme_months(recurrence: Recurrence | None) -> Floats:
+    """Months from the first instance's start to the end of the month the last one starts in."""
+    if recurrence is None:
+        return np.asarray(1.0)
+    return np.floor((instances_total(recurrence) - 1.0) * as_floats(recurrence.every_months) + 1e-9) + 1.0

@@ -125,6 +125,7 @@ def combine(owned: OptionResult, rented: OptionResult, *, owned_runs: int, rente
                       e.cooling_kw_thermal + f.cooling_kw_thermal, e.kgco2e + f.kgco2e),
         transfer=rented.transfer,
         staging_seconds=np.maximum(owned.staging_seconds, rented.staging_seconds),
+        sustained_flops_per_accelerator=owned.sustained_flops_per_accelerator,
         details={"owned_runs": np.full_like(hours, owned_runs), "rented_runs": np.full_like(hours, rented_runs)},
         parts=(owned, rented),
     )

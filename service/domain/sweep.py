@@ -16,6 +16,7 @@ from service.domain.catalog import Catalog
 from service.domain.comparison import breakeven_rows, cheapest
 from service.domain.distributions import Distribution, stream
 from service.domain.evaluate import evaluate_campaign
+from service.domain.programme import view_total
 from service.domain.whatif import apply
 
 CHUNK_ELEMENTS = 1_600_000  # scenarios × candidate node counts per chunk: bounds memory
@@ -85,16 +86,18 @@ def evaluate_chunk(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Float
     evaluation = evaluate_campaign(catalog, campaign, plan.options, overrides)
     options = evaluation.options
     feasible = np.stack([np.broadcast_to(o.feasible, (size,)) for o in options])
-    totals = np.where(feasible, np.stack([np.broadcast_to(o.total, (size,)) for o in options]), np.nan)
+    view = plan.options.owned_cost_view
+    totals = np.where(feasible, np.stack([np.broadcast_to(view_total(o, evaluation, view), (size,))
+                                          for o in options]), np.nan)
     owned = np.array([o.venue_kind == "owned" for o in options])
     best = np.where(feasible, totals, np.inf)
-    rows = breakeven_rows(evaluation)
+    rows = breakeven_rows(evaluation, with_payback=False)
     return ChunkResult(
         inputs=dict(inputs),
         labels=[o.label for o in options],
         owned=owned,
         totals=totals,
-        cheapest=np.broadcast_to(cheapest(options, plan.options.rank_by), (size,)),
+        cheapest=np.broadcast_to(cheapest(evaluation, plan.options.rank_by, plan.options.owned_cost_view), (size,)),
         owned_best=best[owned].min(axis=0) if owned.any() else np.full(size, np.inf),
         rented_best=best[~owned].min(axis=0) if (~owned).any() else np.full(size, np.inf),
         breakeven_labels=[(r.site, r.offer, r.term) for r in rows],

@@ -110,7 +110,7 @@ def _panel(ax: Axes, panel: SitePanel, currency: str, groups: dict[str, dict[str
     ax.set_xlabel("utilisation of the site's accelerators (share of hours doing work)")
     ax.set_ylabel(f"{currency} per used accelerator-hour")
     where = f" · {jurisdiction_label(panel.jurisdiction)}" if panel.jurisdiction else ""
-    note = " — every offer fails the residency screen; prices shown for reference" if panel.offers_all_ruled_out else ""
+    note = " — every rented option failed a screen: no break-even" if panel.offers_all_ruled_out else ""
     ax.set_title(f"{panel.site}{where}{note}")
 
 

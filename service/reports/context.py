@@ -12,7 +12,6 @@ from service.reports.figures import (
     category_of,
     charted_options,
     marker_of,
-    residency_ruled_out,
     site_panels,
 )
 from service.reports.formatting import (
@@ -78,19 +77,38 @@ def _option_row(option: Json, currency: str) -> Json:
         "total": cell(cost["total"], money(cost["total"], currency)),
         "per_hour": cell(cost["per_accelerator_hour"], money(cost["per_accelerator_hour"], currency)),
         "kgco2e": cell(option["energy"]["kgco2e"], number(option["energy"]["kgco2e"])),
+        "programme": cell(cost.get("programme_total"), money(cost.get("programme_total"), currency)),
+        "other_view": cell(_other_view_total(cost), money(_other_view_total(cost), currency)),
     }
+
+
+def _other_view_total(cost: Json) -> float | None:
+    """One instance on the view that does not rank (the full view for quotes stored before views)."""
+    other = "incremental_total" if cost.get("view", "full") == "full" else "full_total"
+    value: float | None = cost.get(other)
+    return value
 
 
 def _breakdown(option: Json, currency: str) -> Json:
     labels = dict(category_labels())
     lines = [{"item": item_label(line["item"]), "category": labels[category_of(line["item"])],
-              "amount": cell(line["amount"], money(line["amount"], currency)), "basis": line["basis"]}
+              "amount": cell(line["amount"], money(line["amount"], currency)),
+              "incremental": cell(line.get("incremental_amount"), money(line.get("incremental_amount"), currency)),
+              "basis": line["basis"]}
              for line in option["cost"]["lines"]]
     parts = [{"venue": p["venue"]["id"], "term": term_label(p["term"]), "runs": number(p["runs"]),
               "accelerators": number(p["accelerators"]), "days": fixed(p["wall_clock_days"], 1),
               "total": cell(p["total"], money(p["total"], currency))} for p in option.get("parts", [])]
+    cost = option["cost"]
+    full, incremental = cost.get("full_total", cost["total"]), cost.get("incremental_total")
+    years = [{"year": y["year"], **{k: cell(y[k], money(y[k], currency))
+                                    for k in ("capital", "operating", "rent", "total")}}
+             for y in option.get("cash_flow", [])]
     return {**_option_name(option), "lines": lines, "parts": parts,
-            "total": cell(option["cost"]["total"], money(option["cost"]["total"], currency))}
+            "total": cell(full, money(full, currency)),
+            "incremental_total": cell(incremental, money(incremental, currency)),
+            "cash_flow": years, "npv": cell(cost.get("npv"), money(cost.get("npv"), currency)),
+            "view": cost.get("view", "full")}
 
 
 def _engineering(option: Json) -> Json:
@@ -145,21 +163,21 @@ class Footnotes:
         return self.texts.index(text) + 1
 
 
-COMMITTED_NOTE = "Committed hours are paid whether used or not; compared here at full use of the commitment."
-
-
 def _breakeven_rows(document: Json, currency: str, notes: Footnotes) -> list[Json]:
     charted = {line.key for panel in site_panels(document) for line in panel.lines}
-    blocked = residency_ruled_out(document)
     rows = []
     for r in document["breakeven"]:
         key = f"{r['site']}-{r['offer']}-{r['term']}"
         u = r["utilisation"]
+        payback = r["payback_months"]
         rows.append({
             "site": r["site"], "offer": r["offer"], "term": term_label(r["term"]), "key": key,
-            "charted": key in charted, "offer_ruled_out": r["offer"] in blocked,
-            "glyph": marker_of(r["term"])[1],
-            "term_note": notes.cite(COMMITTED_NOTE if COMMITTED_NOTE in (r.get("note") or "") else None),
+            "charted": key in charted, "glyph": marker_of(r["term"])[1],
+            "term_note": notes.cite(r.get("note")),
+            "listed": cell(r.get("rented_listed_per_accelerator_hour"),
+                           money_precise(r.get("rented_listed_per_accelerator_hour"), currency)),
+            "conversion": cell(r.get("conversion"), fixed(r.get("conversion"), 3)),
+            "conversion_basis": r.get("conversion_basis") or "",
             "rented": cell(r["rented_per_accelerator_hour"], money(r["rented_per_accelerator_hour"], currency)),
             "fixed": cell(r["owned_fixed_per_month"], money(r["owned_fixed_per_month"], currency)),
             "variable": cell(r["owned_variable_per_accelerator_hour"],
@@ -168,9 +186,11 @@ def _breakeven_rows(document: Json, currency: str, notes: Footnotes) -> list[Jso
             "utilisation_note": notes.cite(r.get("reason")),
             "hours_per_year": cell(r["accelerator_hours_per_year"], number(r["accelerator_hours_per_year"])),
             "campaigns_per_year": cell(r["campaigns_per_year"], fixed(r["campaigns_per_year"], 1)),
-            "payback": cell(r["payback_months"], number(r["payback_months"]) if r["payback_months"] is not None
-                            else "none"),
+            "payback": cell(payback, fixed(payback, 1) if payback is not None
+                            else ("none" if "never covers" in (r.get("payback_reason") or "") else "beyond life")),
             "payback_note": notes.cite(r.get("payback_reason")),
+            "payback_basis_note": notes.cite(f"Payback at {r['site']}: " + r["payback_basis"]
+                                             if r.get("payback_basis") else None),
         })
     return rows
 
@@ -182,8 +202,15 @@ def _recommendation(document: Json, currency: str) -> Json | None:
     option = document["options"][chosen["option_index"]]
     row = _option_row(option, currency)
     deadline = document["request"]["campaign"].get("deadline_days")
-    figures = [
-        ("Total cost", row["total"], ""),
+    instances = document["work"].get("instances") or 1
+    cost = option["cost"]
+    view = cost.get("view", "full")
+    figures = [("Programme total", row["programme"], f"{number(instances)} instances"),
+               ("Per instance", row["total"], ""),
+               ("Present value", cell(cost.get("npv"), money(cost.get("npv"), currency)), "of the cash flow")]
+    if instances <= 1:
+        figures = [("Total cost", row["total"], f"{view} view" if view != "full" else "")]
+    figures += [
         ("Per accelerator-hour", row["per_hour"], ""),
         ("Wall-clock days", row["days"], f"deadline {number(deadline, 1)}" if deadline else "no deadline"),
         ("Accelerators", row["accelerators"], ""),
@@ -227,6 +254,9 @@ def report_context(document: Json) -> Json:
         "charted_count": len(charted),
         "charted_left_out": left_out,
         "breakeven": _breakeven_rows(document, currency, notes),
+        "breakeven_left_out": document.get("breakeven_left_out", []),
+        "recurring": (document["work"].get("instances") or 1) > 1,
+        "view": (options[0]["cost"].get("view", "full") if options else "full"),
         "breakeven_notes": notes.texts,
         "has_curves": bool(document.get("curves")),
         "residency_rule": residency_rule(request["campaign"].get("data") or {}),

@@ -103,23 +103,20 @@ class SitePanel:
     curve: list[tuple[float, float]]  # (utilisation, owned cost per used accelerator-hour)
     planned_utilisation: float | None
     lines: list[RentedLine]
-    offers_all_ruled_out: bool  # every offer failed the residency screen: lines drawn for reference
+    offers_all_ruled_out: bool  # every rented option failed a screen: no rented line to draw
 
 
 def site_panels(document: Json) -> list[SitePanel]:
     """One panel per owned site with a curve. For each rented term, the cheapest offer's price
-    (expressed per accelerator-hour of the site's node type), among the offers that pass the
-    residency screen; when none passes, among all offers, and the panel says so."""
-    blocked = residency_ruled_out(document)
+    (per unit of work on the site's accelerator) among the rented options that passed every
+    screen, the only ones the quote's break-even rows pair with a site."""
     panels = []
     for curve in document["curves"]:
         site = curve["site"]
         rows = [r for r in document["breakeven"]
                 if r["site"] == site and r["rented_per_accelerator_hour"] is not None]
-        eligible = [r for r in rows if r["offer"] not in blocked]
-        candidates = eligible or rows
         cheapest: dict[str, Json] = {}
-        for row in candidates:
+        for row in rows:
             best = cheapest.get(row["term"])
             if best is None or row["rented_per_accelerator_hour"] < best["rented_per_accelerator_hour"]:
                 cheapest[row["term"]] = row
@@ -132,7 +129,7 @@ def site_panels(document: Json) -> list[SitePanel]:
                   for p in curve["points"] if p["owned_per_accelerator_hour"] is not None]
         panels.append(SitePanel(site=site, jurisdiction=_site_jurisdiction(document, site), curve=points,
                                 planned_utilisation=planned_utilisation(document, site), lines=lines,
-                                offers_all_ruled_out=bool(rows) and not eligible))
+                                offers_all_ruled_out=not rows and bool(document.get("breakeven_left_out"))))
     return panels
 
 

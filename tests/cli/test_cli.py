@@ -17,10 +17,18 @@ def run(*args: str) -> subprocess.CompletedProcess[str]:
 def test_quote_prints_a_ranked_table_with_breakeven_and_cautions() -> None:
     result = run("quote", str(EXAMPLES / "campaign-owned-wins.json"), "--catalog", str(EXAMPLES / "catalog.json"))
     assert result.returncode == 0, result.stderr
-    assert "Placement options, ranked (EUR)" in result.stdout
+    assert "Placement options, ranked (EUR; full view ranks)" in result.stdout
     assert "Recommendation:" in result.stdout
     assert "Break-even" in result.stdout
     assert "licensed engineers" in result.stdout
+
+
+def test_a_recurring_quote_leads_with_the_programme() -> None:
+    result = run("quote", str(EXAMPLES / "campaign-recurring.json"), "--catalog", str(EXAMPLES / "catalog.json"))
+    assert result.returncode == 0, result.stderr
+    assert "Placement options, ranked over the programme of 36 instances (EUR; full view ranks)" in result.stdout
+    assert "over the programme of 36 instances" in result.stdout.split("Recommendation:")[1]
+    assert "no break-even against tidewell-halvert-a88/on_demand: residency" in result.stdout
 
 
 def test_quote_json_is_the_response_body() -> None:

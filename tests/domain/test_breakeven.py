@@ -22,9 +22,11 @@ from service.domain.breakeven import (
     ABOVE_FULL_USE,
     BEYOND_LIFE,
     NO_MARGIN,
+    NO_SAVING,
+    RULED_OUT,
     break_even,
     breakeven_utilisation,
-    payback_months,
+    payback,
 )
 from service.domain.campaign import Overrides
 from service.domain.comparison import breakeven_rows
@@ -55,60 +57,76 @@ def test_there_is_no_break_even_when_the_rent_is_at_or_below_the_busy_energy(f, 
                               variable_per_accelerator_hour=v, rented_per_accelerator_hour=p)
     assert np.isinf(u)
     figures = break_even(
-        fixed_per_node_month=f, running_per_node_month=0.5 * f, capex_per_node=40 * f, accelerators_per_node=a,
-        variable_per_accelerator_hour=v, rented_per_accelerator_hour=p, fleet_nodes=10,
-        campaign_accelerator_hours=1000.0, demand_hours_per_year=50000.0, new_nodes=2, depreciation_months=60)
+        fixed_per_node_month=f, accelerators_per_node=a, variable_per_accelerator_hour=v,
+        rented_per_accelerator_hour=p, fleet_nodes=10, campaign_accelerator_hours=1000.0)
     assert np.isnan(figures.utilisation) and np.isnan(figures.accelerator_hours_per_year)
     assert figures.utilisation_reason == NO_MARGIN
-    assert np.isnan(figures.payback_months)
 
 
 def test_a_break_even_above_full_use_is_reported_as_unreachable():
     # F = 10,000 a node-month on 4 accelerators, p − v = 2.5: u* = 10,000 / (4 × 730 × 2.5) = 1.37
     figures = break_even(
-        fixed_per_node_month=10000.0, running_per_node_month=3000.0, capex_per_node=300000.0,
-        accelerators_per_node=4, variable_per_accelerator_hour=0.5, rented_per_accelerator_hour=3.0,
-        fleet_nodes=10, campaign_accelerator_hours=1000.0, demand_hours_per_year=50000.0, new_nodes=2,
-        depreciation_months=60)
+        fixed_per_node_month=10000.0, accelerators_per_node=4, variable_per_accelerator_hour=0.5,
+        rented_per_accelerator_hour=3.0, fleet_nodes=10, campaign_accelerator_hours=1000.0)
     assert_allclose(figures.utilisation_unbounded, 10000 / (4 * 730 * 2.5), rtol=1e-12)
     assert np.isnan(figures.utilisation)
     assert figures.utilisation_reason == ABOVE_FULL_USE
 
 
-def months_to_pay_back(*, capex: float, running: float, hours: float, p: float, v: float,
-                       limit: int = 1000) -> int | None:
-    """Walk month by month until the cumulative rent exceeds capex plus the cumulative owned cost."""
-    rent = owned = 0.0
-    for month in range(1, limit + 1):
-        rent += hours * p
-        owned += running + hours * v
-        if rent >= capex + owned:
-            return month
+def test_a_rented_option_that_failed_a_screen_has_no_break_even_and_says_why():
+    figures = break_even(
+        fixed_per_node_month=10000.0, accelerators_per_node=4, variable_per_accelerator_hour=0.5,
+        rented_per_accelerator_hour=np.array([9.0, 9.0]), fleet_nodes=10, campaign_accelerator_hours=1000.0,
+        ruled_out=np.array([False, True]))
+    assert np.isfinite(figures.utilisation[0]) and np.isnan(figures.utilisation[1])
+    assert list(figures.utilisation_reason) == ["", RULED_OUT]
+
+
+def months_to_pay_back(*, capex: float, saving: list[float], rate: float) -> float | None:
+    """Walk month by month, discounting each month's saving, until the capex is repaid; the last
+    month counted in part, as the textbooks do."""
+    repaid = 0.0
+    for month, amount in enumerate(saving, start=1):
+        present = amount / (1 + rate) ** month
+        if repaid + present >= capex:
+            return month - 1 + (capex - repaid) / present
+        repaid += present
     return None
 
 
-def test_payback_is_the_first_month_the_rent_saved_covers_the_capex_and_running_cost():
-    # 100,000 capex; 5,000 h a month rented at 3.00 or run at 0.50 busy energy plus 2,000 a month:
-    # 10,500 saved a month, 94,500 after 9 months, 105,000 after 10.
-    by_hand = months_to_pay_back(capex=100000, running=2000, hours=5000, p=3.0, v=0.5)
-    assert by_hand == 10
-    got = payback_months(capex=100000.0, running_per_month=2000.0, demand_hours_per_month=5000.0,
-                         rented_per_accelerator_hour=3.0, variable_per_accelerator_hour=0.5)
-    assert_allclose(got, by_hand)
+def test_payback_discounts_the_rent_saved_on_the_campaign_and_the_background_work():
+    # Two new nodes of 4 accelerators: 5,840 h a month. Background work at 30% of them, 1,752 h,
+    # plus a campaign of 2,000 h every month; 3,752 h × (3.00 − 0.50) − 2,000 running = 7,380 a month.
+    paid = payback(capex=100000.0, running_per_month=2000.0, capacity_hours_per_month=5840.0,
+                   campaign_hours_by_month=np.full(60, 2000.0), background_utilisation=0.3,
+                   rented_per_accelerator_hour=3.0, variable_per_accelerator_hour=0.5, cost_of_capital_annual=0.06)
+    by_hand = months_to_pay_back(capex=100000.0, saving=[7380.0] * 60, rate=0.06 / 12)
+    assert by_hand is not None and 14 < by_hand < 15  # 13.55 months undiscounted
+    assert_allclose(paid.months, by_hand, rtol=1e-12)
+    assert_allclose(paid.demand_hours_per_month, 3752.0)
 
 
-def test_payback_counts_only_the_demand_the_new_nodes_can_serve():
-    # One new node of 4 accelerators serves 4 × 730 = 2,920 h a month of the 5,000 asked:
-    # 2,920 × 2.5 − 2,000 = 5,300 saved a month → 18 months give 95,400, 19 give 100,700.
-    by_hand = months_to_pay_back(capex=100000, running=2000, hours=4 * 730, p=3.0, v=0.5)
-    assert by_hand == 19
-    common: dict[str, Any] = dict(
-        fixed_per_node_month=4000.0, running_per_node_month=2000.0, capex_per_node=100000.0,
-        accelerators_per_node=4, variable_per_accelerator_hour=0.5, rented_per_accelerator_hour=3.0,
-        fleet_nodes=10, campaign_accelerator_hours=5000.0, demand_hours_per_year=12 * 5000.0, new_nodes=1)
-    assert_allclose(break_even(**common, depreciation_months=60).payback_months, by_hand)
-    short = break_even(**common, depreciation_months=12)
-    assert np.isnan(short.payback_months) and short.payback_reason == BEYOND_LIFE
+def test_payback_counts_only_the_hours_the_new_nodes_have():
+    # The campaign asks 9,000 h in its one month; the nodes have 5,840: month 1 saves 5,840 × 2.5 −
+    # 2,000, later months only the background work's 0.5 × 5,840 × 2.5 − 2,000.
+    campaign = np.zeros(48)
+    campaign[0] = 9000.0
+    paid = payback(capex=100000.0, running_per_month=2000.0, capacity_hours_per_month=5840.0,
+                   campaign_hours_by_month=campaign, background_utilisation=0.5, rented_per_accelerator_hour=3.0,
+                   variable_per_accelerator_hour=0.5, cost_of_capital_annual=0.0)
+    saving = [5840 * 2.5 - 2000] + [0.5 * 5840 * 2.5 - 2000] * 47
+    assert_allclose(paid.months, months_to_pay_back(capex=100000.0, saving=saving, rate=0.0), rtol=1e-12)
+
+
+def test_payback_is_none_only_when_the_rent_saved_never_covers_the_running_cost():
+    common: dict[str, Any] = dict(capex=100000.0, running_per_month=2000.0, capacity_hours_per_month=5840.0,
+                                  campaign_hours_by_month=np.zeros(48), rented_per_accelerator_hour=3.0,
+                                  variable_per_accelerator_hour=0.5, cost_of_capital_annual=0.08)
+    idle = payback(**common, background_utilisation=0.1)  # 584 h × 2.5 = 1,460 < 2,000 a month
+    assert np.isnan(idle.months) and idle.reason == NO_SAVING
+    slow = payback(**common, background_utilisation=0.2)  # 920 a month: 39% of the capex in 48 months
+    assert np.isnan(slow.months) and slow.reason == BEYOND_LIFE
+    assert 0.0 < float(slow.recovered_fraction) < 1.0
 
 
 def demo(campaign: str) -> tuple[CatalogIn, QuoteRequestIn]:

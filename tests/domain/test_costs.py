@@ -14,6 +14,7 @@ from typing import Any
 
 import numpy as np
 import numpy_financial as npf
+import pytest
 from numpy.testing import assert_allclose
 
 from service.contract.catalog import CatalogIn
@@ -226,17 +227,36 @@ def test_new_build_utilisation_counts_every_accelerator_of_the_nodes_bought():
     assert_allclose(o.details["utilisation"], hours / (2 * PER_NODE * 60 * 730), rtol=RTOL)
 
 
-def test_an_owned_hall_amortises_its_capex_per_kw_and_shares_its_fixed_cost_by_it_capacity():
+@pytest.mark.parametrize(("allocate", "sharing_kw"), [
+    (None, 20 * 6.0),  # the default: the installed load, 20 owned nodes at 6 kW peak
+    ("installed", 20 * 6.0),
+    ("capacity", 300 / 1.2),  # facility power capacity / PUE
+])
+def test_an_owned_hall_amortises_its_capex_per_kw_and_shares_its_fixed_cost_as_allocated(allocate, sharing_kw):
     hall = copy.deepcopy(CATALOG)
     hall["sites"][0]["facility"] = {"kind": "owned", "capex_per_kw": 8000, "life_years": 10,
                                     "fixed_cost_per_year": 120000}
+    if allocate is not None:
+        hall["sites"][0]["facility"]["allocate"] = allocate
     domain_catalog = CatalogIn.model_validate(hall).to_domain()
     month = node_month(site_economics(domain_catalog.sites[0], domain_catalog, Overrides()))
     hall_capital = -npf.pmt(RATE, 10 * 12, 8000 * 6.0)  # the node's 6 kW of hall, over 120 months
-    it_capacity_kw = 300 / 1.2  # facility power capacity / PUE
-    fixed_share = 120000 / 12 * 6.0 / it_capacity_kw
+    fixed_share = 120000 / 12 * 6.0 / sharing_kw
     assert_allclose(month.facility, hall_capital + fixed_share, rtol=RTOL)
     assert_allclose(month.capital, CAPITAL, rtol=RTOL)
+
+
+def test_the_facility_line_names_what_shares_the_halls_fixed_cost():
+    for allocate, words in (("installed", "installed IT load"), ("capacity", "IT power it can feed")):
+        hall = copy.deepcopy(CATALOG)
+        hall["sites"][0]["facility"] = {"kind": "owned", "capex_per_kw": 8000, "life_years": 10,
+                                        "fixed_cost_per_year": 120000, "allocate": allocate}
+        request = QuoteRequestIn.model_validate({"campaign": {
+            "name": "test-campaign", "team": "test-team", "data": DATA,
+            "work": {"kind": "flops", "total_flops": TOTAL_FLOPS}}, "options": {"terms": ["owned_chargeback"]}})
+        option = quote(CatalogIn.model_validate(hall), request)["options"][0]
+        basis = next(line["basis"] for line in option["cost"]["lines"] if line["item"] == "facility")
+        assert words in basis and f"allocate {allocate}" in basis, basis
 
 
 def tight_site_quote() -> dict[str, Any]:

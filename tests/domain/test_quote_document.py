@@ -35,7 +35,8 @@ OPTION_KEYS = {
                "network_gbps_needed_for_95pct", "failure_overhead_fraction", "checkpoint_interval_hours",
                "wall_clock_days", "accelerator_hours"},
     "energy": {"it_kwh", "facility_kwh", "peak_it_kw", "cooling_kw_thermal", "cooling_tons", "kgco2e"},
-    "cost": {"total", "per_accelerator_hour", "lines"},
+    "cost": {"total", "per_instance_total", "programme_total", "npv", "view", "full_total", "incremental_total",
+             "per_accelerator_hour", "lines"},
 }
 
 
@@ -104,7 +105,7 @@ def test_feasible_options_come_first_ranked_by_total(campaign):
     feasible = [o for o in found if o["feasible"]]
     assert found[: len(feasible)] == feasible
     assert [o["rank"] for o in feasible] == list(range(1, len(feasible) + 1))
-    totals = [o["cost"]["total"] for o in feasible]
+    totals = [o["cost"]["programme_total"] for o in feasible]
     assert totals == sorted(totals)
     assert all(o["rank"] is None for o in found[len(feasible):])
 
@@ -207,10 +208,87 @@ def test_money_in_a_currency_without_a_minor_unit_is_rounded_to_whole_units():
         assert abs(yen_option["cost"]["total"] - euro_option["cost"]["total"]) <= 0.505 + 1e-9
 
 
-def test_the_breakeven_table_has_a_row_per_site_and_rented_option():
-    body = document("owned-wins")
-    rented = {(o["venue"]["id"], o["term"]) for o in body["options"] if o["venue"]["kind"] == "rented"}
+@pytest.mark.parametrize("campaign", ["owned-wins", "recurring"])
+def test_the_breakeven_table_pairs_every_site_only_with_rented_options_that_passed_every_screen(campaign):
+    body = document(campaign)
+    passed = {(o["venue"]["id"], o["term"]) for o in body["options"]
+              if o["venue"]["kind"] == "rented" and o["feasible"]}
+    ruled_out = {(o["venue"]["id"], o["term"]) for o in body["options"]
+                 if o["venue"]["kind"] == "rented" and not o["feasible"]}
+    assert passed and ruled_out  # the US offer is ruled out by residency in both
     sites = {o["venue"]["id"] for o in body["options"] if o["venue"]["kind"] == "owned"}
     rows = [(r["site"], r["offer"], r["term"]) for r in body["breakeven"]]
-    assert len(rows) == len(set(rows)) == len(sites) * len(rented)
-    assert set(rows) == {(s, offer, term) for s in sites for offer, term in rented}
+    assert len(rows) == len(set(rows)) == len(sites) * len(passed)
+    assert set(rows) == {(s, offer, term) for s in sites for offer, term in passed}
+    assert not {(offer, term) for _, offer, term in rows} & ruled_out
+    left_out = {(r["offer"], r["term"]): r["reasons"] for r in body["breakeven_left_out"]}
+    assert set(left_out) == ruled_out and all(left_out.values())
+
+
+@pytest.mark.parametrize("campaign", ["owned-wins", "recurring"])
+def test_each_rented_price_is_the_listed_price_converted_per_unit_of_work_and_shows_how(campaign):
+    body = document(campaign)
+    catalog = catalog_data()
+    offers = {o["id"]: o for o in catalog["offers"]}
+    accelerators = {a["id"]: a for a in catalog["accelerators"]}
+    node_types = {n["id"]: n for n in catalog["node_types"]}
+    sites = {s["id"]: s for s in catalog["sites"]}
+
+    def sustained(node_type: str) -> float:
+        accelerator = accelerators[node_types[node_type]["accelerator"]]
+        return float(accelerator["peak_tflops"]["bf16"] * accelerator["utilisation"])
+
+    for row in body["breakeven"]:
+        offer = offers[row["offer"]]
+        if row["term"] == "on_demand":
+            listed = offer["on_demand_per_accelerator_hour"]
+        elif row["term"] == "interruptible":
+            listed = offer["interruptible"]["per_accelerator_hour"]
+        else:
+            committed = next(c for c in offer["committed"] if f"committed_{c['months']}m" == row["term"])
+            listed = committed["per_accelerator_hour"]
+            assert "at full use of the commitment" in row["note"]
+            if committed.get("upfront_fraction", 0.0) == 0.0:
+                assert row["rented_listed_per_accelerator_hour"] == pytest.approx(listed, rel=1e-9)
+            else:  # financed up-front share: dearer than listed, never cheaper
+                assert row["rented_listed_per_accelerator_hour"] > listed
+            listed = row["rented_listed_per_accelerator_hour"]
+        assert row["rented_listed_per_accelerator_hour"] == pytest.approx(listed, rel=1e-9)
+        speed = sustained(sites[row["site"]]["node_type"]) / sustained(offer["node_type"])
+        if row["term"] == "interruptible":
+            assert row["conversion"] >= speed * (1 - 1e-6)  # plus the hours interruptions lose
+            assert "interruptions" in row["conversion_basis"]
+        else:
+            assert row["conversion"] == pytest.approx(speed, rel=1e-6)
+        assert row["rented_per_accelerator_hour"] == pytest.approx(
+            row["rented_listed_per_accelerator_hour"] * row["conversion"], rel=1e-3, abs=1e-4)
+        assert f"{row['rented_per_accelerator_hour']:,.4f}" in row["conversion_basis"]
+
+
+def test_the_recurring_demo_campaign_leads_with_its_programme():
+    body = document("recurring")
+    instances = body["work"]["instances"]
+    assert instances == 36
+    for option in body["options"]:
+        cost = option["cost"]
+        assert cost["per_instance_total"] == cost["total"]
+        # Every commitment of the demo is filled by whole instances: no unused remainder.
+        assert cost["programme_total"] == pytest.approx(instances * cost["per_instance_total"], abs=0.01 * instances)
+    best = body["options"][body["recommendation"]["option_index"]]
+    assert best["term"] == "owned_new_build"
+    why = body["recommendation"]["why"]
+    assert f"{best['cost']['programme_total']:,.0f} EUR over the programme of 36 instances" in why
+    site = next(s for s in catalog_data()["sites"] if s["id"] == best["venue"]["id"])
+    capex = sum(site["capex"].values()) * best["layout"]["nodes"]
+    assert f"{capex:,.0f} EUR of capital when bought" in why
+    assert best["cash_flow"][0]["capital"] == pytest.approx(capex)
+    assert best["cash_flow"][-1]["capital"] == pytest.approx(-capex * site["residual_fraction"])
+
+
+@pytest.mark.parametrize("campaign", CAMPAIGNS)
+def test_each_years_cash_flow_adds_up(campaign):
+    for option in options(campaign):
+        assert option["cash_flow"] and [y["year"] for y in option["cash_flow"]] == list(
+            range(1, len(option["cash_flow"]) + 1))
+        for year in option["cash_flow"]:
+            assert year["total"] == pytest.approx(year["capital"] + year["operating"] + year["rent"], abs=0.015)

@@ -1,5 +1,6 @@
 """The options CSV: RFC 4180 as the stdlib reads it, one row per option in the quote's order,
-units in the column names, plain decimals (no exponent, no grouping) and a currency column."""
+units in the column names, plain decimals (no exponent, no grouping), a currency column, and a
+column per cost line item named as in the JSON."""
 
 import csv
 import io
@@ -9,9 +10,11 @@ from service.reports import OPTIONS_CSV_HEADER, options_csv
 from tests.reports.conftest import Json, offline_document
 
 HEADER = ["rank", "venue_kind", "venue_id", "jurisdiction", "term", "feasible", "reasons", "nodes", "accelerators",
-          "wall_clock_days", "accelerator_hours", "total", "per_accelerator_hour", "it_kwh", "facility_kwh",
-          "peak_it_kw", "cooling_tons", "kgco2e", "currency", "cautions"]
-NUMERIC = ["nodes", "accelerators", "wall_clock_days", "accelerator_hours", "total", "per_accelerator_hour", "it_kwh",
+          "wall_clock_days", "accelerator_hours", "total", "per_accelerator_hour", "programme_total", "npv",
+          "cost_view", "full_total", "incremental_total", "it_kwh", "facility_kwh",
+          "peak_it_kw", "cooling_tons", "kgco2e", "currency"]
+NUMERIC = ["nodes", "accelerators", "wall_clock_days", "accelerator_hours", "total", "per_accelerator_hour",
+           "programme_total", "npv", "full_total", "incremental_total", "it_kwh",
            "facility_kwh", "peak_it_kw", "cooling_tons", "kgco2e"]
 PLAIN_DECIMAL = re.compile(r"^-?\d+(\.\d+)?$")
 
@@ -22,8 +25,26 @@ def rows_of(document: Json) -> tuple[str, list[dict[str, str]]]:
 
 
 def test_the_header_names_each_column_with_its_unit() -> None:
-    text, _rows = rows_of(offline_document("owned-wins"))
-    assert next(csv.reader(io.StringIO(text))) == HEADER == list(OPTIONS_CSV_HEADER)
+    document = offline_document("owned-wins")
+    text, _rows = rows_of(document)
+    items = list(dict.fromkeys(line["item"] for o in document["options"] for line in o["cost"]["lines"]))
+    assert {"capital", "facility", "busy_energy", "compute", "commitment", "storage", "egress"} <= set(items)
+    assert next(csv.reader(io.StringIO(text))) == [*HEADER, *items, "cautions"]
+    assert list(OPTIONS_CSV_HEADER) == HEADER
+
+
+def test_every_cost_line_is_a_column_with_the_options_amount(any_document: Json) -> None:
+    _text, rows = rows_of(any_document)
+    for row, option in zip(rows, any_document["options"], strict=True):
+        lines = {line["item"]: line["amount"] for line in option["cost"]["lines"]}
+        for item in set(row) - set(HEADER) - {"cautions"}:
+            if item in lines:
+                assert float(row[item]) == lines[item], (item, row[item])
+            else:
+                assert row[item] == "", item
+        assert set(lines) <= set(row)
+        assert float(row["programme_total"]) == option["cost"]["programme_total"]
+        assert row["cost_view"] == option["cost"]["view"]
 
 
 def test_every_row_carries_the_cautions_and_a_header_first_reader_reads_every_option(any_document: Json) -> None:
@@ -32,7 +53,9 @@ def test_every_row_carries_the_cautions_and_a_header_first_reader_reads_every_op
     for row in rows:
         for phrase in ("not a vendor quote", "licensed engineers", "not legal advice"):
             assert phrase in row["cautions"]
-    assert all(len(record) == len(HEADER) for record in csv.reader(io.StringIO(text, newline="")))
+    header = next(csv.reader(io.StringIO(text, newline="")))
+    assert header[-1] == "cautions"
+    assert all(len(record) == len(header) for record in csv.reader(io.StringIO(text, newline="")))
 
 
 def test_one_row_per_option_with_the_quotes_figures(any_document: Json) -> None:
