@@ -9,7 +9,7 @@ from datetime import UTC, datetime
 from typing import Annotated
 
 from anyio import CapacityLimiter
-from fastapi import Depends, Header, Request
+from fastapi import Depends, Header, Path, Query, Request
 
 from service.config import Settings
 from service.storage.repository import Storage
@@ -76,3 +76,19 @@ ComputeLaneDep = Annotated[CapacityLimiter, Depends(_compute_lane)]
 
 def utc_now() -> datetime:
     return datetime.now(UTC)
+
+
+# Ids in paths and cursors in queries have the form this service issues (`new_id`, `encode_cursor`);
+# anything else is refused with a 422 naming the parameter before it reaches the database (a NUL, say,
+# which PostgreSQL cannot even compare).
+def _id_path(prefix: str, what: str) -> object:
+    return Path(pattern=rf"^{prefix}_[A-Za-z0-9]{{1,64}}$", max_length=80, description=f"the {what}'s id")
+
+
+CatalogIdPath = Annotated[str, _id_path("cat", "catalog")]
+QuoteIdPath = Annotated[str, _id_path("q", "quote")]
+SweepIdPath = Annotated[str, _id_path("sw", "sweep")]
+PlanIdPath = Annotated[str, _id_path("fp", "fleet plan")]
+CursorQuery = Annotated[str | None, Query(pattern=r"^[A-Za-z0-9_-]{1,200}$",
+                                          description="the next_cursor of the previous page, unchanged")]
+PRINTABLE = r"^[^\x00-\x1f\x7f]+$"  # no control characters (NUL included)

@@ -5,17 +5,28 @@ from typing import Annotated, Literal, get_args
 from pydantic import Field, model_validator
 
 from service.contract.common import (
+    Amount,
+    CarbonIntensity,
+    CatalogId,
+    Factor,
+    Gbps,
+    Hours,
     Identifier,
-    NonNegativeFloat,
+    Name,
     PositiveFloat,
     PositiveInt,
     Strict,
+    Team,
+    Terabytes,
     Utilisation,
 )
 from service.domain import campaign as domain
+from service.domain import limits
 
 Term = Literal["owned_chargeback", "owned_new_build", "on_demand", "committed", "interruptible"]
 ALL_TERMS: tuple[Term, ...] = get_args(Term)
+# A country code or the name of one of the catalog's jurisdiction groups.
+JurisdictionName = Annotated[str, Field(min_length=2, max_length=40, pattern=r"^[A-Za-z0-9._-]+$")]
 
 
 class TransformerWorkIn(Strict):
@@ -63,14 +74,14 @@ WorkIn = Annotated[TransformerWorkIn | FlopsWorkIn | MeasuredWorkIn, Field(discr
 
 
 class RunsIn(Strict):
-    count: PositiveInt = 1
-    exploration_fraction: NonNegativeFloat = 0.0
-    evaluation_fraction: NonNegativeFloat = 0.0
+    count: Annotated[int, Field(gt=0, le=limits.MAX_RUNS)] = 1
+    exploration_fraction: Annotated[float, Field(ge=0, le=limits.MAX_EXTRA_WORK, allow_inf_nan=False)] = 0.0
+    evaluation_fraction: Annotated[float, Field(ge=0, le=limits.MAX_EXTRA_WORK, allow_inf_nan=False)] = 0.0
 
 
 class RecurrenceIn(Strict):
-    every_months: PositiveFloat
-    for_months: PositiveFloat
+    every_months: Annotated[float, Field(gt=0, le=limits.MAX_MONTHS, allow_inf_nan=False)]
+    for_months: Annotated[float, Field(gt=0, le=limits.MAX_MONTHS, allow_inf_nan=False)]
 
     @model_validator(mode="after")
     def _at_least_once(self) -> "RecurrenceIn":
@@ -80,24 +91,24 @@ class RecurrenceIn(Strict):
 
 
 class DataIn(Strict):
-    dataset_tb: NonNegativeFloat = 0.0
-    checkpoint_tb: PositiveFloat | None = None
-    checkpoints_kept: PositiveInt = 1
-    results_egress_tb: NonNegativeFloat = 0.0
-    allowed_jurisdictions: list[Annotated[str, Field(min_length=2, max_length=40)]] | None = Field(
-        None, description="ISO 3166-1 alpha-2 codes and names of the catalog's jurisdiction groups")
+    dataset_tb: Terabytes = 0.0
+    checkpoint_tb: Annotated[float, Field(gt=0, le=limits.MAX_TB, allow_inf_nan=False)] | None = None
+    checkpoints_kept: Annotated[int, Field(gt=0, le=limits.MAX_RUNS)] = 1
+    results_egress_tb: Terabytes = 0.0
+    allowed_jurisdictions: list[JurisdictionName] | None = Field(
+        None, max_length=300, description="ISO 3166-1 alpha-2 codes and names of the catalog's jurisdiction groups")
     home: Identifier | None = Field(None, description="the venue where the dataset lives")
     owned_only: bool = False
 
 
 class CampaignIn(Strict):
-    name: str = Field(min_length=1, max_length=200)
-    team: str = Field(min_length=1, max_length=100)
+    name: Name
+    team: Team
     work: WorkIn
     runs: RunsIn = Field(default_factory=RunsIn)
     recurrence: RecurrenceIn | None = None
     parallelism: Literal["auto", "replicated", "sharded"] = "auto"
-    deadline_days: PositiveFloat | None = None
+    deadline_days: Annotated[float, Field(gt=0, le=limits.MAX_DAYS, allow_inf_nan=False)] | None = None
     data: DataIn = Field(default_factory=DataIn)
 
 
@@ -113,20 +124,20 @@ class OverridesIn(Strict):
     """Catalog values replaced for this request; sweeps vary them as `overrides.<name>`."""
 
     utilisation: Utilisation | None = Field(None, description="every accelerator's utilisation")
-    electricity_price_per_kwh: NonNegativeFloat | None = Field(None, description="every owned site")
-    on_demand_price_factor: PositiveFloat | None = Field(None, description="multiplies on-demand prices")
-    rented_price_factor: PositiveFloat | None = Field(None, description="multiplies every rented price")
-    pue: Annotated[float, Field(ge=1, le=5)] | None = Field(None, description="every owned site")
-    cost_of_capital_annual: Annotated[float, Field(ge=0, le=1)] | None = None
-    node_price_factor: PositiveFloat | None = Field(None, description="multiplies owned node prices")
+    electricity_price_per_kwh: Amount | None = Field(None, description="every owned site")
+    on_demand_price_factor: Factor | None = Field(None, description="multiplies on-demand prices")
+    rented_price_factor: Factor | None = Field(None, description="multiplies every rented price")
+    pue: Annotated[float, Field(ge=1, le=5, allow_inf_nan=False)] | None = Field(None, description="every owned site")
+    cost_of_capital_annual: Annotated[float, Field(ge=0, le=1, allow_inf_nan=False)] | None = None
+    node_price_factor: Factor | None = Field(None, description="multiplies owned node prices")
     utilisation_planned: Utilisation | None = Field(None, description="every owned site's plan")
-    grid_kgco2e_per_kwh: NonNegativeFloat | None = Field(None, description="every owned site")
-    mtbf_hours: PositiveFloat | None = Field(None, description="every node type")
-    network_gbps: PositiveFloat | None = Field(None, description="every node type's node link")
+    grid_kgco2e_per_kwh: CarbonIntensity | None = Field(None, description="every owned site")
+    mtbf_hours: Hours | None = Field(None, description="every node type")
+    network_gbps: Gbps | None = Field(None, description="every node type's node link")
 
 
 class QuoteRequestIn(Strict):
-    catalog_id: str | None = Field(None, description="default: the newest catalog")
+    catalog_id: CatalogId | None = Field(None, description="default: the newest catalog")
     campaign: CampaignIn
     options: OptionsIn = Field(default_factory=OptionsIn)
     overrides: OverridesIn = Field(default_factory=OverridesIn)

@@ -15,14 +15,22 @@ Model = TypeVar("Model", bound=BaseModel)
 
 
 def parse_document(text: str, *, source: str) -> Any:
-    """JSON, or YAML when it is not JSON."""
+    """JSON, or YAML when it is not JSON. A document nested deeper than any catalog or request is
+    refused rather than parsed to the end of the stack."""
     try:
         return json.loads(text)
+    except RecursionError as error:
+        raise InvalidInput(f"{source} is nested too deeply", [TOO_DEEP]) from error
     except json.JSONDecodeError as json_error:
         try:
             return yaml.safe_load(text)
+        except RecursionError as error:
+            raise InvalidInput(f"{source} is nested too deeply", [TOO_DEEP]) from error
         except yaml.YAMLError:
             raise InvalidInput(f"{source} is neither valid JSON nor YAML: {json_error}") from json_error
+
+
+TOO_DEEP = FieldProblem("(body)", "objects and lists are nested too deeply to be a catalog or a request")
 
 
 def field_problems(error: ValidationError) -> list[FieldProblem]:

@@ -96,12 +96,15 @@ def _support_problem(rule: InputPath, spec: DistributionIn) -> str | None:
         return f"takes whole numbers; a {spec.kind} distribution draws fractions (use a choice distribution)"
     if spec.kind == "choice":
         return rule.problems(np.asarray(spec.values, dtype=np.float64))
+    # An unbounded tail is judged by where it reaches with any chance that matters: 12 standard
+    # deviations (a chance below 1e-32 per draw) stand in for infinity against a finite ceiling.
     if spec.kind == "lognormal":
-        lowest, highest = 0.0, np.inf
+        lowest, highest = 0.0, float(np.exp(min((spec.mean or 0.0) + TAIL_SIGMAS * (spec.sigma or 0.0), 709.0)))
         open_low = True
     elif spec.kind == "normal":
+        reach = TAIL_SIGMAS * (spec.sd or 0.0)
         lowest = -np.inf if spec.low is None else spec.low
-        highest = np.inf if spec.high is None else spec.high
+        highest = (spec.mean or 0.0) + reach if spec.high is None else spec.high
         open_low = False
     else:
         lowest, highest, open_low = float(spec.low or 0.0), float(spec.high or 0.0), False
@@ -113,6 +116,8 @@ def _support_problem(rule: InputPath, spec: DistributionIn) -> str | None:
         return f"this {spec.kind} distribution can draw values outside the valid range ({bound}){hint}"
     return None
 
+
+TAIL_SIGMAS = 12.0
 
 Progress = Callable[[int, int], None]
 

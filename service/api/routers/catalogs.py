@@ -6,7 +6,7 @@ from fastapi import APIRouter, Query
 from fastapi.responses import Response
 
 from service.api.auth import Admin, AnyKey
-from service.api.deps import ClockDep, IdempotencyKeyDep, RawBodyDep, StorageDep
+from service.api.deps import CatalogIdPath, ClockDep, CursorQuery, IdempotencyKeyDep, RawBodyDep, StorageDep
 from service.api.problems import CONFLICT, PROBLEM_RESPONSES
 from service.api.responses import created_response
 from service.contract.answers import CatalogOut, CatalogPage
@@ -50,14 +50,14 @@ def create_catalog(body: RawBodyDep, storage: StorageDep, clock: ClockDep, calle
 
 @router.get("", response_model=CatalogPage, responses=PROBLEM_RESPONSES)
 def list_catalogs(storage: StorageDep, _viewer: AnyKey, limit: Annotated[int, Query(ge=1, le=200)] = 50,
-                  cursor: Annotated[str | None, Query(max_length=200)] = None) -> dict[str, Any]:
+                  cursor: CursorQuery = None) -> dict[str, Any]:
     """Catalogs, newest first."""
     items, next_cursor = find_catalogs(storage, limit=limit, cursor=cursor)
     return {"items": [catalog_body(c, with_content=False) for c in items], "next_cursor": next_cursor}
 
 
 @router.get("/{catalog_id}", response_model=CatalogOut, responses=PROBLEM_RESPONSES)
-def read_catalog(catalog_id: str, storage: StorageDep, _viewer: AnyKey) -> dict[str, Any]:
+def read_catalog(catalog_id: CatalogIdPath, storage: StorageDep, _viewer: AnyKey) -> dict[str, Any]:
     """One catalog with its content."""
     return catalog_body(get_catalog(storage, catalog_id), with_content=True)
 

@@ -6,7 +6,15 @@ from fastapi import APIRouter, Request
 from fastapi.responses import HTMLResponse, Response
 
 from service.api.auth import Analyst
-from service.api.deps import CatalogsDep, ClockDep, IdempotencyKeyDep, RawBodyDep, SettingsDep, StorageDep
+from service.api.deps import (
+    CatalogsDep,
+    ClockDep,
+    IdempotencyKeyDep,
+    PlanIdPath,
+    RawBodyDep,
+    SettingsDep,
+    StorageDep,
+)
 from service.api.observability import DomainMetrics
 from service.api.problems import CONFLICT, PROBLEM_RESPONSES
 from service.api.responses import created_response
@@ -43,19 +51,19 @@ def post_fleet_plan(request: Request, payload: FleetPlanIn, raw: RawBodyDep, sto
 
 @router.get("/{plan_id}/chart.svg", response_class=Response, responses={
     200: {"content": {"image/svg+xml": {}}, "description": "present cost against fleet size"}, **PROBLEM_RESPONSES})
-def fleet_plan_chart(plan_id: str, storage: StorageDep, _analyst: Analyst) -> Response:
+def fleet_plan_chart(plan_id: PlanIdPath, storage: StorageDep, _analyst: Analyst) -> Response:
     """Present cost against owned fleet size: the median and the 5th-95th percentile band."""
     return Response(standalone(fleet_figure_svg(get_fleet_plan(storage, plan_id))), media_type="image/svg+xml")
 
 
 @router.get("/{plan_id}/report", response_class=HTMLResponse, responses={
     200: {"content": {"text/html": {}}, "description": "a printable page"}, **PROBLEM_RESPONSES})
-def fleet_plan_report(plan_id: str, storage: StorageDep, _analyst: Analyst) -> HTMLResponse:
+def fleet_plan_report(plan_id: PlanIdPath, storage: StorageDep, _analyst: Analyst) -> HTMLResponse:
     """The plan as a self-contained, printable page."""
     return HTMLResponse(render_plan(get_fleet_plan(storage, plan_id)))
 
 
 @router.get("/{plan_id}", responses=PROBLEM_RESPONSES)
-def read_fleet_plan(plan_id: str, storage: StorageDep, _analyst: Analyst) -> dict[str, Any]:
+def read_fleet_plan(plan_id: PlanIdPath, storage: StorageDep, _analyst: Analyst) -> dict[str, Any]:
     """A stored fleet plan, as it was returned."""
     return get_fleet_plan(storage, plan_id)

@@ -7,7 +7,15 @@ from fastapi import APIRouter, Depends, Request
 from fastapi.responses import Response, StreamingResponse
 
 from service.api.auth import Analyst
-from service.api.deps import CatalogsDep, ClockDep, IdempotencyKeyDep, RawBodyDep, SettingsDep, StorageDep
+from service.api.deps import (
+    CatalogsDep,
+    ClockDep,
+    IdempotencyKeyDep,
+    RawBodyDep,
+    SettingsDep,
+    StorageDep,
+    SweepIdPath,
+)
 from service.api.observability import DomainMetrics
 from service.api.problems import CONFLICT, PROBLEM_RESPONSES
 from service.api.responses import created_response
@@ -51,14 +59,15 @@ def post_sweep(request: Request, payload: SweepIn, raw: RawBodyDep, storage: Sto
 
 
 @router.get("/{sweep_id}", responses=PROBLEM_RESPONSES)
-def read_sweep(sweep_id: str, storage: StorageDep, _analyst: Analyst) -> dict[str, Any]:
+def read_sweep(sweep_id: SweepIdPath, storage: StorageDep, _analyst: Analyst) -> dict[str, Any]:
     """Status, progress and, once done, the summary, tornado and (for small sweeps) the rows."""
     return get_sweep(storage, sweep_id)
 
 
 @router.get("/{sweep_id}/rows.csv", response_class=StreamingResponse, responses={
     200: {"content": {"text/csv": {}}, "description": "one row per scenario"}, **PROBLEM_RESPONSES})
-def sweep_rows(sweep_id: str, storage: StorageDep, catalogs: CatalogsDep, _analyst: Analyst) -> StreamingResponse:
+def sweep_rows(sweep_id: SweepIdPath, storage: StorageDep, catalogs: CatalogsDep,
+               _analyst: Analyst) -> StreamingResponse:
     """Every scenario's inputs, cheapest option and each option's total, streamed as CSV. The rows
     are recomputed from the seeded request, so they are identical every time."""
     prepared = prepared_from_store(storage, catalogs, sweep_id)
