@@ -84,7 +84,8 @@ def _top_level_modules(tree: ast.AST) -> set[str]:
 
 
 def _domain_trees() -> dict[str, ast.AST]:
-    return {path.name: ast.parse(path.read_text(encoding="utf-8")) for path in sorted((SERVICE / "domain").glob("*.py"))}
+    return {path.name: ast.parse(path.read_text(encoding="utf-8"))
+            for path in sorted((SERVICE / "domain").glob("*.py"))}
 
 
 def test_every_part_of_the_service_imports_only_what_the_rules_allow() -> None:
@@ -104,13 +105,15 @@ def test_the_rules_catch_a_use_case_that_imports_the_http_layer(tmp_path: Path) 
     (tmp_path / "cli").mkdir()
     (tmp_path / "cli" / "commands.py").write_text(
         "def serve():\n    from service.api.app import create_app\n\ndef quote():\n    from service.api import deps\n")
-    assert wrong_imports(tmp_path) == ["cli/commands.py:5 imports service.api", "contract/request.py:4 imports service.storage",
+    assert wrong_imports(tmp_path) == ["cli/commands.py:5 imports service.api",
+                                       "contract/request.py:4 imports service.storage",
                                        "usecases/quotes.py:1 imports service.api"]
 
 
 def test_the_domain_imports_only_numpy_the_standard_library_and_itself() -> None:
     allowed = (set(sys.stdlib_module_names) - DOMAIN_FORBIDDEN_STDLIB) | DOMAIN_THIRD_PARTY | {"service", "__future__"}
-    offenders = {name: sorted(bad) for name, tree in _domain_trees().items() if (bad := _top_level_modules(tree) - allowed)}
+    offenders = {name: sorted(bad) for name, tree in _domain_trees().items()
+                 if (bad := _top_level_modules(tree) - allowed)}
     assert offenders == {}
 
 

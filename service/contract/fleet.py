@@ -60,4 +60,4 @@ class FleetPlanIn(Strict):
     samples: Annotated[int, Field(ge=1, le=MAX_COUNT)] = 1000
     seed: Annotated[int, Field(ge=0, le=MAX_SEED)] = 0
     max_utilisation: Annotated[float, Field(gt=0, le=1, allow_inf_nan=False)] = 0.85
-    precision: str = Field("bf16", min_length=1, max_length=20)
+    precision: str = Field("bf16", min_length=1, max_length=20, pattern=r"^[A-Za-z0-9._-]+$")

@@ -37,7 +37,7 @@ class TransformerWorkIn(Strict):
     d_model: PositiveInt | None = None
     sequence_length: PositiveInt | None = None
     attention_heads: PositiveInt | None = None
-    precision: str = Field("bf16", min_length=1, max_length=20)
+    precision: str = Field("bf16", min_length=1, max_length=20, pattern=r"^[A-Za-z0-9._-]+$")
     activation_recompute: Literal["none", "selective", "full"] = "none"
     global_batch_tokens: PositiveFloat | None = None
     micro_batch_sequences: PositiveInt | None = None
@@ -54,7 +54,7 @@ class FlopsWorkIn(Strict):
     kind: Literal["flops"]
     total_flops: PositiveFloat = Field(description="model FLOPs of one run")
     parameters: PositiveFloat | None = Field(None, description="for memory and communication")
-    precision: str = Field("bf16", min_length=1, max_length=20)
+    precision: str = Field("bf16", min_length=1, max_length=20, pattern=r"^[A-Za-z0-9._-]+$")
     activation_recompute: Literal["none", "selective", "full"] = "none"
     global_batch_tokens: PositiveFloat | None = None
 
@@ -65,7 +65,7 @@ class MeasuredWorkIn(Strict):
     samples: PositiveFloat
     samples_per_second_per_accelerator: PositiveFloat
     parameters: PositiveFloat | None = Field(None, description="for memory and communication")
-    precision: str = Field("bf16", min_length=1, max_length=20)
+    precision: str = Field("bf16", min_length=1, max_length=20, pattern=r"^[A-Za-z0-9._-]+$")
     activation_recompute: Literal["none", "selective", "full"] = "none"
     global_batch_tokens: PositiveFloat | None = None
 

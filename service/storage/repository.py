@@ -16,8 +16,9 @@ from sqlalchemy import Engine, and_, delete, func, or_, text, update
 from sqlalchemy.exc import IntegrityError
 from sqlmodel import Session, col, select
 
-from service.errors import FieldProblem, InvalidInput
+from service.errors import FieldProblem, InvalidInput, Unavailable
 from service.storage.engine import READ_ONLY
+from service.storage.gate import COMMIT_GATE
 from service.storage.tables import ApiKeyRow, CatalogRow, FleetPlanRow, IdempotencyRow, QuoteRow, SweepRow
 
 
@@ -383,10 +384,28 @@ class Storage:
         self.engine = engine
 
     @contextmanager
-    def writing(self) -> Iterator[Repository]:
-        """One write transaction (BEGIN IMMEDIATE on SQLite): committed when the block ends."""
-        with Session(self.engine, expire_on_commit=False) as session, session.begin():
-            yield Repository(session)
+    def writing(self, *, claim: bool = False, gated: bool = True) -> Iterator[Repository]:
+        """One write transaction (BEGIN IMMEDIATE on SQLite): committed when the block ends, unless the
+        request it serves has timed out (`COMMIT_GATE`), when it is rolled back. A `claim` taken before
+        the work leaves the request's time limit armed; any other commit disarms it. `gated=False`
+        for the clean-up after a failure, which must go through."""
+        gate = COMMIT_GATE.get() if gated else None
+        with Session(self.engine, expire_on_commit=False) as session:
+            transaction = session.begin()
+            try:
+                yield Repository(session)
+                if gate is not None and not gate.enter():
+                    raise Unavailable("the request took longer than its time limit; nothing was stored")
+            except BaseException:
+                transaction.rollback()
+                raise
+            committed = False
+            try:
+                transaction.commit()
+                committed = True
+            finally:
+                if gate is not None:
+                    gate.leave(final=committed and not claim)
 
     @contextmanager
     def reading(self) -> Iterator[Repository]:

@@ -46,7 +46,7 @@ def once_per_key(storage: Storage, *, caller: Principal, key: str | None, body: 
     while the first still runs is told to wait. Without a key, `create` just runs."""
     if key is None:
         return create(None)
-    with storage.writing() as repository:
+    with storage.writing(claim=True) as repository:
         claim = repository.claim_key(caller=caller.key_id, key=key, body_hash=body_fingerprint(body), now=clock(),
                                      lease=IDEMPOTENCY_LEASE, keep=IDEMPOTENCY_KEEP)
     if not claim.same_body:
@@ -63,6 +63,6 @@ def once_per_key(storage: Storage, *, caller: Principal, key: str | None, body: 
     try:
         return create(keep)
     except Exception:
-        with storage.writing() as repository:
+        with storage.writing(gated=False) as repository:
             repository.release_key(caller=caller.key_id, key=key)
         raise

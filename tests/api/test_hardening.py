@@ -1,0 +1,327 @@
+"""What an attack on a live server found (issue 18), in-process: each test names the row of the issue
+it pins. Rows that need a real server process (1, 3, 5, 6, 12, 13) are in tests/e2e/test_hardening.py."""
+
+import copy
+import io
+import json
+import logging
+import threading
+from collections.abc import AsyncIterator, Callable, Iterator
+from contextlib import asynccontextmanager
+from typing import Any
+
+import anyio
+import httpx
+import pytest
+from fastapi import FastAPI
+from sqlalchemy import text
+
+import service.api.routers.quotes
+from service.api.app import create_app, prepare
+from service.api.observability import JsonFormatter
+from service.config import Settings
+from service.reports import breakeven_svg, render_report
+from service.storage.gate import CommitGate
+from service.storage.repository import Storage
+from tests.api.conftest import FakeClock
+from tests.api.problems import problem_of
+from tests.conftest import load_example
+
+pytestmark = pytest.mark.anyio
+
+
+@pytest.fixture
+def make_client(database_url: str, clock: FakeClock) -> Callable[..., Any]:
+    @asynccontextmanager
+    async def open_client(**settings: Any) -> AsyncIterator[tuple[FastAPI, httpx.AsyncClient]]:
+        app = create_app(Settings(database_url=database_url, **settings), clock=clock)
+        prepare(app)
+        try:
+            async with httpx.AsyncClient(transport=httpx.ASGITransport(app=app), base_url="http://berth.test") as http:
+                yield app, http
+        finally:
+            app.state.sweeps.shutdown()
+            app.state.storage.dispose()
+
+    return open_client
+
+
+def with_value(body: dict[str, Any], path: str, value: Any) -> dict[str, Any]:
+    changed = copy.deepcopy(body)
+    *parents, last = path.split(".")
+    node: Any = changed
+    for part in parents:
+        node = node[int(part)] if isinstance(node, list) else node.setdefault(part, {})
+    if isinstance(node, list):
+        node[int(last)] = value
+    else:
+        node[last] = value
+    return changed
+
+
+def count(storage: Storage, table: str) -> int:
+    with storage.engine.connect() as connection:
+        return int(connection.execute(text(f"SELECT COUNT(*) FROM {table}")).scalar_one())
+
+
+def fields_of(problem: dict[str, Any]) -> list[str]:
+    return [error["field"] for error in problem.get("errors", [])]
+
+
+# Row 2: an absurd catalog is refused, naming the field, and quoting goes on.
+
+@pytest.mark.parametrize(("path", "value"), [
+    ("sites.0.nodes_max", 10**12),
+    ("sites.0.nodes_owned", 10**12),
+    ("offers.0.nodes_max", 10**12),
+    ("node_types.0.accelerators_per_node", 10**9),
+    ("sites.0.depreciation_months", 10**9),
+    ("offers.0.committed", [{"months": m, "per_accelerator_hour": 1.0} for m in range(1, 40)]),
+    ("sites.0.capex.node_price", 1e25),
+    ("accelerators.0.memory_gb", 1e300),
+])
+async def test_row_2_an_absurd_catalog_is_a_422_naming_the_field_and_quoting_goes_on(
+    client: httpx.AsyncClient, storage: Storage, demo_catalog: dict[str, Any], owned_wins_request: dict[str, Any],
+    path: str, value: Any,
+) -> None:
+    before = count(storage, "catalog")
+    problem = problem_of(await client.post("/v1/catalogs", json=with_value(demo_catalog, path, value)), 422)
+    assert any(field.startswith(path) for field in fields_of(problem)), problem
+    assert count(storage, "catalog") == before
+    assert (await client.post("/v1/quotes", json=owned_wins_request)).status_code == 201
+
+
+# Row 4: NUL characters are a 422 naming the field (PostgreSQL cannot store or compare them).
+
+@pytest.mark.parametrize(("path", "field"), [
+    ("campaign.name", "campaign.name"), ("campaign.team", "campaign.team"), ("catalog_id", "catalog_id"),
+    ("campaign.data.home", "campaign.data.home"), ("campaign.work.precision", "campaign.work.precision"),
+])
+async def test_row_4_a_nul_in_a_quote_request_is_a_422_naming_the_field(
+    client: httpx.AsyncClient, storage: Storage, owned_wins_request: dict[str, Any], path: str, field: str
+) -> None:
+    problem = problem_of(await client.post("/v1/quotes", json=with_value(owned_wins_request, path, "a\u0000b")), 422)
+    assert field in fields_of(problem)
+    assert count(storage, "quote") == 0
+
+
+@pytest.mark.parametrize(("url", "params", "field"), [
+    ("/v1/quotes", {"team": "a\u0000"}, "query.team"),
+    ("/v1/quotes", {"campaign_name": "a\u0000"}, "query.campaign_name"),
+    ("/v1/quotes", {"cursor": "a\u0000"}, "query.cursor"),
+    ("/v1/catalogs", {"cursor": "a\u0000"}, "query.cursor"),
+    ("/v1/quotes/q_a%00b", {}, "path.quote_id"),
+    ("/v1/catalogs/cat_a%00b", {}, "path.catalog_id"),
+    ("/v1/sweeps/sw_a%00b", {}, "path.sweep_id"),
+    ("/v1/fleet-plans/fp_a%00b", {}, "path.plan_id"),
+])
+async def test_row_4_a_nul_in_a_filter_cursor_or_id_is_a_422_naming_it(
+    client: httpx.AsyncClient, url: str, params: dict[str, str], field: str
+) -> None:
+    problem = problem_of(await client.get(url, params=params), 422)
+    assert field in fields_of(problem)
+
+
+async def test_row_4_a_nul_in_a_catalog_or_a_fleet_plan_is_a_422(
+    client: httpx.AsyncClient, demo_catalog: dict[str, Any]
+) -> None:
+    for path in ("name", "offers.0.provider", "offers.0.region", "sites.0.name"):
+        problem = problem_of(await client.post("/v1/catalogs", json=with_value(demo_catalog, path, "x\u0000")), 422)
+        assert path in fields_of(problem)
+    plan = with_value(load_example("fleet-plan.json"), "demand", {"from_quotes": ["q_\u0000"]})
+    problem = problem_of(await client.post("/v1/fleet-plans", json=plan), 422)
+    assert "demand.from_quotes.0" in fields_of(problem)
+
+
+# Row 7: integers at or beyond 2**63 are a 422 naming the field.
+
+@pytest.mark.parametrize(("url", "body", "path"), [
+    ("/v1/quotes", "campaign-owned-wins.json", "campaign.runs.count"),
+    ("/v1/quotes", "campaign-owned-wins.json", "campaign.work.layers"),
+    ("/v1/quotes", "campaign-owned-wins.json", "campaign.data.checkpoints_kept"),
+    ("/v1/quotes", "campaign-owned-wins.json", "options.max_accelerators"),
+    ("/v1/quotes", "campaign-owned-wins.json", "options.fixed_accelerators"),
+    ("/v1/fleet-plans", "fleet-plan.json", "samples"),
+    ("/v1/fleet-plans", "fleet-plan.json", "candidate_nodes.step"),
+    ("/v1/fleet-plans", "fleet-plan.json", "candidate_nodes.min"),
+    ("/v1/catalogs", "catalog.json", "sites.0.depreciation_months"),
+    ("/v1/catalogs", "catalog.json", "offers.0.committed.0.months"),
+])
+async def test_row_7_an_integer_of_2_to_the_63_is_a_422_naming_the_field(
+    client: httpx.AsyncClient, url: str, body: str, path: str
+) -> None:
+    for value in (2**63, 2**64 + 1):
+        problem = problem_of(await client.post(url, json=with_value(load_example(body), path, value)), 422)
+        assert path in fields_of(problem), problem
+
+
+# Row 8: edge inputs are 4xx problems.
+
+@pytest.mark.parametrize("params", [
+    {"created_from": "0001-01-01T00:00:00+23:59"},
+    {"created_to": "9999-12-31T23:59:59-23:59"},
+])
+async def test_row_8_a_date_filter_beyond_the_calendar_in_utc_is_a_422(
+    client: httpx.AsyncClient, params: dict[str, str]
+) -> None:
+    problem = problem_of(await client.get("/v1/quotes", params=params), 422)
+    assert fields_of(problem) == [f"query.{next(iter(params))}"]
+
+
+async def test_row_8_a_negative_zero_spread_is_zero(client: httpx.AsyncClient,
+                                                   owned_wins_request: dict[str, Any]) -> None:
+    sweep = {"base": owned_wins_request, "samples": 10,
+             "distributions": {"overrides.utilisation": {"kind": "lognormal", "mean": -1.0, "sigma": -0.0}}}
+    answered = await client.post("/v1/sweeps", json=sweep)
+    assert answered.status_code == 201, answered.text
+    plan = with_value(with_value(load_example("fleet-plan.json"), "demand.spread", -0.0), "samples", 10)
+    assert (await client.post("/v1/fleet-plans", json=plan)).status_code == 201
+
+
+@pytest.mark.parametrize("content_type", ["application/json", "application/yaml"])
+async def test_row_8_a_deeply_nested_catalog_is_a_422(client: httpx.AsyncClient, content_type: str) -> None:
+    depth = 100_000
+    body = ('{"a":' * depth + "null" + "}" * depth) if content_type.endswith("json") else (
+        "a: " + "[" * depth + "]" * depth)
+    problem = problem_of(await client.post("/v1/catalogs", content=body, headers={"content-type": content_type}),
+                         422)
+    assert fields_of(problem) == ["(body)"]
+
+
+async def test_row_8_a_lone_surrogate_in_an_id_is_a_422(client: httpx.AsyncClient,
+                                                        owned_wins_request: dict[str, Any]) -> None:
+    raw = json.dumps(with_value(owned_wins_request, "catalog_id", "SURROGATE")).replace("SURROGATE", "cat_\\ud800")
+    response = await client.post("/v1/quotes", content=raw, headers={"content-type": "application/json"})
+    assert "catalog_id" in fields_of(problem_of(response, 422))
+
+
+async def test_row_8_a_catalog_of_zero_costs_quotes_and_renders(
+    client: httpx.AsyncClient, demo_catalog: dict[str, Any], owned_wins_request: dict[str, Any]
+) -> None:
+    free = copy.deepcopy(demo_catalog)
+    for site in free["sites"]:
+        site.update(electricity_price_per_kwh=0, staff_cost_per_node_year=0,
+                    facility={"kind": "colocation", "price_per_kw_month": 0})
+        site["capex"] = {"node_price": 1e-9}
+    stored = await client.post("/v1/catalogs", json=free)
+    assert stored.status_code == 201, stored.text
+    quoted = await client.post("/v1/quotes", json={**owned_wins_request, "catalog_id": stored.json()["id"]})
+    assert quoted.status_code == 201, quoted.text
+    for suffix in ("/report", "/breakeven.svg", "/options.csv"):
+        assert (await client.get(f"/v1/quotes/{quoted.json()['id']}{suffix}")).status_code == 200
+
+
+# Row 9: plausibility bounds refuse absurd inputs up front, and whatever is accepted renders.
+
+@pytest.mark.parametrize("override", [
+    "node_price_factor", "electricity_price_per_kwh", "rented_price_factor", "on_demand_price_factor",
+    "mtbf_hours", "network_gbps", "grid_kgco2e_per_kwh",
+])
+async def test_row_9_an_absurd_override_is_a_422_in_a_quote_and_in_a_sweep(
+    client: httpx.AsyncClient, storage: Storage, owned_wins_request: dict[str, Any], override: str
+) -> None:
+    body = {**owned_wins_request, "overrides": {override: 1e25}}
+    assert fields_of(problem_of(await client.post("/v1/quotes", json=body), 422)) == [f"overrides.{override}"]
+    sweep = {"base": owned_wins_request, "grid": {f"overrides.{override}": [1.0, 1e25]}}
+    assert fields_of(problem_of(await client.post("/v1/sweeps", json=sweep), 422)) == [f"grid.overrides.{override}"]
+    assert count(storage, "quote") == 0
+
+
+async def test_row_9_a_quote_with_figures_beyond_28_digits_renders(
+    client: httpx.AsyncClient, owned_wins_request: dict[str, Any]
+) -> None:
+    document = (await client.post("/v1/quotes", json=owned_wins_request)).json()
+
+    def inflate(node: Any) -> Any:
+        if isinstance(node, dict):
+            return {k: inflate(v) if k != "year" else v for k, v in node.items()}
+        if isinstance(node, list):
+            return [inflate(v) for v in node]
+        return node * 1e25 if isinstance(node, float) and node > 1.0 else node
+
+    huge = {**document, "options": inflate(document["options"]), "breakeven": inflate(document["breakeven"])}
+    assert "<html" in render_report(huge)
+    assert breakeven_svg(huge).startswith("<?xml")
+
+
+# Row 10: a 503 for a time-out stores nothing.
+
+async def test_row_10_a_quote_that_times_out_is_never_stored(
+    make_client: Callable[..., Any], monkeypatch: pytest.MonkeyPatch, owned_wins_request: dict[str, Any]
+) -> None:
+    entered, release, finished = threading.Event(), threading.Event(), threading.Event()
+    create = service.api.routers.quotes.create_quote
+
+    def held_create(*args: Any, **kwargs: Any) -> Any:
+        entered.set()
+        try:
+            release.wait(60.0)  # past the time limit, then the quote is computed and offered for storage
+            return create(*args, **kwargs)
+        finally:
+            finished.set()
+
+    monkeypatch.setattr(service.api.routers.quotes, "create_quote", held_create)
+    async with make_client(request_timeout_seconds=0.3) as (app, client):
+        response = await client.post("/v1/quotes", json=owned_wins_request, headers={"Idempotency-Key": "slow-1"})
+        problem_of(response, 503)
+        assert entered.is_set() and not finished.is_set()
+        release.set()
+        assert await anyio.to_thread.run_sync(finished.wait, 60.0)
+        await anyio.sleep(0.05)
+        storage: Storage = app.state.storage
+        assert count(storage, "quote") == 0
+        # The key's claim was released with the refusal: the retry runs at once and stores one quote.
+        monkeypatch.setattr(service.api.routers.quotes, "create_quote", create)
+        retried = await client.post("/v1/quotes", json=owned_wins_request, headers={"Idempotency-Key": "slow-1"})
+        assert retried.status_code == 201, retried.text
+        assert count(storage, "quote") == 1
+
+
+def test_row_10_the_commit_gate_lets_exactly_one_of_a_time_out_and_a_final_commit_win() -> None:
+    late = CommitGate()
+    assert late.expire()
+    assert not late.enter()  # the 503 went out: nothing commits
+    claimed_then_late = CommitGate()
+    assert claimed_then_late.enter()
+    claimed_then_late.leave(final=False)  # an Idempotency-Key claim leaves the time limit armed
+    assert claimed_then_late.expire()
+    stored = CommitGate()
+    assert stored.enter()
+    assert not stored.expire()  # committing: the answer will name what was stored
+    stored.leave(final=True)
+    assert not stored.expire()
+    assert stored.enter()
+
+
+# Row 11: a 500 carries the request id, is logged with it, and does not break the connection.
+
+@pytest.fixture
+def http_log(caplog: pytest.LogCaptureFixture) -> Iterator[io.StringIO]:
+    caplog.set_level(logging.INFO, logger="berth.http")
+    stream = io.StringIO()
+    handler = logging.StreamHandler(stream)
+    handler.setFormatter(JsonFormatter())
+    logger = logging.getLogger("berth.http")
+    logger.addHandler(handler)
+    try:
+        yield stream
+    finally:
+        logger.removeHandler(handler)
+
+
+async def test_row_11_an_unexpected_error_is_a_500_with_the_request_id_on_the_answer_and_every_log_line(
+    client: httpx.AsyncClient, monkeypatch: pytest.MonkeyPatch, http_log: io.StringIO
+) -> None:
+    def broken(*_args: Any, **_kwargs: Any) -> Any:
+        raise RuntimeError("a bug")
+
+    monkeypatch.setattr(service.api.routers.quotes, "find_quotes", broken)
+    # The transport raises whatever the application lets escape: the connection would be reset.
+    response = await client.get("/v1/quotes", headers={"X-Request-ID": "boom-1"})
+    problem = problem_of(response, 500)
+    assert "a bug" not in json.dumps(problem)
+    assert response.headers["x-request-id"] == "boom-1"
+    lines = [json.loads(line) for line in http_log.getvalue().splitlines()]
+    assert lines and all(line["request_id"] == "boom-1" for line in lines)
+    assert any("RuntimeError" in line.get("error", "") for line in lines), lines
+    assert (await client.get("/healthz")).status_code == 200
