@@ -19,6 +19,8 @@ class Settings(BaseSettings):
     sweep_max_scenarios: int = 10_000_000
     sweep_max_grid_values: int = 10_000  # per varied input
     sweep_answer_at_once: int = 20_000  # larger sweeps run in the background (202)
+    sweep_heartbeat_seconds: float = 5.0  # a background sweep's runner says it is alive this often
+    sweep_stale_after_seconds: float = 15.0  # and another process takes it over after this long without
     fleet_max_cells: int = 50_000_000  # candidate sizes × samples × months in one plan
     max_body_bytes: int = 1024 * 1024
     request_timeout_seconds: float = 30.0  # until a response starts; streamed CSV may run longer

@@ -25,7 +25,8 @@ from service.storage.engine import build_engine
 from service.storage.migrate import upgrade
 from service.storage.repository import Storage
 from service.usecases.catalogs import ParsedCatalogs, load_demo_catalog
-from service.usecases.sweeps import SweepRunner
+from service.usecases.idempotency import release_dead_claims
+from service.usecases.sweeps import RunnerTiming, SweepRunner
 
 log = logging.getLogger("berth")
 
@@ -49,9 +50,12 @@ def prepare(app: FastAPI) -> None:
     if app.state.local_mode.active():
         log.warning("local mode: no API keys are configured, so berth answers loopback callers only; "
                     "issue keys with `berth keys add --role ROLE --team TEAM`")
+    released = release_dead_claims(storage)
+    if released:
+        log.info("released %d Idempotency-Key claims of processes that are gone", released)
     resumed = app.state.sweeps.resume()
     if resumed:
-        log.info("resumed %d unfinished sweeps", resumed)
+        log.info("%d unfinished sweeps to take up", resumed)
 
 
 def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime] = utc_now) -> FastAPI:
@@ -75,7 +79,9 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     problems.install(app)
     install_metrics(app)
     app.state.sweeps = SweepRunner(app.state.storage, app.state.catalogs, clock,
-                                   count_scenarios=app.state.metrics.sweep_scenarios.inc)
+                                   count_scenarios=app.state.metrics.sweep_scenarios.inc,
+                                   timing=RunnerTiming(heartbeat_seconds=settings.sweep_heartbeat_seconds,
+                                                       stale_after_seconds=settings.sweep_stale_after_seconds))
     # Outermost first: every response carries a request id, then time and size limits apply, and
     # innermost HEAD becomes GET.
     app.add_middleware(HeadAsGet)

@@ -5,7 +5,7 @@ import base64
 import binascii
 import json
 import uuid
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
@@ -19,7 +19,15 @@ from sqlmodel import Session, col, select
 from service.errors import FieldProblem, InvalidInput, Unavailable
 from service.storage.engine import READ_ONLY
 from service.storage.gate import COMMIT_GATE
-from service.storage.tables import ApiKeyRow, CatalogRow, FleetPlanRow, IdempotencyRow, QuoteRow, SweepRow
+from service.storage.tables import (
+    ApiKeyRow,
+    CatalogRow,
+    FleetPlanRow,
+    IdempotencyRow,
+    QuoteRow,
+    StorageProbeRow,
+    SweepRow,
+)
 
 
 def utc(moment: datetime) -> datetime:
@@ -230,7 +238,7 @@ class Repository:
 
     # idempotency keys
     def claim_key(self, *, caller: str, key: str, body_hash: str, now: datetime, lease: timedelta,
-                  keep: timedelta) -> Claim:
+                  keep: timedelta, holder: str | None = None) -> Claim:
         """Claim a key for a request, or say what it already holds. An expired key, or a claim whose
         lease ran out (its request died), is taken over."""
         row = self.session.exec(
@@ -251,7 +259,7 @@ class Repository:
         try:
             with self.session.begin_nested():
                 self.session.add(IdempotencyRow(caller=caller, key=key, body_hash=body_hash, state="in_flight",
-                                                claimed_at=now, expires_at=now + keep))
+                                                claimed_at=now, expires_at=now + keep, holder=holder))
         except IntegrityError:
             # Another replica claimed it between our read and our write; its claim is committed now.
             winner = self.session.exec(
@@ -276,6 +284,20 @@ class Repository:
             col(IdempotencyRow.caller) == caller, col(IdempotencyRow.key) == key,
             col(IdempotencyRow.state) == "in_flight"))
 
+    def claim_holders(self) -> list[str]:
+        """The processes holding claims in flight."""
+        query = select(IdempotencyRow.holder).where(col(IdempotencyRow.state) == "in_flight",
+                                                    col(IdempotencyRow.holder).is_not(None)).distinct()
+        return [holder for holder in self.session.exec(query).all() if holder is not None]
+
+    def release_claims_of(self, holders: list[str]) -> int:
+        """Forget the claims in flight of processes that are gone, so their retries run at once."""
+        if not holders:
+            return 0
+        result = self.session.execute(delete(IdempotencyRow).where(
+            col(IdempotencyRow.state) == "in_flight", col(IdempotencyRow.holder).in_(holders)))
+        return int(getattr(result, "rowcount", 0))
+
     # sweeps
     def add_sweep(self, *, sweep_id: str, created_at: datetime, catalog_id: str, status: str, total: int,
                   request: dict[str, Any], result: dict[str, Any] | None = None) -> None:
@@ -291,38 +313,58 @@ class Repository:
         row = self.session.get(SweepRow, sweep_id)
         return None if row is None else _sweep(row)
 
-    def update_sweep(self, sweep_id: str, *, status: str, done: int, result: dict[str, Any] | None = None,
-                     error: str | None = None, finished_at: datetime | None = None,
-                     heartbeat: datetime | None = None) -> None:
-        row = self.session.get(SweepRow, sweep_id)
-        if row is None:
-            return
-        row.status, row.scenarios_done = status, done
-        if heartbeat is not None:
-            row.heartbeat_at = heartbeat
-        if result is not None:
-            row.result = as_text(result)
-        if error is not None:
-            row.error = error
-        if finished_at is not None:
-            row.finished_at = finished_at
-        self.session.add(row)
-        self.session.flush()
-
-    def claim_sweep(self, sweep_id: str, *, now: datetime, stale_after: timedelta) -> bool:
-        """Take a queued sweep, or one whose runner stopped beating, for this process. Exactly one
-        replica wins: the update is conditional and atomic."""
+    def claim_sweep(self, sweep_id: str, *, runner: str, now: datetime, stale_after: timedelta,
+                    dead_runners: Sequence[str] = ()) -> bool:
+        """Take a queued sweep, or a running one whose runner stopped beating or is known dead, for
+        `runner`. Exactly one process wins: the update is conditional and atomic."""
+        taken_over = col(SweepRow.heartbeat_at) < now - stale_after
+        if dead_runners:
+            taken_over = or_(taken_over, col(SweepRow.runner).in_(list(dead_runners)))
         result = self.session.execute(
             update(SweepRow)
             .where(col(SweepRow.id) == sweep_id)
-            .where(or_(col(SweepRow.status) == "queued",
-                       and_(col(SweepRow.status) == "running", col(SweepRow.heartbeat_at) < now - stale_after)))
-            .values(status="running", heartbeat_at=now, scenarios_done=0))
+            .where(or_(col(SweepRow.status) == "queued", and_(col(SweepRow.status) == "running", taken_over)))
+            .values(status="running", runner=runner, heartbeat_at=now, scenarios_done=0))
         return bool(getattr(result, "rowcount", 0) == 1)
 
-    def unfinished_sweeps(self) -> list[StoredSweep]:
-        query = select(SweepRow).where(col(SweepRow.status).in_(("queued", "running")))
-        return [_sweep(r) for r in self.session.exec(query.order_by(col(SweepRow.created_at))).all()]
+    def beat_sweep(self, sweep_id: str, *, runner: str, now: datetime, done: int | None = None) -> bool:
+        """The runner is alive (and how far it got): False when the sweep is no longer its own to run
+        (cancelled, or taken over after it stopped beating)."""
+        values: dict[str, Any] = {"heartbeat_at": now}
+        if done is not None:
+            values["scenarios_done"] = done
+        return self._update_own_sweep(sweep_id, runner, values)
+
+    def finish_sweep(self, sweep_id: str, *, runner: str, status: str, done: int, finished_at: datetime,
+                     result: dict[str, Any] | None = None, error: str | None = None) -> bool:
+        return self._update_own_sweep(sweep_id, runner, {
+            "status": status, "scenarios_done": done, "finished_at": finished_at, "runner": None,
+            "result": None if result is None else as_text(result), "error": error})
+
+    def hand_back_sweep(self, sweep_id: str, *, runner: str) -> bool:
+        """Queue a running sweep again, for any process to take up (this one is stopping)."""
+        return self._update_own_sweep(sweep_id, runner, {
+            "status": "queued", "runner": None, "heartbeat_at": None, "scenarios_done": 0})
+
+    def _update_own_sweep(self, sweep_id: str, runner: str, values: dict[str, Any]) -> bool:
+        result = self.session.execute(
+            update(SweepRow).where(col(SweepRow.id) == sweep_id, col(SweepRow.runner) == runner,
+                                   col(SweepRow.status) == "running").values(**values))
+        return bool(getattr(result, "rowcount", 0) == 1)
+
+    def cancel_sweep(self, sweep_id: str, *, now: datetime) -> bool:
+        """Cancel a queued or running sweep; whatever it computed so far is dropped."""
+        result = self.session.execute(
+            update(SweepRow).where(col(SweepRow.id) == sweep_id, col(SweepRow.status).in_(("queued", "running")))
+            .values(status="cancelled", finished_at=now, runner=None, result=None))
+        return bool(getattr(result, "rowcount", 0) == 1)
+
+    def unfinished_sweeps(self) -> list[tuple[str, str, str | None, datetime | None]]:
+        """(id, status, runner, heartbeat) of every queued or running sweep, oldest first."""
+        query = (select(SweepRow.id, SweepRow.status, SweepRow.runner, SweepRow.heartbeat_at)
+                 .where(col(SweepRow.status).in_(("queued", "running"))).order_by(col(SweepRow.created_at)))
+        return [(row[0], row[1], row[2], None if row[3] is None else utc(row[3]))
+                for row in self.session.exec(query).all()]
 
     # fleet plans
     def add_fleet_plan(self, *, plan_id: str, created_at: datetime, catalog_id: str, request: dict[str, Any],
@@ -368,6 +410,11 @@ class Repository:
 
     def ping(self) -> None:
         self.session.execute(text("SELECT 1"))
+
+    def write_probe(self, *, holder: str, now: datetime) -> None:
+        """A small real write, to learn whether the storage takes writes again."""
+        self.session.merge(StorageProbeRow(holder=holder, written_at=now))
+        self.session.flush()
 
 
 def _page(rows: list[Any], limit: int) -> tuple[list[Any], str | None]:

@@ -21,7 +21,15 @@ from service.api.problems import CONFLICT, PROBLEM_RESPONSES
 from service.api.responses import created_response
 from service.contract.sweep import SweepIn
 from service.usecases.idempotency import Created, KeepAnswer, once_per_key
-from service.usecases.sweeps import SweepLimits, SweepRunner, csv_chunks, get_sweep, prepared_from_store, submit_sweep
+from service.usecases.sweeps import (
+    SweepLimits,
+    SweepRunner,
+    cancel_sweep,
+    csv_chunks,
+    get_sweep,
+    prepared_from_store,
+    submit_sweep,
+)
 
 router = APIRouter(prefix="/v1/sweeps", tags=["sweeps"])
 
@@ -62,6 +70,15 @@ def post_sweep(request: Request, payload: SweepIn, raw: RawBodyDep, storage: Sto
 def read_sweep(sweep_id: SweepIdPath, storage: StorageDep, _analyst: Analyst) -> dict[str, Any]:
     """Status, progress and, once done, the summary, tornado and (for small sweeps) the rows."""
     return get_sweep(storage, sweep_id)
+
+
+@router.delete("/{sweep_id}", responses={**PROBLEM_RESPONSES, 409: CONFLICT[409] | {
+    "description": "the sweep has already finished (done or failed)"}})
+def delete_sweep(sweep_id: SweepIdPath, storage: StorageDep, clock: ClockDep, _analyst: Analyst) -> dict[str, Any]:
+    """Cancel a queued or running sweep. Its status becomes `cancelled` at once and the scenarios it
+    evaluated so far are dropped (`result` stays null; `progress` says how far it got); the process
+    running it stops within a heartbeat. Cancelling again answers the same; a finished sweep is a 409."""
+    return cancel_sweep(storage, sweep_id, now=clock())
 
 
 @router.get("/{sweep_id}/rows.csv", response_class=StreamingResponse, responses={
