@@ -9,13 +9,14 @@ from typing import Any
 
 from fastapi import FastAPI
 from fastapi.openapi.utils import get_openapi
+from uvicorn.middleware.proxy_headers import ProxyHeadersMiddleware
 
 from service import __version__
 from service.api import problems
-from service.api.auth import LocalMode, RateLimiter
+from service.api.auth import KeylessOnNetwork, LocalMode, RateLimiter, is_loopback_host
 from service.api.deps import compute_lane, utc_now
 from service.api.examples import quote_request_examples
-from service.api.middleware import BodyLimit, HeadAsGet, RequestContext, TimeLimit
+from service.api.middleware import BodyLimit, HeadAsGet, RequestContext, SocketPeer, TimeLimit
 from service.api.observability import install_metrics
 from service.api.routers import catalogs, fleet_plans, probes, quotes, sweeps
 from service.config import Settings
@@ -48,6 +49,11 @@ def prepare(app: FastAPI) -> None:
         if loaded is not None:
             log.info("loaded the demo catalog %s as %s", loaded.name, loaded.id)
     if app.state.local_mode.active():
+        if not is_loopback_host(settings.host) and not settings.allow_keyless_on_network:
+            raise KeylessOnNetwork(
+                f"no API keys are configured and berth would listen on {settings.host}: issue keys first "
+                "(`berth keys add --role ROLE --team TEAM`), listen on 127.0.0.1, or set "
+                "BERTH_ALLOW_KEYLESS_ON_NETWORK=true (local mode still answers loopback callers only)")
         log.warning("local mode: no API keys are configured, so berth answers loopback callers only; "
                     "issue keys with `berth keys add --role ROLE --team TEAM`")
     released = release_dead_claims(storage)
@@ -70,12 +76,14 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
 
     app = FastAPI(title="berth", version=__version__, description=DESCRIPTION, lifespan=lifespan)
     app.state.settings = settings
-    app.state.storage = Storage(build_engine(settings.database_url))
+    app.state.storage = Storage(build_engine(settings.database_url, file_mode=int(settings.sqlite_file_mode, 8)))
     app.state.catalogs = ParsedCatalogs()
     app.state.clock = clock
     app.state.compute_lane = compute_lane()
     app.state.local_mode = LocalMode(app.state.storage)
     app.state.rate_limiter = RateLimiter(per_second=settings.rate_limit_per_second, burst=settings.rate_limit_burst)
+    app.state.failure_limiter = RateLimiter(per_second=settings.auth_failures_per_minute / 60.0,
+                                            burst=settings.auth_failure_burst, remember=settings.auth_failure_addresses)
     problems.install(app)
     install_metrics(app)
     app.state.sweeps = SweepRunner(app.state.storage, app.state.catalogs, clock,
@@ -88,6 +96,10 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     app.add_middleware(TimeLimit, seconds=settings.request_timeout_seconds)
     app.add_middleware(RequestContext)
+    # Outermost: the client's address from a trusted proxy's X-Forwarded-For, with the socket's own
+    # peer kept beside it for local mode, which never believes a header.
+    app.add_middleware(ProxyHeadersMiddleware, trusted_hosts=settings.forwarded_allow_ips)
+    app.add_middleware(SocketPeer)
     app.include_router(probes.router)
     for router in (catalogs.router, quotes.router, sweeps.router, fleet_plans.router):
         app.include_router(router, responses=problems.ACCESS_RESPONSES)

@@ -78,6 +78,22 @@ class RequestContext:
             REQUEST_ID.reset(token)
 
 
+SOCKET_PEER = "berth.socket_peer"
+
+
+class SocketPeer:
+    """Keeps the address of the socket's other end in the scope, before any proxy header rewrites
+    `client`: local mode judges that, and only that."""
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] in ("http", "websocket"):
+            scope[SOCKET_PEER] = scope.get("client")
+        await self.app(scope, receive, send)
+
+
 class HeadAsGet:
     """Answers HEAD as the same GET without its body: the same status and header fields, Content-Length
     included (RFC 9110 §9.3.2, which also says every general-purpose server supports HEAD)."""

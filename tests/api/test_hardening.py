@@ -5,9 +5,11 @@ import copy
 import io
 import json
 import logging
+import stat
 import threading
 from collections.abc import AsyncIterator, Callable, Iterator
 from contextlib import asynccontextmanager
+from pathlib import Path
 from typing import Any
 
 import anyio
@@ -18,13 +20,16 @@ from sqlalchemy import text
 
 import service.api.routers.quotes
 from service.api.app import create_app, prepare
+from service.api.auth import RateLimiter
 from service.api.observability import JsonFormatter
 from service.config import Settings
 from service.reports import breakeven_svg, render_report
 from service.storage.gate import CommitGate
 from service.storage.repository import Storage
+from service.usecases.access import issue_key
 from tests.api.conftest import FakeClock
 from tests.api.problems import problem_of
+from tests.api.test_access import recheck_keys
 from tests.conftest import load_example
 
 pytestmark = pytest.mark.anyio
@@ -325,3 +330,60 @@ async def test_row_11_an_unexpected_error_is_a_500_with_the_request_id_on_the_an
     assert lines and all(line["request_id"] == "boom-1" for line in lines)
     assert any("RuntimeError" in line.get("error", "") for line in lines), lines
     assert (await client.get("/healthz")).status_code == 200
+
+
+# Unknown API keys are limited per client address, in bounded memory.
+
+async def test_unknown_keys_from_one_address_are_limited_and_other_addresses_are_not(
+    database_url: str, clock: FakeClock
+) -> None:
+    app = create_app(Settings(database_url=database_url, auth_failure_burst=5, auth_failures_per_minute=1),
+                     clock=clock)
+    prepare(app)
+    storage: Storage = app.state.storage
+    _, key = issue_key(storage, role="analyst", team="pricing", now=clock())
+    recheck_keys(app)
+    wrong = {"Authorization": "Bearer berth_" + "x" * 43}
+
+    def client_at(address: str) -> httpx.AsyncClient:
+        transport = httpx.ASGITransport(app=app, client=(address, 40_000))
+        return httpx.AsyncClient(transport=transport, base_url="http://berth.test")
+
+    try:
+        async with client_at("198.51.100.7") as attacker, client_at("198.51.100.8") as neighbour:
+            for _ in range(5):
+                assert (await attacker.get("/v1/catalogs", headers=wrong)).status_code == 401
+            limited = await attacker.get("/v1/catalogs", headers=wrong)
+            problem_of(limited, 429)
+            assert 1 <= int(limited.headers["retry-after"]) <= 60
+            assert (await neighbour.get("/v1/catalogs", headers=wrong)).status_code == 401
+            good = {"Authorization": f"Bearer {key}"}
+            assert (await neighbour.get("/v1/catalogs", headers=good)).status_code == 200
+            assert (await attacker.get("/healthz")).status_code == 200  # probes are outside every limit
+    finally:
+        storage.dispose()
+
+
+def test_the_failure_limiter_forgets_the_least_recent_address_beyond_its_bound() -> None:
+    limiter = RateLimiter(per_second=1e-6, burst=1, remember=3)
+    assert limiter.retry_after("a") == 0 and limiter.retry_after("a") > 0
+    for other in ("b", "c", "d"):
+        limiter.retry_after(other)
+    assert limiter.retry_after("a") == 0  # forgotten: a fresh bucket, and memory stayed at three
+
+
+# The SQLite file is readable by its owner only, unless configured.
+
+@pytest.mark.parametrize(("configured", "expected"), [(None, 0o600), ("640", 0o640)])
+def test_the_sqlite_file_is_created_owner_only_unless_configured(
+    tmp_path: Path, configured: str | None, expected: int
+) -> None:
+    path = tmp_path / "fresh" / "berth.db"
+    extra = {} if configured is None else {"sqlite_file_mode": configured}
+    app = create_app(Settings(database_url=f"sqlite:///{path}", **extra))
+    prepare(app)  # migrated and the demo catalog written: the WAL exists too
+    try:
+        for file in (path, path.with_name("berth.db-wal")):
+            assert stat.S_IMODE(file.stat().st_mode) == expected, file
+    finally:
+        app.state.storage.dispose()

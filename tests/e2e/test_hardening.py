@@ -3,7 +3,13 @@ that outlive their process (row 1), memory and probes under load (row 3), local 
 (row 5), stalled connections (row 6), a full disk (row 12), and claims of a killed process (row 13).
 The in-process rows are in tests/api/test_hardening.py."""
 
+import ipaddress
+import os
+import resource
+import socket
 import sqlite3
+import subprocess
+import sys
 import time
 from contextlib import closing
 from pathlib import Path
@@ -13,7 +19,7 @@ import httpx
 import pytest
 
 from tests.conftest import load_example
-from tests.e2e.conftest import BerthServer, ServerFactory
+from tests.e2e.conftest import REPO_ROOT, BerthServer, ServerFactory, free_port
 
 pytestmark = pytest.mark.e2e
 
@@ -133,3 +139,91 @@ def test_row_13_a_retry_after_sigkill_with_the_same_key_runs_at_once(
         retried = client.post("/v1/sweeps", json=monte_carlo(1_500_000), headers=headers)  # not a 409
         assert retried.status_code == 201, retried.text
         assert client.post("/v1/sweeps", json=monte_carlo(1_500_000), headers=headers).json() == retried.json()
+
+
+# Row 5: local mode judges the socket's peer, never a forwarded header; keyless on the network refused.
+
+def non_loopback_address() -> str | None:
+    """An address of this machine that is not loopback, to call the server as a remote caller would."""
+    try:
+        infos = socket.getaddrinfo(socket.gethostname(), None, socket.AF_INET)
+    except OSError:
+        infos = []
+    candidates = [info[4][0] for info in infos]
+    with closing(socket.socket(socket.AF_INET, socket.SOCK_DGRAM)) as probe:
+        try:
+            probe.connect(("192.0.2.1", 9))  # no packet is sent: this only picks the outgoing address
+            candidates.append(probe.getsockname()[0])
+        except OSError:
+            pass
+    return next((a for a in candidates if not ipaddress.ip_address(a).is_loopback), None)
+
+
+def test_row_5_a_remote_caller_forwarding_127_0_0_1_is_refused_in_local_mode(
+    berth_factory: ServerFactory, database: Path
+) -> None:
+    address = non_loopback_address()
+    if address is None:
+        pytest.skip("this machine has no non-loopback IPv4 address to call from")
+    # Behind a proxy trusted for every address, keyless, explicitly allowed on the network.
+    env = {"BERTH_ALLOW_KEYLESS_ON_NETWORK": "true", "BERTH_FORWARDED_ALLOW_IPS": "*"}
+    server = berth_factory(database, env=env, host="0.0.0.0")
+    remote = f"http://{address}:{server.port}"
+    spoofed = httpx.get(f"{remote}/v1/quotes", headers={"X-Forwarded-For": "127.0.0.1"}, timeout=10.0)
+    assert spoofed.status_code == 403, spoofed.text
+    assert httpx.get(f"{remote}/v1/quotes", timeout=10.0).status_code == 403
+    assert httpx.get(f"{server.url}/v1/quotes", timeout=10.0).status_code == 200  # the socket is loopback
+    assert httpx.get(f"{remote}/healthz", timeout=10.0).status_code == 200
+
+
+def test_row_5_berth_refuses_to_start_keyless_on_a_non_loopback_address(tmp_path: Path) -> None:
+    env = {k: v for k, v in os.environ.items() if not k.startswith("BERTH_")}
+    env.update(BERTH_HOST="0.0.0.0", BERTH_PORT=str(free_port()),
+               BERTH_DATABASE_URL=f"sqlite:///{tmp_path / 'berth.db'}")
+    finished = subprocess.run([sys.executable, "-m", "service.cli", "serve"], env=env, cwd=REPO_ROOT,
+                              capture_output=True, text=True, timeout=60, check=False)
+    assert finished.returncode != 0
+    assert "BERTH_ALLOW_KEYLESS_ON_NETWORK" in finished.stderr
+    assert "berth keys add" in finished.stderr
+
+
+# Row 6: connections that stall mid-headers are closed, and probes answer meanwhile.
+
+def _low_descriptor_limit() -> None:
+    _soft, hard = resource.getrlimit(resource.RLIMIT_NOFILE)
+    resource.setrlimit(resource.RLIMIT_NOFILE, (1024, hard))
+
+
+def test_row_6_two_thousand_stalled_connections_are_closed_and_probes_answer_meanwhile(
+    berth_factory: ServerFactory, database: Path
+) -> None:
+    soft, hard = resource.getrlimit(resource.RLIMIT_NOFILE)
+    if hard < 4_500:
+        pytest.skip(f"the hard limit on open files is {hard}; the test needs 4,500")
+    resource.setrlimit(resource.RLIMIT_NOFILE, (hard, hard))
+    stalled: list[socket.socket] = []
+    try:
+        server = berth_factory(database, env={"BERTH_HEADER_TIMEOUT_SECONDS": "4"}, preexec=_low_descriptor_limit)
+        for _ in range(2_000):
+            connection = socket.create_connection(("127.0.0.1", server.port), timeout=10.0)
+            connection.sendall(b"GET /healthz HTTP/1.1\r\nHost: berth\r\nX-Stalled: ")  # never finished
+            stalled.append(connection)
+        with httpx.Client(base_url=server.url, timeout=5.0) as client:
+            for _ in range(5):
+                started = time.monotonic()
+                assert client.get("/healthz").status_code == 200
+                assert client.get("/readyz").status_code == 200
+                assert time.monotonic() - started < 2.0
+        time.sleep(5.0)
+        closed = 0
+        for connection in stalled:
+            connection.settimeout(10.0)
+            try:
+                closed += connection.recv(1) == b""
+            except ConnectionResetError:
+                closed += 1
+        assert closed == len(stalled)
+    finally:
+        for connection in stalled:
+            connection.close()
+        resource.setrlimit(resource.RLIMIT_NOFILE, (soft, hard))
