@@ -7,6 +7,7 @@ from contextlib import asynccontextmanager
 from datetime import datetime
 from typing import Any
 
+from anyio import CapacityLimiter
 from fastapi import FastAPI
 from fastapi.openapi.utils import get_openapi
 from uvicorn.middleware.proxy_headers import ProxyHeadersMiddleware
@@ -80,6 +81,7 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     app.state.catalogs = ParsedCatalogs()
     app.state.clock = clock
     app.state.compute_lane = compute_lane()
+    app.state.probe_lane = CapacityLimiter(2)  # /readyz never queues behind requests for a thread
     app.state.local_mode = LocalMode(app.state.storage)
     app.state.rate_limiter = RateLimiter(per_second=settings.rate_limit_per_second, burst=settings.rate_limit_burst)
     app.state.failure_limiter = RateLimiter(per_second=settings.auth_failures_per_minute / 60.0,

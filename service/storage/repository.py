@@ -13,10 +13,10 @@ from typing import Any
 
 import orjson
 from sqlalchemy import Engine, and_, delete, func, or_, text, update
-from sqlalchemy.exc import IntegrityError
+from sqlalchemy.exc import DBAPIError, IntegrityError
 from sqlmodel import Session, col, select
 
-from service.errors import FieldProblem, InvalidInput, Unavailable
+from service.errors import FieldProblem, InvalidInput, StorageFull, Unavailable
 from service.storage.engine import READ_ONLY
 from service.storage.gate import COMMIT_GATE
 from service.storage.tables import (
@@ -413,7 +413,7 @@ class Repository:
 
     def write_probe(self, *, holder: str, now: datetime) -> None:
         """A small real write, to learn whether the storage takes writes again."""
-        self.session.merge(StorageProbeRow(holder=holder, written_at=now))
+        self.session.merge(StorageProbeRow(holder=holder, written_at=now, filler="-" * PROBE_BYTES))
         self.session.flush()
 
 
@@ -424,11 +424,26 @@ def _page(rows: list[Any], limit: int) -> tuple[list[Any], str | None]:
     return rows[:limit], encode_cursor(last.created_at, last.id)
 
 
+def out_of_space(error: DBAPIError) -> bool:
+    """Whether a database error says the disk (or the database's quota) is full: SQLite's SQLITE_FULL,
+    PostgreSQL's disk_full (53100), or ENOSPC from below either."""
+    original = error.orig
+    if getattr(original, "sqlite_errorcode", None) == SQLITE_FULL or getattr(original, "sqlstate", None) == "53100":
+        return True
+    message = str(original).lower()
+    return "database or disk is full" in message or "no space left on device" in message
+
+
+SQLITE_FULL = 13
+PROBE_BYTES = 128 * 1024  # a write as large as a large quote
+
+
 class Storage:
     """The engine and units of work over it."""
 
     def __init__(self, engine: Engine) -> None:
         self.engine = engine
+        self.full = False  # the last write failed for want of space; the next that succeeds clears it
 
     @contextmanager
     def writing(self, *, claim: bool = False, gated: bool = True) -> Iterator[Repository]:
@@ -438,21 +453,28 @@ class Storage:
         for the clean-up after a failure, which must go through."""
         gate = COMMIT_GATE.get() if gated else None
         with Session(self.engine, expire_on_commit=False) as session:
-            transaction = session.begin()
             try:
-                yield Repository(session)
-                if gate is not None and not gate.enter():
-                    raise Unavailable("the request took longer than its time limit; nothing was stored")
-            except BaseException:
-                transaction.rollback()
-                raise
-            committed = False
-            try:
-                transaction.commit()
-                committed = True
-            finally:
-                if gate is not None:
-                    gate.leave(final=committed and not claim)
+                transaction = session.begin()
+                try:
+                    yield Repository(session)
+                    if gate is not None and not gate.enter():
+                        raise Unavailable("the request took longer than its time limit; nothing was stored")
+                except BaseException:
+                    transaction.rollback()
+                    raise
+                committed = False
+                try:
+                    transaction.commit()
+                    committed = True
+                finally:
+                    if gate is not None:
+                        gate.leave(final=committed and not claim)
+            except DBAPIError as error:
+                if not out_of_space(error):
+                    raise
+                self.full = True
+                raise StorageFull from error
+        self.full = False
 
     @contextmanager
     def reading(self) -> Iterator[Repository]:

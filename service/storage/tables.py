@@ -101,10 +101,11 @@ class ApiKeyRow(SQLModel, table=True):
 
 
 class StorageProbeRow(SQLModel, table=True):
-    """One row per process, rewritten by /readyz after a write failed for want of space: the service is
-    ready again once this small write commits."""
+    """One row per process, rewritten by /readyz after a write failed for want of space, with a filler
+    the size of a large quote: the service is ready again once such a write commits."""
 
     __tablename__ = "storage_probe"
 
     holder: str = Field(primary_key=True, max_length=120)
     written_at: datetime = Field(sa_column=_utc_column())
+    filler: str = Field(sa_column=Column(Text, nullable=False))

@@ -16,7 +16,7 @@ import anyio
 import httpx
 import pytest
 from fastapi import FastAPI
-from sqlalchemy import text
+from sqlalchemy import event, text
 
 import service.api.routers.quotes
 from service.api.app import create_app, prepare
@@ -31,6 +31,7 @@ from tests.api.conftest import FakeClock
 from tests.api.problems import problem_of
 from tests.api.test_access import recheck_keys
 from tests.conftest import load_example
+from tests.databases import sqlite_only
 
 pytestmark = pytest.mark.anyio
 
@@ -387,3 +388,41 @@ def test_the_sqlite_file_is_created_owner_only_unless_configured(
             assert stat.S_IMODE(file.stat().st_mode) == expected, file
     finally:
         app.state.storage.dispose()
+
+
+# Row 12 (in-process; tests/e2e fills a real file system): a full database is a 503 saying so, and
+# the service is not ready until writes succeed again.
+
+@sqlite_only
+async def test_row_12_a_full_database_is_a_503_and_not_ready_until_writes_succeed(
+    app: FastAPI, client: httpx.AsyncClient, storage: Storage, owned_wins_request: dict[str, Any]
+) -> None:
+    with storage.engine.connect() as connection:
+        pages = int(connection.exec_driver_sql("PRAGMA page_count").scalar_one())
+
+    def cap(dbapi_connection: Any, _record: Any) -> None:
+        # SQLite's own page quota: past it, writes fail with SQLITE_FULL exactly as on a full disk.
+        dbapi_connection.execute(f"PRAGMA max_page_count = {pages + 8}")
+
+    event.listen(storage.engine, "connect", cap)
+    storage.engine.dispose()
+    accepted, refused = 0, None
+    for _ in range(200):
+        response = await client.post("/v1/quotes", json=owned_wins_request)
+        if response.status_code != 201:
+            refused = response
+            break
+        accepted += 1
+    assert refused is not None, "the capped database never filled"
+    problem = problem_of(refused, 503)
+    assert problem["title"] == "Storage full" and "nothing was stored" in problem["detail"]
+    assert refused.headers["retry-after"] == "30"
+    readiness = await client.get("/readyz")
+    assert readiness.status_code == 503 and readiness.json()["checks"]["storage"] == "full"
+    event.remove(storage.engine, "connect", cap)
+    storage.engine.dispose()
+    readiness = await client.get("/readyz")
+    assert readiness.status_code == 200, readiness.text
+    assert count(storage, "quote") == accepted
+    with storage.engine.connect() as connection:
+        assert connection.exec_driver_sql("PRAGMA integrity_check").scalar_one() == "ok"

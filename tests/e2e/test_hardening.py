@@ -11,6 +11,7 @@ import sqlite3
 import subprocess
 import sys
 import time
+from collections.abc import Iterator
 from contextlib import closing
 from pathlib import Path
 from typing import Any
@@ -227,3 +228,57 @@ def test_row_6_two_thousand_stalled_connections_are_closed_and_probes_answer_mea
         for connection in stalled:
             connection.close()
         resource.setrlimit(resource.RLIMIT_NOFILE, (soft, hard))
+
+
+# Row 12: the disk fills under a real server.
+
+@pytest.fixture
+def small_disk(tmp_path: Path) -> Iterator[Path]:
+    """A 16 MiB tmpfs of its own (needs root or CAP_SYS_ADMIN: skipped where mounting is not allowed)."""
+    mount_point = tmp_path / "disk"
+    mount_point.mkdir()
+    mounted = subprocess.run(["mount", "-t", "tmpfs", "-o", "size=16m,mode=0700", "tmpfs", str(mount_point)],
+                             capture_output=True, text=True, check=False)
+    if mounted.returncode != 0:
+        pytest.skip(f"cannot mount a small file system here: {mounted.stderr.strip()}")
+    try:
+        yield mount_point
+    finally:
+        subprocess.run(["umount", "-l", str(mount_point)], check=False)
+
+
+def test_row_12_a_full_disk_is_a_503_not_ready_until_writes_succeed_and_nothing_is_corrupted(
+    berth_factory: ServerFactory, small_disk: Path
+) -> None:
+    database = small_disk / "berth.db"
+    server = berth_factory(database)
+    filler = small_disk / "filler"
+    free = os.statvfs(small_disk).f_bavail * os.statvfs(small_disk).f_frsize
+    filler.write_bytes(b"\0" * max(0, free - 1024 * 1024))  # about 1 MiB left for the database
+    body = load_example("campaign-owned-wins.json")
+    accepted: list[str] = []
+    refused = None
+    with httpx.Client(base_url=server.url, timeout=30.0) as client:
+        for index in range(400):
+            body["campaign"]["name"] = f"fill-{index:04d}"
+            response = client.post("/v1/quotes", json=body)
+            if response.status_code != 201:
+                refused = response
+                break
+            accepted.append(response.json()["id"])
+        assert refused is not None, "the disk never filled"
+        assert refused.status_code == 503, refused.text
+        assert refused.headers["content-type"] == "application/problem+json"
+        assert refused.json()["title"] == "Storage full" and refused.headers["retry-after"].isdigit()
+        not_ready = client.get("/readyz")
+        assert not_ready.status_code == 503 and not_ready.json()["checks"]["storage"] == "full"
+        assert client.get("/healthz").status_code == 200  # alive, only not ready
+        filler.unlink()
+        assert client.get("/readyz").status_code == 200
+        assert client.post("/v1/quotes", json=body).status_code == 201
+        for quote_id in accepted:
+            assert client.get(f"/v1/quotes/{quote_id}").status_code == 200
+    server.stop()
+    with closing(sqlite3.connect(database)) as connection:
+        assert connection.execute("PRAGMA integrity_check").fetchone() == ("ok",)
+        assert connection.execute("SELECT COUNT(*) FROM quote").fetchone() == (len(accepted) + 1,)

@@ -23,6 +23,7 @@ def upgrade() -> None:
     op.create_table('storage_probe',
     sa.Column('holder', sqlmodel.sql.sqltypes.AutoString(length=120), nullable=False),
     sa.Column('written_at', sa.DateTime(timezone=True), nullable=False),
+    sa.Column('filler', sa.Text(), nullable=False),
     sa.PrimaryKeyConstraint('holder')
     )
     with op.batch_alter_table('idempotency_key', schema=None) as batch_op:
