@@ -15,7 +15,7 @@ from uvicorn.middleware.proxy_headers import ProxyHeadersMiddleware
 from service import __version__
 from service.api import problems
 from service.api.auth import KeylessOnNetwork, LocalMode, RateLimiter, is_loopback_host
-from service.api.deps import compute_lane, utc_now
+from service.api.deps import ComputeLane, utc_now
 from service.api.examples import quote_request_examples
 from service.api.middleware import BodyLimit, HeadAsGet, RequestContext, SocketPeer, TimeLimit
 from service.api.observability import install_metrics
@@ -77,10 +77,11 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
 
     app = FastAPI(title="berth", version=__version__, description=DESCRIPTION, lifespan=lifespan)
     app.state.settings = settings
-    app.state.storage = Storage(build_engine(settings.database_url, file_mode=int(settings.sqlite_file_mode, 8)))
+    app.state.storage = Storage(build_engine(settings.database_url, file_mode=int(settings.sqlite_file_mode, 8)),
+                                max_document_bytes=settings.max_document_bytes)
     app.state.catalogs = ParsedCatalogs()
     app.state.clock = clock
-    app.state.compute_lane = compute_lane()
+    app.state.compute_lane = ComputeLane(waiting=settings.compute_queue_max)
     app.state.probe_lane = CapacityLimiter(2)  # /readyz never queues behind requests for a thread
     app.state.local_mode = LocalMode(app.state.storage)
     app.state.rate_limiter = RateLimiter(per_second=settings.rate_limit_per_second, burst=settings.rate_limit_burst)

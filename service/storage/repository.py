@@ -29,6 +29,8 @@ from service.storage.tables import (
     SweepRow,
 )
 
+DOCUMENT_BYTES = 16 * 1024 * 1024  # the default limit on one stored answer
+
 
 def utc(moment: datetime) -> datetime:
     """SQLite hands datetimes back without a zone; every stored moment is UTC."""
@@ -161,8 +163,19 @@ def decode_cursor(cursor: str) -> tuple[datetime, str]:
 class Repository:
     """Queries over one session; the unit of work around it commits."""
 
-    def __init__(self, session: Session) -> None:
+    def __init__(self, session: Session, *, max_document_bytes: int = DOCUMENT_BYTES) -> None:
         self.session = session
+        self.max_document_bytes = max_document_bytes
+
+    def _answer(self, document: Any) -> str:
+        """An answer as stored text, refused when it is larger than one row may be (what is stored is
+        also what is answered and read back into memory, whole)."""
+        stored = as_text(document)
+        if len(stored) > self.max_document_bytes:
+            raise InvalidInput("the answer is too large to keep", [FieldProblem(
+                "(body)", f"its {len(stored):,} bytes exceed the limit of {self.max_document_bytes:,} per answer; "
+                          "ask for less (fewer candidate sizes, samples or scenarios)")])
+        return stored
 
     # catalogs
     def catalog_by_hash(self, content_hash: str) -> StoredCatalog | None:
@@ -206,7 +219,7 @@ class Repository:
         self.session.add(QuoteRow(
             id=quote.id, created_at=quote.created_at, team=quote.team, campaign_name=quote.campaign_name,
             catalog_id=quote.catalog_id, catalog_hash=quote.catalog_hash, model_version=quote.model_version,
-            request=as_text(quote.request, sort_keys=True), response=as_text(quote.response)))
+            request=as_text(quote.request, sort_keys=True), response=self._answer(quote.response)))
         self.session.flush()
 
     def quote(self, quote_id: str) -> StoredQuote | None:
@@ -274,7 +287,7 @@ class Repository:
         ).first()
         if row is not None:
             record = row
-            record.state, record.status_code, record.response = "done", status_code, as_text(response)
+            record.state, record.status_code, record.response = "done", status_code, self._answer(response)
             self.session.add(record)
             self.session.flush()
 
@@ -305,7 +318,7 @@ class Repository:
         self.session.add(SweepRow(id=sweep_id, created_at=created_at, catalog_id=catalog_id, status=status,
                                   scenarios_total=total, scenarios_done=total if result is not None else 0,
                                   request=as_text(request),
-                                  result=None if result is None else as_text(result),
+                                  result=None if result is None else self._answer(result),
                                   finished_at=created_at if result is not None else None))
         self.session.flush()
 
@@ -339,7 +352,7 @@ class Repository:
                      result: dict[str, Any] | None = None, error: str | None = None) -> bool:
         return self._update_own_sweep(sweep_id, runner, {
             "status": status, "scenarios_done": done, "finished_at": finished_at, "runner": None,
-            "result": None if result is None else as_text(result), "error": error})
+            "result": None if result is None else self._answer(result), "error": error})
 
     def hand_back_sweep(self, sweep_id: str, *, runner: str) -> bool:
         """Queue a running sweep again, for any process to take up (this one is stopping)."""
@@ -370,7 +383,7 @@ class Repository:
     def add_fleet_plan(self, *, plan_id: str, created_at: datetime, catalog_id: str, request: dict[str, Any],
                        response: dict[str, Any]) -> None:
         self.session.add(FleetPlanRow(id=plan_id, created_at=created_at, catalog_id=catalog_id,
-                                      request=as_text(request, sort_keys=True), response=as_text(response)))
+                                      request=as_text(request, sort_keys=True), response=self._answer(response)))
         self.session.flush()
 
     def fleet_plan(self, plan_id: str) -> dict[str, Any] | None:
@@ -441,8 +454,9 @@ PROBE_BYTES = 128 * 1024  # a write as large as a large quote
 class Storage:
     """The engine and units of work over it."""
 
-    def __init__(self, engine: Engine) -> None:
+    def __init__(self, engine: Engine, *, max_document_bytes: int = DOCUMENT_BYTES) -> None:
         self.engine = engine
+        self.max_document_bytes = max_document_bytes
         self.full = False  # the last write failed for want of space; the next that succeeds clears it
 
     @contextmanager
@@ -456,7 +470,7 @@ class Storage:
             try:
                 transaction = session.begin()
                 try:
-                    yield Repository(session)
+                    yield Repository(session, max_document_bytes=self.max_document_bytes)
                     if gate is not None and not gate.enter():
                         raise Unavailable("the request took longer than its time limit; nothing was stored")
                 except BaseException:
@@ -480,7 +494,7 @@ class Storage:
     def reading(self) -> Iterator[Repository]:
         with Session(self.engine) as session:
             session.connection(execution_options={READ_ONLY: True})
-            yield Repository(session)
+            yield Repository(session, max_document_bytes=self.max_document_bytes)
 
     def dispose(self) -> None:
         self.engine.dispose()

@@ -30,6 +30,7 @@ QuoteLookup = Callable[[Sequence[str]], list[StoredQuote | None]]
 @dataclass(frozen=True)
 class FleetLimits:
     max_cells: int = 50_000_000  # candidate sizes × samples × months
+    max_candidates: int = 2_000  # candidate sizes, each a row of the answer
 
 
 def _venues(catalog: Catalog, request: FleetPlanIn) -> tuple[Site, Offer]:
@@ -113,6 +114,10 @@ def _demand_from_quotes(request: FleetPlanIn, lookup: QuoteLookup | None) -> np.
 def fleet_plan(catalog_in: CatalogIn, request: FleetPlanIn, *, limits: FleetLimits,
                lookup: QuoteLookup | None = None) -> dict[str, Any]:
     """The plan's answer body (without the stored id)."""
+    if request.candidate_nodes.count > limits.max_candidates:
+        raise InvalidInput("the plan is too large", [FieldProblem(
+            "candidate_nodes", f"{request.candidate_nodes.count:,} candidate sizes exceed the limit of "
+                               f"{limits.max_candidates:,}; widen the step")])
     cells = request.candidate_nodes.count * request.samples * request.horizon_months
     if cells > limits.max_cells:
         raise InvalidInput("the plan is too large", [FieldProblem(

@@ -9,6 +9,7 @@ from service.api.auth import Analyst
 from service.api.deps import (
     CatalogsDep,
     ClockDep,
+    ComputeLaneDep,
     IdempotencyKeyDep,
     PlanIdPath,
     RawBodyDep,
@@ -32,21 +33,24 @@ router = APIRouter(prefix="/v1/fleet-plans", tags=["fleet plans"])
 
 
 @router.post("", status_code=201, responses={**PROBLEM_RESPONSES, **CONFLICT})
-def post_fleet_plan(request: Request, payload: FleetPlanIn, raw: RawBodyDep, storage: StorageDep,
-                    catalogs: CatalogsDep, clock: ClockDep, settings: SettingsDep, caller: Analyst,
-                    idempotency_key: IdempotencyKeyDep = None) -> Response:
+async def post_fleet_plan(request: Request, payload: FleetPlanIn, raw: RawBodyDep, storage: StorageDep,
+                          catalogs: CatalogsDep, clock: ClockDep, settings: SettingsDep, caller: Analyst,
+                          lane: ComputeLaneDep, idempotency_key: IdempotencyKeyDep = None) -> Response:
     """Every candidate fleet size against every demand sample and month at once: present cost
     percentiles per size, the best size, the chance it beats renting everything, and its months.
     The same Idempotency-Key with the same body returns the first answer."""
     def create(keep: KeepAnswer | None) -> Created:
-        created = create_fleet_plan(storage, catalogs, payload, now=clock(),
-                                    limits=FleetLimits(max_cells=settings.fleet_max_cells), keep=keep)
+        limits = FleetLimits(max_cells=settings.fleet_max_cells, max_candidates=settings.fleet_max_candidates)
+        created = create_fleet_plan(storage, catalogs, payload, now=clock(), limits=limits, keep=keep)
         metrics: DomainMetrics = request.app.state.metrics
         metrics.fleet_plans.inc()
         return created
 
-    outcome = once_per_key(storage, caller=caller, key=idempotency_key, body=raw, clock=clock, create=create)
-    return created_response(outcome, location=outcome.body["links"]["self"])
+    def on_compute_lane() -> Response:
+        outcome = once_per_key(storage, caller=caller, key=idempotency_key, body=raw, clock=clock, create=create)
+        return created_response(outcome, location=outcome.body["links"]["self"])
+
+    return await lane.run(on_compute_lane)
 
 
 @router.get("/{plan_id}/chart.svg", response_class=Response, responses={

@@ -6,7 +6,6 @@ import time
 from datetime import UTC, datetime
 from typing import Annotated, Any
 
-from anyio import to_thread
 from fastapi import APIRouter, Query, Request
 from fastapi.responses import HTMLResponse, Response, StreamingResponse
 from pydantic import AfterValidator, BeforeValidator
@@ -55,7 +54,7 @@ async def post_quote(
         outcome = once_per_key(storage, caller=caller, key=idempotency_key, body=raw, clock=clock, create=create)
         return created_response(outcome, location=f"/v1/quotes/{outcome.body['id']}")
 
-    return await to_thread.run_sync(on_compute_lane, limiter=lane)
+    return await lane.run(on_compute_lane)
 
 
 def _iso_8601(value: object) -> object:

@@ -10,6 +10,7 @@ from service.api.auth import Analyst
 from service.api.deps import (
     CatalogsDep,
     ClockDep,
+    ComputeLaneDep,
     IdempotencyKeyDep,
     RawBodyDep,
     SettingsDep,
@@ -45,9 +46,9 @@ RunnerDep = Annotated[SweepRunner, Depends(_runner)]
 
 @router.post("", status_code=201, responses={202: {"description": "accepted: running in the background"},
                                              **PROBLEM_RESPONSES, **CONFLICT})
-def post_sweep(request: Request, payload: SweepIn, raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep,
-               clock: ClockDep, runner: RunnerDep, settings: SettingsDep, caller: Analyst,
-               idempotency_key: IdempotencyKeyDep = None) -> Response:
+async def post_sweep(request: Request, payload: SweepIn, raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep,
+                     clock: ClockDep, runner: RunnerDep, settings: SettingsDep, caller: Analyst, lane: ComputeLaneDep,
+                     idempotency_key: IdempotencyKeyDep = None) -> Response:
     """Run a sweep: a grid of every combination, or Monte Carlo samples from distributions, over a
     base quote request. Up to `BERTH_SWEEP_ANSWER_AT_ONCE` scenarios the answer comes back at once
     (201); larger sweeps are accepted (202) and report progress at their Location. The same
@@ -62,8 +63,12 @@ def post_sweep(request: Request, payload: SweepIn, raw: RawBodyDep, storage: Sto
             metrics.sweep_scenarios.inc(created.body["progress"]["scenarios_total"])
         return created
 
-    outcome = once_per_key(storage, caller=caller, key=idempotency_key, body=raw, clock=clock, create=create)
-    return created_response(outcome, location=outcome.body["links"]["self"])
+    def on_compute_lane() -> Response:
+        outcome = once_per_key(storage, caller=caller, key=idempotency_key, body=raw, clock=clock, create=create)
+        return created_response(outcome, location=outcome.body["links"]["self"])
+
+    # Answered at once, a sweep is a computation like a quote, and waits its turn on the same lane.
+    return await lane.run(on_compute_lane)
 
 
 @router.get("/{sweep_id}", responses=PROBLEM_RESPONSES)
