@@ -24,7 +24,7 @@ class Settings(BaseSettings):
     sweep_stale_after_seconds: float = 15.0  # and another process takes it over after this long without
     fleet_max_cells: int = 50_000_000  # candidate sizes × samples × months in one plan
     fleet_max_candidates: int = 2_000  # candidate sizes in one plan (each is a row of its answer)
-    compute_queue_max: int = 32  # requests waiting for the compute lane; beyond, 503 with Retry-After
+    compute_queue_max: int = 32  # requests in the compute lane (computing or waiting); beyond, 503
     max_document_bytes: int = 16 * 1024 * 1024  # the largest answer stored as one row
     max_body_bytes: int = 1024 * 1024
     request_timeout_seconds: float = 30.0  # until a response starts; streamed CSV may run longer

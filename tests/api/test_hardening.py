@@ -426,3 +426,21 @@ async def test_row_12_a_full_database_is_a_503_and_not_ready_until_writes_succee
     assert count(storage, "quote") == accepted
     with storage.engine.connect() as connection:
         assert connection.exec_driver_sql("PRAGMA integrity_check").scalar_one() == "ok"
+
+
+# Row 3 (in-process; tests/e2e loads a real server): answers and stored rows are capped.
+
+async def test_row_3_an_answer_over_the_stored_size_limit_is_a_422_and_stores_nothing(
+    make_client: Callable[..., Any], owned_wins_request: dict[str, Any]
+) -> None:
+    async with make_client(max_document_bytes=20_000) as (app, client):
+        problem = problem_of(await client.post("/v1/quotes", json=owned_wins_request), 422)
+        assert fields_of(problem) == ["(body)"] and "20,000" in problem["errors"][0]["reason"]
+        assert count(app.state.storage, "quote") == 0
+
+
+async def test_row_3_a_fleet_plan_over_the_candidate_limit_is_a_422(client: httpx.AsyncClient) -> None:
+    plan = with_value(load_example("fleet-plan.json"), "candidate_nodes", {"min": 0, "max": 500_000, "step": 1})
+    plan["samples"] = 1
+    problem = problem_of(await client.post("/v1/fleet-plans", json=plan), 422)
+    assert fields_of(problem) == ["candidate_nodes"] and "2,000" in problem["errors"][0]["reason"]

@@ -10,6 +10,7 @@ import socket
 import sqlite3
 import subprocess
 import sys
+import threading
 import time
 from collections.abc import Iterator
 from contextlib import closing
@@ -282,3 +283,63 @@ def test_row_12_a_full_disk_is_a_503_not_ready_until_writes_succeed_and_nothing_
     with closing(sqlite3.connect(database)) as connection:
         assert connection.execute("PRAGMA integrity_check").fetchone() == ("ok",)
         assert connection.execute("SELECT COUNT(*) FROM quote").fetchone() == (len(accepted) + 1,)
+
+
+# Row 3: memory bounded by settings whatever the requests, probes answering under the load.
+
+def peak_rss_bytes(pid: int) -> int:
+    """The process's resident-set high-water mark (VmHWM), in bytes."""
+    for line in Path(f"/proc/{pid}/status").read_text().splitlines():
+        if line.startswith("VmHWM:"):
+            return int(line.split()[1]) * 1024
+    raise AssertionError("no VmHWM in /proc")
+
+
+RSS_LIMIT = 1024**3  # the deployment allows 3 GiB; one process of berth stays within a third of it
+
+
+def test_row_3_concurrent_large_sweeps_and_a_huge_fleet_plan_keep_memory_bounded_and_probes_fast(
+    berth_factory: ServerFactory, database: Path
+) -> None:
+    server = berth_factory(database, env={"BERTH_COMPUTE_QUEUE_MAX": "8"})
+    outcomes: list[httpx.Response] = []
+    probe_seconds: list[float] = []
+    done = threading.Event()
+
+    def post_sweep() -> None:
+        with httpx.Client(base_url=server.url, timeout=300.0) as client:
+            outcomes.append(client.post("/v1/sweeps", json=monte_carlo(20_000)))
+
+    def probe() -> None:
+        with httpx.Client(base_url=server.url, timeout=10.0) as client:
+            while not done.is_set():
+                for path in ("/readyz", "/healthz"):
+                    started = time.monotonic()
+                    assert client.get(path).status_code == 200
+                    probe_seconds.append(time.monotonic() - started)
+                time.sleep(0.1)
+
+    prober = threading.Thread(target=probe)
+    prober.start()
+    plan = load_example("fleet-plan.json")
+    plan["candidate_nodes"] = {"min": 0, "max": 500_000, "step": 1}
+    huge_plan = httpx.post(f"{server.url}/v1/fleet-plans", json=plan, timeout=60.0)
+    senders = [threading.Thread(target=post_sweep) for _ in range(40)]
+    for sender in senders:
+        sender.start()
+    for sender in senders:
+        sender.join()
+    done.set()
+    prober.join()
+    assert huge_plan.status_code == 422 and huge_plan.json()["errors"][0]["field"] == "candidate_nodes"
+    statuses = sorted(response.status_code for response in outcomes)
+    assert set(statuses) <= {201, 503} and statuses.count(201) >= 8, statuses
+    for refused in (response for response in outcomes if response.status_code == 503):
+        assert refused.headers["content-type"] == "application/problem+json"
+        assert refused.headers["retry-after"].isdigit()
+    assert statuses.count(503) > 0, "40 sweeps at once should overflow a queue of 8"
+    assert max(probe_seconds) < 1.0, f"slowest probe {max(probe_seconds):.2f} s"
+    peak = peak_rss_bytes(server.pid)
+    print(f"row 3: {statuses.count(201)} sweeps answered, {statuses.count(503)} refused, "
+          f"peak RSS {peak / 2**20:.0f} MiB, slowest probe {max(probe_seconds) * 1000:.0f} ms")
+    assert peak < RSS_LIMIT, f"peak RSS {peak / 2**20:.0f} MiB"
