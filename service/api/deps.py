@@ -13,7 +13,7 @@ from fastapi import Depends, Header, Path, Query, Request
 
 from service.config import Settings
 from service.errors import Unavailable
-from service.storage.repository import Storage
+from service.storage.repository import CURSOR_PATTERN, Storage
 from service.usecases.catalogs import ParsedCatalogs
 
 Result = TypeVar("Result")
@@ -108,6 +108,6 @@ CatalogIdPath = Annotated[str, _id_path("cat", "catalog")]
 QuoteIdPath = Annotated[str, _id_path("q", "quote")]
 SweepIdPath = Annotated[str, _id_path("sw", "sweep")]
 PlanIdPath = Annotated[str, _id_path("fp", "fleet plan")]
-CursorQuery = Annotated[str | None, Query(pattern=r"^[A-Za-z0-9_-]{1,200}$",
+CursorQuery = Annotated[str | None, Query(pattern=CURSOR_PATTERN, max_length=100,
                                           description="the next_cursor of the previous page, unchanged")]
 PRINTABLE = r"^[^\x00-\x1f\x7f]+$"  # no control characters (NUL included)

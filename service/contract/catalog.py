@@ -5,12 +5,13 @@ from datetime import date
 from typing import Annotated, Literal
 
 import pycountry
-from pydantic import Field, field_validator, model_validator
+from pydantic import BeforeValidator, Field, field_validator, model_validator
 
 from service.contract.common import (
     Amount,
     CarbonIntensity,
     CountryCode,
+    CurrencyCode,
     Factor,
     Fraction,
     Gbps,
@@ -40,6 +41,13 @@ def _known_country(code: str) -> str:
     if pycountry.countries.get(alpha_2=code) is None:
         raise ValueError(f"{code!r} is not an ISO 3166-1 alpha-2 country code")
     return code
+
+
+def _date_text(value: object) -> object:
+    """Lax date parsing would read a number as a Unix time; a date is written as text (2027-01-01)."""
+    if isinstance(value, bool | int | float):
+        raise ValueError("give an ISO 8601 date, e.g. 2027-01-01")
+    return value
 
 
 GroupName = Annotated[str, Field(min_length=1, max_length=40, pattern=r"^[A-Za-z0-9._-]+$")]
@@ -175,8 +183,8 @@ class OfferIn(Strict):
 
 class CatalogIn(Strict):
     name: Name
-    currency: Annotated[str, Field(pattern=r"^[A-Z]{3}$", description="ISO 4217 code")]
-    effective_from: Annotated[date | None, Field(strict=False)] = None  # an ISO 8601 string in JSON
+    currency: CurrencyCode
+    effective_from: Annotated[date | None, Field(strict=False), BeforeValidator(_date_text)] = None  # ISO 8601
     jurisdiction_groups: dict[GroupName, Annotated[list[CountryCode], Field(max_length=300)]] = Field(
         default_factory=dict, max_length=100)
     finance: Finance = Field(default_factory=Finance)

@@ -2,6 +2,7 @@
 
 from typing import Annotated
 
+import pycountry
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field
 
 from service.domain import limits
@@ -39,7 +40,13 @@ QuoteId = Annotated[str, Field(pattern=r"^q_[A-Za-z0-9]{1,64}$", description="a 
 Fraction = Annotated[float, Field(ge=0, le=1, allow_inf_nan=False)]
 Utilisation = Annotated[float, Field(gt=0, le=1, allow_inf_nan=False, description="in (0, 1]")]
 Identifier = Annotated[str, Field(min_length=1, max_length=100, pattern=r"^[A-Za-z0-9][A-Za-z0-9._-]*$")]
-CountryCode = Annotated[str, Field(pattern=r"^[A-Z]{2}$", description="ISO 3166-1 alpha-2")]
+# The code lists themselves are in the OpenAPI document, so a client (or a fuzzer) knows every valid value.
+COUNTRY_CODES = sorted(country.alpha_2 for country in pycountry.countries)
+CURRENCY_CODES = sorted(currency.alpha_3 for currency in pycountry.currencies)
+CountryCode = Annotated[str, Field(pattern=r"^[A-Z]{2}$", description="ISO 3166-1 alpha-2",
+                                   json_schema_extra={"enum": COUNTRY_CODES})]
+CurrencyCode = Annotated[str, Field(pattern=r"^[A-Z]{3}$", description="ISO 4217 code",
+                                    json_schema_extra={"enum": CURRENCY_CODES})]
 
 
 class Strict(BaseModel):
