@@ -20,11 +20,9 @@ from sqlalchemy import event, text
 
 import service.api.routers.quotes
 from service.api.app import create_app, prepare
-from service.api.auth import RateLimiter
 from service.api.observability import JsonFormatter
 from service.config import Settings
 from service.reports import breakeven_svg, render_report
-from service.storage.gate import CommitGate
 from service.storage.repository import Storage
 from service.usecases.access import issue_key
 from tests.api.conftest import FakeClock
@@ -284,6 +282,8 @@ async def test_row_10_a_quote_that_times_out_is_never_stored(
 
 
 def test_row_10_the_commit_gate_lets_exactly_one_of_a_time_out_and_a_final_commit_win() -> None:
+    from service.storage.gate import CommitGate  # here, so the other tests of the file run on older code
+
     late = CommitGate()
     assert late.expire()
     assert not late.enter()  # the 503 went out: nothing commits
@@ -366,6 +366,8 @@ async def test_unknown_keys_from_one_address_are_limited_and_other_addresses_are
 
 
 def test_the_failure_limiter_forgets_the_least_recent_address_beyond_its_bound() -> None:
+    from service.api.auth import RateLimiter
+
     limiter = RateLimiter(per_second=1e-6, burst=1, remember=3)
     assert limiter.retry_after("a") == 0 and limiter.retry_after("a") > 0
     for other in ("b", "c", "d"):
