@@ -217,9 +217,11 @@ def why(ranked: Sequence[OptionResult], i: int, evaluation: CampaignEvaluation, 
         return (f"{best.label} is the only feasible option, at {_n(total)} {currency}; every other option "
                 "was ruled out (see its reasons).")
     runner = ranked[1]
-    gap = float(runner.total[i]) - total
-    head = (f"{best.label} costs {_n(total)} {currency}, {_n(gap)} {currency} "
-            f"({_pct(gap / float(runner.total[i]))}) less than the runner-up {runner.label}")
+    runner_total = float(runner.total[i])
+    gap = runner_total - total
+    share = f" ({_pct(gap / runner_total)})" if runner_total > 0 else ""  # both free: no share of nothing
+    head = (f"{best.label} costs {_n(total)} {currency}, {_n(gap)} {currency}{share} "
+            f"less than the runner-up {runner.label}")
     if rank_by == "wall_clock":
         head = (f"{best.label} finishes in {_n(best.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} days against "
                 f"{_n(runner.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} for {runner.label}, "

@@ -281,7 +281,7 @@ def submit_sweep(storage: Storage, catalogs: ParsedCatalogs, sweep: SweepIn, *, 
         if keep is not None:
             keep(repository, status_code, body)
     if not at_once:
-        runner.submit(sweep_id)
+        runner.wake()
     return Created(status_code, body)
 
 
@@ -372,9 +372,9 @@ class SweepRunner:
         self._running: str | None = None
         self.runner = this_process()
 
-    def submit(self, sweep_id: str) -> None:
-        """A sweep was queued: look for work now rather than at the next heartbeat."""
-        del sweep_id  # any queued sweep is found by looking; the oldest runs first
+    def wake(self) -> None:
+        """A sweep was queued: look for work now rather than at the next heartbeat (the oldest
+        claimable sweep runs first, whichever process queued it)."""
         self._start()
         self._wake.set()
 

@@ -167,8 +167,9 @@ def test_row_5_a_remote_caller_forwarding_127_0_0_1_is_refused_in_local_mode(
     address = non_loopback_address()
     if address is None:
         pytest.skip("this machine has no non-loopback IPv4 address to call from")
-    # Behind a proxy trusted for every address, keyless, explicitly allowed on the network.
-    env = {"BERTH_ALLOW_KEYLESS_ON_NETWORK": "true", "BERTH_FORWARDED_ALLOW_IPS": "*"}
+    # Behind a proxy trusted for every address (berth's setting, and uvicorn's own, which berth turns
+    # off), keyless, explicitly allowed on the network.
+    env = {"BERTH_ALLOW_KEYLESS_ON_NETWORK": "true", "BERTH_FORWARDED_ALLOW_IPS": "*", "FORWARDED_ALLOW_IPS": "*"}
     server = berth_factory(database, env=env, host="0.0.0.0")
     remote = f"http://{address}:{server.port}"
     spoofed = httpx.get(f"{remote}/v1/quotes", headers={"X-Forwarded-For": "127.0.0.1"}, timeout=10.0)
