@@ -462,6 +462,7 @@ class Storage:
         self.engine = engine
         self.max_document_bytes = max_document_bytes
         self.full = False  # the last write failed for want of space; the next that succeeds clears it
+        self.closed = False
 
     @contextmanager
     def writing(self, *, claim: bool = False, gated: bool = True) -> Iterator[Repository]:
@@ -501,4 +502,6 @@ class Storage:
             yield Repository(session, max_document_bytes=self.max_document_bytes)
 
     def dispose(self) -> None:
+        """Close every connection; the storage is not used again (background work stops looking)."""
+        self.closed = True
         self.engine.dispose()

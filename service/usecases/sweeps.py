@@ -412,11 +412,13 @@ class SweepRunner:
                 if status == "queued" or beat is None or beat < now - self._stale_after or dead_here(runner)]
 
     def _loop(self) -> None:
-        while not self._stopping.is_set():
+        while not (self._stopping.is_set() or self._storage.closed):
             self._wake.clear()
             try:
                 ran = self._run_one()
             except Exception:  # the database is away, say: look again at the next heartbeat
+                if self._storage.closed:
+                    return
                 log.exception("looking for sweeps to run failed")
                 ran = False
             if not ran:

@@ -53,6 +53,7 @@ def app(settings: Settings, clock: FakeClock) -> Iterator[FastAPI]:
     application = create_app(settings, clock=clock)
     prepare(application)  # ASGITransport does not run the lifespan
     yield application
+    application.state.sweeps.shutdown()
     application.state.storage.dispose()
 
 
