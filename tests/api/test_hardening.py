@@ -4,11 +4,9 @@ it pins. Rows that need a real server process (1, 3, 5, 6, 12, 13) are in tests/
 import copy
 import io
 import json
-import logging
 import stat
 import threading
-from collections.abc import AsyncIterator, Callable, Iterator
-from contextlib import asynccontextmanager
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -20,7 +18,6 @@ from sqlalchemy import event, text
 
 import service.api.routers.quotes
 from service.api.app import create_app, prepare
-from service.api.observability import JsonFormatter
 from service.config import Settings
 from service.reports import breakeven_svg, render_report
 from service.storage.repository import Storage
@@ -32,22 +29,6 @@ from tests.conftest import load_example
 from tests.databases import sqlite_only
 
 pytestmark = pytest.mark.anyio
-
-
-@pytest.fixture
-def make_client(database_url: str, clock: FakeClock) -> Callable[..., Any]:
-    @asynccontextmanager
-    async def open_client(**settings: Any) -> AsyncIterator[tuple[FastAPI, httpx.AsyncClient]]:
-        app = create_app(Settings(database_url=database_url, **settings), clock=clock)
-        prepare(app)
-        try:
-            async with httpx.AsyncClient(transport=httpx.ASGITransport(app=app), base_url="http://berth.test") as http:
-                yield app, http
-        finally:
-            app.state.sweeps.shutdown()
-            app.state.storage.dispose()
-
-    return open_client
 
 
 def with_value(body: dict[str, Any], path: str, value: Any) -> dict[str, Any]:
@@ -306,22 +287,8 @@ def test_row_10_the_commit_gate_lets_exactly_one_of_a_time_out_and_a_final_commi
 
 # Row 11: a 500 carries the request id, is logged with it, and does not break the connection.
 
-@pytest.fixture
-def http_log(caplog: pytest.LogCaptureFixture) -> Iterator[io.StringIO]:
-    caplog.set_level(logging.INFO, logger="berth.http")
-    stream = io.StringIO()
-    handler = logging.StreamHandler(stream)
-    handler.setFormatter(JsonFormatter())
-    logger = logging.getLogger("berth.http")
-    logger.addHandler(handler)
-    try:
-        yield stream
-    finally:
-        logger.removeHandler(handler)
-
-
 async def test_row_11_an_unexpected_error_is_a_500_with_the_request_id_on_the_answer_and_every_log_line(
-    client: httpx.AsyncClient, monkeypatch: pytest.MonkeyPatch, http_log: io.StringIO
+    client: httpx.AsyncClient, monkeypatch: pytest.MonkeyPatch, json_log: io.StringIO
 ) -> None:
     def broken(*_args: Any, **_kwargs: Any) -> Any:
         raise RuntimeError("a bug")
@@ -332,7 +299,7 @@ async def test_row_11_an_unexpected_error_is_a_500_with_the_request_id_on_the_an
     problem = problem_of(response, 500)
     assert "a bug" not in json.dumps(problem)
     assert response.headers["x-request-id"] == "boom-1"
-    lines = [json.loads(line) for line in http_log.getvalue().splitlines()]
+    lines = [json.loads(line) for line in json_log.getvalue().splitlines()]
     assert lines and all(line["request_id"] == "boom-1" for line in lines)
     assert any("RuntimeError" in line.get("error", "") for line in lines), lines
     assert (await client.get("/healthz")).status_code == 200

@@ -4,7 +4,7 @@ inputs from concurrent clients spread over both. No answer may be a 5xx, every a
 read back from both replicas, background sweeps must finish, and each replica's peak RSS must stay
 bounded. The figures are printed (`pytest -s`).
 
-`BERTH_SOAK_REQUESTS` sets the number of requests (1,200 by default). Skipped unless
+`BERTH_SOAK_REQUESTS` sets the number of requests (2,000 by default). Skipped unless
 BERTH_TEST_DATABASE_URL names a PostgreSQL server (.ci/run sets it)."""
 
 import os
@@ -28,7 +28,7 @@ from tests.e2e.test_hardening import RSS_LIMIT, peak_rss_bytes
 
 pytestmark = [pytest.mark.e2e, needs_postgresql]
 
-REQUESTS = int(os.environ.get("BERTH_SOAK_REQUESTS", "1200"))
+REQUESTS = int(os.environ.get("BERTH_SOAK_REQUESTS", "2000"))
 CLIENTS = 8
 SEED = 18
 SERVER_ENV = {"BERTH_SWEEP_ANSWER_AT_ONCE": "2000", "BERTH_SWEEP_HEARTBEAT_SECONDS": "1"}
