@@ -99,8 +99,8 @@ def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     app.add_middleware(TimeLimit, seconds=settings.request_timeout_seconds)
     app.add_middleware(RequestContext)
-    # Outermost: the client's address from a trusted proxy's X-Forwarded-For, with the socket's own
-    # peer kept beside it for local mode, which never believes a header.
+    # Outside those (added last, so they run first): the socket's own peer kept for local mode, which
+    # never believes a header, then the client's address from a trusted proxy's X-Forwarded-For.
     app.add_middleware(ProxyHeadersMiddleware, trusted_hosts=settings.forwarded_allow_ips)
     app.add_middleware(SocketPeer)
     app.include_router(probes.router)
