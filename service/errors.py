@@ -5,7 +5,9 @@ each to an RFC 9457 problem and the command line to a message and exit status 2.
     ├── InvalidInput        a request or catalog failed validation; carries [{field, reason}]
     ├── NotFound            a catalog or quote id that does not exist (or is not yours)
     ├── Forbidden           the caller's role or team may not do this
-    └── Conflict            the request collides with another one (e.g. idempotency in flight)
+    ├── Conflict            the request collides with another one (e.g. idempotency in flight)
+    └── Unavailable         the service cannot do it now (time limit, busy); retry later
+        └── StorageFull     the database has no room left for a write; nothing was written
 """
 
 from collections.abc import Sequence
@@ -49,3 +51,19 @@ class Forbidden(BerthError):
 class Conflict(BerthError):
     status = 409
     title = "Conflict"
+
+
+class Unavailable(BerthError):
+    status = 503
+    title = "Unavailable"
+
+    def __init__(self, detail: str, *, retry_after_seconds: int = 5) -> None:
+        super().__init__(detail)
+        self.retry_after_seconds = retry_after_seconds
+
+
+class StorageFull(Unavailable):
+    title = "Storage full"
+
+    def __init__(self, detail: str = "the database has no room left for this write; nothing was stored") -> None:
+        super().__init__(detail, retry_after_seconds=30)

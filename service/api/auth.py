@@ -1,14 +1,16 @@
 """Who may do what: `Authorization: Bearer <key>`, roles, teams, local mode and rate limits.
 
 No key → 401 with WWW-Authenticate; a known key without the role → 403; another team's quote is
-a 404 (handled where quotes are read). With no keys configured at all, berth runs in local mode:
-it answers loopback callers only, as the local operator, without rate limits.
+a 404 (handled where quotes are read); too many unknown keys from one client address → 429. With no
+keys configured at all, berth runs in local mode: it answers callers whose socket is on loopback
+only (whatever a proxy header says), as the local operator, without rate limits.
 """
 
 import ipaddress
 import math
 import threading
 import time
+from collections import OrderedDict
 from collections.abc import Awaitable, Callable
 from typing import Annotated
 
@@ -16,6 +18,7 @@ from fastapi import Depends, Request
 from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException
 
+from service.api.middleware import SOCKET_PEER
 from service.storage.repository import Storage
 from service.usecases.access import LOCAL, Principal, Role, keys_configured, resolve
 
@@ -50,32 +53,43 @@ class LocalMode:
 
 class RateLimiter:
     """A token bucket per key, in this process's memory: `burst` requests at once, refilled at
-    `per_second`. Several replicas each keep their own buckets (see the README)."""
+    `per_second`. Several replicas each keep their own buckets (see the README). At most `remember`
+    keys are kept, the least recently seen forgotten first (a full bucket, as a new key gets)."""
 
-    def __init__(self, *, per_second: float, burst: int) -> None:
-        self.per_second, self.burst = per_second, burst
-        self._buckets: dict[str, tuple[float, float]] = {}
+    def __init__(self, *, per_second: float, burst: int, remember: int = 100_000) -> None:
+        self.per_second, self.burst, self.remember = per_second, burst, remember
+        self._buckets: OrderedDict[str, tuple[float, float]] = OrderedDict()
         self._lock = threading.Lock()
 
-    def retry_after(self, key: str) -> float:
-        """0 when the request may go ahead (and takes a token), else seconds until one is free."""
+    def retry_after(self, key: str, *, take: bool = True) -> float:
+        """0 when a token is free (taken unless `take` is False), else seconds until one is."""
         now = time.monotonic()
         with self._lock:
-            tokens, last = self._buckets.get(key, (float(self.burst), now))
+            tokens, last = self._buckets.pop(key, (float(self.burst), now))
             tokens = min(float(self.burst), tokens + (now - last) * self.per_second)
-            if tokens >= 1.0:
-                self._buckets[key] = (tokens - 1.0, now)
-                return 0.0
-            self._buckets[key] = (tokens, now)
-            return (1.0 - tokens) / self.per_second
+            free = tokens >= 1.0
+            self._buckets[key] = (tokens - 1.0 if free and take else tokens, now)
+            while len(self._buckets) > self.remember:
+                self._buckets.popitem(last=False)
+            return 0.0 if free else (1.0 - tokens) / self.per_second
 
 
-def _loopback(request: Request) -> bool:
-    host = request.client.host if request.client else ""
+class KeylessOnNetwork(RuntimeError):
+    """Refused at start: no keys, and a non-loopback address to listen on."""
+
+
+def is_loopback_host(host: str) -> bool:
     try:
         return ipaddress.ip_address(host).is_loopback
     except ValueError:
-        return host in ("localhost", "testclient")
+        return host == "localhost"
+
+
+def _loopback(request: Request) -> bool:
+    """Whether the socket's peer is this machine; forwarded headers are never believed here."""
+    peer = request.scope.get(SOCKET_PEER, request.scope.get("client"))
+    host = peer[0] if peer else ""
+    return is_loopback_host(host) or host == "testclient"
 
 
 async def principal(request: Request) -> Principal:
@@ -92,8 +106,15 @@ async def principal(request: Request) -> Principal:
     scheme, _, presented = request.headers.get("authorization", "").partition(" ")
     if scheme.lower() != "bearer" or not presented.strip():
         raise HTTPException(401, "send Authorization: Bearer <key>", headers=CHALLENGE)
+    address = request.client.host if request.client else "-"
+    failures: RateLimiter = state.failure_limiter
+    wait = failures.retry_after(address, take=False)
+    if wait > 0:
+        raise HTTPException(429, "too many requests with unknown keys from this address",
+                            headers={"Retry-After": str(math.ceil(wait))})
     found = await run_in_threadpool(resolve, state.storage, presented.strip())
     if found is None:
+        failures.retry_after(address)
         raise HTTPException(401, "the key is unknown or revoked", headers=CHALLENGE)
     wait = state.rate_limiter.retry_after(found.key_id)
     if wait > 0:

@@ -11,6 +11,8 @@ import uuid
 from collections.abc import Awaitable, Callable, MutableMapping
 from typing import Any
 
+from service.storage.gate import COMMIT_GATE, CommitGate
+
 Scope = MutableMapping[str, Any]
 Message = MutableMapping[str, Any]
 Receive = Callable[[], Awaitable[Message]]
@@ -47,19 +49,49 @@ class RequestContext:
         token = REQUEST_ID.set(request_id)
         started = time.perf_counter()
         status = [500]
+        responding = [False]
 
         async def send_with_id(message: Message) -> None:
             if message["type"] == "http.response.start":
                 status[0] = message["status"]
+                responding[0] = True
                 message["headers"] = [*message.get("headers", []), (b"x-request-id", request_id.encode("latin-1"))]
             await send(message)
 
         try:
             await self.app(scope, receive, send_with_id)
+        except Exception:
+            # Caught here, inside the request's context, rather than by Starlette's outermost handler:
+            # the log line and the answer carry the request id, and the exception stops here, so the
+            # server keeps the connection instead of resetting it.
+            log.exception("unhandled error on %s %s", scope["method"], scope["path"])
+            from service.api.observability import domain_metrics  # it imports REQUEST_ID from here
+
+            domain_metrics().errors.labels(type="internal-error").inc()
+            if responding[0]:
+                raise  # a streamed body broke off: the connection cannot carry a problem any more
+            await send_problem(send_with_id, 500, "Internal error",
+                               "the service failed to answer; the error was logged")
         finally:
             log.info("request", extra={"method": scope["method"], "path": scope["path"], "status": status[0],
                                        "duration_ms": round((time.perf_counter() - started) * 1000, 2)})
             REQUEST_ID.reset(token)
+
+
+SOCKET_PEER = "berth.socket_peer"
+
+
+class SocketPeer:
+    """Keeps the address of the socket's other end in the scope, before any proxy header rewrites
+    `client`: local mode judges that, and only that."""
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] in ("http", "websocket"):
+            scope[SOCKET_PEER] = scope.get("client")
+        await self.app(scope, receive, send)
 
 
 class HeadAsGet:
@@ -133,7 +165,9 @@ class TimeLimit:
     """Answers 503 when a request has not started its response within `seconds`. A streaming
     response that has started may run on (a large CSV takes as long as it takes). One task and one
     timer per request: the application runs in the task, and whichever comes first of the response
-    starting, the task ending and the timer firing decides."""
+    starting, the task ending and the timer firing decides. The request's `CommitGate` makes the 503
+    and a stored write exclusive: after the 503 nothing commits, and once what the request creates
+    has committed, the caller waits for the answer naming it instead of getting a 503."""
 
     def __init__(self, app: ASGIApp, *, seconds: float) -> None:
         self.app = app
@@ -160,7 +194,12 @@ class TimeLimit:
                 decide()
             await send(message)
 
-        task = asyncio.ensure_future(self.app(scope, receive, guarded_send))
+        gate = CommitGate()
+        token = COMMIT_GATE.set(gate)  # copied into the task, and from it into worker threads
+        try:
+            task = asyncio.ensure_future(self.app(scope, receive, guarded_send))
+        finally:
+            COMMIT_GATE.reset(token)
         task.add_done_callback(decide)
         timer = loop.call_later(self.seconds, decide)
         try:
@@ -170,7 +209,7 @@ class TimeLimit:
             raise
         finally:
             timer.cancel()
-        if not started and not task.done():
+        if not started and not task.done() and gate.expire():
             timed_out = True
             task.cancel()
             await send_problem(send, 503, "Timed out", f"the request took longer than {self.seconds:g} s; "

@@ -1,6 +1,6 @@
 """Every error as RFC 9457 problem details (application/problem+json): the project's own errors,
-Starlette's HTTP errors, request validation (a list of field paths and reasons), and a catch-all 500
-that hides the trace."""
+Starlette's HTTP errors, request validation (a list of field paths and reasons). The catch-all 500,
+which hides the trace, is answered by `middleware.RequestContext`, inside the request's context."""
 
 import logging
 import re
@@ -14,7 +14,7 @@ from starlette.exceptions import HTTPException
 from starlette.requests import ClientDisconnect
 
 from service.api.observability import domain_metrics
-from service.errors import BerthError, InvalidInput
+from service.errors import BerthError, InvalidInput, Unavailable
 from service.usecases.loading import field_problems_from_list
 
 PROBLEM = "application/problem+json"
@@ -44,7 +44,8 @@ def install(app: FastAPI) -> None:
         errors = None
         if isinstance(error, InvalidInput):
             errors = [{"field": p.field, "reason": p.reason} for p in error.problems]
-        return problem(error.status, error.title, error.detail, errors=errors)
+        headers = {"Retry-After": str(error.retry_after_seconds)} if isinstance(error, Unavailable) else None
+        return problem(error.status, error.title, error.detail, errors=errors, headers=headers)
 
     @app.exception_handler(RequestValidationError)
     async def _validation(request: Request, error: RequestValidationError) -> JSONResponse:
@@ -65,10 +66,6 @@ def install(app: FastAPI) -> None:
         # The client left (or the body limit answered for it): nobody reads this answer.
         return problem(400, "Client disconnected", "the request body ended early", counted=False)
 
-    @app.exception_handler(Exception)
-    async def _unexpected(request: Request, error: Exception) -> JSONResponse:
-        log.exception("unhandled error on %s %s", request.method, request.url.path)
-        return problem(500, "Internal error", "the service failed to answer; the error was logged")
 
 
 def _body_model(request: Request) -> type[BaseModel] | None:

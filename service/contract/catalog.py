@@ -5,20 +5,35 @@ from datetime import date
 from typing import Annotated, Any, Literal
 
 import pycountry
-from pydantic import Field, SerializerFunctionWrapHandler, field_validator, model_serializer, model_validator
+from pydantic import (
+    BeforeValidator,
+    Field,
+    SerializerFunctionWrapHandler,
+    field_validator,
+    model_serializer,
+    model_validator,
+)
 
 from service.contract.common import (
+    Amount,
+    CarbonIntensity,
     CountryCode,
+    CurrencyCode,
+    Factor,
     Fraction,
+    Gbps,
+    Hours,
     Identifier,
-    NonNegativeFloat,
-    NonNegativeInt,
-    PositiveFloat,
-    PositiveInt,
+    Kilowatts,
+    Months,
+    Name,
+    Nodes,
+    PositiveAmount,
     Strict,
     Utilisation,
 )
 from service.domain import catalog as domain
+from service.domain.limits import MAX_ITEMS, MAX_NODES
 
 
 class ReferenceProblems(ValueError):
@@ -35,29 +50,42 @@ def _known_country(code: str) -> str:
     return code
 
 
+def _date_text(value: object) -> object:
+    """Lax date parsing would read a number as a Unix time; a date is written as text (2027-01-01)."""
+    if isinstance(value, bool | int | float):
+        raise ValueError("give an ISO 8601 date, e.g. 2027-01-01")
+    return value
+
+
+GroupName = Annotated[str, Field(min_length=1, max_length=40, pattern=r"^[A-Za-z0-9._-]+$")]
+
+
 class Finance(Strict):
     cost_of_capital_annual: Annotated[float, Field(ge=0, le=1, allow_inf_nan=False)] = 0.08
 
 
 class AcceleratorIn(Strict):
     id: Identifier
-    memory_gb: PositiveFloat = Field(description="memory per accelerator in binary gigabytes (GiB, 2^30 bytes), "
-                                             "as accelerator memory is sold")
-    peak_tflops: dict[str, PositiveFloat] = Field(min_length=1, description="by precision, e.g. bf16")
+    memory_gb: Annotated[float, Field(
+        gt=0, le=1e6, allow_inf_nan=False,
+        description="memory per accelerator in binary gigabytes (GiB, 2^30 bytes), as accelerator memory is sold")]
+    peak_tflops: dict[Annotated[str, Field(min_length=1, max_length=20)],
+                      Annotated[float, Field(gt=0, le=1e9, allow_inf_nan=False)]] = Field(
+        min_length=1, max_length=20, description="by precision, e.g. bf16")
     utilisation: Utilisation = Field(description="model- or hardware-FLOPs utilisation, in (0, 1]")
 
 
 class NodeTypeIn(Strict):
     id: Identifier
     accelerator: Identifier
-    accelerators_per_node: PositiveInt
-    intra_node_gbps: PositiveFloat
-    network_gbps: PositiveFloat
-    power_kw_peak: PositiveFloat
-    power_kw_idle: NonNegativeFloat
-    checkpoint_write_gbps: PositiveFloat
-    mtbf_hours: PositiveFloat | None = None
-    measured_relative_speed: dict[str, PositiveFloat] = Field(default_factory=dict)
+    accelerators_per_node: Annotated[int, Field(gt=0, le=4096)]
+    intra_node_gbps: Gbps
+    network_gbps: Gbps
+    power_kw_peak: Kilowatts
+    power_kw_idle: Annotated[float, Field(ge=0, le=1e7, allow_inf_nan=False)]
+    checkpoint_write_gbps: Gbps
+    mtbf_hours: Hours | None = None
+    measured_relative_speed: dict[Identifier, Factor] = Field(default_factory=dict, max_length=MAX_ITEMS)
 
     @model_validator(mode="after")
     def _idle_below_peak(self) -> "NodeTypeIn":
@@ -67,22 +95,22 @@ class NodeTypeIn(Strict):
 
 
 class CapexIn(Strict):
-    node_price: PositiveFloat
-    network_per_node: NonNegativeFloat = 0.0
-    storage_per_node: NonNegativeFloat = 0.0
-    install_per_node: NonNegativeFloat = 0.0
+    node_price: PositiveAmount
+    network_per_node: Amount = 0.0
+    storage_per_node: Amount = 0.0
+    install_per_node: Amount = 0.0
 
 
 class ColocationIn(Strict):
     kind: Literal["colocation"]
-    price_per_kw_month: NonNegativeFloat
+    price_per_kw_month: Amount
 
 
 class OwnedHallIn(Strict):
     kind: Literal["owned"]
-    capex_per_kw: NonNegativeFloat
-    life_years: PositiveFloat
-    fixed_cost_per_year: NonNegativeFloat = 0.0
+    capex_per_kw: Amount
+    life_years: Annotated[float, Field(gt=0, le=100, allow_inf_nan=False)]
+    fixed_cost_per_year: Amount = 0.0
     allocate: Literal["installed", "capacity"] = Field(
         "installed", description="what shares the fixed yearly cost: the installed IT load (owned nodes at peak "
                                  "kW) or the IT power the hall can feed (power capacity / PUE)")
@@ -90,29 +118,29 @@ class OwnedHallIn(Strict):
 
 class SiteIn(Strict):
     id: Identifier
-    name: str = ""
+    name: Annotated[str, Field(max_length=200, pattern=r"^[^\x00-\x1f\x7f]*$")] = ""
     jurisdiction: CountryCode
     node_type: Identifier
-    nodes_owned: NonNegativeInt
-    nodes_max: NonNegativeInt
+    nodes_owned: Nodes
+    nodes_max: Nodes
     network_path: Literal["overlay", "direct", "rdma"] = "rdma"
     path_efficiency: Annotated[float, Field(gt=0, le=1)] | None = None
     capex: CapexIn
-    depreciation_months: PositiveInt
+    depreciation_months: Months
     residual_fraction: Fraction = 0.0
     maintenance_fraction_per_year: Fraction = 0.0
-    staff_cost_per_node_year: NonNegativeFloat = 0.0
+    staff_cost_per_node_year: Amount = 0.0
     facility: Annotated[ColocationIn | OwnedHallIn, Field(discriminator="kind")]
     pue: Annotated[float, Field(ge=1, le=5)]
-    electricity_price_per_kwh: NonNegativeFloat
-    grid_kgco2e_per_kwh: NonNegativeFloat = 0.0
-    power_capacity_kw: PositiveFloat | None = None
-    cooling_capacity_kw: PositiveFloat | None = None
+    electricity_price_per_kwh: Amount
+    grid_kgco2e_per_kwh: CarbonIntensity = 0.0
+    power_capacity_kw: Kilowatts | None = None
+    cooling_capacity_kw: Kilowatts | None = None
     utilisation_planned: Utilisation
     utilisation_current: Fraction = 0.0
-    egress_per_gb: NonNegativeFloat = Field(0.0, description="what the site pays to send data out")
-    wan_gbps: PositiveFloat | None = Field(None, description="the site's link to the outside")
-    storage_write_gbps: PositiveFloat | None = Field(
+    egress_per_gb: Amount = Field(0.0, description="what the site pays to send data out")
+    wan_gbps: Gbps | None = Field(None, description="the site's link to the outside")
+    storage_write_gbps: Gbps | None = Field(
         None, description="the shared storage's write bandwidth that checkpoints of all nodes share (default in "
                           "assumptions)")
     resale_fraction: Fraction | None = Field(
@@ -128,37 +156,37 @@ class SiteIn(Strict):
 
 
 class CommittedIn(Strict):
-    months: PositiveInt
-    per_accelerator_hour: PositiveFloat
+    months: Months
+    per_accelerator_hour: PositiveAmount
     upfront_fraction: Fraction = 0.0
 
 
 class InterruptibleIn(Strict):
-    per_accelerator_hour: PositiveFloat
-    mean_hours_between_interruptions: PositiveFloat
+    per_accelerator_hour: PositiveAmount
+    mean_hours_between_interruptions: Hours
 
 
 class OfferIn(Strict):
     id: Identifier
-    provider: str = Field(min_length=1, max_length=200)
-    region: str = Field(min_length=1, max_length=100)
+    provider: Name
+    region: Annotated[str, Field(min_length=1, max_length=100, pattern=r"^[^\x00-\x1f\x7f]+$")]
     jurisdiction: CountryCode
     node_type: Identifier
-    nodes_max: PositiveInt
+    nodes_max: Annotated[int, Field(gt=0, le=MAX_NODES)]
     network_path: Literal["overlay", "direct", "rdma"] = "direct"
     path_efficiency: Annotated[float, Field(gt=0, le=1)] | None = None
-    on_demand_per_accelerator_hour: PositiveFloat | None = None
-    committed: list[CommittedIn] = Field(default_factory=list)
+    on_demand_per_accelerator_hour: PositiveAmount | None = None
+    committed: list[CommittedIn] = Field(default_factory=list, max_length=20)
     interruptible: InterruptibleIn | None = None
-    storage_per_gb_month: NonNegativeFloat = 0.0
-    ingress_per_gb: NonNegativeFloat = 0.0
-    storage_write_gbps: PositiveFloat | None = Field(
+    storage_per_gb_month: Amount = 0.0
+    ingress_per_gb: Amount = 0.0
+    storage_write_gbps: Gbps | None = Field(
         None, description="the shared storage's write bandwidth that checkpoints of all nodes share (default in "
                           "assumptions)")
-    egress_per_gb: NonNegativeFloat = 0.0
-    ingress_gbps: PositiveFloat | None = None
+    egress_per_gb: Amount = 0.0
+    ingress_gbps: Gbps | None = None
     pue: Annotated[float, Field(ge=1, le=5)] | None = None
-    grid_kgco2e_per_kwh: NonNegativeFloat | None = None
+    grid_kgco2e_per_kwh: CarbonIntensity | None = None
 
     _country = field_validator("jurisdiction")(_known_country)
 
@@ -186,17 +214,20 @@ class CatalogStatusIn(Strict):
 
 
 class CatalogIn(Strict):
-    name: str = Field(min_length=1, max_length=200)
-    currency: Annotated[str, Field(pattern=r"^[A-Z]{3}$", description="ISO 4217 code")]
-    effective_from: Annotated[date | None, Field(strict=False, description="first day a quote may use it")] = None
+    name: Name
+    currency: CurrencyCode
+    effective_from: Annotated[date | None, Field(strict=False, description="first day a quote may use it (ISO 8601)"),
+                              BeforeValidator(_date_text)] = None
     effective_until: Annotated[date | None, Field(
-        strict=False, description="last day a quote may use it (inclusive); absent: no end")] = None
-    jurisdiction_groups: dict[str, list[CountryCode]] = Field(default_factory=dict)
+        strict=False, description="last day a quote may use it (inclusive, ISO 8601); absent: no end"),
+        BeforeValidator(_date_text)] = None
+    jurisdiction_groups: dict[GroupName, Annotated[list[CountryCode], Field(max_length=300)]] = Field(
+        default_factory=dict, max_length=100)
     finance: Finance = Field(default_factory=Finance)
-    accelerators: list[AcceleratorIn] = Field(min_length=1)
-    node_types: list[NodeTypeIn] = Field(min_length=1)
-    sites: list[SiteIn] = Field(default_factory=list)
-    offers: list[OfferIn] = Field(default_factory=list)
+    accelerators: list[AcceleratorIn] = Field(min_length=1, max_length=MAX_ITEMS)
+    node_types: list[NodeTypeIn] = Field(min_length=1, max_length=MAX_ITEMS)
+    sites: list[SiteIn] = Field(default_factory=list, max_length=MAX_ITEMS)
+    offers: list[OfferIn] = Field(default_factory=list, max_length=MAX_ITEMS)
 
     @field_validator("currency")
     @classmethod

@@ -5,7 +5,8 @@ from typing import Annotated
 
 from pydantic import Field, model_validator
 
-from service.contract.common import Identifier, PositiveFloat, Strict
+from service.contract.common import CatalogId, Identifier, PositiveFloat, QuoteId, Strict
+from service.domain.limits import MAX_COUNT, MAX_NODES
 
 MAX_SEED = 2**63 - 1
 
@@ -16,9 +17,9 @@ class DemandIn(Strict):
     doubling_months: PositiveFloat | None = Field(None, description="absent: flat demand")
     spread: Annotated[float, Field(ge=0, le=3, allow_inf_nan=False)] = Field(
         0.0, description="lognormal sigma of each month's demand (mean kept)")
-    monthly: list[Annotated[float, Field(ge=0, allow_inf_nan=False)]] | None = Field(
+    monthly: list[Annotated[float, Field(ge=0, le=1e15, allow_inf_nan=False)]] | None = Field(
         None, min_length=1, max_length=600, description="an explicit series, one value per month")
-    from_quotes: list[Annotated[str, Field(min_length=1, max_length=40)]] | None = Field(
+    from_quotes: list[QuoteId] | None = Field(
         None, min_length=1, max_length=200, description="stored quotes whose recurring campaigns make the demand")
 
     @model_validator(mode="after")
@@ -33,9 +34,9 @@ class DemandIn(Strict):
 
 
 class CandidatesIn(Strict):
-    min: Annotated[int, Field(ge=0)] = 0
-    max: Annotated[int, Field(ge=0)]
-    step: Annotated[int, Field(ge=1)] = 1
+    min: Annotated[int, Field(ge=0, le=MAX_NODES)] = 0
+    max: Annotated[int, Field(ge=0, le=MAX_NODES)]
+    step: Annotated[int, Field(ge=1, le=MAX_NODES)] = 1
 
     @model_validator(mode="after")
     def _ordered(self) -> "CandidatesIn":
@@ -49,16 +50,16 @@ class CandidatesIn(Strict):
 
 
 class FleetPlanIn(Strict):
-    catalog_id: str | None = None
+    catalog_id: CatalogId | None = None
     site: Identifier
     offer: Identifier
     term: Annotated[str, Field(pattern=r"^(on_demand|interruptible|committed_\d+m)$")] = "on_demand"
     horizon_months: Annotated[int, Field(ge=1, le=240)] = 48
     demand: DemandIn
     candidate_nodes: CandidatesIn
-    samples: Annotated[int, Field(ge=1)] = 1000
+    samples: Annotated[int, Field(ge=1, le=MAX_COUNT)] = 1000
     seed: Annotated[int, Field(ge=0, le=MAX_SEED)] = 0
     max_utilisation: Annotated[float, Field(gt=0, le=1, allow_inf_nan=False)] = 0.85
     decision_every_months: Annotated[int, Field(ge=1, le=240)] = Field(
         12, description="months between the points at which the owned fleet may grow or retire nodes")
-    precision: str = Field("bf16", min_length=1, max_length=20)
+    precision: str = Field("bf16", min_length=1, max_length=20, pattern=r"^[A-Za-z0-9._-]+$")

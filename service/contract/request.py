@@ -5,17 +5,28 @@ from typing import Annotated, Literal, get_args
 from pydantic import Field, model_validator
 
 from service.contract.common import (
+    Amount,
+    CarbonIntensity,
+    CatalogId,
+    Factor,
+    Gbps,
+    Hours,
     Identifier,
-    NonNegativeFloat,
+    Name,
     PositiveFloat,
     PositiveInt,
     Strict,
+    Team,
+    Terabytes,
     Utilisation,
 )
 from service.domain import campaign as domain
+from service.domain import limits
 
 Term = Literal["owned_chargeback", "owned_new_build", "on_demand", "committed", "interruptible"]
 ALL_TERMS: tuple[Term, ...] = get_args(Term)
+# A country code or the name of one of the catalog's jurisdiction groups.
+JurisdictionName = Annotated[str, Field(min_length=2, max_length=40, pattern=r"^[A-Za-z0-9._-]+$")]
 
 
 class TransformerWorkIn(Strict):
@@ -26,7 +37,7 @@ class TransformerWorkIn(Strict):
     d_model: PositiveInt | None = None
     sequence_length: PositiveInt | None = None
     attention_heads: PositiveInt | None = None
-    precision: str = Field("bf16", min_length=1, max_length=20)
+    precision: str = Field("bf16", min_length=1, max_length=20, pattern=r"^[A-Za-z0-9._-]+$")
     activation_recompute: Literal["none", "selective", "full"] = "none"
     global_batch_tokens: PositiveFloat | None = None
     micro_batch_sequences: PositiveInt | None = None
@@ -43,7 +54,7 @@ class FlopsWorkIn(Strict):
     kind: Literal["flops"]
     total_flops: PositiveFloat = Field(description="model FLOPs of one run")
     parameters: PositiveFloat | None = Field(None, description="for memory and communication")
-    precision: str = Field("bf16", min_length=1, max_length=20)
+    precision: str = Field("bf16", min_length=1, max_length=20, pattern=r"^[A-Za-z0-9._-]+$")
     activation_recompute: Literal["none", "selective", "full"] = "none"
     global_batch_tokens: PositiveFloat | None = None
 
@@ -54,7 +65,7 @@ class MeasuredWorkIn(Strict):
     samples: PositiveFloat
     samples_per_second_per_accelerator: PositiveFloat
     parameters: PositiveFloat | None = Field(None, description="for memory and communication")
-    precision: str = Field("bf16", min_length=1, max_length=20)
+    precision: str = Field("bf16", min_length=1, max_length=20, pattern=r"^[A-Za-z0-9._-]+$")
     activation_recompute: Literal["none", "selective", "full"] = "none"
     global_batch_tokens: PositiveFloat | None = None
 
@@ -63,14 +74,14 @@ WorkIn = Annotated[TransformerWorkIn | FlopsWorkIn | MeasuredWorkIn, Field(discr
 
 
 class RunsIn(Strict):
-    count: PositiveInt = 1
-    exploration_fraction: NonNegativeFloat = 0.0
-    evaluation_fraction: NonNegativeFloat = 0.0
+    count: Annotated[int, Field(gt=0, le=limits.MAX_RUNS)] = 1
+    exploration_fraction: Annotated[float, Field(ge=0, le=limits.MAX_EXTRA_WORK, allow_inf_nan=False)] = 0.0
+    evaluation_fraction: Annotated[float, Field(ge=0, le=limits.MAX_EXTRA_WORK, allow_inf_nan=False)] = 0.0
 
 
 class RecurrenceIn(Strict):
-    every_months: PositiveFloat
-    for_months: PositiveFloat
+    every_months: Annotated[float, Field(gt=0, le=limits.MAX_MONTHS, allow_inf_nan=False)]
+    for_months: Annotated[float, Field(gt=0, le=limits.MAX_MONTHS, allow_inf_nan=False)]
 
     @model_validator(mode="after")
     def _at_least_once(self) -> "RecurrenceIn":
@@ -80,24 +91,24 @@ class RecurrenceIn(Strict):
 
 
 class DataIn(Strict):
-    dataset_tb: NonNegativeFloat = 0.0
-    checkpoint_tb: PositiveFloat | None = None
-    checkpoints_kept: PositiveInt = 1
-    results_egress_tb: NonNegativeFloat = 0.0
-    allowed_jurisdictions: list[Annotated[str, Field(min_length=2, max_length=40)]] | None = Field(
-        None, description="ISO 3166-1 alpha-2 codes and names of the catalog's jurisdiction groups")
+    dataset_tb: Terabytes = 0.0
+    checkpoint_tb: Annotated[float, Field(gt=0, le=limits.MAX_TB, allow_inf_nan=False)] | None = None
+    checkpoints_kept: Annotated[int, Field(gt=0, le=limits.MAX_RUNS)] = 1
+    results_egress_tb: Terabytes = 0.0
+    allowed_jurisdictions: list[JurisdictionName] | None = Field(
+        None, max_length=300, description="ISO 3166-1 alpha-2 codes and names of the catalog's jurisdiction groups")
     home: Identifier | None = Field(None, description="the venue where the dataset lives")
     owned_only: bool = False
 
 
 class CampaignIn(Strict):
-    name: str = Field(min_length=1, max_length=200)
-    team: str = Field(min_length=1, max_length=100)
+    name: Name
+    team: Team
     work: WorkIn
     runs: RunsIn = Field(default_factory=RunsIn)
     recurrence: RecurrenceIn | None = None
     parallelism: Literal["auto", "replicated", "sharded"] = "auto"
-    deadline_days: PositiveFloat | None = None
+    deadline_days: Annotated[float, Field(gt=0, le=limits.MAX_DAYS, allow_inf_nan=False)] | None = None
     data: DataIn = Field(default_factory=DataIn)
 
 
@@ -141,35 +152,35 @@ class OptionsIn(Strict):
 
 class _NodeOverrides(Strict):
     utilisation: Utilisation | None = Field(None, description="the accelerators' utilisation")
-    mtbf_hours: PositiveFloat | None = Field(None, description="node MTBF")
-    network_gbps: PositiveFloat | None = Field(None, description="the node link")
+    mtbf_hours: Hours | None = Field(None, description="node MTBF")
+    network_gbps: Gbps | None = Field(None, description="the node link")
 
 
 class SiteOverridesIn(_NodeOverrides):
     """Catalog values replaced at one owned site (`overrides.sites.<site id>`); a factor multiplies
     the global one."""
 
-    electricity_price_per_kwh: NonNegativeFloat | None = Field(None, description="owned sites' electricity price")
-    electricity_price_factor: PositiveFloat | None = Field(None, description="multiplies electricity prices")
-    pue: Annotated[float, Field(ge=1, le=5)] | None = Field(None, description="owned sites' PUE")
-    node_price_factor: PositiveFloat | None = Field(None, description="multiplies owned node prices")
+    electricity_price_per_kwh: Amount | None = Field(None, description="owned sites' electricity price")
+    electricity_price_factor: Factor | None = Field(None, description="multiplies electricity prices")
+    pue: Annotated[float, Field(ge=1, le=5, allow_inf_nan=False)] | None = Field(None, description="owned sites' PUE")
+    node_price_factor: Factor | None = Field(None, description="multiplies owned node prices")
     utilisation_planned: Utilisation | None = Field(None, description="owned sites' planned utilisation")
-    grid_kgco2e_per_kwh: NonNegativeFloat | None = Field(None, description="owned sites' grid carbon factor")
+    grid_kgco2e_per_kwh: CarbonIntensity | None = Field(None, description="owned sites' grid carbon factor")
 
 
 class OfferOverridesIn(_NodeOverrides):
     """Catalog values replaced at one rental offer (`overrides.offers.<offer id>`); a factor
     multiplies the global one."""
 
-    on_demand_price_factor: PositiveFloat | None = Field(None, description="multiplies on-demand prices")
-    rented_price_factor: PositiveFloat | None = Field(None, description="multiplies every rented price")
+    on_demand_price_factor: Factor | None = Field(None, description="multiplies on-demand prices")
+    rented_price_factor: Factor | None = Field(None, description="multiplies every rented price")
 
 
 class OverridesIn(SiteOverridesIn, OfferOverridesIn):
     """Catalog values replaced for this request, at every venue, and per site or offer in `sites`
     and `offers`; sweeps vary them as `overrides.<name>` and `overrides.sites.<id>.<name>`."""
 
-    cost_of_capital_annual: Annotated[float, Field(ge=0, le=1)] | None = None
+    cost_of_capital_annual: Annotated[float, Field(ge=0, le=1, allow_inf_nan=False)] | None = None
     sites: dict[Identifier, SiteOverridesIn] = Field(default_factory=dict, description="by site id")
     offers: dict[Identifier, OfferOverridesIn] = Field(default_factory=dict, description="by offer id")
 
@@ -181,7 +192,7 @@ class OverridesIn(SiteOverridesIn, OfferOverridesIn):
 
 
 class QuoteRequestIn(Strict):
-    catalog_id: str | None = Field(None, description="default: the newest catalog")
+    catalog_id: CatalogId | None = Field(None, description="default: the newest catalog")
     campaign: CampaignIn
     options: OptionsIn = Field(default_factory=OptionsIn)
     overrides: OverridesIn = Field(default_factory=OverridesIn)

@@ -3,11 +3,12 @@ distributions, validated field by field."""
 
 from typing import Annotated, Literal
 
-from pydantic import Field, model_validator
+from pydantic import AfterValidator, Field, model_validator
 
-from service.contract.common import Strict
+from service.contract.common import Strict, unsigned_zero
 from service.contract.request import QuoteRequestIn
 from service.domain.distributions import Distribution
+from service.domain.limits import MAX_COUNT
 
 MAX_SEED = 2**63 - 1
 
@@ -18,8 +19,8 @@ class DistributionIn(Strict):
     high: float | None = Field(None, allow_inf_nan=False)
     mode: float | None = Field(None, allow_inf_nan=False)
     mean: float | None = Field(None, allow_inf_nan=False)
-    sd: Annotated[float, Field(ge=0, allow_inf_nan=False)] | None = None
-    sigma: Annotated[float, Field(ge=0, allow_inf_nan=False)] | None = None
+    sd: Annotated[float, Field(ge=0, allow_inf_nan=False), AfterValidator(unsigned_zero)] | None = None
+    sigma: Annotated[float, Field(ge=0, allow_inf_nan=False), AfterValidator(unsigned_zero)] | None = None
     values: list[Annotated[float, Field(allow_inf_nan=False)]] | None = Field(None, min_length=1, max_length=10_000)
     weights: list[Annotated[float, Field(ge=0, allow_inf_nan=False)]] | None = None
 
@@ -58,7 +59,7 @@ class SweepIn(Strict):
     base: QuoteRequestIn
     grid: dict[str, list[Annotated[float, Field(allow_inf_nan=False)]]] | None = Field(
         None, description="path → values; every combination is a scenario")
-    samples: Annotated[int, Field(gt=0)] | None = Field(None, description="Monte Carlo scenarios")
+    samples: Annotated[int, Field(gt=0, le=MAX_COUNT)] | None = Field(None, description="Monte Carlo scenarios")
     seed: Annotated[int, Field(ge=0, le=MAX_SEED)] = 0
     distributions: dict[str, DistributionIn] | None = None
     tornado: TornadoIn | None = None

@@ -251,9 +251,11 @@ def why(ranked: Sequence[OptionResult], i: int, evaluation: CampaignEvaluation, 
                 "out (see its reasons)")
         return head + "." + _views(best, other_best, costs[0], i, view, currency, owned_compared)
     runner = ranked[1]
-    gap = amount(1) - total
-    head = (f"{best.label} costs {figure}{on_view}, {_n(gap)} {currency} "
-            f"({_pct(gap / amount(1))}) less than the runner-up {runner.label}")
+    runner_total = amount(1)
+    gap = runner_total - total
+    share = f" ({_pct(gap / runner_total)})" if runner_total > 0 else ""  # both free: no share of nothing
+    head = (f"{best.label} costs {figure}{on_view}, {_n(gap)} {currency}{share} "
+            f"less than the runner-up {runner.label}")
     if rank_by == "wall_clock":
         head = (f"{best.label} finishes in {_n(best.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} days against "
                 f"{_n(runner.layout.wall_seconds[i] / SECONDS_PER_DAY, 1)} for {runner.label}, at {figure}")

@@ -40,6 +40,7 @@ MEMORY, NODE_LIMIT, DEADLINE, PINNED = 0, 1, 2, 3
 DEADLINE_ITERATIONS = 4  # false-position steps towards the fewest nodes that meet the deadline
 TABLE_RUNGS = 16  # node counts per shape in the table the deadline is solved on
 TABLE_KEY = 2.0**40  # (shape, count) keys: shape × TABLE_KEY + count, counts below it
+MAX_UNITS = TABLE_KEY - 2.0  # node units a candidate may have: beyond any venue (limits.MAX_NODES)
 
 
 @dataclass(frozen=True)
@@ -116,11 +117,13 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
                          np.full(tensor.shape, PINNED))
         return Candidates((evaluate_columns(load, hardware, pinned, found),)), fewest
     tensor, pipeline = found.tensor[np.newaxis, :], found.pipeline[np.newaxis, :]
-    k_min = np.where(np.isfinite(k_min), k_min, 1.0)  # evaluated all the same; it will not fit
+    # Evaluated all the same where nothing fits; counts beyond any venue are cut to one that still
+    # does not fit, so that every count stays a small exact integer.
+    k_min = np.minimum(np.where(np.isfinite(k_min), k_min, 1.0), MAX_UNITS)
     k_batch = _batch_units(load, hardware, found, unit)
     tops = [np.maximum(np.minimum(np.floor(as_floats(limit).reshape(-1, 1) / unit + 1e-9), k_batch), 1.0)
             for limit in node_limits]
-    k_top = np.maximum(np.maximum.reduce(np.broadcast_arrays(*tops)), k_min)
+    k_top = np.minimum(np.maximum(np.maximum.reduce(np.broadcast_arrays(*tops)), k_min), MAX_UNITS)
 
     def columns(k: Floats, origin: int) -> Columns:
         nodes = k * unit

@@ -13,6 +13,7 @@ from typing import Any
 
 import numpy as np
 
+from service.domain import limits
 from service.domain.arrays import Floats
 from service.domain.campaign import (
     OFFER_OVERRIDES,
@@ -95,24 +96,29 @@ def _override(name: str) -> Setter:
 
 
 _CAMPAIGN_PATHS: tuple[tuple[InputPath, Setter], ...] = (
-    (InputPath("campaign.work.parameters", "parameters", 0, True), _any_work("parameters")),
-    (InputPath("campaign.work.tokens", "tokens", 0, True), _work(TransformerWork, "tokens")),
-    (InputPath("campaign.work.total_flops", "FLOPs", 0, True), _work(FlopsWork, "total_flops")),
-    (InputPath("campaign.work.samples", "samples", 0, True), _work(MeasuredWork, "samples")),
-    (InputPath("campaign.work.samples_per_second_per_accelerator", "samples/s", 0, True),
+    (InputPath("campaign.work.parameters", "parameters", 0, True, limits.MAX_QUANTITY), _any_work("parameters")),
+    (InputPath("campaign.work.tokens", "tokens", 0, True, limits.MAX_QUANTITY), _work(TransformerWork, "tokens")),
+    (InputPath("campaign.work.total_flops", "FLOPs", 0, True, limits.MAX_QUANTITY), _work(FlopsWork, "total_flops")),
+    (InputPath("campaign.work.samples", "samples", 0, True, limits.MAX_QUANTITY), _work(MeasuredWork, "samples")),
+    (InputPath("campaign.work.samples_per_second_per_accelerator", "samples/s", 0, True, limits.MAX_QUANTITY),
      _work(MeasuredWork, "samples_per_second_per_accelerator")),
-    (InputPath("campaign.work.global_batch_tokens", "tokens", 0, True), _nested("training", "global_batch_tokens")),
-    (InputPath("campaign.runs.count", "runs", 1, False, integer=True), _nested("runs", "count")),
-    (InputPath("campaign.runs.exploration_fraction", "fraction", 0, False), _nested("runs", "exploration_fraction")),
-    (InputPath("campaign.runs.evaluation_fraction", "fraction", 0, False), _nested("runs", "evaluation_fraction")),
-    (InputPath("campaign.deadline_days", "days", 0, True), _campaign("deadline_days")),
-    (InputPath("campaign.data.dataset_tb", "TB", 0, False), _nested("data", "dataset_tb")),
-    (InputPath("campaign.data.checkpoint_tb", "TB", 0, True), _nested("data", "checkpoint_tb")),
-    (InputPath("campaign.data.checkpoints_kept", "checkpoints", 1, False, integer=True),
+    (InputPath("campaign.work.global_batch_tokens", "tokens", 0, True, limits.MAX_QUANTITY),
+     _nested("training", "global_batch_tokens")),
+    (InputPath("campaign.runs.count", "runs", 1, False, limits.MAX_RUNS, integer=True), _nested("runs", "count")),
+    (InputPath("campaign.runs.exploration_fraction", "fraction", 0, False, limits.MAX_EXTRA_WORK),
+     _nested("runs", "exploration_fraction")),
+    (InputPath("campaign.runs.evaluation_fraction", "fraction", 0, False, limits.MAX_EXTRA_WORK),
+     _nested("runs", "evaluation_fraction")),
+    (InputPath("campaign.deadline_days", "days", 0, True, limits.MAX_DAYS), _campaign("deadline_days")),
+    (InputPath("campaign.data.dataset_tb", "TB", 0, False, limits.MAX_TB), _nested("data", "dataset_tb")),
+    (InputPath("campaign.data.checkpoint_tb", "TB", 0, True, limits.MAX_TB), _nested("data", "checkpoint_tb")),
+    (InputPath("campaign.data.checkpoints_kept", "checkpoints", 1, False, limits.MAX_RUNS, integer=True),
      _nested("data", "checkpoints_kept")),
-    (InputPath("campaign.data.results_egress_tb", "TB", 0, False), _nested("data", "results_egress_tb")),
-    (InputPath("campaign.recurrence.every_months", "months", 0, True), _nested("recurrence", "every_months")),
-    (InputPath("campaign.recurrence.for_months", "months", 0, True), _nested("recurrence", "for_months")),
+    (InputPath("campaign.data.results_egress_tb", "TB", 0, False, limits.MAX_TB), _nested("data", "results_egress_tb")),
+    (InputPath("campaign.recurrence.every_months", "months", 0, True, limits.MAX_MONTHS),
+     _nested("recurrence", "every_months")),
+    (InputPath("campaign.recurrence.for_months", "months", 0, True, limits.MAX_MONTHS),
+     _nested("recurrence", "for_months")),
 )
 
 # Valid ranges of the catalog overrides (the same as the request's `overrides` object).
@@ -120,24 +126,27 @@ _OVERRIDE_RANGES: Mapping[str, InputPath] = {
     "utilisation": InputPath("overrides.utilisation", "fraction", 0, True, 1.0,
                              description="every accelerator's model- or hardware-FLOPs utilisation"),
     "electricity_price_per_kwh": InputPath("overrides.electricity_price_per_kwh", "currency/kWh", 0, False,
+                                           limits.MAX_AMOUNT,
                                            description="every owned site's electricity price"),
-    "electricity_price_factor": InputPath("overrides.electricity_price_factor", "factor", 0, True,
+    "electricity_price_factor": InputPath("overrides.electricity_price_factor", "factor", 0, True, limits.MAX_FACTOR,
                                           description="multiplies every owned site's electricity price"),
-    "on_demand_price_factor": InputPath("overrides.on_demand_price_factor", "factor", 0, True,
+    "on_demand_price_factor": InputPath("overrides.on_demand_price_factor", "factor", 0, True, limits.MAX_FACTOR,
                                         description="multiplies every on-demand price"),
-    "rented_price_factor": InputPath("overrides.rented_price_factor", "factor", 0, True,
+    "rented_price_factor": InputPath("overrides.rented_price_factor", "factor", 0, True, limits.MAX_FACTOR,
                                      description="multiplies every rented price"),
     "pue": InputPath("overrides.pue", "ratio", 1, False, 5.0, description="every owned site's PUE"),
     "cost_of_capital_annual": InputPath("overrides.cost_of_capital_annual", "fraction/year", 0, False, 1.0,
                                         description="the catalog's cost of capital"),
-    "node_price_factor": InputPath("overrides.node_price_factor", "factor", 0, True,
+    "node_price_factor": InputPath("overrides.node_price_factor", "factor", 0, True, limits.MAX_FACTOR,
                                    description="multiplies every owned node's price"),
     "utilisation_planned": InputPath("overrides.utilisation_planned", "fraction", 0, True, 1.0,
                                      description="every owned site's planned utilisation"),
-    "grid_kgco2e_per_kwh": InputPath("overrides.grid_kgco2e_per_kwh", "kgCO2e/kWh", 0, False,
+    "grid_kgco2e_per_kwh": InputPath("overrides.grid_kgco2e_per_kwh", "kgCO2e/kWh", 0, False, limits.MAX_KGCO2E_PER_KWH,
                                      description="every owned site's grid carbon factor"),
-    "mtbf_hours": InputPath("overrides.mtbf_hours", "hours", 0, True, description="every node type's MTBF"),
-    "network_gbps": InputPath("overrides.network_gbps", "Gb/s", 0, True, description="every node type's link"),
+    "mtbf_hours": InputPath("overrides.mtbf_hours", "hours", 0, True,
+                            limits.MAX_HOURS, description="every node type's MTBF"),
+    "network_gbps": InputPath("overrides.network_gbps", "Gb/s", 0, True,
+                              limits.MAX_GBPS, description="every node type's link"),
 }
 
 PATHS: dict[str, tuple[InputPath, Setter]] = {p.path: (p, s) for p, s in _CAMPAIGN_PATHS}

@@ -1,8 +1,12 @@
 """How figures read in reports (conventions.md: babel for formatting, in reports only). Every
 function takes a number from the stored quote and returns text; None reads as an em dash."""
 
+import decimal
+import functools
 import math
+from collections.abc import Callable
 from decimal import Decimal
+from typing import ParamSpec
 
 from babel import Locale
 from babel.numbers import format_compact_decimal, format_currency, format_decimal
@@ -21,10 +25,24 @@ SUPERSCRIPTS = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
 KIND_LABELS = {"owned": "owned site", "rented": "rented offer", "split": "owned + rented"}
 
 
+Params = ParamSpec("Params")
+
+
+def _wide(render: Callable[Params, str]) -> Callable[Params, str]:
+    """Babel rounds in the current decimal context, whose 28 digits cannot hold a figure of 1e26 to
+    the cent (InvalidOperation); every finite float64 fits in 400."""
+    @functools.wraps(render)
+    def wide(*args: Params.args, **kwargs: Params.kwargs) -> str:
+        with decimal.localcontext(prec=400):
+            return render(*args, **kwargs)
+    return wide
+
+
 def _finite(value: float | None) -> bool:
     return value is not None and math.isfinite(value)
 
 
+@_wide
 def money(value: float | None, currency: str) -> str:
     """An amount in the currency's own minor unit: 51129.83 EUR → '€51,129.83'."""
     if value is None or not _finite(value):
@@ -32,6 +50,7 @@ def money(value: float | None, currency: str) -> str:
     return str(format_currency(value, currency, locale=LOCALE))
 
 
+@_wide
 def money_precise(value: float | None, currency: str, digits: int = 4) -> str:
     """A small rate with more digits than the currency's minor unit: 0.0673 → '€0.0673'."""
     if value is None or not _finite(value):
@@ -40,6 +59,7 @@ def money_precise(value: float | None, currency: str, digits: int = 4) -> str:
                                currency_digits=False))
 
 
+@_wide
 def money_whole(value: float | None, currency: str) -> str:
     """An amount rounded to whole units, for headline figures and chart labels: '€51,130'."""
     if value is None or not _finite(value):
@@ -47,6 +67,7 @@ def money_whole(value: float | None, currency: str) -> str:
     return str(format_currency(round(value), currency, locale=LOCALE, format="¤#,##0", currency_digits=False))
 
 
+@_wide
 def number(value: float | None, digits: int = 0) -> str:
     """A grouped decimal with at most `digits` fraction digits: 15767.9 → '15,767.9'."""
     if value is None or not _finite(value):
@@ -55,6 +76,7 @@ def number(value: float | None, digits: int = 0) -> str:
     return str(format_decimal(value, format=pattern, locale=LOCALE))
 
 
+@_wide
 def fixed(value: float | None, digits: int) -> str:
     """A grouped decimal with exactly `digits` fraction digits: 3.3 → '3.30'."""
     if value is None or not _finite(value):

@@ -1,5 +1,6 @@
 """Building the engine: SQLite tuned for durability, PostgreSQL with a pool that checks itself."""
 
+import os
 import sqlite3
 import time
 from pathlib import Path
@@ -13,16 +14,17 @@ READ_ONLY = "berth_read_only"
 WAL_SWITCH_TIMEOUT_S = 5.0
 
 
-def build_engine(database_url: str) -> Engine:
+def build_engine(database_url: str, *, file_mode: int = 0o600) -> Engine:
     """An engine for the URL. SQLite gets WAL, synchronous=FULL (NORMAL can lose the last commits on
     power loss), a busy timeout, foreign keys, and write transactions that start with BEGIN IMMEDIATE
-    so two writers queue instead of failing halfway."""
+    so two writers queue instead of failing halfway. A new SQLite file is created with `file_mode`
+    (owner only by default; SQLite gives its -wal and -shm files the same)."""
     url = make_url(database_url)
     if url.get_backend_name() != "sqlite":
         return create_engine(url, pool_pre_ping=True)
     memory = url.database in (None, "", ":memory:")
     if not memory and url.database:
-        Path(url.database).parent.mkdir(parents=True, exist_ok=True)
+        _create_file(Path(url.database), file_mode)
     engine = create_engine(
         url,
         connect_args={"check_same_thread": False, "timeout": 5.0},
@@ -47,6 +49,16 @@ def build_engine(database_url: str) -> Engine:
         connection.exec_driver_sql("BEGIN" if read_only else "BEGIN IMMEDIATE")
 
     return engine
+
+
+def _create_file(path: Path, mode: int) -> None:
+    """An empty file is an empty SQLite database; creating it ourselves sets who may read it (the
+    process umask may only take permissions away)."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    try:
+        os.close(os.open(path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, mode))
+    except FileExistsError:
+        return
 
 
 def _switch_to_wal(cursor: Any) -> None:

@@ -1,11 +1,9 @@
 """The repository: every query berth makes, behind one small interface. Use cases open a unit of
 work (`Storage.writing()` or `Storage.reading()`), call these methods, and the unit commits once."""
 
-import base64
-import binascii
 import json
 import uuid
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
@@ -14,12 +12,13 @@ from typing import Any
 import orjson
 from sqlalchemy import Engine, and_, delete, func, or_, text, update
 from sqlalchemy import select as sa_select
-from sqlalchemy.exc import IntegrityError
+from sqlalchemy.exc import DBAPIError, IntegrityError
 from sqlalchemy.orm import defer
 from sqlmodel import Session, col, select
 
-from service.errors import FieldProblem, InvalidInput
+from service.errors import FieldProblem, InvalidInput, StorageFull, Unavailable
 from service.storage.engine import READ_ONLY
+from service.storage.gate import COMMIT_GATE
 from service.storage.tables import (
     ApiKeyRow,
     CatalogRow,
@@ -27,8 +26,11 @@ from service.storage.tables import (
     FleetPlanRow,
     IdempotencyRow,
     QuoteRow,
+    StorageProbeRow,
     SweepRow,
 )
+
+DOCUMENT_BYTES = 16 * 1024 * 1024  # the default limit on one stored answer
 
 
 def utc(moment: datetime) -> datetime:
@@ -166,17 +168,23 @@ def _quote(row: QuoteRow) -> StoredQuote:
                        row.catalog_hash, row.model_version, from_text(row.request), from_text(row.response))
 
 
+EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
+# A cursor is the last item's creation time in microseconds since 1970 and its id: plain enough that
+# the OpenAPI document states its whole form, and every cursor of that form is a valid place to resume.
+CURSOR_PATTERN = r"^[0-9]{1,17}\.[a-z]{1,3}_[A-Za-z0-9]{1,64}$"
+
+
 def encode_cursor(created_at: datetime, ident: str) -> str:
-    raw = f"{utc(created_at).isoformat()}|{ident}".encode()
-    return base64.urlsafe_b64encode(raw).decode().rstrip("=")
+    return f"{(utc(created_at) - EPOCH) // timedelta(microseconds=1)}.{ident}"
 
 
 def decode_cursor(cursor: str) -> tuple[datetime, str]:
+    micros, _, ident = cursor.partition(".")
     try:
-        raw = base64.urlsafe_b64decode(cursor + "=" * (-len(cursor) % 4)).decode()
-        moment, ident = raw.split("|", 1)
-        return utc(datetime.fromisoformat(moment)), ident
-    except (ValueError, binascii.Error, UnicodeDecodeError) as error:
+        if not (micros.isdigit() and ident):
+            raise ValueError(cursor)
+        return EPOCH + timedelta(microseconds=int(micros)), ident
+    except (ValueError, OverflowError) as error:
         problem = FieldProblem("cursor", "pass back the next_cursor of a previous page unchanged")
         raise InvalidInput("the cursor is not one this service issued", [problem]) from error
 
@@ -184,8 +192,19 @@ def decode_cursor(cursor: str) -> tuple[datetime, str]:
 class Repository:
     """Queries over one session; the unit of work around it commits."""
 
-    def __init__(self, session: Session) -> None:
+    def __init__(self, session: Session, *, max_document_bytes: int = DOCUMENT_BYTES) -> None:
         self.session = session
+        self.max_document_bytes = max_document_bytes
+
+    def _answer(self, document: Any) -> str:
+        """An answer as stored text, refused when it is larger than one row may be (what is stored is
+        also what is answered and read back into memory, whole)."""
+        stored = as_text(document)
+        if len(stored) > self.max_document_bytes:
+            raise InvalidInput("the answer is too large to keep", [FieldProblem(
+                "(body)", f"its {len(stored):,} bytes exceed the limit of {self.max_document_bytes:,} per answer; "
+                          "ask for less (fewer candidate sizes, samples or scenarios)")])
+        return stored
 
     # catalogs
     def catalog_by_hash(self, content_hash: str) -> StoredCatalog | None:
@@ -243,7 +262,7 @@ class Repository:
         self.session.add(QuoteRow(
             id=quote.id, created_at=quote.created_at, team=quote.team, campaign_name=quote.campaign_name,
             catalog_id=quote.catalog_id, catalog_hash=quote.catalog_hash, model_version=quote.model_version,
-            request=as_text(quote.request, sort_keys=True), response=as_text(quote.response)))
+            request=as_text(quote.request, sort_keys=True), response=self._answer(quote.response)))
         self.session.flush()
 
     def quote(self, quote_id: str) -> StoredQuote | None:
@@ -271,7 +290,7 @@ class Repository:
 
     # idempotency keys
     def claim_key(self, *, caller: str, key: str, body_hash: str, now: datetime, lease: timedelta,
-                  keep: timedelta) -> Claim:
+                  keep: timedelta, holder: str | None = None) -> Claim:
         """Claim a key for a request, or say what it already holds. An expired key, or a claim whose
         lease ran out (its request died), is taken over."""
         row = self.session.exec(
@@ -292,7 +311,7 @@ class Repository:
         try:
             with self.session.begin_nested():
                 self.session.add(IdempotencyRow(caller=caller, key=key, body_hash=body_hash, state="in_flight",
-                                                claimed_at=now, expires_at=now + keep))
+                                                claimed_at=now, expires_at=now + keep, holder=holder))
         except IntegrityError:
             # Another replica claimed it between our read and our write; its claim is committed now.
             winner = self.session.exec(
@@ -307,7 +326,7 @@ class Repository:
         ).first()
         if row is not None:
             record = row
-            record.state, record.status_code, record.response = "done", status_code, as_text(response)
+            record.state, record.status_code, record.response = "done", status_code, self._answer(response)
             self.session.add(record)
             self.session.flush()
 
@@ -317,6 +336,20 @@ class Repository:
             col(IdempotencyRow.caller) == caller, col(IdempotencyRow.key) == key,
             col(IdempotencyRow.state) == "in_flight"))
 
+    def claim_holders(self) -> list[str]:
+        """The processes holding claims in flight."""
+        query = select(IdempotencyRow.holder).where(col(IdempotencyRow.state) == "in_flight",
+                                                    col(IdempotencyRow.holder).is_not(None)).distinct()
+        return [holder for holder in self.session.exec(query).all() if holder is not None]
+
+    def release_claims_of(self, holders: list[str]) -> int:
+        """Forget the claims in flight of processes that are gone, so their retries run at once."""
+        if not holders:
+            return 0
+        result = self.session.execute(delete(IdempotencyRow).where(
+            col(IdempotencyRow.state) == "in_flight", col(IdempotencyRow.holder).in_(holders)))
+        return int(getattr(result, "rowcount", 0))
+
     # sweeps
     def add_sweep(self, *, sweep_id: str, created_at: datetime, catalog_id: str, status: str, total: int,
                   request: dict[str, Any], result: dict[str, Any] | None = None) -> None:
@@ -324,7 +357,7 @@ class Repository:
         self.session.add(SweepRow(id=sweep_id, created_at=created_at, catalog_id=catalog_id, status=status,
                                   scenarios_total=total, scenarios_done=total if result is not None else 0,
                                   request=as_text(request),
-                                  result=None if result is None else as_text(result),
+                                  result=None if result is None else self._answer(result),
                                   finished_at=created_at if result is not None else None))
         self.session.flush()
 
@@ -332,33 +365,18 @@ class Repository:
         row = self.session.get(SweepRow, sweep_id)
         return None if row is None else _sweep(row)
 
-    def update_sweep(self, sweep_id: str, *, status: str, done: int, result: dict[str, Any] | None = None,
-                     error: str | None = None, finished_at: datetime | None = None,
-                     heartbeat: datetime | None = None) -> None:
-        row = self.session.get(SweepRow, sweep_id)
-        if row is None:
-            return
-        row.status, row.scenarios_done = status, done
-        if heartbeat is not None:
-            row.heartbeat_at = heartbeat
-        if result is not None:
-            row.result = as_text(result)
-        if error is not None:
-            row.error = error
-        if finished_at is not None:
-            row.finished_at = finished_at
-        self.session.add(row)
-        self.session.flush()
-
-    def claim_sweep(self, sweep_id: str, *, now: datetime, stale_after: timedelta) -> bool:
-        """Take a queued sweep, or one whose runner stopped beating, for this process. Exactly one
-        replica wins: the update is conditional and atomic."""
+    def claim_sweep(self, sweep_id: str, *, runner: str, now: datetime, stale_after: timedelta,
+                    dead_runners: Sequence[str] = ()) -> bool:
+        """Take a queued sweep, or a running one whose runner stopped beating or is known dead, for
+        `runner`. Exactly one process wins: the update is conditional and atomic."""
+        taken_over = col(SweepRow.heartbeat_at) < now - stale_after
+        if dead_runners:
+            taken_over = or_(taken_over, col(SweepRow.runner).in_(list(dead_runners)))
         result = self.session.execute(
             update(SweepRow)
             .where(col(SweepRow.id) == sweep_id)
-            .where(or_(col(SweepRow.status) == "queued",
-                       and_(col(SweepRow.status) == "running", col(SweepRow.heartbeat_at) < now - stale_after)))
-            .values(status="running", heartbeat_at=now, scenarios_done=0))
+            .where(or_(col(SweepRow.status) == "queued", and_(col(SweepRow.status) == "running", taken_over)))
+            .values(status="running", runner=runner, heartbeat_at=now, scenarios_done=0))
         return bool(getattr(result, "rowcount", 0) == 1)
 
     def sweeps(self, *, limit: int, cursor: str | None) -> tuple[list[StoredSweep], str | None]:
@@ -366,15 +384,50 @@ class Repository:
                               SweepRow, cursor, limit)
         return _page([_sweep(r, documents=False) for r in self.session.exec(query).all()], limit)
 
-    def unfinished_sweeps(self) -> list[StoredSweep]:
-        query = select(SweepRow).where(col(SweepRow.status).in_(("queued", "running")))
-        return [_sweep(r) for r in self.session.exec(query.order_by(col(SweepRow.created_at))).all()]
+    def beat_sweep(self, sweep_id: str, *, runner: str, now: datetime, done: int | None = None) -> bool:
+        """The runner is alive (and how far it got): False when the sweep is no longer its own to run
+        (cancelled, or taken over after it stopped beating)."""
+        values: dict[str, Any] = {"heartbeat_at": now}
+        if done is not None:
+            values["scenarios_done"] = done
+        return self._update_own_sweep(sweep_id, runner, values)
+
+    def finish_sweep(self, sweep_id: str, *, runner: str, status: str, done: int, finished_at: datetime,
+                     result: dict[str, Any] | None = None, error: str | None = None) -> bool:
+        return self._update_own_sweep(sweep_id, runner, {
+            "status": status, "scenarios_done": done, "finished_at": finished_at, "runner": None,
+            "result": None if result is None else self._answer(result), "error": error})
+
+    def hand_back_sweep(self, sweep_id: str, *, runner: str) -> bool:
+        """Queue a running sweep again, for any process to take up (this one is stopping)."""
+        return self._update_own_sweep(sweep_id, runner, {
+            "status": "queued", "runner": None, "heartbeat_at": None, "scenarios_done": 0})
+
+    def _update_own_sweep(self, sweep_id: str, runner: str, values: dict[str, Any]) -> bool:
+        result = self.session.execute(
+            update(SweepRow).where(col(SweepRow.id) == sweep_id, col(SweepRow.runner) == runner,
+                                   col(SweepRow.status) == "running").values(**values))
+        return bool(getattr(result, "rowcount", 0) == 1)
+
+    def cancel_sweep(self, sweep_id: str, *, now: datetime) -> bool:
+        """Cancel a queued or running sweep; whatever it computed so far is dropped."""
+        result = self.session.execute(
+            update(SweepRow).where(col(SweepRow.id) == sweep_id, col(SweepRow.status).in_(("queued", "running")))
+            .values(status="cancelled", finished_at=now, runner=None, result=None))
+        return bool(getattr(result, "rowcount", 0) == 1)
+
+    def unfinished_sweeps(self) -> list[tuple[str, str, str | None, datetime | None]]:
+        """(id, status, runner, heartbeat) of every queued or running sweep, oldest first."""
+        query = (select(SweepRow.id, SweepRow.status, SweepRow.runner, SweepRow.heartbeat_at)
+                 .where(col(SweepRow.status).in_(("queued", "running"))).order_by(col(SweepRow.created_at)))
+        return [(row[0], row[1], row[2], None if row[3] is None else utc(row[3]))
+                for row in self.session.exec(query).all()]
 
     # fleet plans
     def add_fleet_plan(self, *, plan_id: str, created_at: datetime, catalog_id: str, request: dict[str, Any],
                        response: dict[str, Any]) -> None:
         self.session.add(FleetPlanRow(id=plan_id, created_at=created_at, catalog_id=catalog_id,
-                                      request=as_text(request, sort_keys=True), response=as_text(response)))
+                                      request=as_text(request, sort_keys=True), response=self._answer(response)))
         self.session.flush()
 
     def fleet_plans(self, *, limit: int, cursor: str | None) -> tuple[list[StoredFleetPlan], str | None]:
@@ -421,6 +474,11 @@ class Repository:
     def ping(self) -> None:
         self.session.execute(text("SELECT 1"))
 
+    def write_probe(self, *, holder: str, now: datetime) -> None:
+        """A small real write, to learn whether the storage takes writes again."""
+        self.session.merge(StorageProbeRow(holder=holder, written_at=now, filler="-" * PROBE_BYTES))
+        self.session.flush()
+
 
 def _newest_first(query: Any, table: Any, cursor: str | None, limit: int) -> Any:
     """A page of `limit` rows (and one more, to know whether another page follows), newest first, after
@@ -439,23 +497,67 @@ def _page(rows: list[Any], limit: int) -> tuple[list[Any], str | None]:
     return rows[:limit], encode_cursor(last.created_at, last.id)
 
 
+def out_of_space(error: DBAPIError) -> bool:
+    """Whether a database error says the disk (or the database's quota) is full: SQLite's SQLITE_FULL,
+    PostgreSQL's disk_full (53100), or ENOSPC from below either."""
+    original = error.orig
+    if getattr(original, "sqlite_errorcode", None) == SQLITE_FULL or getattr(original, "sqlstate", None) == "53100":
+        return True
+    message = str(original).lower()
+    return "database or disk is full" in message or "no space left on device" in message
+
+
+SQLITE_FULL = 13
+PROBE_BYTES = 128 * 1024  # a write as large as a large quote
+
+
 class Storage:
     """The engine and units of work over it."""
 
-    def __init__(self, engine: Engine) -> None:
+    def __init__(self, engine: Engine, *, max_document_bytes: int = DOCUMENT_BYTES) -> None:
         self.engine = engine
+        self.max_document_bytes = max_document_bytes
+        self.full = False  # the last write failed for want of space; the next that succeeds clears it
+        self.closed = False
 
     @contextmanager
-    def writing(self) -> Iterator[Repository]:
-        """One write transaction (BEGIN IMMEDIATE on SQLite): committed when the block ends."""
-        with Session(self.engine, expire_on_commit=False) as session, session.begin():
-            yield Repository(session)
+    def writing(self, *, claim: bool = False, gated: bool = True) -> Iterator[Repository]:
+        """One write transaction (BEGIN IMMEDIATE on SQLite): committed when the block ends, unless the
+        request it serves has timed out (`COMMIT_GATE`), when it is rolled back. A `claim` taken before
+        the work leaves the request's time limit armed; any other commit disarms it. `gated=False`
+        for the clean-up after a failure, which must go through."""
+        gate = COMMIT_GATE.get() if gated else None
+        with Session(self.engine, expire_on_commit=False) as session:
+            try:
+                transaction = session.begin()
+                try:
+                    yield Repository(session, max_document_bytes=self.max_document_bytes)
+                    if gate is not None and not gate.enter():
+                        raise Unavailable("the request took longer than its time limit; nothing was stored")
+                except BaseException:
+                    transaction.rollback()
+                    raise
+                committed = False
+                try:
+                    transaction.commit()
+                    committed = True
+                finally:
+                    if gate is not None:
+                        gate.leave(final=committed and not claim)
+            except DBAPIError as error:
+                if not out_of_space(error):
+                    raise
+                self.full = True
+                raise StorageFull from error
+        self.full = False
 
     @contextmanager
     def reading(self) -> Iterator[Repository]:
         with Session(self.engine) as session:
             session.connection(execution_options={READ_ONLY: True})
-            yield Repository(session)
+            yield Repository(session, max_document_bytes=self.max_document_bytes)
 
     def dispose(self) -> None:
+        """Close every connection; the storage is not used again (background work stops looking)."""
+        self.closed = True
         self.engine.dispose()

@@ -63,6 +63,7 @@ class IdempotencyRow(SQLModel, table=True):
     key: str = Field(max_length=255)
     body_hash: str = Field(max_length=64)
     state: str = Field(max_length=16)  # "in_flight" or "done"
+    holder: str | None = Field(default=None, max_length=120)  # the process running it (`liveness.this_process`)
     status_code: int | None = None
     response: str | None = Field(default=None, sa_column=Column(Text, nullable=True))
     claimed_at: datetime = Field(sa_column=_utc_column())
@@ -78,7 +79,7 @@ class SweepRow(SQLModel, table=True):
     id: str = Field(primary_key=True, max_length=40)
     created_at: datetime = Field(sa_column=_utc_column(index=True))
     catalog_id: str = Field(foreign_key="catalog.id", max_length=40)
-    status: str = Field(max_length=16)  # queued, running, done, failed
+    status: str = Field(max_length=16)  # queued, running, done, failed, cancelled
     scenarios_total: int
     scenarios_done: int = 0
     request: str = Field(sa_column=Column(Text, nullable=False))
@@ -86,6 +87,7 @@ class SweepRow(SQLModel, table=True):
     error: str | None = Field(default=None, sa_column=Column(Text, nullable=True))
     finished_at: datetime | None = Field(default=None, sa_column=Column(DateTime(timezone=True), nullable=True))
     heartbeat_at: datetime | None = Field(default=None, sa_column=Column(DateTime(timezone=True), nullable=True))
+    runner: str | None = Field(default=None, max_length=120)  # the process running it (`liveness.this_process`)
 
 
 class FleetPlanRow(SQLModel, table=True):
@@ -112,3 +114,14 @@ class ApiKeyRow(SQLModel, table=True):
     team: str = Field(max_length=100)
     created_at: datetime = Field(sa_column=_utc_column())
     revoked_at: datetime | None = Field(default=None, sa_column=Column(DateTime(timezone=True), nullable=True))
+
+
+class StorageProbeRow(SQLModel, table=True):
+    """One row per process, rewritten by /readyz after a write failed for want of space, with a filler
+    the size of a large quote: the service is ready again once such a write commits."""
+
+    __tablename__ = "storage_probe"
+
+    holder: str = Field(primary_key=True, max_length=120)
+    written_at: datetime = Field(sa_column=_utc_column())
+    filler: str = Field(sa_column=Column(Text, nullable=False))

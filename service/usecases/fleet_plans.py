@@ -41,6 +41,7 @@ QuoteLookup = Callable[[Sequence[str]], list[StoredQuote | None]]
 class FleetLimits:
     max_cells: int = 50_000_000  # candidate sizes × samples × months
     max_stage_moves: int = 20_000_000  # candidate sizes² × decision points, for the staged plan
+    max_candidates: int = 2_000  # candidate sizes, each a row of the answer
 
 
 def _venues(catalog: Catalog, request: FleetPlanIn) -> tuple[Site, Offer]:
@@ -124,6 +125,10 @@ def _demand_from_quotes(request: FleetPlanIn, lookup: QuoteLookup | None) -> np.
 def fleet_plan(catalog_in: CatalogIn, request: FleetPlanIn, *, limits: FleetLimits,
                lookup: QuoteLookup | None = None) -> dict[str, Any]:
     """The plan's answer body (without the stored id)."""
+    if request.candidate_nodes.count > limits.max_candidates:
+        raise InvalidInput("the plan is too large", [FieldProblem(
+            "candidate_nodes", f"{request.candidate_nodes.count:,} candidate sizes exceed the limit of "
+                               f"{limits.max_candidates:,}; widen the step")])
     catalog = catalog_in.to_domain()
     site, offer = _venues(catalog, request)
     c = request.candidate_nodes

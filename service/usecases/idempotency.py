@@ -11,6 +11,7 @@ from typing import Any
 from service.errors import Conflict, FieldProblem, InvalidInput
 from service.storage.repository import Repository, Storage
 from service.usecases.access import Principal
+from service.usecases.liveness import dead_here, this_process
 
 IDEMPOTENCY_KEEP = timedelta(hours=24)
 IDEMPOTENCY_LEASE = timedelta(seconds=60)
@@ -46,9 +47,9 @@ def once_per_key(storage: Storage, *, caller: Principal, key: str | None, body: 
     while the first still runs is told to wait. Without a key, `create` just runs."""
     if key is None:
         return create(None)
-    with storage.writing() as repository:
+    with storage.writing(claim=True) as repository:
         claim = repository.claim_key(caller=caller.key_id, key=key, body_hash=body_fingerprint(body), now=clock(),
-                                     lease=IDEMPOTENCY_LEASE, keep=IDEMPOTENCY_KEEP)
+                                     lease=IDEMPOTENCY_LEASE, keep=IDEMPOTENCY_KEEP, holder=this_process())
     if not claim.same_body:
         raise InvalidInput("this Idempotency-Key was used with a different request body", [
             FieldProblem("header.idempotency-key", "already used with another request body; send a new key")])
@@ -63,6 +64,17 @@ def once_per_key(storage: Storage, *, caller: Principal, key: str | None, body: 
     try:
         return create(keep)
     except Exception:
-        with storage.writing() as repository:
+        with storage.writing(gated=False) as repository:
             repository.release_key(caller=caller.key_id, key=key)
         raise
+
+
+def release_dead_claims(storage: Storage) -> int:
+    """Release the claims in flight of processes on this host that are gone (a SIGKILL, a crash), so a
+    retry with the same key runs at once instead of waiting out the lease. Run at start."""
+    with storage.reading() as repository:
+        dead = [holder for holder in repository.claim_holders() if dead_here(holder)]
+    if not dead:
+        return 0
+    with storage.writing() as repository:
+        return repository.release_claims_of(dead)

@@ -19,14 +19,22 @@ Model = TypeVar("Model", bound=BaseModel)
 
 
 def parse_document(text: str, *, source: str) -> Any:
-    """JSON, or YAML when it is not JSON."""
+    """JSON, or YAML when it is not JSON. A document nested deeper than any catalog or request is
+    refused rather than parsed to the end of the stack."""
     try:
         return json.loads(text)
+    except RecursionError as error:
+        raise InvalidInput(f"{source} is nested too deeply", [TOO_DEEP]) from error
     except json.JSONDecodeError as json_error:
         try:
             return yaml.safe_load(text)
+        except RecursionError as error:
+            raise InvalidInput(f"{source} is nested too deeply", [TOO_DEEP]) from error
         except yaml.YAMLError:
             raise InvalidInput(f"{source} is neither valid JSON nor YAML: {json_error}") from json_error
+
+
+TOO_DEEP = FieldProblem("(body)", "objects and lists are nested too deeply to be a catalog or a request")
 
 
 def field_problems(error: ValidationError, model: type[BaseModel] | None = None) -> list[FieldProblem]:
@@ -130,10 +138,25 @@ def validate(model: type[Model], data: Any, *, source: str) -> Model:
         raise InvalidInput(f"{source} is not valid", [FieldProblem("(body)", f"expected a JSON or YAML object, "
                                                                              f"found {kind}")])
     try:
-        # Lax on purpose: PyYAML (YAML 1.1) reads 1.4e12 as a string, and files may be YAML.
-        return model.model_validate(data, strict=False)
+        # Validated as the JSON it is (or as JSON of the YAML): strict, as request bodies are (a `false`
+        # is not a 0), once the numbers YAML 1.1 leaves as text are numbers again (PyYAML reads 1.4e12
+        # and 1e12 as strings: its floats need a dot and a signed exponent).
+        return model.model_validate_json(json.dumps(_yaml_exponents(data), default=str))
     except ValidationError as error:
         raise InvalidInput(f"{source} is not valid", field_problems(error, model)) from error
+
+
+EXPONENT_NUMBER = re.compile(r"[-+]?(\d+(\.\d*)?|\.\d+)[eE][-+]?\d+")
+
+
+def _yaml_exponents(data: Any) -> Any:
+    if isinstance(data, dict):
+        return {key: _yaml_exponents(value) for key, value in data.items()}
+    if isinstance(data, list):
+        return [_yaml_exponents(value) for value in data]
+    if isinstance(data, str) and EXPONENT_NUMBER.fullmatch(data):
+        return float(data)
+    return data
 
 
 def load_file(model: type[Model], path: Path) -> Model:

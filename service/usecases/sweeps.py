@@ -4,9 +4,8 @@ in chunks with progress, and shape its summary, tornado and rows (JSON and strea
 import csv
 import io
 import logging
-import time
+import threading
 from collections.abc import Callable, Iterator
-from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any
@@ -20,11 +19,12 @@ from service.domain.catalog import Catalog
 from service.domain.explain import CAUTIONS
 from service.domain.sweep import ChunkResult, SweepPlan, SweepSummary, chunk_size, scenario_chunks, tornado
 from service.domain.whatif import InputPath, UnknownPath, apply, base_value, input_path, venue_of
-from service.errors import FieldProblem, InvalidInput, NotFound
+from service.errors import Conflict, FieldProblem, InvalidInput, NotFound
 from service.storage.repository import Storage, StoredSweep, new_id
 from service.usecases.catalogs import ParsedCatalogs, catalog_to_use
 from service.usecases.chunk_pool import evaluated, keep_freed_arrays
 from service.usecases.idempotency import Created, KeepAnswer
+from service.usecases.liveness import dead_here, this_process
 from service.usecases.quoting import request_problems, unknown_venue
 
 log = logging.getLogger("berth.sweeps")
@@ -101,12 +101,15 @@ def _support_problem(rule: InputPath, spec: DistributionIn) -> str | None:
         return f"takes whole numbers; a {spec.kind} distribution draws fractions (use a choice distribution)"
     if spec.kind == "choice":
         return rule.problems(np.asarray(spec.values, dtype=np.float64))
+    # An unbounded tail is judged by where it reaches with any chance that matters: 12 standard
+    # deviations (a chance below 1e-32 per draw) stand in for infinity against a finite ceiling.
     if spec.kind == "lognormal":
-        lowest, highest = 0.0, np.inf
+        lowest, highest = 0.0, float(np.exp(min((spec.mean or 0.0) + TAIL_SIGMAS * (spec.sigma or 0.0), 709.0)))
         open_low = True
     elif spec.kind == "normal":
+        reach = TAIL_SIGMAS * (spec.sd or 0.0)
         lowest = -np.inf if spec.low is None else spec.low
-        highest = np.inf if spec.high is None else spec.high
+        highest = (spec.mean or 0.0) + reach if spec.high is None else spec.high
         open_low = False
     else:
         lowest, highest, open_low = float(spec.low or 0.0), float(spec.high or 0.0), False
@@ -118,6 +121,8 @@ def _support_problem(rule: InputPath, spec: DistributionIn) -> str | None:
         return f"this {spec.kind} distribution can draw values outside the valid range ({bound}){hint}"
     return None
 
+
+TAIL_SIGMAS = 12.0
 
 Progress = Callable[[int, int], None]
 
@@ -294,7 +299,7 @@ def submit_sweep(storage: Storage, catalogs: ParsedCatalogs, sweep: SweepIn, *, 
         if keep is not None:
             keep(repository, status_code, body)
     if not at_once:
-        runner.submit(sweep_id)
+        runner.wake()
     return Created(status_code, body)
 
 
@@ -342,65 +347,173 @@ def prepared_from_store(storage: Storage, catalogs: ParsedCatalogs, sweep_id: st
                          SweepLimits(max_scenarios=stored.scenarios_total))
 
 
+def cancel_sweep(storage: Storage, sweep_id: str, *, now: datetime) -> dict[str, Any]:
+    """Cancel a queued or running sweep: its status becomes `cancelled` at once, and the scenarios it
+    evaluated so far are dropped (a partial summary would read as the answer; `scenarios_done` says
+    how far it got). The process running it stops at its next chunk or heartbeat. Cancelling a
+    cancelled sweep answers the same; a finished one cannot be cancelled."""
+    with storage.writing() as repository:
+        repository.cancel_sweep(sweep_id, now=now)
+        stored = repository.sweep(sweep_id)
+    if stored is None:
+        raise NotFound(f"no sweep {sweep_id!r}")
+    if stored.status in ("done", "failed"):
+        raise Conflict(f"sweep {sweep_id!r} has already finished ({stored.status}); there is nothing to cancel")
+    return status_body(stored)
+
+
+class _Stopped(Exception):
+    """The sweep is no longer this process's to run: cancelled, taken over, or handed back."""
+
+
+@dataclass(frozen=True)
+class RunnerTiming:
+    heartbeat_seconds: float = 5.0  # how often a running sweep's runner says it is alive
+    stale_after_seconds: float = 15.0  # a running sweep with no heartbeat for this long is taken over
+
+
 class SweepRunner:
-    """Runs queued sweeps one at a time on a background thread, writing progress as it goes.
-    `count_scenarios` is told how many scenarios each finished sweep evaluated (the HTTP layer hands
-    in its metrics counter; use cases never import it)."""
+    """Runs sweeps in the background, one at a time per process, on a thread of its own.
+
+    Any process may run any queued sweep: the runner claims one atomically, beats a heartbeat while it
+    runs it (a thread of its own, so a long chunk does not look like death), and looks for work every
+    heartbeat: sweeps queued by any replica, sweeps whose runner stopped beating (taken over after
+    `stale_after_seconds`), and sweeps whose runner was a process on this host that is gone (taken
+    over at once, so a restart resumes them without waiting). `shutdown` (SIGTERM) hands the running
+    sweep back to the queue. `count_scenarios` is told how many scenarios each finished sweep
+    evaluated (the HTTP layer hands in its metrics counter; use cases never import it)."""
 
     def __init__(self, storage: Storage, catalogs: ParsedCatalogs, clock: Callable[[], datetime], *,
-                 count_scenarios: Callable[[int], None] = lambda _scenarios: None) -> None:
+                 count_scenarios: Callable[[int], None] = lambda _scenarios: None,
+                 timing: RunnerTiming = RunnerTiming()) -> None:
         self._storage, self._catalogs, self._clock = storage, catalogs, clock
         self._count_scenarios = count_scenarios
-        self._executor: ThreadPoolExecutor | None = None
+        self._timing = timing
+        self._stale_after = timedelta(seconds=timing.stale_after_seconds)
+        self._wake = threading.Event()
+        self._stopping = threading.Event()
+        self._lost = threading.Event()  # the running sweep is no longer ours
+        self._lock = threading.Lock()
+        self._thread: threading.Thread | None = None
+        self._running: str | None = None
+        self.runner = this_process()
 
-    def submit(self, sweep_id: str) -> Future[None]:
-        if self._executor is None:
-            # The service's sweeps allocate and free the same large arrays as the command line's
-            # workers: keep that memory rather than fault it in afresh (at most 256 MB kept freed).
-            keep_freed_arrays()
-            self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="sweep")
-        return self._executor.submit(self._run, sweep_id)
+    def wake(self) -> None:
+        """A sweep was queued: look for work now rather than at the next heartbeat (the oldest
+        claimable sweep runs first, whichever process queued it)."""
+        self._start()
+        self._wake.set()
 
     def resume(self) -> int:
-        """Queue again every sweep a previous process accepted but did not finish."""
-        with self._storage.reading() as repository:
-            unfinished = repository.unfinished_sweeps()
-        for stored in unfinished:
-            self.submit(stored.id)
-        return len(unfinished)
+        """Start looking for work; the number of unfinished sweeps this process could take up now."""
+        self._start()
+        return len(self._claimable())
 
     def shutdown(self) -> None:
-        if self._executor is not None:
-            self._executor.shutdown(wait=False, cancel_futures=True)
+        """Stop looking for work and hand the running sweep back to the queue, for a replica or the
+        next start of this one; its thread stops at its next chunk without writing."""
+        self._stopping.set()
+        self._wake.set()
+        with self._lock:
+            running = self._running
+            self._running = None
+        if running is not None:
+            self._lost.set()
+            with self._storage.writing() as repository:
+                if repository.hand_back_sweep(running, runner=self.runner):
+                    log.info("handed sweep %s back to the queue", running)
+
+    def _start(self) -> None:
+        with self._lock:
+            if self._thread is None and not self._stopping.is_set():
+                # The service's sweeps allocate and free the same large arrays as the command line's
+                # workers: keep that memory rather than fault it in afresh (at most 256 MB kept freed).
+                keep_freed_arrays()
+                self._thread = threading.Thread(target=self._loop, name="sweeps", daemon=True)
+                self._thread.start()
+
+    def _claimable(self) -> list[tuple[str, str | None]]:
+        """(id, runner) of each sweep this process may take up now, oldest first."""
+        now = self._clock()
+        with self._storage.reading() as repository:
+            unfinished = repository.unfinished_sweeps()
+        return [(sweep_id, runner) for sweep_id, status, runner, beat in unfinished
+                if status == "queued" or beat is None or beat < now - self._stale_after or dead_here(runner)]
+
+    def _loop(self) -> None:
+        while not (self._stopping.is_set() or self._storage.closed):
+            self._wake.clear()
+            try:
+                ran = self._run_one()
+            except Exception:  # the database is away, say: look again at the next heartbeat
+                if self._storage.closed:
+                    return
+                log.exception("looking for sweeps to run failed")
+                ran = False
+            if not ran:
+                self._wake.wait(self._timing.heartbeat_seconds)
+
+    def _run_one(self) -> bool:
+        """Claim and run the oldest claimable sweep; False when there was none."""
+        for sweep_id, runner in self._claimable():
+            if self._stopping.is_set():
+                return False
+            dead = [runner] if runner is not None and dead_here(runner) else []
+            with self._storage.writing() as repository:
+                claimed = repository.claim_sweep(sweep_id, runner=self.runner, now=self._clock(),
+                                                 stale_after=self._stale_after, dead_runners=dead)
+            if claimed:
+                self._run(sweep_id)
+                return True
+        return False
 
     def _run(self, sweep_id: str) -> None:
-        last = [0.0]
+        with self._lock:
+            if self._stopping.is_set():
+                return
+            self._running = sweep_id
+            self._lost.clear()
+        done = [0]
+        beating = threading.Event()
 
-        def progress(done: int, _total: int) -> None:
-            moment = time.monotonic()
-            if moment - last[0] >= PROGRESS_EVERY_SECONDS:
-                last[0] = moment
-                with self._storage.writing() as repository:
-                    repository.update_sweep(sweep_id, status="running", done=done, heartbeat=self._clock())
+        def heartbeat() -> None:
+            while not beating.wait(self._timing.heartbeat_seconds):
+                try:
+                    with self._storage.writing() as repository:
+                        ours = repository.beat_sweep(sweep_id, runner=self.runner, now=self._clock(), done=done[0])
+                except Exception:  # a missed beat: the next one may get through
+                    log.exception("heartbeat of sweep %s failed", sweep_id)
+                    continue
+                if not ours:
+                    self._lost.set()
+                    return
 
-        with self._storage.writing() as repository:
-            claimed = repository.claim_sweep(sweep_id, now=self._clock(), stale_after=STALE_AFTER)
-        if not claimed:
-            return  # another process runs it, or it is finished
+        def progress(scenarios: int, _total: int) -> None:
+            done[0] = scenarios
+            if self._lost.is_set():
+                raise _Stopped
+
+        beat = threading.Thread(target=heartbeat, name=f"heartbeat-{sweep_id}", daemon=True)
+        beat.start()
         try:
             prepared = prepared_from_store(self._storage, self._catalogs, sweep_id)
             summary, rows = run(prepared, progress=progress)
-            self._count_scenarios(prepared.plan.scenarios)
             document = sweep_document(prepared, summary, rows, tornado_bars(prepared))
             with self._storage.writing() as repository:
-                repository.update_sweep(sweep_id, status="done", done=prepared.plan.scenarios, result=document,
-                                        finished_at=self._clock())
+                finished = repository.finish_sweep(sweep_id, runner=self.runner, status="done",
+                                                   done=prepared.plan.scenarios, result=document,
+                                                   finished_at=self._clock())
+            if finished:
+                self._count_scenarios(prepared.plan.scenarios)
+        except _Stopped:
+            log.info("sweep %s stopped: cancelled, taken over or handed back", sweep_id)
         except Exception as error:  # a sweep that fails says why; the service goes on
             log.exception("sweep %s failed", sweep_id)
             with self._storage.writing() as repository:
-                repository.update_sweep(sweep_id, status="failed", done=0, error=f"{type(error).__name__}: {error}",
-                                        finished_at=self._clock())
-
-
-PROGRESS_EVERY_SECONDS = 1.0
-STALE_AFTER = timedelta(minutes=2)  # a running sweep with no progress for this long is taken over
+                repository.finish_sweep(sweep_id, runner=self.runner, status="failed", done=done[0],
+                                        error=f"{type(error).__name__}: {error}", finished_at=self._clock())
+        finally:
+            beating.set()
+            with self._lock:
+                if self._running == sweep_id:
+                    self._running = None

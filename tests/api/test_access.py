@@ -140,6 +140,8 @@ ROUTES = [
     Route("GET", "/v1/sweeps/{sweep_id}", ANALYSTS),
     Route("GET", "/v1/sweeps/{sweep_id}/rows.csv", ANALYSTS),
     Route("GET", "/v1/fleet-plans", ANALYSTS),
+    # The matrix's sweep is answered at once: a permitted cancel finds it finished (409).
+    Route("DELETE", "/v1/sweeps/{sweep_id}", {"analyst": 409, "admin": 409}),
     Route("POST", "/v1/fleet-plans", ANALYSTS_CREATE, body=plan_body),
     Route("GET", "/v1/fleet-plans/{plan_id}", ANALYSTS),
     Route("GET", "/v1/fleet-plans/{plan_id}/chart.svg", ANALYSTS),

@@ -7,30 +7,23 @@ import asyncio
 import copy
 import io
 import json
-import logging
 import re
 import subprocess
 import sys
 import threading
 import time
-from collections.abc import AsyncIterator, Callable, Iterator
-from contextlib import asynccontextmanager
+from collections.abc import AsyncIterator, Callable
 from pathlib import Path
 from typing import Any
 
 import anyio
 import httpx
 import pytest
-from fastapi import FastAPI
 from prometheus_client.parser import text_string_to_metric_families
 from sqlalchemy import text
 
 import service.api.routers.sweeps
-from service.api.app import create_app, prepare
-from service.api.observability import JsonFormatter
-from service.config import Settings
 from service.storage.repository import Storage
-from tests.api.conftest import FakeClock
 from tests.api.problems import problem_of
 from tests.conftest import load_example
 
@@ -71,24 +64,6 @@ def plan_request() -> dict[str, Any]:
     plan: dict[str, Any] = load_example("fleet-plan.json")
     plan.update({"samples": 40, "horizon_months": 12})
     return plan
-
-
-@pytest.fixture
-def make_client(database_url: str, clock: FakeClock) -> Callable[..., Any]:
-    """An app with its own settings, prepared, and a client for it; the sweep runner stops after."""
-
-    @asynccontextmanager
-    async def open_client(**settings: Any) -> AsyncIterator[tuple[FastAPI, httpx.AsyncClient]]:
-        app = create_app(Settings(database_url=database_url, **settings), clock=clock)
-        prepare(app)
-        try:
-            async with httpx.AsyncClient(transport=httpx.ASGITransport(app=app), base_url="http://berth.test") as http:
-                yield app, http
-        finally:
-            app.state.sweeps.shutdown()
-            app.state.storage.dispose()
-
-    return open_client
 
 
 # Body size.
@@ -353,21 +328,6 @@ async def test_a_background_sweep_counts_its_scenarios_when_it_has_run(make_clie
 
 
 # Logs.
-
-@pytest.fixture
-def json_log(caplog: pytest.LogCaptureFixture) -> Iterator[io.StringIO]:
-    """berth.http's records, formatted as they are emitted (the request id lives in a context var)."""
-    caplog.set_level(logging.INFO, logger="berth.http")
-    stream = io.StringIO()
-    handler = logging.StreamHandler(stream)
-    handler.setFormatter(JsonFormatter())
-    logger = logging.getLogger("berth.http")
-    logger.addHandler(handler)
-    try:
-        yield stream
-    finally:
-        logger.removeHandler(handler)
-
 
 async def test_each_request_logs_one_json_line(client: httpx.AsyncClient, json_log: io.StringIO) -> None:
     await client.get("/v1/quotes/q_missing", headers={"X-Request-ID": "log-1"})

@@ -35,7 +35,7 @@ def test_a_document_that_is_not_an_object_says_so(data: Any, found: str) -> None
 
 def test_a_field_that_should_be_an_object_says_so_without_naming_a_class(owned_wins_request: dict[str, Any]) -> None:
     owned_wins_request["campaign"] = "support-assistant"
-    assert problems_of(owned_wins_request) == {"campaign": "Input should be a valid dictionary"}
+    assert problems_of(owned_wins_request) == {"campaign": "Input should be an object"}
 
 
 def test_an_unknown_work_field_is_named(owned_wins_request: dict[str, Any]) -> None:

@@ -22,12 +22,12 @@ from pathlib import Path
 from typing import Any
 
 import uvicorn
-from anyio import to_thread
 from fastapi import FastAPI
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from service.api.app import create_app
+from service.api.connections import HeaderTimeoutProtocol
 from service.api.deps import CatalogsDep, ComputeLaneDep, NowDep, StorageDep
 from service.api.observability import configure_logging
 from service.api.responses import FastJSONResponse
@@ -85,8 +85,7 @@ def _on_compute_lane(handler: Callable[..., FastJSONResponse]) -> Callable[..., 
     """A route that runs `handler` on the compute lane, as POST /v1/quotes runs its work."""
     async def route(payload: QuoteRequestIn, storage: StorageDep, catalogs: CatalogsDep, now: NowDep,
                     lane: ComputeLaneDep) -> FastJSONResponse:
-        response: FastJSONResponse = await to_thread.run_sync(partial(handler, payload, storage, catalogs, now),
-                                                              limiter=lane)
+        response: FastJSONResponse = await lane.run(partial(handler, payload, storage, catalogs, now))
         return response
     return route
 
@@ -100,7 +99,8 @@ def main() -> None:
     args = parser.parse_args()
     settings = Settings(host=args.host, port=args.port, database_url=args.database)
     configure_logging(settings.log_level)
-    uvicorn.run(create_floor_app(settings), host=settings.host, port=settings.port, log_config=None)
+    uvicorn.run(create_floor_app(settings), host=settings.host, port=settings.port, log_config=None,
+                proxy_headers=False, http=HeaderTimeoutProtocol)
 
 
 if __name__ == "__main__":

@@ -13,6 +13,7 @@ import sys
 import time
 from collections.abc import Callable, Iterator
 from pathlib import Path
+from typing import Protocol
 
 import httpx
 import pytest
@@ -39,8 +40,12 @@ def _tail(path: Path, lines: int = 40) -> str:
 class BerthServer:
     """One `berth serve` subprocess; its stdout and stderr go to files beside the database."""
 
-    def __init__(self, database: Path | str, logs: Path, name: str) -> None:
+    def __init__(self, database: Path | str, logs: Path, name: str, *, env: dict[str, str] | None = None,
+                 host: str = "127.0.0.1", preexec: Callable[[], None] | None = None) -> None:
         self.database = database  # a SQLite file, or a database URL
+        self.env = env or {}  # BERTH_* settings of this server
+        self.host = host  # the address it listens on; it is reached on loopback
+        self.preexec = preexec  # run in the child before exec (resource limits)
         self.stdout_path = logs / f"{name}.out"
         self.stderr_path = logs / f"{name}.err"
         self.port = 0
@@ -72,12 +77,12 @@ class BerthServer:
                     f"{_tail(self.stderr_path)}")
 
     def _spawn(self) -> None:
-        env = {k: v for k, v in os.environ.items() if not k.startswith("BERTH_")}
-        command = [sys.executable, "-m", "service.cli", "serve", "--host", "127.0.0.1", "--port", str(self.port),
+        env = {k: v for k, v in os.environ.items() if not k.startswith("BERTH_")} | self.env
+        command = [sys.executable, "-m", "service.cli", "serve", "--host", self.host, "--port", str(self.port),
                    "--database", self.database_url]
         with open(self.stdout_path, "ab") as out, open(self.stderr_path, "ab") as err:
             self.process = subprocess.Popen(command, cwd=REPO_ROOT, env=env, stdout=out, stderr=err,
-                                            stdin=subprocess.DEVNULL)
+                                            stdin=subprocess.DEVNULL, preexec_fn=self.preexec)
 
     def _wait_ready(self) -> bool:
         assert self.process is not None
@@ -120,7 +125,9 @@ class BerthServer:
         return _tail(self.stderr_path)
 
 
-ServerFactory = Callable[[Path | str], BerthServer]
+class ServerFactory(Protocol):
+    def __call__(self, database: Path | str, *, env: dict[str, str] | None = None, host: str = "127.0.0.1",
+                 preexec: Callable[[], None] | None = None) -> BerthServer: ...
 
 
 @pytest.fixture
@@ -129,8 +136,9 @@ def berth_factory(tmp_path: Path) -> Iterator[ServerFactory]:
     logs = tmp_path / "logs"
     logs.mkdir()
 
-    def start(database: Path | str) -> BerthServer:
-        server = BerthServer(database, logs, f"server-{len(started)}")
+    def start(database: Path | str, *, env: dict[str, str] | None = None, host: str = "127.0.0.1",
+              preexec: Callable[[], None] | None = None) -> BerthServer:
+        server = BerthServer(database, logs, f"server-{len(started)}", env=env, host=host, preexec=preexec)
         started.append(server)
         server.start()
         return server

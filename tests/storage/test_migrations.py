@@ -29,7 +29,7 @@ from service.storage.engine import build_engine
 from service.storage.migrate import MIGRATIONS, alembic_config, head_revision, is_at_head, upgrade
 from tests.databases import fresh_postgresql_database, needs_postgresql, postgresql_server
 
-TABLES = {"catalog", "default_catalog", "quote", "idempotency_key", "sweep", "fleet_plan", "api_key"}
+TABLES = {"catalog", "default_catalog", "quote", "idempotency_key", "sweep", "fleet_plan", "api_key", "storage_probe"}
 REVISIONS = sorted(path.name.split("_", 1)[0] for path in (MIGRATIONS / "versions").glob("[0-9]*_*.py"))
 STARTING_TOGETHER = 4
 

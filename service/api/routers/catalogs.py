@@ -5,9 +5,10 @@ from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Query
 from fastapi.responses import Response
+from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from service.api.auth import Admin, AnyKey
-from service.api.deps import ClockDep, IdempotencyKeyDep, RawBodyDep, StorageDep
+from service.api.deps import CatalogIdPath, ClockDep, CursorQuery, IdempotencyKeyDep, RawBodyDep, StorageDep
 from service.api.manners import JsonBody, JsonOrYamlBody
 from service.api.problems import CONFLICT, MEDIA_TYPE_RESPONSES, PROBLEM_RESPONSES
 from service.api.responses import created_response
@@ -60,7 +61,7 @@ def create_catalog(body: RawBodyDep, storage: StorageDep, clock: ClockDep, calle
 
 @router.get("", response_model=CatalogPage, responses=PROBLEM_RESPONSES)
 def list_catalogs(storage: StorageDep, _viewer: AnyKey, limit: Annotated[int, Query(ge=1, le=200)] = 50,
-                  cursor: Annotated[str | None, Query(max_length=200)] = None,
+                  cursor: CursorQuery = None,
                   status: Annotated[Literal["active", "retired"] | None, Query()] = None) -> dict[str, Any]:
     """Catalogs, newest first, each with its status, effective dates and whether it is the default."""
     items, next_cursor = find_catalogs(storage, limit=limit, cursor=cursor, status=status)
@@ -82,8 +83,15 @@ def put_default_catalog(payload: DefaultCatalogIn, storage: StorageDep, clock: C
     return set_default_catalog(storage, payload.catalog_id, now=clock())
 
 
+@router.patch("/default", include_in_schema=False)
+def patch_default_catalog() -> None:
+    """`/default` is a resource of its own, read with GET and set with PUT: a PATCH meant for a
+    catalog must not be taken for one whose id is "default"."""
+    raise StarletteHTTPException(405, headers={"Allow": "GET, HEAD, PUT"})
+
+
 @router.get("/{catalog_id}", response_model=CatalogOut, responses=PROBLEM_RESPONSES)
-def read_catalog(catalog_id: str, storage: StorageDep, _viewer: AnyKey) -> dict[str, Any]:
+def read_catalog(catalog_id: CatalogIdPath, storage: StorageDep, _viewer: AnyKey) -> dict[str, Any]:
     """One catalog with its content."""
     return get_catalog(storage, catalog_id)
 
@@ -91,7 +99,8 @@ def read_catalog(catalog_id: str, storage: StorageDep, _viewer: AnyKey) -> dict[
 @router.patch("/{catalog_id}", response_model=CatalogSummary, dependencies=[JsonBody],
               responses={**PROBLEM_RESPONSES, **MEDIA_TYPE_RESPONSES,
                          409: {**CONFLICT[409], "description": "the default catalog cannot be retired"}})
-def patch_catalog(catalog_id: str, payload: CatalogStatusIn, storage: StorageDep, _admin: Admin) -> dict[str, Any]:
+def patch_catalog(catalog_id: CatalogIdPath, payload: CatalogStatusIn, storage: StorageDep,
+                  _admin: Admin) -> dict[str, Any]:
     """Retire a catalog (new quotes, sweeps and plans may no longer use it; stored quotes keep it and
     recompute still reads it) or make it active again. Its content never changes. The default cannot
     be retired (409): set another default first."""

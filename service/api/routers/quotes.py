@@ -4,16 +4,25 @@ re-quote against another catalog; the report, break-even chart and options CSV o
 import re
 import time
 from dataclasses import replace
-from datetime import datetime
+from datetime import UTC, datetime
 from typing import Annotated, Any
 
-from anyio import to_thread
 from fastapi import APIRouter, Query, Request
 from fastapi.responses import HTMLResponse, Response, StreamingResponse
-from pydantic import BeforeValidator
+from pydantic import AfterValidator, BeforeValidator
 
 from service.api.auth import AnyKey
-from service.api.deps import CatalogsDep, ClockDep, ComputeLaneDep, IdempotencyKeyDep, RawBodyDep, StorageDep
+from service.api.deps import (
+    PRINTABLE,
+    CatalogsDep,
+    ClockDep,
+    ComputeLaneDep,
+    CursorQuery,
+    IdempotencyKeyDep,
+    QuoteIdPath,
+    RawBodyDep,
+    StorageDep,
+)
 from service.api.manners import JsonBody
 from service.api.observability import DomainMetrics
 from service.api.problems import CONFLICT, MEDIA_TYPE_RESPONSES, PROBLEM_RESPONSES
@@ -56,7 +65,7 @@ async def post_quote(
         return created_response(replace(outcome, body=shaped(outcome.body, view)),
                                 location=f"/v1/quotes/{outcome.body['id']}")
 
-    return await to_thread.run_sync(on_compute_lane, limiter=lane)
+    return await lane.run(on_compute_lane)
 
 
 def _iso_8601(value: object) -> object:
@@ -66,7 +75,16 @@ def _iso_8601(value: object) -> object:
     return value
 
 
+def _in_utc(value: datetime) -> datetime:
+    """Bounds are compared in UTC; a moment with no UTC equivalent (year 1 at +23:59) is refused."""
+    try:
+        return value if value.tzinfo is None else value.astimezone(UTC)  # no zone: refused by the use case
+    except OverflowError as error:
+        raise ValueError("the moment lies outside the years 1 to 9999 once converted to UTC") from error
+
+
 IsoDateTime = BeforeValidator(_iso_8601)
+InUtc = AfterValidator(_in_utc)
 
 
 def summary(stored: StoredQuote) -> dict[str, Any]:
@@ -90,12 +108,12 @@ def summary(stored: StoredQuote) -> dict[str, Any]:
 def list_quotes(
     storage: StorageDep,
     viewer: AnyKey,
-    team: Annotated[str | None, Query(max_length=100)] = None,
-    campaign_name: Annotated[str | None, Query(max_length=200)] = None,
-    created_from: Annotated[datetime | None, Query(description="inclusive, ISO 8601"), IsoDateTime] = None,
-    created_to: Annotated[datetime | None, Query(description="exclusive, ISO 8601"), IsoDateTime] = None,
+    team: Annotated[str | None, Query(max_length=100, pattern=PRINTABLE)] = None,
+    campaign_name: Annotated[str | None, Query(max_length=200, pattern=PRINTABLE)] = None,
+    created_from: Annotated[datetime | None, Query(description="inclusive, ISO 8601"), IsoDateTime, InUtc] = None,
+    created_to: Annotated[datetime | None, Query(description="exclusive, ISO 8601"), IsoDateTime, InUtc] = None,
     limit: Annotated[int, Query(ge=1, le=200)] = 50,
-    cursor: Annotated[str | None, Query(max_length=200)] = None,
+    cursor: CursorQuery = None,
 ) -> dict[str, Any]:
     """Stored quotes, newest first, filtered by team, campaign name and creation time. A requester
     sees its own team's quotes only."""
@@ -105,14 +123,15 @@ def list_quotes(
 
 
 @router.get("/{quote_id}", response_model=QuoteOut | QuoteSummaryView, responses=PROBLEM_RESPONSES)
-def read_quote(quote_id: str, storage: StorageDep, viewer: AnyKey, view: ViewQuery = "full") -> FastJSONResponse:
+def read_quote(quote_id: QuoteIdPath, storage: StorageDep, viewer: AnyKey,
+               view: ViewQuery = "full") -> FastJSONResponse:
     """One stored quote, exactly as it was returned when created (`?view=summary`: the
     recommendation and one row per option)."""
     return FastJSONResponse(shaped(get_quote(storage, quote_id, viewer).response, view))
 
 
 @router.get("/{quote_id}/compare/{other_id}", response_model=Comparison, responses=PROBLEM_RESPONSES)
-def compare(quote_id: str, other_id: str, storage: StorageDep, viewer: AnyKey) -> FastJSONResponse:
+def compare(quote_id: QuoteIdPath, other_id: QuoteIdPath, storage: StorageDep, viewer: AnyKey) -> FastJSONResponse:
     """What changed from one stored quote to another: the recommendation, each option's total, days
     and layout, the break-even rows that moved, the request fields, catalog and model version that
     differ, and (when the catalogs differ) which catalog figures changed."""
@@ -122,8 +141,9 @@ def compare(quote_id: str, other_id: str, storage: StorageDep, viewer: AnyKey) -
 @router.post("/{quote_id}/requote", status_code=201, response_model=Requoted, dependencies=[JsonBody],
              responses={**PROBLEM_RESPONSES, **MEDIA_TYPE_RESPONSES, **CONFLICT})
 async def post_requote(
-    quote_id: str, payload: RequoteIn, raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep, clock: ClockDep,
-    caller: AnyKey, lane: ComputeLaneDep, idempotency_key: IdempotencyKeyDep = None, view: ViewQuery = "full",
+    quote_id: QuoteIdPath, payload: RequoteIn, raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep,
+    clock: ClockDep, caller: AnyKey, lane: ComputeLaneDep, idempotency_key: IdempotencyKeyDep = None,
+    view: ViewQuery = "full",
 ) -> Response:
     """Quote a stored quote's request again against another catalog (active and effective today),
     store the new quote, and return it with the comparison from the old quote to the new one."""
@@ -139,12 +159,12 @@ async def post_requote(
         body = {**outcome.body, "quote": shaped(outcome.body["quote"], view)}
         return created_response(replace(outcome, body=body), location=f"/v1/quotes/{new_id}")
 
-    return await to_thread.run_sync(on_compute_lane, limiter=lane)
+    return await lane.run(on_compute_lane)
 
 
 @router.get("/{quote_id}/report", response_class=HTMLResponse, responses={
     200: {"content": {"text/html": {}}, "description": "a self-contained, printable HTML page"}, **PROBLEM_RESPONSES})
-def quote_report(quote_id: str, storage: StorageDep, viewer: AnyKey) -> HTMLResponse:
+def quote_report(quote_id: QuoteIdPath, storage: StorageDep, viewer: AnyKey) -> HTMLResponse:
     """The report for people: recommendation, options and cost lines, timing, energy, break-even
     chart, residency screen, assumptions with sources and cautions, from the stored quote alone."""
     return HTMLResponse(render_report(get_quote(storage, quote_id, viewer).response))
@@ -152,7 +172,7 @@ def quote_report(quote_id: str, storage: StorageDep, viewer: AnyKey) -> HTMLResp
 
 @router.get("/{quote_id}/breakeven.svg", response_class=Response, responses={
     200: {"content": {"image/svg+xml": {}}, "description": "the break-even chart"}, **PROBLEM_RESPONSES})
-def quote_breakeven_svg(quote_id: str, storage: StorageDep, viewer: AnyKey) -> Response:
+def quote_breakeven_svg(quote_id: QuoteIdPath, storage: StorageDep, viewer: AnyKey) -> Response:
     """Owned cost per used accelerator-hour against utilisation for each owned site, the rented
     prices, and the break-even points (`<g id="breakeven-<site>-<offer>-<term>" data-utilisation>`)."""
     return Response(breakeven_svg(get_quote(storage, quote_id, viewer).response), media_type="image/svg+xml")
@@ -160,7 +180,7 @@ def quote_breakeven_svg(quote_id: str, storage: StorageDep, viewer: AnyKey) -> R
 
 @router.get("/{quote_id}/options.csv", response_class=StreamingResponse, responses={
     200: {"content": {"text/csv": {}}, "description": "one row per placement option"}, **PROBLEM_RESPONSES})
-def quote_options_csv(quote_id: str, storage: StorageDep, viewer: AnyKey) -> StreamingResponse:
+def quote_options_csv(quote_id: QuoteIdPath, storage: StorageDep, viewer: AnyKey) -> StreamingResponse:
     """One row per placement option, for spreadsheets (RFC 4180, units in the column names)."""
     document = get_quote(storage, quote_id, viewer).response
     return StreamingResponse(options_csv(document), media_type="text/csv; charset=utf-8",
@@ -168,7 +188,7 @@ def quote_options_csv(quote_id: str, storage: StorageDep, viewer: AnyKey) -> Str
 
 
 @router.post("/{quote_id}/recompute", response_model=Recomputation, responses=PROBLEM_RESPONSES)
-def recompute(quote_id: str, storage: StorageDep, catalogs: CatalogsDep, viewer: AnyKey) -> dict[str, Any]:
+def recompute(quote_id: QuoteIdPath, storage: StorageDep, catalogs: CatalogsDep, viewer: AnyKey) -> dict[str, Any]:
     """Recompute a stored quote from its stored request and catalog under the current model, and
     list every figure that differs (none while the model version is unchanged). Stores nothing."""
     return recompute_quote(storage, catalogs, quote_id, viewer)

@@ -7,7 +7,17 @@ from fastapi import APIRouter, Depends, Query, Request
 from fastapi.responses import Response, StreamingResponse
 
 from service.api.auth import Analyst
-from service.api.deps import CatalogsDep, ClockDep, IdempotencyKeyDep, RawBodyDep, SettingsDep, StorageDep
+from service.api.deps import (
+    CatalogsDep,
+    ClockDep,
+    ComputeLaneDep,
+    CursorQuery,
+    IdempotencyKeyDep,
+    RawBodyDep,
+    SettingsDep,
+    StorageDep,
+    SweepIdPath,
+)
 from service.api.manners import JsonBody
 from service.api.observability import DomainMetrics
 from service.api.problems import CONFLICT, MEDIA_TYPE_RESPONSES, PROBLEM_RESPONSES
@@ -18,6 +28,7 @@ from service.usecases.idempotency import Created, KeepAnswer, once_per_key
 from service.usecases.sweeps import (
     SweepLimits,
     SweepRunner,
+    cancel_sweep,
     csv_chunks,
     find_sweeps,
     get_sweep,
@@ -40,9 +51,9 @@ RunnerDep = Annotated[SweepRunner, Depends(_runner)]
 @router.post("", status_code=201, dependencies=[JsonBody],
              responses={202: {"description": "accepted: running in the background"}, **PROBLEM_RESPONSES,
                         **MEDIA_TYPE_RESPONSES, **CONFLICT})
-def post_sweep(request: Request, payload: SweepIn, raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep,
-               clock: ClockDep, runner: RunnerDep, settings: SettingsDep, caller: Analyst,
-               idempotency_key: IdempotencyKeyDep = None) -> Response:
+async def post_sweep(request: Request, payload: SweepIn, raw: RawBodyDep, storage: StorageDep, catalogs: CatalogsDep,
+                     clock: ClockDep, runner: RunnerDep, settings: SettingsDep, caller: Analyst, lane: ComputeLaneDep,
+                     idempotency_key: IdempotencyKeyDep = None) -> Response:
     """Run a sweep: a grid of every combination, or Monte Carlo samples from distributions, over a
     base quote request. Up to `BERTH_SWEEP_ANSWER_AT_ONCE` scenarios the answer comes back at once
     (201); larger sweeps are accepted (202) and report progress at their Location. The same
@@ -57,27 +68,41 @@ def post_sweep(request: Request, payload: SweepIn, raw: RawBodyDep, storage: Sto
             metrics.sweep_scenarios.inc(created.body["progress"]["scenarios_total"])
         return created
 
-    outcome = once_per_key(storage, caller=caller, key=idempotency_key, body=raw, clock=clock, create=create)
-    return created_response(outcome, location=outcome.body["links"]["self"])
+    def on_compute_lane() -> Response:
+        outcome = once_per_key(storage, caller=caller, key=idempotency_key, body=raw, clock=clock, create=create)
+        return created_response(outcome, location=outcome.body["links"]["self"])
+
+    # Answered at once, a sweep is a computation like a quote, and waits its turn on the same lane.
+    return await lane.run(on_compute_lane)
 
 
 @router.get("", response_model=SweepPage, responses=PROBLEM_RESPONSES)
 def list_sweeps(storage: StorageDep, _analyst: Analyst, limit: Annotated[int, Query(ge=1, le=200)] = 50,
-                cursor: Annotated[str | None, Query(max_length=200)] = None) -> dict[str, Any]:
+                cursor: CursorQuery = None) -> dict[str, Any]:
     """Sweeps, newest first: status and progress (the result is at each one's own link)."""
     items, next_cursor = find_sweeps(storage, limit=limit, cursor=cursor)
     return {"items": items, "next_cursor": next_cursor}
 
 
 @router.get("/{sweep_id}", responses=PROBLEM_RESPONSES)
-def read_sweep(sweep_id: str, storage: StorageDep, _analyst: Analyst) -> dict[str, Any]:
+def read_sweep(sweep_id: SweepIdPath, storage: StorageDep, _analyst: Analyst) -> dict[str, Any]:
     """Status, progress and, once done, the summary, tornado and (for small sweeps) the rows."""
     return get_sweep(storage, sweep_id)
 
 
+@router.delete("/{sweep_id}", responses={**PROBLEM_RESPONSES, 409: CONFLICT[409] | {
+    "description": "the sweep has already finished (done or failed)"}})
+def delete_sweep(sweep_id: SweepIdPath, storage: StorageDep, clock: ClockDep, _analyst: Analyst) -> dict[str, Any]:
+    """Cancel a queued or running sweep. Its status becomes `cancelled` at once and the scenarios it
+    evaluated so far are dropped (`result` stays null; `progress` says how far it got); the process
+    running it stops within a heartbeat. Cancelling again answers the same; a finished sweep is a 409."""
+    return cancel_sweep(storage, sweep_id, now=clock())
+
+
 @router.get("/{sweep_id}/rows.csv", response_class=StreamingResponse, responses={
     200: {"content": {"text/csv": {}}, "description": "one row per scenario"}, **PROBLEM_RESPONSES})
-def sweep_rows(sweep_id: str, storage: StorageDep, catalogs: CatalogsDep, _analyst: Analyst) -> StreamingResponse:
+def sweep_rows(sweep_id: SweepIdPath, storage: StorageDep, catalogs: CatalogsDep,
+               _analyst: Analyst) -> StreamingResponse:
     """Every scenario's inputs, cheapest option and each option's total, streamed as CSV. The rows
     are recomputed from the seeded request, so they are identical every time."""
     prepared = prepared_from_store(storage, catalogs, sweep_id)
