@@ -223,7 +223,9 @@ def _layout(layout: LayoutGrid, i: int, *, missed_deadline: bool) -> Json:
         "pipeline_chunks": int(layout.pipeline_chunks[i]),
         "pipeline_bubble_fraction": _number(layout.bubble_seconds[i] / layout.compute_seconds[i], 6),
         "decided_by": decided_by(int(layout.origin[i]), missed_deadline=missed_deadline),
-        "strategy": ("replicated" if stage == 0 else "sharded") if plain else "tensor-pipeline-data",
+        # The first version's words: "sharded" meant fully sharded (ZeRO-3), "replicated" parameters on
+        # every accelerator (stages 0-2 keep them so).
+        "strategy": ("sharded" if stage == 3 else "replicated") if plain else "tensor-pipeline-data",
         "shards": t * p * (d if stage == 3 else 1),
     }
 
