@@ -120,6 +120,7 @@ class _Context:
     overrides: Overrides
     work: WorkAmount
     multiplier: Floats
+    load: Load  # what the campaign asks of any venue: the same for every venue
     allowed: frozenset[str] | None
     home: Site | Offer | None
 
@@ -131,9 +132,11 @@ def evaluate_campaign(
     overrides = overrides or Overrides()
     venues: dict[str, Site | Offer] = {site.id: site for site in catalog.sites}
     venues.update({offer.id: offer for offer in catalog.offers})
+    work = _work(catalog, campaign, options, overrides)
+    multiplier = runs_multiplier(campaign.runs)
     context = _Context(
-        catalog=catalog, campaign=campaign, options=options, overrides=overrides,
-        work=_work(catalog, campaign, options, overrides), multiplier=runs_multiplier(campaign.runs),
+        catalog=catalog, campaign=campaign, options=options, overrides=overrides, work=work, multiplier=multiplier,
+        load=_load(campaign, options, work, multiplier),
         allowed=allowed_jurisdictions(campaign.data.allowed_jurisdictions, catalog.jurisdiction_groups),
         home=None if campaign.data.home is None else venues[campaign.data.home],
     )
@@ -255,7 +258,7 @@ def _physics(venue: _Venue, context: _Context, *, limits: list[Floats],
              interruption_mean_hours: float = np.inf) -> _Physics:
     node = venue.node_type
     campaign, options, overrides = context.campaign, context.options, context.overrides
-    load = _load(campaign, options, context.work, context.multiplier)
+    load = context.load
     storage = venue.source.storage_write_gbps
     hardware = Hardware(
         accelerators_per_node=node.accelerators_per_node,
