@@ -36,8 +36,8 @@ def hardware(**changes: Any) -> Hardware:
     return Hardware(**fields)
 
 
-def architecture(layers: int, d_model: float, sequence_length: float, heads: float) -> Architecture:
-    return Architecture(layers, d_model, sequence_length, heads)
+# A 7B-class transformer's shape (demo): 32 layers, d_model 4,096, sequences of 4,096 tokens, 32 heads.
+SEVEN_B_SHAPE = Architecture(layers=32, d_model=4096.0, sequence_length=4096.0, attention_heads=32.0)
 
 
 def whole(load: Load, hardware: Hardware, **options: Any) -> tuple[LayoutGrid, Any]:

@@ -24,7 +24,7 @@ from service.domain.catalog import (
 from service.domain.evaluate import evaluate_campaign
 from service.domain.reliability import daly_interval, expected_wall_fraction, job_mtbi_seconds
 from service.domain.units import SECONDS_PER_HOUR
-from tests.domain.builders import architecture, hardware, load, whole
+from tests.domain.builders import SEVEN_B_SHAPE, hardware, load, whole
 
 # No example database on disk, and no timing deadline: the engine's first call may be slow.
 PROPERTY = settings(database=None, deadline=None, max_examples=150)
@@ -50,7 +50,7 @@ def test_accelerator_hours_never_fall_below_the_ideal_in_any_candidate_layout(
     node_mtbf_hours: float, max_nodes: int, deadline_days: float,
 ) -> None:
     run = load(parameters=one(parameters), tokens=one(tokens), runs_multiplier=one(runs),
-               architecture=architecture(32, 4096.0, 4096.0, 32.0), deadline_seconds=one(deadline_days * 86400.0))
+               architecture=SEVEN_B_SHAPE, deadline_seconds=one(deadline_days * 86400.0))
     venue = hardware(sustained_flops_per_accelerator=one(sustained_tflops * 1e12), network_gbps=one(network_gbps),
                      node_mtbf_hours=one(node_mtbf_hours))
     grid, _ = whole(run, venue, node_limits=[float(max_nodes)])
@@ -75,7 +75,7 @@ def test_more_network_bandwidth_never_lowers_scaling_efficiency(
 ) -> None:
     pins = LayoutPins(tensor=tensor, pipeline=pipeline, zero_stage=zero_stage if pipeline == 1 else min(zero_stage, 1))
     run = load(parameters=np.full(2, parameters), tokens=np.full(2, 1e11), runs_multiplier=np.ones(2),
-               global_batch_tokens=np.full(2, 8e6), architecture=architecture(32, 4096.0, 4096.0, 32.0), pins=pins,
+               global_batch_tokens=np.full(2, 8e6), architecture=SEVEN_B_SHAPE, pins=pins,
                deadline_seconds=np.full(2, np.inf))
     venue = hardware(sustained_flops_per_accelerator=np.full(2, sustained_tflops * 1e12),
                      network_gbps=np.array([network_gbps, network_gbps * faster]))

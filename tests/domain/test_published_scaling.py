@@ -27,7 +27,7 @@ import pytest
 from service.contract.catalog import CatalogIn
 from service.contract.request import QuoteRequestIn
 from service.usecases.quoting import quote
-from tests.domain.builders import architecture, hardware, load, whole
+from tests.domain.builders import SEVEN_B_SHAPE, hardware, load, whole
 
 SEQUENCE, VOCABULARY = 2048, 51_200
 SUSTAINED_EFFICIENCY = 0.50
@@ -166,7 +166,7 @@ def test_the_deadline_layout_is_the_fewest_nodes_that_meet_it() -> None:
 
 @pytest.mark.parametrize("limit", [1e5, 1e12])
 def test_the_candidate_layouts_do_not_grow_with_the_venues_node_limit(limit: float) -> None:
-    run = load(parameters=7e9, tokens=1e12, architecture=architecture(32, 4096.0, 4096.0, 32.0),
+    run = load(parameters=7e9, tokens=1e12, architecture=SEVEN_B_SHAPE,
                deadline_seconds=np.full(1, 20 * 86400.0))
     small, _ = whole(run, hardware(), node_limits=[64.0])
     large, _ = whole(run, hardware(), node_limits=[limit])

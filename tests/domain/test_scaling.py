@@ -15,7 +15,7 @@ from service.domain.scaling import (
 )
 from service.domain.units import SECONDS_PER_DAY
 from service.domain.work import work_amount
-from tests.domain.builders import architecture, hardware, load, whole
+from tests.domain.builders import SEVEN_B_SHAPE, hardware, load, whole
 
 # Narayanan et al. 2021, "Efficient Large-Scale Language Model Training on GPU Clusters Using
 # Megatron-LM", SC21: GPT vocabulary V and sequence length s used throughout the paper.
@@ -182,7 +182,7 @@ def test_pipeline_sends_split_over_the_tensor_ranks_and_cross_the_link_where_sta
 
 def pure_data_parallel_link_needed(accelerators_per_node: int, nodes: int) -> float:
     """The node link a 7B data-parallel job needs for 95% of its infinite-link speed."""
-    run = load(parameters=7e9, tokens=1e12, architecture=architecture(32, 4096.0, 4096.0, 32.0),
+    run = load(parameters=7e9, tokens=1e12, architecture=SEVEN_B_SHAPE,
                pins=LayoutPins(tensor=1, pipeline=1, zero_stage=1))
     venue = hardware(accelerators_per_node=accelerators_per_node, network_gbps=np.full(1, 400.0))
     grid, _ = whole(run, venue,
@@ -202,8 +202,9 @@ def test_the_link_a_node_needs_does_not_grow_with_its_accelerators() -> None:
 
 
 def test_the_link_reported_for_95_percent_gives_95_percent() -> None:
+    # A check of the closed form against the step it solves (model.md §3, derived); demo figures.
     run = load(parameters=np.full(2, 7e9), tokens=np.full(2, 1e12), runs_multiplier=np.ones(2),
-               global_batch_tokens=np.full(2, 4e6), architecture=architecture(32, 4096.0, 4096.0, 32.0),
+               global_batch_tokens=np.full(2, 4e6), architecture=SEVEN_B_SHAPE,
                pins=LayoutPins(tensor=2, pipeline=4, zero_stage=1), deadline_seconds=np.full(2, np.inf))
     first, _ = whole(run, hardware(sustained_flops_per_accelerator=np.full(2, 2e14),
                                               network_gbps=np.full(2, 100.0)),
