@@ -82,12 +82,14 @@ class Candidates:
                  if chosen.any()]
         if len(parts) == 1:  # every scenario chose from one block
             block, _, at_rows, at_columns = parts[0]
-            return LayoutGrid(**{f.name: np.asarray(block.at(f.name, at_rows, at_columns)) for f in fields(LayoutGrid)})
+            read = block.cells(at_rows, at_columns)
+            return LayoutGrid(**{f.name: np.asarray(read(f.name)) for f in fields(LayoutGrid)})
+        readers = [(chosen, block.cells(at_rows, at_columns)) for block, chosen, at_rows, at_columns in parts]
         picked = {}
         for f in fields(LayoutGrid):
-            taken = [np.asarray(block.at(f.name, at_rows, at_columns)) for block, _, at_rows, at_columns in parts]
+            taken = [np.asarray(read(f.name)) for _, read in readers]
             out = np.empty(index.shape, dtype=np.result_type(*taken))
-            for (_, chosen, _, _), values in zip(parts, taken, strict=True):
+            for (chosen, _), values in zip(readers, taken, strict=True):
                 out[chosen] = values
             picked[f.name] = out
         return LayoutGrid(**picked)
@@ -163,14 +165,24 @@ def _shapes(load: Load, accelerators_per_node: int, *, fixed_accelerators: int |
                   zero_stages=load.zero_stages, fixed_accelerators=fixed_accelerators)
 
 
-def _interpolated(k_lo: Floats, g_lo: Floats, k_hi: Floats, g_hi: Floats, target: Floats) -> Floats:
-    """The count k at which g(k) = α/k + β through (k_lo, g_lo) and (k_hi, g_hi) reaches the target,
-    rounded up and kept inside (k_lo, k_hi]; k_hi where the line does not reach it."""
+def _line(k_lo: Floats, g_lo: Floats, k_hi: Floats, g_hi: Floats) -> tuple[Floats, Floats]:
+    """(α, β) of the line g(k) = α/k + β through (k_lo, g_lo) and (k_hi, g_hi)."""
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         alpha = (g_lo - g_hi) / (1.0 / k_lo - 1.0 / k_hi)
-        beta = g_hi - alpha / k_hi
+        return alpha, g_hi - alpha / k_hi
+
+
+def _reaching(alpha: Floats, beta: Floats, k_lo: Floats, k_hi: Floats, target: Floats) -> Floats:
+    """The count k at which α/k + β reaches the target, rounded up and kept inside (k_lo, k_hi]; k_hi
+    where the line does not reach it."""
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         guess = np.ceil(alpha / (target - beta) - 1e-9)
     return np.asarray(np.clip(np.where(np.isfinite(guess) & (guess > 0), guess, k_hi), k_lo + 1.0, k_hi))
+
+
+def _interpolated(k_lo: Floats, g_lo: Floats, k_hi: Floats, g_hi: Floats, target: Floats) -> Floats:
+    """The count at which the line through (k_lo, g_lo) and (k_hi, g_hi) reaches the target (`_reaching`)."""
+    return _reaching(*_line(k_lo, g_lo, k_hi, g_hi), k_lo, k_hi, target)
 
 
 def _shape_columns(found: Shapes, shape: Ints, units: Floats, accelerators_per_node: int) -> Columns:
@@ -205,39 +217,53 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     vary by scenario: the effective step g(k) on TABLE_RUNGS geometric counts from the memory
     minimum to the node limit (one row for all scenarios); each scenario's allowance
     (deadline − staging) / steps located in it and interpolated as α/k + β; then the counts just
-    below, at and above that evaluated exactly, each distinct (shape, count) once."""
+    below, at and above that evaluated exactly, each distinct (shape, count) once.
+
+    The answer depends on a scenario only through its allowance, so each distinct allowance is
+    solved once, in ascending order: a shape's guess then falls or stays from one allowance to
+    the next, and its distinct counts are the starts of runs (no sort of the whole grid)."""
     steps, staging = scenario_terms(load, hardware)
-    allowance = np.asarray((deadline - staging) / steps)  # (S, 1): the effective step each scenario affords
+    allowance = np.asarray((deadline - staging) / steps).reshape(-1)  # the effective step each scenario affords
+    afforded, scenario_of = np.unique(allowance, return_inverse=True)  # ascending, NaN last
     h = found.count
-    g = np.where(table["fits"], table["effective_step_seconds"], np.inf).reshape(h, TABLE_RUNGS)
-    meets = g[np.newaxis, :, :] <= allowance[:, :, np.newaxis]  # (S, H, G)
-    first = np.argmax(meets, axis=2)
-    reached = meets.any(axis=2)
-    shape_index = np.broadcast_to(np.arange(h), first.shape)
-    below = np.maximum(first - 1, 0)
-    k_lo, k_hi = rungs[shape_index, below], rungs[shape_index, first]
-    guess = _interpolated(k_lo, g[shape_index, below], k_hi, g[shape_index, first],
-                          np.broadcast_to(allowance, first.shape))
-    guess = np.where(first == 0, k_lo, guess)
-    guess = np.where(reached, guess, rungs[shape_index, -1])
-    # The exact counts around the guess, each distinct (shape, count) evaluated once.
-    low, high = k_min[0][shape_index], k_top[0][shape_index]
-    keys = shape_index * TABLE_KEY + guess  # (S, H): one key per distinct (shape, count)
-    distinct = np.unique(keys)  # few: scenarios share their answers
-    around = np.unique(np.concatenate([distinct - 1.0, distinct, distinct + 1.0]))
+    effective = table["effective_step_seconds"]
+    g = np.where(table["fits"] & ~np.isnan(effective), effective, np.inf).reshape(h, TABLE_RUNGS)
+    # The first rung meeting an allowance is the first whose running minimum does: per shape, the
+    # state j < TABLE_RUNGS is that rung, TABLE_RUNGS that none does.
+    prefix = np.minimum.accumulate(g, axis=1)
+    state = np.stack([np.searchsorted(-prefix[i], -afforded) for i in range(h)])  # (H, U); NaN sorts last
+    # Per (shape, state): the line through the rung below and the rung that meets; state 0 takes the
+    # memory minimum and TABLE_RUNGS the node limit, whatever the line.
+    below = np.maximum(np.arange(TABLE_RUNGS) - 1, 0)
+    alpha, beta = _line(rungs[:, below], g[:, below], rungs, g)
+    fixed = np.full((h, TABLE_RUNGS + 1), np.nan)
+    fixed[:, 0], fixed[:, -1] = rungs[:, 0], rungs[:, -1]
+    at = np.arange(h)[:, np.newaxis] * (TABLE_RUNGS + 1) + state
+    a_at, b_at, lo_at, hi_at = (np.concatenate([v, v[:, -1:]], axis=1).reshape(-1)[at]
+                                for v in (alpha, beta, rungs[:, below], rungs))
+    fixed_at = fixed.reshape(-1)[at]
+    guess = np.where(np.isnan(fixed_at), _reaching(a_at, b_at, lo_at, hi_at, afforded), fixed_at)  # (H, U)
+    # Runs of equal guesses along each shape's allowances: one (shape, count) per run.
+    starts = np.ones(guess.shape, dtype=bool)
+    starts[:, 1:] = guess[:, 1:] != guess[:, :-1]
+    run_of = (np.cumsum(starts) - 1).reshape(guess.shape)  # (H, U): runs counted shape by shape
+    run_shape = np.broadcast_to(np.arange(h)[:, np.newaxis], guess.shape)[starts]
+    run_count = guess[starts]
+    # The exact counts just below, at and above each run's count, within the shape's range, each
+    # distinct (shape, count) evaluated once.
+    near = np.clip(run_count + np.array([[-1.0], [0.0], [1.0]]), k_min[0][run_shape], k_top[0][run_shape])
+    near_keys = run_shape * TABLE_KEY + near  # (3, R)
+    around = np.unique(near_keys)
     exact_shape = (around // TABLE_KEY).astype(np.int64)
-    counts = around - exact_shape * TABLE_KEY
-    inside = (counts >= k_min[0][exact_shape]) & (counts <= k_top[0][exact_shape])
-    around, exact_shape, counts = around[inside], exact_shape[inside], counts[inside]
-    exact = step_figures(load, hardware, _shape_columns(found, exact_shape, counts, hardware.accelerators_per_node),
-                         found)
+    exact = step_figures(load, hardware, _shape_columns(found, exact_shape, around - exact_shape * TABLE_KEY,
+                                                        hardware.accelerators_per_node), found)
     g_exact = np.where(exact["fits"][0], exact["effective_step_seconds"][0], np.inf)
-    # The exact counts just below, at and above the guess, each found among the distinct ones.
-    near = np.clip(np.stack([guess - 1.0, guess, guess + 1.0], axis=-1), low[..., np.newaxis], high[..., np.newaxis])
-    where = np.searchsorted(around, shape_index[..., np.newaxis] * TABLE_KEY + near)
-    ok = g_exact[where] <= allowance[:, :, np.newaxis]
-    pick = np.where(ok.any(axis=-1), np.argmax(ok, axis=-1), 2)
-    column = np.take_along_axis(where, pick[..., np.newaxis], axis=-1)[..., 0]  # (S, H)
+    where = np.searchsorted(around, near_keys)
+    step_at = g_exact[where]
+    # Each allowance takes the first of the three that meets it, else the one above.
+    column = np.where(step_at[0][run_of] <= afforded, where[0][run_of],
+                      np.where(step_at[1][run_of] <= afforded, where[1][run_of], where[2][run_of]))
+    column = column.T[scenario_of]  # (S, H)
     eager = {name: np.asarray(exact[name])[0][column] for name in ("nodes", "accelerators", "fits")}
     wall = wall_figures(load, hardware, np.asarray(exact["effective_step_seconds"])[0][column], eager["accelerators"])
     return GatheredGrid(exact, column, **eager, **wall)

@@ -6,6 +6,7 @@ Scenarios run along axis 0 and candidate layouts along axis 1: for S scenarios a
 every figure broadcasts to (S, K), and one that does not vary by scenario stays (1, K).
 """
 
+from collections.abc import Callable
 from dataclasses import dataclass
 from functools import cached_property
 from typing import Any
@@ -133,16 +134,20 @@ class LayoutGrid:
         """Wall clock in hours, computed once: every term's cost lines use it."""
         return np.asarray(self.wall_seconds / SECONDS_PER_HOUR)
 
-    def at(self, name: str, rows: Ints, columns: Ints) -> Any:
-        """Field `name` at (rows[i], columns[i]) for each i, size-1 axes broadcast."""
-        values = np.asarray(getattr(self, name))
+    def cells(self, rows: Ints, columns: Ints) -> Callable[[str], Any]:
+        """A reader of any field at (rows[i], columns[i]) for each i, size-1 axes broadcast: the
+        indices are settled once for all the fields read."""
         first = np.zeros_like(rows)  # an index array keeps the result one value per row
-        return values[rows if values.shape[0] > 1 else first, columns if values.shape[1] > 1 else first]
+
+        def read(name: str) -> Any:
+            values = np.asarray(getattr(self, name))
+            return values[rows if values.shape[0] > 1 else first, columns if values.shape[1] > 1 else first]
+        return read
 
 
 class GatheredGrid(LayoutGrid):
     """A block whose figures are drawn from one row of distinct candidates, `table[name][0, column]`
-    for an (S, K) array of columns: a figure is gathered only when it is read, and `at` takes single
+    for an (S, K) array of columns: a figure is gathered only when it is read, and `cells` reads single
     cells straight from the table, so the many figures that only the chosen layout needs are never
     spread over every scenario."""
 
@@ -160,11 +165,16 @@ class GatheredGrid(LayoutGrid):
         object.__setattr__(self, name, value)
         return value
 
-    def at(self, name: str, rows: Ints, columns: Ints) -> Any:
-        if name in self.__dict__ or name not in self._table:
-            return super().at(name, rows, columns)
+    def cells(self, rows: Ints, columns: Ints) -> Callable[[str], Any]:
         column = self._column
-        return np.asarray(self._table[name])[0][column[rows if column.shape[0] > 1 else np.zeros_like(rows), columns]]
+        cell = column[rows if column.shape[0] > 1 else np.zeros_like(rows), columns]
+        gathered = super().cells(rows, columns)
+
+        def read(name: str) -> Any:
+            if name in self.__dict__ or name not in self._table:
+                return gathered(name)
+            return np.asarray(self._table[name])[0][cell]
+        return read
 
 
 @dataclass(frozen=True)
