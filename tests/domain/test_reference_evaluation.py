@@ -1,0 +1,136 @@
+"""The vectorised engine against a reference evaluation: on random catalogs and campaigns, one call
+over many scenarios equals one call per scenario, option by option, in its total (to 1e-9 relative),
+its screens and the layout it chose (shape, ZeRO stage, node count and wall clock).
+
+Every speed-up of the layout search works across scenarios (distinct allowances solved once, runs of
+equal answers, gathered blocks); a scenario evaluated alone takes none of those paths, so it is the
+reference they must reproduce. Catalogs and campaigns are demo data drawn at random around the demo
+catalog (invented ids and prices); nothing here is a published check value.
+"""
+
+import copy
+import json
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pytest
+
+from service.contract.catalog import CatalogIn
+from service.domain.campaign import Campaign, DataPlan, Overrides, QuoteOptions, Training, TransformerWork
+from service.domain.evaluate import CampaignEvaluation, evaluate_campaign
+
+DEMO = json.loads((Path(__file__).resolve().parents[2] / "pricing_examples" / "catalog.json").read_text("utf-8"))
+SCENARIOS = 24
+RELATIVE = 1e-9
+CHOSEN = ("tensor", "pipeline", "data", "zero_stage", "nodes", "micro_batches", "origin")
+
+
+def random_catalog(rng: np.random.Generator) -> Any:
+    catalog = copy.deepcopy(DEMO)
+    for accelerator in catalog["accelerators"]:
+        accelerator["memory_gb"] = int(rng.integers(48, 240))
+        accelerator["utilisation"] = float(rng.uniform(0.25, 0.55))
+    for node in catalog["node_types"]:
+        node["accelerators_per_node"] = int(rng.choice([4, 8, 16]))
+        node["network_gbps"] = float(rng.uniform(100.0, 3200.0))
+        node["intra_node_gbps"] = float(rng.uniform(900.0, 9000.0))
+        node["mtbf_hours"] = float(rng.uniform(2000.0, 60000.0))
+    for site in catalog["sites"]:
+        site["nodes_max"] = max(site["nodes_owned"], int(rng.choice([16, 96, 700, 5000])))
+        site["capex"]["node_price"] *= float(rng.uniform(0.5, 1.5))
+    for offer in catalog["offers"]:
+        offer["nodes_max"] = int(rng.choice([8, 64, 512, 20000, 100000]))
+        offer["on_demand_per_accelerator_hour"] *= float(rng.uniform(0.5, 1.5))
+    return CatalogIn.model_validate(catalog).to_domain()
+
+
+def random_campaign(rng: np.random.Generator, scenarios: int, *, vary_step: bool) -> tuple[Campaign, Overrides]:
+    layers = int(rng.choice([24, 32, 40, 64, 80, 96]))
+    heads = int(rng.choice([16, 32, 64]))
+    parameters = float(rng.choice([1.3e9, 7e9, 30e9, 70e9, 180e9]))
+    tokens = rng.lognormal(np.log(20.0 * parameters), 0.4, scenarios)
+    deadline = rng.uniform(2.0, 150.0, scenarios)
+    if rng.random() < 0.5:
+        deadline = np.round(deadline / 20.0) * 20.0 + 5.0  # scenarios sharing an allowance
+    work = TransformerWork(parameters=parameters, tokens=tokens, layers=layers, d_model=float(heads * 128),
+                           sequence_length=float(rng.choice([2048, 4096, 8192])), attention_heads=heads)
+    training = Training(activation_recompute=str(rng.choice(["none", "selective", "full"])),  # type: ignore[arg-type]
+                        global_batch_tokens=float(rng.choice([1e6, 4e6, 16e6])))
+    campaign = Campaign(name="reference", team="demo", work=work, training=training, deadline_days=deadline,
+                        data=DataPlan(dataset_tb=float(rng.uniform(0.0, 40.0))))
+    # Varying an input of the step itself (the network) solves the deadline by false position
+    # instead of on the table of node counts.
+    network = rng.uniform(200.0, 2000.0, scenarios) if vary_step else None
+    overrides = Overrides(electricity_price_per_kwh=rng.uniform(0.04, 0.3, scenarios), network_gbps=network)
+    return campaign, overrides
+
+
+def one(value: Any, s: int) -> Any:
+    return value[s] if isinstance(value, np.ndarray) else value
+
+
+def single(campaign: Campaign, overrides: Overrides, s: int) -> tuple[Campaign, Overrides]:
+    work = campaign.work
+    assert isinstance(work, TransformerWork)
+    return (Campaign(name=campaign.name, team=campaign.team, work=TransformerWork(
+                parameters=work.parameters, tokens=one(work.tokens, s), layers=work.layers, d_model=work.d_model,
+                sequence_length=work.sequence_length, attention_heads=work.attention_heads),
+                     training=campaign.training, deadline_days=one(campaign.deadline_days, s), data=campaign.data),
+            Overrides(electricity_price_per_kwh=one(overrides.electricity_price_per_kwh, s),
+                      network_gbps=one(overrides.network_gbps, s)))
+
+
+def per_scenario(value: Any, scenarios: int) -> np.ndarray:
+    return np.broadcast_to(np.asarray(value, dtype=np.float64).reshape(-1), (scenarios,))
+
+
+def assert_same(vector: CampaignEvaluation, singles: list[CampaignEvaluation]) -> int:
+    """Every option's total, screens and chosen layout equal scenario by scenario; the count of
+    feasible (option, scenario) pairs compared."""
+    feasible = 0
+    for k, option in enumerate(vector.options):
+        total = per_scenario(option.total, len(singles))
+        screens = per_scenario(option.screens, len(singles))
+        for s, alone in enumerate(singles):
+            reference = alone.options[k]
+            where = f"{option.label}, scenario {s}"
+            assert reference.label == option.label
+            assert screens[s] == per_scenario(reference.screens, 1)[0], where
+            expected = per_scenario(reference.total, 1)[0]
+            if np.isfinite(expected):
+                assert total[s] == pytest.approx(expected, rel=RELATIVE, abs=0.0), where
+            for name in CHOSEN:
+                assert per_scenario(getattr(option.layout, name), len(singles))[s] == \
+                    per_scenario(getattr(reference.layout, name), 1)[0], f"{where}: {name}"
+            assert per_scenario(option.layout.wall_seconds, len(singles))[s] == pytest.approx(
+                per_scenario(reference.layout.wall_seconds, 1)[0], rel=RELATIVE, abs=0.0), where
+            feasible += bool(screens[s] == 0)
+    return feasible
+
+
+def evaluate_both(seed: int, *, vary_step: bool) -> int:
+    rng = np.random.default_rng(1000 + seed)
+    catalog = random_catalog(rng)
+    campaign, overrides = random_campaign(rng, SCENARIOS, vary_step=vary_step)
+    options = QuoteOptions()
+    vector = evaluate_campaign(catalog, campaign, options, overrides)
+    singles = []
+    for s in range(SCENARIOS):
+        alone, alone_overrides = single(campaign, overrides, s)
+        singles.append(evaluate_campaign(catalog, alone, options, alone_overrides))
+    return assert_same(vector, singles)
+
+
+@pytest.mark.parametrize("seed", range(10))
+def test_many_scenarios_in_one_call_equal_each_scenario_alone_on_random_catalogs(seed: int) -> None:
+    feasible = evaluate_both(seed, vary_step=False)
+    assert feasible > 0  # the comparison means something only where some option is feasible
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "known: where an input of the step varies by scenario the deadline count is solved by four steps "
+    "of false position, alone by the table of node counts and an exact check of the count either side; "
+    "the two can settle on different counts (totals 0.05% apart here)"))
+def test_a_scenario_whose_step_varies_equals_itself_alone() -> None:
+    evaluate_both(6, vary_step=True)
