@@ -37,7 +37,8 @@ __all__ = ["DEADLINE", "MEMORY", "NODE_LIMIT", "PINNED", "Architecture", "Candid
 
 # Why a candidate is in the set (`LayoutGrid.origin`): what decided the layout when it is chosen.
 MEMORY, NODE_LIMIT, DEADLINE, PINNED = 0, 1, 2, 3
-DEADLINE_ITERATIONS = 4  # false-position steps towards the fewest nodes that meet the deadline
+SEARCH_STEPS = 100  # bracket steps towards the fewest nodes that meet the deadline: halving every other
+# step closes any bracket of counts below MAX_UNITS well within it
 TABLE_RUNGS = 16  # node counts per shape in the table the deadline is solved on
 TABLE_KEY = 2.0**40  # (shape, count) keys: shape × TABLE_KEY + count, counts below it
 MAX_UNITS = TABLE_KEY - 2.0  # node units a candidate may have: beyond any venue (limits.MAX_NODES)
@@ -142,7 +143,7 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
         return Candidates((evaluate_columns(load, hardware, base, found),)), fewest
     if not _step_varies(load, hardware, k_min, k_top):
         # Solve every scenario on one table of node counts, evaluated with the base block in one pass.
-        rungs = _rungs(k_min, k_top)
+        rungs = _rungs(k_min, k_top)[0]
         table_columns = _shape_columns(found, np.repeat(np.arange(found.count), TABLE_RUNGS), rungs.reshape(-1),
                                        per_node)
         both = step_figures(load, hardware, _side_by_side(base, table_columns), found)
@@ -152,8 +153,7 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
         return Candidates((first, _deadline_block(load, hardware, found, k_min, k_top, rungs, table,
                                                   deadline))), fewest
     first = evaluate_columns(load, hardware, base, found)
-    k_met = _fewest_meeting(load, hardware, found, columns, deadline,
-                            low=(k_min, first.wall_seconds[:, :found.count]), high=k_top)
+    k_met = _fewest_meeting(load, hardware, found, columns, deadline, _rungs(k_min, k_top))
     blocks = [first, evaluate_columns(load, hardware, columns(k_met, DEADLINE), found)]
     return Candidates(tuple(blocks)), fewest
 
@@ -201,9 +201,9 @@ def _step_varies(load: Load, hardware: Hardware, k_min: Floats, k_top: Floats) -
 
 
 def _rungs(k_min: Floats, k_top: Floats) -> Floats:
-    """TABLE_RUNGS geometric node-unit counts per shape from the memory minimum to the top: (H, G)."""
+    """TABLE_RUNGS geometric node-unit counts per shape from the memory minimum to the top: (R, H, G)."""
     fraction = np.linspace(0.0, 1.0, TABLE_RUNGS)
-    return np.asarray(np.ceil(k_min[0][:, np.newaxis] * (k_top[0] / k_min[0])[:, np.newaxis] ** fraction - 1e-9))
+    return np.asarray(np.ceil(k_min[..., np.newaxis] * (k_top / k_min)[..., np.newaxis] ** fraction - 1e-9))
 
 
 def _side_by_side(a: Columns, b: Columns) -> Columns:
@@ -261,35 +261,117 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     where = np.searchsorted(around, near_keys)
     step_at = g_exact[where]
     # Each allowance takes the first of the three that meets it, else the one above.
-    column = np.where(step_at[0][run_of] <= afforded, where[0][run_of],
-                      np.where(step_at[1][run_of] <= afforded, where[1][run_of], where[2][run_of]))
+    g_near = [step_at[i][run_of] for i in range(3)]
+    meets = [g_i <= afforded for g_i in g_near]
+    column = np.where(meets[0], where[0][run_of], np.where(meets[1], where[1][run_of], where[2][run_of]))
+    # Where the line missed by more than a count (the count below also meets, or none of the three
+    # does), the bracket between a rung and the nearest exact count is closed as `_fewest_meeting`
+    # closes its own, so that a scenario gets the same count alone as in a sweep.
+    interior = (state > 0) & (state < TABLE_RUNGS)
+    below, above = interior & meets[0], interior & ~meets[0] & ~meets[1] & ~meets[2]
+    searched = np.flatnonzero(below | above)
+    if searched.size:
+        known = _ExactCounts(load, hardware, found, around, exact)
+        shape_of, scenario = np.divmod(searched, afforded.size)
+        rung = shape_of * TABLE_RUNGS + state.reshape(-1)[searched]
+        n0, n2 = near[0][run_of].reshape(-1)[searched], near[2][run_of].reshape(-1)[searched]
+        inside = below.reshape(-1)[searched]
+        bracket = (np.where(inside, rungs.reshape(-1)[rung - 1], n2),
+                   np.where(inside, g.reshape(-1)[rung - 1], g_near[2].reshape(-1)[searched]),
+                   np.where(inside, n0, rungs.reshape(-1)[rung]),
+                   np.where(inside, g_near[0].reshape(-1)[searched], g.reshape(-1)[rung]))
+        fewest = _closed(known, shape_of, afforded[scenario], *bracket)
+        column.reshape(-1)[searched] = known.columns(shape_of * TABLE_KEY + fewest)
+        exact = known.figures
     column = column.T[scenario_of]  # (S, H)
     eager = {name: np.asarray(exact[name])[0][column] for name in ("nodes", "accelerators", "fits")}
     wall = wall_figures(load, hardware, np.asarray(exact["effective_step_seconds"])[0][column], eager["accelerators"])
     return GatheredGrid(exact, column, **eager, **wall)
 
 
-def _fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Callable[[Floats, int], Columns],
-                    deadline: Floats, *, low: tuple[Floats, Floats], high: Floats) -> Floats:
-    """Per scenario and shape, the fewest node units that meet the deadline when the step varies by
-    scenario: false position on wall(k) = α/k + β between a count that misses it and one that
-    meets it; the smallest count where it already meets it, the largest where none does."""
-    w_top = evaluate_columns(load, hardware, columns(high, DEADLINE), found).wall_seconds
-    k_lo, w_lo = (np.asarray(v, dtype=np.float64) for v in np.broadcast_arrays(*low))
-    shape = np.broadcast_shapes(k_lo.shape, np.shape(high), np.shape(w_top), deadline.shape)
-    k_lo, w_lo, k_hi, w_hi = (np.broadcast_to(v, shape).copy() for v in (k_lo, w_lo, high, w_top))
-    met_at_low = w_lo <= deadline
-    target = np.broadcast_to(deadline, shape)
-    for _ in range(DEADLINE_ITERATIONS):
-        open_bracket = (k_hi - k_lo > 1.0) & (w_lo > deadline) & (w_hi <= deadline)
+class _ExactCounts:
+    """The exact figures of (shape, count) keys evaluated so far, one row of columns, added to as
+    the search asks for counts not yet evaluated."""
+
+    def __init__(self, load: Load, hardware: Hardware, found: Shapes, keys: Floats, figures: dict[str, Any]):
+        self.load, self.hardware, self.found = load, hardware, found
+        self.keys, self.figures = keys, figures
+
+    def columns(self, keys: Floats) -> Ints:
+        """The column of each key, evaluating the keys not yet known first."""
+        missing = np.setdiff1d(keys, self.keys)
+        if missing.size:
+            shape = (missing // TABLE_KEY).astype(np.int64)
+            new = step_figures(self.load, self.hardware, _shape_columns(
+                self.found, shape, missing - shape * TABLE_KEY, self.hardware.accelerators_per_node), self.found)
+            self.keys = np.concatenate([self.keys, missing])
+            self.figures = {name: np.concatenate([np.asarray(self.figures[name]), np.asarray(value)], axis=1)
+                            for name, value in new.items()}
+        order = np.argsort(self.keys)
+        return np.asarray(order[np.searchsorted(self.keys, keys, sorter=order)])
+
+    def steps(self, keys: Floats) -> Floats:
+        """The effective step of each key where its layout fits, inf where it does not."""
+        column = self.columns(keys)
+        return np.asarray(np.where(self.figures["fits"][0][column], self.figures["effective_step_seconds"][0][column],
+                                   np.inf))
+
+
+def _closed(known: _ExactCounts, shape: Ints, allowance: Floats, k_lo: Floats, g_lo: Floats, k_hi: Floats,
+            g_hi: Floats) -> Floats:
+    """The fewest count meeting each allowance between k_lo (whose step g_lo misses it) and k_hi
+    (whose step g_hi meets it): false position alternating with halving until they are neighbours."""
+    for step in range(SEARCH_STEPS):
+        open_bracket = k_hi - k_lo > 1.0
         if not open_bracket.any():
             break
-        guess = np.where(open_bracket, np.minimum(_interpolated(k_lo, w_lo, k_hi, w_hi, target), k_hi - 1.0), k_hi)
-        wall = np.broadcast_to(evaluate_columns(load, hardware, columns(guess, DEADLINE), found).wall_seconds, shape)
-        meets = wall <= deadline
-        k_hi, w_hi = np.where(open_bracket & meets, guess, k_hi), np.where(open_bracket & meets, wall, w_hi)
-        k_lo, w_lo = np.where(open_bracket & ~meets, guess, k_lo), np.where(open_bracket & ~meets, wall, w_lo)
-    return np.asarray(np.where(met_at_low, k_lo, k_hi))
+        inside = (np.minimum(_interpolated(k_lo, g_lo, k_hi, g_hi, allowance), k_hi - 1.0) if step % 2 == 0
+                  else np.floor((k_lo + k_hi) / 2.0))
+        guess = np.where(open_bracket, inside, k_hi)
+        g = known.steps(np.asarray(shape * TABLE_KEY + guess, dtype=np.float64))
+        meets = open_bracket & (g <= allowance)
+        misses = open_bracket & ~(g <= allowance)
+        k_hi, g_hi = np.where(meets, guess, k_hi), np.where(meets, g, g_hi)
+        k_lo, g_lo = np.where(misses, guess, k_lo), np.where(misses, g, g_lo)
+    return k_hi
+
+
+def _fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Callable[[Floats, int], Columns],
+                    deadline: Floats, rungs: Floats) -> Floats:
+    """Per scenario and shape, the fewest node units that meet the deadline when the step varies by
+    scenario, found as the table path finds it: the first of the rungs (R, H, G) that meets it, then
+    between it and the rung below, false position on wall(k) = α/k + β alternating with halving
+    until the two counts are neighbours; the memory minimum where it already meets it, the top where
+    no rung does. A count whose layout does not fit misses."""
+    wall = np.stack([_fitting_wall(evaluate_columns(load, hardware, columns(rungs[..., j], DEADLINE), found))
+                     for j in range(TABLE_RUNGS)], axis=-1)
+    shape = np.broadcast_shapes(wall.shape, rungs.shape)
+    wall, counts = np.broadcast_to(wall, shape), np.broadcast_to(rungs, shape)
+    meets = wall <= deadline[..., np.newaxis]
+    first = np.argmax(meets, axis=-1)[..., np.newaxis]
+    below = np.maximum(first - 1, 0)
+    k_lo, w_lo = (np.take_along_axis(v, below, axis=-1)[..., 0] for v in (counts, wall))
+    k_hi, w_hi = (np.take_along_axis(v, first, axis=-1)[..., 0] for v in (counts, wall))
+    target = np.broadcast_to(deadline, k_lo.shape)
+    for step in range(SEARCH_STEPS):
+        open_bracket = (k_hi - k_lo > 1.0) & (w_lo > target) & (w_hi <= target)
+        if not open_bracket.any():
+            break
+        inside = (np.minimum(_interpolated(k_lo, w_lo, k_hi, w_hi, target), k_hi - 1.0) if step % 2 == 0
+                  else np.floor((k_lo + k_hi) / 2.0))
+        guess = np.where(open_bracket, inside, k_hi)
+        w = np.broadcast_to(_fitting_wall(evaluate_columns(load, hardware, columns(guess, DEADLINE), found)),
+                            k_lo.shape)
+        met = open_bracket & (w <= target)
+        missed = open_bracket & ~(w <= target)
+        k_hi, w_hi = np.where(met, guess, k_hi), np.where(met, w, w_hi)
+        k_lo, w_lo = np.where(missed, guess, k_lo), np.where(missed, w, w_lo)
+    return np.asarray(np.where(meets.any(axis=-1), k_hi, counts[..., -1]))
+
+
+def _fitting_wall(grid: LayoutGrid) -> Floats:
+    """The wall clock where the layout fits, inf where it does not."""
+    return np.asarray(np.where(grid.fits, grid.wall_seconds, np.inf))
 
 
 def _minimum_units(load: Load, hardware: Hardware, found: Shapes, unit: Floats) -> Floats:

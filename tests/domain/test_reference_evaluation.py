@@ -87,8 +87,8 @@ def per_scenario(value: Any, scenarios: int) -> np.ndarray:
 
 def assert_same(vector: CampaignEvaluation, singles: list[CampaignEvaluation]) -> int:
     """Every option's total, screens and chosen layout equal scenario by scenario; the count of
-    feasible (option, scenario) pairs compared."""
-    feasible = 0
+    priced (option, scenario) pairs compared."""
+    priced = 0
     for k, option in enumerate(vector.options):
         total = per_scenario(option.total, len(singles))
         screens = per_scenario(option.screens, len(singles))
@@ -105,8 +105,8 @@ def assert_same(vector: CampaignEvaluation, singles: list[CampaignEvaluation]) -
                     per_scenario(getattr(reference.layout, name), 1)[0], f"{where}: {name}"
             assert per_scenario(option.layout.wall_seconds, len(singles))[s] == pytest.approx(
                 per_scenario(reference.layout.wall_seconds, 1)[0], rel=RELATIVE, abs=0.0), where
-            feasible += bool(screens[s] == 0)
-    return feasible
+            priced += bool(np.isfinite(expected))
+    return priced
 
 
 def evaluate_both(seed: int, *, vary_step: bool) -> int:
@@ -124,13 +124,14 @@ def evaluate_both(seed: int, *, vary_step: bool) -> int:
 
 @pytest.mark.parametrize("seed", range(10))
 def test_many_scenarios_in_one_call_equal_each_scenario_alone_on_random_catalogs(seed: int) -> None:
-    feasible = evaluate_both(seed, vary_step=False)
-    assert feasible > 0  # the comparison means something only where some option is feasible
+    priced = evaluate_both(seed, vary_step=False)
+    assert priced > 0  # the comparison means something only where some option has a price
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "known: where an input of the step varies by scenario the deadline count is solved by four steps "
-    "of false position, alone by the table of node counts and an exact check of the count either side; "
-    "the two can settle on different counts (totals 0.05% apart here)"))
-def test_a_scenario_whose_step_varies_equals_itself_alone() -> None:
-    evaluate_both(6, vary_step=True)
+@pytest.mark.parametrize("seed", range(6))
+def test_where_the_step_varies_by_scenario_many_in_one_call_equal_each_alone(seed: int) -> None:
+    """The step varies (the network by scenario): the deadline is searched per scenario from its own
+    table of node counts, and must find what the scenario alone finds, also where the effective step
+    is not monotone in the node count (seed 3: failures grow with it, and the top count misses a
+    deadline that a middle one meets)."""
+    assert evaluate_both(seed, vary_step=True) > 0
