@@ -1,5 +1,5 @@
 """The service with three extra routes that each do only part of what POST /v1/quotes does: a
-benchmark instrument for `bench_quotes.py --floor`, never part of the service.
+benchmark instrument for `bench_quotes.py`, never part of the service.
 
 Each takes the same body (validated as a quote request), runs on the compute lane as quotes do, and
 answers 201 with a quote document:
@@ -10,11 +10,16 @@ answers 201 with a quote document:
     instead of the write.
 What a route costs the server beyond GET /healthz is the least any quote model could add on top of it.
 
-    .venv/bin/python tests/benchmarks/floor_app.py --port 8001 --database sqlite:///floor.db
+    .venv/bin/python tests/benchmarks/floor_app.py --port 8001 --database sqlite:///floor.db [--workers 2]
+
+It is served as `berth serve` serves the service: one process, or with --workers N, N worker processes
+that each build the app from the environment (`create_floor_app_from_environment`).
 """
 
 import argparse
+import os
 import sys
+import tempfile
 from collections.abc import Callable
 from datetime import datetime
 from functools import partial
@@ -27,7 +32,7 @@ from fastapi import FastAPI
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from service.api.app import create_app
-from service.api.connections import HeaderTimeoutProtocol
+from service.api.connections import HeaderTimeoutProtocol, raise_open_file_limit
 from service.api.deps import CatalogsDep, ComputeLaneDep, NowDep, StorageDep
 from service.api.observability import configure_logging
 from service.api.responses import FastJSONResponse
@@ -81,6 +86,11 @@ def create_floor_app(settings: Settings) -> FastAPI:
     return app
 
 
+def create_floor_app_from_environment() -> FastAPI:
+    """The factory each worker process calls: the floor app on settings read from BERTH_* variables."""
+    return create_floor_app(Settings())
+
+
 def _on_compute_lane(handler: Callable[..., FastJSONResponse]) -> Callable[..., Any]:
     """A route that runs `handler` on the compute lane, as POST /v1/quotes runs its work."""
     async def route(payload: QuoteRequestIn, storage: StorageDep, catalogs: CatalogsDep, now: NowDep,
@@ -91,16 +101,31 @@ def _on_compute_lane(handler: Callable[..., FastJSONResponse]) -> Callable[..., 
 
 
 def main() -> None:
-    """Serve the floor app as `berth serve` serves the service (one process, the same server options)."""
+    """Serve the floor app as `berth serve` serves the service: the same server options, in one process
+    or in `--workers` processes that each build their own app (and engine)."""
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--host", default="127.0.0.1")
     parser.add_argument("--port", type=int, required=True)
     parser.add_argument("--database", required=True)
+    parser.add_argument("--workers", type=int, default=1, help="worker processes (default %(default)s)")
     args = parser.parse_args()
-    settings = Settings(host=args.host, port=args.port, database_url=args.database)
+    if args.workers < 1:
+        parser.error("--workers must be at least 1")
+    overrides: dict[str, Any] = {"host": args.host, "port": args.port, "database_url": args.database}
+    settings = Settings(**overrides)
     configure_logging(settings.log_level)
-    uvicorn.run(create_floor_app(settings), host=settings.host, port=settings.port, log_config=None,
-                proxy_headers=False, http=HeaderTimeoutProtocol)
+    raise_open_file_limit()
+    server_options: dict[str, Any] = {"host": settings.host, "port": settings.port, "log_config": None,
+                                      "proxy_headers": False, "http": HeaderTimeoutProtocol}
+    if args.workers == 1:
+        uvicorn.run(create_floor_app(settings), **server_options)
+        return
+    # The workers import this module by name: its directory is first on sys.path when run as a script.
+    os.environ.update({f"BERTH_{k.upper()}": str(v) for k, v in overrides.items()})
+    with tempfile.TemporaryDirectory(prefix="berth-floor-metrics-") as metrics:
+        os.environ.setdefault("PROMETHEUS_MULTIPROC_DIR", metrics)
+        uvicorn.run("floor_app:create_floor_app_from_environment", factory=True, workers=args.workers,
+                    **server_options)
 
 
 if __name__ == "__main__":

@@ -1,12 +1,12 @@
-"""The floor app that `bench_quotes.py --floor` times: each floor route answers a quote request with
-a real quote document, doing only its part of what POST /v1/quotes does."""
+"""The floor app that `bench_quotes.py` times: each floor route answers a quote request with a real
+quote document, doing only its part of what POST /v1/quotes does."""
 
 from pathlib import Path
 from typing import Any
 
 import httpx
 import pytest
-from floor_app import create_floor_app
+from floor_app import create_floor_app, create_floor_app_from_environment
 
 from service.api.app import prepare
 from service.config import Settings
@@ -33,5 +33,19 @@ async def test_each_floor_route_does_its_part_of_a_quote(tmp_path: Path, owned_w
             assert stored.json()["id"] != validated[0].json()["id"]
             assert (await http.get(f"/v1/quotes/{stored.json()['id']}")).json() == stored.json()
             assert (await http.get(f"/v1/quotes/{computed.json()['id']}")).status_code == 404
+    finally:
+        app.state.storage.dispose()
+
+
+def test_each_worker_builds_the_floor_app_from_the_environment(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """With --workers N, each worker process calls this factory by name: it must read the settings the
+    parent exported and add the floor routes."""
+    database = f"sqlite:///{tmp_path / 'floor.db'}"
+    monkeypatch.setenv("BERTH_DATABASE_URL", database)
+    app = create_floor_app_from_environment()
+    try:
+        assert app.state.settings.database_url == database
+        paths = {getattr(route, "path", None) for route in app.routes}
+        assert {"/floor/validated", "/floor/stored", "/floor/computed"} <= paths
     finally:
         app.state.storage.dispose()
