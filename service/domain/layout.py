@@ -1,9 +1,10 @@
 """Layout search: a bounded set of (tensor, pipeline, data) layouts per venue (model.md §5).
 
 The candidates are, for each shape (t, p) of `parallelism.shapes`, the fewest nodes that hold the
-model, the most each node limit allows, and the fewest that meet the deadline (solved on a table of
-node counts, or by false position where the step varies by scenario): a handful per shape whatever
-the venue's size. `step.py` evaluates each candidate; `choice.py` picks among them.
+model, the most each node limit allows, and the fewest that meet the deadline (the bracket around the
+first count of a table of node counts that meets it, closed by false position and halving; one table
+row for all scenarios, or one per scenario where the step varies): a handful per shape whatever the
+venue's size. `step.py` evaluates each candidate; `choice.py` picks among them.
 """
 
 from collections.abc import Callable, Sequence
@@ -280,7 +281,8 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
                    np.where(inside, g.reshape(-1)[rung - 1], g_near[2].reshape(-1)[searched]),
                    np.where(inside, n0, rungs.reshape(-1)[rung]),
                    np.where(inside, g_near[0].reshape(-1)[searched], g.reshape(-1)[rung]))
-        fewest = _closed(known, shape_of, afforded[scenario], *bracket)
+        fewest = _closed(lambda k: known.steps(np.asarray(shape_of * TABLE_KEY + k, dtype=np.float64)),
+                         afforded[scenario], *bracket)
         column.reshape(-1)[searched] = known.columns(shape_of * TABLE_KEY + fewest)
         exact = known.figures
     column = column.T[scenario_of]  # (S, H)
@@ -317,20 +319,20 @@ class _ExactCounts:
                                    np.inf))
 
 
-def _closed(known: _ExactCounts, shape: Ints, allowance: Floats, k_lo: Floats, g_lo: Floats, k_hi: Floats,
+def _closed(measure: Callable[[Floats], Floats], target: Floats, k_lo: Floats, g_lo: Floats, k_hi: Floats,
             g_hi: Floats) -> Floats:
-    """The fewest count meeting each allowance between k_lo (whose step g_lo misses it) and k_hi
-    (whose step g_hi meets it): false position alternating with halving until they are neighbours."""
+    """The fewest count whose measure (effective step or wall clock) meets the target, between k_lo,
+    whose g_lo misses it, and k_hi, whose g_hi meets it: false position on g(k) = α/k + β alternating
+    with halving until the two are neighbours (halving alone closes any bracket within SEARCH_STEPS)."""
     for step in range(SEARCH_STEPS):
-        open_bracket = k_hi - k_lo > 1.0
+        open_bracket = (k_hi - k_lo > 1.0) & (g_lo > target) & (g_hi <= target)
         if not open_bracket.any():
             break
-        inside = (np.minimum(_interpolated(k_lo, g_lo, k_hi, g_hi, allowance), k_hi - 1.0) if step % 2 == 0
+        inside = (np.minimum(_interpolated(k_lo, g_lo, k_hi, g_hi, target), k_hi - 1.0) if step % 2 == 0
                   else np.floor((k_lo + k_hi) / 2.0))
         guess = np.where(open_bracket, inside, k_hi)
-        g = known.steps(np.asarray(shape * TABLE_KEY + guess, dtype=np.float64))
-        meets = open_bracket & (g <= allowance)
-        misses = open_bracket & ~(g <= allowance)
+        g = measure(guess)
+        meets, misses = open_bracket & (g <= target), open_bracket & ~(g <= target)
         k_hi, g_hi = np.where(meets, guess, k_hi), np.where(meets, g, g_hi)
         k_lo, g_lo = np.where(misses, guess, k_lo), np.where(misses, g, g_lo)
     return k_hi
@@ -353,20 +355,13 @@ def _fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Call
     k_lo, w_lo = (np.take_along_axis(v, below, axis=-1)[..., 0] for v in (counts, wall))
     k_hi, w_hi = (np.take_along_axis(v, first, axis=-1)[..., 0] for v in (counts, wall))
     target = np.broadcast_to(deadline, k_lo.shape)
-    for step in range(SEARCH_STEPS):
-        open_bracket = (k_hi - k_lo > 1.0) & (w_lo > target) & (w_hi <= target)
-        if not open_bracket.any():
-            break
-        inside = (np.minimum(_interpolated(k_lo, w_lo, k_hi, w_hi, target), k_hi - 1.0) if step % 2 == 0
-                  else np.floor((k_lo + k_hi) / 2.0))
-        guess = np.where(open_bracket, inside, k_hi)
-        w = np.broadcast_to(_fitting_wall(evaluate_columns(load, hardware, columns(guess, DEADLINE), found)),
-                            k_lo.shape)
-        met = open_bracket & (w <= target)
-        missed = open_bracket & ~(w <= target)
-        k_hi, w_hi = np.where(met, guess, k_hi), np.where(met, w, w_hi)
-        k_lo, w_lo = np.where(missed, guess, k_lo), np.where(missed, w, w_lo)
-    return np.asarray(np.where(meets.any(axis=-1), k_hi, counts[..., -1]))
+
+    def wall_at(k: Floats) -> Floats:
+        grid = evaluate_columns(load, hardware, columns(k, DEADLINE), found)
+        return np.asarray(np.broadcast_to(_fitting_wall(grid), k_lo.shape))
+
+    fewest = _closed(wall_at, target, k_lo, w_lo, k_hi, w_hi)
+    return np.asarray(np.where(meets.any(axis=-1), fewest, counts[..., -1]))
 
 
 def _fitting_wall(grid: LayoutGrid) -> Floats:
