@@ -17,9 +17,12 @@ from service.domain.campaign import Campaign, Overrides, QuoteOptions, Runs
 from service.domain.catalog import Catalog
 from service.domain.evaluate import CampaignEvaluation, OptionResult, evaluate_campaign
 from service.domain.layout import LayoutGrid
+from service.domain.screens import CAPACITY, MEMORY, OWNED_ONLY, PINNED_TOO_FEW, PRECISION, RESIDENCY
 from service.domain.terms import Energy
 
 MAX_SPLIT_POINTS = 8  # how many ways of dividing the runs are tried, evenly spaced
+# Screens that do not depend on how many runs an option takes: a part of the runs cannot lift them.
+STANDING = RESIDENCY | OWNED_ONLY | PRECISION | MEMORY | PINNED_TOO_FEW | CAPACITY
 
 
 def split_points(run_count: int) -> list[int]:
@@ -48,6 +51,10 @@ def split_options(catalog: Catalog, campaign: Campaign, options: QuoteOptions, o
     if not rented_terms:
         return []
     pure = {o.label: o for o in evaluation.options}
+    owned_pure = [o for o in evaluation.options if o.term == "owned_chargeback"]
+    rented_pure = [o for o in evaluation.options if o.term in rented_terms]
+    if not (_could_take_a_part(owned_pure) and _could_take_a_part(rented_pure)):
+        return []  # every owned or every rented option is ruled out whatever its share of the runs
     best: dict[str, OptionResult] = {}
     # Every split point at once, as scenarios of one evaluation per side.
     points = split_points(total)
@@ -72,6 +79,11 @@ def split_options(catalog: Catalog, campaign: Campaign, options: QuoteOptions, o
             if key not in best or float(candidate.total[0]) < float(best[key].total[0]):
                 best[key] = candidate
     return [s for s in best.values() if _worth_showing(s, pure)]
+
+
+def _could_take_a_part(options: list[OptionResult]) -> bool:
+    """Whether some option is free of the screens a smaller share of the runs cannot lift."""
+    return any(not int(np.asarray(o.screens).reshape(-1)[0]) & STANDING for o in options)
 
 
 def at_scenario(value: Any, k: int, scenarios: int) -> Any:

@@ -16,7 +16,9 @@ without parameters, so there is no memory limit and no communication.
 """
 
 import copy
+import json
 import math
+from pathlib import Path
 from typing import Any
 
 import pytest
@@ -24,7 +26,7 @@ from numpy.testing import assert_allclose
 
 from service.contract.catalog import CatalogIn
 from service.contract.request import QuoteRequestIn
-from service.domain import screens
+from service.domain import screens, split
 from service.domain.evaluate import CampaignEvaluation, OptionResult, evaluate_campaign
 from service.domain.split import split_options, split_points
 from service.usecases.quoting import quote
@@ -306,3 +308,22 @@ def test_no_split_for_a_single_run():
 def test_no_split_when_the_request_allows_owned_sites_only():
     _, splits = splits_of(CATALOG, split_request(data={"owned_only": True}))
     assert splits == []
+
+
+DEMO_EXAMPLES = Path(__file__).resolve().parents[2] / "pricing_examples"
+
+
+@pytest.mark.parametrize("name", sorted(p.name for p in DEMO_EXAMPLES.glob("campaign-*.json")))
+def test_skipping_splits_that_a_standing_screen_rules_out_changes_no_answer(
+        name: str, monkeypatch: pytest.MonkeyPatch) -> None:
+    """split_options returns early when every owned or every rented option has a screen that no share
+    of the runs lifts (residency, owned only, precision, memory, pinned count, capacity); on every demo
+    campaign it must return what the full search over split points returns."""
+    catalog = CatalogIn.model_validate(json.loads((DEMO_EXAMPLES / "catalog.json").read_text("utf-8"))).to_domain()
+    request = QuoteRequestIn.model_validate(json.loads((DEMO_EXAMPLES / name).read_text("utf-8")))
+    campaign, options, overrides = request.to_domain()
+    evaluation = evaluate_campaign(catalog, campaign, options, overrides)
+    quick = split_options(catalog, campaign, options, overrides, evaluation)
+    monkeypatch.setattr(split, "_could_take_a_part", lambda _: True)
+    full = split_options(catalog, campaign, options, overrides, evaluation)
+    assert [(o.label, float(o.total[0])) for o in quick] == [(o.label, float(o.total[0])) for o in full]
