@@ -4,7 +4,6 @@ import json
 import os
 import re
 import sys
-import tempfile
 from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
@@ -317,28 +316,12 @@ def serve(
                                                      "file safely: WAL, queued writers)")] = 1,
 ) -> None:
     """Run the HTTP service. Logs are JSON lines on standard error."""
-    import uvicorn
-
     from service.api.app import create_app
-    from service.api.connections import HeaderTimeoutProtocol, raise_open_file_limit
-    from service.api.observability import configure_logging
+    from service.api.serving import run_server
 
     overrides: dict[str, Any] = {k: v for k, v in
                                  {"host": host, "port": port, "database_url": database}.items() if v is not None}
-    settings = Settings(**overrides)
-    configure_logging(settings.log_level)
-    raise_open_file_limit()
-    # The app reads X-Forwarded-* itself (BERTH_FORWARDED_ALLOW_IPS), keeping the socket's peer for
-    # local mode; uvicorn's own reading would overwrite the peer before the app sees it.
-    server_options: dict[str, Any] = {"host": settings.host, "port": settings.port, "log_config": None,
-                                      "proxy_headers": False, "http": HeaderTimeoutProtocol}
-    if workers == 1:
-        uvicorn.run(create_app(settings), **server_options)
-        return
-    # Each worker builds its own app (and engine) after the fork, from the environment.
-    os.environ.update({f"BERTH_{k.upper()}": str(v) for k, v in overrides.items()})
-    os.environ.setdefault("PROMETHEUS_MULTIPROC_DIR", tempfile.mkdtemp(prefix="berth-metrics-"))
-    uvicorn.run("service.api.app:create_app", factory=True, workers=workers, **server_options)
+    run_server(overrides, workers=workers, app=create_app, factory="service.api.app:create_app")
 
 
 class KeyRole(StrEnum):

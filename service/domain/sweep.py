@@ -16,10 +16,12 @@ from service.domain.catalog import Catalog
 from service.domain.comparison import breakeven_rows, cheapest
 from service.domain.distributions import Distribution, stream
 from service.domain.evaluate import evaluate_campaign
+from service.domain.parallelism import MAX_PIPELINE_DEGREES, divisors
 from service.domain.programme import view_total
 from service.domain.whatif import apply
 
-CHUNK_ELEMENTS = 1_600_000  # scenarios × candidate node counts per chunk: bounds memory
+CHUNK_ELEMENTS = 1_600_000  # scenarios × candidate layouts per chunk: bounds memory
+CANDIDATES_PER_SHAPE = 4  # the memory minimum, a site's two node limits (an offer has one) and the deadline
 
 
 @dataclass(frozen=True)
@@ -226,14 +228,14 @@ class SweepSummary:
         }
 
 
-def chunk_size(catalog: Catalog, options: QuoteOptions) -> int:
-    """Scenarios per chunk so that the (scenarios × node counts) arrays stay near CHUNK_ELEMENTS."""
-    limits = [v.nodes_max for v in catalog.offers] + [max(s.nodes_max, s.nodes_owned) for s in catalog.sites]
-    if options.max_accelerators is not None:
-        smallest = min(n.accelerators_per_node for n in catalog.node_types.values())
-        limits = [min(limit, options.max_accelerators // smallest) for limit in limits]
-    widest = max([*limits, 1])
-    return max(64, CHUNK_ELEMENTS // widest)
+def chunk_size(catalog: Catalog) -> int:
+    """Scenarios per chunk so that the (scenarios × candidate layouts) arrays stay near CHUNK_ELEMENTS.
+    A venue's candidates do not grow with its size (layout.py): at most its node type's shapes (the
+    divisors of its accelerators per node × MAX_PIPELINE_DEGREES), each at CANDIDATES_PER_SHAPE counts.
+    """
+    shapes = max((len(divisors(node.accelerators_per_node)) * MAX_PIPELINE_DEGREES
+                  for node in catalog.node_types.values()), default=1)
+    return max(64, CHUNK_ELEMENTS // (shapes * CANDIDATES_PER_SHAPE))
 
 
 @dataclass(frozen=True)

@@ -153,7 +153,7 @@ def run(prepared: PreparedSweep, *, keep_rows: int = ROWS_IN_JSON, progress: Pro
 
 def _chunks(prepared: PreparedSweep, processes: int) -> Iterator[ChunkResult]:
     plan = prepared.plan
-    size = chunk_size(prepared.catalog, plan.options)
+    size = chunk_size(prepared.catalog)
     inputs = (values for _, values in scenario_chunks(plan, size))
     # A sweep of one chunk gains nothing from starting worker processes.
     yield from evaluated(prepared.catalog, plan, inputs, processes=processes if plan.scenarios > size else 1)

@@ -17,25 +17,21 @@ that each build the app from the environment (`create_floor_app_from_environment
 """
 
 import argparse
-import os
 import sys
-import tempfile
 from collections.abc import Callable
 from datetime import datetime
 from functools import partial
 from pathlib import Path
 from typing import Any
 
-import uvicorn
 from fastapi import FastAPI
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from service.api.app import create_app
-from service.api.connections import HeaderTimeoutProtocol, raise_open_file_limit
 from service.api.deps import CatalogsDep, ComputeLaneDep, NowDep, StorageDep
-from service.api.observability import configure_logging
 from service.api.responses import FastJSONResponse
+from service.api.serving import run_server
 from service.config import Settings
 from service.contract.request import QuoteRequestIn
 from service.storage.repository import CatalogRef, Storage, StoredQuote, new_id
@@ -112,21 +108,9 @@ def main() -> None:
     if args.workers < 1:
         parser.error("--workers must be at least 1")
     overrides: dict[str, Any] = {"host": args.host, "port": args.port, "database_url": args.database}
-    settings = Settings(**overrides)
-    configure_logging(settings.log_level)
-    raise_open_file_limit()
-    server_options: dict[str, Any] = {"host": settings.host, "port": settings.port, "log_config": None,
-                                      "proxy_headers": False, "http": HeaderTimeoutProtocol}
-    if args.workers == 1:
-        uvicorn.run(create_floor_app(settings), **server_options)
-        return
     # The workers import this module by name: its directory is first on sys.path when run as a script.
-    os.environ.update({f"BERTH_{k.upper()}": str(v) for k, v in overrides.items()})
-    with tempfile.TemporaryDirectory(prefix="berth-floor-metrics-") as metrics:
-        os.environ.setdefault("PROMETHEUS_MULTIPROC_DIR", metrics)
-        uvicorn.run("floor_app:create_floor_app_from_environment", factory=True, workers=args.workers,
-                    **server_options)
-
+    run_server(overrides, workers=args.workers, app=create_floor_app,
+               factory="floor_app:create_floor_app_from_environment")
 
 if __name__ == "__main__":
     main()

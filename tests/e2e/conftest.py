@@ -41,11 +41,12 @@ class BerthServer:
     """One `berth serve` subprocess; its stdout and stderr go to files beside the database."""
 
     def __init__(self, database: Path | str, logs: Path, name: str, *, env: dict[str, str] | None = None,
-                 host: str = "127.0.0.1", preexec: Callable[[], None] | None = None) -> None:
+                 host: str = "127.0.0.1", preexec: Callable[[], None] | None = None, workers: int = 1) -> None:
         self.database = database  # a SQLite file, or a database URL
         self.env = env or {}  # BERTH_* settings of this server
         self.host = host  # the address it listens on; it is reached on loopback
         self.preexec = preexec  # run in the child before exec (resource limits)
+        self.workers = workers
         self.stdout_path = logs / f"{name}.out"
         self.stderr_path = logs / f"{name}.err"
         self.port = 0
@@ -79,7 +80,7 @@ class BerthServer:
     def _spawn(self) -> None:
         env = {k: v for k, v in os.environ.items() if not k.startswith("BERTH_")} | self.env
         command = [sys.executable, "-m", "service.cli", "serve", "--host", self.host, "--port", str(self.port),
-                   "--database", self.database_url]
+                   "--database", self.database_url, "--workers", str(self.workers)]
         with open(self.stdout_path, "ab") as out, open(self.stderr_path, "ab") as err:
             self.process = subprocess.Popen(command, cwd=REPO_ROOT, env=env, stdout=out, stderr=err,
                                             stdin=subprocess.DEVNULL, preexec_fn=self.preexec)

@@ -309,3 +309,19 @@ def test_the_finance_script_says_when_nothing_is_feasible_and_when_refused(berth
     assert refused.returncode == 1
     assert "berth refused the request (422" in refused.stderr
     assert "campaign.work" in refused.stderr
+
+
+def test_a_server_of_two_workers_removes_its_metrics_directory_when_it_stops(tmp_path: Path, database: Path) -> None:
+    """The workers share a metrics directory, made in the temporary directory when none is named:
+    it lives as long as the server and goes with it."""
+    scratch = tmp_path / "scratch"
+    scratch.mkdir()
+    server = BerthServer(database, tmp_path, "two-workers", env={"TMPDIR": str(scratch)}, workers=2)
+    server.start()
+    try:
+        assert [path.name.startswith("berth-metrics-") for path in scratch.iterdir()] == [True]
+        assert httpx.get(f"{server.url}/healthz", timeout=5.0).status_code == 200
+    finally:
+        server.stop()
+    assert server.process is not None and server.process.returncode == 0
+    assert list(scratch.iterdir()) == []
