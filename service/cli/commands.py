@@ -90,11 +90,11 @@ def quote_command(
     if output is QuoteFormat.json:
         sys.stdout.write(json.dumps(document, indent=2, ensure_ascii=False) + "\n")
     elif output is QuoteFormat.html:
-        from service.reports import render_report
+        from service.reports.html import render_report
 
         sys.stdout.write(render_report(document))
     elif output is QuoteFormat.csv:
-        from service.reports import options_csv
+        from service.reports.csv_export import options_csv
 
         sys.stdout.writelines(options_csv(document))
     else:
@@ -287,7 +287,7 @@ def plan_command(
     if output is PlanFormat.json:
         sys.stdout.write(json.dumps(body, indent=2, ensure_ascii=False) + "\n")
     elif output is PlanFormat.html:
-        from service.reports import render_plan
+        from service.reports.html import render_plan
 
         sys.stdout.write(render_plan({"id": None, "created_at": None, **body}))
     else:

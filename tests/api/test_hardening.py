@@ -19,7 +19,8 @@ from sqlalchemy import event, text
 import service.api.routers.quotes
 from service.api.app import create_app, prepare
 from service.config import Settings
-from service.reports import breakeven_svg, render_report
+from service.reports.breakeven_chart import breakeven_svg
+from service.reports.html import render_report
 from service.storage.repository import Storage
 from service.usecases.access import issue_key
 from tests.api.conftest import FakeClock

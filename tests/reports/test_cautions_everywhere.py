@@ -9,7 +9,7 @@ from typing import Any
 
 import pytest
 
-from service.reports import breakeven_svg
+from service.reports.breakeven_chart import breakeven_svg
 from service.reports.cost_chart import cost_figure_svg
 from service.reports.fleet_chart import fleet_figure_svg
 from tests.reports.conftest import Json, offline_document

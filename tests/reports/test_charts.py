@@ -11,7 +11,7 @@ from pathlib import Path
 
 import pytest
 
-from service.reports import breakeven_svg
+from service.reports.breakeven_chart import breakeven_svg
 from service.reports.cost_chart import cost_figure_svg
 from service.reports.figures import charted_options
 from tests.reports.conftest import Json, offline_document
@@ -105,7 +105,7 @@ def test_a_render_in_another_process_is_byte_identical(tmp_path: Path) -> None:
     document = offline_document("split")
     source = tmp_path / "quote.json"
     source.write_text(json.dumps(document), encoding="utf-8")
-    script = ("import json, sys; from service.reports import breakeven_svg; "
+    script = ("import json, sys; from service.reports.breakeven_chart import breakeven_svg; "
               "sys.stdout.buffer.write(breakeven_svg(json.load(open(sys.argv[1], encoding='utf-8'))).encode())")
     result = subprocess.run([sys.executable, "-c", script, str(source)], capture_output=True, timeout=120,
                             check=False)

@@ -6,7 +6,7 @@ import csv
 import io
 import re
 
-from service.reports import OPTIONS_CSV_HEADER, options_csv
+from service.reports.csv_export import OPTIONS_CSV_HEADER, options_csv
 from tests.reports.conftest import Json, offline_document
 
 HEADER = ["rank", "venue_kind", "venue_id", "jurisdiction", "term", "feasible", "reasons", "nodes", "accelerators",

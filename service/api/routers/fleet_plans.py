@@ -23,8 +23,8 @@ from service.api.problems import CONFLICT, MEDIA_TYPE_RESPONSES, PROBLEM_RESPONS
 from service.api.responses import created_response
 from service.contract.answers import FleetPlanOut, FleetPlanPage
 from service.contract.fleet import FleetPlanIn
-from service.reports import render_plan
 from service.reports.fleet_chart import fleet_figure_svg
+from service.reports.html import render_plan
 from service.reports.svg import standalone
 from service.usecases.fleet_plans import FleetLimits, create_fleet_plan, find_fleet_plans, get_fleet_plan
 from service.usecases.idempotency import Created, KeepAnswer, once_per_key

@@ -30,7 +30,9 @@ from service.api.responses import FastJSONResponse, created_response
 from service.contract.answers import Comparison, QuoteOut, QuotePage, QuoteSummaryView, Recomputation, Requoted
 from service.contract.request import QuoteRequestIn, RequoteIn
 from service.contract.views import View, recommended, shaped
-from service.reports import breakeven_svg, options_csv, render_report
+from service.reports.breakeven_chart import breakeven_svg
+from service.reports.csv_export import options_csv
+from service.reports.html import render_report
 from service.storage.repository import StoredQuote
 from service.usecases.comparing import compare_quotes, requote
 from service.usecases.idempotency import Created, KeepAnswer, once_per_key
