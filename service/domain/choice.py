@@ -2,6 +2,7 @@
 deadline, the cheapest of those per scenario, and the chosen column of every figure.
 """
 
+from collections.abc import Sequence
 from dataclasses import dataclass, fields
 
 import numpy as np
@@ -13,10 +14,11 @@ from service.domain.layout import DEADLINE, MEMORY, PINNED, Candidates, LayoutGr
 @dataclass(frozen=True)
 class Eligible:
     """Which candidate layouts a term may take: those that hold the model within its node limit,
-    and of them those that meet the deadline. Terms of a venue with one limit share it."""
+    and of them those that meet the deadline, block by block of the candidates (never copied into
+    one grid). Terms of a venue with one limit share it."""
 
-    allowed: Bools  # (R, K), R = 1 or S
-    meets: Bools  # (R, K)
+    meets: tuple[Bools, ...]  # per block, (R_b, K_b), R_b = 1 or S
+    widths: tuple[int, ...]
     any_fits: Bools  # (R,): some layout within the limit holds the model
     meets_deadline: Bools  # (R,)
     fastest: Ints | None  # (R,): the fastest allowed layout; None when every row meets the deadline
@@ -25,16 +27,15 @@ class Eligible:
 def eligible(candidates: Candidates, *, node_limit: ArrayLike, deadline_seconds: ArrayLike) -> Eligible:
     limit = as_floats(node_limit).reshape(-1, 1)
     deadline = as_floats(deadline_seconds).reshape(-1, 1)
-    allowed = candidates.each(lambda block: block.fits & (block.nodes <= limit))
-    wall = candidates.each(lambda block: block.wall_seconds)
-    # Every input may vary by scenario or not: settle on one shape for all of them.
-    shape = np.broadcast_shapes(allowed.shape, wall.shape, deadline.shape)
-    allowed = np.broadcast_to(allowed, shape)
-    meets = allowed & (wall <= deadline)
-    meets_deadline = np.asarray(meets.any(axis=1))
+    allowed = [block.fits & (block.nodes <= limit) for block in candidates.blocks]
+    walls = [np.asarray(block.wall_seconds) for block in candidates.blocks]
+    meets = tuple(np.asarray(a & (w <= deadline)) for a, w in zip(allowed, walls, strict=True))
+    any_fits = _any(allowed)
+    meets_deadline = _any(meets)
     # The fallback layout is needed only where nothing meets the deadline, which is rare.
-    fastest = None if meets_deadline.all() else np.argmin(np.where(allowed, wall, np.inf), axis=1)
-    return Eligible(allowed, meets, np.asarray(allowed.any(axis=1)), meets_deadline, fastest)
+    fastest = None if meets_deadline.all() else _first_least(
+        [np.where(a, w, np.inf) for a, w in zip(allowed, walls, strict=True)], candidates.widths)
+    return Eligible(meets, tuple(candidates.widths), any_fits, meets_deadline, fastest)
 
 
 @dataclass(frozen=True)
@@ -46,17 +47,47 @@ class Choice:
     meets_deadline: Bools
 
 
-def choose(layouts: Eligible, cost: Floats) -> Choice:
+def choose(layouts: Eligible, costs: Sequence[ArrayLike]) -> Choice:
     """Per scenario, the cheapest layout that meets the deadline (the faster of equal costs); when
-    none meets it, the fastest layout that fits (reported as missing the deadline)."""
-    cheapest = np.argmin(np.where(layouts.meets, cost, np.inf), axis=1)
+    none meets it, the fastest layout that fits (reported as missing the deadline). `costs` holds
+    each block's cost of its candidates."""
+    cheapest = _first_least([np.where(meets, cost, np.inf) for meets, cost in zip(layouts.meets, costs, strict=True)],
+                            layouts.widths)
     index = cheapest if layouts.fastest is None else np.where(layouts.meets_deadline, cheapest, layouts.fastest)
-    scenarios = (max(index.shape[0], np.shape(cost)[0]),)
+    scenarios = (max(index.shape[0], *(np.shape(cost)[0] if np.ndim(cost) else 1 for cost in costs)),)
     return Choice(
         index=broadcast(index, scenarios).astype(np.int64, copy=False),
         any_fits=broadcast(layouts.any_fits, scenarios),
         meets_deadline=broadcast(layouts.meets_deadline, scenarios),
     )
+
+
+def _any(blocks: Sequence[Bools]) -> Bools:
+    """Per row, whether any column of any block is set (rows broadcast)."""
+    return np.asarray(np.logical_or.reduce(np.broadcast_arrays(*(np.asarray(b).any(axis=1) for b in blocks))))
+
+
+def _first_least(blocks: Sequence[Floats], widths: Sequence[int]) -> Ints:
+    """Per row, the column of the least value of the blocks side by side, the first of equals, as
+    np.argmin of their concatenation gives it (a NaN counts as the least)."""
+    best_index: Ints | None = None
+    best_value: Floats | None = None
+    offset = 0
+    for block, width in zip(blocks, widths, strict=True):
+        values = np.asarray(block)
+        values = values.reshape(-1, 1) if values.ndim < 2 else values
+        values = np.broadcast_to(values, (values.shape[0], width))
+        index = np.argmin(values, axis=1)
+        value = values[np.arange(values.shape[0]), index]
+        value = np.where(np.isnan(value), -np.inf, value)
+        if best_index is None or best_value is None:
+            best_index, best_value = index + offset, value
+        else:
+            better = value < best_value
+            best_index, best_value = np.where(better, index + offset, best_index), np.where(better, value, best_value)
+        offset += width
+    assert best_index is not None
+    return np.asarray(best_index)
 
 
 def as_column(grid: LayoutGrid) -> LayoutGrid:

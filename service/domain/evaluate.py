@@ -284,7 +284,7 @@ def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, phys
     node = venue.node_type
     grid = physics.grid
     layouts = physics.candidates(limit)
-    choice = choose(layouts, grid.each(charges.cost))
+    choice = choose(layouts, [charges.cost(block) for block in grid.blocks])
     chosen = grid.pick(choice.index)
     lines_at, details_at = charges.itemise(as_column(chosen))
     # A line that does not depend on the layout may vary by scenario when nothing else does.
