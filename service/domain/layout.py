@@ -218,7 +218,8 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     vary by scenario: the effective step g(k) on TABLE_RUNGS geometric counts from the memory
     minimum to the node limit (one row for all scenarios); each scenario's allowance
     (deadline − staging) / steps located in it and interpolated as α/k + β; then the counts just
-    below, at and above that evaluated exactly, each distinct (shape, count) once.
+    below, at and above that evaluated exactly, each distinct (shape, count) once; where they do not
+    settle it, the bracket left is closed by `_closed`.
 
     The answer depends on a scenario only through its allowance, so each distinct allowance is
     solved once, in ascending order: a shape's guess then falls or stays from one allowance to
@@ -269,18 +270,19 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     # does), the bracket between a rung and the nearest exact count is closed as `_fewest_meeting`
     # closes its own, so that a scenario gets the same count alone as in a sweep.
     interior = (state > 0) & (state < TABLE_RUNGS)
-    below, above = interior & meets[0], interior & ~meets[0] & ~meets[1] & ~meets[2]
-    searched = np.flatnonzero(below | above)
+    lower = interior & meets[0]  # the fewest lies between the rung below and the count below the guess
+    higher = interior & ~meets[0] & ~meets[1] & ~meets[2]  # between the count above and the rung that meets
+    searched = np.flatnonzero(lower | higher)
     if searched.size:
         known = _ExactCounts(load, hardware, found, around, exact)
         shape_of, scenario = np.divmod(searched, afforded.size)
         rung = shape_of * TABLE_RUNGS + state.reshape(-1)[searched]
         n0, n2 = near[0][run_of].reshape(-1)[searched], near[2][run_of].reshape(-1)[searched]
-        inside = below.reshape(-1)[searched]
-        bracket = (np.where(inside, rungs.reshape(-1)[rung - 1], n2),
-                   np.where(inside, g.reshape(-1)[rung - 1], g_near[2].reshape(-1)[searched]),
-                   np.where(inside, n0, rungs.reshape(-1)[rung]),
-                   np.where(inside, g_near[0].reshape(-1)[searched], g.reshape(-1)[rung]))
+        from_rung = lower.reshape(-1)[searched]
+        bracket = (np.where(from_rung, rungs.reshape(-1)[rung - 1], n2),
+                   np.where(from_rung, g.reshape(-1)[rung - 1], g_near[2].reshape(-1)[searched]),
+                   np.where(from_rung, n0, rungs.reshape(-1)[rung]),
+                   np.where(from_rung, g_near[0].reshape(-1)[searched], g.reshape(-1)[rung]))
         fewest = _closed(lambda k: known.steps(np.asarray(shape_of * TABLE_KEY + k, dtype=np.float64)),
                          afforded[scenario], *bracket)
         column.reshape(-1)[searched] = known.columns(shape_of * TABLE_KEY + fewest)
@@ -295,7 +297,8 @@ class _ExactCounts:
     """The exact figures of (shape, count) keys evaluated so far, one row of columns, added to as
     the search asks for counts not yet evaluated."""
 
-    def __init__(self, load: Load, hardware: Hardware, found: Shapes, keys: Floats, figures: dict[str, Any]):
+    def __init__(self, load: Load, hardware: Hardware, found: Shapes, keys: Floats,
+                 figures: dict[str, Any]) -> None:
         self.load, self.hardware, self.found = load, hardware, found
         self.keys, self.figures = keys, figures
 
