@@ -18,6 +18,7 @@ import pytest
 
 from service.contract.catalog import CatalogIn
 from service.domain.campaign import Campaign, DataPlan, Overrides, QuoteOptions, Training, TransformerWork
+from service.domain.choice import _first_least
 from service.domain.evaluate import CampaignEvaluation, evaluate_campaign
 
 DEMO = json.loads((Path(__file__).resolve().parents[2] / "pricing_examples" / "catalog.json").read_text("utf-8"))
@@ -135,3 +136,21 @@ def test_where_the_step_varies_by_scenario_many_in_one_call_equal_each_alone(see
     is not monotone in the node count (seed 3: failures grow with it, and the top count misses a
     deadline that a middle one meets)."""
     assert evaluate_both(seed, vary_step=True) > 0
+
+
+@pytest.mark.parametrize("seed", range(20))
+def test_the_least_across_blocks_is_numpys_argmin_of_the_blocks_side_by_side(seed: int) -> None:
+    """Choosing block by block (choice._first_least) against np.argmin of the concatenated grid, with
+    ties, infinities, NaN and blocks of one row beside blocks of many."""
+    rng = np.random.default_rng(seed)
+    rows = 7
+    widths = [int(w) for w in rng.integers(1, 5, rng.integers(1, 4))]
+    blocks = []
+    for width in widths:
+        block = rng.choice([1.0, 2.0, 3.0, np.inf, np.nan], size=(rows if rng.random() < 0.6 else 1, width),
+                           p=[0.3, 0.3, 0.2, 0.15, 0.05])
+        blocks.append(block)
+    side_by_side = np.concatenate([np.broadcast_to(b, (rows, w)) for b, w in zip(blocks, widths, strict=True)],
+                                  axis=1)
+    picked = _first_least(blocks, widths)
+    np.testing.assert_array_equal(np.broadcast_to(picked, (rows,)), np.argmin(side_by_side, axis=1))
