@@ -11,8 +11,8 @@ import pytest
 
 from service.contract.catalog import CatalogIn
 from service.contract.fleet import FleetPlanIn
-from service.reports import render_plan
 from service.reports.fleet_chart import fleet_figure_svg
+from service.reports.html import render_plan
 from service.usecases.fleet_plans import FleetLimits, fleet_plan
 from tests.conftest import EXAMPLES, load_example
 from tests.reports.page import parse

@@ -11,7 +11,7 @@ from collections import Counter
 import pytest
 from babel.numbers import format_currency
 
-from service.reports import render_report
+from service.reports.html import render_report
 from tests.conftest import load_example
 from tests.reports.conftest import Json, document_for, offline_document
 from tests.reports.page import Element, parse, value_of

@@ -9,7 +9,8 @@ import xml.etree.ElementTree as ET
 import httpx
 import pytest
 
-from service.reports import breakeven_svg, render_report
+from service.reports.breakeven_chart import breakeven_svg
+from service.reports.html import render_report
 from tests.conftest import load_example
 
 PROBLEM = "application/problem+json"
