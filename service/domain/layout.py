@@ -8,12 +8,12 @@ venue's size. `step.py` evaluates each candidate; `choice.py` picks among them.
 """
 
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, fields, replace
 from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Floats, Ints, as_floats
+from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats
 from service.domain.memory import minimum_data_parallel
 from service.domain.parallelism import Shapes, shapes
 from service.domain.step import (
@@ -283,7 +283,7 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
                    np.where(from_rung, g.reshape(-1)[rung - 1], g_near[2].reshape(-1)[searched]),
                    np.where(from_rung, n0, rungs.reshape(-1)[rung]),
                    np.where(from_rung, g_near[0].reshape(-1)[searched], g.reshape(-1)[rung]))
-        fewest = _closed(lambda k: known.steps(np.asarray(shape_of * TABLE_KEY + k, dtype=np.float64)),
+        fewest = _closed(lambda k, _: known.steps(np.asarray(shape_of * TABLE_KEY + k, dtype=np.float64)),
                          afforded[scenario], *bracket)
         column.reshape(-1)[searched] = known.columns(shape_of * TABLE_KEY + fewest)
         exact = known.figures
@@ -322,11 +322,12 @@ class _ExactCounts:
                                    np.inf))
 
 
-def _closed(measure: Callable[[Floats], Floats], target: Floats, k_lo: Floats, g_lo: Floats, k_hi: Floats,
+def _closed(measure: Callable[[Floats, Bools], Floats], target: Floats, k_lo: Floats, g_lo: Floats, k_hi: Floats,
             g_hi: Floats) -> Floats:
     """The fewest count whose measure (effective step or wall clock) meets the target, between k_lo,
     whose g_lo misses it, and k_hi, whose g_hi meets it: false position on g(k) = α/k + β alternating
-    with halving until the two are neighbours (halving alone closes any bracket within SEARCH_STEPS)."""
+    with halving until the two are neighbours (halving alone closes any bracket within SEARCH_STEPS).
+    `measure(k, open)` need only measure the entries still open."""
     for step in range(SEARCH_STEPS):
         open_bracket = (k_hi - k_lo > 1.0) & (g_lo > target) & (g_hi <= target)
         if not open_bracket.any():
@@ -334,7 +335,7 @@ def _closed(measure: Callable[[Floats], Floats], target: Floats, k_lo: Floats, g
         inside = (np.minimum(_interpolated(k_lo, g_lo, k_hi, g_hi, target), k_hi - 1.0) if step % 2 == 0
                   else np.floor((k_lo + k_hi) / 2.0))
         guess = np.where(open_bracket, inside, k_hi)
-        g = measure(guess)
+        g = measure(guess, open_bracket)
         meets, misses = open_bracket & (g <= target), open_bracket & ~(g <= target)
         k_hi, g_hi = np.where(meets, guess, k_hi), np.where(meets, g, g_hi)
         k_lo, g_lo = np.where(misses, guess, k_lo), np.where(misses, g, g_lo)
@@ -347,24 +348,60 @@ def _fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Call
     scenario, found as the table path finds it: the first of the rungs (R, H, G) that meets it, then
     between it and the rung below, false position on wall(k) = α/k + β alternating with halving
     until the two counts are neighbours; the memory minimum where it already meets it, the top where
-    no rung does. A count whose layout does not fit misses."""
-    wall = np.stack([_fitting_wall(evaluate_columns(load, hardware, columns(rungs[..., j], DEADLINE), found))
-                     for j in range(TABLE_RUNGS)], axis=-1)
-    shape = np.broadcast_shapes(wall.shape, rungs.shape)
-    wall, counts = np.broadcast_to(wall, shape), np.broadcast_to(rungs, shape)
-    meets = wall <= deadline[..., np.newaxis]
-    first = np.argmax(meets, axis=-1)[..., np.newaxis]
-    below = np.maximum(first - 1, 0)
-    k_lo, w_lo = (np.take_along_axis(v, below, axis=-1)[..., 0] for v in (counts, wall))
-    k_hi, w_hi = (np.take_along_axis(v, first, axis=-1)[..., 0] for v in (counts, wall))
-    target = np.broadcast_to(deadline, k_lo.shape)
+    no rung does. A count whose layout does not fit misses. A scenario's rungs are evaluated only
+    until each of its shapes has met the deadline, and its brackets only while one is open."""
+    h = found.count
+    rows = _scenario_rows(load, hardware, deadline, rungs)
+    counts = np.broadcast_to(rungs, (rows, h, TABLE_RUNGS))
+    target = np.broadcast_to(deadline.reshape(-1, 1), (rows, h))
 
-    def wall_at(k: Floats) -> Floats:
-        grid = evaluate_columns(load, hardware, columns(k, DEADLINE), found)
-        return np.asarray(np.broadcast_to(_fitting_wall(grid), k_lo.shape))
+    def wall_at(at: Ints, k: Floats) -> Floats:
+        """The wall clock of scenarios `at` at node units k ((len(at) or 1, H)); inf where it does not fit."""
+        grid = evaluate_columns(_at_rows(load, at, rows), _at_rows(hardware, at, rows), columns(k, DEADLINE), found)
+        return np.asarray(np.broadcast_to(_fitting_wall(grid), (at.size, h)))
 
-    fewest = _closed(wall_at, target, k_lo, w_lo, k_hi, w_hi)
-    return np.asarray(np.where(meets.any(axis=-1), fewest, counts[..., -1]))
+    first = np.full((rows, h), TABLE_RUNGS)
+    before, w_lo, w_hi = (np.full((rows, h), np.inf) for _ in range(3))
+    scanning = np.arange(rows)
+    for j in range(TABLE_RUNGS):
+        if not scanning.size:
+            break
+        # A rung that is the same for every scenario stays one row: the figures that do not
+        # depend on the scenario are then computed once.
+        wall = wall_at(scanning, rungs[:, :, j] if rungs.shape[0] == 1 else rungs[scanning, :, j])
+        fresh = (first[scanning] == TABLE_RUNGS) & (wall <= target[scanning])
+        r, s = scanning[np.nonzero(fresh)[0]], np.nonzero(fresh)[1]
+        first[r, s], w_hi[r, s], w_lo[r, s] = j, wall[fresh], before[r, s]
+        before[scanning] = wall
+        scanning = scanning[(first[scanning] == TABLE_RUNGS).any(axis=1)]
+    reached = first < TABLE_RUNGS
+    at = np.minimum(first, TABLE_RUNGS - 1)[..., np.newaxis]
+    k_lo = np.take_along_axis(counts, np.maximum(at - 1, 0), axis=-1)[..., 0]
+    k_hi = np.take_along_axis(counts, at, axis=-1)[..., 0]
+
+    def measure(k: Floats, open_bracket: Bools) -> Floats:
+        g = np.full(k.shape, np.inf)
+        open_rows = np.flatnonzero(open_bracket.any(axis=1))
+        g[open_rows] = wall_at(open_rows, k[open_rows])
+        return g
+
+    fewest = _closed(measure, target, k_lo, np.where(reached, w_lo, np.inf), k_hi, w_hi)
+    return np.asarray(np.where(reached, fewest, counts[..., -1]))
+
+
+def _scenario_rows(load: Load, hardware: Hardware, *arrays: Floats) -> int:
+    """How many scenarios the step's inputs and `arrays` run over: their longest leading axis."""
+    values = [getattr(source, f.name) for source in (load, hardware) for f in fields(source)]
+    return max([1, *(int(v.shape[0]) for v in (*values, *arrays) if isinstance(v, np.ndarray) and v.ndim >= 1)])
+
+
+def _at_rows(source: Any, row: Ints, rows: int) -> Any:
+    """A Load or Hardware with each per-scenario array (leading axis `rows`) taken at `row`."""
+    if rows == 1:
+        return source
+    arrays = {f.name: getattr(source, f.name) for f in fields(source)}
+    return replace(source, **{name: value[row] for name, value in arrays.items()
+                              if isinstance(value, np.ndarray) and value.ndim >= 1 and value.shape[0] == rows})
 
 
 def _fitting_wall(grid: LayoutGrid) -> Floats:
