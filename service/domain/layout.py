@@ -385,7 +385,7 @@ def _fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Call
         g[open_rows] = wall_at(open_rows, k[open_rows])
         return g
 
-    fewest = _closed(measure, target, k_lo, np.where(reached, w_lo, np.inf), k_hi, w_hi)
+    fewest = _closed(measure, target, k_lo, w_lo, k_hi, w_hi)
     return np.asarray(np.where(reached, fewest, counts[..., -1]))
 
 
