@@ -1,5 +1,6 @@
-"""Array type aliases shared by the core."""
+"""Array type aliases shared by the core, and the helpers every part of it uses on arrays."""
 
+from dataclasses import fields, is_dataclass, replace
 from typing import Any, TypeAlias
 
 import numpy as np
@@ -26,3 +27,21 @@ def broadcast(value: ArrayLike, shape: tuple[int, ...]) -> Any:
 def largest_count(limit: ArrayLike) -> float:
     """The largest node count a limit allows in any scenario, at least 1; NaN entries are ignored."""
     return float(np.fmax.reduce(np.ravel(as_floats(limit)), initial=1.0))
+
+
+def take_rows(value: Any, index: Any, scenarios: int) -> Any:
+    """`value` at some of its scenarios: every array whose leading axis runs over the `scenarios`
+    (when there is more than one) taken at `index`, a slice or an index array, through dataclasses,
+    dicts and tuples; everything else as it is."""
+    if scenarios <= 1:
+        return value
+    if isinstance(value, np.ndarray):
+        return value[index] if value.ndim >= 1 and value.shape[0] == scenarios else value
+    if isinstance(value, dict):
+        return {name: take_rows(item, index, scenarios) for name, item in value.items()}
+    if isinstance(value, tuple):
+        return tuple(take_rows(item, index, scenarios) for item in value)
+    if is_dataclass(value) and not isinstance(value, type):
+        return replace(value, **{f.name: take_rows(getattr(value, f.name), index, scenarios) for f in fields(value)
+                                 if f.init})
+    return value

@@ -8,12 +8,12 @@ venue's size. `step.py` evaluates each candidate; `choice.py` picks among them.
 """
 
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, fields, replace
+from dataclasses import dataclass, fields
 from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats
+from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats, take_rows
 from service.domain.memory import minimum_data_parallel
 from service.domain.parallelism import Shapes, shapes
 from service.domain.step import (
@@ -357,7 +357,7 @@ def _fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Call
 
     def wall_at(at: Ints, k: Floats) -> Floats:
         """The wall clock of scenarios `at` at node units k ((len(at) or 1, H)); inf where it does not fit."""
-        grid = evaluate_columns(_at_rows(load, at, rows), _at_rows(hardware, at, rows), columns(k, DEADLINE), found)
+        grid = evaluate_columns(take_rows(load, at, rows), take_rows(hardware, at, rows), columns(k, DEADLINE), found)
         return np.asarray(np.broadcast_to(_fitting_wall(grid), (at.size, h)))
 
     first = np.full((rows, h), TABLE_RUNGS)
@@ -393,15 +393,6 @@ def _scenario_rows(load: Load, hardware: Hardware, *arrays: Floats) -> int:
     """How many scenarios the step's inputs and `arrays` run over: their longest leading axis."""
     values = [getattr(source, f.name) for source in (load, hardware) for f in fields(source)]
     return max([1, *(int(v.shape[0]) for v in (*values, *arrays) if isinstance(v, np.ndarray) and v.ndim >= 1)])
-
-
-def _at_rows(source: Any, row: Ints, rows: int) -> Any:
-    """A Load or Hardware with each per-scenario array (leading axis `rows`) taken at `row`."""
-    if rows == 1:
-        return source
-    arrays = {f.name: getattr(source, f.name) for f in fields(source)}
-    return replace(source, **{name: value[row] for name, value in arrays.items()
-                              if isinstance(value, np.ndarray) and value.ndim >= 1 and value.shape[0] == rows})
 
 
 def _fitting_wall(grid: LayoutGrid) -> Floats:

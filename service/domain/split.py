@@ -8,11 +8,11 @@ pair, or when neither pure option is feasible.
 """
 
 from collections.abc import Callable
-from dataclasses import fields, is_dataclass, replace
-from typing import Any
+from dataclasses import fields, replace
 
 import numpy as np
 
+from service.domain.arrays import take_rows
 from service.domain.campaign import Campaign, Overrides, QuoteOptions, Runs
 from service.domain.catalog import Catalog
 from service.domain.evaluate import CampaignEvaluation, OptionResult, evaluate_campaign
@@ -69,11 +69,11 @@ def split_options(catalog: Catalog, campaign: Campaign, options: QuoteOptions, o
         feasible_rented = [o for o in rented_eval.options if bool(o.feasible[k])]
         if not feasible_rented:
             continue
-        rented = at_scenario(min(feasible_rented, key=lambda o: float(o.total[k])), k, len(points))
+        rented = take_rows(min(feasible_rented, key=lambda o: float(o.total[k])), slice(k, k + 1), len(points))
         for owned in owned_eval.options:
             if not bool(owned.feasible[k]):
                 continue
-            candidate = combine(at_scenario(owned, k, len(points)), rented, owned_runs=owned_count,
+            candidate = combine(take_rows(owned, slice(k, k + 1), len(points)), rented, owned_runs=owned_count,
                                 rented_runs=total - owned_count)
             key = owned.venue_id
             if key not in best or float(candidate.total[0]) < float(best[key].total[0]):
@@ -84,21 +84,6 @@ def split_options(catalog: Catalog, campaign: Campaign, options: QuoteOptions, o
 def _could_take_a_part(options: list[OptionResult]) -> bool:
     """Whether some option is free of the screens a smaller share of the runs cannot lift."""
     return any(not int(np.asarray(o.screens).reshape(-1)[0]) & STANDING for o in options)
-
-
-def at_scenario(value: Any, k: int, scenarios: int) -> Any:
-    """Scenario k of an evaluation's result, as a result of one scenario: every array with one
-    element per scenario sliced to [k:k+1], dataclasses and dicts throughout."""
-    if isinstance(value, np.ndarray):
-        return value[k:k + 1] if value.ndim >= 1 and value.shape[0] == scenarios > 1 else value
-    if isinstance(value, dict):
-        return {name: at_scenario(item, k, scenarios) for name, item in value.items()}
-    if isinstance(value, tuple):
-        return tuple(at_scenario(item, k, scenarios) for item in value)
-    if is_dataclass(value) and not isinstance(value, type):
-        return replace(value, **{f.name: at_scenario(getattr(value, f.name), k, scenarios) for f in fields(value)
-                                 if f.init})
-    return value
 
 
 def _worth_showing(split: OptionResult, pure: dict[str, OptionResult]) -> bool:
