@@ -24,11 +24,6 @@ def broadcast(value: ArrayLike, shape: tuple[int, ...]) -> Any:
     return array if array.shape == shape else np.broadcast_to(array, shape)
 
 
-def largest_count(limit: ArrayLike) -> float:
-    """The largest node count a limit allows in any scenario, at least 1; NaN entries are ignored."""
-    return float(np.fmax.reduce(np.ravel(as_floats(limit)), initial=1.0))
-
-
 def take_rows(value: Any, index: Any, scenarios: int) -> Any:
     """`value` at some of its scenarios: every array whose leading axis runs over the `scenarios`
     (when there is more than one) taken at `index`, a slice or an index array, through dataclasses,
