@@ -61,18 +61,18 @@ def expected_wall_fraction(
     T_w / T_s = M·e^{R/M}·(e^{(τ+δ)/M} − 1) / τ: the expected time for exponentially distributed
     interruptions when a restart can itself be interrupted (the model of Daly 2006, FGCS 22(3);
     derived, and checked by simulation in the tests). With M = inf there are no interruptions and
-    no checkpoints are needed: 1.
+    no checkpoints are needed: 1. A checkpoint that costs nothing (δ = 0, so Daly's τ = 0: nothing to
+    save, as for work given without a parameter count or a checkpoint size) takes the formula's limit
+    as τ → 0, e^{R/M}: only the restarts cost time.
     """
     mtbi = as_floats(mtbi_seconds)
     finite = np.isfinite(mtbi)
     safe_mtbi = np.where(finite, mtbi, 1.0)
-    tau = np.where(finite, as_floats(interval_seconds), 1.0)
+    interval = as_floats(interval_seconds)
     delta = as_floats(checkpoint_seconds)
+    free = finite & (interval == 0.0) & (delta == 0.0)
+    tau = np.where(finite & ~free, interval, 1.0)
     with np.errstate(over="ignore"):
-        fraction = (
-            safe_mtbi
-            * np.exp(as_floats(restart_seconds) / safe_mtbi)
-            * np.expm1((tau + delta) / safe_mtbi)
-            / tau
-        )
-    return np.where(finite, fraction, 1.0)
+        restarts = np.exp(as_floats(restart_seconds) / safe_mtbi)
+        fraction = safe_mtbi * restarts * np.expm1((tau + delta) / safe_mtbi) / tau
+    return np.where(finite, np.where(free, restarts, fraction), 1.0)

@@ -98,6 +98,20 @@ def test_expected_wall_fraction_matches_the_formula_evaluated_directly(
     assert_allclose(fraction, reference_wall_fraction(tau, delta, restart, mtbi), rtol=1e-12)
 
 
+def test_a_checkpoint_that_costs_nothing_takes_the_formulas_limit_only_restarts_cost_time() -> None:
+    # δ = 0 gives Daly's τ = 0, where M·e^{R/M}·(e^{(τ+δ)/M} − 1)/τ is 0/0; its limit as τ → 0 is
+    # e^{R/M} (Daly 2006, FGCS 22(3), the expected-time model above), and the formula at a tiny τ
+    # comes to it. Before, the wall clock was NaN and every option missed any deadline.
+    restart, mtbi = np.array([0.0, 600.0, 600.0]), np.array([1e6, 86_400.0, 3_600.0])
+    tau = daly_interval(checkpoint_seconds=0.0, mtbi_seconds=mtbi)
+    assert_allclose(tau, 0.0)
+    fraction = expected_wall_fraction(interval_seconds=tau, checkpoint_seconds=0.0, restart_seconds=restart,
+                                      mtbi_seconds=mtbi)
+    assert_allclose(fraction, np.exp(restart / mtbi), rtol=1e-15)
+    near = [reference_wall_fraction(1e-7, 0.0, r, m) for r, m in zip(restart, mtbi, strict=True)]
+    assert_allclose(fraction, near, rtol=1e-9)
+
+
 def test_expected_wall_fraction_grows_as_the_mtbi_shrinks() -> None:
     mtbi = np.array([1e7, 1e6, 86_400.0, 14_400.0, 3_600.0, 900.0, 300.0])
     tau = daly_interval(checkpoint_seconds=120.0, mtbi_seconds=mtbi)
