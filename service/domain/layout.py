@@ -3,12 +3,12 @@
 The candidates are, for each shape (t, p) of `parallelism.shapes`, the fewest nodes that hold the
 model, the most each node limit allows, and the fewest that meet the deadline (the bracket around the
 first count of a table of node counts that meets it, closed by false position and halving; one table
-row for all scenarios, or one per scenario where the step varies): a handful per shape whatever the
-venue's size. `step.py` evaluates each candidate; `choice.py` picks among them.
+row for all scenarios, one per distinct step where the step varies over few values, else one per
+scenario): a handful per shape whatever the venue's size. `step.py` evaluates each candidate; `choice.py` picks among them.
 """
 
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, fields, replace
 from typing import Any
 
 import numpy as np
@@ -41,6 +41,9 @@ MEMORY, NODE_LIMIT, DEADLINE, PINNED = 0, 1, 2, 3
 SEARCH_STEPS = 100  # bracket steps towards the fewest nodes that meet the deadline: halving every other
 # step closes any bracket of counts below MAX_UNITS well within it
 TABLE_RUNGS = 16  # node counts per shape in the table the deadline is solved on
+SCENARIOS_PER_STEP = 64  # where the step varies, scenarios per distinct step from which solving a table per
+# step beats solving each scenario on its own rungs (measured on a 10-venue catalog: even at 64 when the
+# network varies, at about 24 when the model size does)
 TABLE_KEY = 2.0**40  # (shape, count) keys: shape × TABLE_KEY + count, counts below it
 MAX_UNITS = TABLE_KEY - 2.0  # node units a candidate may have: beyond any venue (limits.MAX_NODES)
 
@@ -140,20 +143,19 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
     origins = np.repeat(np.array([MEMORY] + [NODE_LIMIT] * len(tops)), found.count)[np.newaxis, :]
     base = Columns(np.tile(tensor, copies), np.tile(pipeline, copies), nodes, nodes * per_node, origins)
     deadline = as_floats(load.deadline_seconds).reshape(-1, 1)
-    if not np.isfinite(deadline).any():
-        return Candidates((evaluate_columns(load, hardware, base, found),)), fewest
+    has_deadline = bool(np.isfinite(deadline).any())
     if not _step_varies(load, hardware, k_min, k_top):
-        # Solve every scenario on one table of node counts, evaluated with the base block in one pass.
-        rungs = _rungs(k_min, k_top)[0]
-        table_columns = _shape_columns(found, np.repeat(np.arange(found.count), TABLE_RUNGS), rungs.reshape(-1),
-                                       per_node)
-        both = step_figures(load, hardware, _side_by_side(base, table_columns), found)
-        width = base.nodes.shape[1]
-        first = with_wall(load, hardware, {name: value[:, :width] for name, value in both.items()})
-        table = {name: value[:, width:] for name, value in both.items()}
-        return Candidates((first, _deadline_block(load, hardware, found, k_min, k_top, rungs, table,
-                                                  deadline))), fewest
+        if not has_deadline:
+            return Candidates((evaluate_columns(load, hardware, base, found),)), fewest
+        figures, exact, column = _on_one_table(load, hardware, found, base, k_min, k_top, deadline)
+        return Candidates((with_wall(load, hardware, figures), _gathered(load, hardware, exact, column))), fewest
+    groups = _step_groups(load, hardware, deadline, k_min, *tops)
+    if groups is not None:
+        return Candidates(_blocks_by_step(load, hardware, found, groups, base, k_min, k_top,
+                                          deadline if has_deadline else None)), fewest
     first = evaluate_columns(load, hardware, base, found)
+    if not has_deadline:
+        return Candidates((first,)), fewest
     k_met = _fewest_meeting(load, hardware, found, columns, deadline, _rungs(k_min, k_top))
     blocks = [first, evaluate_columns(load, hardware, columns(k_met, DEADLINE), found)]
     return Candidates(tuple(blocks)), fewest
@@ -193,12 +195,41 @@ def _shape_columns(found: Shapes, shape: Ints, units: Floats, accelerators_per_n
                    nodes * accelerators_per_node, np.full(nodes.shape, DEADLINE))
 
 
+def _step_fields(load: Load) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """The fields of the load and of the hardware that one step's figures depend on and that may vary
+    by scenario (not tokens, runs, staging or prices): a run's FLOPs only where a run is one step
+    (work given without tokens)."""
+    one_step_runs = load.tokens_per_run is None or load.timed_flops_per_token is None
+    return (("parameters", "timed_flops_per_token", *(("timed_flops_per_run",) if one_step_runs else ()),
+             "global_batch_tokens", "checkpoint_bytes"),
+            ("sustained_flops_per_accelerator", "network_gbps", "node_mtbf_hours"))
+
+
+def _step_inputs(load: Load, hardware: Hardware) -> tuple[Floats, ...]:
+    """The values of `_step_fields` that are given."""
+    of_load, of_hardware = _step_fields(load)
+    inputs = [getattr(load, name) for name in of_load] + [getattr(hardware, name) for name in of_hardware]
+    return tuple(value for value in inputs if value is not None)
+
+
+def _on_one_table(load: Load, hardware: Hardware, found: Shapes, base: Columns, k_min: Floats, k_top: Floats,
+                  deadline: Floats) -> tuple[dict[str, Any], dict[str, Any], Ints]:
+    """Every scenario solved on one table of node counts, when the step does not vary by scenario:
+    the base candidates' figures (one row, without the wall clock) and the deadline candidates'
+    (`_deadline_block`), the table evaluated with the base candidates in one pass."""
+    rungs = _rungs(k_min, k_top)[0]
+    table_columns = _shape_columns(found, np.repeat(np.arange(found.count), TABLE_RUNGS), rungs.reshape(-1),
+                                   hardware.accelerators_per_node)
+    both = step_figures(load, hardware, _side_by_side(base, table_columns), found)
+    width = base.nodes.shape[1]
+    table = {name: value[:, width:] for name, value in both.items()}
+    return ({name: value[:, :width] for name, value in both.items()},
+            *_deadline_block(load, hardware, found, k_min, k_top, rungs, table, deadline))
+
+
 def _step_varies(load: Load, hardware: Hardware, k_min: Floats, k_top: Floats) -> bool:
-    """Whether one step's figures vary by scenario: only when an input of the step does (not tokens,
-    runs, staging or prices)."""
-    inputs = (load.parameters, load.timed_flops_per_token, load.global_batch_tokens, load.checkpoint_bytes,
-              hardware.sustained_flops_per_accelerator, hardware.network_gbps, hardware.node_mtbf_hours, k_min, k_top)
-    return any(np.size(value) > 1 and np.shape(value)[0] > 1 for value in inputs if value is not None)
+    """Whether one step's figures vary by scenario: only when an input of the step does."""
+    return any(np.size(value) > 1 and np.shape(value)[0] > 1 for value in (*_step_inputs(load, hardware), k_min, k_top))
 
 
 def _rungs(k_min: Floats, k_top: Floats) -> Floats:
@@ -213,7 +244,7 @@ def _side_by_side(a: Columns, b: Columns) -> Columns:
 
 
 def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats, k_top: Floats, rungs: Floats,
-                    table: dict[str, Any], deadline: Floats) -> LayoutGrid:
+                    table: dict[str, Any], deadline: Floats) -> tuple[dict[str, Any], Ints]:
     """Per scenario and shape, the fewest node units that meet the deadline, when the step does not
     vary by scenario: the effective step g(k) on TABLE_RUNGS geometric counts from the memory
     minimum to the node limit (one row for all scenarios); each scenario's allowance
@@ -287,10 +318,15 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
                          afforded[scenario], *bracket)
         column.reshape(-1)[searched] = known.columns(shape_of * TABLE_KEY + fewest)
         exact = known.figures
-    column = column.T[scenario_of]  # (S, H)
-    eager = {name: np.asarray(exact[name])[0][column] for name in ("nodes", "accelerators", "fits")}
-    wall = wall_figures(load, hardware, np.asarray(exact["effective_step_seconds"])[0][column], eager["accelerators"])
-    return GatheredGrid(exact, column, **eager, **wall)
+    return exact, column.T[scenario_of]  # (S, H)
+
+
+def _gathered(load: Load, hardware: Hardware, table: dict[str, Any], column: Ints) -> GatheredGrid:
+    """The block of the candidates `table[name][0, column]`, with what every term reads of it (nodes,
+    accelerators, fits) and its wall clock gathered now."""
+    eager = {name: np.asarray(table[name])[0][column] for name in ("nodes", "accelerators", "fits")}
+    wall = wall_figures(load, hardware, np.asarray(table["effective_step_seconds"])[0][column], eager["accelerators"])
+    return GatheredGrid(table, column, **eager, **wall)
 
 
 class _ExactCounts:
@@ -387,6 +423,85 @@ def _fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Call
 
     fewest = _closed(measure, target, k_lo, w_lo, k_hi, w_hi)
     return np.asarray(np.where(reached, fewest, counts[..., -1]))
+
+
+@dataclass(frozen=True)
+class _StepGroups:
+    """Scenarios grouped by their step: `first[g]` is a scenario of group g, `step_of[s]` the group of
+    scenario s, over `rows` scenarios."""
+
+    rows: int
+    first: Ints
+    step_of: Ints
+
+    def members(self, group: int) -> Ints:
+        return np.flatnonzero(self.step_of == group)
+
+    def one(self, group: int) -> slice:
+        """The group's first scenario, as a slice that keeps the scenario axis."""
+        return slice(int(self.first[group]), int(self.first[group]) + 1)
+
+    def alone(self, load: Load, hardware: Hardware, group: int) -> tuple[Load, Hardware]:
+        """The load and hardware of the group's scenarios, with the step's inputs as one row."""
+        members, one = self.members(group), self.one(group)
+        of_load, of_hardware = _step_fields(load)
+        return (replace(take_rows(load, members, self.rows),
+                        **{name: take_rows(getattr(load, name), one, self.rows) for name in of_load}),
+                replace(take_rows(hardware, members, self.rows),
+                        **{name: take_rows(getattr(hardware, name), one, self.rows) for name in of_hardware}))
+
+
+def _step_groups(load: Load, hardware: Hardware, deadline: Floats, *bounds: Floats) -> _StepGroups | None:
+    """The scenarios grouped by the bits of their step's inputs and of the node-count `bounds`
+    ((R, H) arrays), when the groups are few enough for a table per group to pay (at least
+    SCENARIOS_PER_STEP scenarios each on average: a grid over model size, network or failure rates);
+    else None."""
+    rows = _scenario_rows(load, hardware, deadline, *bounds)
+    inputs = [np.asarray(value, dtype=np.float64) for value in (*_step_inputs(load, hardware), *bounds)]
+    columns = [value.reshape(value.shape[0] if value.ndim else 1, -1) for value in inputs]
+    key = np.ascontiguousarray(np.concatenate([np.broadcast_to(c, (rows, c.shape[1])) for c in columns], axis=1))
+    _, first, step_of = np.unique(key.view(np.dtype((np.void, key.itemsize * key.shape[1]))).reshape(-1),
+                                  return_index=True, return_inverse=True)
+    if first.size * SCENARIOS_PER_STEP > rows:
+        return None
+    return _StepGroups(rows, first, step_of.reshape(-1))
+
+
+def _blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: _StepGroups, base: Columns,
+                    k_min: Floats, k_top: Floats, deadline: Floats | None) -> tuple[GatheredGrid, ...]:
+    """The candidate blocks when the step varies by scenario but takes few distinct values: each
+    group of scenarios sharing a step is solved as a scenario alone is (`_on_one_table`, or only the
+    base candidates without a deadline), and every scenario gathers its group's figures from the
+    groups' rows laid side by side."""
+    width = base.nodes.shape[1]
+    firsts: list[dict[str, Any]] = []
+    exacts: list[dict[str, Any]] = []
+    column = np.empty((groups.rows, found.count), dtype=np.int64)
+    offset = 0
+    for group in range(groups.first.size):
+        step_load, step_hardware = groups.alone(load, hardware, group)
+        one, rows = groups.one(group), groups.rows
+        step_base = take_rows(base, one, rows)
+        if deadline is None:
+            firsts.append(step_figures(step_load, step_hardware, step_base, found))
+            continue
+        members = groups.members(group)
+        first, exact, at = _on_one_table(step_load, step_hardware, found, step_base, take_rows(k_min, one, rows),
+                                         take_rows(k_top, one, rows), take_rows(deadline, members, rows))
+        firsts.append(first)
+        exacts.append(exact)
+        column[members] = at + offset
+        offset += np.shape(exact["nodes"])[1]
+    first_column = groups.step_of[:, np.newaxis] * width + np.arange(width)[np.newaxis, :]
+    blocks = [_gathered(load, hardware, _side_by_side_figures(firsts), first_column)]
+    if deadline is not None:
+        blocks.append(_gathered(load, hardware, _side_by_side_figures(exacts), column))
+    return tuple(blocks)
+
+
+def _side_by_side_figures(parts: list[dict[str, Any]]) -> dict[str, Any]:
+    """One-row figures of several sets of candidates as one row."""
+    return {name: np.concatenate([np.asarray(part[name]) for part in parts], axis=1) for name in parts[0]}
 
 
 def _scenario_rows(load: Load, hardware: Hardware, *arrays: Floats) -> int:

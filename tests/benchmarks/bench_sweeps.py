@@ -22,7 +22,11 @@ thread before numpy loads, and CPU time of this process is what the rates divide
 1b. Venue size: section 1's chunk and one quote with every offer at 64 nodes and at 100,000 (target:
    within 1.2x; the layout search must not grow with a venue's node limit).
 
-It prints PASS or MISS per target and exits 0 whatever the figures. `--core` runs sections 1 and 1b
+1c. Grids over inputs of the step itself (model size; MTBF and network), where each distinct step's
+   scenarios are solved on one table, against the per-scenario search on the same chunks, and a grid
+   whose step does not vary beside them (figures and ratios; no target).
+
+It prints PASS or MISS per target and exits 0 whatever the figures. `--core` runs sections 1, 1b and 1c
 only. `--quick` shrinks the end-to-end
 runs (100,000 and 1,000,000 scenarios) to check the script itself; its figures are not the targets'.
 """
@@ -52,6 +56,7 @@ sys.path.insert(0, str(ROOT))
 from service.contract.catalog import CatalogIn  # noqa: E402
 from service.contract.request import QuoteRequestIn  # noqa: E402
 from service.contract.sweep import SweepIn  # noqa: E402
+from service.domain import layout  # noqa: E402
 from service.domain.evaluate import evaluate_campaign  # noqa: E402
 from service.domain.sweep import chunk_size, evaluate_chunk, scenario_chunks  # noqa: E402
 from service.domain.whatif import apply  # noqa: E402
@@ -208,6 +213,54 @@ def venue_size_benchmark() -> None:
     quote_ratio = figures[100_000][1] / figures[64][1]
     verdict("a 100,000-node offer sweeps within 1.2x of a 64-node one", sweep_ratio <= 1.2, f"{sweep_ratio:.2f}x")
     verdict("a 100,000-node offer quotes within 1.2x of a 64-node one", quote_ratio <= 1.2, f"{quote_ratio:.2f}x")
+
+
+# Grids whose scenarios take few distinct steps (the model's size; the network and failure rates), and
+# one whose step does not vary, on the 10-venue catalog and the demo sweep's base campaign.
+STEP_GRIDS: dict[str, dict[str, list[float]]] = {
+    "model size (4) x tokens (50) x deadline (50)": {
+        "campaign.work.parameters": [7e9, 13e9, 30e9, 70e9],
+        "campaign.work.tokens": [float(v) for v in np.linspace(1e11, 1e12, 50)],
+        "campaign.deadline_days": [float(v) for v in np.linspace(10.0, 120.0, 50)]},
+    "MTBF (3) x network (4) x electricity (800)": {
+        "overrides.mtbf_hours": [5000.0, 20000.0, 80000.0], "overrides.network_gbps": [100.0, 200.0, 400.0, 800.0],
+        "overrides.electricity_price_per_kwh": [float(v) for v in np.linspace(0.05, 0.3, 800)]},
+    "step unvaried: tokens (100) x deadline (100)": {
+        "campaign.work.tokens": [float(v) for v in np.linspace(1e11, 1e12, 100)],
+        "campaign.deadline_days": [float(v) for v in np.linspace(10.0, 120.0, 100)]},
+}
+
+
+def step_grid_benchmark() -> None:
+    """Grid sweeps over inputs of the step itself: each distinct step's scenarios solved on one table
+    (`layout._blocks_by_step`) against every scenario on its own rungs (the same grid with
+    `layout.SCENARIOS_PER_STEP` set beyond the chunk, so the per-scenario search runs), in the
+    service's chunks; and a grid whose step does not vary, the one-table path, beside them."""
+    print("== 1c. Grids over inputs of the step: a table per distinct step against the per-scenario search",
+          flush=True)
+    catalog_in = CatalogIn.model_validate(ten_venue_catalog())
+    base = load(DEMO_SWEEP)["base"]
+    grouping = layout.SCENARIOS_PER_STEP
+    for label, grid in STEP_GRIDS.items():
+        prepared = prepare_sweep(catalog_in, SweepIn.model_validate({"base": base, "grid": grid}), SweepLimits())
+        chunks = [inputs for _, inputs in scenario_chunks(prepared.plan, chunk_size(prepared.catalog))]
+        scenarios = prepared.plan.scenarios
+
+        def in_service_chunks() -> list[np.ndarray]:
+            return [evaluate_chunk(prepared.catalog, prepared.plan, inputs).totals for inputs in chunks]  # noqa: B023
+
+        rates = {}
+        totals = {}
+        for name, per_step in (("a table per step", grouping), ("per scenario", scenarios + 1)):
+            layout.SCENARIOS_PER_STEP = per_step
+            totals[name] = np.concatenate(in_service_chunks(), axis=1)  # warm-up, and the answers compared
+            cpu, _ = timed(in_service_chunks, 1)
+            rates[name] = scenarios / cpu
+        layout.SCENARIOS_PER_STEP = grouping
+        same = np.array_equal(*totals.values(), equal_nan=True)
+        print(f"  {label}: {scenarios:,} scenarios: a table per step {rates['a table per step']:,.0f} scenarios/s"
+              f" per core, per scenario {rates['per scenario']:,.0f}: "
+              f"{rates['a table per step'] / rates['per scenario']:.2f}x; totals identical: {same}", flush=True)
 
 
 def sweep_file(directory: Path, samples: int) -> Path:
@@ -373,6 +426,7 @@ def main() -> None:
           "BLAS/OpenMP pools limited to 1 thread", flush=True)
     core_benchmark()
     venue_size_benchmark()
+    step_grid_benchmark()
     if "--core" not in sys.argv[1:]:
         with tempfile.TemporaryDirectory(prefix="bench-sweeps-") as scratch:
             end_to_end_json(Path(scratch), E2E_SCENARIOS // 10 if quick else E2E_SCENARIOS)

@@ -9,6 +9,7 @@ catalog (invented ids and prices); nothing here is a published check value.
 """
 
 import copy
+import dataclasses
 import json
 from pathlib import Path
 from typing import Any
@@ -17,7 +18,18 @@ import numpy as np
 import pytest
 
 from service.contract.catalog import CatalogIn
-from service.domain.campaign import Campaign, DataPlan, Overrides, QuoteOptions, Training, TransformerWork
+from service.domain import layout
+from service.domain.campaign import (
+    Campaign,
+    DataPlan,
+    FlopsWork,
+    MeasuredWork,
+    Overrides,
+    QuoteOptions,
+    Training,
+    TransformerWork,
+    Work,
+)
 from service.domain.choice import _first_least
 from service.domain.evaluate import CampaignEvaluation, evaluate_campaign
 
@@ -46,7 +58,18 @@ def random_catalog(rng: np.random.Generator) -> Any:
     return CatalogIn.model_validate(catalog).to_domain()
 
 
-def random_campaign(rng: np.random.Generator, scenarios: int, *, vary_step: bool) -> tuple[Campaign, Overrides]:
+def random_campaign(rng: np.random.Generator, scenarios: int, *, vary_step: bool, kind: str = "transformer",
+                    distinct_steps: int | None = None, with_parameters: bool = True,
+                    with_deadline: bool = True) -> tuple[Campaign, Overrides]:
+    """A random campaign over `scenarios` scenarios. With `vary_step`, an input of the step itself
+    varies by scenario (the network; and the model's size, or the FLOPs or samples of a run of work
+    given without its parameter count, which has no tokens), drawn from `distinct_steps` values when
+    that is given."""
+    def step_values(low: float, high: float) -> np.ndarray:
+        if distinct_steps is None:
+            return rng.uniform(low, high, scenarios)
+        return rng.choice(rng.uniform(low, high, distinct_steps), scenarios)
+
     layers = int(rng.choice([24, 32, 40, 64, 80, 96]))
     heads = int(rng.choice([16, 32, 64]))
     parameters = float(rng.choice([1.3e9, 7e9, 30e9, 70e9, 180e9]))
@@ -54,32 +77,41 @@ def random_campaign(rng: np.random.Generator, scenarios: int, *, vary_step: bool
     deadline = rng.uniform(2.0, 150.0, scenarios)
     if rng.random() < 0.5:
         deadline = np.round(deadline / 20.0) * 20.0 + 5.0  # scenarios sharing an allowance
-    work = TransformerWork(parameters=parameters, tokens=tokens, layers=layers, d_model=float(heads * 128),
-                           sequence_length=float(rng.choice([2048, 4096, 8192])), attention_heads=heads)
+    work: Work
+    if kind == "flops":  # a run is one step: its FLOPs are an input of the step
+        flops = 6.0 * parameters * float(np.median(tokens))
+        work = FlopsWork(total_flops=step_values(0.3 * flops, 3.0 * flops) if vary_step else flops * tokens / tokens[0],
+                         parameters=parameters if with_parameters else None)
+    elif kind == "measured":
+        samples = 1e9 * step_values(0.2, 5.0) if vary_step else rng.uniform(2e8, 5e9, scenarios)
+        work = MeasuredWork(reference_node_type=DEMO["node_types"][0]["id"], samples=samples,
+                            samples_per_second_per_accelerator=float(rng.uniform(20.0, 200.0)),
+                            parameters=parameters if with_parameters else None)
+    else:
+        if vary_step and distinct_steps is not None:
+            parameters = step_values(0.3 * parameters, 3.0 * parameters)  # type: ignore[assignment]
+        work = TransformerWork(parameters=parameters, tokens=tokens, layers=layers, d_model=float(heads * 128),
+                               sequence_length=float(rng.choice([2048, 4096, 8192])), attention_heads=heads)
     training = Training(activation_recompute=str(rng.choice(["none", "selective", "full"])),  # type: ignore[arg-type]
                         global_batch_tokens=float(rng.choice([1e6, 4e6, 16e6])))
-    campaign = Campaign(name="reference", team="demo", work=work, training=training, deadline_days=deadline,
+    campaign = Campaign(name="reference", team="demo", work=work, training=training,
+                        deadline_days=deadline if with_deadline else None,
                         data=DataPlan(dataset_tb=float(rng.uniform(0.0, 40.0))))
-    # Varying an input of the step itself (the network) solves the deadline by false position
-    # instead of on the table of node counts.
-    network = rng.uniform(200.0, 2000.0, scenarios) if vary_step else None
+    # Varying an input of the step itself solves the deadline per scenario (or per distinct step)
+    # instead of on one table of node counts.
+    network = step_values(200.0, 2000.0) if vary_step else None
     overrides = Overrides(electricity_price_per_kwh=rng.uniform(0.04, 0.3, scenarios), network_gbps=network)
     return campaign, overrides
 
 
 def one(value: Any, s: int) -> Any:
-    return value[s] if isinstance(value, np.ndarray) else value
-
-
-def single(campaign: Campaign, overrides: Overrides, s: int) -> tuple[Campaign, Overrides]:
-    work = campaign.work
-    assert isinstance(work, TransformerWork)
-    return (Campaign(name=campaign.name, team=campaign.team, work=TransformerWork(
-                parameters=work.parameters, tokens=one(work.tokens, s), layers=work.layers, d_model=work.d_model,
-                sequence_length=work.sequence_length, attention_heads=work.attention_heads),
-                     training=campaign.training, deadline_days=one(campaign.deadline_days, s), data=campaign.data),
-            Overrides(electricity_price_per_kwh=one(overrides.electricity_price_per_kwh, s),
-                      network_gbps=one(overrides.network_gbps, s)))
+    """Scenario s of a campaign or overrides: every per-scenario array as that scenario's number."""
+    if isinstance(value, np.ndarray):
+        return float(value[s]) if value.ndim == 1 and value.shape[0] == SCENARIOS else value
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return dataclasses.replace(value, **{f.name: one(getattr(value, f.name), s)
+                                             for f in dataclasses.fields(value) if f.init})
+    return value
 
 
 def per_scenario(value: Any, scenarios: int) -> np.ndarray:
@@ -110,16 +142,16 @@ def assert_same(vector: CampaignEvaluation, singles: list[CampaignEvaluation]) -
     return priced
 
 
-def evaluate_both(seed: int, *, vary_step: bool) -> int:
+def evaluate_both(seed: int, *, vary_step: bool, kind: str = "transformer", distinct_steps: int | None = None,
+                  with_parameters: bool = True, with_deadline: bool = True) -> int:
     rng = np.random.default_rng(1000 + seed)
     catalog = random_catalog(rng)
-    campaign, overrides = random_campaign(rng, SCENARIOS, vary_step=vary_step)
+    campaign, overrides = random_campaign(rng, SCENARIOS, vary_step=vary_step, kind=kind,
+                                          distinct_steps=distinct_steps, with_parameters=with_parameters,
+                                          with_deadline=with_deadline)
     options = QuoteOptions()
     vector = evaluate_campaign(catalog, campaign, options, overrides)
-    singles = []
-    for s in range(SCENARIOS):
-        alone, alone_overrides = single(campaign, overrides, s)
-        singles.append(evaluate_campaign(catalog, alone, options, alone_overrides))
+    singles = [evaluate_campaign(catalog, one(campaign, s), options, one(overrides, s)) for s in range(SCENARIOS)]
     return assert_same(vector, singles)
 
 
@@ -136,6 +168,34 @@ def test_where_the_step_varies_by_scenario_many_in_one_call_equal_each_alone(see
     is not monotone in the node count (seed 3: failures grow with it, and the top count misses a
     deadline that a middle one meets)."""
     assert evaluate_both(seed, vary_step=True) > 0
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_scenarios_sharing_a_step_are_solved_on_its_table_as_each_alone(
+        seed: int, monkeypatch: pytest.MonkeyPatch) -> None:
+    """A grid over the model's size and the network: few distinct steps, each group of scenarios
+    solved on one table (layout._blocks_by_step; made to apply to these 24 scenarios), and each
+    scenario's answer what it gets alone, as on the per-scenario search."""
+    monkeypatch.setattr(layout, "SCENARIOS_PER_STEP", 2)
+    grouped = evaluate_both(seed, vary_step=True, distinct_steps=3)
+    assert evaluate_both(seed, vary_step=True, distinct_steps=3, with_deadline=False) > 0  # base candidates only
+    monkeypatch.setattr(layout, "SCENARIOS_PER_STEP", SCENARIOS + 1)
+    assert evaluate_both(seed, vary_step=True, distinct_steps=3) == grouped > 0
+
+
+@pytest.mark.parametrize("with_parameters", [False, True])
+@pytest.mark.parametrize("kind", ["flops", "measured"])
+@pytest.mark.parametrize("seed", range(2))
+def test_work_as_flops_or_samples_many_in_one_call_equal_each_alone(
+        seed: int, kind: str, with_parameters: bool, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Work given as total FLOPs or measured samples. Without its parameter count it has no tokens,
+    so a run is one step and its amount an input of the step: varied by scenario it is searched per
+    scenario, or per distinct value (a sweep over it under a deadline crashed on the one-table search
+    before). With the parameter count, tokens follow from it and one table serves every scenario."""
+    assert evaluate_both(seed, vary_step=False, kind=kind, with_parameters=with_parameters) > 0
+    assert evaluate_both(seed, vary_step=True, kind=kind, with_parameters=with_parameters) > 0
+    monkeypatch.setattr(layout, "SCENARIOS_PER_STEP", 2)
+    assert evaluate_both(seed, vary_step=True, kind=kind, distinct_steps=3, with_parameters=with_parameters) > 0
 
 
 @pytest.mark.parametrize("seed", range(20))

@@ -251,7 +251,33 @@ def test_unknown_venues_and_fields_of_per_venue_paths_are_named() -> None:
 @pytest.mark.parametrize("path", sorted(EVERY_PATH))
 def test_each_path_varied_alone_equals_its_single_quotes(path: str) -> None:
     kind, values = EVERY_PATH[path]
+    chunk, carbon = swept_as_single_quotes(base_for(kind), path, values)
+    if path.endswith(".grid_kgco2e_per_kwh"):  # moves the carbon of owned sites, not their cost
+        assert np.array_equal(chunk.totals[:, 0], chunk.totals[:, 1], equal_nan=True)
+        assert carbon[0] != carbon[1]
+    else:  # the two values change at least one option's total or feasibility, or the path would do nothing
+        assert not np.array_equal(chunk.totals[:, 0], chunk.totals[:, 1], equal_nan=True), path
+
+
+@pytest.mark.parametrize(("kind", "path", "values"), [
+    ("flops", "campaign.work.total_flops", [2e21, 5e21, 1e22, 3e22]),
+    ("measured", "campaign.work.samples", [5e8, 1e9, 3e9, 9e9])])
+def test_work_without_a_parameter_count_swept_under_a_deadline_equals_its_single_quotes(
+        kind: str, path: str, values: list[float]) -> None:
+    # Without a parameter count there are no tokens: a run is one step, so its FLOPs are an input of
+    # the step (the sweep crashed on the one-table deadline search), and there is no checkpoint to
+    # size (every wall clock was NaN).
     base = base_for(kind)
+    del base["campaign"]["work"]["parameters"]
+    base["campaign"]["data"].pop("checkpoint_tb", None)
+    assert base["campaign"]["deadline_days"]
+    chunk, _ = swept_as_single_quotes(base, path, values)
+    assert np.isfinite(chunk.totals).any(axis=0).all()  # every scenario has a feasible option
+
+
+def swept_as_single_quotes(base: dict[str, Any], path: str, values: list[float]) -> tuple[Any, list[list[float]]]:
+    """A grid sweep of `path` over `values`, checked scenario by scenario against the single quote
+    (feasibility, and totals to 1e-9): the sweep's chunk, and each scenario's carbon by option."""
     prep = prepared({"base": base, "grid": {path: values}})
     _, chunk = all_scenarios(prep)
     summary, rows = run(prep)
@@ -267,11 +293,7 @@ def test_each_path_varied_alone_equals_its_single_quotes(path: str) -> None:
             if feasible:
                 expected = float(np.asarray(option.total).reshape(-1)[0])
                 assert chunk.totals[k, s] == pytest.approx(expected, rel=1e-9, abs=0.0), (path, value, option.label)
-    if path.endswith(".grid_kgco2e_per_kwh"):  # moves the carbon of owned sites, not their cost
-        assert np.array_equal(chunk.totals[:, 0], chunk.totals[:, 1], equal_nan=True)
-        assert carbon[0] != carbon[1]
-    else:  # the two values change at least one option's total or feasibility, or the path would do nothing
-        assert not np.array_equal(chunk.totals[:, 0], chunk.totals[:, 1], equal_nan=True), path
+    return chunk, carbon
 
 
 def test_grid_scenarios_enumerate_every_combination_last_path_fastest() -> None:
