@@ -13,8 +13,10 @@ a fresh server takes.
    printed beside the whole's best (each stage's best may come from another repeat, so the sum may be a
    little less). Then what POST /v1/quotes does with the body after quote(), timed the same way:
    `envelope` (identity and provenance) and the answer encoded as the API encodes it
-   (`FastJSONResponse`: orjson). Targets: quote() at most 4 ms CPU per campaign, 8 ms for
-   campaign-split.json.
+   (`FastJSONResponse`: orjson). Beside them, the CPU time of the layout search within the stages
+   (`evaluate_layouts`, every venue's physics, the split's included) and of the stages without it: a
+   bound, what a quote would still take were the search free. Targets: quote() at most 4 ms CPU per
+   campaign, 8 ms for campaign-split.json.
 2. Cold (skipped with --no-cold): the wall time of a fresh `python -m service.cli quote CAMPAIGN
    --catalog catalog.json --format json` from its start to its exit, the answer written, for each demo
    campaign; and of the first POST /v1/quotes (campaign-owned-wins.json) that a freshly started
@@ -58,7 +60,9 @@ from service.api.responses import FastJSONResponse  # noqa: E402
 from service.contract.catalog import CatalogIn  # noqa: E402
 from service.contract.document import quote_document  # noqa: E402
 from service.contract.request import QuoteRequestIn  # noqa: E402
+from service.domain import evaluate as evaluate_module  # noqa: E402
 from service.domain.evaluate import evaluate_campaign  # noqa: E402
+from service.domain.layout import evaluate_layouts  # noqa: E402
 from service.domain.split import split_options  # noqa: E402
 from service.errors import InvalidInput  # noqa: E402
 from service.storage.repository import new_id  # noqa: E402
@@ -75,6 +79,7 @@ CATALOG = EXAMPLES / "catalog.json"
 QUOTE_STAGES = ("request_problems", "catalog.to_domain", "request.to_domain", "evaluate_campaign", "split_options",
                 "quote_document")
 ANSWER_STAGES = ("envelope", "FastJSONResponse")
+SEARCH_FIGURES = ("search", "without search")
 TARGET_CPU_MS = 4.0
 TARGET_CPU_MS_BY_CAMPAIGN = {"campaign-split.json": 8.0}
 TARGET_COLD_S = 1.0
@@ -129,6 +134,29 @@ def answer_in_stages(body: dict[str, Any], content_hash: str, laps: Laps) -> byt
     return bytes(answer)
 
 
+class SearchTally:
+    """CPU seconds spent in the layout search (`evaluate_layouts`: each venue's candidate layouts, their
+    step, failures and deadline search) while it is installed in `service.domain.evaluate`."""
+
+    def __init__(self) -> None:
+        self.seconds = 0.0
+        self._search = evaluate_layouts
+
+    def _timed(self, *args: Any, **kwargs: Any) -> Any:
+        began = time.process_time()
+        try:
+            return self._search(*args, **kwargs)
+        finally:
+            self.seconds += time.process_time() - began
+
+    def __enter__(self) -> "SearchTally":
+        vars(evaluate_module)["evaluate_layouts"] = self._timed  # the name evaluate.py calls
+        return self
+
+    def __exit__(self, *_: object) -> None:
+        vars(evaluate_module)["evaluate_layouts"] = self._search
+
+
 def cpu_seconds(function: Callable[[], object]) -> float:
     began = time.process_time()
     function()
@@ -137,17 +165,23 @@ def cpu_seconds(function: Callable[[], object]) -> float:
 
 def measure_campaign(catalog: CatalogIn, content_hash: str, request: QuoteRequestIn, repeats: int,
                      warmup: int) -> tuple[float, dict[str, float]]:
-    """The best CPU seconds of quote() and of each stage (QUOTE_STAGES, then ANSWER_STAGES)."""
+    """The best CPU seconds of quote() and of each stage (QUOTE_STAGES, then ANSWER_STAGES), and of the
+    layout search within them ("search") and of the quote's stages without it ("without search", the
+    least the quote could take were the search free)."""
     wholes: list[float] = []
-    stages: dict[str, list[float]] = {stage: [] for stage in (*QUOTE_STAGES, *ANSWER_STAGES)}
+    stages: dict[str, list[float]] = {stage: [] for stage in (*QUOTE_STAGES, *ANSWER_STAGES, *SEARCH_FIGURES)}
     for repeat in range(warmup + repeats):
         whole = cpu_seconds(lambda: quote(catalog, request))
         laps = Laps()
-        answer_in_stages(quote_in_stages(catalog, request, laps), content_hash, laps)
+        with SearchTally() as search:
+            body = quote_in_stages(catalog, request, laps)
+        answer_in_stages(body, content_hash, laps)
         if repeat >= warmup:
             wholes.append(whole)
             for stage, seconds in laps.seconds.items():
                 stages[stage].append(seconds)
+            stages["search"].append(search.seconds)
+            stages["without search"].append(sum(laps.seconds[stage] for stage in QUOTE_STAGES) - search.seconds)
     return min(wholes), {stage: min(seconds) for stage, seconds in stages.items()}
 
 
@@ -158,7 +192,7 @@ def in_process(repeats: int, warmup: int) -> list[tuple[str, bool, str]]:
           f"{CATALOG.name}")
     heads = ("problems", "catalog", "request", "evaluate", "splits", "document")
     print(f"{'campaign':<33}" + "".join(f"{head:>10}" for head in heads)
-          + f"{'sum':>9}{'quote()':>9}{'envelope':>10}{'orjson':>8}")
+          + f"{'sum':>9}{'quote()':>9}{'envelope':>10}{'orjson':>8}{'search':>8}{'rest':>8}")
     verdicts = []
     for path in sorted(EXAMPLES.glob("campaign-*.json")):
         request = QuoteRequestIn.model_validate_json(path.read_bytes())
@@ -166,14 +200,16 @@ def in_process(repeats: int, warmup: int) -> list[tuple[str, bool, str]]:
         ms = {stage: seconds * 1e3 for stage, seconds in best.items()}
         stage_sum = sum(ms[stage] for stage in QUOTE_STAGES)
         print(f"{path.name:<33}" + "".join(f"{ms[stage]:>10.2f}" for stage in QUOTE_STAGES)
-              + f"{stage_sum:>9.2f}{whole * 1e3:>9.2f}{ms['envelope']:>10.2f}{ms['FastJSONResponse']:>8.2f}",
-              flush=True)
+              + f"{stage_sum:>9.2f}{whole * 1e3:>9.2f}{ms['envelope']:>10.2f}{ms['FastJSONResponse']:>8.2f}"
+              + f"{ms['search']:>8.2f}{ms['without search']:>8.2f}", flush=True)
         target = TARGET_CPU_MS_BY_CAMPAIGN.get(path.name, TARGET_CPU_MS)
         verdicts.append((f"quote() at most {target:.0f} ms CPU on {path.name}", whole * 1e3 <= target,
                          f"{whole * 1e3:.2f} ms"))
     print("(problems: request_problems; catalog, request: their to_domain(); evaluate: evaluate_campaign;")
     print(" splits: split_options; document: quote_document; sum: of those six, beside quote() timed whole;")
-    print(" envelope and orjson: what POST /v1/quotes adds to the body, envelope() and FastJSONResponse)")
+    print(" envelope and orjson: what POST /v1/quotes adds to the body, envelope() and FastJSONResponse;")
+    print(" search: the layout search within evaluate and splits (evaluate_layouts, every venue's physics);")
+    print(" rest: the six stages without it, a bound: what the quote would still take were the search free)")
     print()
     return verdicts
 

@@ -12,6 +12,7 @@ from bench_quote_stages import (
     EXAMPLES,
     QUOTE_STAGES,
     Laps,
+    SearchTally,
     answer_in_stages,
     quote_in_stages,
 )
@@ -19,6 +20,8 @@ from bench_quote_stages import (
 from service.api.responses import OPTIONS
 from service.contract.catalog import CatalogIn
 from service.contract.request import QuoteRequestIn
+from service.domain import evaluate
+from service.domain.layout import evaluate_layouts
 from service.errors import InvalidInput
 from service.usecases.quoting import catalog_hash, quote
 
@@ -62,3 +65,13 @@ def test_a_request_the_catalog_cannot_answer_is_refused_as_quote_refuses_it(cata
     with pytest.raises(InvalidInput) as whole:
         quote(catalog, request)
     assert [p.field for p in staged.value.problems] == [p.field for p in whole.value.problems] == ["campaign.data.home"]
+
+
+def test_the_search_tally_times_the_layout_search_and_puts_it_back(catalog: CatalogIn) -> None:
+    request = QuoteRequestIn.model_validate_json((EXAMPLES / "campaign-owned-wins.json").read_bytes())
+    with SearchTally() as tally:
+        assert vars(evaluate)["evaluate_layouts"] is not evaluate_layouts
+        body = quote_in_stages(catalog, request, Laps())
+    assert vars(evaluate)["evaluate_layouts"] is evaluate_layouts
+    assert tally.seconds > 0.0
+    assert orjson.dumps(body, option=OPTIONS) == orjson.dumps(quote(catalog, request), option=OPTIONS)
