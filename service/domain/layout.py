@@ -1,25 +1,39 @@
 """Layout search: a bounded set of (tensor, pipeline, data) layouts per venue (model.md §5).
 
 The candidates are, for each shape (t, p) of `parallelism.shapes`, the fewest nodes that hold the
-model, the most each node limit allows, and the fewest that meet the deadline (the bracket around the
-first count of a table of node counts that meets it, closed by false position and halving; one table
-row for all scenarios, one per distinct step where the step varies over few values, else one per
-scenario): a handful per shape whatever the venue's size. `step.py` evaluates each candidate; `choice.py` picks among them.
+model, the most each node limit allows, and the fewest that meet the deadline (`deadline.py`: the
+bracket around the first count of a table of node counts that meets it, closed by false position and
+halving; one table row for all scenarios, one per distinct step where the step varies over few values,
+else one per scenario): a handful per shape whatever the venue's size. `step.py` evaluates each candidate;
+`choice.py` picks among them.
 """
 
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, fields, replace
+from dataclasses import dataclass, fields
 from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats, take_rows
+from service.domain.arrays import ArrayLike, Floats, Ints, as_floats
+from service.domain.deadline import (
+    MAX_UNITS,
+    blocks_by_step,
+    fewest_meeting,
+    gathered,
+    on_one_table,
+    step_groups,
+    step_varies,
+    table_rungs,
+)
 from service.domain.memory import minimum_data_parallel
 from service.domain.parallelism import Shapes, shapes
 from service.domain.step import (
+    DEADLINE,
+    MEMORY,
+    NODE_LIMIT,
+    PINNED,
     Architecture,
     Columns,
-    GatheredGrid,
     Hardware,
     LayoutGrid,
     Load,
@@ -27,25 +41,11 @@ from service.domain.step import (
     batch_sequences,
     evaluate_columns,
     rank_parameters,
-    scenario_terms,
-    step_figures,
-    wall_figures,
     with_wall,
 )
 
 __all__ = ["DEADLINE", "MEMORY", "NODE_LIMIT", "PINNED", "Architecture", "Candidates", "Hardware", "LayoutGrid",
            "Load", "evaluate_layouts"]
-
-# Why a candidate is in the set (`LayoutGrid.origin`): what decided the layout when it is chosen.
-MEMORY, NODE_LIMIT, DEADLINE, PINNED = 0, 1, 2, 3
-SEARCH_STEPS = 100  # bracket steps towards the fewest nodes that meet the deadline: halving every other
-# step closes any bracket of counts below MAX_UNITS well within it
-TABLE_RUNGS = 16  # node counts per shape in the table the deadline is solved on
-SCENARIOS_PER_STEP = 64  # where the step varies, scenarios per distinct step from which solving a table per
-# step beats solving each scenario on its own rungs (measured on a 10-venue catalog: even at 64 when the
-# network varies, at about 24 when the model size does)
-TABLE_KEY = 2.0**40  # (shape, count) keys: shape × TABLE_KEY + count, counts below it
-MAX_UNITS = TABLE_KEY - 2.0  # node units a candidate may have: beyond any venue (limits.MAX_NODES)
 
 
 @dataclass(frozen=True)
@@ -144,19 +144,19 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
     base = Columns(np.tile(tensor, copies), np.tile(pipeline, copies), nodes, nodes * per_node, origins)
     deadline = as_floats(load.deadline_seconds).reshape(-1, 1)
     has_deadline = bool(np.isfinite(deadline).any())
-    if not _step_varies(load, hardware, k_min, k_top):
+    if not step_varies(load, hardware, k_min, k_top):
         if not has_deadline:
             return Candidates((evaluate_columns(load, hardware, base, found),)), fewest
-        figures, exact, column = _on_one_table(load, hardware, found, base, k_min, k_top, deadline)
-        return Candidates((with_wall(load, hardware, figures), _gathered(load, hardware, exact, column))), fewest
-    groups = _step_groups(load, hardware, deadline, k_min, *tops)
+        figures, exact, column = on_one_table(load, hardware, found, base, k_min, k_top, deadline)
+        return Candidates((with_wall(load, hardware, figures), gathered(load, hardware, exact, column))), fewest
+    groups = step_groups(load, hardware, deadline, k_min, *tops)
     if groups is not None:
-        return Candidates(_blocks_by_step(load, hardware, found, groups, base, k_min, k_top,
+        return Candidates(blocks_by_step(load, hardware, found, groups, base, k_min, k_top,
                                           deadline if has_deadline else None)), fewest
     first = evaluate_columns(load, hardware, base, found)
     if not has_deadline:
         return Candidates((first,)), fewest
-    k_met = _fewest_meeting(load, hardware, found, columns, deadline, _rungs(k_min, k_top))
+    k_met = fewest_meeting(load, hardware, found, columns, deadline, table_rungs(k_min, k_top))
     blocks = [first, evaluate_columns(load, hardware, columns(k_met, DEADLINE), found)]
     return Candidates(tuple(blocks)), fewest
 
@@ -166,353 +166,6 @@ def _shapes(load: Load, accelerators_per_node: int, *, fixed_accelerators: int |
     return shapes(accelerators_per_node=accelerators_per_node, layers=None if arch is None else arch.layers,
                   attention_heads=None if arch is None else arch.attention_heads, pins=load.pins,
                   zero_stages=load.zero_stages, fixed_accelerators=fixed_accelerators)
-
-
-def _line(k_lo: Floats, g_lo: Floats, k_hi: Floats, g_hi: Floats) -> tuple[Floats, Floats]:
-    """(α, β) of the line g(k) = α/k + β through (k_lo, g_lo) and (k_hi, g_hi)."""
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        alpha = (g_lo - g_hi) / (1.0 / k_lo - 1.0 / k_hi)
-        return alpha, g_hi - alpha / k_hi
-
-
-def _reaching(alpha: Floats, beta: Floats, k_lo: Floats, k_hi: Floats, target: Floats) -> Floats:
-    """The count k at which α/k + β reaches the target, rounded up and kept inside (k_lo, k_hi]; k_hi
-    where the line does not reach it."""
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        guess = np.ceil(alpha / (target - beta) - 1e-9)
-    return np.asarray(np.clip(np.where(np.isfinite(guess) & (guess > 0), guess, k_hi), k_lo + 1.0, k_hi))
-
-
-def _interpolated(k_lo: Floats, g_lo: Floats, k_hi: Floats, g_hi: Floats, target: Floats) -> Floats:
-    """The count at which the line through (k_lo, g_lo) and (k_hi, g_hi) reaches the target (`_reaching`)."""
-    return _reaching(*_line(k_lo, g_lo, k_hi, g_hi), k_lo, k_hi, target)
-
-
-def _shape_columns(found: Shapes, shape: Ints, units: Floats, accelerators_per_node: int) -> Columns:
-    """One row of deadline candidates: shape `shape[j]` at `units[j]` node units."""
-    nodes = (units * found.node_unit(accelerators_per_node)[shape])[np.newaxis, :]
-    return Columns(found.tensor[shape][np.newaxis, :], found.pipeline[shape][np.newaxis, :], nodes,
-                   nodes * accelerators_per_node, np.full(nodes.shape, DEADLINE))
-
-
-def _step_fields(load: Load) -> tuple[tuple[str, ...], tuple[str, ...]]:
-    """The fields of the load and of the hardware that one step's figures depend on and that may vary
-    by scenario (not tokens, runs, staging or prices): a run's FLOPs only where a run is one step
-    (work given without tokens)."""
-    one_step_runs = load.tokens_per_run is None or load.timed_flops_per_token is None
-    return (("parameters", "timed_flops_per_token", *(("timed_flops_per_run",) if one_step_runs else ()),
-             "global_batch_tokens", "checkpoint_bytes"),
-            ("sustained_flops_per_accelerator", "network_gbps", "node_mtbf_hours"))
-
-
-def _step_inputs(load: Load, hardware: Hardware) -> tuple[Floats, ...]:
-    """The values of `_step_fields` that are given."""
-    of_load, of_hardware = _step_fields(load)
-    inputs = [getattr(load, name) for name in of_load] + [getattr(hardware, name) for name in of_hardware]
-    return tuple(value for value in inputs if value is not None)
-
-
-def _on_one_table(load: Load, hardware: Hardware, found: Shapes, base: Columns, k_min: Floats, k_top: Floats,
-                  deadline: Floats) -> tuple[dict[str, Any], dict[str, Any], Ints]:
-    """Every scenario solved on one table of node counts, when the step does not vary by scenario:
-    the base candidates' figures (one row, without the wall clock) and the deadline candidates'
-    (`_deadline_block`), the table evaluated with the base candidates in one pass."""
-    rungs = _rungs(k_min, k_top)[0]
-    table_columns = _shape_columns(found, np.repeat(np.arange(found.count), TABLE_RUNGS), rungs.reshape(-1),
-                                   hardware.accelerators_per_node)
-    both = step_figures(load, hardware, _side_by_side(base, table_columns), found)
-    width = base.nodes.shape[1]
-    table = {name: value[:, width:] for name, value in both.items()}
-    return ({name: value[:, :width] for name, value in both.items()},
-            *_deadline_block(load, hardware, found, k_min, k_top, rungs, table, deadline))
-
-
-def _step_varies(load: Load, hardware: Hardware, k_min: Floats, k_top: Floats) -> bool:
-    """Whether one step's figures vary by scenario: only when an input of the step does."""
-    return any(np.size(value) > 1 and np.shape(value)[0] > 1 for value in (*_step_inputs(load, hardware), k_min, k_top))
-
-
-def _rungs(k_min: Floats, k_top: Floats) -> Floats:
-    """TABLE_RUNGS geometric node-unit counts per shape from the memory minimum to the top: (R, H, G)."""
-    fraction = np.linspace(0.0, 1.0, TABLE_RUNGS)
-    return np.asarray(np.ceil(k_min[..., np.newaxis] * (k_top / k_min)[..., np.newaxis] ** fraction - 1e-9))
-
-
-def _side_by_side(a: Columns, b: Columns) -> Columns:
-    """Two one-row sets of candidate columns as one."""
-    return Columns(*(np.concatenate([getattr(a, f.name), getattr(b, f.name)], axis=1) for f in fields(Columns)))
-
-
-def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats, k_top: Floats, rungs: Floats,
-                    table: dict[str, Any], deadline: Floats) -> tuple[dict[str, Any], Ints]:
-    """Per scenario and shape, the fewest node units that meet the deadline, when the step does not
-    vary by scenario: the effective step g(k) on TABLE_RUNGS geometric counts from the memory
-    minimum to the node limit (one row for all scenarios); each scenario's allowance
-    (deadline − staging) / steps located in it and interpolated as α/k + β; then the counts just
-    below, at and above that evaluated exactly, each distinct (shape, count) once; where they do not
-    settle it, the bracket left is closed by `_closed`.
-
-    The answer depends on a scenario only through its allowance, so each distinct allowance is
-    solved once, in ascending order: a shape's guess then falls or stays from one allowance to
-    the next, and its distinct counts are the starts of runs (no sort of the whole grid)."""
-    steps, staging = scenario_terms(load, hardware)
-    allowance = np.asarray((deadline - staging) / steps).reshape(-1)  # the effective step each scenario affords
-    afforded, scenario_of = np.unique(allowance, return_inverse=True)  # ascending, NaN last
-    h = found.count
-    effective = table["effective_step_seconds"]
-    g = np.where(table["fits"] & ~np.isnan(effective), effective, np.inf).reshape(h, TABLE_RUNGS)
-    # The first rung meeting an allowance is the first whose running minimum does: per shape, the
-    # state j < TABLE_RUNGS is that rung, TABLE_RUNGS that none does.
-    prefix = np.minimum.accumulate(g, axis=1)
-    state = np.stack([np.searchsorted(-prefix[i], -afforded) for i in range(h)])  # (H, U); NaN sorts last
-    # Per (shape, state): the line through the rung below and the rung that meets; state 0 takes the
-    # memory minimum and TABLE_RUNGS the node limit, whatever the line.
-    below = np.maximum(np.arange(TABLE_RUNGS) - 1, 0)
-    alpha, beta = _line(rungs[:, below], g[:, below], rungs, g)
-    fixed = np.full((h, TABLE_RUNGS + 1), np.nan)
-    fixed[:, 0], fixed[:, -1] = rungs[:, 0], rungs[:, -1]
-    at = np.arange(h)[:, np.newaxis] * (TABLE_RUNGS + 1) + state
-    a_at, b_at, lo_at, hi_at = (np.concatenate([v, v[:, -1:]], axis=1).reshape(-1)[at]
-                                for v in (alpha, beta, rungs[:, below], rungs))
-    fixed_at = fixed.reshape(-1)[at]
-    guess = np.where(np.isnan(fixed_at), _reaching(a_at, b_at, lo_at, hi_at, afforded), fixed_at)  # (H, U)
-    # Runs of equal guesses along each shape's allowances: one (shape, count) per run.
-    starts = np.ones(guess.shape, dtype=bool)
-    starts[:, 1:] = guess[:, 1:] != guess[:, :-1]
-    run_of = (np.cumsum(starts) - 1).reshape(guess.shape)  # (H, U): runs counted shape by shape
-    run_shape = np.broadcast_to(np.arange(h)[:, np.newaxis], guess.shape)[starts]
-    run_count = guess[starts]
-    # The exact counts just below, at and above each run's count, within the shape's range, each
-    # distinct (shape, count) evaluated once.
-    near = np.clip(run_count + np.array([[-1.0], [0.0], [1.0]]), k_min[0][run_shape], k_top[0][run_shape])
-    near_keys = run_shape * TABLE_KEY + near  # (3, R)
-    around = np.unique(near_keys)
-    exact_shape = (around // TABLE_KEY).astype(np.int64)
-    exact = step_figures(load, hardware, _shape_columns(found, exact_shape, around - exact_shape * TABLE_KEY,
-                                                        hardware.accelerators_per_node), found)
-    g_exact = np.where(exact["fits"][0], exact["effective_step_seconds"][0], np.inf)
-    where = np.searchsorted(around, near_keys)
-    step_at = g_exact[where]
-    # Each allowance takes the first of the three that meets it, else the one above.
-    g_near = [step_at[i][run_of] for i in range(3)]
-    meets = [g_i <= afforded for g_i in g_near]
-    column = np.where(meets[0], where[0][run_of], np.where(meets[1], where[1][run_of], where[2][run_of]))
-    # Where the line missed by more than a count (the count below also meets, or none of the three
-    # does), the bracket between a rung and the nearest exact count is closed as `_fewest_meeting`
-    # closes its own, so that a scenario gets the same count alone as in a sweep.
-    interior = (state > 0) & (state < TABLE_RUNGS)
-    lower = interior & meets[0]  # the fewest lies between the rung below and the count below the guess
-    higher = interior & ~meets[0] & ~meets[1] & ~meets[2]  # between the count above and the rung that meets
-    searched = np.flatnonzero(lower | higher)
-    if searched.size:
-        known = _ExactCounts(load, hardware, found, around, exact)
-        shape_of, scenario = np.divmod(searched, afforded.size)
-        rung = shape_of * TABLE_RUNGS + state.reshape(-1)[searched]
-        n0, n2 = near[0][run_of].reshape(-1)[searched], near[2][run_of].reshape(-1)[searched]
-        from_rung = lower.reshape(-1)[searched]
-        bracket = (np.where(from_rung, rungs.reshape(-1)[rung - 1], n2),
-                   np.where(from_rung, g.reshape(-1)[rung - 1], g_near[2].reshape(-1)[searched]),
-                   np.where(from_rung, n0, rungs.reshape(-1)[rung]),
-                   np.where(from_rung, g_near[0].reshape(-1)[searched], g.reshape(-1)[rung]))
-        fewest = _closed(lambda k, _: known.steps(np.asarray(shape_of * TABLE_KEY + k, dtype=np.float64)),
-                         afforded[scenario], *bracket)
-        column.reshape(-1)[searched] = known.columns(shape_of * TABLE_KEY + fewest)
-        exact = known.figures
-    return exact, column.T[scenario_of]  # (S, H)
-
-
-def _gathered(load: Load, hardware: Hardware, table: dict[str, Any], column: Ints) -> GatheredGrid:
-    """The block of the candidates `table[name][0, column]`, with what every term reads of it (nodes,
-    accelerators, fits) and its wall clock gathered now."""
-    eager = {name: np.asarray(table[name])[0][column] for name in ("nodes", "accelerators", "fits")}
-    wall = wall_figures(load, hardware, np.asarray(table["effective_step_seconds"])[0][column], eager["accelerators"])
-    return GatheredGrid(table, column, **eager, **wall)
-
-
-class _ExactCounts:
-    """The exact figures of (shape, count) keys evaluated so far, one row of columns, added to as
-    the search asks for counts not yet evaluated."""
-
-    def __init__(self, load: Load, hardware: Hardware, found: Shapes, keys: Floats,
-                 figures: dict[str, Any]) -> None:
-        self.load, self.hardware, self.found = load, hardware, found
-        self.keys, self.figures = keys, figures
-
-    def columns(self, keys: Floats) -> Ints:
-        """The column of each key, evaluating the keys not yet known first."""
-        missing = np.setdiff1d(keys, self.keys)
-        if missing.size:
-            shape = (missing // TABLE_KEY).astype(np.int64)
-            new = step_figures(self.load, self.hardware, _shape_columns(
-                self.found, shape, missing - shape * TABLE_KEY, self.hardware.accelerators_per_node), self.found)
-            self.keys = np.concatenate([self.keys, missing])
-            self.figures = {name: np.concatenate([np.asarray(self.figures[name]), np.asarray(value)], axis=1)
-                            for name, value in new.items()}
-        order = np.argsort(self.keys)
-        return np.asarray(order[np.searchsorted(self.keys, keys, sorter=order)])
-
-    def steps(self, keys: Floats) -> Floats:
-        """The effective step of each key where its layout fits, inf where it does not."""
-        column = self.columns(keys)
-        return np.asarray(np.where(self.figures["fits"][0][column], self.figures["effective_step_seconds"][0][column],
-                                   np.inf))
-
-
-def _closed(measure: Callable[[Floats, Bools], Floats], target: Floats, k_lo: Floats, g_lo: Floats, k_hi: Floats,
-            g_hi: Floats) -> Floats:
-    """The fewest count whose measure (effective step or wall clock) meets the target, between k_lo,
-    whose g_lo misses it, and k_hi, whose g_hi meets it: false position on g(k) = α/k + β alternating
-    with halving until the two are neighbours (halving alone closes any bracket within SEARCH_STEPS).
-    `measure(k, open)` need only measure the entries still open."""
-    for step in range(SEARCH_STEPS):
-        open_bracket = (k_hi - k_lo > 1.0) & (g_lo > target) & (g_hi <= target)
-        if not open_bracket.any():
-            break
-        inside = (np.minimum(_interpolated(k_lo, g_lo, k_hi, g_hi, target), k_hi - 1.0) if step % 2 == 0
-                  else np.floor((k_lo + k_hi) / 2.0))
-        guess = np.where(open_bracket, inside, k_hi)
-        g = measure(guess, open_bracket)
-        meets, misses = open_bracket & (g <= target), open_bracket & ~(g <= target)
-        k_hi, g_hi = np.where(meets, guess, k_hi), np.where(meets, g, g_hi)
-        k_lo, g_lo = np.where(misses, guess, k_lo), np.where(misses, g, g_lo)
-    return k_hi
-
-
-def _fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Callable[[Floats, int], Columns],
-                    deadline: Floats, rungs: Floats) -> Floats:
-    """Per scenario and shape, the fewest node units that meet the deadline when the step varies by
-    scenario, found as the table path finds it: the first of the rungs (R, H, G) that meets it, then
-    between it and the rung below, false position on wall(k) = α/k + β alternating with halving
-    until the two counts are neighbours; the memory minimum where it already meets it, the top where
-    no rung does. A count whose layout does not fit misses. A scenario's rungs are evaluated only
-    until each of its shapes has met the deadline, and its brackets only while one is open."""
-    h = found.count
-    rows = _scenario_rows(load, hardware, deadline, rungs)
-    counts = np.broadcast_to(rungs, (rows, h, TABLE_RUNGS))
-    target = np.broadcast_to(deadline.reshape(-1, 1), (rows, h))
-
-    def wall_at(at: Ints, k: Floats) -> Floats:
-        """The wall clock of scenarios `at` at node units k ((len(at) or 1, H)); inf where it does not fit."""
-        grid = evaluate_columns(take_rows(load, at, rows), take_rows(hardware, at, rows), columns(k, DEADLINE), found)
-        return np.asarray(np.broadcast_to(_fitting_wall(grid), (at.size, h)))
-
-    first = np.full((rows, h), TABLE_RUNGS)
-    before, w_lo, w_hi = (np.full((rows, h), np.inf) for _ in range(3))
-    scanning = np.arange(rows)
-    for j in range(TABLE_RUNGS):
-        if not scanning.size:
-            break
-        # A rung that is the same for every scenario stays one row: the figures that do not
-        # depend on the scenario are then computed once.
-        wall = wall_at(scanning, rungs[:, :, j] if rungs.shape[0] == 1 else rungs[scanning, :, j])
-        fresh = (first[scanning] == TABLE_RUNGS) & (wall <= target[scanning])
-        r, s = scanning[np.nonzero(fresh)[0]], np.nonzero(fresh)[1]
-        first[r, s], w_hi[r, s], w_lo[r, s] = j, wall[fresh], before[r, s]
-        before[scanning] = wall
-        scanning = scanning[(first[scanning] == TABLE_RUNGS).any(axis=1)]
-    reached = first < TABLE_RUNGS
-    at = np.minimum(first, TABLE_RUNGS - 1)[..., np.newaxis]
-    k_lo = np.take_along_axis(counts, np.maximum(at - 1, 0), axis=-1)[..., 0]
-    k_hi = np.take_along_axis(counts, at, axis=-1)[..., 0]
-
-    def measure(k: Floats, open_bracket: Bools) -> Floats:
-        g = np.full(k.shape, np.inf)
-        open_rows = np.flatnonzero(open_bracket.any(axis=1))
-        g[open_rows] = wall_at(open_rows, k[open_rows])
-        return g
-
-    fewest = _closed(measure, target, k_lo, w_lo, k_hi, w_hi)
-    return np.asarray(np.where(reached, fewest, counts[..., -1]))
-
-
-@dataclass(frozen=True)
-class _StepGroups:
-    """Scenarios grouped by their step: `first[g]` is a scenario of group g, `step_of[s]` the group of
-    scenario s, over `rows` scenarios."""
-
-    rows: int
-    first: Ints
-    step_of: Ints
-
-    def members(self, group: int) -> Ints:
-        return np.flatnonzero(self.step_of == group)
-
-    def one(self, group: int) -> slice:
-        """The group's first scenario, as a slice that keeps the scenario axis."""
-        return slice(int(self.first[group]), int(self.first[group]) + 1)
-
-    def alone(self, load: Load, hardware: Hardware, group: int) -> tuple[Load, Hardware]:
-        """The load and hardware of the group's scenarios, with the step's inputs as one row."""
-        members, one = self.members(group), self.one(group)
-        of_load, of_hardware = _step_fields(load)
-        return (replace(take_rows(load, members, self.rows),
-                        **{name: take_rows(getattr(load, name), one, self.rows) for name in of_load}),
-                replace(take_rows(hardware, members, self.rows),
-                        **{name: take_rows(getattr(hardware, name), one, self.rows) for name in of_hardware}))
-
-
-def _step_groups(load: Load, hardware: Hardware, deadline: Floats, *bounds: Floats) -> _StepGroups | None:
-    """The scenarios grouped by the bits of their step's inputs and of the node-count `bounds`
-    ((R, H) arrays), when the groups are few enough for a table per group to pay (at least
-    SCENARIOS_PER_STEP scenarios each on average: a grid over model size, network or failure rates);
-    else None."""
-    rows = _scenario_rows(load, hardware, deadline, *bounds)
-    inputs = [np.asarray(value, dtype=np.float64) for value in (*_step_inputs(load, hardware), *bounds)]
-    columns = [value.reshape(value.shape[0] if value.ndim else 1, -1) for value in inputs]
-    key = np.ascontiguousarray(np.concatenate([np.broadcast_to(c, (rows, c.shape[1])) for c in columns], axis=1))
-    _, first, step_of = np.unique(key.view(np.dtype((np.void, key.itemsize * key.shape[1]))).reshape(-1),
-                                  return_index=True, return_inverse=True)
-    if first.size * SCENARIOS_PER_STEP > rows:
-        return None
-    return _StepGroups(rows, first, step_of.reshape(-1))
-
-
-def _blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: _StepGroups, base: Columns,
-                    k_min: Floats, k_top: Floats, deadline: Floats | None) -> tuple[GatheredGrid, ...]:
-    """The candidate blocks when the step varies by scenario but takes few distinct values: each
-    group of scenarios sharing a step is solved as a scenario alone is (`_on_one_table`, or only the
-    base candidates without a deadline), and every scenario gathers its group's figures from the
-    groups' rows laid side by side."""
-    width = base.nodes.shape[1]
-    firsts: list[dict[str, Any]] = []
-    exacts: list[dict[str, Any]] = []
-    column = np.empty((groups.rows, found.count), dtype=np.int64)
-    offset = 0
-    for group in range(groups.first.size):
-        step_load, step_hardware = groups.alone(load, hardware, group)
-        one, rows = groups.one(group), groups.rows
-        step_base = take_rows(base, one, rows)
-        if deadline is None:
-            firsts.append(step_figures(step_load, step_hardware, step_base, found))
-            continue
-        members = groups.members(group)
-        first, exact, at = _on_one_table(step_load, step_hardware, found, step_base, take_rows(k_min, one, rows),
-                                         take_rows(k_top, one, rows), take_rows(deadline, members, rows))
-        firsts.append(first)
-        exacts.append(exact)
-        column[members] = at + offset
-        offset += np.shape(exact["nodes"])[1]
-    first_column = groups.step_of[:, np.newaxis] * width + np.arange(width)[np.newaxis, :]
-    blocks = [_gathered(load, hardware, _side_by_side_figures(firsts), first_column)]
-    if deadline is not None:
-        blocks.append(_gathered(load, hardware, _side_by_side_figures(exacts), column))
-    return tuple(blocks)
-
-
-def _side_by_side_figures(parts: list[dict[str, Any]]) -> dict[str, Any]:
-    """One-row figures of several sets of candidates as one row."""
-    return {name: np.concatenate([np.asarray(part[name]) for part in parts], axis=1) for name in parts[0]}
-
-
-def _scenario_rows(load: Load, hardware: Hardware, *arrays: Floats) -> int:
-    """How many scenarios the step's inputs and `arrays` run over: their longest leading axis."""
-    values = [getattr(source, f.name) for source in (load, hardware) for f in fields(source)]
-    return max([1, *(int(v.shape[0]) for v in (*values, *arrays) if isinstance(v, np.ndarray) and v.ndim >= 1)])
-
-
-def _fitting_wall(grid: LayoutGrid) -> Floats:
-    """The wall clock where the layout fits, inf where it does not."""
-    return np.asarray(np.where(grid.fits, grid.wall_seconds, np.inf))
 
 
 def _minimum_units(load: Load, hardware: Hardware, found: Shapes, unit: Floats) -> Floats:

@@ -40,6 +40,9 @@ from service.domain.scaling import (
 )
 from service.domain.units import SECONDS_PER_HOUR, gbps_to_bytes_per_second
 
+# Why a candidate is in the set (`LayoutGrid.origin`): what decided the layout when it is chosen.
+MEMORY, NODE_LIMIT, DEADLINE, PINNED = 0, 1, 2, 3
+
 
 @dataclass(frozen=True)
 class Architecture:

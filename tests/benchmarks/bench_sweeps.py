@@ -56,7 +56,7 @@ sys.path.insert(0, str(ROOT))
 from service.contract.catalog import CatalogIn  # noqa: E402
 from service.contract.request import QuoteRequestIn  # noqa: E402
 from service.contract.sweep import SweepIn  # noqa: E402
-from service.domain import layout  # noqa: E402
+from service.domain import deadline  # noqa: E402
 from service.domain.evaluate import evaluate_campaign  # noqa: E402
 from service.domain.sweep import chunk_size, evaluate_chunk, scenario_chunks  # noqa: E402
 from service.domain.whatif import apply  # noqa: E402
@@ -233,14 +233,14 @@ STEP_GRIDS: dict[str, dict[str, list[float]]] = {
 
 def step_grid_benchmark() -> None:
     """Grid sweeps over inputs of the step itself: each distinct step's scenarios solved on one table
-    (`layout._blocks_by_step`) against every scenario on its own rungs (the same grid with
-    `layout.SCENARIOS_PER_STEP` set beyond the chunk, so the per-scenario search runs), in the
+    (`deadline.blocks_by_step`) against every scenario on its own rungs (the same grid with
+    `deadline.SCENARIOS_PER_STEP` set beyond the chunk, so the per-scenario search runs), in the
     service's chunks; and a grid whose step does not vary, the one-table path, beside them."""
     print("== 1c. Grids over inputs of the step: a table per distinct step against the per-scenario search",
           flush=True)
     catalog_in = CatalogIn.model_validate(ten_venue_catalog())
     base = load(DEMO_SWEEP)["base"]
-    grouping = layout.SCENARIOS_PER_STEP
+    grouping = deadline.SCENARIOS_PER_STEP
     for label, grid in STEP_GRIDS.items():
         prepared = prepare_sweep(catalog_in, SweepIn.model_validate({"base": base, "grid": grid}), SweepLimits())
         chunks = [inputs for _, inputs in scenario_chunks(prepared.plan, chunk_size(prepared.catalog))]
@@ -252,11 +252,11 @@ def step_grid_benchmark() -> None:
         rates = {}
         totals = {}
         for name, per_step in (("a table per step", grouping), ("per scenario", scenarios + 1)):
-            layout.SCENARIOS_PER_STEP = per_step
+            deadline.SCENARIOS_PER_STEP = per_step
             totals[name] = np.concatenate(in_service_chunks(), axis=1)  # warm-up, and the answers compared
             cpu, _ = timed(in_service_chunks, 1)
             rates[name] = scenarios / cpu
-        layout.SCENARIOS_PER_STEP = grouping
+        deadline.SCENARIOS_PER_STEP = grouping
         same = np.array_equal(*totals.values(), equal_nan=True)
         print(f"  {label}: {scenarios:,} scenarios: a table per step {rates['a table per step']:,.0f} scenarios/s"
               f" per core, per scenario {rates['per scenario']:,.0f}: "

@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 
 from service.contract.catalog import CatalogIn
-from service.domain import layout
+from service.domain import deadline
 from service.domain.campaign import (
     Campaign,
     DataPlan,
@@ -174,12 +174,12 @@ def test_where_the_step_varies_by_scenario_many_in_one_call_equal_each_alone(see
 def test_scenarios_sharing_a_step_are_solved_on_its_table_as_each_alone(
         seed: int, monkeypatch: pytest.MonkeyPatch) -> None:
     """A grid over the model's size and the network: few distinct steps, each group of scenarios
-    solved on one table (layout._blocks_by_step; made to apply to these 24 scenarios), and each
+    solved on one table (deadline.blocks_by_step; made to apply to these 24 scenarios), and each
     scenario's answer what it gets alone, as on the per-scenario search."""
-    monkeypatch.setattr(layout, "SCENARIOS_PER_STEP", 2)
+    monkeypatch.setattr(deadline, "SCENARIOS_PER_STEP", 2)
     grouped = evaluate_both(seed, vary_step=True, distinct_steps=3)
     assert evaluate_both(seed, vary_step=True, distinct_steps=3, with_deadline=False) > 0  # base candidates only
-    monkeypatch.setattr(layout, "SCENARIOS_PER_STEP", SCENARIOS + 1)
+    monkeypatch.setattr(deadline, "SCENARIOS_PER_STEP", SCENARIOS + 1)
     assert evaluate_both(seed, vary_step=True, distinct_steps=3) == grouped > 0
 
 
@@ -194,7 +194,7 @@ def test_work_as_flops_or_samples_many_in_one_call_equal_each_alone(
     before). With the parameter count, tokens follow from it and one table serves every scenario."""
     assert evaluate_both(seed, vary_step=False, kind=kind, with_parameters=with_parameters) > 0
     assert evaluate_both(seed, vary_step=True, kind=kind, with_parameters=with_parameters) > 0
-    monkeypatch.setattr(layout, "SCENARIOS_PER_STEP", 2)
+    monkeypatch.setattr(deadline, "SCENARIOS_PER_STEP", 2)
     assert evaluate_both(seed, vary_step=True, kind=kind, distinct_steps=3, with_parameters=with_parameters) > 0
 
 
