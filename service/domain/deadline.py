@@ -328,8 +328,9 @@ def step_groups(load: Load, hardware: Hardware, deadline: Floats, *bounds: Float
     else None."""
     rows = _scenario_rows(load, hardware, deadline, *bounds)
     inputs = [np.asarray(value, dtype=np.float64) for value in (*_step_inputs(load, hardware), *bounds)]
-    columns = [value.reshape(value.shape[0] if value.ndim else 1, -1) for value in inputs]
-    key = np.ascontiguousarray(np.concatenate([np.broadcast_to(c, (rows, c.shape[1])) for c in columns], axis=1))
+    # Only what varies by scenario tells scenarios apart.
+    varying = [value.reshape(rows, -1) for value in inputs if value.ndim and value.shape[0] == rows > 1]
+    key = np.ascontiguousarray(np.concatenate(varying, axis=1))
     _, first, step_of = np.unique(key.view(np.dtype((np.void, key.itemsize * key.shape[1]))).reshape(-1),
                                   return_index=True, return_inverse=True)
     if first.size * SCENARIOS_PER_STEP > rows:

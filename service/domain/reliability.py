@@ -68,11 +68,11 @@ def expected_wall_fraction(
     mtbi = as_floats(mtbi_seconds)
     finite = np.isfinite(mtbi)
     safe_mtbi = np.where(finite, mtbi, 1.0)
-    interval = as_floats(interval_seconds)
+    tau = np.where(finite, as_floats(interval_seconds), 1.0)
     delta = as_floats(checkpoint_seconds)
-    free = finite & (interval == 0.0) & (delta == 0.0)
-    tau = np.where(finite & ~free, interval, 1.0)
-    with np.errstate(over="ignore"):
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
         restarts = np.exp(as_floats(restart_seconds) / safe_mtbi)
         fraction = safe_mtbi * restarts * np.expm1((tau + delta) / safe_mtbi) / tau
-    return np.where(finite, np.where(free, restarts, fraction), 1.0)
+    if not np.all(tau):  # rare: only where there is nothing to save
+        fraction = np.where((tau == 0.0) & (delta == 0.0), restarts, fraction)
+    return np.where(finite, fraction, 1.0)
