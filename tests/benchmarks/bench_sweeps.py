@@ -22,9 +22,10 @@ thread before numpy loads, and CPU time of this process is what the rates divide
 1b. Venue size: section 1's chunk and one quote with every offer at 64 nodes and at 100,000 (target:
    within 1.2x; the layout search must not grow with a venue's node limit).
 
-1c. Grids over inputs of the step itself (model size; MTBF and network), where each distinct step's
-   scenarios are solved on one table, against the per-scenario search on the same chunks, and a grid
-   whose step does not vary beside them (figures and ratios; no target).
+1c. Sweeps over inputs of the step itself (grids over model size, MTBF and network; PUE at random,
+   which moves a power-limited node count in whole nodes), where each distinct step's scenarios are
+   solved on one table, against the per-scenario search on the same chunks, and a grid whose step does
+   not vary beside them (figures and ratios; no target).
 
 It prints PASS or MISS per target and exits 0 whatever the figures. `--core` runs sections 1, 1b and 1c
 only. `--quick` shrinks the end-to-end
@@ -215,34 +216,38 @@ def venue_size_benchmark() -> None:
     verdict("a 100,000-node offer quotes within 1.2x of a 64-node one", quote_ratio <= 1.2, f"{quote_ratio:.2f}x")
 
 
-# Grids whose scenarios take few distinct steps (the model's size; the network and failure rates), and
+# Sweeps whose scenarios take few distinct steps (grids over the model's size, the network and failure
+# rates; PUE drawn at random, which moves a new build's power-limited node count in whole nodes), and
 # one whose step does not vary, on the 10-venue catalog and the demo sweep's base campaign.
-STEP_GRIDS: dict[str, dict[str, list[float]]] = {
-    "model size (4) x tokens (50) x deadline (50)": {
+STEP_SWEEPS: dict[str, dict[str, Any]] = {
+    "grid: model size (4) x tokens (50) x deadline (50)": {"grid": {
         "campaign.work.parameters": [7e9, 13e9, 30e9, 70e9],
         "campaign.work.tokens": [float(v) for v in np.linspace(1e11, 1e12, 50)],
-        "campaign.deadline_days": [float(v) for v in np.linspace(10.0, 120.0, 50)]},
-    "MTBF (3) x network (4) x electricity (800)": {
+        "campaign.deadline_days": [float(v) for v in np.linspace(10.0, 120.0, 50)]}},
+    "grid: MTBF (3) x network (4) x electricity (800)": {"grid": {
         "overrides.mtbf_hours": [5000.0, 20000.0, 80000.0], "overrides.network_gbps": [100.0, 200.0, 400.0, 800.0],
-        "overrides.electricity_price_per_kwh": [float(v) for v in np.linspace(0.05, 0.3, 800)]},
-    "step unvaried: tokens (100) x deadline (100)": {
+        "overrides.electricity_price_per_kwh": [float(v) for v in np.linspace(0.05, 0.3, 800)]}},
+    "Monte Carlo: PUE 1.1-3.5 x electricity, 10,000 draws": {"samples": 10_000, "seed": 3, "distributions": {
+        "overrides.pue": {"kind": "uniform", "low": 1.1, "high": 3.5},
+        "overrides.electricity_price_per_kwh": {"kind": "uniform", "low": 0.05, "high": 0.3}}},
+    "grid, step unvaried: tokens (100) x deadline (100)": {"grid": {
         "campaign.work.tokens": [float(v) for v in np.linspace(1e11, 1e12, 100)],
-        "campaign.deadline_days": [float(v) for v in np.linspace(10.0, 120.0, 100)]},
+        "campaign.deadline_days": [float(v) for v in np.linspace(10.0, 120.0, 100)]}},
 }
 
 
 def step_grid_benchmark() -> None:
-    """Grid sweeps over inputs of the step itself: each distinct step's scenarios solved on one table
+    """Sweeps over inputs of the step itself: each distinct step's scenarios solved on one table
     (`deadline.blocks_by_step`) against every scenario on its own rungs (the same grid with
     `deadline.SCENARIOS_PER_STEP` set beyond the chunk, so the per-scenario search runs), in the
     service's chunks; and a grid whose step does not vary, the one-table path, beside them."""
-    print("== 1c. Grids over inputs of the step: a table per distinct step against the per-scenario search",
+    print("== 1c. Sweeps over inputs of the step: a table per distinct step against the per-scenario search",
           flush=True)
     catalog_in = CatalogIn.model_validate(ten_venue_catalog())
     base = load(DEMO_SWEEP)["base"]
     grouping = deadline.SCENARIOS_PER_STEP
-    for label, grid in STEP_GRIDS.items():
-        prepared = prepare_sweep(catalog_in, SweepIn.model_validate({"base": base, "grid": grid}), SweepLimits())
+    for label, varied in STEP_SWEEPS.items():
+        prepared = prepare_sweep(catalog_in, SweepIn.model_validate({"base": base, **varied}), SweepLimits())
         chunks = [inputs for _, inputs in scenario_chunks(prepared.plan, chunk_size(prepared.catalog))]
         scenarios = prepared.plan.scenarios
 
