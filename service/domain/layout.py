@@ -9,7 +9,7 @@ else one per scenario): a handful per shape whatever the venue's size. `step.py`
 """
 
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, fields, replace
 from typing import Any
 
 import numpy as np
@@ -172,7 +172,13 @@ def _minimum_units(load: Load, hardware: Hardware, found: Shapes, unit: Floats) 
     """Per scenario and shape, the fewest node units whose replicas hold the model at the most
     sharded ZeRO stage allowed (stages 2 and 3 only without pipelining, as gradient accumulation
     across micro-batches needs whole gradients); inf when no count does. Activations are taken
-    at p micro-batches in flight, an upper bound."""
+    at p micro-batches in flight, an upper bound. Only the model's size varies by scenario here, so
+    each distinct size is solved once (a sweep over a few sizes)."""
+    parameters = load.parameters
+    if parameters is not None and np.ndim(parameters) and np.size(parameters) > 1:
+        sizes, size_of = np.unique(np.asarray(parameters, dtype=np.float64).reshape(-1), return_inverse=True)
+        if sizes.size < np.size(parameters):
+            return _minimum_units(replace(load, parameters=sizes), hardware, found, unit)[size_of.reshape(-1)]
     tensor, pipeline = found.tensor[np.newaxis, :], found.pipeline[np.newaxis, :]
     psi = rank_parameters(load, tensor, pipeline)
     activation = activations(load, hardware, tensor, pipeline, in_flight=pipeline)
