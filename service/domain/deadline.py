@@ -249,7 +249,7 @@ def _closed(measure: Callable[[Floats, Bools], Floats], target: Floats, k_lo: Fl
 
 
 def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Callable[[Floats, int], Columns],
-                    deadline: Floats, rungs: Floats) -> Floats:
+                   deadline: Floats, rungs: Floats) -> Floats:
     """Per scenario and shape, the fewest node units that meet the deadline when the step varies by
     scenario, found as the table path finds it: the first of the rungs (R, H, G) that meets it, then
     between it and the rung below, false position on wall(k) = α/k + β alternating with halving
@@ -339,7 +339,7 @@ def step_groups(load: Load, hardware: Hardware, deadline: Floats, *bounds: Float
 
 
 def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGroups, base: Columns,
-                    k_min: Floats, k_top: Floats, deadline: Floats | None) -> tuple[GatheredGrid, ...]:
+                   k_min: Floats, k_top: Floats, deadline: Floats | None) -> tuple[GatheredGrid, ...]:
     """The candidate blocks when the step varies by scenario but takes few distinct values: each
     group of scenarios sharing a step is solved as a scenario alone is (`on_one_table`, or only the
     base candidates without a deadline), and every scenario gathers its group's figures from the
@@ -358,7 +358,7 @@ def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGr
             continue
         members = groups.members(group)
         first, exact, at = on_one_table(step_load, step_hardware, found, step_base, take_rows(k_min, one, rows),
-                                         take_rows(k_top, one, rows), take_rows(deadline, members, rows))
+                                        take_rows(k_top, one, rows), take_rows(deadline, members, rows))
         firsts.append(first)
         exacts.append(exact)
         column[members] = at + offset

@@ -152,7 +152,7 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
     groups = step_groups(load, hardware, deadline, k_min, *tops)
     if groups is not None:
         return Candidates(blocks_by_step(load, hardware, found, groups, base, k_min, k_top,
-                                          deadline if has_deadline else None)), fewest
+                                         deadline if has_deadline else None)), fewest
     first = evaluate_columns(load, hardware, base, found)
     if not has_deadline:
         return Candidates((first,)), fewest
