@@ -20,9 +20,7 @@ from service.domain.step import (
     Columns,
     GatheredGrid,
     Hardware,
-    LayoutGrid,
     Load,
-    evaluate_columns,
     scenario_terms,
     step_figures,
     wall_figures,
@@ -263,8 +261,10 @@ def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Calla
 
     def wall_at(at: Ints, k: Floats) -> Floats:
         """The wall clock of scenarios `at` at node units k ((len(at) or 1, H)); inf where it does not fit."""
-        grid = evaluate_columns(take_rows(load, at, rows), take_rows(hardware, at, rows), columns(k, DEADLINE), found)
-        return np.asarray(np.broadcast_to(_fitting_wall(grid), (at.size, h)))
+        at_load, at_hardware = take_rows(load, at, rows), take_rows(hardware, at, rows)
+        step = step_figures(at_load, at_hardware, columns(k, DEADLINE), found, clock_only=True)
+        wall = wall_figures(at_load, at_hardware, step["effective_step_seconds"], step["accelerators"])["wall_seconds"]
+        return np.asarray(np.broadcast_to(np.where(step["fits"], wall, np.inf), (at.size, h)))
 
     first = np.full((rows, h), TABLE_RUNGS)
     before, w_lo, w_hi = (np.full((rows, h), np.inf) for _ in range(3))
@@ -379,8 +379,3 @@ def _scenario_rows(load: Load, hardware: Hardware, *arrays: Floats) -> int:
     """How many scenarios the step's inputs and `arrays` run over: their longest leading axis."""
     values = [getattr(source, f.name) for source in (load, hardware) for f in fields(source)]
     return max([1, *(int(v.shape[0]) for v in (*values, *arrays) if isinstance(v, np.ndarray) and v.ndim >= 1)])
-
-
-def _fitting_wall(grid: LayoutGrid) -> Floats:
-    """The wall clock where the layout fits, inf where it does not."""
-    return np.asarray(np.where(grid.fits, grid.wall_seconds, np.inf))

@@ -227,9 +227,12 @@ def evaluate_columns(load: Load, hardware: Hardware, c: Columns, found: Shapes) 
     return with_wall(load, hardware, step_figures(load, hardware, c, found))
 
 
-def step_figures(load: Load, hardware: Hardware, c: Columns, found: Shapes) -> dict[str, Any]:
+def step_figures(load: Load, hardware: Hardware, c: Columns, found: Shapes, *,
+                 clock_only: bool = False) -> dict[str, Any]:
     """Every figure of each column but the wall clock: what one step and its failures cost, which
-    varies by scenario only where the model's physics does (not with tokens, runs or staging)."""
+    varies by scenario only where the model's physics does (not with tokens, runs or staging). With
+    `clock_only`, only what the wall clock needs (fits, accelerators, effective step), for a search
+    that throws the rest away."""
     per_node = hardware.accelerators_per_node
     t, p, nodes, accelerators = c.tensor, c.pipeline, c.nodes, c.accelerators
     data = accelerators / (t * p)
@@ -249,7 +252,6 @@ def step_figures(load: Load, hardware: Hardware, c: Columns, found: Shapes) -> d
         holds = (zero_model_state_bytes(parameters=psi, data_parallel=data, stage=z) <= room) & ((p == 1.0) | (z <= 1))
         stage = np.where(~chosen & holds, z, stage)
         chosen |= holds
-    state = zero_model_state_bytes(parameters=psi, data_parallel=data, stage=stage)
     fits = chosen & (micro_batches >= 1.0 - 1e-9) & (data >= 1.0 - 1e-9)
 
     # Compute, bubble and each collective (model.md §3).
@@ -286,11 +288,6 @@ def step_figures(load: Load, hardware: Hardware, c: Columns, found: Shapes) -> d
     hidden = overlap * np.where(stage == 3, compute, (2.0 / 3.0) * compute / micro_batches)
     data_exposed = exposed(data_seconds, hidden)
     step = compute + bubble + tensor_seconds + pipeline_seconds + data_exposed
-    without_link = compute + bubble + tensor_seconds + pipeline_fixed + exposed(data_fixed, hidden)
-    needed = network_gbps_for_efficiency(
-        target_efficiency=default("target_scaling_efficiency"), step_without_link_seconds=without_link,
-        exposed_only_bytes=pp.inter_bytes, overlapped_bytes=dp.inter_bytes, overlapped_other_seconds=data_fixed,
-        hidden_behind_seconds=hidden, path_efficiency=hardware.path_efficiency)
 
     # Failures and checkpoints (model.md §4), then the wall clock (§5).
     mtbi = job_mtbi_seconds(nodes=nodes, node_mtbf_hours=as_floats(hardware.node_mtbf_hours).reshape(-1, 1),
@@ -303,6 +300,14 @@ def step_figures(load: Load, hardware: Hardware, c: Columns, found: Shapes) -> d
     interval = daly_interval(checkpoint_seconds=delta, mtbi_seconds=mtbi)
     wall_fraction = expected_wall_fraction(interval_seconds=interval, checkpoint_seconds=delta,
                                            restart_seconds=load.restart_seconds, mtbi_seconds=mtbi)
+    if clock_only:
+        return {"fits": fits, "accelerators": accelerators, "effective_step_seconds": step * wall_fraction}
+    state = zero_model_state_bytes(parameters=psi, data_parallel=data, stage=stage)
+    without_link = compute + bubble + tensor_seconds + pipeline_fixed + exposed(data_fixed, hidden)
+    needed = network_gbps_for_efficiency(
+        target_efficiency=default("target_scaling_efficiency"), step_without_link_seconds=without_link,
+        exposed_only_bytes=pp.inter_bytes, overlapped_bytes=dp.inter_bytes, overlapped_other_seconds=data_fixed,
+        hidden_behind_seconds=hidden, path_efficiency=hardware.path_efficiency)
     values: dict[str, Any] = dict(
         nodes=nodes, accelerators=accelerators, tensor=t, pipeline=p, data=data, zero_stage=stage,
         micro_batch=np.asarray(float(b)), micro_batches=micro_batches,
