@@ -297,23 +297,21 @@ def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Calla
 
 @dataclass(frozen=True)
 class StepGroups:
-    """Scenarios grouped by their step: `first[g]` is a scenario of group g, `step_of[s]` the group of
-    scenario s, over `rows` scenarios."""
+    """Scenarios grouped by their step: `members[g]` are the scenarios of group g in ascending order,
+    `step_of[s]` the group of scenario s, over `rows` scenarios."""
 
     rows: int
-    first: Ints
     step_of: Ints
-
-    def members(self, group: int) -> Ints:
-        return np.flatnonzero(self.step_of == group)
+    members: tuple[Ints, ...]
 
     def one(self, group: int) -> slice:
         """The group's first scenario, as a slice that keeps the scenario axis."""
-        return slice(int(self.first[group]), int(self.first[group]) + 1)
+        first = int(self.members[group][0])
+        return slice(first, first + 1)
 
     def alone(self, load: Load, hardware: Hardware, group: int) -> tuple[Load, Hardware]:
         """The load and hardware of the group's scenarios, with the step's inputs as one row."""
-        members, one = self.members(group), self.one(group)
+        members, one = self.members[group], self.one(group)
         of_load, of_hardware = _step_fields(load)
         return (replace(take_rows(load, members, self.rows),
                         **{name: take_rows(getattr(load, name), one, self.rows) for name in of_load}),
@@ -331,11 +329,13 @@ def step_groups(load: Load, hardware: Hardware, deadline: Floats, *bounds: Float
     # Only what varies by scenario tells scenarios apart.
     varying = [value.reshape(rows, -1) for value in inputs if value.ndim and value.shape[0] == rows > 1]
     key = np.ascontiguousarray(np.concatenate(varying, axis=1))
-    _, first, step_of = np.unique(key.view(np.dtype((np.void, key.itemsize * key.shape[1]))).reshape(-1),
-                                  return_index=True, return_inverse=True)
-    if first.size * SCENARIOS_PER_STEP > rows:
+    _, step_of, sizes = np.unique(key.view(np.dtype((np.void, key.itemsize * key.shape[1]))).reshape(-1),
+                                  return_inverse=True, return_counts=True)
+    if sizes.size * SCENARIOS_PER_STEP > rows:
         return None
-    return StepGroups(rows, first, step_of.reshape(-1))
+    step_of = step_of.reshape(-1)
+    members = np.split(np.argsort(step_of, kind="stable"), np.cumsum(sizes)[:-1])
+    return StepGroups(rows, step_of, tuple(members))
 
 
 def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGroups, base: Columns,
@@ -349,14 +349,13 @@ def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGr
     exacts: list[dict[str, Any]] = []
     column = np.empty((groups.rows, found.count), dtype=np.int64)
     offset = 0
-    for group in range(groups.first.size):
+    for group, members in enumerate(groups.members):
         step_load, step_hardware = groups.alone(load, hardware, group)
         one, rows = groups.one(group), groups.rows
         step_base = take_rows(base, one, rows)
         if deadline is None:
             firsts.append(step_figures(step_load, step_hardware, step_base, found))
             continue
-        members = groups.members(group)
         first, exact, at = on_one_table(step_load, step_hardware, found, step_base, take_rows(k_min, one, rows),
                                         take_rows(k_top, one, rows), take_rows(deadline, members, rows))
         firsts.append(first)
