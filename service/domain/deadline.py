@@ -34,6 +34,8 @@ SCENARIOS_PER_STEP = 64  # where the step varies, scenarios per distinct step fr
 # network varies, at about 24 when the model size does)
 TABLE_KEY = 2.0**40  # (shape, count) keys: shape × TABLE_KEY + count, counts below it
 MAX_UNITS = TABLE_KEY - 2.0  # node units a candidate may have: beyond any venue (limits.MAX_NODES)
+COUNTED_CELLS = 4096  # (rung, allowance) pairs up to which the first rung meeting each allowance is counted
+# in one comparison (a single quote) rather than bisected shape by shape
 
 
 def _line(k_lo: Floats, g_lo: Floats, k_hi: Floats, g_hi: Floats) -> tuple[Floats, Floats]:
@@ -132,7 +134,7 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     # The first rung meeting an allowance is the first whose running minimum does: per shape, the
     # state j < TABLE_RUNGS is that rung, TABLE_RUNGS that none does.
     prefix = np.minimum.accumulate(g, axis=1)
-    state = np.stack([np.searchsorted(-prefix[i], -afforded) for i in range(h)])  # (H, U); NaN sorts last
+    state = _first_meeting(prefix, afforded)
     # Per (shape, state): the line through the rung below and the rung that meets; state 0 takes the
     # memory minimum and TABLE_RUNGS the node limit, whatever the line.
     below = np.maximum(np.arange(TABLE_RUNGS) - 1, 0)
@@ -187,6 +189,16 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
         column.reshape(-1)[searched] = known.columns(shape_of * TABLE_KEY + fewest)
         exact = known.figures
     return exact, column.T[scenario_of]  # (S, H)
+
+
+def _first_meeting(prefix: Floats, afforded: Floats) -> Ints:
+    """Per row of running minima (H, G) and allowance (U,), the first rung whose minimum meets it
+    (at most the allowance), G where none does or the allowance is NaN: (H, U). Few allowances (a
+    single quote) are counted in one comparison; many are located row by row by bisection."""
+    if prefix.size * afforded.size <= COUNTED_CELLS:
+        above = (prefix[:, :, np.newaxis] > afforded).sum(axis=1)
+        return np.asarray(np.where(np.isnan(afforded), prefix.shape[1], above))
+    return np.stack([np.searchsorted(-row, -afforded) for row in prefix])  # NaN sorts last
 
 
 def gathered(load: Load, hardware: Hardware, table: dict[str, Any], column: Ints) -> GatheredGrid:

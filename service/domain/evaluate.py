@@ -26,7 +26,16 @@ from service.domain.charges import (
 )
 from service.domain.choice import Choice, Eligible, as_column, choose, eligible
 from service.domain.gravity import Transfer, staging_seconds, transfer
-from service.domain.layout import Architecture, Candidates, Hardware, LayoutGrid, Load, evaluate_layouts
+from service.domain.layout import (
+    Architecture,
+    Candidates,
+    Hardware,
+    LayoutGrid,
+    Load,
+    NodeFit,
+    evaluate_layouts,
+    node_fit,
+)
 from service.domain.owning import (
     NodeMonth,
     SiteEconomics,
@@ -123,6 +132,7 @@ class _Context:
     load: Load  # what the campaign asks of any venue: the same for every venue
     allowed: frozenset[str] | None
     home: Site | Offer | None
+    fits: dict[tuple[int, float], NodeFit] = field(default_factory=dict)  # by node size, shared by its venues
 
 
 def evaluate_campaign(
@@ -274,9 +284,19 @@ def _physics(venue: _Venue, context: _Context, *, limits: list[Floats],
         staging_seconds=staging_seconds(dataset_tb=campaign.data.dataset_tb, link=venue.transfer),
     )
     grid, min_nodes = evaluate_layouts(load, hardware, node_limits=limits,
-                                       fixed_accelerators=options.fixed_accelerators)
+                                       fixed_accelerators=options.fixed_accelerators,
+                                       fit=_node_fit(context, hardware))
     pinned = None if options.fixed_accelerators is None else float(grid.blocks[0].nodes[0, 0])
     return _Physics(load, hardware, grid, min_nodes, pinned)
+
+
+def _node_fit(context: _Context, hardware: Hardware) -> NodeFit:
+    """What the node's size makes of the campaign's model, made once per size (accelerators per node,
+    memory per accelerator) and shared by the venues of that size and their terms."""
+    size = (hardware.accelerators_per_node, float(hardware.memory_bytes))
+    if size not in context.fits:
+        context.fits[size] = node_fit(context.load, hardware)
+    return context.fits[size]
 
 
 def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, physics: _Physics) -> OptionResult:

@@ -106,14 +106,34 @@ def _field(name: str) -> Callable[[LayoutGrid], ArrayLike]:
     return figure
 
 
-def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[ArrayLike],
-                     fixed_accelerators: int | None = None) -> tuple[Candidates, Floats]:
-    """Every candidate layout of the venue, and the fewest nodes any layout needs to hold the
-    model (inf when none can): the memory minimum the screens report."""
+@dataclass(frozen=True)
+class NodeFit:
+    """What a node's size makes of the campaign's model, whatever the venue: the shapes (t, p), each
+    shape's node unit (1, H), the fewest units that hold the model (R, H) and the most whose replicas
+    each still get a micro-batch. It depends on the load, the accelerators per node and their memory
+    only, so the venues of one node type share it (`node_fit`)."""
+
+    found: Shapes
+    unit: Floats
+    k_min: Floats
+    k_batch: Floats
+
+
+def node_fit(load: Load, hardware: Hardware) -> NodeFit:
     per_node = hardware.accelerators_per_node
     found = _shapes(load, per_node, fixed_accelerators=None)
     unit = found.node_unit(per_node)[np.newaxis, :]
-    k_min = _minimum_units(load, hardware, found, unit)
+    return NodeFit(found, unit, _minimum_units(load, hardware, found, unit), _batch_units(load, hardware, found, unit))
+
+
+def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[ArrayLike],
+                     fixed_accelerators: int | None = None, fit: NodeFit | None = None) -> tuple[Candidates, Floats]:
+    """Every candidate layout of the venue, and the fewest nodes any layout needs to hold the
+    model (inf when none can): the memory minimum the screens report. `fit` is `node_fit(load,
+    hardware)` when the caller has it already."""
+    per_node = hardware.accelerators_per_node
+    fit = fit or node_fit(load, hardware)
+    found, unit, k_min, k_batch = fit.found, fit.unit, fit.k_min, fit.k_batch
     fewest = np.asarray(np.min(k_min * unit, axis=1))
     if fixed_accelerators is not None:
         found = _shapes(load, per_node, fixed_accelerators=fixed_accelerators)
@@ -127,7 +147,6 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
     # Evaluated all the same where nothing fits; counts beyond any venue are cut to one that still
     # does not fit, so that every count stays a small exact integer.
     k_min = np.minimum(np.where(np.isfinite(k_min), k_min, 1.0), MAX_UNITS)
-    k_batch = _batch_units(load, hardware, found, unit)
     tops = [np.maximum(np.minimum(np.floor(as_floats(limit).reshape(-1, 1) / unit + 1e-9), k_batch), 1.0)
             for limit in node_limits]
     k_top = np.minimum(np.maximum(np.maximum.reduce(np.broadcast_arrays(*tops)), k_min), MAX_UNITS)

@@ -8,6 +8,7 @@ with the node count. Demo figures (random campaigns and hardware); no published 
 import numpy as np
 import pytest
 
+from service.domain import deadline
 from service.domain.layout import DEADLINE, Architecture, evaluate_layouts
 from service.domain.parallelism import shapes
 from service.domain.step import Columns, evaluate_columns
@@ -52,3 +53,24 @@ def test_the_deadline_candidate_is_the_first_count_that_meets_the_deadline(seed:
             assert searched[s, shape] == nodes[0, np.argmax(meets[s])], (shape, s)
             compared += 1
     assert compared > 100
+
+
+@pytest.mark.parametrize("counted_cells", [0, 10**9])
+def test_the_first_rung_meeting_each_allowance_is_the_same_counted_or_bisected(
+        counted_cells: int, monkeypatch: pytest.MonkeyPatch) -> None:
+    """`_first_meeting` counts the rungs above an allowance in one comparison when there are few
+    (a single quote) and bisects each shape's running minima when there are many (a sweep): both
+    must give the first rung at or below the allowance, found here by a plain scan, including
+    layouts that do not fit (inf), allowances equal to a rung, and allowances of inf, -inf and NaN
+    (a scenario whose deadline leaves no time)."""
+    monkeypatch.setattr(deadline, "COUNTED_CELLS", counted_cells)
+    rng = np.random.default_rng(7)
+    g = rng.uniform(1.0, 100.0, (6, deadline.TABLE_RUNGS))
+    g[rng.random(g.shape) < 0.25] = np.inf
+    g[5] = np.inf  # a shape that never fits
+    prefix = np.minimum.accumulate(g, axis=1)
+    afforded = np.unique(np.concatenate([rng.uniform(0.0, 120.0, 40), prefix[np.isfinite(prefix)][:12],
+                                         [np.inf, -np.inf, np.nan]]))
+    expected = [[next((j for j in range(deadline.TABLE_RUNGS) if prefix[i, j] <= a), deadline.TABLE_RUNGS)
+                 for a in afforded] for i in range(prefix.shape[0])]
+    assert deadline._first_meeting(prefix, afforded).tolist() == expected

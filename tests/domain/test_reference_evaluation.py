@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 
 from service.contract.catalog import CatalogIn
-from service.domain import deadline
+from service.domain import deadline, evaluate
 from service.domain.campaign import (
     Campaign,
     DataPlan,
@@ -32,6 +32,7 @@ from service.domain.campaign import (
 )
 from service.domain.choice import _first_least
 from service.domain.evaluate import CampaignEvaluation, evaluate_campaign
+from service.domain.layout import node_fit
 
 DEMO = json.loads((Path(__file__).resolve().parents[2] / "pricing_examples" / "catalog.json").read_text("utf-8"))
 SCENARIOS = 24
@@ -214,3 +215,43 @@ def test_the_least_across_blocks_is_numpys_argmin_of_the_blocks_side_by_side(see
                                   axis=1)
     picked = _first_least(blocks, widths)
     np.testing.assert_array_equal(np.broadcast_to(picked, (rows,)), np.argmin(side_by_side, axis=1))
+
+
+@pytest.mark.parametrize("same_memory", [False, True])
+@pytest.mark.parametrize("seed", range(4))
+def test_venues_of_one_node_size_share_what_it_makes_of_the_model_as_if_each_made_its_own(
+        seed: int, same_memory: bool, monkeypatch: pytest.MonkeyPatch) -> None:
+    """The shapes, memory minimum and batch bound depend on the campaign and the node's size alone
+    (accelerators per node, memory per accelerator), so the venues of one size and their terms share
+    them (`evaluate._node_fit`). Both demo node types are given the same accelerators per node, with
+    the same or different memory: every option must equal an evaluation in which each venue makes
+    its own, exactly, and it must be made once per size."""
+    rng = np.random.default_rng(3000 + seed)
+    source = copy.deepcopy(DEMO)
+    per_node = int(rng.choice([4, 8, 16]))
+    for node in source["node_types"]:
+        node["accelerators_per_node"] = per_node
+    memory = [int(m) for m in rng.integers(48, 240, len(source["accelerators"]))]
+    for accelerator, gb in zip(source["accelerators"], memory, strict=True):
+        accelerator["memory_gb"] = memory[0] if same_memory else gb
+    catalog = CatalogIn.model_validate(source).to_domain()
+    campaign, overrides = random_campaign(rng, SCENARIOS, vary_step=False)
+    made: list[tuple[int, float]] = []
+    shared_fit = evaluate._node_fit
+
+    def counted(context: Any, hardware: Any) -> Any:
+        made.append((hardware.accelerators_per_node, float(hardware.memory_bytes)))
+        return shared_fit(context, hardware)
+
+    monkeypatch.setattr(evaluate, "_node_fit", counted)
+    shared = evaluate_campaign(catalog, campaign, QuoteOptions(), overrides)
+    monkeypatch.setattr(evaluate, "_node_fit", lambda context, hardware: node_fit(context.load, hardware))
+    alone = evaluate_campaign(catalog, campaign, QuoteOptions(), overrides)
+    assert len(set(made)) == (1 if same_memory or memory[0] == memory[1] else 2) < len(made)
+    for ours, theirs in zip(shared.options, alone.options, strict=True):
+        assert ours.label == theirs.label
+        np.testing.assert_array_equal(ours.total, theirs.total)
+        np.testing.assert_array_equal(ours.screens, theirs.screens)
+        np.testing.assert_array_equal(ours.min_nodes, theirs.min_nodes)
+        for name in (*CHOSEN, "wall_seconds"):
+            np.testing.assert_array_equal(getattr(ours.layout, name), getattr(theirs.layout, name))
