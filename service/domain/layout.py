@@ -111,7 +111,7 @@ class NodeFit:
     """What a node's size makes of the campaign's model, whatever the venue: the shapes (t, p), each
     shape's node unit (1, H), the fewest units that hold the model (R, H) and the most whose replicas
     each still get a micro-batch. It depends on the load, the accelerators per node and their memory
-    only, so the venues of one node type share it (`node_fit`)."""
+    only, so the venues whose nodes are of one size share it (`node_fit`)."""
 
     found: Shapes
     unit: Floats
