@@ -43,7 +43,7 @@ from service.domain.owning import (
     node_month,
 )
 from service.domain.recurrence import instances_per_year, instances_total
-from service.domain.residency import allowed_jurisdictions
+from service.domain.residency import admits, allowed_jurisdictions
 from service.domain.terms import Energy, campaign_energy
 from service.domain.units import GIB, SECONDS_PER_DAY, TB
 from service.domain.venues import (
@@ -368,7 +368,7 @@ def _screen(
     meets_deadline: np.ndarray, *, shape: tuple[int, ...],
 ) -> Ints:
     mask = np.zeros(shape, dtype=np.int64)
-    if venue.allowed is not None and venue.jurisdiction not in venue.allowed:
+    if not admits(venue.allowed, venue.jurisdiction):
         mask |= screens.RESIDENCY
     if venue.owned_only:
         mask |= screens.OWNED_ONLY

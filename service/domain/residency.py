@@ -16,3 +16,8 @@ def allowed_jurisdictions(
     for entry in entries:
         allowed.update(groups.get(entry, (entry,)))
     return frozenset(allowed)
+
+
+def admits(allowed: frozenset[str] | None, jurisdiction: str) -> bool:
+    """Whether data allowed in `allowed` (None: anywhere) may be processed in `jurisdiction`."""
+    return allowed is None or jurisdiction in allowed

@@ -1,10 +1,10 @@
 """Hybrid splits: a campaign's runs divided between an owned site's free capacity and the
 cheapest feasible rented option, both running at once (model.md §9).
 
-Each part is evaluated as a campaign of its own runs (and its share of the results to send out),
-so each pays its own data transfer and passes its own screens, residency included; the split's
-wall clock is the longer part's. A split is offered only when it beats both pure options of its
-pair, or when neither pure option is feasible.
+Each part is evaluated as a campaign of its own runs (and its share of the results to send out), a
+scenario of the campaign's own evaluation, so each pays its own data transfer and passes its own
+screens, residency included; the split's wall clock is the longer part's. A split is offered only
+when it beats both pure options of its pair, or when neither pure option is feasible.
 """
 
 from collections.abc import Callable
@@ -17,10 +17,12 @@ from service.domain.campaign import Campaign, Overrides, QuoteOptions, Runs
 from service.domain.catalog import Catalog
 from service.domain.evaluate import CampaignEvaluation, OptionResult, evaluate_campaign
 from service.domain.layout import LayoutGrid
+from service.domain.residency import admits, allowed_jurisdictions
 from service.domain.screens import CAPACITY, MEMORY, OWNED_ONLY, PINNED_TOO_FEW, PRECISION, RESIDENCY
 from service.domain.terms import Energy
 
 MAX_SPLIT_POINTS = 8  # how many ways of dividing the runs are tried, evenly spaced
+OWNED_TERMS = ("owned_chargeback", "owned_new_build")
 # Screens that do not depend on how many runs an option takes: a part of the runs cannot lift them.
 STANDING = RESIDENCY | OWNED_ONLY | PRECISION | MEMORY | PINNED_TOO_FEW | CAPACITY
 
@@ -40,41 +42,68 @@ def _part(campaign: Campaign, runs: np.ndarray, total_runs: int) -> Campaign:
                    data=data)
 
 
-def split_options(catalog: Catalog, campaign: Campaign, options: QuoteOptions, overrides: Overrides | None,
-                  evaluation: CampaignEvaluation) -> list[OptionResult]:
-    """The best split of each owned site with the rented options, for a single-scenario quote."""
+def evaluate_with_splits(catalog: Catalog, campaign: Campaign, options: QuoteOptions,
+                         overrides: Overrides | None = None) -> CampaignEvaluation:
+    """The campaign's evaluation and, for a single-scenario quote, the best split of each owned site
+    with the rented options, added to its options. The campaign and both parts at every split point
+    are scenarios of one evaluation (the campaign first, then the owned part at each point, then the
+    rented part): each venue's shapes, step table and deadline search are then made once for all of
+    them, as only the runs (and the share of the results sent out) differ."""
+    total = _runs_to_split(catalog, campaign, options)
+    points = [] if total is None else split_points(total)
+    if total is None or not points:
+        return evaluate_campaign(catalog, campaign, options, overrides)
+    owned_runs = np.array(points, dtype=np.float64)
+    runs = np.concatenate([[float(total)], owned_runs, total - owned_runs])
+    together = evaluate_campaign(catalog, _part(campaign, runs, total), options, overrides)
+    evaluation: CampaignEvaluation = take_rows(together, slice(0, 1), runs.size)
+    splits = split_options(evaluation, together, points, total)
+    return replace(evaluation, options=evaluation.options + tuple(splits))
+
+
+def _runs_to_split(catalog: Catalog, campaign: Campaign, options: QuoteOptions) -> int | None:
+    """The runs a single-scenario quote may divide between an owned site and a rented option, or None
+    when it may not: one scenario, owned capacity lent by chargeback, rented terms asked for, rented
+    venues allowed, and some site and some offer where the data may go (residency: the one standing
+    screen known before the evaluation; `split_options` checks the others)."""
     count = campaign.runs.count
     if np.ndim(count) != 0 or "owned_chargeback" not in options.terms or campaign.data.owned_only:
-        return []
-    total = int(np.asarray(count))
-    rented_terms = tuple(t for t in options.terms if t not in ("owned_chargeback", "owned_new_build"))
-    if not rented_terms:
-        return []
+        return None
+    if not any(term not in OWNED_TERMS for term in options.terms):
+        return None
+    allowed = allowed_jurisdictions(campaign.data.allowed_jurisdictions, catalog.jurisdiction_groups)
+    if not all(any(admits(allowed, venue.jurisdiction) for venue in venues)
+               for venues in (catalog.sites, catalog.offers)):
+        return None
+    return int(np.asarray(count))
+
+
+def split_options(evaluation: CampaignEvaluation, together: CampaignEvaluation, points: list[int],
+                  total: int) -> list[OptionResult]:
+    """The best split of each owned site with the rented options. `evaluation` is the campaign's own;
+    `together` holds every option at the campaign's runs (scenario 0), then at the owned share of the
+    runs at each split point, then at the rented share."""
     pure = {o.label: o for o in evaluation.options}
     owned_pure = [o for o in evaluation.options if o.term == "owned_chargeback"]
-    rented_pure = [o for o in evaluation.options if o.term in rented_terms]
+    rented_pure = [o for o in evaluation.options if o.term not in OWNED_TERMS]
     if not (_could_take_a_part(owned_pure) and _could_take_a_part(rented_pure)):
         return []  # every owned or every rented option is ruled out whatever its share of the runs
+    rows, count = 1 + 2 * len(points), len(points)
+    owned_options = [o for o in together.options if o.term == "owned_chargeback"]
+    rented_options = [o for o in together.options if o.term not in OWNED_TERMS]
     best: dict[str, OptionResult] = {}
-    # Every split point at once, as scenarios of one evaluation per side.
-    points = split_points(total)
-    if not points:
-        return []
-    owned_runs = np.array(points, dtype=np.float64)
-    owned_eval = evaluate_campaign(catalog, _part(campaign, owned_runs, total),
-                                   replace(options, terms=("owned_chargeback",)), overrides)
-    rented_eval = evaluate_campaign(catalog, _part(campaign, total - owned_runs, total),
-                                    replace(options, terms=rented_terms), overrides)
     for k, owned_count in enumerate(points):
-        feasible_rented = [o for o in rented_eval.options if bool(o.feasible[k])]
+        owned_row, rented_row = 1 + k, 1 + count + k
+        feasible_rented = [o for o in rented_options if bool(o.feasible[rented_row])]
         if not feasible_rented:
             continue
-        rented = take_rows(min(feasible_rented, key=lambda o: float(o.total[k])), slice(k, k + 1), len(points))
-        for owned in owned_eval.options:
-            if not bool(owned.feasible[k]):
+        cheapest = min(feasible_rented, key=lambda o: float(o.total[rented_row]))
+        rented = take_rows(cheapest, slice(rented_row, rented_row + 1), rows)
+        for owned in owned_options:
+            if not bool(owned.feasible[owned_row]):
                 continue
-            candidate = combine(take_rows(owned, slice(k, k + 1), len(points)), rented, owned_runs=owned_count,
-                                rented_runs=total - owned_count)
+            candidate = combine(take_rows(owned, slice(owned_row, owned_row + 1), rows), rented,
+                                owned_runs=owned_count, rented_runs=total - owned_count)
             key = owned.venue_id
             if key not in best or float(candidate.total[0]) < float(best[key].total[0]):
                 best[key] = candidate

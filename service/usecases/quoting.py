@@ -3,7 +3,6 @@ and own the transaction; the offline ones here take validated inputs and return 
 
 import hashlib
 import json
-from dataclasses import replace
 from datetime import datetime
 from typing import Any
 
@@ -15,8 +14,7 @@ from service.contract.catalog import CatalogIn
 from service.contract.document import quote_document
 from service.contract.request import MeasuredWorkIn, QuoteRequestIn
 from service.domain.assumptions import DEFAULTS
-from service.domain.evaluate import evaluate_campaign
-from service.domain.split import split_options
+from service.domain.split import evaluate_with_splits
 from service.errors import FieldProblem, InvalidInput
 
 
@@ -73,10 +71,7 @@ def quote(catalog: CatalogIn, request: QuoteRequestIn) -> dict[str, Any]:
     # times; the model carries inf through and screens such options out as infeasible. numpy's
     # warnings about it would only be stray non-JSON lines on stderr.
     with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
-        evaluation = evaluate_campaign(domain_catalog, campaign, options, overrides)
-        splits = split_options(domain_catalog, campaign, options, overrides, evaluation)
-        if splits:
-            evaluation = replace(evaluation, options=evaluation.options + tuple(splits))
+        evaluation = evaluate_with_splits(domain_catalog, campaign, options, overrides)
         return quote_document(domain_catalog, request, evaluation)
 
 

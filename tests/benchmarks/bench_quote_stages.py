@@ -8,13 +8,15 @@ a fresh server takes.
    best CPU time (time.process_time) over --repeats calls, after --warmup untimed ones, of
    `service.usecases.quoting.quote` and of each of its stages, computed by the functions quote() calls,
    in its order: the request checked against the catalog (`request_problems`), `catalog.to_domain()`,
-   `request.to_domain()`, `evaluate_campaign`, `split_options`, `quote_document`. Each repeat runs the
+   `request.to_domain()`, `evaluate_with_splits` (the campaign and, for a campaign of several runs, its
+   split points as scenarios of one evaluation, and the splits made of them), `quote_document`. Each repeat
+   runs the
    whole quote, then the stages, so both meet the same machine; the sum of the stages' best times is
    printed beside the whole's best (each stage's best may come from another repeat, so the sum may be a
    little less). Then what POST /v1/quotes does with the body after quote(), timed the same way:
    `envelope` (identity and provenance) and the answer encoded as the API encodes it
    (`FastJSONResponse`: orjson). Beside them, the CPU time of the layout search within the stages
-   (`evaluate_layouts`, every venue's physics, the split's included) and of the stages without it: a
+   (`evaluate_layouts`, every venue's physics, split points included) and of the stages without it: a
    bound, what a quote would still take were the search free. Targets: quote() at most 4 ms CPU per
    campaign, 8 ms for campaign-split.json.
 2. Cold (skipped with --no-cold): the wall time of a fresh `python -m service.cli quote CAMPAIGN
@@ -44,7 +46,6 @@ import tempfile  # noqa: E402
 import time  # noqa: E402
 import urllib.request  # noqa: E402
 from collections.abc import Callable  # noqa: E402
-from dataclasses import replace  # noqa: E402
 from datetime import UTC, datetime  # noqa: E402
 from pathlib import Path  # noqa: E402
 from typing import Any  # noqa: E402
@@ -61,9 +62,8 @@ from service.contract.catalog import CatalogIn  # noqa: E402
 from service.contract.document import quote_document  # noqa: E402
 from service.contract.request import QuoteRequestIn  # noqa: E402
 from service.domain import evaluate as evaluate_module  # noqa: E402
-from service.domain.evaluate import evaluate_campaign  # noqa: E402
 from service.domain.layout import evaluate_layouts  # noqa: E402
-from service.domain.split import split_options  # noqa: E402
+from service.domain.split import evaluate_with_splits  # noqa: E402
 from service.errors import InvalidInput  # noqa: E402
 from service.storage.repository import new_id  # noqa: E402
 from service.usecases.quoting import catalog_hash, envelope, quote, request_problems  # noqa: E402
@@ -76,8 +76,7 @@ for _pool, _value in USER_POOLS.items():
 
 EXAMPLES = ROOT / "pricing_examples"
 CATALOG = EXAMPLES / "catalog.json"
-QUOTE_STAGES = ("request_problems", "catalog.to_domain", "request.to_domain", "evaluate_campaign", "split_options",
-                "quote_document")
+QUOTE_STAGES = ("request_problems", "catalog.to_domain", "request.to_domain", "evaluate_with_splits", "quote_document")
 ANSWER_STAGES = ("envelope", "FastJSONResponse")
 SEARCH_FIGURES = ("search", "without search")
 TARGET_CPU_MS = 4.0
@@ -112,12 +111,8 @@ def quote_in_stages(catalog: CatalogIn, request: QuoteRequestIn, laps: Laps) -> 
     campaign, options, overrides = request.to_domain()
     laps.mark("request.to_domain")
     with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
-        evaluation = evaluate_campaign(domain_catalog, campaign, options, overrides)
-        laps.mark("evaluate_campaign")
-        splits = split_options(domain_catalog, campaign, options, overrides, evaluation)
-        if splits:
-            evaluation = replace(evaluation, options=evaluation.options + tuple(splits))
-        laps.mark("split_options")
+        evaluation = evaluate_with_splits(domain_catalog, campaign, options, overrides)
+        laps.mark("evaluate_with_splits")
         body = quote_document(domain_catalog, request, evaluation)
         laps.mark("quote_document")
     return body
@@ -190,7 +185,7 @@ def in_process(repeats: int, warmup: int) -> list[tuple[str, bool, str]]:
     content_hash = catalog_hash(catalog)
     print(f"== 1. In process, one core: best CPU ms of {repeats} repeats after {warmup} warm-up, catalog "
           f"{CATALOG.name}")
-    heads = ("problems", "catalog", "request", "evaluate", "splits", "document")
+    heads = ("problems", "catalog", "request", "evaluate", "document")
     print(f"{'campaign':<33}" + "".join(f"{head:>10}" for head in heads)
           + f"{'sum':>9}{'quote()':>9}{'envelope':>10}{'orjson':>8}{'search':>8}{'rest':>8}")
     verdicts = []
@@ -205,11 +200,12 @@ def in_process(repeats: int, warmup: int) -> list[tuple[str, bool, str]]:
         target = TARGET_CPU_MS_BY_CAMPAIGN.get(path.name, TARGET_CPU_MS)
         verdicts.append((f"quote() at most {target:.0f} ms CPU on {path.name}", whole * 1e3 <= target,
                          f"{whole * 1e3:.2f} ms"))
-    print("(problems: request_problems; catalog, request: their to_domain(); evaluate: evaluate_campaign;")
-    print(" splits: split_options; document: quote_document; sum: of those six, beside quote() timed whole;")
+    print("(problems: request_problems; catalog, request: their to_domain(); evaluate: evaluate_with_splits, the")
+    print(" campaign and its split points in one evaluation, and the splits; document: quote_document; sum: of")
+    print(" those five, beside quote() timed whole;")
     print(" envelope and orjson: what POST /v1/quotes adds to the body, envelope() and FastJSONResponse;")
-    print(" search: the layout search within evaluate and splits (evaluate_layouts, every venue's physics);")
-    print(" rest: the six stages without it, a bound: what the quote would still take were the search free)")
+    print(" search: the layout search within evaluate (evaluate_layouts, every venue's physics);")
+    print(" rest: the five stages without it, a bound: what the quote would still take were the search free)")
     print()
     return verdicts
 

@@ -48,8 +48,8 @@ def test_the_stages_make_the_quote_and_its_answer(catalog: CatalogIn, campaign: 
 
 
 def test_the_split_campaign_takes_the_split_stage(catalog: CatalogIn) -> None:
-    """The split campaign has its own target (8 ms) because split_options adds options to it, which
-    each have parts; the other demo campaigns have none."""
+    """The split campaign has its own target (8 ms) because evaluate_with_splits adds options to it,
+    which each have parts; the other demo campaigns have none."""
     for campaign in DEMO_CAMPAIGNS:
         body = quote_in_stages(catalog, QuoteRequestIn.model_validate_json(campaign.read_bytes()), Laps())
         split = [option for option in body["options"] if "parts" in option]

@@ -18,17 +18,21 @@ without parameters, so there is no memory limit and no communication.
 import copy
 import json
 import math
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
 from service.contract.catalog import CatalogIn
 from service.contract.request import QuoteRequestIn
 from service.domain import screens, split
+from service.domain.campaign import Campaign, Overrides, QuoteOptions
+from service.domain.catalog import Catalog
 from service.domain.evaluate import CampaignEvaluation, OptionResult, evaluate_campaign
-from service.domain.split import split_options, split_points
+from service.domain.split import evaluate_with_splits, split_points
 from service.usecases.quoting import quote
 
 DAY = 86400.0
@@ -215,10 +219,10 @@ def split_request(*, runs: int = RUNS, deadline: float | None = DEADLINE, work: 
 
 
 def splits_of(catalog: dict[str, Any], req: QuoteRequestIn) -> tuple[CampaignEvaluation, list[OptionResult]]:
-    domain = CatalogIn.model_validate(catalog).to_domain()
-    campaign, options, overrides = req.to_domain()
-    evaluation = evaluate_campaign(domain, campaign, options, overrides)
-    return evaluation, split_options(domain, campaign, options, overrides, evaluation)
+    """The campaign's own options and its splits."""
+    evaluation = evaluate_with_splits(CatalogIn.model_validate(catalog).to_domain(), *req.to_domain())
+    return (replace(evaluation, options=tuple(o for o in evaluation.options if o.venue_kind != "split")),
+            [o for o in evaluation.options if o.venue_kind == "split"])
 
 
 def test_split_points_try_every_owned_run_count_up_to_eight_of_them():
@@ -313,17 +317,56 @@ def test_no_split_when_the_request_allows_owned_sites_only():
 DEMO_EXAMPLES = Path(__file__).resolve().parents[2] / "pricing_examples"
 
 
+def demo_quote(name: str) -> tuple[Catalog, Campaign, QuoteOptions, Overrides]:
+    catalog = CatalogIn.model_validate(json.loads((DEMO_EXAMPLES / "catalog.json").read_text("utf-8"))).to_domain()
+    request = QuoteRequestIn.model_validate(json.loads((DEMO_EXAMPLES / name).read_text("utf-8")))
+    return catalog, *request.to_domain()
+
+
 @pytest.mark.parametrize("name", sorted(p.name for p in DEMO_EXAMPLES.glob("campaign-*.json")))
 def test_skipping_splits_that_a_standing_screen_rules_out_changes_no_answer(
         name: str, monkeypatch: pytest.MonkeyPatch) -> None:
-    """split_options returns early when every owned or every rented option has a screen that no share
-    of the runs lifts (residency, owned only, precision, memory, pinned count, capacity); on every demo
-    campaign it must return what the full search over split points returns."""
-    catalog = CatalogIn.model_validate(json.loads((DEMO_EXAMPLES / "catalog.json").read_text("utf-8"))).to_domain()
-    request = QuoteRequestIn.model_validate(json.loads((DEMO_EXAMPLES / name).read_text("utf-8")))
-    campaign, options, overrides = request.to_domain()
-    evaluation = evaluate_campaign(catalog, campaign, options, overrides)
-    quick = split_options(catalog, campaign, options, overrides, evaluation)
+    """No split is searched when residency rules out every site or every offer (known before the
+    evaluation), nor when every owned or every rented option has another screen that no share of the
+    runs lifts (owned only, precision, memory, pinned count, capacity); on every demo campaign the
+    answer must be what the full search over split points gives."""
+    quick = evaluate_with_splits(*demo_quote(name)).options
+    monkeypatch.setattr(split, "admits", lambda *_: True)
     monkeypatch.setattr(split, "_could_take_a_part", lambda _: True)
-    full = split_options(catalog, campaign, options, overrides, evaluation)
+    full = evaluate_with_splits(*demo_quote(name)).options
     assert [(o.label, float(o.total[0])) for o in quick] == [(o.label, float(o.total[0])) for o in full]
+
+
+@pytest.mark.parametrize("name", sorted(p.name for p in DEMO_EXAMPLES.glob("campaign-*.json")))
+def test_split_points_evaluated_with_the_campaign_leave_its_options_as_it_alone_and_parts_as_each_alone(
+        name: str) -> None:
+    """The campaign and both parts at every split point are scenarios of one evaluation
+    (`evaluate_with_splits`). The campaign's own options must be exactly what it gets evaluated alone,
+    and each split's parts what that part's runs get evaluated alone (to 1e-9 relative: the part alone
+    takes no path the scenarios share), owned and rented."""
+    catalog, campaign, options, overrides = demo_quote(name)
+    together = evaluate_with_splits(catalog, campaign, options, overrides)
+    alone = evaluate_campaign(catalog, campaign, options, overrides)
+    own = [o for o in together.options if o.venue_kind != "split"]
+    assert [o.label for o in own] == [o.label for o in alone.options]
+    for ours, theirs in zip(own, alone.options, strict=True):
+        for name_, value in (("total", ours.total), ("screens", ours.screens), ("nodes", ours.layout.nodes),
+                             ("wall", ours.layout.wall_seconds)):
+            reference = {"total": theirs.total, "screens": theirs.screens, "nodes": theirs.layout.nodes,
+                         "wall": theirs.layout.wall_seconds}[name_]
+            np.testing.assert_array_equal(np.reshape(value, -1), np.reshape(reference, -1), err_msg=name_)
+    total = int(np.asarray(campaign.runs.count))
+    splits = [o for o in together.options if o.venue_kind == "split"]
+    assert bool(splits) == (name == "campaign-split.json")
+    for option in splits:
+        for part, runs in zip(option.parts, (option.details["owned_runs"][0], option.details["rented_runs"][0]),
+                              strict=True):
+            share = runs / total
+            by_itself = replace(campaign, runs=replace(campaign.runs, count=float(runs)),
+                                data=replace(campaign.data, results_egress_tb=campaign.data.results_egress_tb * share))
+            reference = next(o for o in evaluate_campaign(catalog, by_itself, options, overrides).options
+                             if o.label == part.label)
+            assert bool(reference.feasible[0])
+            assert_allclose(part.total, reference.total, rtol=1e-9)
+            assert_allclose(part.layout.wall_seconds, reference.layout.wall_seconds, rtol=1e-9)
+            assert part.layout.nodes[0] == reference.layout.nodes[0]
