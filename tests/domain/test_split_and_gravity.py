@@ -349,12 +349,12 @@ def test_split_points_evaluated_with_the_campaign_leave_its_options_as_it_alone_
     alone = evaluate_campaign(catalog, campaign, options, overrides)
     own = [o for o in together.options if o.venue_kind != "split"]
     assert [o.label for o in own] == [o.label for o in alone.options]
+    figures = {"total": lambda o: o.total, "screens": lambda o: o.screens, "nodes": lambda o: o.layout.nodes,
+               "wall clock": lambda o: o.layout.wall_seconds}
     for ours, theirs in zip(own, alone.options, strict=True):
-        for name_, value in (("total", ours.total), ("screens", ours.screens), ("nodes", ours.layout.nodes),
-                             ("wall", ours.layout.wall_seconds)):
-            reference = {"total": theirs.total, "screens": theirs.screens, "nodes": theirs.layout.nodes,
-                         "wall": theirs.layout.wall_seconds}[name_]
-            np.testing.assert_array_equal(np.reshape(value, -1), np.reshape(reference, -1), err_msg=name_)
+        for figure, read in figures.items():
+            np.testing.assert_array_equal(np.reshape(read(ours), -1), np.reshape(read(theirs), -1),
+                                          err_msg=f"{ours.label}: {figure}")
     total = int(np.asarray(campaign.runs.count))
     splits = [o for o in together.options if o.venue_kind == "split"]
     assert bool(splits) == (name == "campaign-split.json")
