@@ -59,8 +59,9 @@ def _interpolated(k_lo: Floats, g_lo: Floats, k_hi: Floats, g_hi: Floats, target
 
 
 def _shape_columns(found: Shapes, shape: Ints, units: Floats, accelerators_per_node: int) -> Columns:
-    """One row of deadline candidates: shape `shape[j]` at `units[j]` node units."""
-    nodes = (units * found.node_unit(accelerators_per_node)[shape])[np.newaxis, :]
+    """Deadline candidates: shape `shape[j]` at `units[..., j]` node units, one row (units (n,)) or one
+    per scenario (units (R, n))."""
+    nodes = np.atleast_2d(units * found.node_unit(accelerators_per_node)[shape])
     return Columns(found.tensor[shape][np.newaxis, :], found.pipeline[shape][np.newaxis, :], nodes,
                    nodes * accelerators_per_node, np.full(nodes.shape, DEADLINE))
 
@@ -258,25 +259,27 @@ def _closed(measure: Callable[[Floats, Bools], Floats], target: Floats, k_lo: Fl
     return k_hi
 
 
-def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Callable[[Floats, int], Columns],
-                   deadline: Floats, rungs: Floats) -> Floats:
+def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, deadline: Floats, rungs: Floats) -> Floats:
     """Per scenario and shape, the fewest node units that meet the deadline when the step varies by
     scenario, found as the table path finds it: the first of the rungs (R, H, G) that meets it, then
     between it and the rung below, false position on wall(k) = α/k + β alternating with halving
     until the two counts are neighbours; the memory minimum where it already meets it, the top where
     no rung does. A count whose layout does not fit misses. A scenario's rungs are evaluated only
-    until each of its shapes has met the deadline, and its brackets only while one is open."""
+    until each of its shapes has met the deadline, and its brackets only while one is open; of those
+    scenarios, only the shapes that some of them have still to settle."""
     h = found.count
     rows = _scenario_rows(load, hardware, deadline, rungs)
     counts = np.broadcast_to(rungs, (rows, h, TABLE_RUNGS))
     target = np.broadcast_to(deadline.reshape(-1, 1), (rows, h))
 
-    def wall_at(at: Ints, k: Floats) -> Floats:
-        """The wall clock of scenarios `at` at node units k ((len(at) or 1, H)); inf where it does not fit."""
+    def wall_at(at: Ints, shapes: Ints, k: Floats) -> Floats:
+        """The wall clock of scenarios `at` for the shapes `shapes` at node units k ((len(at) or 1,
+        len(shapes))); inf where it does not fit."""
         at_load, at_hardware = take_rows(load, at, rows), take_rows(hardware, at, rows)
-        step = step_figures(at_load, at_hardware, columns(k, DEADLINE), found, clock_only=True)
+        columns = _shape_columns(found, shapes, k, hardware.accelerators_per_node)
+        step = step_figures(at_load, at_hardware, columns, found, clock_only=True)
         wall = wall_figures(at_load, at_hardware, step["effective_step_seconds"], step["accelerators"])["wall_seconds"]
-        return np.asarray(np.broadcast_to(np.where(step["fits"], wall, np.inf), (at.size, h)))
+        return np.asarray(np.broadcast_to(np.where(step["fits"], wall, np.inf), (at.size, shapes.size)))
 
     first = np.full((rows, h), TABLE_RUNGS)
     before, w_lo, w_hi = (np.full((rows, h), np.inf) for _ in range(3))
@@ -284,13 +287,16 @@ def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Calla
     for j in range(TABLE_RUNGS):
         if not scanning.size:
             break
+        shapes = np.flatnonzero((first[scanning] == TABLE_RUNGS).any(axis=0))
+        block = np.ix_(scanning, shapes)
         # A rung that is the same for every scenario stays one row: the figures that do not
         # depend on the scenario are then computed once.
-        wall = wall_at(scanning, rungs[:, :, j] if rungs.shape[0] == 1 else rungs[scanning, :, j])
-        fresh = (first[scanning] == TABLE_RUNGS) & (wall <= target[scanning])
-        r, s = scanning[np.nonzero(fresh)[0]], np.nonzero(fresh)[1]
+        wall = wall_at(scanning, shapes, rungs[:, shapes, j] if rungs.shape[0] == 1 else rungs[scanning][:, shapes, j])
+        fresh = (first[block] == TABLE_RUNGS) & (wall <= target[block])
+        at_row, at_shape = np.nonzero(fresh)
+        r, s = scanning[at_row], shapes[at_shape]
         first[r, s], w_hi[r, s], w_lo[r, s] = j, wall[fresh], before[r, s]
-        before[scanning] = wall
+        before[block] = wall
         scanning = scanning[(first[scanning] == TABLE_RUNGS).any(axis=1)]
     reached = first < TABLE_RUNGS
     at = np.minimum(first, TABLE_RUNGS - 1)[..., np.newaxis]
@@ -299,8 +305,9 @@ def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, columns: Calla
 
     def measure(k: Floats, open_bracket: Bools) -> Floats:
         g = np.full(k.shape, np.inf)
-        open_rows = np.flatnonzero(open_bracket.any(axis=1))
-        g[open_rows] = wall_at(open_rows, k[open_rows])
+        open_rows, open_shapes = np.flatnonzero(open_bracket.any(axis=1)), np.flatnonzero(open_bracket.any(axis=0))
+        block = np.ix_(open_rows, open_shapes)
+        g[block] = wall_at(open_rows, open_shapes, k[block])
         return g
 
     fewest = _closed(measure, target, k_lo, w_lo, k_hi, w_hi)

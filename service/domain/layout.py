@@ -175,7 +175,7 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
     first = evaluate_columns(load, hardware, base, found)
     if not has_deadline:
         return Candidates((first,)), fewest
-    k_met = fewest_meeting(load, hardware, found, columns, deadline, table_rungs(k_min, k_top))
+    k_met = fewest_meeting(load, hardware, found, deadline, table_rungs(k_min, k_top))
     blocks = [first, evaluate_columns(load, hardware, columns(k_met, DEADLINE), found)]
     return Candidates(tuple(blocks)), fewest
 
