@@ -291,7 +291,7 @@ def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, deadline: Floa
         block = np.ix_(scanning, shapes)
         # A rung that is the same for every scenario stays one row: the figures that do not
         # depend on the scenario are then computed once.
-        wall = wall_at(scanning, shapes, rungs[:, shapes, j] if rungs.shape[0] == 1 else rungs[scanning][:, shapes, j])
+        wall = wall_at(scanning, shapes, rungs[:, shapes, j] if rungs.shape[0] == 1 else rungs[block][..., j])
         fresh = (first[block] == TABLE_RUNGS) & (wall <= target[block])
         at_row, at_shape = np.nonzero(fresh)
         r, s = scanning[at_row], shapes[at_shape]

@@ -151,10 +151,6 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
             for limit in node_limits]
     k_top = np.minimum(np.maximum(np.maximum.reduce(np.broadcast_arrays(*tops)), k_min), MAX_UNITS)
 
-    def columns(k: Floats, origin: int) -> Columns:
-        nodes = k * unit
-        return Columns(tensor, pipeline, nodes, nodes * per_node, np.full(np.shape(nodes), origin))
-
     # The memory minimum and the most each limit allows, per shape, as one block.
     counts = np.concatenate(np.broadcast_arrays(k_min, *tops), axis=1)
     copies = len(tops) + 1
@@ -175,9 +171,9 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
     first = evaluate_columns(load, hardware, base, found)
     if not has_deadline:
         return Candidates((first,)), fewest
-    k_met = fewest_meeting(load, hardware, found, deadline, table_rungs(k_min, k_top))
-    blocks = [first, evaluate_columns(load, hardware, columns(k_met, DEADLINE), found)]
-    return Candidates(tuple(blocks)), fewest
+    met = fewest_meeting(load, hardware, found, deadline, table_rungs(k_min, k_top)) * unit
+    meeting = Columns(tensor, pipeline, met, met * per_node, np.full(met.shape, DEADLINE))
+    return Candidates((first, evaluate_columns(load, hardware, meeting, found))), fewest
 
 
 def _shapes(load: Load, accelerators_per_node: int, *, fixed_accelerators: int | None) -> Shapes:

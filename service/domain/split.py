@@ -50,47 +50,42 @@ def evaluate_with_splits(catalog: Catalog, campaign: Campaign, options: QuoteOpt
     rented part): each venue's shapes, step table and deadline search are then made once for all of
     them, as only the runs (and the share of the results sent out) differ."""
     total = _runs_to_split(catalog, campaign, options)
-    points = [] if total is None else split_points(total)
-    if total is None or not points:
+    points = split_points(total)
+    if not points:
         return evaluate_campaign(catalog, campaign, options, overrides)
     owned_runs = np.array(points, dtype=np.float64)
     runs = np.concatenate([[float(total)], owned_runs, total - owned_runs])
     together = evaluate_campaign(catalog, _part(campaign, runs, total), options, overrides)
     evaluation: CampaignEvaluation = take_rows(together, slice(0, 1), runs.size)
-    splits = split_options(evaluation, together, points, total)
-    return replace(evaluation, options=evaluation.options + tuple(splits))
+    return replace(evaluation, options=evaluation.options + tuple(split_options(together, points, total)))
 
 
-def _runs_to_split(catalog: Catalog, campaign: Campaign, options: QuoteOptions) -> int | None:
-    """The runs a single-scenario quote may divide between an owned site and a rented option, or None
-    when it may not: one scenario, owned capacity lent by chargeback, rented terms asked for, rented
+def _runs_to_split(catalog: Catalog, campaign: Campaign, options: QuoteOptions) -> int:
+    """The runs a single-scenario quote may divide between an owned site and a rented option, or 0
+    (no split point) when it may not: one scenario, owned capacity lent by chargeback, rented terms asked for, rented
     venues allowed, and some site and some offer where the data may go (residency: the one standing
     screen known before the evaluation; `split_options` checks the others)."""
     count = campaign.runs.count
     if np.ndim(count) != 0 or "owned_chargeback" not in options.terms or campaign.data.owned_only:
-        return None
+        return 0
     if not any(term not in OWNED_TERMS for term in options.terms):
-        return None
+        return 0
     allowed = allowed_jurisdictions(campaign.data.allowed_jurisdictions, catalog.jurisdiction_groups)
     if not all(any(admits(allowed, venue.jurisdiction) for venue in venues)
                for venues in (catalog.sites, catalog.offers)):
-        return None
+        return 0
     return int(np.asarray(count))
 
 
-def split_options(evaluation: CampaignEvaluation, together: CampaignEvaluation, points: list[int],
-                  total: int) -> list[OptionResult]:
-    """The best split of each owned site with the rented options. `evaluation` is the campaign's own;
-    `together` holds every option at the campaign's runs (scenario 0), then at the owned share of the
-    runs at each split point, then at the rented share."""
-    pure = {o.label: o for o in evaluation.options}
-    owned_pure = [o for o in evaluation.options if o.term == "owned_chargeback"]
-    rented_pure = [o for o in evaluation.options if o.term not in OWNED_TERMS]
-    if not (_could_take_a_part(owned_pure) and _could_take_a_part(rented_pure)):
-        return []  # every owned or every rented option is ruled out whatever its share of the runs
-    rows, count = 1 + 2 * len(points), len(points)
+def split_options(together: CampaignEvaluation, points: list[int], total: int) -> list[OptionResult]:
+    """The best split of each owned site with the rented options. `together` holds every option at the
+    campaign's runs (scenario 0, the pure options the splits must beat), then at the owned share of
+    the runs at each split point, then at the rented share."""
     owned_options = [o for o in together.options if o.term == "owned_chargeback"]
     rented_options = [o for o in together.options if o.term not in OWNED_TERMS]
+    if not (_could_take_a_part(owned_options) and _could_take_a_part(rented_options)):
+        return []  # every owned or every rented option is ruled out whatever its share of the runs
+    rows, count = 1 + 2 * len(points), len(points)
     best: dict[str, OptionResult] = {}
     for k, owned_count in enumerate(points):
         owned_row, rented_row = 1 + k, 1 + count + k
@@ -107,11 +102,13 @@ def split_options(evaluation: CampaignEvaluation, together: CampaignEvaluation, 
             key = owned.venue_id
             if key not in best or float(candidate.total[0]) < float(best[key].total[0]):
                 best[key] = candidate
+    pure = {o.label: o for o in together.options}
     return [s for s in best.values() if _worth_showing(s, pure)]
 
 
 def _could_take_a_part(options: list[OptionResult]) -> bool:
-    """Whether some option is free of the screens a smaller share of the runs cannot lift."""
+    """Whether some option is free, at the campaign's own runs (its first scenario), of the screens a
+    smaller share of the runs cannot lift."""
     return any(not int(np.asarray(o.screens).reshape(-1)[0]) & STANDING for o in options)
 
 
