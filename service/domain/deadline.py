@@ -34,8 +34,13 @@ SCENARIOS_PER_STEP = 64  # where the step varies, scenarios per distinct step fr
 # network varies, at about 24 when the model size does)
 TABLE_KEY = 2.0**40  # (shape, count) keys: shape × TABLE_KEY + count, counts below it
 MAX_UNITS = TABLE_KEY - 2.0  # node units a candidate may have: beyond any venue (limits.MAX_NODES)
-COUNTED_CELLS = 4096  # (rung, allowance) pairs up to which the first rung meeting each allowance is counted
-# in one comparison (a single quote) rather than bisected shape by shape
+GUESS_SPLITS = 16  # pieces into which a range of allowances whose guesses may differ is split, per step
+# The ranges of allowances a shape's rungs cut, in ascending order of allowance: the state of each (the
+# first rung meeting it; TABLE_RUNGS for none, then again for the NaN allowances at the end), and the
+# rung whose count it takes (TABLE_RUNGS: none, the count is interpolated).
+_RANGE_STATES = np.array([*range(TABLE_RUNGS, -1, -1), TABLE_RUNGS])
+_RANGE_FIXED = np.array([TABLE_RUNGS - 1, *[TABLE_RUNGS] * (TABLE_RUNGS - 1), 0, TABLE_RUNGS - 1])
+_BELOW = np.maximum(np.arange(TABLE_RUNGS) - 1, 0)  # the rung below each (the first its own)
 
 
 def _line(k_lo: Floats, g_lo: Floats, k_hi: Floats, g_hi: Floats) -> tuple[Floats, Floats]:
@@ -124,82 +129,136 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     settle it, the bracket left is closed by `_closed`.
 
     The answer depends on a scenario only through its allowance, so each distinct allowance is
-    solved once, in ascending order: a shape's guess then falls or stays from one allowance to
-    the next, and its distinct counts are the starts of runs (no sort of the whole grid)."""
+    solved once, in ascending order, and a shape's allowances fall into a few runs of one guess
+    (`_guess_runs`): within a run each of the three exact counts meets the allowances from some
+    position on, so every allowance's count is laid out run by run, not compared one by one."""
     steps, staging = scenario_terms(load, hardware)
     allowance = np.asarray((deadline - staging) / steps).reshape(-1)  # the effective step each scenario affords
     afforded, scenario_of = np.unique(allowance, return_inverse=True)  # ascending, NaN last
-    h = found.count
+    h, u = found.count, afforded.size
     effective = table["effective_step_seconds"]
     g = np.where(table["fits"] & ~np.isnan(effective), effective, np.inf).reshape(h, TABLE_RUNGS)
-    # The first rung meeting an allowance is the first whose running minimum does: per shape, the
-    # state j < TABLE_RUNGS is that rung, TABLE_RUNGS that none does.
-    prefix = np.minimum.accumulate(g, axis=1)
-    state = _first_meeting(prefix, afforded)
-    # Per (shape, state): the line through the rung below and the rung that meets; state 0 takes the
-    # memory minimum and TABLE_RUNGS the node limit, whatever the line.
-    below = np.maximum(np.arange(TABLE_RUNGS) - 1, 0)
-    alpha, beta = _line(rungs[:, below], g[:, below], rungs, g)
-    fixed = np.full((h, TABLE_RUNGS + 1), np.nan)
-    fixed[:, 0], fixed[:, -1] = rungs[:, 0], rungs[:, -1]
-    at = np.arange(h)[:, np.newaxis] * (TABLE_RUNGS + 1) + state
-    a_at, b_at, lo_at, hi_at = (np.concatenate([v, v[:, -1:]], axis=1).reshape(-1)[at]
-                                for v in (alpha, beta, rungs[:, below], rungs))
-    fixed_at = fixed.reshape(-1)[at]
-    guess = np.where(np.isnan(fixed_at), _reaching(a_at, b_at, lo_at, hi_at, afforded), fixed_at)  # (H, U)
-    # Runs of equal guesses along each shape's allowances: one (shape, count) per run.
-    starts = np.ones(guess.shape, dtype=bool)
-    starts[:, 1:] = guess[:, 1:] != guess[:, :-1]
-    run_of = (np.cumsum(starts) - 1).reshape(guess.shape)  # (H, U): runs counted shape by shape
-    run_shape = np.broadcast_to(np.arange(h)[:, np.newaxis], guess.shape)[starts]
-    run_count = guess[starts]
-    # The exact counts just below, at and above each run's count, within the shape's range, each
+    valid = u - int(np.count_nonzero(np.isnan(afforded)))
+    runs = _guess_runs(g, rungs, afforded, valid)
+    # The exact counts just below, at and above each run's guess, within the shape's range, each
     # distinct (shape, count) evaluated once.
-    near = np.clip(run_count + np.array([[-1.0], [0.0], [1.0]]), k_min[0][run_shape], k_top[0][run_shape])
-    near_keys = run_shape * TABLE_KEY + near  # (3, R)
+    near = np.clip(runs.count + np.array([[-1.0], [0.0], [1.0]]), k_min[0][runs.shape], k_top[0][runs.shape])
+    near_keys = runs.shape * TABLE_KEY + near  # (3, R)
     around = np.unique(near_keys)
     exact_shape = (around // TABLE_KEY).astype(np.int64)
     exact = step_figures(load, hardware, _shape_columns(found, exact_shape, around - exact_shape * TABLE_KEY,
                                                         hardware.accelerators_per_node), found)
     g_exact = np.where(exact["fits"][0], exact["effective_step_seconds"][0], np.inf)
     where = np.searchsorted(around, near_keys)
-    step_at = g_exact[where]
-    # Each allowance takes the first of the three that meets it, else the one above.
-    g_near = [step_at[i][run_of] for i in range(3)]
-    meets = [g_i <= afforded for g_i in g_near]
-    column = np.where(meets[0], where[0][run_of], np.where(meets[1], where[1][run_of], where[2][run_of]))
+    g_near = g_exact[where]  # (3, R)
+    # Each of the three meets a run's allowances from the first at or above its step on (none of a
+    # NaN allowance's); each allowance takes the first of the three that meets it, else the one above.
+    meets_from = np.where(runs.start < valid, np.clip(np.searchsorted(afforded[:valid], g_near), runs.start, runs.end),
+                          runs.end)  # (3, R)
+    second = np.minimum(meets_from[0], meets_from[1])
+    bounds = np.array([runs.start, second, meets_from[0], runs.end])
+    column = np.repeat(where[::-1].T.reshape(-1), (bounds[1:] - bounds[:-1]).T.reshape(-1)).reshape(h, u)
     # Where the line missed by more than a count (the count below also meets, or none of the three
     # does), the bracket between a rung and the nearest exact count is closed as `fewest_meeting`
-    # closes its own, so that a scenario gets the same count alone as in a sweep.
-    interior = (state > 0) & (state < TABLE_RUNGS)
-    lower = interior & meets[0]  # the fewest lies between the rung below and the count below the guess
-    higher = interior & ~meets[0] & ~meets[1] & ~meets[2]  # between the count above and the rung that meets
-    searched = np.flatnonzero(lower | higher)
-    if searched.size:
-        known = _ExactCounts(load, hardware, found, around, exact)
-        shape_of, scenario = np.divmod(searched, afforded.size)
-        rung = shape_of * TABLE_RUNGS + state.reshape(-1)[searched]
-        n0, n2 = near[0][run_of].reshape(-1)[searched], near[2][run_of].reshape(-1)[searched]
-        from_rung = lower.reshape(-1)[searched]
-        bracket = (np.where(from_rung, rungs.reshape(-1)[rung - 1], n2),
-                   np.where(from_rung, g.reshape(-1)[rung - 1], g_near[2].reshape(-1)[searched]),
-                   np.where(from_rung, n0, rungs.reshape(-1)[rung]),
-                   np.where(from_rung, g_near[0].reshape(-1)[searched], g.reshape(-1)[rung]))
-        fewest = _closed(lambda k, _: known.steps(np.asarray(shape_of * TABLE_KEY + k, dtype=np.float64)),
-                         afforded[scenario], *bracket)
-        column.reshape(-1)[searched] = known.columns(shape_of * TABLE_KEY + fewest)
-        exact = known.figures
+    # closes its own, so that a scenario gets the same count alone as in a sweep: per interior run,
+    # the allowances before all three meet and those the count below meets.
+    interior = (runs.state > 0) & (runs.state < TABLE_RUNGS)
+    higher = np.where(interior, np.minimum(second, meets_from[2]) - runs.start, 0)
+    lower = np.where(interior, runs.end - meets_from[0], 0)
+    lengths = np.array([higher, lower]).T.reshape(-1)
+    if lengths.any():
+        run, position, from_rung = _cells(bounds[[0, 2]].T.reshape(-1), lengths)
+        exact_counts = _ExactCounts(load, hardware, found, around, exact)
+        shape_of = runs.shape[run]
+        rung = shape_of * TABLE_RUNGS + runs.state[run]
+        bracket = (np.where(from_rung, rungs.reshape(-1)[rung - 1], near[2][run]),
+                   np.where(from_rung, g.reshape(-1)[rung - 1], g_near[2][run]),
+                   np.where(from_rung, near[0][run], rungs.reshape(-1)[rung]),
+                   np.where(from_rung, g_near[0][run], g.reshape(-1)[rung]))
+        fewest = _closed(lambda k, _: exact_counts.steps(np.asarray(shape_of * TABLE_KEY + k, dtype=np.float64)),
+                         afforded[position], *bracket)
+        column[shape_of, position] = exact_counts.columns(shape_of * TABLE_KEY + fewest)
+        exact = exact_counts.figures
     return exact, column.T[scenario_of]  # (S, H)
 
 
-def _first_meeting(prefix: Floats, afforded: Floats) -> Ints:
-    """Per row of running minima (H, G) and allowance (U,), the first rung whose minimum meets it
-    (at most the allowance), G where none does or the allowance is NaN: (H, U). Few allowances (a
-    single quote) are counted in one comparison; many are located row by row by bisection."""
-    if prefix.size * afforded.size <= COUNTED_CELLS:
-        above = (prefix[:, :, np.newaxis] > afforded).sum(axis=1)
-        return np.asarray(np.where(np.isnan(afforded), prefix.shape[1], above))
-    return np.stack([np.searchsorted(-row, -afforded) for row in prefix])  # NaN sorts last
+def _cells(starts: Ints, lengths: Ints) -> tuple[Ints, Ints, Bools]:
+    """The cells of pieces (two per run: `lengths[i]` positions from `starts[i]`) in order: each
+    cell's run, its position and whether it lies in its run's second piece."""
+    piece = np.repeat(np.arange(starts.size), lengths)
+    offsets = np.cumsum(lengths) - lengths
+    position = np.arange(piece.size) + (starts - offsets)[piece]
+    return piece // 2, position, piece % 2 == 1
+
+
+@dataclass(frozen=True)
+class _Runs:
+    """A shape's allowances (ascending) cut into runs that share the first rung meeting them
+    (`state`) and the guessed count: run i covers positions start[i] to end[i] − 1 of shape
+    shape[i]; the runs are in order of shape, then position, and cover every (shape, allowance)."""
+
+    shape: Ints
+    state: Ints
+    start: Ints
+    end: Ints
+    count: Floats
+
+
+def _guess_runs(g: Floats, rungs: Floats, afforded: Floats, valid: int) -> _Runs:
+    """Per shape (a row of g, the effective step at each rung) and allowance (ascending, the first
+    `valid` not NaN), the first rung whose running minimum meets the allowance (its state:
+    TABLE_RUNGS where none does or the allowance is NaN) and the guessed count: the memory minimum
+    at state 0, the top at TABLE_RUNGS, else where the line α/k + β through that rung and the one
+    below reaches the allowance (`_reaching`).
+
+    A state holds over a range of allowances, found by locating each rung's running minimum among
+    them. Within a range of one interior state the allowance lies between the two rungs' steps, so
+    the guess falls or stays as the allowance grows (each operation of `_reaching` is monotone):
+    each range is split at GUESS_SPLITS points, and each piece whose ends differ again, until every
+    change of guess lies between neighbours. The guess is evaluated at those points only, not at
+    every allowance."""
+    h, u = g.shape[0], afforded.size
+    prefix = np.minimum.accumulate(g, axis=1)
+    # Allowances from position reach[i, j] on are met by rung j's running minimum, so the ranges of
+    # the states lie in the order of _RANGE_STATES between these edges.
+    edges = np.empty((h, TABLE_RUNGS + 3), dtype=np.int64)
+    edges[:, 0], edges[:, -2], edges[:, -1] = 0, valid, u
+    edges[:, TABLE_RUNGS:0:-1] = np.searchsorted(afforded[:valid], prefix)
+    seg_shape, seg_column = np.nonzero(edges[:, 1:] > edges[:, :-1])
+    seg_state = _RANGE_STATES[seg_column]
+    seg_start, seg_end = edges[seg_shape, seg_column], edges[seg_shape, seg_column + 1]
+    alpha, beta = _line(rungs[:, _BELOW], g[:, _BELOW], rungs, g)
+    at = seg_shape * TABLE_RUNGS + np.minimum(seg_state, TABLE_RUNGS - 1)
+    line_alpha, line_beta = alpha.reshape(-1)[at], beta.reshape(-1)[at]
+    line_lo, line_hi = rungs[:, _BELOW].reshape(-1)[at], rungs.reshape(-1)[at]
+    fixed = np.concatenate([rungs, np.full((h, 1), np.nan)], axis=1)[seg_shape, _RANGE_FIXED[seg_column]]
+
+    def guess(segment: Ints, position: Ints) -> Floats:
+        reached = _reaching(line_alpha[segment], line_beta[segment], line_lo[segment], line_hi[segment],
+                            afforded[position])
+        return np.asarray(np.where(np.isnan(fixed[segment]), reached, fixed[segment]))
+
+    segment = np.flatnonzero(np.isnan(fixed) & (seg_end - seg_start > 1))
+    lo, hi = seg_start[segment], seg_end[segment] - 1
+    changes = [(np.arange(seg_start.size), seg_start)]  # (range, position) where a run starts
+    while segment.size:
+        points = lo[:, np.newaxis] + (hi - lo)[:, np.newaxis] * np.arange(GUESS_SPLITS + 1) // GUESS_SPLITS
+        of = np.broadcast_to(segment[:, np.newaxis], points.shape)
+        value = guess(of, points)
+        differ = value[:, 1:] != value[:, :-1]
+        gap = points[:, 1:] - points[:, :-1]
+        changes.append((of[:, 1:][differ & (gap == 1)], points[:, 1:][differ & (gap == 1)]))
+        wide = differ & (gap > 1)
+        segment, lo, hi = of[:, 1:][wide], points[:, :-1][wide], points[:, 1:][wide]
+    run_segment, start, end = changes[0][0], seg_start, seg_end
+    if len(changes) > 1:  # a run ends where the next run of its range starts, else where its range ends
+        run_segment, start = (np.concatenate(part) for part in zip(*changes, strict=True))
+        order = np.lexsort((start, run_segment))
+        run_segment, start = run_segment[order], start[order]
+        end = seg_end[run_segment]
+        same = run_segment[1:] == run_segment[:-1]
+        end[:-1][same] = start[1:][same]
+    return _Runs(seg_shape[run_segment], seg_state[run_segment], start, end, guess(run_segment, start))
 
 
 def gathered(load: Load, hardware: Hardware, table: dict[str, Any], column: Ints) -> GatheredGrid:

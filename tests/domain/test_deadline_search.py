@@ -55,22 +55,47 @@ def test_the_deadline_candidate_is_the_first_count_that_meets_the_deadline(seed:
     assert compared > 100
 
 
-@pytest.mark.parametrize("counted_cells", [0, 10**9])
-def test_the_first_rung_meeting_each_allowance_is_the_same_counted_or_bisected(
-        counted_cells: int, monkeypatch: pytest.MonkeyPatch) -> None:
-    """`_first_meeting` counts the rungs above an allowance in one comparison when there are few
-    (a single quote) and bisects each shape's running minima when there are many (a sweep): both
-    must give the first rung at or below the allowance, found here by a plain scan, including
-    layouts that do not fit (inf), allowances equal to a rung, and allowances of inf, -inf and NaN
-    (a scenario whose deadline leaves no time)."""
-    monkeypatch.setattr(deadline, "COUNTED_CELLS", counted_cells)
+@pytest.mark.parametrize("splits", [2, deadline.GUESS_SPLITS])
+def test_each_allowance_gets_the_rung_and_guess_a_plain_scan_gives_it(splits: int,
+                                                                      monkeypatch: pytest.MonkeyPatch) -> None:
+    """`_guess_runs` cuts each shape's allowances into runs of one state (the first rung whose
+    running minimum meets the allowance) and one guessed count, evaluating the guess only where
+    runs may change. Laid out cell by cell, the runs must give every allowance the state a plain
+    scan gives it and the guess `_reaching` gives it alone, including layouts that do not fit
+    (inf), allowances equal to a rung, thousands of allowances within one rung's range (the
+    guess changing many times), and allowances of inf, -inf and NaN (a scenario whose deadline
+    leaves no time). Two splits per step makes the search go many levels deep."""
+    monkeypatch.setattr(deadline, "GUESS_SPLITS", splits)
     rng = np.random.default_rng(7)
-    g = rng.uniform(1.0, 100.0, (6, deadline.TABLE_RUNGS))
-    g[rng.random(g.shape) < 0.25] = np.inf
+    shapes_, rungs_ = 6, deadline.TABLE_RUNGS
+    k_min = rng.integers(1, 8, (1, shapes_)).astype(float)
+    rungs = deadline.table_rungs(k_min, k_min * rng.uniform(5.0, 4000.0, (1, shapes_)))[0]
+    g = 3600.0 / rungs + rng.uniform(0.0, 1.0, (shapes_, 1))  # falls with the count, as a step does
+    g[rng.random(g.shape) < 0.2] = np.inf
+    g[:, 5] *= 1.5  # a step that grows again: the running minimum stays
     g[5] = np.inf  # a shape that never fits
     prefix = np.minimum.accumulate(g, axis=1)
-    afforded = np.unique(np.concatenate([rng.uniform(0.0, 120.0, 40), prefix[np.isfinite(prefix)][:12],
-                                         [np.inf, -np.inf, np.nan]]))
-    expected = [[next((j for j in range(deadline.TABLE_RUNGS) if prefix[i, j] <= a), deadline.TABLE_RUNGS)
-                 for a in afforded] for i in range(prefix.shape[0])]
-    assert deadline._first_meeting(prefix, afforded).tolist() == expected
+    afforded = np.unique(np.concatenate([rng.uniform(0.0, 1000.0, 4000), prefix[np.isfinite(prefix)][:12],
+                                         g[np.isfinite(g)][:12], [np.inf, -np.inf, np.nan]]))
+    valid = int(np.count_nonzero(~np.isnan(afforded)))
+    runs = deadline._guess_runs(g, rungs, afforded, valid)
+
+    state = np.full((shapes_, afforded.size), -1)
+    guess = np.full((shapes_, afforded.size), np.nan)
+    assert (runs.end > runs.start).all()
+    for shape, s, start, end, count in zip(runs.shape, runs.state, runs.start, runs.end, runs.count, strict=True):
+        assert (state[shape, start:end] == -1).all()  # no cell in two runs
+        state[shape, start:end], guess[shape, start:end] = s, count
+    expected_state = np.array([[next((j for j in range(rungs_) if prefix[i, j] <= a), rungs_) for a in afforded]
+                               for i in range(shapes_)])
+    assert (state == expected_state).all()
+    for i in range(shapes_):
+        for u, a in enumerate(afforded):
+            s = expected_state[i, u]
+            if s in (0, rungs_):
+                assert guess[i, u] == rungs[i, 0 if s == 0 else -1]
+                continue
+            alpha, beta = deadline._line(rungs[i, s - 1], g[i, s - 1], rungs[i, s], g[i, s])
+            assert guess[i, u] == deadline._reaching(alpha, beta, rungs[i, s - 1], rungs[i, s], a), (i, u)
+    # The runs are few where the allowances are many: the guess was not evaluated at every one.
+    assert runs.start.size < afforded.size
