@@ -122,7 +122,7 @@ class Reservoir:
     def add(self, values: Floats) -> None:
         values = values[np.isfinite(values)]
         if self._sample is None and self.seen + values.size <= self.capacity:
-            self._parts.append(values.copy())
+            self._parts.append(values)  # a fresh array: the mask above copied it
             self.seen += values.size
             return
         if self._sample is None:

@@ -5,11 +5,13 @@
 Every figure is measured in this one run, on one core (the BLAS/OpenMP pools are limited to one
 thread before numpy loads, and CPU time of this process is what the rates divide by):
 
-1. Core: scenarios per second of the vectorised evaluation (`evaluate_chunk` on one chunk of
-   20,000 Monte Carlo scenarios) against a per-scenario scalar evaluation of the same model
-   (`evaluate_campaign` once per scenario, 200 scenarios), on a 10-venue catalog built from the
-   demo one by copying its sites and offers under new ids. Targets: ratio ≥ 200×, rate ≥ 150,000
-   scenarios/s per core. Beside them, a bound: the same chunk with the layout pinned
+1. Core: scenarios per second of the vectorised evaluation (`evaluate_chunk` on 20,000 Monte Carlo
+   scenarios in the chunks a sweep cuts, `chunk_size`, and beside it as one chunk) against a
+   per-scenario scalar evaluation of the same model (`evaluate_campaign` once per scenario, 200
+   scenarios), on a 10-venue catalog built from the demo one by copying its sites and offers under
+   new ids. This process keeps the memory of the arrays it frees, as every sweep runner does
+   (`keep_freed_arrays`). Targets: ratio ≥ 200×, rate in the sweep's chunks ≥ 150,000 scenarios/s
+   per core. Beside them, a bound: the same chunk with the layout pinned
    (`fixed_accelerators` = PINNED_ACCELERATORS, one candidate node count per venue, so no layout
    search at all), which is more than any layout search, however clever, could make the rate.
 2. End to end: `berth sweep` of 1,000,000 Monte Carlo scenarios of the demo sweep and catalog, as
@@ -61,6 +63,7 @@ from service.domain import deadline  # noqa: E402
 from service.domain.evaluate import evaluate_campaign  # noqa: E402
 from service.domain.sweep import chunk_size, evaluate_chunk, scenario_chunks  # noqa: E402
 from service.domain.whatif import apply  # noqa: E402
+from service.usecases.chunk_pool import keep_freed_arrays  # noqa: E402
 from service.usecases.quoting import quote  # noqa: E402
 from service.usecases.sweeps import SweepLimits, prepare_sweep  # noqa: E402
 
@@ -161,7 +164,7 @@ def core_benchmark() -> None:
         chunked_rate = VECTOR_SCENARIOS / chunked_cpu
         pinned_rate = VECTOR_SCENARIOS / pinned_cpu
         scalar_rate = SCALAR_SCENARIOS / scalar_cpu
-        ratio = vector_rate / scalar_rate
+        ratio = chunked_rate / scalar_rate
         print(f"  {label}: {venues} venues, {len(result.labels)} options, inputs varied: {', '.join(plan.paths)}")
         print(f"    vectorised, one chunk of {VECTOR_SCENARIOS:,}: {vector_cpu:.3f} s CPU ({vector_wall:.3f} s wall)"
               f" = {vector_rate:,.0f} scenarios/s per core")
@@ -171,13 +174,13 @@ def core_benchmark() -> None:
               f" search): {pinned_cpu:.3f} s CPU = {pinned_rate:,.0f} scenarios/s per core")
         print(f"    scalar loop, {SCALAR_SCENARIOS} scenarios one at a time: {scalar_cpu:.3f} s CPU"
               f" ({scalar_wall:.3f} s wall) = {scalar_rate:,.1f} scenarios/s per core")
-        print(f"    ratio vectorised / scalar: {ratio:,.1f}x", flush=True)
+        print(f"    ratio vectorised (the sweep's chunks) / scalar: {ratio:,.1f}x", flush=True)
         if venues == 10:
             verdict(f"vectorised / scalar ratio ≥ {TARGET_RATIO:.0f}x ({label})", ratio >= TARGET_RATIO,
                     f"{ratio:,.1f}x")
-            verdict(f"vectorised rate ≥ {TARGET_RATE:,.0f} scenarios/s per core ({label})",
-                    vector_rate >= TARGET_RATE,
-                    f"{vector_rate:,.0f} scenarios/s per core ({vector_rate / TARGET_RATE:.4f} of the target)")
+            verdict(f"vectorised rate ≥ {TARGET_RATE:,.0f} scenarios/s per core ({label}, the sweep's chunks)",
+                    chunked_rate >= TARGET_RATE,
+                    f"{chunked_rate:,.0f} scenarios/s per core ({chunked_rate / TARGET_RATE:.4f} of the target)")
 
 
 def venue_size_benchmark() -> None:
@@ -427,8 +430,9 @@ def end_to_end_csv(directory: Path, scenarios: int) -> None:
 
 def main() -> None:
     quick = "--quick" in sys.argv[1:]
+    kept = keep_freed_arrays()  # as `berth sweep`, its workers and the service's sweep runner do
     print(f"python {sys.version.split()[0]}, numpy {np.__version__}, {os.cpu_count()} CPUs seen; "
-          "BLAS/OpenMP pools limited to 1 thread", flush=True)
+          f"BLAS/OpenMP pools limited to 1 thread; freed arrays kept: {kept}", flush=True)
     core_benchmark()
     venue_size_benchmark()
     step_grid_benchmark()
