@@ -29,6 +29,7 @@ from service.domain.terms import (
     new_build_cost,
     new_build_lines,
     new_build_share,
+    new_build_utilisation,
     storage_cost,
 )
 
@@ -90,9 +91,7 @@ def new_build_charges(node: NodeMonth, variable: Floats, economics: SiteEconomic
     site = economics.site
 
     def share_of(grid: LayoutGrid) -> NewBuildShare:
-        return new_build_share(grid, depreciation_months=site.depreciation_months,
-                               accelerators_per_node=site.node_type.accelerators_per_node,
-                               recurrence=campaign.recurrence)
+        return new_build_share(grid, depreciation_months=site.depreciation_months, recurrence=campaign.recurrence)
 
     def cost(grid: LayoutGrid) -> Floats:
         return new_build_cost(grid, node, share_of(grid), variable_per_accelerator_hour=variable)
@@ -100,7 +99,8 @@ def new_build_charges(node: NodeMonth, variable: Floats, economics: SiteEconomic
     def itemise(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
         share = share_of(grid)
         lines = new_build_lines(grid, node, share, variable_per_accelerator_hour=variable) | data.lines(grid)
-        return lines, {"utilisation": share.utilisation, "sharing_instances": share.sharing_instances,
+        utilisation = new_build_utilisation(grid, share, accelerators_per_node=site.node_type.accelerators_per_node)
+        return lines, {"utilisation": utilisation, "sharing_instances": share.sharing_instances,
                        "carried_months": share.carried_months}
     return Charges(cost, itemise)
 

@@ -335,7 +335,11 @@ def wall_figures(load: Load, hardware: Hardware, effective_step_seconds: Floats,
     """The wall clock of a run, steps × runs × the effective step plus staging (model.md §5), and
     its accelerator-hours."""
     steps, staging = scenario_terms(load, hardware)
-    wall = np.asarray(steps * effective_step_seconds + staging)
+    wall = np.asarray(steps * effective_step_seconds)
+    if wall.shape == np.broadcast_shapes(wall.shape, np.shape(staging)):
+        wall += staging  # in place where the shapes allow: this runs over every candidate of every scenario
+    else:
+        wall = wall + staging
     return {"wall_seconds": wall, "accelerator_hours": np.asarray(wall * (accelerators / SECONDS_PER_HOUR))}
 
 

@@ -69,19 +69,22 @@ def _owned_lines(node_months: Floats, node: NodeMonth, grid: LayoutGrid,
 class NewBuildShare:
     carried_months: Floats
     sharing_instances: Floats
-    utilisation: Floats  # of the new nodes over their life, with recurrence
 
 
-def new_build_share(
-    grid: LayoutGrid, *, depreciation_months: int, accelerators_per_node: int,
-    recurrence: Recurrence | None,
-) -> NewBuildShare:
+def new_build_share(grid: LayoutGrid, *, depreciation_months: int, recurrence: Recurrence | None) -> NewBuildShare:
     """New nodes are carried for their depreciation life (or the campaign, if longer) and their
     cost is shared by the recurring instances that fit in that life."""
     months = np.maximum(float(depreciation_months), wall_hours(grid) / HOURS_PER_MONTH)
     sharing = instances_sharing(window_months=months, wall_hours=wall_hours(grid), recurrence=recurrence)
-    capacity_hours = grid.nodes * accelerators_per_node * months * HOURS_PER_MONTH
-    return NewBuildShare(months, sharing, sharing * grid.accelerator_hours / capacity_hours)
+    return NewBuildShare(months, sharing)
+
+
+def new_build_utilisation(grid: LayoutGrid, share: NewBuildShare, *, accelerators_per_node: int) -> Floats:
+    """The new nodes' utilisation over their life, with recurrence: the sharing instances'
+    accelerator-hours over the nodes' capacity. Only the chosen layout's is reported, so the
+    layout search, which prices every candidate, does not compute it."""
+    capacity_hours = grid.nodes * accelerators_per_node * share.carried_months * HOURS_PER_MONTH
+    return np.asarray(share.sharing_instances * grid.accelerator_hours / capacity_hours)
 
 
 def new_build_lines(
