@@ -93,14 +93,22 @@ def on_one_table(load: Load, hardware: Hardware, found: Shapes, base: Columns, k
     """Every scenario solved on one table of node counts, when the step does not vary by scenario:
     the base candidates' figures (one row, without the wall clock) and the deadline candidates'
     (`_deadline_block`), the table evaluated with the base candidates in one pass."""
-    rungs = table_rungs(k_min, k_top)[0]
-    table_columns = _shape_columns(found, np.repeat(np.arange(found.count), TABLE_RUNGS), rungs.reshape(-1),
-                                   hardware.accelerators_per_node)
+    first, table, rungs = _tables(load, hardware, found, base, k_min, k_top)
+    return (first, *_deadline_block(load, hardware, found, k_min, k_top, rungs[0], table, deadline))
+
+
+def _tables(load: Load, hardware: Hardware, found: Shapes, base: Columns, k_min: Floats,
+            k_top: Floats) -> tuple[dict[str, Any], dict[str, Any], Floats]:
+    """The base candidates' figures and the deadline table's (each shape at its TABLE_RUNGS rungs),
+    evaluated in one pass, one row per step (the rows of the load, the hardware and the bounds),
+    and the rungs (R, H, G)."""
+    rungs = table_rungs(k_min, k_top)
+    table_columns = _shape_columns(found, np.repeat(np.arange(found.count), TABLE_RUNGS),
+                                   rungs.reshape(rungs.shape[0], -1), hardware.accelerators_per_node)
     both = step_figures(load, hardware, _side_by_side(base, table_columns), found)
     width = base.nodes.shape[1]
-    table = {name: value[:, width:] for name, value in both.items()}
     return ({name: value[:, :width] for name, value in both.items()},
-            *_deadline_block(load, hardware, found, k_min, k_top, rungs, table, deadline))
+            {name: value[:, width:] for name, value in both.items()}, rungs)
 
 
 def step_varies(load: Load, hardware: Hardware, k_min: Floats, k_top: Floats) -> bool:
@@ -115,8 +123,11 @@ def table_rungs(k_min: Floats, k_top: Floats) -> Floats:
 
 
 def _side_by_side(a: Columns, b: Columns) -> Columns:
-    """Two one-row sets of candidate columns as one."""
-    return Columns(*(np.concatenate([getattr(a, f.name), getattr(b, f.name)], axis=1) for f in fields(Columns)))
+    """Two sets of candidate columns as one, a row that stands for all broadcast to the other's rows."""
+    def joined(x: Any, y: Any) -> Any:
+        rows = max(x.shape[0], y.shape[0])
+        return np.concatenate([np.broadcast_to(x, (rows, x.shape[1])), np.broadcast_to(y, (rows, y.shape[1]))], axis=1)
+    return Columns(*(joined(getattr(a, f.name), getattr(b, f.name)) for f in fields(Columns)))
 
 
 def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats, k_top: Floats, rungs: Floats,
@@ -421,30 +432,44 @@ def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGr
     """The candidate blocks when the step varies by scenario but takes few distinct values: each
     group of scenarios sharing a step is solved as a scenario alone is (`on_one_table`, or only the
     base candidates without a deadline), and every scenario gathers its group's figures from the
-    groups' rows laid side by side."""
-    width = base.nodes.shape[1]
-    firsts: list[dict[str, Any]] = []
+    groups' rows laid side by side. The groups' base candidates and tables are evaluated in one
+    pass, a row per group (its first scenario's step)."""
+    width, rows, count = base.nodes.shape[1], groups.rows, len(groups.members)
+    firsts = np.array([int(members[0]) for members in groups.members])
+    step_load, step_hardware = take_rows(load, firsts, rows), take_rows(hardware, firsts, rows)
+    step_base = take_rows(base, firsts, rows)
+    first_column = groups.step_of[:, np.newaxis] * width + np.arange(width)[np.newaxis, :]
+    if deadline is None:
+        return (gathered(load, hardware, _one_row(step_figures(step_load, step_hardware, step_base, found), count),
+                         first_column),)
+    group_k_min, group_k_top = take_rows(k_min, firsts, rows), take_rows(k_top, firsts, rows)
+    first, table, rungs = _tables(step_load, step_hardware, found, step_base, group_k_min, group_k_top)
     exacts: list[dict[str, Any]] = []
-    column = np.empty((groups.rows, found.count), dtype=np.int64)
+    column = np.empty((rows, found.count), dtype=np.int64)
     offset = 0
     for group, members in enumerate(groups.members):
-        step_load, step_hardware = groups.alone(load, hardware, group)
-        one, rows = groups.one(group), groups.rows
-        step_base = take_rows(base, one, rows)
-        if deadline is None:
-            firsts.append(step_figures(step_load, step_hardware, step_base, found))
-            continue
-        first, exact, at = on_one_table(step_load, step_hardware, found, step_base, take_rows(k_min, one, rows),
-                                        take_rows(k_top, one, rows), take_rows(deadline, members, rows))
-        firsts.append(first)
+        alone_load, alone_hardware = groups.alone(load, hardware, group)
+        exact, at = _deadline_block(alone_load, alone_hardware, found, _row(group_k_min, group),
+                                    _row(group_k_top, group), _row(rungs, group)[0],
+                                    {name: _row(value, group) for name, value in table.items()},
+                                    take_rows(deadline, members, rows))
         exacts.append(exact)
         column[members] = at + offset
         offset += np.shape(exact["nodes"])[1]
-    first_column = groups.step_of[:, np.newaxis] * width + np.arange(width)[np.newaxis, :]
-    blocks = [gathered(load, hardware, _side_by_side_figures(firsts), first_column)]
-    if deadline is not None:
-        blocks.append(gathered(load, hardware, _side_by_side_figures(exacts), column))
-    return tuple(blocks)
+    return (gathered(load, hardware, _one_row(first, count), first_column),
+            gathered(load, hardware, _side_by_side_figures(exacts), column))
+
+
+def _row(value: Any, row: int) -> Any:
+    """Row `row` of an array whose first axis runs over the groups or has one row for all, keeping
+    the axis."""
+    array = np.asarray(value)
+    return array[row:row + 1] if array.shape[0] > 1 else array
+
+
+def _one_row(figures: dict[str, Any], count: int) -> dict[str, Any]:
+    """Figures of `count` rows (a row may stand for all) laid side by side as one row."""
+    return {name: np.broadcast_to(value, (count, np.shape(value)[1])).reshape(1, -1) for name, value in figures.items()}
 
 
 def _side_by_side_figures(parts: list[dict[str, Any]]) -> dict[str, Any]:
