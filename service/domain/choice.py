@@ -48,7 +48,7 @@ class Choice:
 
 
 def choose(layouts: Eligible, costs: Sequence[ArrayLike]) -> Choice:
-    """Per scenario, the cheapest layout that meets the deadline (the faster of equal costs); when
+    """Per scenario, the cheapest layout that meets the deadline (the first of equal costs); when
     none meets it, the fastest layout that fits (reported as missing the deadline). `costs` holds
     each block's cost of its candidates."""
     cheapest = _first_least([np.where(meets, cost, np.inf) for meets, cost in zip(layouts.meets, costs, strict=True)],

@@ -21,6 +21,7 @@ from service.domain.step import (
     GatheredGrid,
     Hardware,
     Load,
+    scenario_rows,
     scenario_terms,
     step_figures,
     wall_figures,
@@ -186,7 +187,7 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
                    np.where(from_rung, g.reshape(-1)[rung - 1], g_near[2][run]),
                    np.where(from_rung, near[0][run], rungs.reshape(-1)[rung]),
                    np.where(from_rung, g_near[0][run], g.reshape(-1)[rung]))
-        fewest = _closed(lambda k, _: exact_counts.steps(np.asarray(shape_of * TABLE_KEY + k, dtype=np.float64)),
+        fewest, _ = _closed(lambda k, _: exact_counts.steps(np.asarray(shape_of * TABLE_KEY + k, dtype=np.float64)),
                          afforded[position], *bracket)
         column[shape_of, position] = exact_counts.columns(shape_of * TABLE_KEY + fewest)
         exact = exact_counts.figures
@@ -310,11 +311,11 @@ class _ExactCounts:
 
 
 def _closed(measure: Callable[[Floats, Bools], Floats], target: Floats, k_lo: Floats, g_lo: Floats, k_hi: Floats,
-            g_hi: Floats) -> Floats:
+            g_hi: Floats) -> tuple[Floats, Floats]:
     """The fewest count whose measure (effective step or wall clock) meets the target, between k_lo,
     whose g_lo misses it, and k_hi, whose g_hi meets it: false position on g(k) = α/k + β alternating
     with halving until the two are neighbours (halving alone closes any bracket within SEARCH_STEPS).
-    `measure(k, open)` need only measure the entries still open."""
+    `measure(k, open)` need only measure the entries still open. Returns the count and its measure."""
     for step in range(SEARCH_STEPS):
         open_bracket = (k_hi - k_lo > 1.0) & (g_lo > target) & (g_hi <= target)
         if not open_bracket.any():
@@ -326,33 +327,37 @@ def _closed(measure: Callable[[Floats, Bools], Floats], target: Floats, k_lo: Fl
         meets, misses = open_bracket & (g <= target), open_bracket & ~(g <= target)
         k_hi, g_hi = np.where(meets, guess, k_hi), np.where(meets, g, g_hi)
         k_lo, g_lo = np.where(misses, guess, k_lo), np.where(misses, g, g_lo)
-    return k_hi
+    return k_hi, g_hi
 
 
-def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, deadline: Floats, rungs: Floats) -> Floats:
+def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, deadline: Floats,
+                   rungs: Floats) -> tuple[Floats, Bools, Floats]:
     """Per scenario and shape, the fewest node units that meet the deadline when the step varies by
     scenario, found as the table path finds it: the first of the rungs (R, H, G) that meets it, then
     between it and the rung below, false position on wall(k) = α/k + β alternating with halving
     until the two counts are neighbours; the memory minimum where it already meets it, the top where
     no rung does. A count whose layout does not fit misses. A scenario's rungs are evaluated only
     until each of its shapes has met the deadline, and its brackets only while one is open; of those
-    scenarios, only the shapes that some of them have still to settle."""
+    scenarios, only the shapes that some of them have still to settle. Returns the counts, and
+    whether each layout fits and its wall clock there, as the search measured them."""
     h = found.count
-    rows = _scenario_rows(load, hardware, deadline, rungs)
+    rows = scenario_rows(load, hardware, deadline, rungs)
     counts = np.broadcast_to(rungs, (rows, h, TABLE_RUNGS))
     target = np.broadcast_to(deadline.reshape(-1, 1), (rows, h))
 
-    def wall_at(at: Ints, shapes: Ints, k: Floats) -> Floats:
+    def measured(at: Ints, shapes: Ints, k: Floats) -> tuple[Floats, Bools]:
         """The wall clock of scenarios `at` for the shapes `shapes` at node units k ((len(at) or 1,
-        len(shapes))); inf where it does not fit."""
+        len(shapes))), and whether each layout fits."""
         at_load, at_hardware = take_rows(load, at, rows), take_rows(hardware, at, rows)
         columns = _shape_columns(found, shapes, k, hardware.accelerators_per_node)
         step = step_figures(at_load, at_hardware, columns, found, clock_only=True)
         wall = wall_figures(at_load, at_hardware, step["effective_step_seconds"], step["accelerators"])["wall_seconds"]
-        return np.asarray(np.broadcast_to(np.where(step["fits"], wall, np.inf), (at.size, shapes.size)))
+        return (np.asarray(np.broadcast_to(wall, (at.size, shapes.size))),
+                np.asarray(np.broadcast_to(step["fits"], (at.size, shapes.size))))
 
     first = np.full((rows, h), TABLE_RUNGS)
-    before, w_lo, w_hi = (np.full((rows, h), np.inf) for _ in range(3))
+    before, w_lo, w_hi, kept_wall = (np.full((rows, h), np.inf) for _ in range(4))
+    kept_fits = np.zeros((rows, h), dtype=bool)  # kept_*: at the rung that met, else the last (the top)
     scanning = np.arange(rows)
     for j in range(TABLE_RUNGS):
         if not scanning.size:
@@ -361,8 +366,12 @@ def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, deadline: Floa
         block = np.ix_(scanning, shapes)
         # A rung that is the same for every scenario stays one row: the figures that do not
         # depend on the scenario are then computed once.
-        wall = wall_at(scanning, shapes, rungs[:, shapes, j] if rungs.shape[0] == 1 else rungs[block][..., j])
-        fresh = (first[block] == TABLE_RUNGS) & (wall <= target[block])
+        raw, fits = measured(scanning, shapes, rungs[:, shapes, j] if rungs.shape[0] == 1 else rungs[block][..., j])
+        wall = np.where(fits, raw, np.inf)
+        unmet = first[block] == TABLE_RUNGS
+        kept_wall[block] = np.where(unmet, raw, kept_wall[block])
+        kept_fits[block] = np.where(unmet, fits, kept_fits[block])
+        fresh = unmet & (wall <= target[block])
         at_row, at_shape = np.nonzero(fresh)
         r, s = scanning[at_row], shapes[at_shape]
         first[r, s], w_hi[r, s], w_lo[r, s] = j, wall[fresh], before[r, s]
@@ -377,11 +386,16 @@ def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, deadline: Floa
         g = np.full(k.shape, np.inf)
         open_rows, open_shapes = np.flatnonzero(open_bracket.any(axis=1)), np.flatnonzero(open_bracket.any(axis=0))
         block = np.ix_(open_rows, open_shapes)
-        g[block] = wall_at(open_rows, open_shapes, k[block])
+        raw, fits = measured(open_rows, open_shapes, k[block])
+        g[block] = np.where(fits, raw, np.inf)
         return g
 
-    fewest = _closed(measure, target, k_lo, w_lo, k_hi, w_hi)
-    return np.asarray(np.where(reached, fewest, counts[..., -1]))
+    fewest, wall_there = _closed(measure, target, k_lo, w_lo, k_hi, w_hi)
+    # A count the bracket moved to met a finite deadline, so its layout fits and its wall clock is
+    # the one measured; elsewhere the count is the rung kept.
+    moved = fewest != k_hi
+    return (np.asarray(np.where(reached, fewest, counts[..., -1])), np.asarray(moved | kept_fits),
+            np.asarray(np.where(moved, wall_there, kept_wall)))
 
 
 @dataclass(frozen=True)
@@ -413,7 +427,7 @@ def step_groups(load: Load, hardware: Hardware, deadline: Floats, *bounds: Float
     ((R, H) arrays), when the groups are few enough for a table per group to pay (at least
     SCENARIOS_PER_STEP scenarios each on average: a grid over model size, network or failure rates);
     else None."""
-    rows = _scenario_rows(load, hardware, deadline, *bounds)
+    rows = scenario_rows(load, hardware, deadline, *bounds)
     inputs = [np.asarray(value, dtype=np.float64) for value in (*_step_inputs(load, hardware), *bounds)]
     # Only what varies by scenario tells scenarios apart.
     varying = [value.reshape(rows, -1) for value in inputs if value.ndim and value.shape[0] == rows > 1]
@@ -475,9 +489,3 @@ def _one_row(figures: dict[str, Any], count: int) -> dict[str, Any]:
 def _side_by_side_figures(parts: list[dict[str, Any]]) -> dict[str, Any]:
     """One-row figures of several sets of candidates as one row."""
     return {name: np.concatenate([np.asarray(part[name]) for part in parts], axis=1) for name in parts[0]}
-
-
-def _scenario_rows(load: Load, hardware: Hardware, *arrays: Floats) -> int:
-    """How many scenarios the step's inputs and `arrays` run over: their longest leading axis."""
-    values = [getattr(source, f.name) for source in (load, hardware) for f in fields(source)]
-    return max([1, *(int(v.shape[0]) for v in (*values, *arrays) if isinstance(v, np.ndarray) and v.ndim >= 1)])

@@ -34,13 +34,18 @@ from service.domain.step import (
     PINNED,
     Architecture,
     Columns,
+    FiguresOnRead,
     Hardware,
     LayoutGrid,
     Load,
+    accelerator_hours,
     activations,
     batch_sequences,
     evaluate_columns,
     rank_parameters,
+    scenario_rows,
+    step_figures,
+    wall_figures,
     with_wall,
 )
 
@@ -168,12 +173,19 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
     if groups is not None:
         return Candidates(blocks_by_step(load, hardware, found, groups, base, k_min, k_top,
                                          deadline if has_deadline else None)), fewest
-    first = evaluate_columns(load, hardware, base, found)
+    # Each scenario has its own step: only the figures that price and choose a layout are made for
+    # every candidate, the others for the chosen ones (FiguresOnRead).
+    rows = scenario_rows(load, hardware, deadline, k_min, k_top)
+    step = step_figures(load, hardware, base, found, clock_only=True)
+    first = FiguresOnRead(load, hardware, base, found, rows, fits=step["fits"],
+                          **wall_figures(load, hardware, step["effective_step_seconds"], step["accelerators"]))
     if not has_deadline:
         return Candidates((first,)), fewest
-    met = fewest_meeting(load, hardware, found, deadline, table_rungs(k_min, k_top)) * unit
+    units, fits, wall = fewest_meeting(load, hardware, found, deadline, table_rungs(k_min, k_top))
+    met = units * unit
     meeting = Columns(tensor, pipeline, met, met * per_node, np.full(met.shape, DEADLINE))
-    return Candidates((first, evaluate_columns(load, hardware, meeting, found))), fewest
+    return Candidates((first, FiguresOnRead(load, hardware, meeting, found, rows, fits=fits, wall_seconds=wall,
+                                            accelerator_hours=accelerator_hours(wall, meeting.accelerators)))), fewest
 
 
 def _shapes(load: Load, accelerators_per_node: int, *, fixed_accelerators: int | None) -> Shapes:

@@ -7,13 +7,13 @@ every figure broadcasts to (S, K), and one that does not vary by scenario stays 
 """
 
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 from functools import cached_property
 from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats
+from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats, take_rows
 from service.domain.assumptions import default
 from service.domain.campaign import LayoutPins, Parallelism, Recompute
 from service.domain.memory import (
@@ -148,6 +148,9 @@ class LayoutGrid:
         return read
 
 
+_FIGURES = frozenset(f.name for f in fields(LayoutGrid))
+
+
 class GatheredGrid(LayoutGrid):
     """A block whose figures are drawn from one row of distinct candidates, `table[name][0, column]`
     for an (S, K) array of columns: a figure is gathered only when it is read, and `cells` reads single
@@ -177,6 +180,45 @@ class GatheredGrid(LayoutGrid):
             if name in self.__dict__ or name not in self._table:
                 return gathered(name)
             return np.asarray(self._table[name])[0][cell]
+        return read
+
+
+class FiguresOnRead(LayoutGrid):
+    """A block whose figures for pricing and choosing (its columns, whether each fits, the wall
+    clock and accelerator-hours) are given, and every other figure is evaluated only when read:
+    for the cells read (`cells`: the chosen layouts), or for the whole block when a figure is read
+    whole. Where each scenario has its own step, the full figures of every candidate would cost
+    more than all the pricing."""
+
+    def __init__(self, load: Load, hardware: Hardware, columns: "Columns", found: Shapes, scenarios: int,
+                 **given: Any) -> None:
+        width = np.shape(columns.nodes)[1]
+        for name, value in ({f.name: getattr(columns, f.name) for f in fields(columns)} | given).items():
+            object.__setattr__(self, name, _two_d(value, width))
+        object.__setattr__(self, "_inputs", (load, hardware, columns, found, scenarios))
+
+    def __getattr__(self, name: str) -> Any:
+        if name.startswith("_") or name not in _FIGURES:
+            raise AttributeError(name)
+        load, hardware, columns, found, _ = self._inputs
+        for key, value in step_figures(load, hardware, columns, found).items():
+            if key not in self.__dict__:
+                object.__setattr__(self, key, value)
+        return self.__dict__[name]
+
+    def cells(self, rows: Ints, columns: Ints) -> Callable[[str], Any]:
+        load, hardware, _, found, scenarios = self._inputs
+        given = super().cells(rows, columns)
+
+        def taken(name: str) -> Any:
+            return np.asarray(given(name))[:, np.newaxis]
+        at = Columns(*(taken(f.name) for f in fields(Columns)))
+        figures = step_figures(take_rows(load, rows, scenarios), take_rows(hardware, rows, scenarios), at, found)
+
+        def read(name: str) -> Any:
+            if name in self.__dict__:
+                return given(name)
+            return np.broadcast_to(figures[name], (rows.size, 1))[:, 0]
         return read
 
 
@@ -340,7 +382,11 @@ def wall_figures(load: Load, hardware: Hardware, effective_step_seconds: Floats,
         wall += staging  # in place where the shapes allow: this runs over every candidate of every scenario
     else:
         wall = wall + staging
-    return {"wall_seconds": wall, "accelerator_hours": np.asarray(wall * (accelerators / SECONDS_PER_HOUR))}
+    return {"wall_seconds": wall, "accelerator_hours": accelerator_hours(wall, accelerators)}
+
+
+def accelerator_hours(wall_seconds: Floats, accelerators: Floats) -> Floats:
+    return np.asarray(wall_seconds * (accelerators / SECONDS_PER_HOUR))
 
 
 def scenario_terms(load: Load, hardware: Hardware) -> tuple[Floats, Floats]:
@@ -367,3 +413,9 @@ def _step_work(load: Load) -> tuple[Floats, Floats]:
     batch = as_floats(load.global_batch_tokens).reshape(-1, 1)
     return (as_floats(load.timed_flops_per_token).reshape(-1, 1) * batch,
             as_floats(load.tokens_per_run).reshape(-1, 1) / batch)
+
+
+def scenario_rows(load: Load, hardware: Hardware, *arrays: Floats) -> int:
+    """How many scenarios the step's inputs and `arrays` run over: their longest leading axis."""
+    values = [getattr(source, f.name) for source in (load, hardware) for f in fields(source)]
+    return max([1, *(int(v.shape[0]) for v in (*values, *arrays) if isinstance(v, np.ndarray) and v.ndim >= 1)])

@@ -5,13 +5,15 @@ false position and halving) must land on that count, also where failures make th
 with the node count. Demo figures (random campaigns and hardware); no published check value.
 """
 
+from dataclasses import fields
+
 import numpy as np
 import pytest
 
 from service.domain import deadline
 from service.domain.layout import DEADLINE, Architecture, evaluate_layouts
 from service.domain.parallelism import shapes
-from service.domain.step import Columns, evaluate_columns
+from service.domain.step import Columns, FiguresOnRead, LayoutGrid, evaluate_columns
 from tests.domain.builders import hardware, load
 
 SCENARIOS = 30
@@ -99,3 +101,52 @@ def test_each_allowance_gets_the_rung_and_guess_a_plain_scan_gives_it(splits: in
             assert guess[i, u] == deadline._reaching(alpha, beta, rungs[i, s - 1], rungs[i, s], a), (i, u)
     # The runs are few where the allowances are many: the guess was not evaluated at every one.
     assert runs.start.size < afforded.size
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_where_each_scenario_has_its_own_step_the_figures_made_later_equal_a_full_evaluation(seed: int) -> None:
+    """Where the step varies by scenario, a candidate's figures for pricing and choosing (fits, wall
+    clock, accelerator-hours) are made for every candidate, for the deadline candidates straight from
+    the search's own measurements, and every other figure only when read (`FiguresOnRead`): for the
+    cells read, as the chosen layouts are, or for the whole block. Each must equal a full evaluation
+    of the same columns (`evaluate_columns`), exactly, including deadlines no count meets, no
+    deadline at all (inf) and layouts that do not fit."""
+    rng = np.random.default_rng(3000 + seed)
+    arch = Architecture(layers=32, d_model=4096.0, sequence_length=4096.0, attention_heads=32.0)
+    parameters = float(rng.choice([7e9, 13e9, 30e9]))
+    tokens = rng.lognormal(np.log(20.0 * parameters), 0.3, SCENARIOS)
+    deadline_days = rng.uniform(0.5, 60.0, SCENARIOS)
+    deadline_days[:3] = [np.inf, 1e-3, 0.0]  # no deadline; deadlines no count meets
+    campaign = load(parameters=np.asarray(parameters), tokens=tokens, timed_flops_per_run=6.0 * parameters * tokens,
+                    timed_flops_per_token=np.asarray(6.0 * parameters), tokens_per_run=tokens, architecture=arch,
+                    deadline_seconds=deadline_days * DAY, global_batch_tokens=np.full(1, 4e6))
+    # Each scenario its own speed: the step varies by scenario, over too many values for a table each.
+    venue = hardware(sustained_flops_per_accelerator=rng.uniform(2e13, 9e13, SCENARIOS),
+                     node_mtbf_hours=np.full(1, rng.uniform(2000.0, 20000.0)),
+                     memory_bytes=float(rng.choice([40, 80])) * 2.0**30)
+    limit = float(rng.integers(16, 600))
+    candidates = evaluate_layouts(campaign, venue, node_limits=[np.asarray(limit)])[0]
+    assert len(candidates.blocks) == 2 and all(isinstance(b, FiguresOnRead) for b in candidates.blocks)
+    found = shapes(accelerators_per_node=8, layers=arch.layers, attention_heads=arch.attention_heads,
+                   pins=campaign.pins, zero_stages=campaign.zero_stages)
+    names = [f.name for f in fields(LayoutGrid)]
+    for block in candidates.blocks:
+        full = evaluate_columns(campaign, venue, Columns(block.tensor, block.pipeline, block.nodes,
+                                                         block.accelerators, block.origin), found)
+        for name in ("fits", "wall_seconds", "accelerator_hours"):  # made for every candidate
+            assert np.array_equal(_whole(block, name), _whole(full, name), equal_nan=True), name
+        rows, columns = np.arange(SCENARIOS), rng.integers(0, np.shape(block.nodes)[1], SCENARIOS)
+        read = block.cells(rows, columns)
+        for name in names:  # made for the cells read
+            expected = _whole(full, name)[rows, columns]
+            assert np.array_equal(np.broadcast_to(read(name), expected.shape), expected, equal_nan=True), name
+        for name in names:  # made for the whole block when read whole
+            assert np.array_equal(_whole(block, name), _whole(full, name), equal_nan=True), name
+    # The deadline candidates include counts that meet the deadline and counts that do not.
+    met = _whole(candidates.blocks[1], "wall_seconds") <= (deadline_days * DAY)[:, np.newaxis]
+    assert met.any() and not met.all()
+
+
+def _whole(grid: LayoutGrid, name: str) -> np.ndarray:
+    """A figure of every scenario (SCENARIOS rows) and candidate."""
+    return np.broadcast_to(getattr(grid, name), (SCENARIOS, np.shape(grid.nodes)[1]))
