@@ -126,8 +126,10 @@ def table_rungs(k_min: Floats, k_top: Floats) -> Floats:
 def _side_by_side(a: Columns, b: Columns) -> Columns:
     """Two sets of candidate columns as one, a row that stands for all broadcast to the other's rows."""
     def joined(x: Any, y: Any) -> Any:
-        rows = max(x.shape[0], y.shape[0])
-        return np.concatenate([np.broadcast_to(x, (rows, x.shape[1])), np.broadcast_to(y, (rows, y.shape[1]))], axis=1)
+        if x.shape[0] != y.shape[0]:
+            rows = max(x.shape[0], y.shape[0])
+            x, y = np.broadcast_to(x, (rows, x.shape[1])), np.broadcast_to(y, (rows, y.shape[1]))
+        return np.concatenate([x, y], axis=1)
     return Columns(*(joined(getattr(a, f.name), getattr(b, f.name)) for f in fields(Columns)))
 
 
@@ -167,6 +169,8 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     # NaN allowance's); each allowance takes the first of the three that meets it, else the one above.
     meets_from = np.where(runs.start < valid, np.clip(np.searchsorted(afforded[:valid], g_near), runs.start, runs.end),
                           runs.end)  # (3, R)
+    # Per run, in order: the count above up to where the guess or the count below meets, then the
+    # guess up to where the count below meets, then the count below.
     second = np.minimum(meets_from[0], meets_from[1])
     bounds = np.array([runs.start, second, meets_from[0], runs.end])
     column = np.repeat(where[::-1].T.reshape(-1), (bounds[1:] - bounds[:-1]).T.reshape(-1)).reshape(h, u)
@@ -245,7 +249,8 @@ def _guess_runs(g: Floats, rungs: Floats, afforded: Floats, valid: int) -> _Runs
     line_lo, line_hi = rungs[:, _BELOW].reshape(-1)[at], rungs.reshape(-1)[at]
     fixed = np.concatenate([rungs, np.full((h, 1), np.nan)], axis=1)[seg_shape, _RANGE_FIXED[seg_column]]
 
-    def guess(segment: Ints, position: Ints) -> Floats:
+    def guess(position: Ints, segment: Ints | slice = slice(None)) -> Floats:
+        """The guess at allowances `position` of the ranges `segment` (by default each range in turn)."""
         reached = _reaching(line_alpha[segment], line_beta[segment], line_lo[segment], line_hi[segment],
                             afforded[position])
         return np.asarray(np.where(np.isnan(fixed[segment]), reached, fixed[segment]))
@@ -256,21 +261,22 @@ def _guess_runs(g: Floats, rungs: Floats, afforded: Floats, valid: int) -> _Runs
     while segment.size:
         points = lo[:, np.newaxis] + (hi - lo)[:, np.newaxis] * np.arange(GUESS_SPLITS + 1) // GUESS_SPLITS
         of = np.broadcast_to(segment[:, np.newaxis], points.shape)
-        value = guess(of, points)
+        value = guess(points, of)
         differ = value[:, 1:] != value[:, :-1]
         gap = points[:, 1:] - points[:, :-1]
         changes.append((of[:, 1:][differ & (gap == 1)], points[:, 1:][differ & (gap == 1)]))
         wide = differ & (gap > 1)
         segment, lo, hi = of[:, 1:][wide], points[:, :-1][wide], points[:, 1:][wide]
-    run_segment, start, end = changes[0][0], seg_start, seg_end
-    if len(changes) > 1:  # a run ends where the next run of its range starts, else where its range ends
-        run_segment, start = (np.concatenate(part) for part in zip(*changes, strict=True))
-        order = np.lexsort((start, run_segment))
-        run_segment, start = run_segment[order], start[order]
-        end = seg_end[run_segment]
-        same = run_segment[1:] == run_segment[:-1]
-        end[:-1][same] = start[1:][same]
-    return _Runs(seg_shape[run_segment], seg_state[run_segment], start, end, guess(run_segment, start))
+    if len(changes) == 1:  # each range is one run
+        return _Runs(seg_shape, seg_state, seg_start, seg_end, guess(seg_start))
+    # A run ends where the next run of its range starts, else where its range ends.
+    run_segment, start = (np.concatenate(part) for part in zip(*changes, strict=True))
+    order = np.lexsort((start, run_segment))
+    run_segment, start = run_segment[order], start[order]
+    end = seg_end[run_segment]
+    same = run_segment[1:] == run_segment[:-1]
+    end[:-1][same] = start[1:][same]
+    return _Runs(seg_shape[run_segment], seg_state[run_segment], start, end, guess(start, run_segment))
 
 
 def gathered(load: Load, hardware: Hardware, table: dict[str, Any], column: Ints) -> GatheredGrid:

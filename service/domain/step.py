@@ -378,7 +378,7 @@ def wall_figures(load: Load, hardware: Hardware, effective_step_seconds: Floats,
     its accelerator-hours."""
     steps, staging = scenario_terms(load, hardware)
     wall = np.asarray(steps * effective_step_seconds)
-    if wall.shape == np.broadcast_shapes(wall.shape, np.shape(staging)):
+    if wall.ndim == 2 and staging.shape[0] in (1, wall.shape[0]):  # staging: (S, 1)
         wall += staging  # in place where the shapes allow: this runs over every candidate of every scenario
     else:
         wall = wall + staging
@@ -386,6 +386,7 @@ def wall_figures(load: Load, hardware: Hardware, effective_step_seconds: Floats,
 
 
 def accelerator_hours(wall_seconds: Floats, accelerators: Floats) -> Floats:
+    """The accelerator-hours of a wall clock."""
     return np.asarray(wall_seconds * (accelerators / SECONDS_PER_HOUR))
 
 
