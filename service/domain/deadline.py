@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 
 from service.domain.arrays import Bools, Floats, Ints, take_rows
+from service.domain.guesses import TABLE_RUNGS, guess_runs, interpolated
 from service.domain.parallelism import Shapes
 from service.domain.step import (
     DEADLINE,
@@ -29,41 +30,11 @@ from service.domain.step import (
 
 SEARCH_STEPS = 100  # bracket steps towards the fewest nodes that meet the deadline: halving every other
 # step closes any bracket of counts below MAX_UNITS well within it
-TABLE_RUNGS = 16  # node counts per shape in the table the deadline is solved on
 SCENARIOS_PER_STEP = 64  # where the step varies, scenarios per distinct step from which solving a table per
 # step beats solving each scenario on its own rungs (measured on a 10-venue catalog: even at 64 when the
 # network varies, at about 24 when the model size does)
 TABLE_KEY = 2.0**40  # (shape, count) keys: shape × TABLE_KEY + count, counts below it
 MAX_UNITS = TABLE_KEY - 2.0  # node units a candidate may have: beyond any venue (limits.MAX_NODES)
-GUESS_SPLITS = 16  # pieces into which a range of allowances whose guesses may differ is split, per step
-# The ranges of allowances a shape's rungs cut, in ascending order of allowance: the state of each (the
-# first rung meeting it; TABLE_RUNGS for none, then again for the NaN allowances at the end), and the
-# rung whose count it takes (TABLE_RUNGS: none, the count is interpolated).
-_RANGE_STATES = np.array([*range(TABLE_RUNGS, -1, -1), TABLE_RUNGS])
-_RANGE_FIXED = np.array([TABLE_RUNGS - 1, *[TABLE_RUNGS] * (TABLE_RUNGS - 1), 0, TABLE_RUNGS - 1])
-_BELOW = np.maximum(np.arange(TABLE_RUNGS) - 1, 0)  # the rung below each (the first its own)
-
-
-def _line(k_lo: Floats, g_lo: Floats, k_hi: Floats, g_hi: Floats) -> tuple[Floats, Floats]:
-    """(α, β) of the line g(k) = α/k + β through (k_lo, g_lo) and (k_hi, g_hi)."""
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        alpha = (g_lo - g_hi) / (1.0 / k_lo - 1.0 / k_hi)
-        return alpha, g_hi - alpha / k_hi
-
-
-def _reaching(alpha: Floats, beta: Floats, k_lo: Floats, k_hi: Floats, target: Floats) -> Floats:
-    """The count k at which α/k + β reaches the target, rounded up and kept inside (k_lo, k_hi]; k_hi
-    where the line does not reach it."""
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        guess = np.ceil(alpha / (target - beta) - 1e-9)
-    return np.asarray(np.clip(np.where(np.isfinite(guess) & (guess > 0), guess, k_hi), k_lo + 1.0, k_hi))
-
-
-def _interpolated(k_lo: Floats, g_lo: Floats, k_hi: Floats, g_hi: Floats, target: Floats) -> Floats:
-    """The count at which the line through (k_lo, g_lo) and (k_hi, g_hi) reaches the target (`_reaching`)."""
-    return _reaching(*_line(k_lo, g_lo, k_hi, g_hi), k_lo, k_hi, target)
-
-
 def _shape_columns(found: Shapes, shape: Ints, units: Floats, accelerators_per_node: int) -> Columns:
     """Deadline candidates: shape `shape[j]` at `units[..., j]` node units, one row (units (n,)) or one
     per scenario (units (R, n))."""
@@ -144,7 +115,7 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
 
     The answer depends on a scenario only through its allowance, so each distinct allowance is
     solved once, in ascending order, and a shape's allowances fall into a few runs of one guess
-    (`_guess_runs`): within a run each of the three exact counts meets the allowances from some
+    (`guesses.guess_runs`): within a run each of the three exact counts meets the allowances from some
     position on, so every allowance's count is laid out run by run, not compared one by one."""
     steps, staging = scenario_terms(load, hardware)
     allowance = np.asarray((deadline - staging) / steps).reshape(-1)  # the effective step each scenario affords
@@ -153,7 +124,7 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     effective = table["effective_step_seconds"]
     g = np.where(table["fits"] & ~np.isnan(effective), effective, np.inf).reshape(h, TABLE_RUNGS)
     valid = u - int(np.count_nonzero(np.isnan(afforded)))
-    runs = _guess_runs(g, rungs, afforded, valid)
+    runs = guess_runs(g, rungs, afforded, valid)
     # The exact counts just below, at and above each run's guess, within the shape's range, each
     # distinct (shape, count) evaluated once.
     near = np.clip(runs.count + np.array([[-1.0], [0.0], [1.0]]), k_min[0][runs.shape], k_top[0][runs.shape])
@@ -207,78 +178,6 @@ def _cells(starts: Ints, lengths: Ints) -> tuple[Ints, Ints, Bools]:
     return piece // 2, position, piece % 2 == 1
 
 
-@dataclass(frozen=True)
-class _Runs:
-    """A shape's allowances (ascending) cut into runs that share the first rung meeting them
-    (`state`) and the guessed count: run i covers positions start[i] to end[i] − 1 of shape
-    shape[i]; the runs are in order of shape, then position, and cover every (shape, allowance)."""
-
-    shape: Ints
-    state: Ints
-    start: Ints
-    end: Ints
-    count: Floats
-
-
-def _guess_runs(g: Floats, rungs: Floats, afforded: Floats, valid: int) -> _Runs:
-    """Per shape (a row of g, the effective step at each rung) and allowance (ascending, the first
-    `valid` not NaN), the first rung whose running minimum meets the allowance (its state:
-    TABLE_RUNGS where none does or the allowance is NaN) and the guessed count: the memory minimum
-    at state 0, the top at TABLE_RUNGS, else where the line α/k + β through that rung and the one
-    below reaches the allowance (`_reaching`).
-
-    A state holds over a range of allowances, found by locating each rung's running minimum among
-    them. Within a range of one interior state the allowance lies between the two rungs' steps, so
-    the guess falls or stays as the allowance grows (each operation of `_reaching` is monotone):
-    each range is split at GUESS_SPLITS points, and each piece whose ends differ again, until every
-    change of guess lies between neighbours. The guess is evaluated at those points only, not at
-    every allowance."""
-    h, u = g.shape[0], afforded.size
-    prefix = np.minimum.accumulate(g, axis=1)
-    # Allowances from position reach[i, j] on are met by rung j's running minimum, so the ranges of
-    # the states lie in the order of _RANGE_STATES between these edges.
-    edges = np.empty((h, TABLE_RUNGS + 3), dtype=np.int64)
-    edges[:, 0], edges[:, -2], edges[:, -1] = 0, valid, u
-    edges[:, TABLE_RUNGS:0:-1] = np.searchsorted(afforded[:valid], prefix)
-    seg_shape, seg_column = np.nonzero(edges[:, 1:] > edges[:, :-1])
-    seg_state = _RANGE_STATES[seg_column]
-    seg_start, seg_end = edges[seg_shape, seg_column], edges[seg_shape, seg_column + 1]
-    alpha, beta = _line(rungs[:, _BELOW], g[:, _BELOW], rungs, g)
-    at = seg_shape * TABLE_RUNGS + np.minimum(seg_state, TABLE_RUNGS - 1)
-    line_alpha, line_beta = alpha.reshape(-1)[at], beta.reshape(-1)[at]
-    line_lo, line_hi = rungs[:, _BELOW].reshape(-1)[at], rungs.reshape(-1)[at]
-    fixed = np.concatenate([rungs, np.full((h, 1), np.nan)], axis=1)[seg_shape, _RANGE_FIXED[seg_column]]
-
-    def guess(position: Ints, segment: Ints | slice = slice(None)) -> Floats:
-        """The guess at allowances `position` of the ranges `segment` (by default each range in turn)."""
-        reached = _reaching(line_alpha[segment], line_beta[segment], line_lo[segment], line_hi[segment],
-                            afforded[position])
-        return np.asarray(np.where(np.isnan(fixed[segment]), reached, fixed[segment]))
-
-    segment = np.flatnonzero(np.isnan(fixed) & (seg_end - seg_start > 1))
-    lo, hi = seg_start[segment], seg_end[segment] - 1
-    changes = [(np.arange(seg_start.size), seg_start)]  # (range, position) where a run starts
-    while segment.size:
-        points = lo[:, np.newaxis] + (hi - lo)[:, np.newaxis] * np.arange(GUESS_SPLITS + 1) // GUESS_SPLITS
-        of = np.broadcast_to(segment[:, np.newaxis], points.shape)
-        value = guess(points, of)
-        differ = value[:, 1:] != value[:, :-1]
-        gap = points[:, 1:] - points[:, :-1]
-        changes.append((of[:, 1:][differ & (gap == 1)], points[:, 1:][differ & (gap == 1)]))
-        wide = differ & (gap > 1)
-        segment, lo, hi = of[:, 1:][wide], points[:, :-1][wide], points[:, 1:][wide]
-    if len(changes) == 1:  # each range is one run
-        return _Runs(seg_shape, seg_state, seg_start, seg_end, guess(seg_start))
-    # A run ends where the next run of its range starts, else where its range ends.
-    run_segment, start = (np.concatenate(part) for part in zip(*changes, strict=True))
-    order = np.lexsort((start, run_segment))
-    run_segment, start = run_segment[order], start[order]
-    end = seg_end[run_segment]
-    same = run_segment[1:] == run_segment[:-1]
-    end[:-1][same] = start[1:][same]
-    return _Runs(seg_shape[run_segment], seg_state[run_segment], start, end, guess(start, run_segment))
-
-
 def gathered(load: Load, hardware: Hardware, table: dict[str, Any], column: Ints) -> GatheredGrid:
     """The block of the candidates `table[name][0, column]`, with what every term reads of it (nodes,
     accelerators, fits) and its wall clock gathered now."""
@@ -326,7 +225,7 @@ def _closed(measure: Callable[[Floats, Bools], Floats], target: Floats, k_lo: Fl
         open_bracket = (k_hi - k_lo > 1.0) & (g_lo > target) & (g_hi <= target)
         if not open_bracket.any():
             break
-        inside = (np.minimum(_interpolated(k_lo, g_lo, k_hi, g_hi, target), k_hi - 1.0) if step % 2 == 0
+        inside = (np.minimum(interpolated(k_lo, g_lo, k_hi, g_hi, target), k_hi - 1.0) if step % 2 == 0
                   else np.floor((k_lo + k_hi) / 2.0))
         guess = np.where(open_bracket, inside, k_hi)
         g = measure(guess, open_bracket)

@@ -10,7 +10,7 @@ from dataclasses import fields
 import numpy as np
 import pytest
 
-from service.domain import deadline
+from service.domain import deadline, guesses
 from service.domain.layout import DEADLINE, Architecture, evaluate_layouts
 from service.domain.parallelism import shapes
 from service.domain.step import Columns, FiguresOnRead, LayoutGrid, evaluate_columns
@@ -57,19 +57,19 @@ def test_the_deadline_candidate_is_the_first_count_that_meets_the_deadline(seed:
     assert compared > 100
 
 
-@pytest.mark.parametrize("splits", [2, deadline.GUESS_SPLITS])
+@pytest.mark.parametrize("splits", [2, guesses.GUESS_SPLITS])
 def test_each_allowance_gets_the_rung_and_guess_a_plain_scan_gives_it(splits: int,
                                                                       monkeypatch: pytest.MonkeyPatch) -> None:
-    """`_guess_runs` cuts each shape's allowances into runs of one state (the first rung whose
+    """`guess_runs` cuts each shape's allowances into runs of one state (the first rung whose
     running minimum meets the allowance) and one guessed count, evaluating the guess only where
     runs may change. Laid out cell by cell, the runs must give every allowance the state a plain
-    scan gives it and the guess `_reaching` gives it alone, including layouts that do not fit
+    scan gives it and the guess `reaching` gives it alone, including layouts that do not fit
     (inf), allowances equal to a rung, thousands of allowances within one rung's range (the
     guess changing many times), and allowances of inf, -inf and NaN (a scenario whose deadline
     leaves no time). Two splits per step makes the search go many levels deep."""
-    monkeypatch.setattr(deadline, "GUESS_SPLITS", splits)
+    monkeypatch.setattr(guesses, "GUESS_SPLITS", splits)
     rng = np.random.default_rng(7)
-    shapes_, rungs_ = 6, deadline.TABLE_RUNGS
+    shapes_, rungs_ = 6, guesses.TABLE_RUNGS
     k_min = rng.integers(1, 8, (1, shapes_)).astype(float)
     rungs = deadline.table_rungs(k_min, k_min * rng.uniform(5.0, 4000.0, (1, shapes_)))[0]
     g = 3600.0 / rungs + rng.uniform(0.0, 1.0, (shapes_, 1))  # falls with the count, as a step does
@@ -80,7 +80,7 @@ def test_each_allowance_gets_the_rung_and_guess_a_plain_scan_gives_it(splits: in
     afforded = np.unique(np.concatenate([rng.uniform(0.0, 1000.0, 4000), prefix[np.isfinite(prefix)][:12],
                                          g[np.isfinite(g)][:12], [np.inf, -np.inf, np.nan]]))
     valid = int(np.count_nonzero(~np.isnan(afforded)))
-    runs = deadline._guess_runs(g, rungs, afforded, valid)
+    runs = guesses.guess_runs(g, rungs, afforded, valid)
 
     state = np.full((shapes_, afforded.size), -1)
     guess = np.full((shapes_, afforded.size), np.nan)
@@ -97,8 +97,8 @@ def test_each_allowance_gets_the_rung_and_guess_a_plain_scan_gives_it(splits: in
             if s in (0, rungs_):
                 assert guess[i, u] == rungs[i, 0 if s == 0 else -1]
                 continue
-            alpha, beta = deadline._line(rungs[i, s - 1], g[i, s - 1], rungs[i, s], g[i, s])
-            assert guess[i, u] == deadline._reaching(alpha, beta, rungs[i, s - 1], rungs[i, s], a), (i, u)
+            alpha, beta = guesses.line(rungs[i, s - 1], g[i, s - 1], rungs[i, s], g[i, s])
+            assert guess[i, u] == guesses.reaching(alpha, beta, rungs[i, s - 1], rungs[i, s], a), (i, u)
     # The runs are few where the allowances are many: the guess was not evaluated at every one.
     assert runs.start.size < afforded.size
 
