@@ -312,6 +312,11 @@ class StepGroups:
     step_of: Ints
     members: tuple[Ints, ...]
 
+    @property
+    def firsts(self) -> Ints:
+        """Each group's first scenario."""
+        return np.array([int(members[0]) for members in self.members])
+
     def one(self, group: int) -> slice:
         """The group's first scenario, as a slice that keeps the scenario axis."""
         first = int(self.members[group][0])
@@ -352,24 +357,22 @@ def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGr
     group of scenarios sharing a step is solved as a scenario alone is (`on_one_table`, or only the
     base candidates without a deadline), and every scenario gathers its group's figures from the
     groups' rows laid side by side. The groups' base candidates and tables are evaluated in one
-    pass, a row per group (its first scenario's step)."""
+    pass, a row per group (its first scenario's step): `base`, `k_min` and `k_top` are given at the
+    groups' first scenarios (or one row for all)."""
     width, rows, count = base.nodes.shape[1], groups.rows, len(groups.members)
-    firsts = np.array([int(members[0]) for members in groups.members])
-    step_load, step_hardware = take_rows(load, firsts, rows), take_rows(hardware, firsts, rows)
-    step_base = take_rows(base, firsts, rows)
+    step_load, step_hardware = take_rows(load, groups.firsts, rows), take_rows(hardware, groups.firsts, rows)
     first_column = groups.step_of[:, np.newaxis] * width + np.arange(width)[np.newaxis, :]
     if deadline is None:
-        return (gathered(load, hardware, _one_row(step_figures(step_load, step_hardware, step_base, found), count),
+        return (gathered(load, hardware, _one_row(step_figures(step_load, step_hardware, base, found), count),
                          first_column),)
-    group_k_min, group_k_top = take_rows(k_min, firsts, rows), take_rows(k_top, firsts, rows)
-    first, table, rungs = _tables(step_load, step_hardware, found, step_base, group_k_min, group_k_top)
+    first, table, rungs = _tables(step_load, step_hardware, found, base, k_min, k_top)
     exacts: list[dict[str, Any]] = []
     column = np.empty((rows, found.count), dtype=np.int64)
     offset = 0
     for group, members in enumerate(groups.members):
         alone_load, alone_hardware = groups.alone(load, hardware, group)
-        exact, at = _deadline_block(alone_load, alone_hardware, found, _row(group_k_min, group),
-                                    _row(group_k_top, group), _row(rungs, group)[0],
+        exact, at = _deadline_block(alone_load, alone_hardware, found, _row(k_min, group),
+                                    _row(k_top, group), _row(rungs, group)[0],
                                     {name: _row(value, group) for name, value in table.items()},
                                     take_rows(deadline, members, rows))
         exacts.append(exact)

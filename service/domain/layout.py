@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Floats, Ints, as_floats
+from service.domain.arrays import ArrayLike, Floats, Ints, as_floats, take_rows
 from service.domain.deadline import (
     MAX_UNITS,
     blocks_by_step,
@@ -156,23 +156,23 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
             for limit in node_limits]
     k_top = np.minimum(np.maximum(np.maximum.reduce(np.broadcast_arrays(*tops)), k_min), MAX_UNITS)
 
-    # The memory minimum and the most each limit allows, per shape, as one block.
-    counts = np.concatenate(np.broadcast_arrays(k_min, *tops), axis=1)
-    copies = len(tops) + 1
-    nodes = counts * np.tile(unit, copies)
-    origins = np.repeat(np.array([MEMORY] + [NODE_LIMIT] * len(tops)), found.count)[np.newaxis, :]
-    base = Columns(np.tile(tensor, copies), np.tile(pipeline, copies), nodes, nodes * per_node, origins)
     deadline = as_floats(load.deadline_seconds).reshape(-1, 1)
     has_deadline = bool(np.isfinite(deadline).any())
     if not step_varies(load, hardware, k_min, k_top):
+        base = _base_columns(found, unit, per_node, k_min, tops)
         if not has_deadline:
             return Candidates((evaluate_columns(load, hardware, base, found),)), fewest
         figures, exact, column = on_one_table(load, hardware, found, base, k_min, k_top, deadline)
         return Candidates((with_wall(load, hardware, figures), gathered(load, hardware, exact, column))), fewest
     groups = step_groups(load, hardware, deadline, k_min, *tops)
-    if groups is not None:
-        return Candidates(blocks_by_step(load, hardware, found, groups, base, k_min, k_top,
-                                         deadline if has_deadline else None)), fewest
+    if groups is not None:  # the base candidates and bounds at each group's first scenario only
+        def at_groups(bound: Floats) -> Floats:
+            return np.asarray(take_rows(bound, groups.firsts, groups.rows))
+        return Candidates(blocks_by_step(
+            load, hardware, found, groups, _base_columns(found, unit, per_node, at_groups(k_min),
+                                                         [at_groups(top) for top in tops]),
+            at_groups(k_min), at_groups(k_top), deadline if has_deadline else None)), fewest
+    base = _base_columns(found, unit, per_node, k_min, tops)
     # Each scenario has its own step: only the figures that price and choose a layout are made for
     # every candidate, the others for the chosen ones (FiguresOnRead).
     rows = scenario_rows(load, hardware, deadline, k_min, k_top)
@@ -186,6 +186,15 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
     meeting = Columns(tensor, pipeline, met, met * per_node, np.full(met.shape, DEADLINE))
     return Candidates((first, FiguresOnRead(load, hardware, meeting, found, rows, fits=fits, wall_seconds=wall,
                                             accelerator_hours=accelerator_hours(wall, meeting.accelerators)))), fewest
+
+
+def _base_columns(found: Shapes, unit: Floats, per_node: int, k_min: Floats, tops: list[Floats]) -> Columns:
+    """The memory minimum and the most each limit allows, per shape, as one block of candidates."""
+    copies = len(tops) + 1
+    nodes = np.concatenate(np.broadcast_arrays(k_min, *tops), axis=1) * np.tile(unit, copies)
+    origins = np.repeat(np.array([MEMORY] + [NODE_LIMIT] * len(tops)), found.count)[np.newaxis, :]
+    return Columns(np.tile(found.tensor[np.newaxis, :], copies), np.tile(found.pipeline[np.newaxis, :], copies),
+                   nodes, nodes * per_node, origins)
 
 
 def _shapes(load: Load, accelerators_per_node: int, *, fixed_accelerators: int | None) -> Shapes:
