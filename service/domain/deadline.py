@@ -9,6 +9,7 @@ finds. `layout.py` asks for it among a venue's candidates.
 
 from collections.abc import Callable
 from dataclasses import dataclass, fields, replace
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -312,14 +313,14 @@ class StepGroups:
     step_of: Ints
     members: tuple[Ints, ...]
 
-    @property
+    @cached_property
     def firsts(self) -> Ints:
         """Each group's first scenario."""
         return np.array([int(members[0]) for members in self.members])
 
     def one(self, group: int) -> slice:
         """The group's first scenario, as a slice that keeps the scenario axis."""
-        first = int(self.members[group][0])
+        first = int(self.firsts[group])
         return slice(first, first + 1)
 
     def alone(self, load: Load, hardware: Hardware, group: int) -> tuple[Load, Hardware]:
@@ -371,22 +372,15 @@ def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGr
     offset = 0
     for group, members in enumerate(groups.members):
         alone_load, alone_hardware = groups.alone(load, hardware, group)
-        exact, at = _deadline_block(alone_load, alone_hardware, found, _row(k_min, group),
-                                    _row(k_top, group), _row(rungs, group)[0],
-                                    {name: _row(value, group) for name, value in table.items()},
-                                    take_rows(deadline, members, rows))
+        at_group = slice(group, group + 1)  # the group's row of the arrays that run over the groups
+        exact, at = _deadline_block(alone_load, alone_hardware, found, take_rows(k_min, at_group, count),
+                                    take_rows(k_top, at_group, count), take_rows(rungs, at_group, count)[0],
+                                    take_rows(table, at_group, count), take_rows(deadline, members, rows))
         exacts.append(exact)
         column[members] = at + offset
         offset += np.shape(exact["nodes"])[1]
     return (gathered(load, hardware, _one_row(first, count), first_column),
             gathered(load, hardware, _side_by_side_figures(exacts), column))
-
-
-def _row(value: Any, row: int) -> Any:
-    """Row `row` of an array whose first axis runs over the groups or has one row for all, keeping
-    the axis."""
-    array = np.asarray(value)
-    return array[row:row + 1] if array.shape[0] > 1 else array
 
 
 def _one_row(figures: dict[str, Any], count: int) -> dict[str, Any]:
