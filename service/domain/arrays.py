@@ -24,6 +24,18 @@ def broadcast(value: ArrayLike, shape: tuple[int, ...]) -> Any:
     return array if array.shape == shape else np.broadcast_to(array, shape)
 
 
+def longest_axis(value: Any) -> int:
+    """The longest leading axis of the arrays in `value`, through dataclasses, dicts and tuples: the
+    scenarios it runs over (1 when none varies)."""
+    if isinstance(value, np.ndarray):
+        return int(value.shape[0]) if value.ndim >= 1 else 1
+    if isinstance(value, dict):
+        value = tuple(value.values())
+    elif is_dataclass(value) and not isinstance(value, type):
+        value = tuple(getattr(value, f.name) for f in fields(value))
+    return max((longest_axis(item) for item in value), default=1) if isinstance(value, tuple) else 1
+
+
 def take_rows(value: Any, index: Any, scenarios: int) -> Any:
     """`value` at some of its scenarios: every array whose leading axis runs over the `scenarios`
     (when there is more than one) taken at `index`, a slice or an index array, through dataclasses,

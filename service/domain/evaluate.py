@@ -12,7 +12,7 @@ from typing import Any, Literal
 import numpy as np
 
 from service.domain import screens
-from service.domain.arrays import Bools, Floats, Ints, as_floats, broadcast
+from service.domain.arrays import Bools, Floats, Ints, as_floats, broadcast, longest_axis
 from service.domain.assumptions import default
 from service.domain.campaign import Campaign, MeasuredWork, Overrides, QuoteOptions, Recurrence, TransformerWork
 from service.domain.catalog import Catalog, NodeType, Offer, Site
@@ -130,6 +130,7 @@ class _Context:
     work: WorkAmount
     multiplier: Floats
     load: Load  # what the campaign asks of any venue: the same for every venue
+    scenarios: int  # how many the campaign and its overrides run over
     allowed: frozenset[str] | None
     home: Site | Offer | None
     fits: dict[tuple[int, float], NodeFit] = field(default_factory=dict)  # by node size, shared by its venues
@@ -146,7 +147,7 @@ def evaluate_campaign(
     multiplier = runs_multiplier(campaign.runs)
     context = _Context(
         catalog=catalog, campaign=campaign, options=options, overrides=overrides, work=work, multiplier=multiplier,
-        load=_load(campaign, options, work, multiplier),
+        load=_load(campaign, options, work, multiplier), scenarios=longest_axis((campaign, overrides)),
         allowed=allowed_jurisdictions(campaign.data.allowed_jurisdictions, catalog.jurisdiction_groups),
         home=None if campaign.data.home is None else venues[campaign.data.home],
     )
@@ -283,7 +284,7 @@ def _physics(venue: _Venue, context: _Context, *, limits: list[Floats],
         interruption_mean_hours=interruption_mean_hours,
         staging_seconds=staging_seconds(dataset_tb=campaign.data.dataset_tb, link=venue.transfer),
     )
-    grid, min_nodes = evaluate_layouts(load, hardware, node_limits=limits,
+    grid, min_nodes = evaluate_layouts(load, hardware, node_limits=limits, scenarios=context.scenarios,
                                        fixed_accelerators=options.fixed_accelerators,
                                        fit=_node_fit(context, hardware))
     pinned = None if options.fixed_accelerators is None else float(grid.blocks[0].nodes[0, 0])

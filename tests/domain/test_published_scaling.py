@@ -26,6 +26,7 @@ import pytest
 
 from service.contract.catalog import CatalogIn
 from service.contract.request import QuoteRequestIn
+from service.domain import layout
 from service.usecases.quoting import quote
 from tests.domain.builders import SEVEN_B_SHAPE, hardware, load, whole
 
@@ -165,10 +166,17 @@ def test_the_deadline_layout_is_the_fewest_nodes_that_meet_it() -> None:
 
 
 @pytest.mark.parametrize("limit", [1e5, 1e12])
-def test_the_candidate_layouts_do_not_grow_with_the_venues_node_limit(limit: float) -> None:
+def test_the_candidate_layouts_do_not_grow_with_the_venues_node_limit(
+        limit: float, monkeypatch: pytest.MonkeyPatch) -> None:
     run = load(parameters=7e9, tokens=1e12, architecture=SEVEN_B_SHAPE,
                deadline_seconds=np.full(1, 20 * 86400.0))
-    small, _ = whole(run, hardware(), node_limits=[64.0])
-    large, _ = whole(run, hardware(), node_limits=[limit])
-    assert large.nodes.shape == small.nodes.shape
+    many = layout.PRUNED_FROM  # scenarios enough to drop the dominated candidates
+    small, _ = whole(run, hardware(), node_limits=[64.0], scenarios=many)
+    large, _ = whole(run, hardware(), node_limits=[limit], scenarios=many)
     assert float(large.nodes.max()) <= limit
+    # The search makes a handful per shape at any size; dropping the dominated ones only lessens them.
+    monkeypatch.setattr(layout, "PRUNED_FROM", 10**12)
+    every_small, _ = whole(run, hardware(), node_limits=[64.0], scenarios=many)
+    every_large, _ = whole(run, hardware(), node_limits=[limit], scenarios=many)
+    assert every_large.nodes.shape == every_small.nodes.shape
+    assert large.nodes.shape[1] <= every_large.nodes.shape[1] and small.nodes.shape[1] <= every_small.nodes.shape[1]

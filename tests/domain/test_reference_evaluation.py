@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 
 from service.contract.catalog import CatalogIn
-from service.domain import deadline, evaluate
+from service.domain import deadline, evaluate, layout
 from service.domain.campaign import (
     Campaign,
     DataPlan,
@@ -26,6 +26,7 @@ from service.domain.campaign import (
     MeasuredWork,
     Overrides,
     QuoteOptions,
+    Recurrence,
     Training,
     TransformerWork,
     Work,
@@ -182,6 +183,95 @@ def test_scenarios_sharing_a_step_are_solved_on_its_table_as_each_alone(
     assert evaluate_both(seed, vary_step=True, distinct_steps=3, with_deadline=False) > 0  # base candidates only
     monkeypatch.setattr(deadline, "SCENARIOS_PER_STEP", SCENARIOS + 1)
     assert evaluate_both(seed, vary_step=True, distinct_steps=3) == grouped > 0
+
+
+def assert_identical(ours: Any, reference: Any, where: str) -> None:
+    """Every figure of two evaluations equal, exactly (NaN equal to NaN)."""
+    if dataclasses.is_dataclass(ours) and not isinstance(ours, type):
+        for f in dataclasses.fields(ours):
+            assert_identical(getattr(ours, f.name), getattr(reference, f.name), f"{where}.{f.name}")
+    elif isinstance(ours, dict):
+        assert ours.keys() == reference.keys(), where
+        for key in ours:
+            assert_identical(ours[key], reference[key], f"{where}[{key}]")
+    elif isinstance(ours, list | tuple):
+        assert len(ours) == len(reference), where
+        for k, (a, b) in enumerate(zip(ours, reference, strict=True)):
+            assert_identical(a, b, f"{where}[{k}]")
+    elif isinstance(ours, np.ndarray | float | int | np.number):
+        np.testing.assert_array_equal(ours, reference, err_msg=where, strict=True)
+    else:
+        assert ours == reference, where
+
+
+@pytest.mark.parametrize("recurring", [False, True])
+@pytest.mark.parametrize("seed", range(8))
+def test_dropping_the_dominated_candidates_changes_nothing_chosen_or_priced(
+        seed: int, recurring: bool, monkeypatch: pytest.MonkeyPatch) -> None:
+    """A base candidate that an earlier one dominates (fits wherever it does, on no more nodes and
+    accelerators, no longer a step) is dropped before pricing (layout.undominated), and so is a
+    shape's deadline candidate that a base candidate dominates in every scenario. Against the
+    evaluation that prices every candidate, every option's every figure must be the same: totals,
+    lines, screens and the chosen layout, on every term (committed terms price whole terms, so
+    layouts of one cost are common there and the first of them must still be the one kept), with
+    recurring instances sharing the nodes, with and without a deadline, for many scenarios and one."""
+    rng = np.random.default_rng(3000 + seed)
+    catalog = random_catalog(rng)
+    campaign, overrides = random_campaign(rng, SCENARIOS, vary_step=False, with_deadline=seed % 4 != 3)
+    if recurring:
+        campaign = dataclasses.replace(campaign, recurrence=Recurrence(
+            every_months=float(rng.choice([0.5, 1.0, 3.0, 7.0])), for_months=float(rng.choice([6.0, 24.0, 60.0]))))
+    options = QuoteOptions()
+    monkeypatch.setattr(layout, "PRUNED_FROM", 1)  # also for these 24 scenarios, and for one
+    cases = [(campaign, overrides), (one(campaign, 0), one(overrides, 0))]
+    dropped = [evaluate_campaign(catalog, c, options, o) for c, o in cases]
+    monkeypatch.setattr(layout, "PRUNED_FROM", 10**12)  # every candidate priced
+    kept = [evaluate_campaign(catalog, c, options, o) for c, o in cases]
+    for ours, reference in zip(dropped, kept, strict=True):
+        assert_identical(ours, reference, "evaluation")
+    assert any(np.isfinite(option.total).any() for option in kept[0].options)
+
+
+def test_a_column_is_dropped_only_where_an_earlier_one_dominates_it() -> None:
+    """layout.undominated on one row of five columns (demo figures)."""
+    row = {"effective_step_seconds": np.array([[2.0, 3.0, 1.0, 3.0, np.inf]]),
+           "nodes": np.array([[4.0, 4.0, 8.0, 2.0, 8.0]]),
+           "accelerators": np.array([[32.0, 32.0, 64.0, 16.0, 64.0]]),
+           "fits": np.array([[False, True, True, True, True]]),
+           "origin": np.array([[0, 0, 1, 1, 1]])}
+    # Column 1 fits where column 0 does not: kept. Column 3 dominates column 1 but comes later: kept.
+    # Column 2 (faster, larger) is dominated by none. Column 4 equals column 2 but is not finite: kept.
+    many = layout.PRUNED_FROM
+    assert_identical(layout.undominated(row, many), row, "row")
+    row["effective_step_seconds"][0, 4] = 1.0  # now column 2 dominates column 4, ties included
+    assert_identical(layout.undominated(row, many), {name: value[:, :4] for name, value in row.items()}, "dropped")
+    row["fits"][0, 0] = True  # column 0 fits and dominates column 1 (same size, shorter step)
+    assert_identical(layout.undominated(row, many), {name: value[:, [0, 2, 3]] for name, value in row.items()},
+                     "dropped")
+    assert layout.undominated(row, many - 1) is row  # too few scenarios to pay for the search
+    by_scenario = {name: np.repeat(value, 2, axis=0) for name, value in row.items()}
+    assert layout.undominated(by_scenario, many) is by_scenario  # figures varying by scenario: every column kept
+
+
+def test_a_deadline_shape_is_dropped_only_where_a_base_candidate_dominates_it_in_every_scenario() -> None:
+    """layout.undominated_shapes: three scenarios, two shapes, their deadline candidates drawn from a
+    table of four (demo figures)."""
+    base = {"effective_step_seconds": np.array([[2.0, 1.0]]), "nodes": np.array([[4.0, 16.0]]),
+            "accelerators": np.array([[32.0, 128.0]]), "fits": np.array([[True, True]])}
+    table = {"effective_step_seconds": np.array([[2.5, 1.5, 0.5, 1.0]]), "nodes": np.array([[4.0, 8.0, 16.0, 16.0]]),
+             "accelerators": np.array([[32.0, 64.0, 128.0, 128.0]]), "fits": np.array([[True, True, True, True]])}
+    # Entries 0 and 3 are dominated (by base 0 and base 1, a tie); entries 1 and 2 are not.
+    column = np.array([[0, 3], [0, 2], [0, 3]])
+    np.testing.assert_array_equal(layout.undominated_shapes(base, table, column), [1])
+    column[1, 0] = 1  # shape 0 is not dominated in scenario 1
+    np.testing.assert_array_equal(layout.undominated_shapes(base, table, column), [0, 1])
+    column[:, 1] = 3
+    np.testing.assert_array_equal(layout.undominated_shapes(base, table, column), [0])
+    table["effective_step_seconds"][0, 3] = np.inf  # a step that is not finite is never dominated
+    np.testing.assert_array_equal(layout.undominated_shapes(base, table, column), [0, 1])
+    column[1, 0] = 0
+    table["effective_step_seconds"][0, 3] = 1.0
+    np.testing.assert_array_equal(layout.undominated_shapes(base, table, column), np.zeros(0, dtype=np.int64))
 
 
 @pytest.mark.parametrize("with_parameters", [False, True])
