@@ -62,7 +62,7 @@ def _step_inputs(load: Load, hardware: Hardware) -> tuple[Floats, ...]:
 
 
 def on_one_table(load: Load, hardware: Hardware, found: Shapes, base: Columns, k_min: Floats, k_top: Floats,
-                  deadline: Floats) -> tuple[dict[str, Any], dict[str, Any], Ints]:
+                 deadline: Floats) -> tuple[dict[str, Any], dict[str, Any], Ints, Ints]:
     """Every scenario solved on one table of node counts, when the step does not vary by scenario:
     the base candidates' figures (one row, without the wall clock) and the deadline candidates'
     (`_deadline_block`), the table evaluated with the base candidates in one pass."""
@@ -106,7 +106,7 @@ def _side_by_side(a: Columns, b: Columns) -> Columns:
 
 
 def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats, k_top: Floats, rungs: Floats,
-                    table: dict[str, Any], deadline: Floats) -> tuple[dict[str, Any], Ints]:
+                    table: dict[str, Any], deadline: Floats) -> tuple[dict[str, Any], Ints, Ints]:
     """Per scenario and shape, the fewest node units that meet the deadline, when the step does not
     vary by scenario: the effective step g(k) on TABLE_RUNGS geometric counts from the memory
     minimum to the node limit (one row for all scenarios); each scenario's allowance
@@ -117,7 +117,11 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     The answer depends on a scenario only through its allowance, so each distinct allowance is
     solved once, in ascending order, and a shape's allowances fall into a few runs of one guess
     (`guesses.guess_runs`): within a run each of the three exact counts meets the allowances from some
-    position on, so every allowance's count is laid out run by run, not compared one by one."""
+    position on, so every allowance's count is laid out run by run, not compared one by one.
+
+    Returns the figures of the (shape, count) keys evaluated, one row; the column of each distinct
+    allowance's candidate per shape among them, (U, H) in ascending allowance; and each scenario's
+    allowance, (S,)."""
     steps, staging = scenario_terms(load, hardware)
     allowance = np.asarray((deadline - staging) / steps).reshape(-1)  # the effective step each scenario affords
     afforded, scenario_of = np.unique(allowance, return_inverse=True)  # ascending, NaN last
@@ -167,7 +171,7 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
                          afforded[position], *bracket)
         column[shape_of, position] = exact_counts.columns(shape_of * TABLE_KEY + fewest)
         exact = exact_counts.figures
-    return exact, column.T[scenario_of]  # (S, H)
+    return exact, column.T, scenario_of  # (U, H) in ascending allowance; each scenario's row
 
 
 def _cells(starts: Ints, lengths: Ints) -> tuple[Ints, Ints, Bools]:
@@ -373,11 +377,11 @@ def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGr
     for group, members in enumerate(groups.members):
         alone_load, alone_hardware = groups.alone(load, hardware, group)
         at_group = slice(group, group + 1)  # the group's row of the arrays that run over the groups
-        exact, at = _deadline_block(alone_load, alone_hardware, found, take_rows(k_min, at_group, count),
+        exact, at, of = _deadline_block(alone_load, alone_hardware, found, take_rows(k_min, at_group, count),
                                     take_rows(k_top, at_group, count), take_rows(rungs, at_group, count)[0],
                                     take_rows(table, at_group, count), take_rows(deadline, members, rows))
         exacts.append(exact)
-        column[members] = at + offset
+        column[members] = at[of] + offset
         offset += np.shape(exact["nodes"])[1]
     return (gathered(load, hardware, _one_row(first, count), first_column),
             gathered(load, hardware, _side_by_side_figures(exacts), column))

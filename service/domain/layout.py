@@ -166,14 +166,14 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
         if not has_deadline:
             figures = undominated(step_figures(load, hardware, base, found), scenarios)
             return Candidates((with_wall(load, hardware, figures),)), fewest
-        figures, exact, column = on_one_table(load, hardware, found, base, k_min, k_top, deadline)
+        figures, exact, column, allowance_of = on_one_table(load, hardware, found, base, k_min, k_top, deadline)
         figures = undominated(figures, scenarios)
         first = with_wall(load, hardware, figures)
         if scenarios >= PRUNED_FROM:
-            column = column[:, undominated_shapes(figures, exact, column)]
+            column = undominated_columns(figures, exact, column)
             if column.shape[1] == 0:
                 return Candidates((first,)), fewest
-        return Candidates((first, gathered(load, hardware, exact, column))), fewest
+        return Candidates((first, gathered(load, hardware, exact, column[allowance_of]))), fewest
     groups = step_groups(load, hardware, deadline, k_min, *tops)
     if groups is not None:  # the base candidates and bounds at each group's first scenario only
         def at_groups(bound: Floats) -> Floats:
@@ -213,14 +213,24 @@ def undominated(figures: dict[str, Any], scenarios: int) -> dict[str, Any]:
     return {name: np.asarray(value)[:, kept] for name, value in figures.items()}
 
 
-def undominated_shapes(first: dict[str, Any], table: dict[str, Any], column: Ints) -> Ints:
-    """The shapes of the deadline block (`column`: (S, H) into the one-row `table`) whose candidate is,
-    in some scenario, not dominated by a base candidate (`first`, one row): the others are never
-    chosen, as the base candidates come first."""
+def undominated_columns(first: dict[str, Any], table: dict[str, Any], column: Ints) -> Ints:
+    """The deadline block (`column`: (U, H) into the one-row `table`, rows in ascending allowance, so
+    that equal rows are neighbours) with, in each row, the candidates an earlier one dominates (a base
+    candidate, or the row's candidate of an earlier shape) moved after the others, in order, and the
+    columns that hold only those in every row dropped. A dominated candidate is never chosen, and
+    whatever dominates it still comes before it (dominance is transitive, and the base block comes
+    first)."""
     if not (_one_row(first) and _one_row(table)):
-        return np.arange(column.shape[1])
-    dominated = np.asarray(_dominance(first, table).any(axis=0))
-    return np.flatnonzero(~dominated[column].all(axis=0))
+        return column
+    new_row = np.concatenate([[True], (column[1:] != column[:-1]).any(axis=1)])
+    rows = column[new_row]  # the distinct rows, (R, H)
+    width = rows.shape[1]
+    by_base = np.asarray(_dominance(first, table).any(axis=0))[rows]
+    pairs = _dominance(table, table)[rows[:, :, np.newaxis], rows[:, np.newaxis, :]]  # [r, h', h]
+    dominated = by_base | (pairs & np.triu(np.ones((width, width), dtype=bool), 1)).any(axis=1)
+    kept = int(np.max(width - np.count_nonzero(dominated, axis=1)))
+    order = np.argsort(dominated, axis=1, kind="stable")[:, :kept]  # the undominated first, in order
+    return np.asarray(np.take_along_axis(rows, order, axis=1)[np.cumsum(new_row) - 1])
 
 
 def _dominance(earlier: dict[str, Any], later: dict[str, Any]) -> Bools:

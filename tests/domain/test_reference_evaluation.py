@@ -253,25 +253,29 @@ def test_a_column_is_dropped_only_where_an_earlier_one_dominates_it() -> None:
     assert layout.undominated(by_scenario, many) is by_scenario  # figures varying by scenario: every column kept
 
 
-def test_a_deadline_shape_is_dropped_only_where_a_base_candidate_dominates_it_in_every_scenario() -> None:
-    """layout.undominated_shapes: three scenarios, two shapes, their deadline candidates drawn from a
-    table of four (demo figures)."""
+def test_in_each_scenario_the_dominated_deadline_candidates_move_last_and_columns_of_only_those_go() -> None:
+    """layout.undominated_columns: distinct allowances' rows of three shapes' deadline candidates,
+    drawn from a table of five (demo figures)."""
     base = {"effective_step_seconds": np.array([[2.0, 1.0]]), "nodes": np.array([[4.0, 16.0]]),
             "accelerators": np.array([[32.0, 128.0]]), "fits": np.array([[True, True]])}
-    table = {"effective_step_seconds": np.array([[2.5, 1.5, 0.5, 1.0]]), "nodes": np.array([[4.0, 8.0, 16.0, 16.0]]),
-             "accelerators": np.array([[32.0, 64.0, 128.0, 128.0]]), "fits": np.array([[True, True, True, True]])}
-    # Entries 0 and 3 are dominated (by base 0 and base 1, a tie); entries 1 and 2 are not.
-    column = np.array([[0, 3], [0, 2], [0, 3]])
-    np.testing.assert_array_equal(layout.undominated_shapes(base, table, column), [1])
-    column[1, 0] = 1  # shape 0 is not dominated in scenario 1
-    np.testing.assert_array_equal(layout.undominated_shapes(base, table, column), [0, 1])
-    column[:, 1] = 3
-    np.testing.assert_array_equal(layout.undominated_shapes(base, table, column), [0])
+    table = {"effective_step_seconds": np.array([[2.5, 1.5, 0.5, 1.0, 1.6]]),
+             "nodes": np.array([[4.0, 8.0, 16.0, 16.0, 8.0]]),
+             "accelerators": np.array([[32.0, 128.0, 128.0, 128.0, 64.0]]), "fits": np.ones((1, 5), dtype=bool)}
+    # Entries 0 and 3 are dominated by base candidates (3 by a tie); entry 4 by entry 1 only where
+    # entry 1 comes first: entry 1 has more accelerators, so entry 4 does not dominate it either.
+    column = np.array([[0, 1, 3], [0, 1, 3], [1, 4, 2], [0, 4, 2], [0, 4, 2]])
+    np.testing.assert_array_equal(layout.undominated_columns(base, table, column),
+                                  [[1, 0, 3], [1, 0, 3], [1, 4, 2], [4, 2, 0], [4, 2, 0]])
+    table["accelerators"][0, 1] = 64.0  # now entry 1 dominates entry 4 where it comes first
+    np.testing.assert_array_equal(layout.undominated_columns(base, table, column),
+                                  [[1, 0], [1, 0], [1, 2], [4, 2], [4, 2]])
+    # A candidate dominated only by a later one stays where it is.
+    np.testing.assert_array_equal(layout.undominated_columns(base, table, np.array([[4, 1, 2]])), [[4, 1, 2]])
     table["effective_step_seconds"][0, 3] = np.inf  # a step that is not finite is never dominated
-    np.testing.assert_array_equal(layout.undominated_shapes(base, table, column), [0, 1])
-    column[1, 0] = 0
-    table["effective_step_seconds"][0, 3] = 1.0
-    np.testing.assert_array_equal(layout.undominated_shapes(base, table, column), np.zeros(0, dtype=np.int64))
+    np.testing.assert_array_equal(layout.undominated_columns(base, table, column[:2]), [[1, 3], [1, 3]])
+    assert layout.undominated_columns(base, table, np.array([[0, 0], [0, 0]])).shape == (2, 0)
+    by_scenario = {name: np.repeat(value, 2, axis=0) for name, value in table.items()}
+    assert layout.undominated_columns(base, by_scenario, column) is column
 
 
 @pytest.mark.parametrize("with_parameters", [False, True])
