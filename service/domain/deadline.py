@@ -14,6 +14,7 @@ from typing import Any
 
 import numpy as np
 
+from service.domain import dominance
 from service.domain.arrays import Bools, Floats, Ints, take_rows
 from service.domain.guesses import TABLE_RUNGS, guess_runs, interpolated
 from service.domain.parallelism import Shapes
@@ -357,34 +358,55 @@ def step_groups(load: Load, hardware: Hardware, deadline: Floats, *bounds: Float
 
 
 def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGroups, base: Columns,
-                   k_min: Floats, k_top: Floats, deadline: Floats | None) -> tuple[GatheredGrid, ...]:
+                   k_min: Floats, k_top: Floats, deadline: Floats | None, *,
+                   prune: bool = False) -> tuple[GatheredGrid, ...]:
     """The candidate blocks when the step varies by scenario but takes few distinct values: each
     group of scenarios sharing a step is solved as a scenario alone is (`on_one_table`, or only the
     base candidates without a deadline), and every scenario gathers its group's figures from the
     groups' rows laid side by side. The groups' base candidates and tables are evaluated in one
     pass, a row per group (its first scenario's step): `base`, `k_min` and `k_top` are given at the
-    groups' first scenarios (or one row for all)."""
-    width, rows, count = base.nodes.shape[1], groups.rows, len(groups.members)
+    groups' first scenarios (or one row for all). With `prune`, each group's candidates that are
+    never chosen move last and the columns holding only those go (`dominance.py`)."""
+    rows, count = groups.rows, len(groups.members)
     step_load, step_hardware = take_rows(load, groups.firsts, rows), take_rows(hardware, groups.firsts, rows)
-    first_column = groups.step_of[:, np.newaxis] * width + np.arange(width)[np.newaxis, :]
     if deadline is None:
-        return (gathered(load, hardware, _one_row(step_figures(step_load, step_hardware, base, found), count),
-                         first_column),)
+        figures = step_figures(step_load, step_hardware, base, found)
+        return (gathered(load, hardware, _one_row(figures, count), _base_column(groups, figures, prune)),)
     first, table, rungs = _tables(step_load, step_hardware, found, base, k_min, k_top)
     exacts: list[dict[str, Any]] = []
-    column = np.empty((rows, found.count), dtype=np.int64)
+    columns: list[tuple[Ints, Ints]] = []
+    kept = 0
     offset = 0
     for group, members in enumerate(groups.members):
         alone_load, alone_hardware = groups.alone(load, hardware, group)
         at_group = slice(group, group + 1)  # the group's row of the arrays that run over the groups
         exact, at, of = _deadline_block(alone_load, alone_hardware, found, take_rows(k_min, at_group, count),
-                                    take_rows(k_top, at_group, count), take_rows(rungs, at_group, count)[0],
-                                    take_rows(table, at_group, count), take_rows(deadline, members, rows))
+                                        take_rows(k_top, at_group, count), take_rows(rungs, at_group, count)[0],
+                                        take_rows(table, at_group, count), take_rows(deadline, members, rows))
+        at_kept = at.shape[1]
+        if prune:
+            at, at_kept = dominance.deadline_order(take_rows(first, at_group, count), exact, at)
+        kept = max(kept, at_kept)
         exacts.append(exact)
-        column[members] = at[of] + offset
+        columns.append((members, at[of] + offset))
         offset += np.shape(exact["nodes"])[1]
-    return (gathered(load, hardware, _one_row(first, count), first_column),
-            gathered(load, hardware, _side_by_side_figures(exacts), column))
+    base_block = gathered(load, hardware, _one_row(first, count), _base_column(groups, first, prune))
+    if kept == 0:
+        return (base_block,)
+    column = np.empty((rows, kept), dtype=np.int64)
+    for members, at in columns:
+        column[members] = at[:, :kept]
+    return base_block, gathered(load, hardware, _side_by_side_figures(exacts), column)
+
+
+def _base_column(groups: StepGroups, figures: dict[str, Any], prune: bool) -> Ints:
+    """Each scenario's base candidates among the groups' rows laid side by side (`_one_row`); with
+    `prune`, those its group's earlier candidates dominate moved last, and the columns of only those
+    dropped."""
+    width = np.shape(figures["nodes"])[1]
+    order, kept = (dominance.in_order(figures) if prune else (np.arange(width)[np.newaxis, :], width))
+    order = np.broadcast_to(order, (len(groups.members), width))[:, :kept]
+    return np.asarray(groups.step_of[:, np.newaxis] * width + order[groups.step_of])
 
 
 def _one_row(figures: dict[str, Any], count: int) -> dict[str, Any]:

@@ -14,7 +14,8 @@ from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats, take_rows
+from service.domain import dominance
+from service.domain.arrays import ArrayLike, Floats, Ints, as_floats, take_rows
 from service.domain.deadline import (
     MAX_UNITS,
     blocks_by_step,
@@ -162,17 +163,21 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
     has_deadline = bool(np.isfinite(deadline).any())
     if not step_varies(load, hardware, k_min, k_top):
         base = _base_columns(found, unit, per_node, k_min, tops)
-        scenarios = max(scenarios, scenario_rows(load, hardware))
+        # A sweep drops the candidates that are never chosen (dominance.py) before pricing them.
+        prune = max(scenarios, scenario_rows(load, hardware)) >= dominance.PRUNED_FROM
         if not has_deadline:
-            figures = undominated(step_figures(load, hardware, base, found), scenarios)
+            figures = step_figures(load, hardware, base, found)
+            if prune and dominance.single_row(figures):
+                figures = dominance.undominated(figures)
             return Candidates((with_wall(load, hardware, figures),)), fewest
         figures, exact, column, allowance_of = on_one_table(load, hardware, found, base, k_min, k_top, deadline)
-        figures = undominated(figures, scenarios)
+        if prune and dominance.single_row(figures):
+            figures = dominance.undominated(figures)
+            column, kept = dominance.deadline_order(figures, exact, column)
+            column = column[:, :kept]
         first = with_wall(load, hardware, figures)
-        if scenarios >= PRUNED_FROM:
-            column = undominated_columns(figures, exact, column)
-            if column.shape[1] == 0:
-                return Candidates((first,)), fewest
+        if column.shape[1] == 0:
+            return Candidates((first,)), fewest
         return Candidates((first, gathered(load, hardware, exact, column[allowance_of]))), fewest
     groups = step_groups(load, hardware, deadline, k_min, *tops)
     if groups is not None:  # the base candidates and bounds at each group's first scenario only
@@ -181,7 +186,8 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
         return Candidates(blocks_by_step(
             load, hardware, found, groups, _base_columns(found, unit, per_node, at_groups(k_min),
                                                          [at_groups(top) for top in tops]),
-            at_groups(k_min), at_groups(k_top), deadline if has_deadline else None)), fewest
+            at_groups(k_min), at_groups(k_top), deadline if has_deadline else None,
+            prune=max(scenarios, groups.rows) >= dominance.PRUNED_FROM)), fewest
     base = _base_columns(found, unit, per_node, k_min, tops)
     # Each scenario has its own step: only the figures that price and choose a layout are made for
     # every candidate, the others for the chosen ones (FiguresOnRead).
@@ -196,63 +202,6 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
     meeting = Columns(tensor, pipeline, met, met * per_node, np.full(met.shape, DEADLINE))
     return Candidates((first, FiguresOnRead(load, hardware, meeting, found, rows, fits=fits, wall_seconds=wall,
                                             accelerator_hours=accelerator_hours(wall, meeting.accelerators)))), fewest
-
-
-def undominated(figures: dict[str, Any], scenarios: int) -> dict[str, Any]:
-    """One row of candidates' figures without the columns an earlier column dominates (`_dominance`).
-    Where the figures vary by scenario, every column is kept, and so it is for fewer than PRUNED_FROM
-    scenarios (a quote), where finding them costs more than pricing them."""
-    if scenarios < PRUNED_FROM or not _one_row(figures):
-        return figures
-    width = np.shape(figures["nodes"])[1]
-    before = np.triu(np.ones((width, width), dtype=bool), 1)  # before[i, j]: column i comes first
-    dominated = (before & _dominance(figures, figures)).any(axis=0)
-    if not dominated.any():
-        return figures
-    kept = np.flatnonzero(~dominated)
-    return {name: np.asarray(value)[:, kept] for name, value in figures.items()}
-
-
-def undominated_columns(first: dict[str, Any], table: dict[str, Any], column: Ints) -> Ints:
-    """The deadline block (`column`: (U, H) into the one-row `table`, rows in ascending allowance, so
-    that equal rows are neighbours) with, in each row, the candidates an earlier one dominates (a base
-    candidate, or the row's candidate of an earlier shape) moved after the others, in order, and the
-    columns that hold only those in every row dropped. A dominated candidate is never chosen, and
-    whatever dominates it still comes before it (dominance is transitive, and the base block comes
-    first)."""
-    if not (_one_row(first) and _one_row(table)):
-        return column
-    new_row = np.concatenate([[True], (column[1:] != column[:-1]).any(axis=1)])
-    rows = column[new_row]  # the distinct rows, (R, H)
-    width = rows.shape[1]
-    by_base = np.asarray(_dominance(first, table).any(axis=0))[rows]
-    pairs = _dominance(table, table)[rows[:, :, np.newaxis], rows[:, np.newaxis, :]]  # [r, h', h]
-    dominated = by_base | (pairs & np.triu(np.ones((width, width), dtype=bool), 1)).any(axis=1)
-    kept = int(np.max(width - np.count_nonzero(dominated, axis=1)))
-    order = np.argsort(dominated, axis=1, kind="stable")[:, :kept]  # the undominated first, in order
-    return np.asarray(np.take_along_axis(rows, order, axis=1)[np.cumsum(new_row) - 1])
-
-
-def _dominance(earlier: dict[str, Any], later: dict[str, Any]) -> Bools:
-    """(K_a, K_b): whether column i of one row of figures dominates column j of another, coming
-    before it: it fits wherever j does, on no more nodes and accelerators, with a step no longer.
-    Then j is never chosen: i is allowed wherever j is, meets every deadline j meets, and costs no
-    more on every term, as each term's cost is non-decreasing in the nodes, the accelerators and the
-    wall clock (and so the accelerator-hours) at non-negative prices (`terms.py`); the choice keeps
-    the first of equals, and the fastest fallback the first of equally fast. A column whose step is
-    not finite is never dominated, as it may price to NaN."""
-    step, nodes, accelerators, fits = (np.asarray(earlier[name])[0][:, np.newaxis] for name in _DOMINANCE)
-    step_j, nodes_j, accelerators_j, fits_j = (np.asarray(later[name])[0][np.newaxis, :] for name in _DOMINANCE)
-    return np.asarray((fits | ~fits_j) & (nodes <= nodes_j) & (accelerators <= accelerators_j) & (step <= step_j)
-                      & np.isfinite(step_j))
-
-
-def _one_row(figures: dict[str, Any]) -> bool:
-    return all(np.shape(figures[name])[0] == 1 for name in _DOMINANCE)
-
-
-_DOMINANCE = ("effective_step_seconds", "nodes", "accelerators", "fits")
-PRUNED_FROM = 256  # measured on the demo sweep: even at about 128 scenarios, 13% faster at 512
 
 
 def _base_columns(found: Shapes, unit: Floats, per_node: int, k_min: Floats, tops: list[Floats]) -> Columns:

@@ -10,7 +10,7 @@ from dataclasses import fields
 import numpy as np
 import pytest
 
-from service.domain import deadline, guesses, layout
+from service.domain import deadline, dominance, guesses
 from service.domain.layout import DEADLINE, Architecture, evaluate_layouts
 from service.domain.parallelism import shapes
 from service.domain.step import Columns, FiguresOnRead, LayoutGrid, evaluate_columns
@@ -24,7 +24,7 @@ DAY = 86400.0
 def test_the_deadline_candidate_is_the_first_count_that_meets_the_deadline(
         seed: int, monkeypatch: pytest.MonkeyPatch) -> None:
     # The columns are read by position below, so every base candidate is kept.
-    monkeypatch.setattr(layout, "undominated", lambda figures, scenarios: figures)
+    monkeypatch.setattr(dominance, "PRUNED_FROM", 10**12)
     rng = np.random.default_rng(2000 + seed)
     arch = Architecture(layers=int(rng.choice([24, 32, 48])), d_model=float(rng.choice([2048, 4096, 5120])),
                         sequence_length=4096.0, attention_heads=32.0)

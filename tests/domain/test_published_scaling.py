@@ -26,7 +26,7 @@ import pytest
 
 from service.contract.catalog import CatalogIn
 from service.contract.request import QuoteRequestIn
-from service.domain import layout
+from service.domain import dominance
 from service.usecases.quoting import quote
 from tests.domain.builders import SEVEN_B_SHAPE, hardware, load, whole
 
@@ -170,12 +170,12 @@ def test_the_candidate_layouts_do_not_grow_with_the_venues_node_limit(
         limit: float, monkeypatch: pytest.MonkeyPatch) -> None:
     run = load(parameters=7e9, tokens=1e12, architecture=SEVEN_B_SHAPE,
                deadline_seconds=np.full(1, 20 * 86400.0))
-    many = layout.PRUNED_FROM  # scenarios enough to drop the dominated candidates
+    many = dominance.PRUNED_FROM  # scenarios enough to drop the dominated candidates
     small, _ = whole(run, hardware(), node_limits=[64.0], scenarios=many)
     large, _ = whole(run, hardware(), node_limits=[limit], scenarios=many)
     assert float(large.nodes.max()) <= limit
     # The search makes a handful per shape at any size; dropping the dominated ones only lessens them.
-    monkeypatch.setattr(layout, "PRUNED_FROM", 10**12)
+    monkeypatch.setattr(dominance, "PRUNED_FROM", 10**12)
     every_small, _ = whole(run, hardware(), node_limits=[64.0], scenarios=many)
     every_large, _ = whole(run, hardware(), node_limits=[limit], scenarios=many)
     assert every_large.nodes.shape == every_small.nodes.shape

@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 
 from service.contract.catalog import CatalogIn
-from service.domain import deadline, evaluate, layout
+from service.domain import deadline, dominance, evaluate
 from service.domain.campaign import (
     Campaign,
     DataPlan,
@@ -204,28 +204,33 @@ def assert_identical(ours: Any, reference: Any, where: str) -> None:
         assert ours == reference, where
 
 
+@pytest.mark.parametrize("grouped", [False, True])
 @pytest.mark.parametrize("recurring", [False, True])
-@pytest.mark.parametrize("seed", range(8))
+@pytest.mark.parametrize("seed", range(16))
 def test_dropping_the_dominated_candidates_changes_nothing_chosen_or_priced(
-        seed: int, recurring: bool, monkeypatch: pytest.MonkeyPatch) -> None:
+        seed: int, recurring: bool, grouped: bool, monkeypatch: pytest.MonkeyPatch) -> None:
     """A base candidate that an earlier one dominates (fits wherever it does, on no more nodes and
-    accelerators, no longer a step) is dropped before pricing (layout.undominated), and so is a
-    shape's deadline candidate that a base candidate dominates in every scenario. Against the
+    accelerators, no longer a step) is dropped before pricing (dominance.py), and in each row of
+    deadline candidates those that a base candidate or an earlier shape's candidate dominates move
+    last, the columns holding only those dropped. Against the
     evaluation that prices every candidate, every option's every figure must be the same: totals,
     lines, screens and the chosen layout, on every term (committed terms price whole terms, so
     layouts of one cost are common there and the first of them must still be the one kept), with
-    recurring instances sharing the nodes, with and without a deadline, for many scenarios and one."""
+    recurring instances sharing the nodes, with and without a deadline, for many scenarios and one,
+    on one table for all scenarios and on a table per group of scenarios sharing a step."""
     rng = np.random.default_rng(3000 + seed)
     catalog = random_catalog(rng)
-    campaign, overrides = random_campaign(rng, SCENARIOS, vary_step=False, with_deadline=seed % 4 != 3)
+    campaign, overrides = random_campaign(rng, SCENARIOS, vary_step=grouped, distinct_steps=3 if grouped else None,
+                                          with_deadline=seed % 4 != 3)
+    monkeypatch.setattr(deadline, "SCENARIOS_PER_STEP", 2)
     if recurring:
         campaign = dataclasses.replace(campaign, recurrence=Recurrence(
             every_months=float(rng.choice([0.5, 1.0, 3.0, 7.0])), for_months=float(rng.choice([6.0, 24.0, 60.0]))))
     options = QuoteOptions()
-    monkeypatch.setattr(layout, "PRUNED_FROM", 1)  # also for these 24 scenarios, and for one
+    monkeypatch.setattr(dominance, "PRUNED_FROM", 1)  # also for these 24 scenarios, and for one
     cases = [(campaign, overrides), (one(campaign, 0), one(overrides, 0))]
     dropped = [evaluate_campaign(catalog, c, options, o) for c, o in cases]
-    monkeypatch.setattr(layout, "PRUNED_FROM", 10**12)  # every candidate priced
+    monkeypatch.setattr(dominance, "PRUNED_FROM", 10**12)  # every candidate priced
     kept = [evaluate_campaign(catalog, c, options, o) for c, o in cases]
     for ours, reference in zip(dropped, kept, strict=True):
         assert_identical(ours, reference, "evaluation")
@@ -233,7 +238,7 @@ def test_dropping_the_dominated_candidates_changes_nothing_chosen_or_priced(
 
 
 def test_a_column_is_dropped_only_where_an_earlier_one_dominates_it() -> None:
-    """layout.undominated on one row of five columns (demo figures)."""
+    """dominance.undominated on one row of five columns (demo figures)."""
     row = {"effective_step_seconds": np.array([[2.0, 3.0, 1.0, 3.0, np.inf]]),
            "nodes": np.array([[4.0, 4.0, 8.0, 2.0, 8.0]]),
            "accelerators": np.array([[32.0, 32.0, 64.0, 16.0, 64.0]]),
@@ -241,20 +246,21 @@ def test_a_column_is_dropped_only_where_an_earlier_one_dominates_it() -> None:
            "origin": np.array([[0, 0, 1, 1, 1]])}
     # Column 1 fits where column 0 does not: kept. Column 3 dominates column 1 but comes later: kept.
     # Column 2 (faster, larger) is dominated by none. Column 4 equals column 2 but is not finite: kept.
-    many = layout.PRUNED_FROM
-    assert_identical(layout.undominated(row, many), row, "row")
+    assert_identical(dominance.undominated(row), row, "row")
     row["effective_step_seconds"][0, 4] = 1.0  # now column 2 dominates column 4, ties included
-    assert_identical(layout.undominated(row, many), {name: value[:, :4] for name, value in row.items()}, "dropped")
+    assert_identical(dominance.undominated(row), {name: value[:, :4] for name, value in row.items()}, "dropped")
     row["fits"][0, 0] = True  # column 0 fits and dominates column 1 (same size, shorter step)
-    assert_identical(layout.undominated(row, many), {name: value[:, [0, 2, 3]] for name, value in row.items()},
+    assert_identical(dominance.undominated(row), {name: value[:, [0, 2, 3]] for name, value in row.items()},
                      "dropped")
-    assert layout.undominated(row, many - 1) is row  # too few scenarios to pay for the search
-    by_scenario = {name: np.repeat(value, 2, axis=0) for name, value in row.items()}
-    assert layout.undominated(by_scenario, many) is by_scenario  # figures varying by scenario: every column kept
+    # Per row of several (a group of scenarios each): the dominated move last, in order.
+    rows = {name: np.concatenate([value, value[:, ::-1]]) for name, value in row.items()}
+    order, kept = dominance.in_order(rows)
+    np.testing.assert_array_equal(order, [[0, 2, 3, 1, 4], [0, 1, 4, 2, 3]])  # reversed: 2 equals 0, 1 beats 3
+    assert kept == 3
 
 
 def test_in_each_scenario_the_dominated_deadline_candidates_move_last_and_columns_of_only_those_go() -> None:
-    """layout.undominated_columns: distinct allowances' rows of three shapes' deadline candidates,
+    """dominance.deadline_order: distinct allowances' rows of three shapes' deadline candidates,
     drawn from a table of five (demo figures)."""
     base = {"effective_step_seconds": np.array([[2.0, 1.0]]), "nodes": np.array([[4.0, 16.0]]),
             "accelerators": np.array([[32.0, 128.0]]), "fits": np.array([[True, True]])}
@@ -264,18 +270,20 @@ def test_in_each_scenario_the_dominated_deadline_candidates_move_last_and_column
     # Entries 0 and 3 are dominated by base candidates (3 by a tie); entry 4 by entry 1 only where
     # entry 1 comes first: entry 1 has more accelerators, so entry 4 does not dominate it either.
     column = np.array([[0, 1, 3], [0, 1, 3], [1, 4, 2], [0, 4, 2], [0, 4, 2]])
-    np.testing.assert_array_equal(layout.undominated_columns(base, table, column),
+    def kept(first: Any, table: Any, column: np.ndarray) -> np.ndarray:
+        ordered, width = dominance.deadline_order(first, table, column)
+        return ordered[:, :width]
+
+    np.testing.assert_array_equal(kept(base, table, column),
                                   [[1, 0, 3], [1, 0, 3], [1, 4, 2], [4, 2, 0], [4, 2, 0]])
     table["accelerators"][0, 1] = 64.0  # now entry 1 dominates entry 4 where it comes first
-    np.testing.assert_array_equal(layout.undominated_columns(base, table, column),
+    np.testing.assert_array_equal(kept(base, table, column),
                                   [[1, 0], [1, 0], [1, 2], [4, 2], [4, 2]])
     # A candidate dominated only by a later one stays where it is.
-    np.testing.assert_array_equal(layout.undominated_columns(base, table, np.array([[4, 1, 2]])), [[4, 1, 2]])
+    np.testing.assert_array_equal(kept(base, table, np.array([[4, 1, 2]])), [[4, 1, 2]])
     table["effective_step_seconds"][0, 3] = np.inf  # a step that is not finite is never dominated
-    np.testing.assert_array_equal(layout.undominated_columns(base, table, column[:2]), [[1, 3], [1, 3]])
-    assert layout.undominated_columns(base, table, np.array([[0, 0], [0, 0]])).shape == (2, 0)
-    by_scenario = {name: np.repeat(value, 2, axis=0) for name, value in table.items()}
-    assert layout.undominated_columns(base, by_scenario, column) is column
+    np.testing.assert_array_equal(kept(base, table, column[:2]), [[1, 3], [1, 3]])
+    assert kept(base, table, np.array([[0, 0], [0, 0]])).shape == (2, 0)
 
 
 @pytest.mark.parametrize("with_parameters", [False, True])
