@@ -3,12 +3,13 @@ deadline, the cheapest of those per scenario, and the chosen column of every fig
 """
 
 from collections.abc import Sequence
-from dataclasses import dataclass, fields
+from dataclasses import dataclass
 
 import numpy as np
 
 from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats, broadcast
 from service.domain.layout import DEADLINE, MEMORY, PINNED, Candidates, LayoutGrid
+from service.domain.step import FiguresWhenRead
 
 
 @dataclass(frozen=True)
@@ -92,8 +93,8 @@ def _first_least(blocks: Sequence[Floats], widths: Sequence[int]) -> Ints:
 
 def as_column(grid: LayoutGrid) -> LayoutGrid:
     """A chosen layout ((S,) arrays) as a grid of one candidate per scenario, (S, 1), so the
-    grid formulas apply to it unchanged."""
-    return LayoutGrid(**{f.name: np.asarray(getattr(grid, f.name))[:, np.newaxis] for f in fields(grid)})
+    grid formulas apply to it unchanged; each figure made when first read."""
+    return FiguresWhenRead.of(lambda name: np.asarray(getattr(grid, name))[:, np.newaxis])
 
 
 def decided_by(origin: int, *, missed_deadline: bool) -> str:

@@ -36,6 +36,7 @@ from service.domain.step import (
     Architecture,
     Columns,
     FiguresOnRead,
+    FiguresWhenRead,
     Hardware,
     LayoutGrid,
     Load,
@@ -82,7 +83,8 @@ class Candidates:
         return LayoutGrid(**{f.name: self.each(_field(f.name)) for f in fields(LayoutGrid)})
 
     def pick(self, index: Ints) -> LayoutGrid:
-        """Every figure at the column `index` chosen per scenario: (S,) arrays of each field's dtype."""
+        """Every figure at the column `index` chosen per scenario: (S,) arrays of each field's dtype,
+        each taken when first read."""
         ends = np.cumsum(self.widths)
         block_of = np.searchsorted(ends, index, side="right")
         rows = np.arange(index.shape[0])
@@ -94,16 +96,16 @@ class Candidates:
         if len(parts) == 1:  # every scenario chose from one block
             block, _, at_rows, at_columns = parts[0]
             read = block.cells(at_rows, at_columns)
-            return LayoutGrid(**{f.name: np.asarray(read(f.name)) for f in fields(LayoutGrid)})
+            return FiguresWhenRead.of(lambda name: np.asarray(read(name)))
         readers = [(chosen, block.cells(at_rows, at_columns)) for block, chosen, at_rows, at_columns in parts]
-        picked = {}
-        for f in fields(LayoutGrid):
-            taken = [np.asarray(read(f.name)) for _, read in readers]
+
+        def picked(name: str) -> Any:
+            taken = [np.asarray(read(name)) for _, read in readers]
             out = np.empty(index.shape, dtype=np.result_type(*taken))
             for (chosen, _), values in zip(readers, taken, strict=True):
                 out[chosen] = values
-            picked[f.name] = out
-        return LayoutGrid(**picked)
+            return out
+        return FiguresWhenRead.of(picked)
 
 
 def _field(name: str) -> Callable[[LayoutGrid], ArrayLike]:

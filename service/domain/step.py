@@ -151,6 +151,26 @@ class LayoutGrid:
 _FIGURES = frozenset(f.name for f in fields(LayoutGrid))
 
 
+class FiguresWhenRead(LayoutGrid):
+    """A grid whose figures are each made by `make(name)` when first read: the chosen layouts, of
+    which a sweep reads only the few its costs and summary need. `dataclasses.replace` (as in
+    `arrays.take_rows`) builds it whole, as any LayoutGrid."""
+
+    @classmethod
+    def of(cls, make: Callable[[str], Any]) -> LayoutGrid:
+        grid = cls.__new__(cls)
+        object.__setattr__(grid, "_make", make)
+        return grid
+
+    def __getattr__(self, name: str) -> Any:
+        make = self.__dict__.get("_make")
+        if make is None or name not in _FIGURES:
+            raise AttributeError(name)
+        value = make(name)
+        object.__setattr__(self, name, value)
+        return value
+
+
 class GatheredGrid(LayoutGrid):
     """A block whose figures are drawn from one row of distinct candidates, `table[name][0, column]`
     for an (S, K) array of columns: a figure is gathered only when it is read, and `cells` reads single

@@ -19,6 +19,7 @@ import pytest
 
 from service.contract.catalog import CatalogIn
 from service.domain import deadline, dominance, evaluate
+from service.domain.arrays import take_rows
 from service.domain.campaign import (
     Campaign,
     DataPlan,
@@ -34,6 +35,7 @@ from service.domain.campaign import (
 from service.domain.choice import _first_least
 from service.domain.evaluate import CampaignEvaluation, evaluate_campaign
 from service.domain.layout import node_fit
+from service.domain.step import FiguresWhenRead, LayoutGrid
 
 DEMO = json.loads((Path(__file__).resolve().parents[2] / "pricing_examples" / "catalog.json").read_text("utf-8"))
 SCENARIOS = 24
@@ -357,3 +359,24 @@ def test_venues_of_one_node_size_share_what_it_makes_of_the_model_as_if_each_mad
         np.testing.assert_array_equal(ours.min_nodes, theirs.min_nodes)
         for name in (*CHOSEN, "wall_seconds"):
             np.testing.assert_array_equal(getattr(ours.layout, name), getattr(theirs.layout, name))
+
+
+def test_the_chosen_layouts_figures_are_made_once_when_read_and_taking_rows_builds_them_whole() -> None:
+    """step.FiguresWhenRead, as `Candidates.pick` and `choice.as_column` return it (demo figures)."""
+    made: list[str] = []
+
+    def make(name: str) -> np.ndarray:
+        made.append(name)
+        return np.arange(3.0) + len(made)
+    grid = FiguresWhenRead.of(make)
+    first = grid.nodes
+    assert grid.nodes is first and made == ["nodes"]  # made once
+    np.testing.assert_array_equal(grid.wall_hours, grid.wall_seconds / 3600.0)
+    assert made == ["nodes", "wall_seconds"]
+    with pytest.raises(AttributeError):
+        _ = grid.not_a_figure
+    taken = take_rows(grid, slice(1, 2), 3)  # dataclasses.replace: every figure made and set
+    assert sorted(made) == sorted(f.name for f in dataclasses.fields(LayoutGrid))
+    assert "_make" not in taken.__dict__
+    for f in dataclasses.fields(LayoutGrid):
+        np.testing.assert_array_equal(getattr(taken, f.name), getattr(grid, f.name)[1:2])
