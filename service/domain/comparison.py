@@ -1,14 +1,23 @@
 """Comparing options: ranking, break-even of every owned site against every rented price, and
 the chargeback curves (model.md §8-9). Vectorised over scenarios."""
 
+from collections.abc import Iterator
 from dataclasses import dataclass, fields
 
 import numpy as np
 
-from service.domain.arrays import Floats, Ints
-from service.domain.breakeven import CURVE_UTILISATIONS, BreakEven, Payback, break_even, chargeback_curve, payback
+from service.domain.arrays import Bools, Floats, Ints
+from service.domain.breakeven import (
+    CURVE_UTILISATIONS,
+    BreakEven,
+    Payback,
+    break_even,
+    breakeven_utilisation,
+    chargeback_curve,
+    payback,
+)
 from service.domain.campaign import OwnedCostView, RankBy
-from service.domain.evaluate import CampaignEvaluation, OptionResult
+from service.domain.evaluate import CampaignEvaluation, OptionResult, SiteFigures
 from service.domain.programme import MAX_CASH_FLOW_MONTHS, programme_total
 from service.domain.recurrence import instances_by_month
 from service.domain.units import HOURS_PER_MONTH
@@ -82,39 +91,77 @@ class BreakEvenRow:
     payback: Payback | None
 
 
-def breakeven_rows(evaluation: CampaignEvaluation, *, with_payback: bool = True) -> list[BreakEvenRow]:
-    """One row per (owned site, rented offer, term); a rented option that failed a screen in a
-    scenario has no break-even there (`figures.ruled_out`). Payback (model.md §8) is made only
-    when asked: sweeps do not read it."""
-    rows = []
+@dataclass(frozen=True)
+class _AgainstRented:
+    """An owned site against every rented option: prices (rented, scenarios) in owned work."""
+
+    site_id: str
+    site: SiteFigures
+    reference: OptionResult  # its chargeback option, whose campaign the demand counts
+    new_build: OptionResult
+    rented: list[OptionResult]
+    listed: Floats
+    conversion: Floats
+    prices: Floats
+    ruled_out: Bools
+
+
+def _against_rented(evaluation: CampaignEvaluation) -> Iterator[_AgainstRented]:
     rented = [o for o in evaluation.options if o.venue_kind == "rented"]
     if not rented:
-        return []
+        return
     for site_id, site in evaluation.sites.items():
         owned = [o for o in evaluation.options if o.venue_kind == "owned" and o.venue_id == site_id]
         if not owned:
             continue
         reference = next((o for o in owned if o.term == "owned_chargeback"), owned[0])
         new_build = next((o for o in owned if o.term == "owned_new_build"), reference)
-        s = site.economics.site
-        per_node = s.node_type.accelerators_per_node
-        fleet = np.asarray(float(s.nodes_owned)) if s.nodes_owned else new_build.layout.nodes
         listed = np.stack(np.broadcast_arrays(*(listed_rented_price(o) for o in rented)))
         conversion = np.stack(np.broadcast_arrays(*(work_conversion(o, reference) for o in rented)))
-        prices = listed * conversion  # every rented option against this site at once: (rented, scenarios)
-        out = np.stack(np.broadcast_arrays(*(~o.feasible for o in rented)))
+        yield _AgainstRented(site_id, site, reference, new_build, rented, listed, conversion,
+                             listed * conversion, np.stack(np.broadcast_arrays(*(~o.feasible for o in rented))))
+
+
+def breakeven_rows(evaluation: CampaignEvaluation) -> list[BreakEvenRow]:
+    """One row per (owned site, rented offer, term); a rented option that failed a screen in a
+    scenario has no break-even there (`figures.ruled_out`)."""
+    rows = []
+    for against in _against_rented(evaluation):
+        site, prices, new_build = against.site, against.prices, against.new_build
+        s = site.economics.site
+        fleet = np.asarray(float(s.nodes_owned)) if s.nodes_owned else new_build.layout.nodes
         figures = break_even(
-            fixed_per_node_month=site.node.total, accelerators_per_node=per_node,
+            fixed_per_node_month=site.node.total, accelerators_per_node=s.node_type.accelerators_per_node,
             variable_per_accelerator_hour=site.variable_per_accelerator_hour, rented_per_accelerator_hour=prices,
-            fleet_nodes=fleet, campaign_accelerator_hours=reference.layout.accelerator_hours, ruled_out=out)
-        paid = _payback(evaluation, site_id, new_build, prices) if with_payback else None
+            fleet_nodes=fleet, campaign_accelerator_hours=against.reference.layout.accelerator_hours,
+            ruled_out=against.ruled_out)
+        paid = _payback(evaluation, against.site_id, new_build, prices)
         stacked = {f.name: np.broadcast_to(getattr(figures, f.name), prices.shape) for f in fields(figures)}
-        for r, option in enumerate(rented):
+        for r, option in enumerate(against.rented):
             rows.append(BreakEvenRow(
-                site_id, option.venue_id, option.term, listed[r], conversion[r], prices[r], site.node.total,
-                site.variable_per_accelerator_hour, BreakEven(**{name: values[r] for name, values in stacked.items()}),
-                None if paid is None else Payback(**{f.name: getattr(paid, f.name)[r] for f in fields(paid)})))
+                against.site_id, option.venue_id, option.term, against.listed[r], against.conversion[r], prices[r],
+                site.node.total, site.variable_per_accelerator_hour,
+                BreakEven(**{name: values[r] for name, values in stacked.items()}),
+                Payback(**{f.name: getattr(paid, f.name)[r] for f in fields(paid)})))
     return rows
+
+
+def breakeven_utilisations(evaluation: CampaignEvaluation) -> tuple[list[tuple[str, str, str]], list[Floats]]:
+    """What a sweep reads of `breakeven_rows`: each row's (site, offer, term) and its break-even
+    utilisation (`BreakEven.utilisation`: NaN where it is out of reach or ruled out), made alone."""
+    labels: list[tuple[str, str, str]] = []
+    utilisations: list[Floats] = []
+    for against in _against_rented(evaluation):
+        site = against.site
+        u = breakeven_utilisation(
+            fixed_per_node_month=site.node.total,
+            accelerators_per_node=site.economics.site.node_type.accelerators_per_node,
+            variable_per_accelerator_hour=site.variable_per_accelerator_hour,
+            rented_per_accelerator_hour=against.prices)
+        reached = np.where((u <= 1.0) & ~against.ruled_out, u, np.nan)
+        labels.extend((against.site_id, option.venue_id, option.term) for option in against.rented)
+        utilisations.extend(reached)
+    return labels, utilisations
 
 
 def _payback(evaluation: CampaignEvaluation, site_id: str, new_build: OptionResult, prices: Floats) -> Payback:
@@ -147,4 +194,5 @@ def curves(evaluation: CampaignEvaluation) -> dict[str, Floats]:
     }
 
 
-__all__ = ["CURVE_UTILISATIONS", "BreakEvenRow", "breakeven_rows", "cheapest", "curves", "rank", "work_conversion"]
+__all__ = ["CURVE_UTILISATIONS", "BreakEvenRow", "breakeven_rows", "breakeven_utilisations", "cheapest", "curves",
+           "rank", "work_conversion"]

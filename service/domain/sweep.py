@@ -13,7 +13,7 @@ import numpy as np
 from service.domain.arrays import Bools, Floats, Ints
 from service.domain.campaign import Campaign, Overrides, QuoteOptions
 from service.domain.catalog import Catalog
-from service.domain.comparison import breakeven_rows, cheapest
+from service.domain.comparison import breakeven_utilisations, cheapest
 from service.domain.distributions import Distribution, stream
 from service.domain.evaluate import evaluate_campaign
 from service.domain.parallelism import MAX_PIPELINE_DEGREES, divisors
@@ -93,7 +93,7 @@ def evaluate_chunk(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Float
                                           for o in options]), np.nan)
     owned = np.array([o.venue_kind == "owned" for o in options])
     best = np.where(feasible, totals, np.inf)
-    rows = breakeven_rows(evaluation, with_payback=False)
+    labels, utilisations = breakeven_utilisations(evaluation)
     return ChunkResult(
         inputs=dict(inputs),
         labels=[o.label for o in options],
@@ -102,9 +102,9 @@ def evaluate_chunk(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Float
         cheapest=np.broadcast_to(cheapest(evaluation, plan.options.rank_by, plan.options.owned_cost_view), (size,)),
         owned_best=best[owned].min(axis=0) if owned.any() else np.full(size, np.inf),
         rented_best=best[~owned].min(axis=0) if (~owned).any() else np.full(size, np.inf),
-        breakeven_labels=[(r.site, r.offer, r.term) for r in rows],
-        breakeven_utilisation=(np.stack([np.broadcast_to(r.figures.utilisation, (size,)) for r in rows])
-                               if rows else np.zeros((0, size))),
+        breakeven_labels=labels,
+        breakeven_utilisation=(np.stack([np.broadcast_to(u, (size,)) for u in utilisations])
+                               if utilisations else np.zeros((0, size))),
     )
 
 

@@ -29,7 +29,7 @@ from service.domain.breakeven import (
     payback,
 )
 from service.domain.campaign import Overrides
-from service.domain.comparison import breakeven_rows
+from service.domain.comparison import breakeven_rows, breakeven_utilisations
 from service.domain.evaluate import CampaignEvaluation, evaluate_campaign
 from service.domain.owning import chargeback_per_accelerator_hour
 
@@ -152,6 +152,20 @@ def test_breakeven_rows_pair_every_site_with_every_rented_option():
     assert len(expected) == 2 * (4 + 3 + 3)  # 2 sites × (4 + 3 + 3 terms on the 3 offers)
     assert len(rows) == len(expected)
     assert {(r.site, r.offer, r.term) for r in rows} == expected
+
+
+def test_a_sweep_reads_the_break_even_utilisations_the_rows_give():
+    """comparison.breakeven_utilisations, which a sweep calls instead of breakeven_rows, over
+    scenarios with break-evens within reach, beyond full use and with no margin (demo data)."""
+    scenarios = 40
+    evaluation = evaluate_example("owned-wins", Overrides(rented_price_factor=np.linspace(0.05, 3.0, scenarios),
+                                                          electricity_price_per_kwh=np.linspace(0.02, 0.9, scenarios)))
+    labels, utilisations = breakeven_utilisations(evaluation)
+    rows = breakeven_rows(evaluation)
+    assert labels == [(r.site, r.offer, r.term) for r in rows]
+    every = np.stack([np.broadcast_to(u, (scenarios,)) for u in utilisations])
+    np.testing.assert_array_equal(every, np.stack([np.broadcast_to(r.figures.utilisation, (scenarios,)) for r in rows]))
+    assert np.isfinite(every).any() and np.isnan(every).any()
 
 
 def test_every_reachable_break_even_of_a_quote_meets_its_rented_price():
