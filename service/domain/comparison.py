@@ -110,16 +110,17 @@ def _against_rented(evaluation: CampaignEvaluation) -> Iterator[_AgainstRented]:
     rented = [o for o in evaluation.options if o.venue_kind == "rented"]
     if not rented:
         return
+    listed = np.stack(np.broadcast_arrays(*(listed_rented_price(o) for o in rented)))  # the same for every site
+    ruled_out = np.stack(np.broadcast_arrays(*(~o.feasible for o in rented)))
     for site_id, site in evaluation.sites.items():
         owned = [o for o in evaluation.options if o.venue_kind == "owned" and o.venue_id == site_id]
         if not owned:
             continue
         reference = next((o for o in owned if o.term == "owned_chargeback"), owned[0])
         new_build = next((o for o in owned if o.term == "owned_new_build"), reference)
-        listed = np.stack(np.broadcast_arrays(*(listed_rented_price(o) for o in rented)))
         conversion = np.stack(np.broadcast_arrays(*(work_conversion(o, reference) for o in rented)))
-        yield _AgainstRented(site_id, site, reference, new_build, rented, listed, conversion,
-                             listed * conversion, np.stack(np.broadcast_arrays(*(~o.feasible for o in rented))))
+        yield _AgainstRented(site_id, site, reference, new_build, rented, listed, conversion, listed * conversion,
+                             ruled_out)
 
 
 def breakeven_rows(evaluation: CampaignEvaluation) -> list[BreakEvenRow]:

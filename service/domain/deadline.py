@@ -121,7 +121,7 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     position on, so every allowance's count is laid out run by run, not compared one by one.
 
     Returns the figures of the (shape, count) keys evaluated, one row; the column of each distinct
-    allowance's candidate per shape among them, (U, H) in ascending allowance; and each scenario's
+    allowance's candidate per shape among them, (H, U) in ascending allowance; and each scenario's
     allowance, (S,)."""
     steps, staging = scenario_terms(load, hardware)
     allowance = np.asarray((deadline - staging) / steps).reshape(-1)  # the effective step each scenario affords
@@ -172,7 +172,7 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
                          afforded[position], *bracket)
         column[shape_of, position] = exact_counts.columns(shape_of * TABLE_KEY + fewest)
         exact = exact_counts.figures
-    return exact, column.T, scenario_of  # (U, H) in ascending allowance; each scenario's row
+    return exact, column, scenario_of  # (H, U) in ascending allowance; each scenario's allowance
 
 
 def _cells(starts: Ints, lengths: Ints) -> tuple[Ints, Ints, Bools]:
@@ -184,11 +184,24 @@ def _cells(starts: Ints, lengths: Ints) -> tuple[Ints, Ints, Bools]:
     return piece // 2, position, piece % 2 == 1
 
 
-def gathered(load: Load, hardware: Hardware, table: dict[str, Any], column: Ints) -> GatheredGrid:
+def gathered(load: Load, hardware: Hardware, table: dict[str, Any], rows: Ints,
+             row_of: Ints | None = None) -> GatheredGrid:
     """The block of the candidates `table[name][0, column]`, with what every term reads of it (nodes,
-    accelerators, fits) and its wall clock gathered now."""
-    eager = {name: np.asarray(table[name])[0][column] for name in ("nodes", "accelerators", "fits")}
-    wall = wall_figures(load, hardware, np.asarray(table["effective_step_seconds"])[0][column], eager["accelerators"])
+    accelerators, fits) and its wall clock gathered now. `column` is `rows`, a row per scenario, or
+    with `row_of`, each scenario's row of the distinct `rows`: each figure is then taken for those
+    rows first and spread by whole rows."""
+    if row_of is None:
+        column = rows
+
+        def spread(figure: Any) -> Any:
+            return np.asarray(figure)[0][column]
+    else:
+        column = np.take(rows, row_of, axis=0)
+
+        def spread(figure: Any) -> Any:
+            return np.take(np.asarray(figure)[0][rows], row_of, axis=0)
+    eager = {name: spread(table[name]) for name in ("nodes", "accelerators", "fits")}
+    wall = wall_figures(load, hardware, spread(table["effective_step_seconds"]), eager["accelerators"])
     return GatheredGrid(table, column, **eager, **wall)
 
 
@@ -383,12 +396,14 @@ def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGr
         exact, at, of = _deadline_block(alone_load, alone_hardware, found, take_rows(k_min, at_group, count),
                                         take_rows(k_top, at_group, count), take_rows(rungs, at_group, count)[0],
                                         take_rows(table, at_group, count), take_rows(deadline, members, rows))
-        at_kept = at.shape[1]
         if prune:
-            at, at_kept = dominance.deadline_order(take_rows(first, at_group, count), exact, at)
+            distinct, row_of, at_kept = dominance.deadline_rows(take_rows(first, at_group, count), exact, at)
+            at = np.take(distinct, row_of[of], axis=0)
+        else:
+            at, at_kept = at.T[of], at.shape[0]
         kept = max(kept, at_kept)
         exacts.append(exact)
-        columns.append((members, at[of] + offset))
+        columns.append((members, at + offset))
         offset += np.shape(exact["nodes"])[1]
     base_block = gathered(load, hardware, _one_row(first, count), _base_column(groups, first, prune))
     if kept == 0:

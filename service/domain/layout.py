@@ -173,14 +173,15 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
                 figures = dominance.undominated(figures)
             return Candidates((with_wall(load, hardware, figures),)), fewest
         figures, exact, column, allowance_of = on_one_table(load, hardware, found, base, k_min, k_top, deadline)
+        distinct, row_of = column.T, allowance_of  # a row of deadline candidates per distinct allowance
         if prune and dominance.single_row(figures):
             figures = dominance.undominated(figures)
-            column, kept = dominance.deadline_order(figures, exact, column)
-            column = column[:, :kept]
+            distinct, row_of_allowance, kept = dominance.deadline_rows(figures, exact, column)
+            distinct, row_of = distinct[:, :kept], row_of_allowance[allowance_of]
         first = with_wall(load, hardware, figures)
-        if column.shape[1] == 0:
+        if distinct.shape[1] == 0:
             return Candidates((first,)), fewest
-        return Candidates((first, gathered(load, hardware, exact, column[allowance_of]))), fewest
+        return Candidates((first, gathered(load, hardware, exact, distinct, row_of))), fewest
     groups = step_groups(load, hardware, deadline, k_min, *tops)
     if groups is not None:  # the base candidates and bounds at each group's first scenario only
         def at_groups(bound: Floats) -> Floats:
