@@ -36,6 +36,21 @@ def longest_axis(value: Any) -> int:
     return max((longest_axis(item) for item in value), default=1) if isinstance(value, tuple) else 1
 
 
+def any_by_row(values: Bools) -> Bools:
+    """Per row of an (R, K) array, whether any column is set. Column by column for a narrow array:
+    numpy's `any` along a short last axis costs several times as much (measured: 0.46 ms against
+    0.07 ms for 20,000 × 10)."""
+    if values.shape[0] <= 1 or not 0 < values.shape[1] <= NARROW_COLUMNS:
+        return np.asarray(values.any(axis=1))
+    out = values[:, 0].copy()
+    for column in range(1, values.shape[1]):
+        out |= values[:, column]
+    return out
+
+
+NARROW_COLUMNS = 32
+
+
 def take_rows(value: Any, index: Any, scenarios: int) -> Any:
     """`value` at some of its scenarios: every array whose leading axis runs over the `scenarios`
     (when there is more than one) taken at `index`, a slice or an index array, through dataclasses,

@@ -7,7 +7,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats, broadcast
+from service.domain.arrays import ArrayLike, Bools, Floats, Ints, any_by_row, as_floats, broadcast
 from service.domain.layout import DEADLINE, MEMORY, PINNED, Candidates, LayoutGrid
 from service.domain.step import FiguresWhenRead
 
@@ -65,7 +65,7 @@ def choose(layouts: Eligible, costs: Sequence[ArrayLike]) -> Choice:
 
 def _any(blocks: Sequence[Bools]) -> Bools:
     """Per row, whether any column of any block is set (rows broadcast)."""
-    return np.asarray(np.logical_or.reduce(np.broadcast_arrays(*(np.asarray(b).any(axis=1) for b in blocks))))
+    return np.asarray(np.logical_or.reduce(np.broadcast_arrays(*(any_by_row(np.asarray(b)) for b in blocks))))
 
 
 def _first_least(blocks: Sequence[Floats], widths: Sequence[int]) -> Ints:

@@ -19,7 +19,7 @@ import pytest
 
 from service.contract.catalog import CatalogIn
 from service.domain import deadline, dominance, evaluate
-from service.domain.arrays import take_rows
+from service.domain.arrays import any_by_row, take_rows
 from service.domain.campaign import (
     Campaign,
     DataPlan,
@@ -320,6 +320,16 @@ def test_the_least_across_blocks_is_numpys_argmin_of_the_blocks_side_by_side(see
                                   axis=1)
     picked = _first_least(blocks, widths)
     np.testing.assert_array_equal(np.broadcast_to(picked, (rows,)), np.argmin(side_by_side, axis=1))
+
+
+@pytest.mark.parametrize("seed", range(10))
+def test_any_by_row_is_numpys_any_along_the_columns(seed: int) -> None:
+    rng = np.random.default_rng(seed)
+    for rows, columns in [(0, 3), (1, 5), (7, 0), (50, 1), (200, 9), (300, 32), (40, 33), (1000, 70)]:
+        values = rng.random((rows, columns)) < rng.choice([0.01, 0.2, 0.9])
+        np.testing.assert_array_equal(any_by_row(values), values.any(axis=1), strict=True)
+        wide = np.broadcast_to(values[:1], (5, columns)) if rows else values
+        np.testing.assert_array_equal(any_by_row(wide), wide.any(axis=1), strict=True)
 
 
 @pytest.mark.parametrize("same_memory", [False, True])
