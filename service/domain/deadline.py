@@ -397,7 +397,8 @@ def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGr
                                         take_rows(k_top, at_group, count), take_rows(rungs, at_group, count)[0],
                                         take_rows(table, at_group, count), take_rows(deadline, members, rows))
         if prune:
-            distinct, row_of, at_kept = dominance.deadline_rows(take_rows(first, at_group, count), exact, at)
+            base_kept = dominance.undominated(take_rows(first, at_group, count))  # all that can dominate
+            distinct, row_of, at_kept = dominance.deadline_rows(base_kept, exact, at)
             at = np.take(distinct, row_of[of], axis=0)
         else:
             at, at_kept = at.T[of], at.shape[0]

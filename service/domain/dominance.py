@@ -60,7 +60,8 @@ def deadline_rows(first: dict[str, Any], table: dict[str, Any], column: Ints) ->
     new_row = np.concatenate([[True], (column[:, 1:] != column[:, :-1]).any(axis=0)])
     rows = column[:, new_row].T  # the distinct rows, (R, H)
     by_base = dominance(first, table)[0].any(axis=0)[rows]
-    pairs = dominance(table, table)[0][rows[:, :, np.newaxis], rows[:, np.newaxis, :]]  # [r, h', h]
+    in_rows = {name: np.asarray(table[name])[0][rows] for name in FIGURES}  # each row's candidates, (R, H)
+    pairs = dominance(in_rows, in_rows)  # [r, h', h]
     order, kept = _ordered(np.asarray(by_base | (pairs & _before(rows.shape[1])).any(axis=1)))
     return np.take_along_axis(rows, order, axis=1), np.cumsum(new_row) - 1, kept
 
