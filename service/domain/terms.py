@@ -4,6 +4,10 @@ Each `*_lines` function returns {item: amount} with arrays that broadcast to (S,
 items are named here once and explained to people in `service.domain.explain`. Beside the lines,
 each `*_cost` function gives their sum in as few whole-grid passes as the algebra allows: the
 layout search prices every candidate with it, and only the chosen layout is itemised.
+
+Every term's cost is non-decreasing in the layout's nodes, accelerators and wall clock at
+non-negative prices, and a sweep relies on it to drop candidates that are never chosen
+(`dominance.py`): keep it so, or change `dominance.dominance` first.
 """
 
 from dataclasses import dataclass
