@@ -13,7 +13,7 @@ from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats, take_rows
+from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats, longest_axis, take_rows
 from service.domain.assumptions import default
 from service.domain.campaign import LayoutPins, Parallelism, Recompute
 from service.domain.memory import (
@@ -152,26 +152,34 @@ _FIGURES = frozenset(f.name for f in fields(LayoutGrid))
 
 
 class FiguresWhenRead(LayoutGrid):
-    """A grid whose figures are each made by `make(name)` when first read: the chosen layouts, of
-    which a sweep reads only the few its costs and summary need. `dataclasses.replace` (as in
-    `arrays.take_rows`) builds it whole, as any LayoutGrid."""
+    """A grid whose figures are each made when first read (`_made`), then kept: the chosen layouts,
+    of which a sweep reads only the few its costs and summary need (`of`), and the candidate blocks
+    below, whose figures beyond pricing only the chosen layout needs. `dataclasses.replace` (as in
+    `arrays.take_rows`) builds one whole, as any LayoutGrid."""
 
     @classmethod
     def of(cls, make: Callable[[str], Any]) -> LayoutGrid:
+        """A grid whose figure `name` is `make(name)`."""
         grid = cls.__new__(cls)
         object.__setattr__(grid, "_make", make)
         return grid
 
-    def __getattr__(self, name: str) -> Any:
+    def _made(self, name: str) -> Any:
+        """Figure `name`, made now (AttributeError where this grid has no way to make it)."""
         make = self.__dict__.get("_make")
-        if make is None or name not in _FIGURES:
+        if make is None:
             raise AttributeError(name)
-        value = make(name)
+        return make(name)
+
+    def __getattr__(self, name: str) -> Any:
+        if name not in _FIGURES:
+            raise AttributeError(name)
+        value = self._made(name)
         object.__setattr__(self, name, value)
         return value
 
 
-class GatheredGrid(LayoutGrid):
+class GatheredGrid(FiguresWhenRead):
     """A block whose figures are drawn from one row of distinct candidates, `table[name][0, column]`
     for an (S, K) array of columns: a figure is gathered only when it is read, and `cells` reads single
     cells straight from the table, so the many figures that only the chosen layout needs are never
@@ -183,13 +191,11 @@ class GatheredGrid(LayoutGrid):
         for name, value in eager.items():
             object.__setattr__(self, name, value)
 
-    def __getattr__(self, name: str) -> Any:
+    def _made(self, name: str) -> Any:
         table = self.__dict__.get("_table")
         if table is None or name not in table:
             raise AttributeError(name)
-        value = np.asarray(table[name])[0][self._column]
-        object.__setattr__(self, name, value)
-        return value
+        return np.asarray(table[name])[0][self._column]
 
     def cells(self, rows: Ints, columns: Ints) -> Callable[[str], Any]:
         column = self._column
@@ -203,7 +209,7 @@ class GatheredGrid(LayoutGrid):
         return read
 
 
-class FiguresOnRead(LayoutGrid):
+class FiguresOnRead(FiguresWhenRead):
     """A block whose figures for pricing and choosing (its columns, whether each fits, the wall
     clock and accelerator-hours) are given, and every other figure is evaluated only when read:
     for the cells read (`cells`: the chosen layouts), or for the whole block when a figure is read
@@ -217,9 +223,8 @@ class FiguresOnRead(LayoutGrid):
             object.__setattr__(self, name, _two_d(value, width))
         object.__setattr__(self, "_inputs", (load, hardware, columns, found, scenarios))
 
-    def __getattr__(self, name: str) -> Any:
-        if name.startswith("_") or name not in _FIGURES:
-            raise AttributeError(name)
+    def _made(self, name: str) -> Any:
+        """Every figure not given, evaluated for the whole block at once; `name` among them."""
         load, hardware, columns, found, _ = self._inputs
         for key, value in step_figures(load, hardware, columns, found).items():
             if key not in self.__dict__:
@@ -438,5 +443,4 @@ def _step_work(load: Load) -> tuple[Floats, Floats]:
 
 def scenario_rows(load: Load, hardware: Hardware, *arrays: Floats) -> int:
     """How many scenarios the step's inputs and `arrays` run over: their longest leading axis."""
-    values = [getattr(source, f.name) for source in (load, hardware) for f in fields(source)]
-    return max([1, *(int(v.shape[0]) for v in (*values, *arrays) if isinstance(v, np.ndarray) and v.ndim >= 1)])
+    return longest_axis((load, hardware, *arrays))
