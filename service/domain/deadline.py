@@ -1,10 +1,10 @@
 """The fewest node counts that meet a deadline, per scenario and shape (model.md §5): a table of
 TABLE_RUNGS geometric node counts per shape from the memory minimum to the node limit, the first that
 meets the deadline and the one below bracketing the answer, closed to neighbouring counts by false
-position on α/k + β alternating with halving (`_closed`). One table row serves every scenario when the
-step does not vary by scenario (`on_one_table`); one per distinct step when it varies over few values
-(`blocks_by_step`); else one per scenario (`fewest_meeting`). Each finds what a scenario quoted alone
-finds. `layout.py` asks for it among a venue's candidates.
+position on α/k + β alternating with halving (`close_brackets`). One table row serves every scenario
+when the step does not vary by scenario (`on_one_table`); one per distinct step when it varies over few
+values (`blocks_by_step`); else each scenario is searched on its own rungs (`own_step.fewest_meeting`).
+Each finds what a scenario quoted alone finds. `layout.py` asks for it among a venue's candidates.
 """
 
 from collections.abc import Callable
@@ -37,7 +37,7 @@ SCENARIOS_PER_STEP = 64  # where the step varies, scenarios per distinct step fr
 # network varies, at about 24 when the model size does)
 TABLE_KEY = 2.0**40  # (shape, count) keys: shape × TABLE_KEY + count, counts below it
 MAX_UNITS = TABLE_KEY - 2.0  # node units a candidate may have: beyond any venue (limits.MAX_NODES)
-def _shape_columns(found: Shapes, shape: Ints, units: Floats, accelerators_per_node: int) -> Columns:
+def shape_columns(found: Shapes, shape: Ints, units: Floats, accelerators_per_node: int) -> Columns:
     """Deadline candidates: shape `shape[j]` at `units[..., j]` node units, one row (units (n,)) or one
     per scenario (units (R, n))."""
     nodes = np.atleast_2d(units * found.node_unit(accelerators_per_node)[shape])
@@ -77,7 +77,7 @@ def _tables(load: Load, hardware: Hardware, found: Shapes, base: Columns, k_min:
     evaluated in one pass, one row per step (the rows of the load, the hardware and the bounds),
     and the rungs (R, H, G)."""
     rungs = table_rungs(k_min, k_top)
-    table_columns = _shape_columns(found, np.repeat(np.arange(found.count), TABLE_RUNGS),
+    table_columns = shape_columns(found, np.repeat(np.arange(found.count), TABLE_RUNGS),
                                    rungs.reshape(rungs.shape[0], -1), hardware.accelerators_per_node)
     both = step_figures(load, hardware, _side_by_side(base, table_columns), found)
     width = base.nodes.shape[1]
@@ -113,7 +113,7 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     minimum to the node limit (one row for all scenarios); each scenario's allowance
     (deadline − staging) / steps located in it and interpolated as α/k + β; then the counts just
     below, at and above that evaluated exactly, each distinct (shape, count) once; where they do not
-    settle it, the bracket left is closed by `_closed`.
+    settle it, the bracket left is closed by `close_brackets`.
 
     The answer depends on a scenario only through its allowance, so each distinct allowance is
     solved once, in ascending order, and a shape's allowances fall into a few runs of one guess
@@ -137,7 +137,7 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     near_keys = runs.shape * TABLE_KEY + near  # (3, R)
     around = np.unique(near_keys)
     exact_shape = (around // TABLE_KEY).astype(np.int64)
-    exact = step_figures(load, hardware, _shape_columns(found, exact_shape, around - exact_shape * TABLE_KEY,
+    exact = step_figures(load, hardware, shape_columns(found, exact_shape, around - exact_shape * TABLE_KEY,
                                                         hardware.accelerators_per_node), found)
     g_exact = np.where(exact["fits"][0], exact["effective_step_seconds"][0], np.inf)
     where = np.searchsorted(around, near_keys)
@@ -168,8 +168,9 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
                    np.where(from_rung, g.reshape(-1)[rung - 1], g_near[2][run]),
                    np.where(from_rung, near[0][run], rungs.reshape(-1)[rung]),
                    np.where(from_rung, g_near[0][run], g.reshape(-1)[rung]))
-        fewest, _ = _closed(lambda k, _: exact_counts.steps(np.asarray(shape_of * TABLE_KEY + k, dtype=np.float64)),
-                         afforded[position], *bracket)
+        fewest, _ = close_brackets(
+            lambda k, _: exact_counts.steps(np.asarray(shape_of * TABLE_KEY + k, dtype=np.float64)),
+            afforded[position], *bracket)
         column[shape_of, position] = exact_counts.columns(shape_of * TABLE_KEY + fewest)
         exact = exact_counts.figures
     return exact, column, scenario_of  # (H, U) in ascending allowance; each scenario's allowance
@@ -219,7 +220,7 @@ class _ExactCounts:
         missing = np.setdiff1d(keys, self.keys)
         if missing.size:
             shape = (missing // TABLE_KEY).astype(np.int64)
-            new = step_figures(self.load, self.hardware, _shape_columns(
+            new = step_figures(self.load, self.hardware, shape_columns(
                 self.found, shape, missing - shape * TABLE_KEY, self.hardware.accelerators_per_node), self.found)
             self.keys = np.concatenate([self.keys, missing])
             self.figures = {name: np.concatenate([np.asarray(self.figures[name]), np.asarray(value)], axis=1)
@@ -234,7 +235,7 @@ class _ExactCounts:
                                    np.inf))
 
 
-def _closed(measure: Callable[[Floats, Bools], Floats], target: Floats, k_lo: Floats, g_lo: Floats, k_hi: Floats,
+def close_brackets(measure: Callable[[Floats, Bools], Floats], target: Floats, k_lo: Floats, g_lo: Floats, k_hi: Floats,
             g_hi: Floats) -> tuple[Floats, Floats]:
     """The fewest count whose measure (effective step or wall clock) meets the target, between k_lo,
     whose g_lo misses it, and k_hi, whose g_hi meets it: false position on g(k) = α/k + β alternating
@@ -252,74 +253,6 @@ def _closed(measure: Callable[[Floats, Bools], Floats], target: Floats, k_lo: Fl
         k_hi, g_hi = np.where(meets, guess, k_hi), np.where(meets, g, g_hi)
         k_lo, g_lo = np.where(misses, guess, k_lo), np.where(misses, g, g_lo)
     return k_hi, g_hi
-
-
-def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, deadline: Floats,
-                   rungs: Floats) -> tuple[Floats, Bools, Floats]:
-    """Per scenario and shape, the fewest node units that meet the deadline when the step varies by
-    scenario, found as the table path finds it: the first of the rungs (R, H, G) that meets it, then
-    between it and the rung below, false position on wall(k) = α/k + β alternating with halving
-    until the two counts are neighbours; the memory minimum where it already meets it, the top where
-    no rung does. A count whose layout does not fit misses. A scenario's rungs are evaluated only
-    until each of its shapes has met the deadline, and its brackets only while one is open; of those
-    scenarios, only the shapes that some of them have still to settle. Returns the counts, and
-    whether each layout fits and its wall clock there, as the search measured them."""
-    h = found.count
-    rows = scenario_rows(load, hardware, deadline, rungs)
-    counts = np.broadcast_to(rungs, (rows, h, TABLE_RUNGS))
-    target = np.broadcast_to(deadline.reshape(-1, 1), (rows, h))
-
-    def measured(at: Ints, shapes: Ints, k: Floats) -> tuple[Floats, Bools]:
-        """The wall clock of scenarios `at` for the shapes `shapes` at node units k ((len(at) or 1,
-        len(shapes))), and whether each layout fits."""
-        at_load, at_hardware = take_rows(load, at, rows), take_rows(hardware, at, rows)
-        columns = _shape_columns(found, shapes, k, hardware.accelerators_per_node)
-        step = step_figures(at_load, at_hardware, columns, found, clock_only=True)
-        wall = wall_figures(at_load, at_hardware, step["effective_step_seconds"], step["accelerators"])["wall_seconds"]
-        return (np.asarray(np.broadcast_to(wall, (at.size, shapes.size))),
-                np.asarray(np.broadcast_to(step["fits"], (at.size, shapes.size))))
-
-    first = np.full((rows, h), TABLE_RUNGS)
-    before, w_lo, w_hi, kept_wall = (np.full((rows, h), np.inf) for _ in range(4))
-    kept_fits = np.zeros((rows, h), dtype=bool)  # kept_*: at the rung that met, else the last (the top)
-    scanning = np.arange(rows)
-    for j in range(TABLE_RUNGS):
-        if not scanning.size:
-            break
-        shapes = np.flatnonzero((first[scanning] == TABLE_RUNGS).any(axis=0))
-        block = np.ix_(scanning, shapes)
-        # A rung that is the same for every scenario stays one row: the figures that do not
-        # depend on the scenario are then computed once.
-        raw, fits = measured(scanning, shapes, rungs[:, shapes, j] if rungs.shape[0] == 1 else rungs[block][..., j])
-        wall = np.where(fits, raw, np.inf)
-        unmet = first[block] == TABLE_RUNGS
-        kept_wall[block] = np.where(unmet, raw, kept_wall[block])
-        kept_fits[block] = np.where(unmet, fits, kept_fits[block])
-        fresh = unmet & (wall <= target[block])
-        at_row, at_shape = np.nonzero(fresh)
-        r, s = scanning[at_row], shapes[at_shape]
-        first[r, s], w_hi[r, s], w_lo[r, s] = j, wall[fresh], before[r, s]
-        before[block] = wall
-        scanning = scanning[(first[scanning] == TABLE_RUNGS).any(axis=1)]
-    reached = first < TABLE_RUNGS
-    at = np.minimum(first, TABLE_RUNGS - 1)[..., np.newaxis]
-    k_lo = np.take_along_axis(counts, np.maximum(at - 1, 0), axis=-1)[..., 0]
-    k_hi = np.take_along_axis(counts, at, axis=-1)[..., 0]
-
-    def measure(k: Floats, open_bracket: Bools) -> Floats:
-        g = np.full(k.shape, np.inf)
-        open_rows, open_shapes = np.flatnonzero(open_bracket.any(axis=1)), np.flatnonzero(open_bracket.any(axis=0))
-        block = np.ix_(open_rows, open_shapes)
-        raw, fits = measured(open_rows, open_shapes, k[block])
-        g[block] = np.where(fits, raw, np.inf)
-        return g
-
-    fewest, wall_there = _closed(measure, target, k_lo, w_lo, k_hi, w_hi)
-    # A count the bracket moved to met a finite deadline, so its layout fits and its wall clock is
-    # the one measured; elsewhere the count is the rung kept.
-    moved = fewest != k_hi
-    return (np.asarray(np.where(reached, fewest, counts[..., -1])), np.asarray(moved | kept_fits),
-            np.asarray(np.where(moved, wall_there, kept_wall)))
 
 
 @dataclass(frozen=True)

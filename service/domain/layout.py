@@ -19,7 +19,6 @@ from service.domain.arrays import ArrayLike, Floats, Ints, as_floats, take_rows
 from service.domain.deadline import (
     MAX_UNITS,
     blocks_by_step,
-    fewest_meeting,
     gathered,
     on_one_table,
     step_groups,
@@ -27,6 +26,7 @@ from service.domain.deadline import (
     table_rungs,
 )
 from service.domain.memory import minimum_data_parallel
+from service.domain.own_step import fewest_meeting
 from service.domain.parallelism import Shapes, shapes
 from service.domain.step import (
     DEADLINE,

@@ -29,8 +29,12 @@ thread before numpy loads, and CPU time of this process is what the rates divide
    solved on one table, against the per-scenario search on the same chunks, and a grid whose step does
    not vary beside them (figures and ratios; no target).
 
-It prints PASS or MISS per target and exits 0 whatever the figures. `--core` runs sections 1, 1b and 1c
-only. `--quick` shrinks the end-to-end
+1d. Monte Carlo sweeps where every scenario has a step of its own (the network, the node MTBF, the
+   utilisation, the model's size, each drawn from a continuous range), which take the per-scenario
+   search (`own_step.fewest_meeting`), in the service's chunks (figures; no target).
+
+It prints PASS or MISS per target and exits 0 whatever the figures. `--core` runs sections 1, 1b, 1c
+and 1d only. `--quick` shrinks the end-to-end
 runs (100,000 and 1,000,000 scenarios) to check the script itself; its figures are not the targets'.
 """
 
@@ -271,6 +275,38 @@ def step_grid_benchmark() -> None:
               f"{rates['a table per step'] / rates['per scenario']:.2f}x; totals identical: {same}", flush=True)
 
 
+# Continuous draws of an input of the step: no two scenarios share a step, so each is searched alone.
+OWN_STEP_SWEEPS: dict[str, tuple[str, float, float]] = {
+    "network 100-1,000 Gb/s": ("overrides.network_gbps", 100.0, 1000.0),
+    "node MTBF 2,000-90,000 h": ("overrides.mtbf_hours", 2000.0, 90000.0),
+    "utilisation 0.3-0.6": ("overrides.utilisation", 0.3, 0.6),
+    "model size 5-80 billion parameters": ("campaign.work.parameters", 5e9, 80e9),
+}
+OWN_STEP_SCENARIOS = 10_000
+
+
+def own_step_benchmark() -> None:
+    """Monte Carlo sweeps whose every scenario has its own step, on the 10-venue catalog and the demo
+    sweep's base campaign, in the service's chunks: the per-scenario search's rate."""
+    print(f"== 1d. Monte Carlo over an input of the step, {OWN_STEP_SCENARIOS:,} draws: every scenario"
+          " searched on its own", flush=True)
+    catalog_in = CatalogIn.model_validate(ten_venue_catalog())
+    base = load(DEMO_SWEEP)["base"]
+    for label, (path, low, high) in OWN_STEP_SWEEPS.items():
+        sweep = {"base": base, "samples": OWN_STEP_SCENARIOS, "seed": 3,
+                 "distributions": {path: {"kind": "uniform", "low": low, "high": high}}}
+        prepared = prepare_sweep(catalog_in, SweepIn.model_validate(sweep), SweepLimits())
+        chunks = [inputs for _, inputs in scenario_chunks(prepared.plan, chunk_size(prepared.catalog))]
+
+        def in_service_chunks() -> None:
+            for inputs in chunks:  # noqa: B023
+                evaluate_chunk(prepared.catalog, prepared.plan, inputs)  # noqa: B023
+
+        in_service_chunks()  # warm-up
+        cpu, _ = timed(in_service_chunks, 1)
+        print(f"  {label}: {OWN_STEP_SCENARIOS / cpu:,.0f} scenarios/s per core", flush=True)
+
+
 def sweep_file(directory: Path, samples: int) -> Path:
     sweep = load(DEMO_SWEEP)
     sweep["samples"] = samples
@@ -436,6 +472,7 @@ def main() -> None:
     core_benchmark()
     venue_size_benchmark()
     step_grid_benchmark()
+    own_step_benchmark()
     if "--core" not in sys.argv[1:]:
         with tempfile.TemporaryDirectory(prefix="bench-sweeps-") as scratch:
             end_to_end_json(Path(scratch), E2E_SCENARIOS // 10 if quick else E2E_SCENARIOS)
