@@ -6,11 +6,12 @@ with the node count. Demo figures (random campaigns and hardware); no published 
 """
 
 from dataclasses import fields
+from typing import Any
 
 import numpy as np
 import pytest
 
-from service.domain import deadline, dominance, guesses
+from service.domain import deadline, dominance, guesses, layout, own_step
 from service.domain.layout import DEADLINE, Architecture, evaluate_layouts
 from service.domain.parallelism import shapes
 from service.domain.step import Columns, FiguresOnRead, LayoutGrid, evaluate_columns
@@ -153,3 +154,98 @@ def test_where_each_scenario_has_its_own_step_the_figures_made_later_equal_a_ful
 def _whole(grid: LayoutGrid, name: str) -> np.ndarray:
     """A figure of every scenario (SCENARIOS rows) and candidate."""
     return np.broadcast_to(getattr(grid, name), (SCENARIOS, np.shape(grid.nodes)[1]))
+
+
+@pytest.mark.parametrize("seed", range(8))
+def test_the_per_scenario_search_finds_what_a_plain_scan_of_every_rung_finds(
+        seed: int, monkeypatch: pytest.MonkeyPatch) -> None:
+    """`own_step.fewest_meeting` measures only what is still open: the scenarios still scanning, the
+    shapes some of them have still to meet, and the brackets still open cell by cell. A plain scan
+    measures every (scenario, shape) at every rung, and closes every bracket on the whole grid. Both
+    must give the same counts, fits and wall clocks, exactly: with each scenario its own speed, with
+    the model's size too (each scenario its own rungs), and with deadlines no rung meets."""
+    rng = np.random.default_rng(4000 + seed)
+    # A model small enough that every shape holds it, so that scenarios with room to spare settle early.
+    arch = Architecture(layers=16, d_model=1024.0, sequence_length=1024.0, attention_heads=16.0)
+    sizes = np.full(1, float(rng.choice([0.35e9, 1.3e9])))
+    if seed % 2:
+        sizes = rng.uniform(0.3e9, 2e9, SCENARIOS)
+    tokens = rng.lognormal(np.log(20.0 * 13e9), 0.3, SCENARIOS)
+    deadline_days = rng.uniform(0.5, 60.0, SCENARIOS)
+    deadline_days[:2] = [1e-3, 0.0]  # no rung meets these
+    deadline_days[2:12] = 1e5  # every shape that fits meets these at its first rung: they settle early
+    campaign = load(parameters=sizes, tokens=tokens, timed_flops_per_run=6.0 * sizes * tokens,
+                    timed_flops_per_token=6.0 * sizes, tokens_per_run=tokens, architecture=arch,
+                    deadline_seconds=deadline_days * DAY, global_batch_tokens=np.full(1, 4e6))
+    venue = hardware(sustained_flops_per_accelerator=rng.uniform(2e13, 9e13, SCENARIOS),
+                     node_mtbf_hours=np.full(1, rng.uniform(2000.0, 20000.0)),
+                     memory_bytes=float(rng.choice([80, 160])) * 2.0**30)
+    calls: list[tuple[Any, ...]] = []
+
+    def kept(*args: Any) -> Any:
+        calls.append(args)
+        return own_step.fewest_meeting(*args)
+    monkeypatch.setattr(layout, "fewest_meeting", kept)
+    layout.evaluate_layouts(campaign, venue, node_limits=[np.asarray(float(rng.integers(16, 600)))])
+    (args,) = calls
+    assert (np.shape(args[4])[0] > 1) == bool(seed % 2)  # rungs per scenario where the model's size varies
+    scan, plain_scan = own_step._first_meeting(*args, SCENARIOS), _plain_scan(*args)
+    # Some scenarios settle (every shape met) while others still scan: the working rows are compacted.
+    last = plain_scan[0].max(axis=1)
+    assert (last < last.max()).any()
+    for ours, theirs, name in zip(scan, plain_scan, ("first", "w_lo", "w_hi", "kept wall", "kept fits"), strict=True):
+        assert np.array_equal(ours, theirs, equal_nan=True), name
+    searched, plain = own_step.fewest_meeting(*args), _plain_fewest_meeting(*args)
+    for ours, theirs, name in zip(searched, plain, ("counts", "fits", "wall"), strict=True):
+        assert np.array_equal(ours, theirs, equal_nan=True), name
+    first_rungs = np.asarray(args[4])[..., 0]
+    assert (searched[0] > first_rungs).any() and (searched[0] == np.asarray(args[4])[..., -1]).any()
+
+
+def _plain_scan(campaign: Any, venue: Any, found: Any, deadline_s: np.ndarray, rungs: np.ndarray) -> tuple[Any, ...]:
+    """Every (scenario, shape) measured at every rung: the first rung that meets (TABLE_RUNGS where none
+    does), the wall clock below it and at it, and at it (else the top) the wall clock and the fit."""
+    rows, g = SCENARIOS, guesses.TABLE_RUNGS
+    counts = np.broadcast_to(rungs, (rows, found.count, g))
+    raw, fits = zip(*(_measured(campaign, venue, found, counts[..., j]) for j in range(g)), strict=True)
+    raw, fits = np.stack(raw, axis=-1), np.stack(fits, axis=-1)
+    wall = np.where(fits, raw, np.inf)
+    meets = wall <= np.reshape(deadline_s, (-1, 1, 1))
+    reached = meets.any(axis=-1)
+    first = np.where(reached, np.argmax(meets, axis=-1), g)
+    at = np.minimum(first, g - 1)[..., np.newaxis]
+    w_hi = np.where(reached, _pick(wall, at), np.inf)
+    w_lo = np.where(reached & (at[..., 0] > 0), _pick(wall, np.maximum(at - 1, 0)), np.inf)
+    return first, w_lo, w_hi, _pick(raw, at), _pick(fits, at)
+
+
+def _plain_fewest_meeting(campaign: Any, venue: Any, found: Any, deadline_s: np.ndarray,
+                          rungs: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The plain scan's bracket closed by `deadline.close_brackets`, measuring every cell at each step."""
+    first, w_lo, w_hi, kept_wall, kept_fits = _plain_scan(campaign, venue, found, deadline_s, rungs)
+    counts = np.broadcast_to(rungs, (SCENARIOS, found.count, guesses.TABLE_RUNGS))
+    at = np.minimum(first, guesses.TABLE_RUNGS - 1)[..., np.newaxis]
+    k_lo, k_hi = _pick(counts, np.maximum(at - 1, 0)), _pick(counts, at)
+
+    def every_cell(k: np.ndarray, _: np.ndarray) -> np.ndarray:
+        walls, fit = _measured(campaign, venue, found, k)
+        return np.where(fit, walls, np.inf)
+    target = np.broadcast_to(deadline_s.reshape(-1, 1), k_hi.shape)
+    fewest, wall_there = deadline.close_brackets(every_cell, target, k_lo, w_lo, k_hi, w_hi)
+    moved = fewest != k_hi
+    return (np.where(first < guesses.TABLE_RUNGS, fewest, counts[..., -1]), moved | kept_fits,
+            np.where(moved, wall_there, kept_wall))
+
+
+def _measured(campaign: Any, venue: Any, found: Any, k: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The wall clock and fit of every (scenario, shape) at k node units ((rows or 1, H))."""
+    nodes = k * found.node_unit(8)
+    grid = evaluate_columns(campaign, venue, Columns(found.tensor[np.newaxis, :], found.pipeline[np.newaxis, :],
+                                                     nodes, nodes * 8, np.full(nodes.shape, DEADLINE)), found)
+    shape = (SCENARIOS, found.count)
+    return np.broadcast_to(grid.wall_seconds, shape), np.broadcast_to(grid.fits, shape)
+
+
+def _pick(values: np.ndarray, at: np.ndarray) -> np.ndarray:
+    """values[..., at] along the last axis, one entry per (scenario, shape)."""
+    return np.take_along_axis(values, at, axis=-1)[..., 0]
