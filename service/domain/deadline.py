@@ -78,7 +78,7 @@ def _tables(load: Load, hardware: Hardware, found: Shapes, base: Columns, k_min:
     and the rungs (R, H, G)."""
     rungs = table_rungs(k_min, k_top)
     table_columns = shape_columns(found, np.repeat(np.arange(found.count), TABLE_RUNGS),
-                                   rungs.reshape(rungs.shape[0], -1), hardware.accelerators_per_node)
+                                  rungs.reshape(rungs.shape[0], -1), hardware.accelerators_per_node)
     both = step_figures(load, hardware, _side_by_side(base, table_columns), found)
     width = base.nodes.shape[1]
     return ({name: value[:, :width] for name, value in both.items()},
@@ -138,7 +138,7 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     around = np.unique(near_keys)
     exact_shape = (around // TABLE_KEY).astype(np.int64)
     exact = step_figures(load, hardware, shape_columns(found, exact_shape, around - exact_shape * TABLE_KEY,
-                                                        hardware.accelerators_per_node), found)
+                                                       hardware.accelerators_per_node), found)
     g_exact = np.where(exact["fits"][0], exact["effective_step_seconds"][0], np.inf)
     where = np.searchsorted(around, near_keys)
     g_near = g_exact[where]  # (3, R)
@@ -235,8 +235,8 @@ class _ExactCounts:
                                    np.inf))
 
 
-def close_brackets(measure: Callable[[Floats, Bools], Floats], target: Floats, k_lo: Floats, g_lo: Floats, k_hi: Floats,
-            g_hi: Floats) -> tuple[Floats, Floats]:
+def close_brackets(measure: Callable[[Floats, Bools], Floats], target: Floats, k_lo: Floats, g_lo: Floats,
+                   k_hi: Floats, g_hi: Floats) -> tuple[Floats, Floats]:
     """The fewest count whose measure (effective step or wall clock) meets the target, between k_lo,
     whose g_lo misses it, and k_hi, whose g_hi meets it: false position on g(k) = α/k + β alternating
     with halving until the two are neighbours (halving alone closes any bracket within SEARCH_STEPS).

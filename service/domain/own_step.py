@@ -146,6 +146,7 @@ def _measured_cells(load: Load, hardware: Hardware, found: Shapes, rows: int, at
 
 def _wall_and_fits(load: Load, hardware: Hardware, columns: Columns, found: Shapes,
                    shape: tuple[int, int]) -> tuple[Floats, Bools]:
+    """The wall clock of each column and whether it fits, as far as the wall clock needs, as `shape`."""
     step = step_figures(load, hardware, columns, found, clock_only=True)
     wall = wall_figures(load, hardware, step["effective_step_seconds"], step["accelerators"])["wall_seconds"]
     return np.asarray(np.broadcast_to(wall, shape)), np.asarray(np.broadcast_to(step["fits"], shape))
