@@ -306,8 +306,9 @@ def test_work_as_flops_or_samples_many_in_one_call_equal_each_alone(
 
 @pytest.mark.parametrize("seed", range(20))
 def test_the_least_across_blocks_is_numpys_argmin_of_the_blocks_side_by_side(seed: int) -> None:
-    """Choosing block by block (choice._first_least) against np.argmin of the concatenated grid, with
-    ties, infinities, NaN and blocks of one row beside blocks of many."""
+    """Choosing across blocks (choice._first_least, which writes them into one array, a block of one
+    row spread over every row) against np.argmin of their concatenation, with ties, infinities, NaN
+    and blocks of one row beside blocks of many."""
     rng = np.random.default_rng(seed)
     rows = 7
     widths = [int(w) for w in rng.integers(1, 5, rng.integers(1, 4))]
