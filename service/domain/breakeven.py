@@ -48,6 +48,12 @@ def breakeven_utilisation(
     return np.where(margin > 0.0, value, np.inf)
 
 
+def within_reach(utilisation: Floats, ruled_out: ArrayLike) -> Bools:
+    """Where a break-even utilisation is one a site can reach (at most full use) against a rented
+    option that passed its screens."""
+    return np.asarray((utilisation <= 1.0) & ~np.asarray(ruled_out, dtype=bool))
+
+
 def break_even(
     *, fixed_per_node_month: ArrayLike, accelerators_per_node: int, variable_per_accelerator_hour: ArrayLike,
     rented_per_accelerator_hour: ArrayLike, fleet_nodes: ArrayLike, campaign_accelerator_hours: ArrayLike,
@@ -60,7 +66,7 @@ def break_even(
         variable_per_accelerator_hour=variable_per_accelerator_hour,
         rented_per_accelerator_hour=rented_per_accelerator_hour)
     out = np.asarray(ruled_out, dtype=bool)
-    reachable = (u <= 1.0) & ~out
+    reachable = within_reach(u, out)
     hours = np.where(reachable, u * accelerators_per_node * as_floats(fleet_nodes) * HOURS_PER_YEAR, np.nan)
     return BreakEven(
         utilisation=np.where(reachable, u, np.nan),

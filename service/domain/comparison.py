@@ -15,6 +15,7 @@ from service.domain.breakeven import (
     breakeven_utilisation,
     chargeback_curve,
     payback,
+    within_reach,
 )
 from service.domain.campaign import OwnedCostView, RankBy
 from service.domain.evaluate import CampaignEvaluation, OptionResult, SiteFigures
@@ -159,7 +160,7 @@ def breakeven_utilisations(evaluation: CampaignEvaluation) -> tuple[list[tuple[s
             accelerators_per_node=site.economics.site.node_type.accelerators_per_node,
             variable_per_accelerator_hour=site.variable_per_accelerator_hour,
             rented_per_accelerator_hour=against.prices)
-        reached = np.where((u <= 1.0) & ~against.ruled_out, u, np.nan)
+        reached = np.where(within_reach(u, against.ruled_out), u, np.nan)
         labels.extend((against.site_id, option.venue_id, option.term) for option in against.rented)
         utilisations.extend(reached)
     return labels, utilisations

@@ -5,13 +5,15 @@ quoted alone: its rungs in order until each shape meets the deadline, then the b
 that meets closed by `deadline.close_brackets`.
 """
 
+from dataclasses import fields
+
 import numpy as np
 
 from service.domain.arrays import Bools, Floats, Ints, take_rows
 from service.domain.deadline import close_brackets, shape_columns
 from service.domain.guesses import TABLE_RUNGS
 from service.domain.parallelism import Shapes
-from service.domain.step import DEADLINE, Columns, Hardware, Load, scenario_rows, step_figures, wall_figures
+from service.domain.step import Columns, Hardware, Load, scenario_rows, step_figures, wall_figures
 
 
 def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, deadline: Floats,
@@ -135,10 +137,8 @@ def _measured_cells(load: Load, hardware: Hardware, found: Shapes, rows: int, at
                     k: Floats) -> tuple[Floats, Bools]:
     """The wall clock of each cell i, scenario at[i] (of `rows`) in shape shapes[i] at k[i] node units,
     and whether its layout fits: (n,) arrays."""
-    per_node = hardware.accelerators_per_node
-    nodes = (k * found.node_unit(per_node)[shapes])[:, np.newaxis]
-    columns = Columns(found.tensor[shapes][:, np.newaxis], found.pipeline[shapes][:, np.newaxis], nodes,
-                      nodes * per_node, np.full(nodes.shape, DEADLINE))
+    in_row = shape_columns(found, shapes, k, hardware.accelerators_per_node)  # cell i in column i: (1, n)
+    columns = Columns(*(np.asarray(getattr(in_row, f.name)).reshape(-1, 1) for f in fields(Columns)))
     wall, fits = _wall_and_fits(take_rows(load, at, rows), take_rows(hardware, at, rows), columns, found,
                                 (at.size, 1))
     return wall[:, 0], fits[:, 0]
