@@ -13,7 +13,9 @@ thread before numpy loads, and CPU time of this process is what the rates divide
    (`keep_freed_arrays`). Targets: ratio ≥ 200×, rate in the sweep's chunks ≥ 150,000 scenarios/s
    per core. Beside them, a bound: the same chunk with the layout pinned
    (`fixed_accelerators` = PINNED_ACCELERATORS, one candidate node count per venue, so no layout
-   search at all), which is more than any layout search, however clever, could make the rate.
+   search at all), which is more than any layout search, however clever, could make the rate; and a
+   floor: what a chunk costs whatever its size (a chunk of one scenario) and each scenario beyond it,
+   so the rate with no per-chunk cost, searched and pinned, is the most this design's arithmetic reaches.
 2. End to end: `berth sweep` of 1,000,000 Monte Carlo scenarios of the demo sweep and catalog, as
    a subprocess with its default worker processes (one per CPU; target < 8 s), and the peak RSS of a
    10,000,000-scenario sweep streamed as CSV (target < 1 GB = 1e9 bytes). The RSS is that of the
@@ -161,6 +163,14 @@ def core_benchmark() -> None:
                 campaign, overrides = apply(plan.campaign, plan.overrides, one)  # noqa: B023
                 evaluate_campaign(catalog, campaign, plan.options, overrides)  # noqa: B023
 
+        # What a chunk costs whatever its size: a chunk of one scenario, measured alone.
+        one = {path: values[:1] for path, values in inputs.items()}
+        per_chunk_cpu, _ = timed(lambda: evaluate_chunk(catalog, plan, one), 5)  # noqa: B023
+        pinned_per_chunk_cpu, _ = timed(lambda: evaluate_chunk(catalog, pinned_plan, one), 5)  # noqa: B023
+        chunks = -(-VECTOR_SCENARIOS // service_chunk)
+        marginal = (chunked_cpu - chunks * per_chunk_cpu) / VECTOR_SCENARIOS
+        pinned_marginal = (pinned_cpu - pinned_per_chunk_cpu) / VECTOR_SCENARIOS
+
         scalar_loop()  # warm-up
         scalar_cpu, scalar_wall = timed(scalar_loop, 1)
 
@@ -176,6 +186,10 @@ def core_benchmark() -> None:
               f" = {chunked_rate:,.0f} scenarios/s per core")
         print(f"    bound: the same chunk with the layout pinned ({PINNED_ACCELERATORS} accelerators, no layout"
               f" search): {pinned_cpu:.3f} s CPU = {pinned_rate:,.0f} scenarios/s per core")
+        print(f"    floor: a chunk costs {per_chunk_cpu * 1e3:.1f} ms CPU whatever its size (one scenario's chunk;"
+              f" pinned {pinned_per_chunk_cpu * 1e3:.1f} ms), then {marginal * 1e6:.2f} µs per scenario"
+              f" (pinned {pinned_marginal * 1e6:.2f} µs): without the per-chunk cost {1 / marginal:,.0f}"
+              f" scenarios/s per core, and {1 / pinned_marginal:,.0f} with no layout search either")
         print(f"    scalar loop, {SCALAR_SCENARIOS} scenarios one at a time: {scalar_cpu:.3f} s CPU"
               f" ({scalar_wall:.3f} s wall) = {scalar_rate:,.1f} scenarios/s per core")
         print(f"    ratio vectorised (the sweep's chunks) / scalar: {ratio:,.1f}x", flush=True)

@@ -8,6 +8,10 @@ answers 201 with a quote document:
     the database write.
   - POST /floor/computed: the quote computed for this body, not stored: the above but the model
     instead of the write.
+  - POST /floor/documented: everything POST /v1/quotes does but evaluate the campaign: the first
+    request's evaluation is kept, and each request builds its document from it (for this body's
+    request fields, so the figures are the first body's), envelopes it, stores it and answers it.
+    The quote with its model's evaluation free: the most any evaluation, however fast, could reach.
 What a route costs the server beyond GET /healthz is the least any quote model could add on top of it.
 
     .venv/bin/python tests/benchmarks/floor_app.py --port 8001 --database sqlite:///floor.db [--workers 2]
@@ -24,6 +28,7 @@ from functools import partial
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 from fastapi import FastAPI
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
@@ -33,10 +38,13 @@ from service.api.deps import CatalogsDep, ComputeLaneDep, NowDep, StorageDep
 from service.api.responses import FastJSONResponse
 from service.api.serving import run_server
 from service.config import Settings
+from service.contract.document import quote_document
 from service.contract.request import QuoteRequestIn
+from service.domain.split import evaluate_with_splits
+from service.errors import InvalidInput
 from service.storage.repository import CatalogRef, Storage, StoredQuote, new_id
 from service.usecases.catalogs import ParsedCatalogs, catalog_to_use
-from service.usecases.quoting import envelope, quote
+from service.usecases.quoting import envelope, quote, request_problems
 
 
 def _computed(payload: QuoteRequestIn, storage: Storage, catalogs: ParsedCatalogs, now: datetime
@@ -47,9 +55,21 @@ def _computed(payload: QuoteRequestIn, storage: Storage, catalogs: ParsedCatalog
                          created_at=now)
 
 
+def _store(storage: Storage, payload: QuoteRequestIn, ref: CatalogRef, document: dict[str, Any],
+           now: datetime) -> None:
+    """The document stored durably as a quote, as POST /v1/quotes stores one."""
+    row = StoredQuote(id=document["id"], created_at=now, team=payload.campaign.team,
+                      campaign_name=payload.campaign.name, catalog_id=ref.id, catalog_hash=ref.content_hash,
+                      model_version=document["model_version"], request=payload.model_dump(mode="json"),
+                      response=document)
+    with storage.writing() as repository:
+        repository.add_quote(row)
+
+
 def create_floor_app(settings: Settings) -> FastAPI:
     app = create_app(settings)
     canned: dict[str, Any] = {}  # the first request's quote, with its catalog
+    evaluated: dict[str, Any] = {}  # the first request's evaluation
 
     def canned_quote(payload: QuoteRequestIn, storage: Storage, catalogs: ParsedCatalogs,
                      now: datetime) -> tuple[CatalogRef, dict[str, Any]]:
@@ -65,19 +85,33 @@ def create_floor_app(settings: Settings) -> FastAPI:
                now: datetime) -> FastJSONResponse:
         ref, document = canned_quote(payload, storage, catalogs, now)
         document = {**document, "id": new_id("q")}
-        row = StoredQuote(id=document["id"], created_at=now, team=payload.campaign.team,
-                          campaign_name=payload.campaign.name, catalog_id=ref.id, catalog_hash=ref.content_hash,
-                          model_version=document["model_version"], request=payload.model_dump(mode="json"),
-                          response=document)
-        with storage.writing() as repository:
-            repository.add_quote(row)
+        _store(storage, payload, ref, document, now)
+        return FastJSONResponse(document, status_code=201)
+
+    def documented(payload: QuoteRequestIn, storage: Storage, catalogs: ParsedCatalogs,
+                   now: datetime) -> FastJSONResponse:
+        ref = catalog_to_use(storage, payload.catalog_id, field="catalog_id", on=now.date())
+        catalog_in = catalogs.get(ref, storage)
+        problems = request_problems(catalog_in, payload)  # as quote() checks them
+        if problems:
+            raise InvalidInput("the request does not match the catalog", problems)
+        domain_catalog = catalog_in.to_domain()
+        campaign, options, overrides = payload.to_domain()
+        with np.errstate(over="ignore", divide="ignore", invalid="ignore"):  # as quote()
+            if not evaluated:
+                evaluated["evaluation"] = evaluate_with_splits(domain_catalog, campaign, options, overrides)
+            body = quote_document(domain_catalog, payload, evaluated["evaluation"])
+        document = envelope(body, catalog_hash=ref.content_hash, quote_id=new_id("q"), catalog_id=ref.id,
+                            created_at=now)
+        _store(storage, payload, ref, document, now)
         return FastJSONResponse(document, status_code=201)
 
     def computed(payload: QuoteRequestIn, storage: Storage, catalogs: ParsedCatalogs,
                  now: datetime) -> FastJSONResponse:
         return FastJSONResponse(_computed(payload, storage, catalogs, now)[1], status_code=201)
 
-    for path, handler in (("/floor/validated", validated), ("/floor/stored", stored), ("/floor/computed", computed)):
+    for path, handler in (("/floor/validated", validated), ("/floor/stored", stored), ("/floor/computed", computed),
+                          ("/floor/documented", documented)):
         app.add_api_route(path, _on_compute_lane(handler), methods=["POST"], status_code=201)
     return app
 
