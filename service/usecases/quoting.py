@@ -3,6 +3,7 @@ and own the transaction; the offline ones here take validated inputs and return 
 
 import hashlib
 import json
+from collections.abc import Callable
 from datetime import datetime
 from typing import Any
 
@@ -14,6 +15,7 @@ from service.contract.catalog import CatalogIn
 from service.contract.document import quote_document
 from service.contract.request import MeasuredWorkIn, QuoteRequestIn
 from service.domain.assumptions import DEFAULTS
+from service.domain.evaluate import CampaignEvaluation
 from service.domain.split import evaluate_with_splits
 from service.errors import FieldProblem, InvalidInput
 
@@ -60,8 +62,11 @@ def unknown_venue(catalog: CatalogIn, kind: str, venue: str) -> str | None:
     return f"no {what} {venue!r} in catalog {catalog.name!r} (its {kind}: {', '.join(sorted(ids)) or 'none'})"
 
 
-def quote(catalog: CatalogIn, request: QuoteRequestIn) -> dict[str, Any]:
-    """The quote body for a validated request against a validated catalog."""
+def quote(catalog: CatalogIn, request: QuoteRequestIn, *,
+          evaluate: Callable[..., CampaignEvaluation] = evaluate_with_splits) -> dict[str, Any]:
+    """The quote body for a validated request against a validated catalog. `evaluate` makes the
+    evaluation from the domain catalog, campaign, options and overrides (a benchmark's floor route
+    passes one that keeps the first)."""
     problems = request_problems(catalog, request)
     if problems:
         raise InvalidInput("the request does not match the catalog", problems)
@@ -71,7 +76,7 @@ def quote(catalog: CatalogIn, request: QuoteRequestIn) -> dict[str, Any]:
     # times; the model carries inf through and screens such options out as infeasible. numpy's
     # warnings about it would only be stray non-JSON lines on stderr.
     with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
-        evaluation = evaluate_with_splits(domain_catalog, campaign, options, overrides)
+        evaluation = evaluate(domain_catalog, campaign, options, overrides)
         return quote_document(domain_catalog, request, evaluation)
 
 

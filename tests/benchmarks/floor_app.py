@@ -28,7 +28,6 @@ from functools import partial
 from pathlib import Path
 from typing import Any
 
-import numpy as np
 from fastapi import FastAPI
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
@@ -38,19 +37,18 @@ from service.api.deps import CatalogsDep, ComputeLaneDep, NowDep, StorageDep
 from service.api.responses import FastJSONResponse
 from service.api.serving import run_server
 from service.config import Settings
-from service.contract.document import quote_document
 from service.contract.request import QuoteRequestIn
+from service.domain.evaluate import CampaignEvaluation
 from service.domain.split import evaluate_with_splits
-from service.errors import InvalidInput
 from service.storage.repository import CatalogRef, Storage, StoredQuote, new_id
 from service.usecases.catalogs import ParsedCatalogs, catalog_to_use
-from service.usecases.quoting import envelope, quote, request_problems
+from service.usecases.quoting import envelope, quote
 
 
-def _computed(payload: QuoteRequestIn, storage: Storage, catalogs: ParsedCatalogs, now: datetime
-              ) -> tuple[CatalogRef, dict[str, Any]]:
+def _computed(payload: QuoteRequestIn, storage: Storage, catalogs: ParsedCatalogs, now: datetime, *,
+              evaluate: Callable[..., CampaignEvaluation] = evaluate_with_splits) -> tuple[CatalogRef, dict[str, Any]]:
     ref = catalog_to_use(storage, payload.catalog_id, field="catalog_id", on=now.date())
-    body = quote(catalogs.get(ref, storage), payload)
+    body = quote(catalogs.get(ref, storage), payload, evaluate=evaluate)
     return ref, envelope(body, catalog_hash=ref.content_hash, quote_id=new_id("q"), catalog_id=ref.id,
                          created_at=now)
 
@@ -88,21 +86,15 @@ def create_floor_app(settings: Settings) -> FastAPI:
         _store(storage, payload, ref, document, now)
         return FastJSONResponse(document, status_code=201)
 
+    def kept_evaluation(*args: Any) -> CampaignEvaluation:
+        if not evaluated:
+            evaluated["evaluation"] = evaluate_with_splits(*args)
+        evaluation: CampaignEvaluation = evaluated["evaluation"]
+        return evaluation
+
     def documented(payload: QuoteRequestIn, storage: Storage, catalogs: ParsedCatalogs,
                    now: datetime) -> FastJSONResponse:
-        ref = catalog_to_use(storage, payload.catalog_id, field="catalog_id", on=now.date())
-        catalog_in = catalogs.get(ref, storage)
-        problems = request_problems(catalog_in, payload)  # as quote() checks them
-        if problems:
-            raise InvalidInput("the request does not match the catalog", problems)
-        domain_catalog = catalog_in.to_domain()
-        campaign, options, overrides = payload.to_domain()
-        with np.errstate(over="ignore", divide="ignore", invalid="ignore"):  # as quote()
-            if not evaluated:
-                evaluated["evaluation"] = evaluate_with_splits(domain_catalog, campaign, options, overrides)
-            body = quote_document(domain_catalog, payload, evaluated["evaluation"])
-        document = envelope(body, catalog_hash=ref.content_hash, quote_id=new_id("q"), catalog_id=ref.id,
-                            created_at=now)
+        ref, document = _computed(payload, storage, catalogs, now, evaluate=kept_evaluation)
         _store(storage, payload, ref, document, now)
         return FastJSONResponse(document, status_code=201)
 
