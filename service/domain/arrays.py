@@ -36,6 +36,9 @@ def longest_axis(value: Any) -> int:
     return max((longest_axis(item) for item in value), default=1) if isinstance(value, tuple) else 1
 
 
+NARROW_COLUMNS = 32  # up to this many columns, `any_by_row` ORs them one by one
+
+
 def any_by_row(values: Bools) -> Bools:
     """Per row of an (R, K) array, whether any column is set. Column by column for a narrow array:
     numpy's `any` along a short last axis costs several times as much (measured: 0.46 ms against
@@ -46,9 +49,6 @@ def any_by_row(values: Bools) -> Bools:
     for column in range(1, values.shape[1]):
         out |= values[:, column]
     return out
-
-
-NARROW_COLUMNS = 32
 
 
 def take_rows(value: Any, index: Any, scenarios: int) -> Any:

@@ -18,8 +18,8 @@ a fresh server takes.
    (`FastJSONResponse`: orjson). Beside them, the CPU time of the layout search within the stages
    (`evaluate_layouts`, every venue's physics, split points included) and of the stages without it: a
    bound, what a quote would still take were the search free; and the stages but `evaluate`: what it
-   would take were the whole evaluation free, a bound for any model, however fast. Targets: quote() at most 4 ms CPU per
-   campaign, 8 ms for campaign-split.json.
+   would take were the whole evaluation free, a bound for any model, however fast. Targets: quote() at
+   most 4 ms CPU per campaign, 8 ms for campaign-split.json.
 2. Cold (skipped with --no-cold): the wall time of a fresh `python -m service.cli quote CAMPAIGN
    --catalog catalog.json --format json` from its start to its exit, the answer written, for each demo
    campaign; and of the first POST /v1/quotes (campaign-owned-wins.json) that a freshly started
