@@ -20,7 +20,10 @@ ENV BERTH_HOST=0.0.0.0 \
     BERTH_PORT=8000 \
     BERTH_DEMO_CATALOG=/srv/berth/pricing_examples/catalog.json \
     BERTH_DATABASE_URL=sqlite:////srv/berth/data/berth.db \
-    PYTHONUNBUFFERED=1
+    PYTHONUNBUFFERED=1 \
+    NUMBA_CACHE_DIR=/tmp/numba
+# numba keeps the sweep kernel it compiles (once per container) in NUMBA_CACHE_DIR: /tmp stays writable
+# where the root file system is read-only (deploy/kubernetes mounts an emptyDir there).
 RUN mkdir -p /srv/berth/data && chown -R berth /srv/berth
 USER berth
 EXPOSE 8000

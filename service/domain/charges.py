@@ -2,8 +2,9 @@
 
 `cost` prices every candidate layout of the grid, so the search can keep the cheapest; it may
 leave out what only varies by scenario (such a part cannot change which layout is cheapest), and
-it sums the lines in few whole-grid passes. `itemise` gives the cost lines and the term's own
-figures for the chosen layout. `evaluate` builds one per (venue, term); `terms` holds the formulas.
+it sums the lines in few whole-grid passes. `form` is the same cost as `compiled.py`'s kernel
+computes it, for a sweep. `itemise` gives the cost lines and the term's own figures for the chosen
+layout. `evaluate` builds one per (venue, term); `terms` holds the formulas.
 """
 
 from collections.abc import Callable
@@ -11,17 +12,20 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from service.domain.arrays import Floats
+from service.domain.arrays import Floats, as_floats
 from service.domain.campaign import Campaign
+from service.domain.compiled import CHARGEBACK, COMMITTED, HOURLY, NEW_BUILD, CostForm
 from service.domain.gravity import Transfer
 from service.domain.layout import LayoutGrid
 from service.domain.owning import NodeMonth, SiteEconomics
+from service.domain.recurrence import instances_total
 from service.domain.terms import (
     CommittedShare,
     Lines,
     NewBuildShare,
     chargeback_cost,
     chargeback_lines,
+    chargeback_rate,
     committed_lines,
     committed_share,
     data_lines,
@@ -31,21 +35,27 @@ from service.domain.terms import (
     new_build_share,
     new_build_utilisation,
     storage_cost,
+    storage_per_hour,
+    upfront_financing_factor,
 )
+from service.domain.units import HOURS_PER_MONTH
 
 
 @dataclass(frozen=True)
 class Charges:
     cost: Callable[[LayoutGrid], Floats]
     itemise: Callable[[LayoutGrid], tuple[Lines, dict[str, Floats]]]
+    form: CostForm
 
 
 @dataclass(frozen=True)
 class DataCharges:
-    """A venue's data lines, and the part of them that depends on the layout (storage)."""
+    """A venue's data lines, and the part of them that depends on the layout (storage, also per
+    hour of wall clock: None where the venue does not charge for it)."""
 
     lines: Callable[[LayoutGrid], Lines]
     layout_cost: Callable[[LayoutGrid], Floats | float]
+    storage_per_hour: Floats | None
 
 
 def data_charges(campaign: Campaign, transfer: Transfer, *, storage_per_gb_month: float | None,
@@ -67,7 +77,18 @@ def data_charges(campaign: Campaign, transfer: Transfer, *, storage_per_gb_month
             stored[id(grid)] = grid, storage_cost(grid, data, checkpoint_tb=checkpoint_tb,
                                                   storage_per_gb_month=storage_per_gb_month)
         return stored[id(grid)][1]
-    return DataCharges(lines, layout_cost)
+    per_hour = None if storage_per_gb_month is None else storage_per_hour(
+        data, checkpoint_tb=checkpoint_tb, storage_per_gb_month=storage_per_gb_month)
+    return DataCharges(lines, layout_cost, per_hour)
+
+
+def _recurring(campaign: Campaign) -> tuple[Floats | None, Floats | None]:
+    """A recurring campaign's months between instances and instances in all, as
+    `recurrence.instances_sharing` reads them (None, None for a campaign that does not recur)."""
+    recurrence = campaign.recurrence
+    if recurrence is None:
+        return None, None
+    return as_floats(recurrence.every_months), instances_total(recurrence)
 
 
 def chargeback_charges(node: NodeMonth, variable: Floats, economics: SiteEconomics,
@@ -83,7 +104,8 @@ def chargeback_charges(node: NodeMonth, variable: Floats, economics: SiteEconomi
         lines = chargeback_lines(grid, node, accelerators_per_node=per_node, utilisation=utilisation,
                                  variable_per_accelerator_hour=variable) | data.lines(grid)
         return lines, {"utilisation": np.asarray(utilisation).reshape(-1, 1)}
-    return Charges(cost, itemise)
+    return Charges(cost, itemise, CostForm(CHARGEBACK, chargeback_rate(
+        node, accelerators_per_node=per_node, utilisation=utilisation, variable_per_accelerator_hour=variable)))
 
 
 def new_build_charges(node: NodeMonth, variable: Floats, economics: SiteEconomics, campaign: Campaign,
@@ -102,7 +124,9 @@ def new_build_charges(node: NodeMonth, variable: Floats, economics: SiteEconomic
         utilisation = new_build_utilisation(grid, share, accelerators_per_node=site.node_type.accelerators_per_node)
         return lines, {"utilisation": utilisation, "sharing_instances": share.sharing_instances,
                        "carried_months": share.carried_months}
-    return Charges(cost, itemise)
+    return Charges(cost, itemise, CostForm(NEW_BUILD, as_floats(variable).reshape(-1, 1),
+                                           fixed=as_floats(node.total).reshape(-1, 1),
+                                           months=float(site.depreciation_months), recurring=_recurring(campaign)))
 
 
 def hourly_charges(price: Floats, data: DataCharges) -> Charges:
@@ -112,7 +136,7 @@ def hourly_charges(price: Floats, data: DataCharges) -> Charges:
     def itemise(grid: LayoutGrid) -> tuple[Lines, dict[str, Floats]]:
         lines = hourly_lines(grid, price_per_accelerator_hour=price) | data.lines(grid)
         return lines, {"price_per_accelerator_hour": np.asarray(price).reshape(-1, 1)}
-    return Charges(cost, itemise)
+    return Charges(cost, itemise, CostForm(HOURLY, as_floats(price).reshape(-1, 1), storage=data.storage_per_hour))
 
 
 def committed_charges(months: int, upfront: float, price: Floats, cost_of_capital: Floats,
@@ -132,4 +156,9 @@ def committed_charges(months: int, upfront: float, price: Floats, cost_of_capita
             "price_per_accelerator_hour": np.asarray(price).reshape(-1, 1), "terms_needed": share.terms_needed,
             "sharing_instances": share.sharing_instances, "financing_factor": share.financing_factor,
             "upfront_fraction": np.full((1, 1), upfront)}
-    return Charges(cost, itemise)
+    factor = upfront_financing_factor(upfront_fraction=upfront, months=months,
+                                      cost_of_capital_annual=as_floats(cost_of_capital).reshape(-1, 1))
+    return Charges(cost, itemise, CostForm(
+        COMMITTED, np.asarray(as_floats(price).reshape(-1, 1) * factor), months=float(months),
+        fee_per_node=accelerators_per_node * months * HOURS_PER_MONTH, storage=data.storage_per_hour,
+        recurring=_recurring(campaign)))

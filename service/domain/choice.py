@@ -7,7 +7,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from service.domain import compiled
 from service.domain.arrays import ArrayLike, Bools, Floats, Ints, any_by_row, as_floats, broadcast
+from service.domain.charges import Charges
 from service.domain.layout import DEADLINE, MEMORY, PINNED, Candidates, LayoutGrid
 from service.domain.step import FiguresWhenRead
 
@@ -54,8 +56,24 @@ def choose(layouts: Eligible, costs: Sequence[ArrayLike]) -> Choice:
     each block's cost of its candidates."""
     cheapest = _first_least([np.where(meets, cost, np.inf) for meets, cost in zip(layouts.meets, costs, strict=True)],
                             layouts.widths)
+    return _choice(layouts, cheapest, max(np.shape(cost)[0] if np.ndim(cost) else 1 for cost in costs))
+
+
+def choose_priced(layouts: Eligible, blocks: Sequence[LayoutGrid], charges: Charges,
+                  kernel: compiled.Kernel | None) -> Choice:
+    """`choose` with the blocks priced by the term's charges: by the compiled `kernel` where the
+    caller passes one (`compiled.py`, the same choice), else in numpy."""
+    if kernel is None:
+        return choose(layouts, [charges.cost(block) for block in blocks])
+    cheapest = compiled.cheapest(layouts.meets, blocks, charges.form, kernel)
+    return _choice(layouts, cheapest, cheapest.shape[0])
+
+
+def _choice(layouts: Eligible, cheapest: Ints, rows: int) -> Choice:
+    """The choice of the cheapest columns, or of the fastest where no column meets the deadline,
+    over `rows` scenarios or as many as the layouts have."""
     index = cheapest if layouts.fastest is None else np.where(layouts.meets_deadline, cheapest, layouts.fastest)
-    scenarios = (max(index.shape[0], *(np.shape(cost)[0] if np.ndim(cost) else 1 for cost in costs)),)
+    scenarios = (max(index.shape[0], rows),)
     return Choice(
         index=broadcast(index, scenarios).astype(np.int64, copy=False),
         any_fits=broadcast(layouts.any_fits, scenarios),

@@ -24,7 +24,8 @@ from service.domain.charges import (
     hourly_charges,
     new_build_charges,
 )
-from service.domain.choice import Choice, Eligible, as_column, choose, eligible
+from service.domain.choice import Choice, Eligible, as_column, choose_priced, eligible
+from service.domain.compiled import Kernel
 from service.domain.gravity import Transfer, staging_seconds, transfer
 from service.domain.layout import (
     Architecture,
@@ -134,12 +135,15 @@ class _Context:
     allowed: frozenset[str] | None
     home: Site | Offer | None
     fits: dict[tuple[int, float], NodeFit] = field(default_factory=dict)  # by node size, shared by its venues
+    kernel: Kernel | None = None  # the compiled pricing and choice (compiled.py), else numpy
 
 
 def evaluate_campaign(
-    catalog: Catalog, campaign: Campaign, options: QuoteOptions, overrides: Overrides | None = None
+    catalog: Catalog, campaign: Campaign, options: QuoteOptions, overrides: Overrides | None = None, *,
+    kernel: Kernel | None = None,
 ) -> CampaignEvaluation:
-    """Every venue and requested term of the catalog for the campaign."""
+    """Every venue and requested term of the catalog for the campaign; each term's layout priced and
+    chosen by `kernel` where one is given (`compiled.kernel()`, a sweep's choice), else in numpy."""
     overrides = overrides or Overrides()
     venues: dict[str, Site | Offer] = {site.id: site for site in catalog.sites}
     venues.update({offer.id: offer for offer in catalog.offers})
@@ -149,7 +153,7 @@ def evaluate_campaign(
         catalog=catalog, campaign=campaign, options=options, overrides=overrides, work=work, multiplier=multiplier,
         load=_load(campaign, options, work, multiplier), scenarios=longest_axis((campaign, overrides)),
         allowed=allowed_jurisdictions(campaign.data.allowed_jurisdictions, catalog.jurisdiction_groups),
-        home=None if campaign.data.home is None else venues[campaign.data.home],
+        home=None if campaign.data.home is None else venues[campaign.data.home], kernel=kernel,
     )
     results: list[OptionResult] = []
     sites: dict[str, SiteFigures] = {}
@@ -205,11 +209,11 @@ def _site_options(site: Site, figures: SiteFigures, context: _Context) -> list[O
     if "owned_chargeback" in limits:
         results.append(_evaluate(venue, "owned_chargeback", limits["owned_chargeback"],
                                  chargeback_charges(figures.node, figures.variable_per_accelerator_hour,
-                                                    economics, data), physics))
+                                                    economics, data), physics, context.kernel))
     if "owned_new_build" in limits:
         results.append(_evaluate(venue, "owned_new_build", limits["owned_new_build"],
                                  new_build_charges(figures.node, figures.variable_per_accelerator_hour,
-                                                   economics, context.campaign, data), physics))
+                                                   economics, context.campaign, data), physics, context.kernel))
     return results
 
 
@@ -227,7 +231,7 @@ def _offer_options(offer: Offer, context: _Context) -> list[OptionResult]:
     physics = _physics(venue, context, limits=[limit.nodes])
     if "on_demand" in terms and offer.on_demand_per_accelerator_hour is not None:
         price = offer.on_demand_per_accelerator_hour * rented_price_factor(overrides, on_demand=True)
-        results.append(_evaluate(venue, "on_demand", limit, hourly_charges(price, data), physics))
+        results.append(_evaluate(venue, "on_demand", limit, hourly_charges(price, data), physics, context.kernel))
     if "committed" in terms:
         cost_of_capital = _cost_of_capital(context.catalog, overrides)
         for commitment in offer.committed:
@@ -235,13 +239,15 @@ def _offer_options(offer: Offer, context: _Context) -> list[OptionResult]:
             results.append(_evaluate(
                 venue, f"committed_{commitment.months}m", limit,
                 committed_charges(commitment.months, commitment.upfront_fraction, price, cost_of_capital,
-                                  offer.node_type.accelerators_per_node, context.campaign, data), physics))
+                                  offer.node_type.accelerators_per_node, context.campaign, data), physics,
+                context.kernel))
     if "interruptible" in terms and offer.interruptible is not None:
         price = offer.interruptible.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
         # Interruptions change the wall clock, so this term gets physics of its own.
         interrupted = _physics(venue, context, limits=[limit.nodes],
                                interruption_mean_hours=offer.interruptible.mean_hours_between_interruptions)
-        results.append(_evaluate(venue, "interruptible", limit, hourly_charges(price, data), interrupted))
+        results.append(_evaluate(venue, "interruptible", limit, hourly_charges(price, data), interrupted,
+                                 context.kernel))
     return results
 
 
@@ -300,12 +306,13 @@ def _node_fit(context: _Context, hardware: Hardware) -> NodeFit:
     return context.fits[size]
 
 
-def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, physics: _Physics) -> OptionResult:
+def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, physics: _Physics,
+              kernel: Kernel | None) -> OptionResult:
     """Price every candidate layout, keep the cheapest per scenario, then itemise only that one."""
     node = venue.node_type
     grid = physics.grid
     layouts = physics.candidates(limit)
-    choice = choose(layouts, [charges.cost(block) for block in grid.blocks])
+    choice = choose_priced(layouts, grid.blocks, charges, kernel)
     chosen = grid.pick(choice.index)
     lines_at, details_at = charges.itemise(as_column(chosen))
     # A line that does not depend on the layout may vary by scenario when nothing else does.

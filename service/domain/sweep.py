@@ -14,6 +14,7 @@ from service.domain.arrays import Bools, Floats, Ints
 from service.domain.campaign import Campaign, Overrides, QuoteOptions
 from service.domain.catalog import Catalog
 from service.domain.comparison import breakeven_utilisations, cheapest
+from service.domain.compiled import Kernel
 from service.domain.distributions import Distribution, stream
 from service.domain.evaluate import evaluate_campaign
 from service.domain.parallelism import MAX_PIPELINE_DEGREES, divisors
@@ -82,10 +83,13 @@ class ChunkResult:
         return int(self.totals.shape[1])
 
 
-def evaluate_chunk(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Floats]) -> ChunkResult:
+def evaluate_chunk(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Floats], *,
+                   kernel: Kernel | None = None) -> ChunkResult:
+    """The chunk's scenarios evaluated, each term priced and chosen by `kernel` where one is given
+    (`compiled.kernel()`), else in numpy: the same answers."""
     campaign, overrides = apply(plan.campaign, plan.overrides, inputs)
     size = len(next(iter(inputs.values()))) if inputs else 1
-    evaluation = evaluate_campaign(catalog, campaign, plan.options, overrides)
+    evaluation = evaluate_campaign(catalog, campaign, plan.options, overrides, kernel=kernel)
     options = evaluation.options
     feasible = np.stack([np.broadcast_to(o.feasible, (size,)) for o in options])
     view = plan.options.owned_cost_view

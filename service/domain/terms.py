@@ -7,7 +7,8 @@ layout search prices every candidate with it, and only the chosen layout is item
 
 Every term's cost is non-decreasing in the layout's nodes, accelerators and wall clock at
 non-negative prices, and a sweep relies on it to drop candidates that are never chosen
-(`dominance.py`): keep it so, or change `dominance.dominance` first.
+(`dominance.py`): keep it so, or change `dominance.dominance` first. A sweep prices candidates with
+`compiled.py`'s kernel, which repeats the `*_cost` formulas for one cell: change both.
 """
 
 from dataclasses import dataclass
@@ -51,9 +52,16 @@ def chargeback_cost(
     utilisation: ArrayLike, variable_per_accelerator_hour: ArrayLike,
 ) -> Floats:
     """The sum of `chargeback_lines`: accelerator-hours × (F / (A · 730 · u) + v)."""
+    return np.asarray(grid.accelerator_hours * chargeback_rate(
+        node, accelerators_per_node=accelerators_per_node, utilisation=utilisation,
+        variable_per_accelerator_hour=variable_per_accelerator_hour))
+
+
+def chargeback_rate(node: NodeMonth, *, accelerators_per_node: int, utilisation: ArrayLike,
+                    variable_per_accelerator_hour: ArrayLike) -> Floats:
+    """What a chargeback costs per accelerator-hour, by scenario: F / (A · 730 · u) + v, (S, 1)."""
     used_hours_per_node_month = accelerators_per_node * HOURS_PER_MONTH * _scenario(utilisation)
-    rate = _scenario(node.total) / used_hours_per_node_month + _scenario(variable_per_accelerator_hour)
-    return np.asarray(grid.accelerator_hours * rate)
+    return np.asarray(_scenario(node.total) / used_hours_per_node_month + _scenario(variable_per_accelerator_hour))
 
 
 def _owned_lines(node_months: Floats, node: NodeMonth, grid: LayoutGrid,
@@ -186,8 +194,14 @@ def storage_cost(grid: LayoutGrid, data: DataPlan, *, checkpoint_tb: ArrayLike,
                  storage_per_gb_month: float) -> Floats:
     """The dataset and kept checkpoints stored for the months the campaign runs: the only data
     line that depends on the layout."""
+    return np.asarray(storage_per_hour(data, checkpoint_tb=checkpoint_tb, storage_per_gb_month=storage_per_gb_month)
+                      * wall_hours(grid))
+
+
+def storage_per_hour(data: DataPlan, *, checkpoint_tb: ArrayLike, storage_per_gb_month: float) -> Floats:
+    """What storing the dataset and kept checkpoints costs per hour of wall clock, by scenario, (S, 1)."""
     stored_gb = (_scenario(data.dataset_tb) + _scenario(checkpoint_tb) * _scenario(data.checkpoints_kept)) * GB_PER_TB
-    return np.asarray(stored_gb * (storage_per_gb_month / HOURS_PER_MONTH) * wall_hours(grid))
+    return np.asarray(stored_gb * (storage_per_gb_month / HOURS_PER_MONTH))
 
 
 @dataclass(frozen=True)

@@ -1,6 +1,7 @@
 """Sweep chunks evaluated on several cores: this process draws the scenarios (so the draws are the
 same whatever the number of processes) and worker processes evaluate them. Results come back in
-order, and at most two chunks per worker are in flight, so memory stays bounded at any size."""
+order, and at most two chunks per worker are in flight, so memory stays bounded at any size. A process
+that prices enough scenarios uses the compiled pricing and choice (`domain/compiled.py`)."""
 
 import ctypes
 import multiprocessing
@@ -10,20 +11,32 @@ from concurrent.futures import Future, ProcessPoolExecutor
 
 import numpy as np
 
+from service.domain import compiled
 from service.domain.arrays import Floats
 from service.domain.catalog import Catalog
 from service.domain.sweep import ChunkResult, SweepPlan, evaluate_chunk
 
 IN_FLIGHT_PER_WORKER = 2
+# Scenarios a process must price for the compiled kernel to pay for loading it: importing numba and
+# reading the kernel from its cache cost about 0.3 s, and the kernel saves about 1 µs a scenario on the
+# demo catalog, 2 µs on ten venues (bench_sweeps.py); a process that has it already always uses it.
+COMPILED_PAYS_FROM = 250_000
 
-_worker_sweep: tuple[Catalog, SweepPlan] | None = None
+_worker_sweep: tuple[Catalog, SweepPlan, compiled.Kernel | None] | None = None
 
 
-def evaluate(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Floats]) -> ChunkResult:
+def sweep_kernel(scenarios: int) -> compiled.Kernel | None:
+    """The compiled kernel for a process that will price `scenarios` scenarios, where it pays (or
+    is loaded already); None for numpy."""
+    return compiled.kernel() if compiled.loaded() or scenarios >= COMPILED_PAYS_FROM else None
+
+
+def evaluate(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Floats],
+             kernel: compiled.Kernel | None = None) -> ChunkResult:
     # Extreme but valid figures make infinite times, which the model screens out; numpy's
     # warnings about them would only be noise (as in quoting.quote).
     with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
-        return evaluate_chunk(catalog, plan, inputs)
+        return evaluate_chunk(catalog, plan, inputs, kernel=kernel)
 
 
 def evaluated(catalog: Catalog, plan: SweepPlan, chunks: Iterable[Mapping[str, Floats]], *,
@@ -31,12 +44,14 @@ def evaluated(catalog: Catalog, plan: SweepPlan, chunks: Iterable[Mapping[str, F
     """Each chunk's result, in the order of `chunks`, from `processes` worker processes (here, in
     this process, when it is 1)."""
     if processes <= 1:
+        kernel = sweep_kernel(plan.scenarios)
         for inputs in chunks:
-            yield evaluate(catalog, plan, inputs)
+            yield evaluate(catalog, plan, inputs, kernel)
         return
+    share = -(-plan.scenarios // processes)  # what each worker prices
     # "spawn": a worker starts clean rather than as a copy of a process that may hold threads.
     with ProcessPoolExecutor(processes, mp_context=multiprocessing.get_context("spawn"),
-                             initializer=_start_worker, initargs=(catalog, plan)) as pool:
+                             initializer=_start_worker, initargs=(catalog, plan, share)) as pool:
         pending: deque[Future[ChunkResult]] = deque()
         for inputs in chunks:
             pending.append(pool.submit(_evaluate_in_worker, dict(inputs)))
@@ -46,9 +61,9 @@ def evaluated(catalog: Catalog, plan: SweepPlan, chunks: Iterable[Mapping[str, F
             yield pending.popleft().result()
 
 
-def _start_worker(catalog: Catalog, plan: SweepPlan) -> None:
+def _start_worker(catalog: Catalog, plan: SweepPlan, share: int) -> None:
     global _worker_sweep
-    _worker_sweep = catalog, plan
+    _worker_sweep = catalog, plan, sweep_kernel(share)
     keep_freed_arrays()
 
 
@@ -75,5 +90,5 @@ def keep_freed_arrays() -> bool:
 
 def _evaluate_in_worker(inputs: dict[str, Floats]) -> ChunkResult:
     assert _worker_sweep is not None, "the pool's initializer sets the sweep"
-    catalog, plan = _worker_sweep
-    return evaluate(catalog, plan, inputs)
+    catalog, plan, kernel = _worker_sweep
+    return evaluate(catalog, plan, inputs, kernel)

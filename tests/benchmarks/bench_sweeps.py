@@ -11,11 +11,12 @@ thread before numpy loads, and CPU time of this process is what the rates divide
    scenarios), on a 10-venue catalog built from the demo one by copying its sites and offers under
    new ids. This process keeps the memory of the arrays it frees, as every sweep runner does
    (`keep_freed_arrays`). Targets: ratio ≥ 200×, rate in the sweep's chunks ≥ 150,000 scenarios/s
-   per core. Beside them, a bound: the same chunk with the layout pinned
-   (`fixed_accelerators` = PINNED_ACCELERATORS, one candidate node count per venue, so no layout
-   search at all), which is more than any layout search, however clever, could make the rate; and a
-   floor: what a chunk costs whatever its size (a chunk of one scenario) and each scenario beyond it,
-   so the rate with no per-chunk cost, searched and pinned, is the most this design's arithmetic reaches.
+   per core. Beside them: the same chunks with the compiled pricing and choice off (numpy alone); a
+   bound, the same chunk with the layout pinned (`fixed_accelerators` = PINNED_ACCELERATORS, one
+   candidate node count per venue, so no layout search at all), which is more than any layout
+   search, however clever, could make the rate; and a floor: what a chunk costs whatever its size
+   (a chunk of one scenario) and each scenario beyond it, so the rate with no per-chunk cost, searched
+   and pinned, is the most this design's arithmetic reaches.
 2. End to end: `berth sweep` of 1,000,000 Monte Carlo scenarios of the demo sweep and catalog, as
    a subprocess with its default worker processes (one per CPU; target < 8 s), and the peak RSS of a
    10,000,000-scenario sweep streamed as CSV (target < 1 GB = 1e9 bytes). The RSS is that of the
@@ -35,8 +36,12 @@ thread before numpy loads, and CPU time of this process is what the rates divide
    utilisation, the model's size, each drawn from a continuous range), which take the per-scenario
    search (`own_step.fewest_meeting`), in the service's chunks (figures; no target).
 
-It prints PASS or MISS per target and exits 0 whatever the figures. `--core` runs sections 1, 1b, 1c
-and 1d only. `--quick` shrinks the end-to-end
+1e. The compiled kernel (`service/domain/compiled.py`, numba) in a fresh process: importing numba and
+   compiling with an empty cache, as after an install, and reading it from numba's cache; and that a
+   quote never imports numba (figures; section 1 prints each rate with the kernel off beside it).
+
+It prints PASS or MISS per target and exits 0 whatever the figures. `--core` runs sections 1, 1b, 1c,
+1d and 1e only. `--quick` shrinks the end-to-end
 runs (100,000 and 1,000,000 scenarios) to check the script itself; its figures are not the targets'.
 """
 
@@ -65,7 +70,7 @@ sys.path.insert(0, str(ROOT))
 from service.contract.catalog import CatalogIn  # noqa: E402
 from service.contract.request import QuoteRequestIn  # noqa: E402
 from service.contract.sweep import SweepIn  # noqa: E402
-from service.domain import deadline  # noqa: E402
+from service.domain import compiled, deadline  # noqa: E402
 from service.domain.evaluate import evaluate_campaign  # noqa: E402
 from service.domain.sweep import chunk_size, evaluate_chunk, scenario_chunks  # noqa: E402
 from service.domain.whatif import apply  # noqa: E402
@@ -90,6 +95,9 @@ RUN_LIMIT_SECONDS = 20 * 60
 PROGRESS_EVERY_SECONDS = 30.0
 
 results: list[tuple[str, bool, str]] = []
+# The compiled pricing and choice, as a sweep process uses it from COMPILED_PAYS_FROM scenarios on (the
+# targets are for such sweeps); section 1 also prints each rate without it.
+KERNEL = compiled.kernel()
 
 
 def verdict(name: str, ok: bool, figure: str) -> None:
@@ -141,21 +149,22 @@ def core_benchmark() -> None:
         prepared = prepare_sweep(catalog_in, SweepIn.model_validate(sweep), SweepLimits())
         plan, catalog = prepared.plan, prepared.catalog
         (_, inputs), = list(scenario_chunks(plan, VECTOR_SCENARIOS))
-        result = evaluate_chunk(catalog, plan, inputs)  # warm-up
-        vector_cpu, vector_wall = timed(lambda: evaluate_chunk(catalog, plan, inputs), 3)  # noqa: B023
+        result = evaluate_chunk(catalog, plan, inputs, kernel=KERNEL)  # warm-up
+        vector_cpu, vector_wall = timed(lambda: evaluate_chunk(catalog, plan, inputs, kernel=KERNEL), 3)  # noqa: B023
 
         service_chunk = chunk_size(catalog)
 
-        def in_service_chunks() -> None:
+        def in_service_chunks(kernel: compiled.Kernel | None = KERNEL) -> None:
             for _, part in scenario_chunks(plan, service_chunk):  # noqa: B023
-                evaluate_chunk(catalog, plan, part)  # noqa: B023
+                evaluate_chunk(catalog, plan, part, kernel=kernel)  # noqa: B023
 
-        chunked_cpu, _ = timed(in_service_chunks, 1)
+        chunked_cpu, _ = timed(in_service_chunks, 3)
+        numpy_cpu, _ = timed(lambda: in_service_chunks(None), 3)  # pricing and choice in numpy alone
 
         pinned_plan = dataclasses.replace(plan, options=dataclasses.replace(
             plan.options, fixed_accelerators=PINNED_ACCELERATORS))
-        evaluate_chunk(catalog, pinned_plan, inputs)  # warm-up
-        pinned_cpu, _ = timed(lambda: evaluate_chunk(catalog, pinned_plan, inputs), 3)  # noqa: B023
+        evaluate_chunk(catalog, pinned_plan, inputs, kernel=KERNEL)  # warm-up
+        pinned_cpu, _ = timed(lambda: evaluate_chunk(catalog, pinned_plan, inputs, kernel=KERNEL), 3)  # noqa: B023
 
         def scalar_loop() -> None:
             for s in range(SCALAR_SCENARIOS):
@@ -165,8 +174,8 @@ def core_benchmark() -> None:
 
         # What a chunk costs whatever its size: a chunk of one scenario, measured alone.
         one = {path: values[:1] for path, values in inputs.items()}
-        per_chunk_cpu, _ = timed(lambda: evaluate_chunk(catalog, plan, one), 5)  # noqa: B023
-        pinned_per_chunk_cpu, _ = timed(lambda: evaluate_chunk(catalog, pinned_plan, one), 5)  # noqa: B023
+        per_chunk_cpu, _ = timed(lambda: evaluate_chunk(catalog, plan, one, kernel=KERNEL), 5)  # noqa: B023
+        pinned_per_chunk_cpu, _ = timed(lambda: evaluate_chunk(catalog, pinned_plan, one, kernel=KERNEL), 5)  # noqa: B023
         chunks = -(-VECTOR_SCENARIOS // service_chunk)
         marginal = (chunked_cpu - chunks * per_chunk_cpu) / VECTOR_SCENARIOS
         pinned_marginal = (pinned_cpu - pinned_per_chunk_cpu) / VECTOR_SCENARIOS
@@ -184,6 +193,9 @@ def core_benchmark() -> None:
               f" = {vector_rate:,.0f} scenarios/s per core")
         print(f"    vectorised, the service's chunks of {service_chunk:,}: {chunked_cpu:.3f} s CPU"
               f" = {chunked_rate:,.0f} scenarios/s per core")
+        print(f"    the same chunks with pricing and choice in numpy alone (no kernel):"
+              f" {numpy_cpu:.3f} s CPU = {VECTOR_SCENARIOS / numpy_cpu:,.0f} scenarios/s per core;"
+              f" compiled {numpy_cpu / chunked_cpu:.2f}x faster ({_compiled_path()})")
         print(f"    bound: the same chunk with the layout pinned ({PINNED_ACCELERATORS} accelerators, no layout"
               f" search): {pinned_cpu:.3f} s CPU = {pinned_rate:,.0f} scenarios/s per core")
         print(f"    floor: a chunk costs {per_chunk_cpu * 1e3:.1f} ms CPU whatever its size (one scenario's chunk;"
@@ -199,6 +211,45 @@ def core_benchmark() -> None:
             verdict(f"vectorised rate ≥ {TARGET_RATE:,.0f} scenarios/s per core ({label}, the sweep's chunks)",
                     chunked_rate >= TARGET_RATE,
                     f"{chunked_rate:,.0f} scenarios/s per core ({chunked_rate / TARGET_RATE:.4f} of the target)")
+
+
+def _compiled_path() -> str:
+    """Which path priced the chunks: numba's kernel, or numpy where numba is missing."""
+    if KERNEL is None:
+        return "numba unavailable here: both runs are numpy"
+    import numba  # loaded by the kernel already
+
+    return f"numba {numba.__version__}"
+
+
+def compile_benchmark() -> None:
+    """What the compiled kernel costs a fresh process: importing numba and compiling the kernel with
+    an empty cache (as after an install), then reading it from numba's cache; and that a quote never
+    imports numba (its first-quote times are in bench_quote_stages.py, target under 1 s)."""
+    print("== 1e. The compiled kernel in a fresh process", flush=True)
+    if KERNEL is None:
+        print("  numba unavailable here: sweeps run numpy alone", flush=True)
+        return
+    first = ("import time; start = time.perf_counter(); from service.domain import compiled; "
+             "assert compiled.kernel() is not None; print(time.perf_counter() - start)")
+    quote_only = ("import sys, pathlib; from service.contract.catalog import CatalogIn; "
+                  "from service.contract.request import QuoteRequestIn; from service.usecases.quoting import quote; "
+                  "examples = pathlib.Path('pricing_examples'); "
+                  "quote(CatalogIn.model_validate_json((examples / 'catalog.json').read_text()), "
+                  "QuoteRequestIn.model_validate_json((examples / 'campaign-owned-wins.json').read_text())); "
+                  "print('numba' in sys.modules)")
+    with tempfile.TemporaryDirectory() as cache:
+        env = {**os.environ, "NUMBA_CACHE_DIR": cache}
+
+        def run(code: str) -> str:
+            return subprocess.run([sys.executable, "-c", code], cwd=ROOT, env=env, capture_output=True, text=True,
+                                  check=True).stdout.strip()
+        cold, cached = float(run(first)), float(run(first))
+        imported = run(quote_only)
+    print(f"  first sweep chunk of a fresh process: {cold:.2f} s to import numba and compile the kernel with an"
+          f" empty cache (once after an install), {cached:.2f} s to import it and read the kernel from the cache",
+          flush=True)
+    print(f"  a quote imports numba: {imported}", flush=True)
 
 
 def venue_size_benchmark() -> None:
@@ -221,7 +272,7 @@ def venue_size_benchmark() -> None:
 
         def in_service_chunks() -> None:
             for inputs in chunks:  # noqa: B023
-                evaluate_chunk(prepared.catalog, prepared.plan, inputs)  # noqa: B023
+                evaluate_chunk(prepared.catalog, prepared.plan, inputs, kernel=KERNEL)  # noqa: B023
 
         in_service_chunks()  # warm-up
         sweep_cpu, _ = timed(in_service_chunks, 3)
@@ -273,7 +324,7 @@ def step_grid_benchmark() -> None:
         scenarios = prepared.plan.scenarios
 
         def in_service_chunks() -> list[np.ndarray]:
-            return [evaluate_chunk(prepared.catalog, prepared.plan, inputs).totals for inputs in chunks]  # noqa: B023
+            return [evaluate_chunk(prepared.catalog, prepared.plan, inputs, kernel=KERNEL).totals for inputs in chunks]  # noqa: B023
 
         rates = {}
         totals = {}
@@ -314,7 +365,7 @@ def own_step_benchmark() -> None:
 
         def in_service_chunks() -> None:
             for inputs in chunks:  # noqa: B023
-                evaluate_chunk(prepared.catalog, prepared.plan, inputs)  # noqa: B023
+                evaluate_chunk(prepared.catalog, prepared.plan, inputs, kernel=KERNEL)  # noqa: B023
 
         in_service_chunks()  # warm-up
         cpu, _ = timed(in_service_chunks, 1)
@@ -487,6 +538,7 @@ def main() -> None:
     venue_size_benchmark()
     step_grid_benchmark()
     own_step_benchmark()
+    compile_benchmark()
     if "--core" not in sys.argv[1:]:
         with tempfile.TemporaryDirectory(prefix="bench-sweeps-") as scratch:
             end_to_end_json(Path(scratch), E2E_SCENARIOS // 10 if quick else E2E_SCENARIOS)

@@ -1,0 +1,217 @@
+"""The compiled pricing and choice (`compiled.py`) against the numpy path it stands in for, and when
+a sweep loads it (`usecases/chunk_pool.sweep_kernel`).
+
+The numpy path (each term's `Charges.cost` of every candidate, the cells that miss the deadline as
+inf, np.argmin across the blocks) is the reference: the compiled scan must pick the same column in
+every scenario, at the same cost to the bit, so every answer of a sweep is the same with numba or
+without it. Grids, prices and catalogs here are demo data drawn at random; nothing is a published
+check value.
+"""
+
+import dataclasses
+import json
+import subprocess
+import sys
+from pathlib import Path
+from types import SimpleNamespace
+from typing import Any
+
+import numpy as np
+import pytest
+
+from service.contract.catalog import CatalogIn
+from service.contract.sweep import SweepIn
+from service.domain import compiled
+from service.domain.campaign import Campaign, DataPlan, FlopsWork, QuoteOptions, Recurrence
+from service.domain.charges import (
+    Charges,
+    chargeback_charges,
+    committed_charges,
+    data_charges,
+    hourly_charges,
+    new_build_charges,
+)
+from service.domain.choice import _first_least
+from service.domain.evaluate import evaluate_campaign
+from service.domain.gravity import Transfer
+from service.domain.owning import NodeMonth
+from service.domain.step import FiguresWhenRead, LayoutGrid
+from service.domain.sweep import scenario_chunks
+from service.usecases import chunk_pool
+from service.usecases.sweeps import SweepLimits, prepare_sweep
+from tests.domain.test_reference_evaluation import assert_identical, random_campaign, random_catalog
+
+ROWS = 256
+KERNEL = compiled.kernel()
+EXAMPLES = Path(__file__).resolve().parents[2] / "pricing_examples"
+
+
+def test_numba_is_there_to_compile_the_kernel() -> None:
+    """The comparisons below mean something only where the kernel runs: numba is a dependency."""
+    assert KERNEL is not None and compiled.loaded()
+
+
+def random_block(rng: np.random.Generator, width: int) -> LayoutGrid:
+    """Candidates with the figures a cost reads, each one row or one per scenario; some wall clocks
+    zero or infinite, some columns repeated (equal costs), and every cost positive or NaN."""
+    def figure(low: float, high: float) -> np.ndarray:
+        rows = ROWS if rng.random() < 0.6 else 1
+        return rng.uniform(low, high, (rows, width))
+    nodes = np.ceil(figure(1.0, 600.0))
+    wall = figure(3600.0, 3.0e7)
+    # Some wall clocks a hair off a whole number of months or of their fractions, where a count of
+    # terms or of instances sharing a commitment turns on the tolerances of `terms.py` (the 1e-9s).
+    whole = rng.random(wall.shape) < 0.3
+    count = int(whole.sum())
+    wall[whole] = (3600.0 * 730.0 * rng.choice([1.0, 12.0, 36.0, 48.0, 60.0, 120.0], count)
+                   * rng.integers(1, 6, count) / rng.choice([1, 1, 1, 2, 3, 11, 39], count)
+                   * (1.0 + rng.choice([-1.0, 0.0, 1.0], count) * rng.uniform(1e-13, 1e-10, count)))
+    wall[rng.random(wall.shape) < 0.03] = 0.0
+    wall[rng.random(wall.shape) < 0.03] = np.inf
+    accelerators = nodes * 8.0
+    hours = wall * (accelerators / 3600.0)
+    if width > 2:  # a column equal to another: the first of equal costs is kept
+        for figures in (nodes, wall, hours):
+            figures[:, -1] = figures[:, 0]
+    figures = {"nodes": nodes, "accelerator_hours": hours, "wall_seconds": wall}
+    return FiguresWhenRead.of(lambda name: figures[name])
+
+
+def by_scenario(rng: np.random.Generator, low: float, high: float) -> Any:
+    """A price or rate: one for all scenarios, or one each with a few NaN (unknown)."""
+    if rng.random() < 0.4:
+        return float(rng.uniform(low, high))
+    values = rng.uniform(low, high, ROWS)
+    values[rng.random(ROWS) < 0.02] = np.nan
+    return values
+
+
+def random_charges(rng: np.random.Generator, kind: str) -> Charges:
+    """A term's charges as `evaluate.py` builds them, with random prices, recurrence and storage."""
+    recurrence = None if rng.random() < 0.4 else Recurrence(
+        # Whole months, and 1.1, whose multiples are not exact in binary (33 / 1.1 = 29.999…), so that
+        # the count of instances sharing a 33- or 55-month commitment turns on instances_sharing's 1e-9.
+        every_months=(float(rng.choice([1.0, 1.1, 3.0, 6.0])) if rng.random() < 0.7
+                      else rng.choice([0.3, 1.1, 2.0], ROWS)),
+        for_months=float(rng.choice([12.0, 36.0, 72.0])))
+    campaign = Campaign(name="compiled", team="demo", work=FlopsWork(total_flops=1e21), recurrence=recurrence,
+                        data=DataPlan(dataset_tb=by_scenario(rng, 0.0, 50.0), checkpoint_tb=float(rng.uniform(0, 9)),
+                                      checkpoints_kept=int(rng.integers(1, 5))))
+    storage = None if rng.random() < 0.3 else float(rng.uniform(0.005, 0.05))
+    data = data_charges(campaign, Transfer(0.01, 0.0, None, False), storage_per_gb_month=storage,
+                        results_egress_per_gb=0.05)
+    node = NodeMonth(*(by_scenario(rng, 100.0, 4000.0) for _ in range(5)))
+    variable = by_scenario(rng, 0.01, 0.4)
+    economics = SimpleNamespace(site=SimpleNamespace(node_type=SimpleNamespace(accelerators_per_node=8),
+                                                     depreciation_months=int(rng.choice([36, 55, 60]))),
+                                utilisation_planned=by_scenario(rng, 0.2, 0.9))
+    if kind == "chargeback":
+        return chargeback_charges(node, variable, economics, data)  # type: ignore[arg-type]
+    if kind == "new_build":
+        return new_build_charges(node, variable, economics, campaign, data)  # type: ignore[arg-type]
+    if kind == "hourly":
+        return hourly_charges(by_scenario(rng, 0.5, 12.0), data)
+    return committed_charges(int(rng.choice([1, 12, 33, 36])), float(rng.choice([0.0, 0.25, 1.0])),
+                             by_scenario(rng, 0.5, 12.0), by_scenario(rng, 0.0, 0.15), 8, campaign, data)
+
+
+@pytest.mark.parametrize("kind", ["chargeback", "new_build", "hourly", "committed"])
+@pytest.mark.parametrize("seed", range(12))
+def test_the_compiled_scan_picks_the_column_numpy_picks_from_the_terms_costs(seed: int, kind: str) -> None:
+    """Each kind of term, its charges built as the evaluation builds them: the column of the least
+    cost that meets the deadline, across blocks of one row and of one per scenario, with equal costs,
+    NaN prices, zero and infinite wall clocks, and rows where nothing meets the deadline."""
+    rng = np.random.default_rng(seed)
+    charges = random_charges(rng, kind)
+    widths = [int(w) for w in rng.integers(1, 9, rng.integers(1, 4))]
+    blocks = [random_block(rng, width) for width in widths]
+    meets = [rng.random((ROWS if rng.random() < 0.7 else 1, width)) < rng.choice([0.0, 0.5, 0.95])
+             for width in widths]
+    with np.errstate(all="ignore"):  # as the use cases run the core: NaN and inf are answers here
+        costs = [np.broadcast_to(np.where(m, charges.cost(b), np.inf), (ROWS, w))
+                 for m, b, w in zip(meets, blocks, widths, strict=True)]
+    expected = _first_least(costs, widths)
+    least, picked = compiled.least_costs(meets, blocks, charges.form, KERNEL)
+    np.testing.assert_array_equal(picked, expected)
+    # Every cost the same to the bit, not only the order: the least of each row is numpy's.
+    np.testing.assert_array_equal(least, np.concatenate(costs, axis=1)[np.arange(ROWS), expected])
+
+
+def test_a_quote_and_a_small_sweep_never_import_numba_and_a_large_sweep_does() -> None:
+    """A quote never pays numba's import (0.2 s) or compilation, so the first quote of a fresh CLI
+    or server is as fast with numba installed; nor does a sweep too small for the kernel to pay
+    for loading it. A process that will price COMPILED_PAYS_FROM scenarios loads it, and from then
+    on every sweep of that process uses it, as it costs nothing more."""
+    script = ("import sys, pathlib, json\n"
+              "from service.contract.catalog import CatalogIn\n"
+              "from service.contract.request import QuoteRequestIn\n"
+              "from service.contract.sweep import SweepIn\n"
+              "from service.usecases import chunk_pool\n"
+              "from service.usecases.quoting import quote\n"
+              "from service.usecases.sweeps import SweepLimits, prepare_sweep, run\n"
+              "examples = pathlib.Path('pricing_examples')\n"
+              "catalog = CatalogIn.model_validate_json((examples / 'catalog.json').read_text())\n"
+              "for name in ('owned-wins', 'split'):\n"
+              "    quote(catalog, QuoteRequestIn.model_validate_json("
+              "(examples / f'campaign-{name}.json').read_text()))\n"
+              "sweep = json.loads((examples / 'sweep-electricity-and-utilisation.json').read_text())\n"
+              "sweep['samples'] = 3000\n"
+              "run(prepare_sweep(catalog, SweepIn.model_validate(sweep), SweepLimits()))\n"
+              "print('numba' in sys.modules)\n"
+              "large = chunk_pool.sweep_kernel(chunk_pool.COMPILED_PAYS_FROM)\n"
+              "print('numba' in sys.modules, large is not None, chunk_pool.sweep_kernel(10) is large)\n")
+    result = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, check=True)
+    assert result.stdout.split() == ["False", "True", "True", "True"]
+
+
+def evaluate_twice(seed: int, *, recurring: bool, vary_step: bool,
+                   kernel: compiled.Kernel | None = KERNEL) -> tuple[Any, Any]:
+    """A random catalog and campaign over ROWS scenarios, evaluated with `kernel` and in numpy."""
+    rng = np.random.default_rng(7000 + seed)
+    catalog = random_catalog(rng)
+    campaign, overrides = random_campaign(rng, ROWS, vary_step=vary_step)
+    if recurring:
+        campaign = dataclasses.replace(campaign, recurrence=Recurrence(every_months=rng.choice([1.0, 3.0, 6.0], ROWS),
+                                                                       for_months=36.0))
+    options = QuoteOptions(terms=("owned_chargeback", "owned_new_build", "on_demand", "committed", "interruptible"))
+    with np.errstate(all="ignore"):
+        return tuple(evaluate_campaign(catalog, campaign, options, overrides, kernel=scan)  # type: ignore[return-value]
+                     for scan in (kernel, None))
+
+
+@pytest.mark.parametrize("recurring", [False, True])
+@pytest.mark.parametrize("seed", range(4))
+def test_an_evaluation_is_identical_compiled_or_in_numpy_on_random_catalogs(
+        seed: int, recurring: bool, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Every figure of every option (totals, lines, chosen layouts, screens) equal to the bit, on
+    random catalogs and campaigns whose step is shared or varies by scenario; and the kernel really
+    priced every term (a comparison of numpy with itself would prove nothing)."""
+    calls: list[int] = []
+
+    def counted(*args: Any) -> None:
+        calls.append(1)
+        KERNEL(*args)  # type: ignore[misc]
+    ours, reference = evaluate_twice(seed, recurring=recurring, vary_step=seed % 2 == 1, kernel=counted)
+    assert len(calls) >= len(ours.options)  # a block or more per term
+    assert_identical(ours, reference, "evaluation")
+
+
+def test_without_numba_a_large_sweep_runs_numpy_and_says_so(monkeypatch: pytest.MonkeyPatch,
+                                                            caplog: pytest.LogCaptureFixture) -> None:
+    """Where numba is missing (or cannot compile it), there is no kernel, a warning says so once, and
+    a sweep large enough for the kernel runs numpy, with the same answers."""
+    monkeypatch.setitem(sys.modules, "numba", None)  # `import numba` now raises ImportError
+    monkeypatch.setattr(compiled, "_kernel", [])
+    with caplog.at_level("WARNING", logger=compiled.__name__):
+        assert chunk_pool.sweep_kernel(chunk_pool.COMPILED_PAYS_FROM) is None
+        assert compiled.kernel() is None and not compiled.loaded()
+    assert caplog.text.count("sweeps use numpy") == 1
+    catalog = CatalogIn.model_validate_json((EXAMPLES / "catalog.json").read_text(encoding="utf-8"))
+    sweep = json.loads((EXAMPLES / "sweep-electricity-and-utilisation.json").read_text(encoding="utf-8"))
+    sweep["samples"] = 600
+    prepared = prepare_sweep(catalog, SweepIn.model_validate(sweep), SweepLimits())
+    inputs = [values for _, values in scenario_chunks(prepared.plan, 300)]
+    without = list(chunk_pool.evaluated(prepared.catalog, prepared.plan, inputs, processes=1))
+    monkeypatch.setattr(compiled, "_kernel", [KERNEL])
+    for numpy_only, chunk in zip(without, inputs, strict=True):
+        assert_identical(chunk_pool.evaluate(prepared.catalog, prepared.plan, chunk, KERNEL), numpy_only, "chunk")
