@@ -3,13 +3,14 @@ deadline, the cheapest of those per scenario, and the chosen column of every fig
 """
 
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
 from service.domain import compiled
 from service.domain.arrays import ArrayLike, Bools, Floats, Ints, any_by_row, as_floats, broadcast
 from service.domain.charges import Charges
+from service.domain.gathered import Gathered, GatheredGrid
 from service.domain.layout import DEADLINE, MEMORY, PINNED, Candidates, LayoutGrid
 from service.domain.step import FiguresWhenRead
 
@@ -18,27 +19,53 @@ from service.domain.step import FiguresWhenRead
 class Eligible:
     """Which candidate layouts a term may take: those that hold the model within its node limit,
     and of them those that meet the deadline, block by block of the candidates (never copied into
-    one grid). Terms of a venue with one limit share it."""
+    one grid). Terms of a venue with one limit share it. With the compiled kernel, a gathered block's
+    are not spread at all: its `meets` is None, and the kernel finds them from its `gathered` form,
+    the `limit` and the `deadline` as it prices the block."""
 
-    meets: tuple[Bools, ...]  # per block, (R_b, K_b), R_b = 1 or S
+    meets: tuple[Bools | None, ...]  # per block, (R_b, K_b), R_b = 1 or S
     widths: tuple[int, ...]
     any_fits: Bools  # (R,): some layout within the limit holds the model
     meets_deadline: Bools  # (R,)
     fastest: Ints | None  # (R,): the fastest allowed layout; None when every row meets the deadline
+    gathered: tuple[Gathered | None, ...] = ()  # per block, its compact form where `meets` is None
+    limit: Floats = field(default_factory=lambda: np.zeros((1, 1)))  # the node limit, (S, 1) or (1, 1)
+    deadline: Floats = field(default_factory=lambda: np.zeros((1, 1)))  # the deadline in seconds, likewise
 
 
-def eligible(candidates: Candidates, *, node_limit: ArrayLike, deadline_seconds: ArrayLike) -> Eligible:
+def eligible(candidates: Candidates, *, node_limit: ArrayLike, deadline_seconds: ArrayLike,
+             kernel: compiled.Kernel | None = None) -> Eligible:
+    """Which layouts a term under `node_limit` may take; with `kernel`, a gathered block's found
+    compiled (`compiled.reach`) and never spread."""
     limit = as_floats(node_limit).reshape(-1, 1)
     deadline = as_floats(deadline_seconds).reshape(-1, 1)
-    allowed = [block.fits & (block.nodes <= limit) for block in candidates.blocks]
-    walls = [np.asarray(block.wall_seconds) for block in candidates.blocks]
-    meets = tuple(np.asarray(a & (w <= deadline)) for a, w in zip(allowed, walls, strict=True))
-    any_fits = _any(allowed)
-    meets_deadline = _any(meets)
+    blocks = candidates.blocks
+    forms = tuple(block.gathered() if kernel is not None and isinstance(block, GatheredGrid) else None
+                  for block in blocks)
+    meets: list[Bools | None] = []
+    allowed_any, meets_any = [], []
+    for block, form in zip(blocks, forms, strict=True):
+        if form is not None and kernel is not None:
+            some, met = compiled.reach(form, limit, deadline, kernel)
+            meets.append(None)
+        else:
+            allowed = block.fits & (block.nodes <= limit)
+            met_here = np.asarray(allowed & (np.asarray(block.wall_seconds) <= deadline))
+            some, met = any_by_row(np.asarray(allowed)), any_by_row(met_here)
+            meets.append(met_here)
+        allowed_any.append(some)
+        meets_any.append(met)
+    any_fits = np.asarray(np.logical_or.reduce(np.broadcast_arrays(*allowed_any)))
+    meets_deadline = np.asarray(np.logical_or.reduce(np.broadcast_arrays(*meets_any)))
     # The fallback layout is needed only where nothing meets the deadline, which is rare.
-    fastest = None if meets_deadline.all() else _first_least(
-        [np.where(a, w, np.inf) for a, w in zip(allowed, walls, strict=True)], candidates.widths)
-    return Eligible(meets, tuple(candidates.widths), any_fits, meets_deadline, fastest)
+    fastest = None if meets_deadline.all() else _fastest(blocks, limit, candidates.widths)
+    return Eligible(tuple(meets), tuple(candidates.widths), any_fits, meets_deadline, fastest, forms, limit, deadline)
+
+
+def _fastest(blocks: Sequence[LayoutGrid], limit: Floats, widths: Sequence[int]) -> Ints:
+    """Per scenario, the fastest layout within the node limit that holds the model."""
+    return _first_least([np.where(block.fits & (block.nodes <= limit), np.asarray(block.wall_seconds), np.inf)
+                         for block in blocks], widths)
 
 
 @dataclass(frozen=True)
@@ -54,7 +81,9 @@ def choose(layouts: Eligible, costs: Sequence[ArrayLike]) -> Choice:
     """Per scenario, the cheapest layout that meets the deadline (the first of equal costs); when
     none meets it, the fastest layout that fits (reported as missing the deadline). `costs` holds
     each block's cost of its candidates."""
-    cheapest = _first_least([np.where(meets, cost, np.inf) for meets, cost in zip(layouts.meets, costs, strict=True)],
+    masks = [meets for meets in layouts.meets if meets is not None]
+    assert len(masks) == len(costs), "a block left to the compiled kernel is priced by it (choose_priced)"
+    cheapest = _first_least([np.where(meets, cost, np.inf) for meets, cost in zip(masks, costs, strict=True)],
                             layouts.widths)
     return _choice(layouts, cheapest, max(np.shape(cost)[0] if np.ndim(cost) else 1 for cost in costs))
 
@@ -65,7 +94,8 @@ def choose_priced(layouts: Eligible, blocks: Sequence[LayoutGrid], charges: Char
     caller passes one (`compiled.py`, the same choice), else in numpy."""
     if kernel is None:
         return choose(layouts, [charges.cost(block) for block in blocks])
-    cheapest = compiled.cheapest(layouts.meets, blocks, charges.form, kernel)
+    cheapest = compiled.cheapest(layouts.meets, layouts.gathered or (None,) * len(blocks), layouts.widths,
+                                 layouts.limit, layouts.deadline, blocks, charges.form, kernel)
     return _choice(layouts, cheapest, cheapest.shape[0])
 
 

@@ -1,10 +1,12 @@
-"""The layout search's pricing and choice compiled with numba, where a sweep pays for it.
+"""The layout search's eligibility, pricing and choice compiled with numba, where a sweep pays for it.
 
 Choosing a term's layout prices every candidate in every scenario and keeps the cheapest that
 meets the deadline (`choice.choose` over `charges.Charges.cost`). In numpy that is several
-whole-grid passes per term, each writing an (S, K) array, then a masked copy and an argmin: about
-30% of a sweep's time. Here each block of candidates is priced and compared in one pass, a cell at
-a time, and nothing is written but each scenario's running least.
+whole-grid passes per term, each writing an (S, K) array, then a masked copy and an argmin, after
+the deadline's candidates were spread over every scenario (`step.GatheredGrid`) and masked by which
+a term may take (`choice.eligible`): about 45% of a sweep's time. Here each block of candidates is
+priced and compared in one pass, a cell at a time, a gathered block read from its table through each
+scenario's row of columns (`step.Gathered`), and nothing is written but each scenario's running least.
 
 The numpy path is the reference, and the kernel is a dependency its callers pass in (`kernel()`),
 or not: a quote never does, so it never imports numba; a sweep does where importing numba (0.2 s)
@@ -27,6 +29,7 @@ from typing import Any
 import numpy as np
 
 from service.domain.arrays import Bools, Floats, Ints, as_floats
+from service.domain.gathered import Gathered
 from service.domain.units import HOURS_PER_MONTH, SECONDS_PER_HOUR
 
 HOURLY, COMMITTED, CHARGEBACK, NEW_BUILD = 0, 1, 2, 3  # the kinds of term the kernel prices
@@ -57,22 +60,38 @@ class CostForm:
                 NEW_BUILD: ("nodes", "wall_seconds", "accelerator_hours")}[self.kind]
 
 
-def _scan(kind: int, meets: Any, nodes: Any, accelerator_hours: Any, wall_seconds: Any, rate: Any, fixed: Any,
-          months: float, fee_per_node: float, recurring: bool, every: Any, total: Any, stored: bool, storage: Any,
-          offset: int, best: Any, index: Any) -> None:  # pragma: no cover - runs compiled
+def _scan(kind: int, meets: Any, nodes: Any, accelerator_hours: Any, wall_seconds: Any, gathered: bool, rows: Any,
+          row_of: Any, table_nodes: Any, table_accelerators: Any, table_fits: Any, table_step: Any, steps: Any,
+          staging: Any, limit: Any, deadline: Any, rate: Any, fixed: Any, months: float, fee_per_node: float,
+          recurring: bool, every: Any, total: Any, stored: bool, storage: Any, offset: int, best: Any,
+          index: Any) -> None:  # pragma: no cover - runs compiled
     """One block's candidates priced and compared with the running least of each scenario
     (`best`, `index`, over the blocks before it): np.argmin's rules, the first of equals, a NaN as
-    the least (the first NaN is kept), a candidate that does not meet the deadline as inf."""
-    rows, width = meets.shape
+    the least (the first NaN is kept), a candidate that does not meet the deadline as inf. A block's
+    figures are (S, K) arrays with `meets`, or for a `gathered` block its table's, at the columns
+    `rows[row_of[s]]`, with which ones a term may take and their wall clock made here as
+    `choice.eligible` and `step.wall_figures` make them."""
+    width = rows.shape[1] if gathered else meets.shape[1]
     timed = stored or kind == COMMITTED or kind == NEW_BUILD  # the cost reads the wall clock
-    for s in range(rows):
+    for s in range(best.shape[0]):
         least, at = best[s], index[s]
         if least != least:
             continue
         for k in range(width):
-            if not meets[s, k]:
-                continue
-            hours = wall_seconds[s, k] / SECONDS_PER_HOUR if timed else 0.0
+            if gathered:
+                c = rows[row_of[s], k]
+                if not (table_fits[c] and table_nodes[c] <= limit[s]):
+                    continue
+                seconds = steps[s] * table_step[c] + staging[s]
+                if not seconds <= deadline[s]:
+                    continue
+                count = table_nodes[c]
+                used = seconds * (table_accelerators[c] / SECONDS_PER_HOUR)
+            else:
+                if not meets[s, k]:
+                    continue
+                seconds, count, used = wall_seconds[s, k], nodes[s, k], accelerator_hours[s, k]
+            hours = seconds / SECONDS_PER_HOUR if timed else 0.0
             window = terms = 0.0
             if kind == COMMITTED:  # committed_share: max(1, ⌈hours / term hours⌉) terms
                 terms = hours / (months * HOURS_PER_MONTH)
@@ -87,11 +106,11 @@ def _scan(kind: int, meets: Any, nodes: Any, accelerator_hours: Any, wall_second
                 by_capacity = np.floor(window * HOURS_PER_MONTH / hours + 1e-9)
                 sharing = np.maximum(1.0, np.minimum(np.minimum(by_calendar, by_capacity), total[s]))
             if kind == COMMITTED:  # committed_lines
-                value = nodes[s, k] * fee_per_node * terms * (rate[s] / sharing)
+                value = count * fee_per_node * terms * (rate[s] / sharing)
             elif kind == NEW_BUILD:  # new_build_cost
-                value = nodes[s, k] * window / sharing * fixed[s] + accelerator_hours[s, k] * rate[s]
+                value = count * window / sharing * fixed[s] + used * rate[s]
             else:  # hourly_lines, chargeback_cost
-                value = accelerator_hours[s, k] * rate[s]
+                value = used * rate[s]
             if stored:  # storage_cost
                 value = value + storage[s] * hours
             if value != value:
@@ -102,27 +121,57 @@ def _scan(kind: int, meets: Any, nodes: Any, accelerator_hours: Any, wall_second
         best[s], index[s] = least, at
 
 
-Kernel = Callable[..., None]  # the compiled `_scan`
-_kernel: list[Kernel | None] = []  # the compiled scan once tried in this process: [kernel] or [None]
+def _reach(rows: Any, row_of: Any, table_nodes: Any, table_fits: Any, table_step: Any, steps: Any, staging: Any,
+           limit: Any, deadline: Any, allowed: Any, meets: Any) -> None:  # pragma: no cover - runs compiled
+    """Per scenario of a gathered block, whether some candidate fits within the node limit, and
+    whether some also meets the deadline (`choice.eligible`'s any of each, nothing spread)."""
+    for s in range(allowed.shape[0]):
+        r = row_of[s]
+        some = met = False
+        for k in range(rows.shape[1]):
+            c = rows[r, k]
+            if table_fits[c] and table_nodes[c] <= limit[s]:
+                some = True
+                if steps[s] * table_step[c] + staging[s] <= deadline[s]:
+                    met = True
+                    break
+        allowed[s], meets[s] = some, met
+
+
+@dataclass(frozen=True)
+class Kernel:
+    """The compiled `_scan` and `_reach`."""
+
+    scan: Callable[..., None]
+    reach: Callable[..., None]
+
+
+_kernel: list[Kernel | None] = []  # the kernel once tried in this process: [kernel] or [None]
 
 
 def kernel() -> Kernel | None:
-    """The compiled scan, compiled (or read from numba's cache) the first time this process asks;
+    """The compiled kernel, compiled (or read from numba's cache) the first time this process asks;
     None where numba is missing or cannot compile it (logged once)."""
     if not _kernel:
         try:
             import numba  # here, not at the top: only a sweep imports it, so a quote never pays for it
             from numba import types
 
-            floats, given = types.Array(types.float64, 2, "A", readonly=True), types.Array(
-                types.float64, 1, "A", readonly=True)
-            mask = types.Array(types.boolean, 2, "A", readonly=True)
-            # One signature, compiled once (or read from numba's cache beside this file): any layout
+            def array(kind: Any, dimensions: int) -> Any:
+                return types.Array(kind, dimensions, "A", readonly=True)
+            floats, given, flags = array(types.float64, 2), array(types.float64, 1), array(types.boolean, 1)
+            columns, row_of = array(types.int64, 2), array(types.int64, 1)
+            out_floats, out_ints = types.Array(types.float64, 1, "C"), types.Array(types.int64, 1, "C")
+            out_flags = types.Array(types.boolean, 1, "C")
+            # One signature each, compiled once (or read from numba's cache beside this file): any layout
             # of the arrays converts to it, where letting numba type each call compiles one per layout.
-            signature = types.void(types.int64, mask, floats, floats, floats, given, given, types.float64,
-                                   types.float64, types.boolean, given, given, types.boolean, given, types.int64,
-                                   types.Array(types.float64, 1, "C"), types.Array(types.int64, 1, "C"))
-            _kernel.append(numba.njit([signature], cache=True, nogil=True, error_model="numpy")(_scan))
+            scan = types.void(types.int64, array(types.boolean, 2), floats, floats, floats, types.boolean, columns,
+                              row_of, given, given, flags, given, given, given, given, given, given, given,
+                              types.float64, types.float64, types.boolean, given, given, types.boolean, given,
+                              types.int64, out_floats, out_ints)
+            reach = types.void(columns, row_of, given, flags, given, given, given, given, given, out_flags, out_flags)
+            _kernel.append(Kernel(numba.njit([scan], cache=True, nogil=True, error_model="numpy")(_scan),
+                                  numba.njit([reach], cache=True, nogil=True, error_model="numpy")(_reach)))
         except Exception as error:  # any failure leaves the numpy path, which is always right
             _log.warning("compiled pricing unavailable, sweeps use numpy: %s", error)
             _kernel.append(None)
@@ -134,37 +183,67 @@ def loaded() -> bool:
     return bool(_kernel) and _kernel[0] is not None
 
 
-def cheapest(meets: Sequence[Bools], blocks: Sequence[Any], form: CostForm, scan: Kernel) -> Ints:
+_NONE = np.zeros((1, 1))
+_NO_COLUMNS = np.zeros((1, 1), dtype=np.int64)
+_NO_FLAGS = np.zeros(1, dtype=bool)
+_NO_MASK = np.zeros((1, 1), dtype=bool)
+
+
+def _along(value: Any, rows: int) -> Any:
+    """A per-scenario figure ((S, 1), (S,), (1, 1), a scalar or None) as an (rows,) view."""
+    return np.broadcast_to(_NONE[0] if value is None else as_floats(value).reshape(-1), (rows,))
+
+
+def reach(block: Gathered, limit: Floats, deadline: Floats, compiled: Kernel) -> tuple[Bools, Bools]:
+    """Per scenario of a gathered block, whether some candidate fits within `limit` and whether some
+    also meets `deadline` ((S, 1) or (1, 1) each), as `choice.eligible` finds them."""
+    rows = max(block.row_of.size, np.size(limit), np.size(deadline), block.steps.size, block.staging.size)
+    allowed, meets = np.zeros(rows, dtype=bool), np.zeros(rows, dtype=bool)
+    compiled.reach(block.rows, np.broadcast_to(block.row_of, (rows,)), block.nodes, block.fits,
+                   block.effective_step_seconds, _along(block.steps, rows), _along(block.staging, rows),
+                   _along(limit, rows), _along(deadline, rows), allowed, meets)
+    return allowed, meets
+
+
+def cheapest(meets: Sequence[Bools | None], gathered: Sequence[Gathered | None], widths: Sequence[int],
+             limit: Floats, deadline: Floats, blocks: Sequence[Any], form: CostForm, compiled: Kernel) -> Ints:
     """Per scenario, the column of the cheapest candidate that meets the deadline, among the blocks
-    side by side, as `choice.choose` finds it from the blocks' costs, with the kernel `scan`."""
-    return least_costs(meets, blocks, form, scan)[1]
+    side by side, as `choice.choose` finds it from the blocks' costs, with the kernel `compiled`. A
+    block is given by its figures and which of its candidates meet the deadline (`meets`), or where
+    that is None by its `gathered` form and the term's node `limit` and `deadline`."""
+    return least_costs(meets, gathered, widths, limit, deadline, blocks, form, compiled)[1]
 
 
-def least_costs(meets: Sequence[Bools], blocks: Sequence[Any], form: CostForm,
-                scan: Kernel) -> tuple[Floats, Ints]:
+def least_costs(meets: Sequence[Bools | None], gathered: Sequence[Gathered | None], widths: Sequence[int],
+                limit: Floats, deadline: Floats, blocks: Sequence[Any], form: CostForm,
+                compiled: Kernel) -> tuple[Floats, Ints]:
     """`cheapest`, with each scenario's least cost (inf where no candidate meets the deadline)."""
-    figures = [{name: np.atleast_2d(as_floats(getattr(block, name))) for name in form.reads()} for block in blocks]
+    figures = [{} if mask is None else {name: np.atleast_2d(as_floats(getattr(block, name))) for name in form.reads()}
+               for mask, block in zip(meets, blocks, strict=True)]
     every, total = form.recurring
     per_scenario = [value for value in (form.rate, form.fixed, every, total, form.storage) if value is not None]
-    rows = max([np.shape(mask)[0] for mask in meets]
+    rows = max([np.shape(mask)[0] for mask in meets if mask is not None]
+               + [max(at.row_of.size, np.size(limit), np.size(deadline)) for at in gathered if at is not None]
                + [value.shape[0] for block in figures for value in block.values()]
                + [np.size(value) for value in per_scenario])
-    unused = np.zeros((1, 1))
-
-    def grid(value: Any, width: int) -> Any:
-        return np.broadcast_to(value, (rows, width))
-
-    def column(value: Floats | None) -> Any:
-        return np.broadcast_to(unused[0] if value is None else as_floats(value).reshape(-1), (rows,))
-
     best, index = np.full(rows, np.inf), np.zeros(rows, dtype=np.int64)
     offset = 0
-    for mask, block in zip(meets, figures, strict=True):
-        width = np.shape(mask)[1]
-        scan(form.kind, grid(mask, width), *(grid(block.get(name, unused), width)
-                                                for name in ("nodes", "accelerator_hours", "wall_seconds")),
-               column(form.rate), column(form.fixed), float(form.months), float(form.fee_per_node),
-               every is not None, column(every), column(total), form.storage is not None,
-               column(form.storage), offset, best, index)
+    for mask, block, width, at in zip(meets, figures, widths, gathered, strict=True):
+        def grid(value: Any) -> Any:
+            return np.broadcast_to(value, (rows, width))  # noqa: B023 - used at once
+        if mask is None:
+            assert at is not None
+            cells = (_NO_MASK, _NONE, _NONE, _NONE, True, at.rows, np.broadcast_to(at.row_of, (rows,)), at.nodes,
+                     at.accelerators, at.fits, at.effective_step_seconds, _along(at.steps, rows),
+                     _along(at.staging, rows))
+        else:
+            cells = (grid(mask), *(grid(block.get(name, _NONE)) for name in ("nodes", "accelerator_hours",
+                                                                          "wall_seconds")),
+                     False, _NO_COLUMNS, np.zeros(rows, dtype=np.int64), _NONE[0], _NONE[0], _NO_FLAGS, _NONE[0],
+                     _along(None, rows), _along(None, rows))
+        compiled.scan(form.kind, *cells, _along(limit, rows), _along(deadline, rows), _along(form.rate, rows),
+                      _along(form.fixed, rows), float(form.months), float(form.fee_per_node), every is not None,
+                      _along(every, rows), _along(total, rows), form.storage is not None,
+                      _along(form.storage, rows), offset, best, index)
         offset += width
     return best, index

@@ -16,18 +16,17 @@ import numpy as np
 
 from service.domain import dominance
 from service.domain.arrays import Bools, Floats, Ints, take_rows
+from service.domain.gathered import GatheredGrid, gathered
 from service.domain.guesses import TABLE_RUNGS, guess_runs, interpolated
 from service.domain.parallelism import Shapes
 from service.domain.step import (
     DEADLINE,
     Columns,
-    GatheredGrid,
     Hardware,
     Load,
     scenario_rows,
     scenario_terms,
     step_figures,
-    wall_figures,
 )
 
 SEARCH_STEPS = 100  # bracket steps towards the fewest nodes that meet the deadline: halving every other
@@ -183,27 +182,6 @@ def _cells(starts: Ints, lengths: Ints) -> tuple[Ints, Ints, Bools]:
     offsets = np.cumsum(lengths) - lengths
     position = np.arange(piece.size) + (starts - offsets)[piece]
     return piece // 2, position, piece % 2 == 1
-
-
-def gathered(load: Load, hardware: Hardware, table: dict[str, Any], rows: Ints,
-             row_of: Ints | None = None) -> GatheredGrid:
-    """The block of the candidates `table[name][0, column]`, with what every term reads of it (nodes,
-    accelerators, fits) and its wall clock gathered now. `column` is `rows`, a row per scenario, or
-    with `row_of`, each scenario's row of the distinct `rows`: each figure is then taken for those
-    rows first and spread by whole rows."""
-    if row_of is None:
-        column = rows
-
-        def spread(figure: Any) -> Any:
-            return np.asarray(figure)[0][column]
-    else:
-        column = np.take(rows, row_of, axis=0)
-
-        def spread(figure: Any) -> Any:
-            return np.take(np.asarray(figure)[0][rows], row_of, axis=0)
-    eager = {name: spread(table[name]) for name in ("nodes", "accelerators", "fits")}
-    wall = wall_figures(load, hardware, spread(table["effective_step_seconds"]), eager["accelerators"])
-    return GatheredGrid(table, column, **eager, **wall)
 
 
 class _ExactCounts:

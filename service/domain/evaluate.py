@@ -209,11 +209,11 @@ def _site_options(site: Site, figures: SiteFigures, context: _Context) -> list[O
     if "owned_chargeback" in limits:
         results.append(_evaluate(venue, "owned_chargeback", limits["owned_chargeback"],
                                  chargeback_charges(figures.node, figures.variable_per_accelerator_hour,
-                                                    economics, data), physics, context.kernel))
+                                                    economics, data), physics))
     if "owned_new_build" in limits:
         results.append(_evaluate(venue, "owned_new_build", limits["owned_new_build"],
                                  new_build_charges(figures.node, figures.variable_per_accelerator_hour,
-                                                   economics, context.campaign, data), physics, context.kernel))
+                                                   economics, context.campaign, data), physics))
     return results
 
 
@@ -231,7 +231,7 @@ def _offer_options(offer: Offer, context: _Context) -> list[OptionResult]:
     physics = _physics(venue, context, limits=[limit.nodes])
     if "on_demand" in terms and offer.on_demand_per_accelerator_hour is not None:
         price = offer.on_demand_per_accelerator_hour * rented_price_factor(overrides, on_demand=True)
-        results.append(_evaluate(venue, "on_demand", limit, hourly_charges(price, data), physics, context.kernel))
+        results.append(_evaluate(venue, "on_demand", limit, hourly_charges(price, data), physics))
     if "committed" in terms:
         cost_of_capital = _cost_of_capital(context.catalog, overrides)
         for commitment in offer.committed:
@@ -239,15 +239,13 @@ def _offer_options(offer: Offer, context: _Context) -> list[OptionResult]:
             results.append(_evaluate(
                 venue, f"committed_{commitment.months}m", limit,
                 committed_charges(commitment.months, commitment.upfront_fraction, price, cost_of_capital,
-                                  offer.node_type.accelerators_per_node, context.campaign, data), physics,
-                context.kernel))
+                                  offer.node_type.accelerators_per_node, context.campaign, data), physics))
     if "interruptible" in terms and offer.interruptible is not None:
         price = offer.interruptible.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
         # Interruptions change the wall clock, so this term gets physics of its own.
         interrupted = _physics(venue, context, limits=[limit.nodes],
                                interruption_mean_hours=offer.interruptible.mean_hours_between_interruptions)
-        results.append(_evaluate(venue, "interruptible", limit, hourly_charges(price, data), interrupted,
-                                 context.kernel))
+        results.append(_evaluate(venue, "interruptible", limit, hourly_charges(price, data), interrupted))
     return results
 
 
@@ -260,6 +258,7 @@ class _Physics:
     grid: Candidates
     min_nodes: Floats  # the fewest nodes any layout needs to hold the model; inf when none can
     pinned_nodes: float | None  # options.fixed_accelerators as whole nodes
+    kernel: Kernel | None  # the compiled eligibility, pricing and choice (compiled.py), else numpy
     _candidates: dict[int, tuple[NodeLimit, Eligible]] = field(default_factory=dict)
 
     def candidates(self, limit: NodeLimit) -> Eligible:
@@ -267,7 +266,8 @@ class _Physics:
         of an offer share one."""
         if id(limit) not in self._candidates:  # the limit is kept with them, so its id is not reused
             self._candidates[id(limit)] = limit, eligible(self.grid, node_limit=limit.nodes,
-                                                          deadline_seconds=self.load.deadline_seconds)
+                                                          deadline_seconds=self.load.deadline_seconds,
+                                                          kernel=self.kernel)
         return self._candidates[id(limit)][1]
 
 
@@ -294,7 +294,7 @@ def _physics(venue: _Venue, context: _Context, *, limits: list[Floats],
                                        fixed_accelerators=options.fixed_accelerators,
                                        fit=_node_fit(context, hardware))
     pinned = None if options.fixed_accelerators is None else float(grid.blocks[0].nodes[0, 0])
-    return _Physics(load, hardware, grid, min_nodes, pinned)
+    return _Physics(load, hardware, grid, min_nodes, pinned, context.kernel)
 
 
 def _node_fit(context: _Context, hardware: Hardware) -> NodeFit:
@@ -306,13 +306,12 @@ def _node_fit(context: _Context, hardware: Hardware) -> NodeFit:
     return context.fits[size]
 
 
-def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, physics: _Physics,
-              kernel: Kernel | None) -> OptionResult:
+def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, physics: _Physics) -> OptionResult:
     """Price every candidate layout, keep the cheapest per scenario, then itemise only that one."""
     node = venue.node_type
     grid = physics.grid
     layouts = physics.candidates(limit)
-    choice = choose_priced(layouts, grid.blocks, charges, kernel)
+    choice = choose_priced(layouts, grid.blocks, charges, physics.kernel)
     chosen = grid.pick(choice.index)
     lines_at, details_at = charges.itemise(as_column(chosen))
     # A line that does not depend on the layout may vary by scenario when nothing else does.

@@ -19,12 +19,12 @@ from service.domain.arrays import ArrayLike, Floats, Ints, as_floats, take_rows
 from service.domain.deadline import (
     MAX_UNITS,
     blocks_by_step,
-    gathered,
     on_one_table,
     step_groups,
     step_varies,
     table_rungs,
 )
+from service.domain.gathered import gathered
 from service.domain.memory import minimum_data_parallel
 from service.domain.own_step import fewest_meeting
 from service.domain.parallelism import Shapes, shapes

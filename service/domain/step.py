@@ -179,36 +179,6 @@ class FiguresWhenRead(LayoutGrid):
         return value
 
 
-class GatheredGrid(FiguresWhenRead):
-    """A block whose figures are drawn from one row of distinct candidates, `table[name][0, column]`
-    for an (S, K) array of columns: a figure is gathered only when it is read, and `cells` reads single
-    cells straight from the table, so the many figures that only the chosen layout needs are never
-    spread over every scenario."""
-
-    def __init__(self, table: dict[str, Any], column: Ints, **eager: Any) -> None:
-        object.__setattr__(self, "_table", table)
-        object.__setattr__(self, "_column", column)
-        for name, value in eager.items():
-            object.__setattr__(self, name, value)
-
-    def _made(self, name: str) -> Any:
-        table = self.__dict__.get("_table")
-        if table is None or name not in table:
-            raise AttributeError(name)
-        return np.asarray(table[name])[0][self._column]
-
-    def cells(self, rows: Ints, columns: Ints) -> Callable[[str], Any]:
-        column = self._column
-        cell = column[rows if column.shape[0] > 1 else np.zeros_like(rows), columns]
-        gathered = super().cells(rows, columns)
-
-        def read(name: str) -> Any:
-            if name in self.__dict__ or name not in self._table:
-                return gathered(name)
-            return np.asarray(self._table[name])[0][cell]
-        return read
-
-
 class FiguresOnRead(FiguresWhenRead):
     """A block whose figures for pricing and choosing (its columns, whether each fits, the wall
     clock and accelerator-hours) are given, and every other figure is evaluated only when read:

@@ -31,9 +31,11 @@ from service.domain.charges import (
     hourly_charges,
     new_build_charges,
 )
-from service.domain.choice import _first_least
+from service.domain.choice import _first_least, eligible
 from service.domain.evaluate import evaluate_campaign
+from service.domain.gathered import GatheredGrid
 from service.domain.gravity import Transfer
+from service.domain.layout import Candidates
 from service.domain.owning import NodeMonth
 from service.domain.step import FiguresWhenRead, LayoutGrid
 from service.domain.sweep import scenario_chunks
@@ -73,7 +75,8 @@ def random_block(rng: np.random.Generator, width: int) -> LayoutGrid:
     if width > 2:  # a column equal to another: the first of equal costs is kept
         for figures in (nodes, wall, hours):
             figures[:, -1] = figures[:, 0]
-    figures = {"nodes": nodes, "accelerator_hours": hours, "wall_seconds": wall}
+    figures = {"nodes": nodes, "accelerator_hours": hours, "wall_seconds": wall,
+               "fits": rng.random(nodes.shape) < 0.9}
     return FiguresWhenRead.of(lambda name: figures[name])
 
 
@@ -115,26 +118,68 @@ def random_charges(rng: np.random.Generator, kind: str) -> Charges:
                              by_scenario(rng, 0.5, 12.0), by_scenario(rng, 0.0, 0.15), 8, campaign, data)
 
 
+def random_gathered(rng: np.random.Generator, width: int) -> GatheredGrid:
+    """Candidates drawn from a one-row table by each scenario's row of distinct columns, as the
+    deadline search gathers them (`deadline.gathered`), their wall clock made from each scenario's
+    steps and staging; some columns do not fit, some steps are infinite."""
+    columns = int(rng.integers(width, 3 * width + 1))
+    nodes = np.ceil(rng.uniform(1.0, 600.0, (1, columns)))
+    step = rng.uniform(0.05, 40.0, (1, columns))
+    step[rng.random(step.shape) < 0.05] = np.inf
+    table = {"nodes": nodes, "accelerators": nodes * 8.0, "fits": rng.random((1, columns)) < 0.85,
+             "effective_step_seconds": step}
+    distinct = rng.integers(0, columns, (int(rng.integers(1, 30)), width))
+    load = SimpleNamespace(tokens_per_run=rng.uniform(1e9, 2e11, ROWS), timed_flops_per_token=6e9,
+                           global_batch_tokens=4e6, timed_flops_per_run=None, runs_multiplier=rng.choice([1.0, 2.5]))
+    hardware = SimpleNamespace(staging_seconds=rng.uniform(0.0, 3e5, ROWS) if rng.random() < 0.5 else 3600.0)
+    return GatheredGrid(load, hardware, table, distinct, rng.integers(0, distinct.shape[0], ROWS))  # type: ignore[arg-type]
+
+
 @pytest.mark.parametrize("kind", ["chargeback", "new_build", "hourly", "committed"])
 @pytest.mark.parametrize("seed", range(12))
 def test_the_compiled_scan_picks_the_column_numpy_picks_from_the_terms_costs(seed: int, kind: str) -> None:
-    """Each kind of term, its charges built as the evaluation builds them: the column of the least
-    cost that meets the deadline, across blocks of one row and of one per scenario, with equal costs,
-    NaN prices, zero and infinite wall clocks, and rows where nothing meets the deadline."""
+    """Each kind of term, its charges built as the evaluation builds them, over blocks of figures
+    (one row or one per scenario) and gathered blocks (never spread when compiled): which candidates
+    the term may take as `eligible` finds them, then the column of the least cost that meets the
+    deadline, and that cost, to the bit; with equal costs, NaN prices and node limits, zero and
+    infinite wall clocks, and rows where nothing meets the deadline (the fastest is then kept)."""
     rng = np.random.default_rng(seed)
     charges = random_charges(rng, kind)
     widths = [int(w) for w in rng.integers(1, 9, rng.integers(1, 4))]
-    blocks = [random_block(rng, width) for width in widths]
-    meets = [rng.random((ROWS if rng.random() < 0.7 else 1, width)) < rng.choice([0.0, 0.5, 0.95])
-             for width in widths]
+    blocks = [random_gathered(rng, width) if rng.random() < 0.4 else random_block(rng, width) for width in widths]
+    candidates = Candidates(tuple(blocks))
+    limit = rng.uniform(50.0, 700.0, ROWS)
+    limit[rng.random(ROWS) < 0.02] = np.nan
+    deadline = rng.uniform(3e5, 5e7, ROWS)
+    deadline[rng.random(ROWS) < 0.1] = np.inf
     with np.errstate(all="ignore"):  # as the use cases run the core: NaN and inf are answers here
+        ours = eligible(candidates, node_limit=limit, deadline_seconds=deadline, kernel=KERNEL)
+        reference = eligible(candidates, node_limit=limit, deadline_seconds=deadline)
         costs = [np.broadcast_to(np.where(m, charges.cost(b), np.inf), (ROWS, w))
-                 for m, b, w in zip(meets, blocks, widths, strict=True)]
+                 for m, b, w in zip(reference.meets, blocks, widths, strict=True)]
+    assert [m is None for m in ours.meets] == [isinstance(b, GatheredGrid) for b in blocks]
+    for name in ("any_fits", "meets_deadline", "fastest"):
+        np.testing.assert_array_equal(getattr(ours, name), getattr(reference, name), err_msg=name)
     expected = _first_least(costs, widths)
-    least, picked = compiled.least_costs(meets, blocks, charges.form, KERNEL)
+    least, picked = compiled.least_costs(ours.meets, ours.gathered, ours.widths, ours.limit, ours.deadline, blocks,
+                                         charges.form, KERNEL)
     np.testing.assert_array_equal(picked, expected)
     # Every cost the same to the bit, not only the order: the least of each row is numpy's.
     np.testing.assert_array_equal(least, np.concatenate(costs, axis=1)[np.arange(ROWS), expected])
+
+
+def test_a_gathered_block_gives_the_chosen_cells_as_its_spread_figures_would() -> None:
+    """`cells` reads a chosen layout's wall clock and accelerator-hours straight from the table, as
+    `wall_figures` makes them for the whole block, so a sweep never spreads them."""
+    rng = np.random.default_rng(3)
+    block, spread = random_gathered(rng, 6), None
+    rows, columns = np.arange(ROWS), rng.integers(0, 6, ROWS)
+    read = block.cells(rows, columns)
+    picked = {name: read(name) for name in ("wall_seconds", "accelerator_hours", "nodes", "fits")}
+    assert "wall_seconds" not in block.__dict__  # read without spreading
+    for name, values in picked.items():
+        spread = np.asarray(getattr(block, name))
+        np.testing.assert_array_equal(values, spread[rows, columns], err_msg=name)
 
 
 def test_a_quote_and_a_small_sweep_never_import_numba_and_a_large_sweep_does() -> None:
@@ -186,13 +231,18 @@ def test_an_evaluation_is_identical_compiled_or_in_numpy_on_random_catalogs(
     """Every figure of every option (totals, lines, chosen layouts, screens) equal to the bit, on
     random catalogs and campaigns whose step is shared or varies by scenario; and the kernel really
     priced every term (a comparison of numpy with itself would prove nothing)."""
-    calls: list[int] = []
+    assert KERNEL is not None
+    calls: list[str] = []
 
-    def counted(*args: Any) -> None:
-        calls.append(1)
-        KERNEL(*args)  # type: ignore[misc]
-    ours, reference = evaluate_twice(seed, recurring=recurring, vary_step=seed % 2 == 1, kernel=counted)
-    assert len(calls) >= len(ours.options)  # a block or more per term
+    def counted(name: str, function: Any) -> Any:
+        def call(*args: Any) -> None:
+            calls.append(name)
+            function(*args)
+        return call
+    kernel = compiled.Kernel(counted("scan", KERNEL.scan), counted("reach", KERNEL.reach))
+    ours, reference = evaluate_twice(seed, recurring=recurring, vary_step=seed % 2 == 1, kernel=kernel)
+    assert calls.count("scan") >= len(ours.options)  # a block or more per term
+    assert "reach" in calls or seed % 2 == 1  # a deadline's gathered block, where the step is shared
     assert_identical(ours, reference, "evaluation")
 
 

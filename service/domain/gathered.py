@@ -1,0 +1,118 @@
+"""Candidate blocks gathered from one row of distinct candidates (model.md §5): the deadline search
+evaluates each distinct (shape, node count) once, in a one-row table, and each scenario takes its
+candidates from it by column (`deadline.py`). A figure is spread over the scenarios only when read;
+the compiled kernel (`compiled.py`) reads the table through the columns and spreads none.
+"""
+
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from service.domain.arrays import Bools, Floats, Ints
+from service.domain.step import FiguresWhenRead, Hardware, Load, accelerator_hours, scenario_terms, wall_figures
+
+
+@dataclass(frozen=True)
+class Gathered:
+    """A gathered block as the compiled kernel reads it (`compiled.py`): candidate j of scenario s is
+    `rows[row_of[s], j]` of the one-row table's columns, whose nodes, accelerators, fits and effective
+    step are given; its wall clock is steps[s] × effective step + staging[s]. (S,) and (C,) arrays."""
+
+    rows: Ints  # (R, K)
+    row_of: Ints  # (S,)
+    nodes: Floats
+    accelerators: Floats
+    fits: Bools
+    effective_step_seconds: Floats
+    steps: Floats  # (S,) or (1,)
+    staging: Floats  # (S,) or (1,)
+
+
+class GatheredGrid(FiguresWhenRead):
+    """A block whose figures are drawn from one row of distinct candidates, `table[name][0, column]`
+    for an (S, K) array of columns, `rows` itself or, with `row_of`, each scenario's row of the
+    distinct `rows` (each figure is then taken for those rows first and spread by whole rows). A figure
+    is gathered only when it is read (the wall clock and accelerator-hours together, from the gathered
+    effective step), and `cells` reads single cells straight from the table, so the many figures that
+    only the chosen layout needs are never spread over every scenario; the compiled pricing reads
+    `gathered()` and spreads none."""
+
+    def __init__(self, load: "Load", hardware: "Hardware", table: dict[str, Any], rows: Ints,
+                 row_of: Ints | None = None) -> None:
+        object.__setattr__(self, "_table", table)
+        object.__setattr__(self, "_rows", rows)
+        object.__setattr__(self, "_row_of", row_of)
+        object.__setattr__(self, "_inputs", (load, hardware))
+
+    def _column(self) -> Ints:
+        """Each scenario's columns of the table, (S, K), made once when first needed."""
+        if "_columns" not in self.__dict__:
+            row_of = self._row_of
+            object.__setattr__(self, "_columns", self._rows if row_of is None else np.take(self._rows, row_of, axis=0))
+        return np.asarray(self.__dict__["_columns"])
+
+    def _spread(self, figure: Any) -> Any:
+        """A one-row figure of the table at every scenario's columns."""
+        row_of = self._row_of
+        if row_of is None:
+            return np.asarray(figure)[0][self._rows]
+        return np.take(np.asarray(figure)[0][self._rows], row_of, axis=0)
+
+    def _made(self, name: str) -> Any:
+        table = self.__dict__.get("_table")
+        if table is None:
+            raise AttributeError(name)
+        if name in ("wall_seconds", "accelerator_hours"):
+            load, hardware = self._inputs
+            wall = wall_figures(load, hardware, self._spread(table["effective_step_seconds"]),
+                                self.accelerators)
+            object.__setattr__(self, "wall_seconds", wall["wall_seconds"])
+            object.__setattr__(self, "accelerator_hours", wall["accelerator_hours"])
+            return wall[name]
+        if name not in table:
+            raise AttributeError(name)
+        return self._spread(table[name])
+
+    def gathered(self) -> Gathered:
+        """The block as the compiled kernel reads it, nothing spread."""
+        load, hardware = self._inputs
+        table = self._table
+        steps, staging = scenario_terms(load, hardware)
+        rows = np.asarray(self._rows, dtype=np.int64)
+        row_of = np.arange(rows.shape[0]) if self._row_of is None else np.asarray(self._row_of, dtype=np.int64)
+        nodes, accelerators, fits, step = (np.asarray(table[name])[0] for name in (
+            "nodes", "accelerators", "fits", "effective_step_seconds"))
+        return Gathered(rows, row_of, nodes, accelerators, fits, step, steps.reshape(-1), staging.reshape(-1))
+
+    def cells(self, rows: Ints, columns: Ints) -> Callable[[str], Any]:
+        column = self._column()
+        cell = column[rows if column.shape[0] > 1 else np.zeros_like(rows), columns]
+        spread = super().cells(rows, columns)
+        timed: dict[str, Any] = {}
+
+        def read(name: str) -> Any:
+            if name in self.__dict__:
+                return spread(name)
+            if name in ("wall_seconds", "accelerator_hours"):  # the cells' own, as wall_figures makes them
+                if not timed:
+                    load, hardware = self._inputs
+                    steps, staging = (value.reshape(-1) for value in scenario_terms(load, hardware))
+                    wall = np.asarray(steps[rows if steps.size > 1 else 0]
+                                      * np.asarray(self._table["effective_step_seconds"])[0][cell])
+                    wall += staging[rows if staging.size > 1 else 0]
+                    timed.update(wall_seconds=wall, accelerator_hours=accelerator_hours(
+                        wall, np.asarray(self._table["accelerators"])[0][cell]))
+                return timed[name]
+            if name not in self._table:
+                return spread(name)
+            return np.asarray(self._table[name])[0][cell]
+        return read
+
+
+def gathered(load: Load, hardware: Hardware, table: dict[str, Any], rows: Ints,
+             row_of: Ints | None = None) -> GatheredGrid:
+    """The block of the candidates `table[name][0, column]`, each figure gathered when read. `column`
+    is `rows`, a row per scenario, or with `row_of`, each scenario's row of the distinct `rows`."""
+    return GatheredGrid(load, hardware, table, rows, row_of)
