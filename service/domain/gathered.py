@@ -39,19 +39,12 @@ class GatheredGrid(FiguresWhenRead):
     only the chosen layout needs are never spread over every scenario; the compiled pricing reads
     `gathered()` and spreads none."""
 
-    def __init__(self, load: "Load", hardware: "Hardware", table: dict[str, Any], rows: Ints,
+    def __init__(self, load: Load, hardware: Hardware, table: dict[str, Any], rows: Ints,
                  row_of: Ints | None = None) -> None:
         object.__setattr__(self, "_table", table)
         object.__setattr__(self, "_rows", rows)
         object.__setattr__(self, "_row_of", row_of)
         object.__setattr__(self, "_inputs", (load, hardware))
-
-    def _column(self) -> Ints:
-        """Each scenario's columns of the table, (S, K), made once when first needed."""
-        if "_columns" not in self.__dict__:
-            row_of = self._row_of
-            object.__setattr__(self, "_columns", self._rows if row_of is None else np.take(self._rows, row_of, axis=0))
-        return np.asarray(self.__dict__["_columns"])
 
     def _spread(self, figure: Any) -> Any:
         """A one-row figure of the table at every scenario's columns."""
@@ -87,8 +80,11 @@ class GatheredGrid(FiguresWhenRead):
         return Gathered(rows, row_of, nodes, accelerators, fits, step, steps.reshape(-1), staging.reshape(-1))
 
     def cells(self, rows: Ints, columns: Ints) -> Callable[[str], Any]:
-        column = self._column()
-        cell = column[rows if column.shape[0] > 1 else np.zeros_like(rows), columns]
+        distinct, row_of = self._rows, self._row_of  # scenario s's columns: distinct[row_of[s]]
+        if row_of is None:
+            cell = distinct[rows if distinct.shape[0] > 1 else np.zeros_like(rows), columns]
+        else:
+            cell = distinct[row_of[rows if row_of.size > 1 else np.zeros_like(rows)], columns]
         spread = super().cells(rows, columns)
         timed: dict[str, Any] = {}
 
