@@ -10,8 +10,8 @@ from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import Bools, Floats, Ints
-from service.domain.step import FiguresWhenRead, Hardware, Load, accelerator_hours, scenario_terms, wall_figures
+from service.domain.arrays import Bools, Floats, Ints, take_rows
+from service.domain.step import FiguresWhenRead, Hardware, Load, scenario_rows, scenario_terms, wall_figures
 
 
 @dataclass(frozen=True)
@@ -91,16 +91,15 @@ class GatheredGrid(FiguresWhenRead):
         def read(name: str) -> Any:
             if name in self.__dict__:
                 return spread(name)
-            if name in ("wall_seconds", "accelerator_hours"):  # the cells' own, as wall_figures makes them
+            if name in ("wall_seconds", "accelerator_hours"):  # the cells' own: their scenarios' wall clock
                 if not timed:
                     load, hardware = self._inputs
-                    steps, staging = (value.reshape(-1) for value in scenario_terms(load, hardware))
-                    wall = np.asarray(steps[rows if steps.size > 1 else 0]
-                                      * np.asarray(self._table["effective_step_seconds"])[0][cell])
-                    wall += staging[rows if staging.size > 1 else 0]
-                    timed.update(wall_seconds=wall, accelerator_hours=accelerator_hours(
-                        wall, np.asarray(self._table["accelerators"])[0][cell]))
-                return timed[name]
+                    count = scenario_rows(load, hardware)
+                    step, used = (np.asarray(self._table[figure])[0][cell][:, np.newaxis]
+                                  for figure in ("effective_step_seconds", "accelerators"))
+                    timed.update(wall_figures(take_rows(load, rows, count), take_rows(hardware, rows, count),
+                                              step, used))
+                return np.asarray(timed[name])[:, 0]
             if name not in self._table:
                 return spread(name)
             return np.asarray(self._table[name])[0][cell]
