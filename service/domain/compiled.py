@@ -237,10 +237,10 @@ def least_costs(meets: Sequence[Bools | None], gathered: Sequence[Gathered | Non
                      at.accelerators, at.fits, at.effective_step_seconds, _along(at.steps, rows),
                      _along(at.staging, rows))
         else:
-            cells = (grid(mask), *(grid(block.get(name, _NONE)) for name in ("nodes", "accelerator_hours",
-                                                                          "wall_seconds")),
-                     False, _NO_COLUMNS, np.zeros(rows, dtype=np.int64), _NONE[0], _NONE[0], _NO_FLAGS, _NONE[0],
-                     _along(None, rows), _along(None, rows))
+            figure_names = ("nodes", "accelerator_hours", "wall_seconds")
+            cells = (grid(np.asarray(mask, dtype=bool)), *(grid(block.get(name, _NONE)) for name in figure_names),
+                     False, _NO_COLUMNS, np.broadcast_to(_NO_COLUMNS[0], (rows,)), _NONE[0], _NONE[0], _NO_FLAGS,
+                     _NONE[0], _along(None, rows), _along(None, rows))
         compiled.scan(form.kind, *cells, _along(limit, rows), _along(deadline, rows), _along(form.rate, rows),
                       _along(form.fixed, rows), float(form.months), float(form.fee_per_node), every is not None,
                       _along(every, rows), _along(total, rows), form.storage is not None,

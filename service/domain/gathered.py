@@ -10,7 +10,7 @@ from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import Bools, Floats, Ints, take_rows
+from service.domain.arrays import Bools, Floats, Ints, as_floats, take_rows
 from service.domain.step import FiguresWhenRead, Hardware, Load, scenario_rows, scenario_terms, wall_figures
 
 
@@ -75,8 +75,9 @@ class GatheredGrid(FiguresWhenRead):
         steps, staging = scenario_terms(load, hardware)
         rows = np.asarray(self._rows, dtype=np.int64)
         row_of = np.arange(rows.shape[0]) if self._row_of is None else np.asarray(self._row_of, dtype=np.int64)
-        nodes, accelerators, fits, step = (np.asarray(table[name])[0] for name in (
-            "nodes", "accelerators", "fits", "effective_step_seconds"))
+        nodes, accelerators, step = (as_floats(table[name])[0] for name in (
+            "nodes", "accelerators", "effective_step_seconds"))
+        fits = np.asarray(table["fits"], dtype=bool)[0]
         return Gathered(rows, row_of, nodes, accelerators, fits, step, steps.reshape(-1), staging.reshape(-1))
 
     def cells(self, rows: Ints, columns: Ints) -> Callable[[str], Any]:
