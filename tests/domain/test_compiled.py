@@ -120,7 +120,7 @@ def random_charges(rng: np.random.Generator, kind: str) -> Charges:
 
 def random_gathered(rng: np.random.Generator, width: int) -> GatheredGrid:
     """Candidates drawn from a one-row table by each scenario's row of distinct columns, as the
-    deadline search gathers them (`deadline.gathered`), their wall clock made from each scenario's
+    deadline search gathers them (`gathered.gathered`), their wall clock made from each scenario's
     steps and staging; some columns do not fit, some steps are infinite."""
     columns = int(rng.integers(width, 3 * width + 1))
     nodes = np.ceil(rng.uniform(1.0, 600.0, (1, columns)))
