@@ -18,7 +18,7 @@ from service.domain.compiled import CHARGEBACK, COMMITTED, HOURLY, NEW_BUILD, Co
 from service.domain.gravity import Transfer
 from service.domain.layout import LayoutGrid
 from service.domain.owning import NodeMonth, SiteEconomics
-from service.domain.recurrence import instances_total
+from service.domain.recurrence import sharing_calendar
 from service.domain.terms import (
     CommittedShare,
     Lines,
@@ -83,12 +83,8 @@ def data_charges(campaign: Campaign, transfer: Transfer, *, storage_per_gb_month
 
 
 def _recurring(campaign: Campaign) -> tuple[Floats | None, Floats | None]:
-    """A recurring campaign's months between instances and instances in all, as
-    `recurrence.instances_sharing` reads them (None, None for a campaign that does not recur)."""
-    recurrence = campaign.recurrence
-    if recurrence is None:
-        return None, None
-    return as_floats(recurrence.every_months), instances_total(recurrence)
+    """A recurring campaign's `recurrence.sharing_calendar` (None, None for one that does not recur)."""
+    return (None, None) if campaign.recurrence is None else sharing_calendar(campaign.recurrence)
 
 
 def chargeback_charges(node: NodeMonth, variable: Floats, economics: SiteEconomics,

@@ -3,7 +3,7 @@ deadline, the cheapest of those per scenario, and the chosen column of every fig
 """
 
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -28,9 +28,9 @@ class Eligible:
     any_fits: Bools  # (R,): some layout within the limit holds the model
     meets_deadline: Bools  # (R,)
     fastest: Ints | None  # (R,): the fastest allowed layout; None when every row meets the deadline
-    gathered: tuple[Gathered | None, ...] = ()  # per block, its compact form where `meets` is None
-    limit: Floats = field(default_factory=lambda: np.zeros((1, 1)))  # the node limit, (S, 1) or (1, 1)
-    deadline: Floats = field(default_factory=lambda: np.zeros((1, 1)))  # the deadline in seconds, likewise
+    gathered: tuple[Gathered | None, ...]  # per block, its compact form where `meets` is None
+    limit: Floats  # the node limit, (S, 1) or (1, 1)
+    deadline: Floats  # the deadline in seconds, likewise
 
 
 def eligible(candidates: Candidates, *, node_limit: ArrayLike, deadline_seconds: ArrayLike,
@@ -55,8 +55,7 @@ def eligible(candidates: Candidates, *, node_limit: ArrayLike, deadline_seconds:
             meets.append(met_here)
         allowed_any.append(some)
         meets_any.append(met)
-    any_fits = np.asarray(np.logical_or.reduce(np.broadcast_arrays(*allowed_any)))
-    meets_deadline = np.asarray(np.logical_or.reduce(np.broadcast_arrays(*meets_any)))
+    any_fits, meets_deadline = _either(allowed_any), _either(meets_any)
     # The fallback layout is needed only where nothing meets the deadline, which is rare.
     fastest = None if meets_deadline.all() else _fastest(blocks, limit, candidates.widths)
     return Eligible(tuple(meets), tuple(candidates.widths), any_fits, meets_deadline, fastest, forms, limit, deadline)
@@ -94,8 +93,8 @@ def choose_priced(layouts: Eligible, blocks: Sequence[LayoutGrid], charges: Char
     caller passes one (`compiled.py`, the same choice), else in numpy."""
     if kernel is None:
         return choose(layouts, [charges.cost(block) for block in blocks])
-    cheapest = compiled.cheapest(layouts.meets, layouts.gathered or (None,) * len(blocks), layouts.widths,
-                                 layouts.limit, layouts.deadline, blocks, charges.form, kernel)
+    cheapest = compiled.cheapest(layouts.meets, layouts.gathered, layouts.widths, layouts.limit, layouts.deadline,
+                                 blocks, charges.form, kernel)
     return _choice(layouts, cheapest, cheapest.shape[0])
 
 
@@ -111,9 +110,9 @@ def _choice(layouts: Eligible, cheapest: Ints, rows: int) -> Choice:
     )
 
 
-def _any(blocks: Sequence[Bools]) -> Bools:
-    """Per row, whether any column of any block is set (rows broadcast)."""
-    return np.asarray(np.logical_or.reduce(np.broadcast_arrays(*(any_by_row(np.asarray(b)) for b in blocks))))
+def _either(by_block: Sequence[Bools]) -> Bools:
+    """Per row, whether it is set in any block's per-row flags (rows broadcast)."""
+    return np.asarray(np.logical_or.reduce(np.broadcast_arrays(*by_block)))
 
 
 def _first_least(blocks: Sequence[Floats], widths: Sequence[int]) -> Ints:

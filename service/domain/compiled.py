@@ -194,10 +194,16 @@ def _along(value: Any, rows: int) -> Any:
     return np.broadcast_to(_NONE[0] if value is None else as_floats(value).reshape(-1), (rows,))
 
 
+def _scenarios(block: Gathered, limit: Floats, deadline: Floats) -> int:
+    """How many scenarios a gathered block runs over under a limit and a deadline, as numpy would
+    broadcast them."""
+    return max(block.row_of.size, block.steps.size, block.staging.size, np.size(limit), np.size(deadline))
+
+
 def reach(block: Gathered, limit: Floats, deadline: Floats, compiled: Kernel) -> tuple[Bools, Bools]:
     """Per scenario of a gathered block, whether some candidate fits within `limit` and whether some
     also meets `deadline` ((S, 1) or (1, 1) each), as `choice.eligible` finds them."""
-    rows = max(block.row_of.size, np.size(limit), np.size(deadline), block.steps.size, block.staging.size)
+    rows = _scenarios(block, limit, deadline)
     allowed, meets = np.zeros(rows, dtype=bool), np.zeros(rows, dtype=bool)
     compiled.reach(block.rows, np.broadcast_to(block.row_of, (rows,)), block.nodes, block.fits,
                    block.effective_step_seconds, _along(block.steps, rows), _along(block.staging, rows),
@@ -223,7 +229,7 @@ def least_costs(meets: Sequence[Bools | None], gathered: Sequence[Gathered | Non
     every, total = form.recurring
     per_scenario = [value for value in (form.rate, form.fixed, every, total, form.storage) if value is not None]
     rows = max([np.shape(mask)[0] for mask in meets if mask is not None]
-               + [max(at.row_of.size, np.size(limit), np.size(deadline)) for at in gathered if at is not None]
+               + [_scenarios(at, limit, deadline) for at in gathered if at is not None]
                + [value.shape[0] for block in figures for value in block.values()]
                + [np.size(value) for value in per_scenario])
     best, index = np.full(rows, np.inf), np.zeros(rows, dtype=np.int64)

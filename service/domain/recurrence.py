@@ -23,6 +23,12 @@ def instances_per_year(recurrence: Recurrence | None) -> Floats:
     return np.maximum(1.0, MONTHS_PER_YEAR / as_floats(recurrence.every_months))
 
 
+def sharing_calendar(recurrence: Recurrence) -> tuple[Floats, Floats]:
+    """What limits the instances sharing a commitment by the calendar: the months between instances
+    and the instances in all."""
+    return as_floats(recurrence.every_months), instances_total(recurrence)
+
+
 def instances_sharing(
     *, window_months: ArrayLike, wall_hours: ArrayLike, recurrence: Recurrence | None
 ) -> Floats:
@@ -34,7 +40,7 @@ def instances_sharing(
     window = as_floats(window_months)
     if recurrence is None:  # one instance: a broadcastable 1 rather than a whole grid of them
         return np.ones((1,) * max(window.ndim, np.ndim(wall_hours)))
-    every, total = as_floats(recurrence.every_months), instances_total(recurrence)
+    every, total = sharing_calendar(recurrence)
     if window.ndim == 2:  # (S, K) layouts: a swept recurrence varies by scenario, along axis 0
         every, total = every.reshape(-1, 1), total.reshape(-1, 1)
     by_calendar = np.floor(window / every + 1e-9)
