@@ -185,17 +185,7 @@ def _owned_basis(option: OptionResult, item: str, i: int, site: SiteFigures, cur
     if item == "busy_energy":
         return (f"{_n(hours)} accelerator-hours × ({s.node_type.power_kw_peak:g} − {s.node_type.power_kw_idle:g} kW) "
                 f"/ {per_node} × PUE {_at(e.pue, i):g} × {_at(e.electricity_price_per_kwh, i):g} {currency}/kWh")
-    per_month = {
-        "capital": (node.capital, f"annuity of {_n(_at(e.capex_per_node, i))} {currency} capex less "
-                    f"{_pct(s.residual_fraction)} residual over {s.depreciation_months} months at "
-                    f"{_pct(_at(e.cost_of_capital_annual, i))}/12 a month"),
-        "facility": (node.facility, _facility_words(site, i, currency)),
-        "maintenance": (node.maintenance, f"{_pct(s.maintenance_fraction_per_year)} of capex a year"),
-        "staff": (node.staff, f"{_n(s.staff_cost_per_node_year)} {currency} per node-year"),
-        "idle_energy": (node.idle_energy, f"{s.node_type.power_kw_idle:g} kW idle × 730 h × PUE "
-                        f"{_at(e.pue, i):g} × {_at(e.electricity_price_per_kwh, i):g} {currency}/kWh"),
-    }
-    amount, words = per_month[item]
+    amount, words = getattr(node, item), _fixed_words(item, site, i, currency)
     monthly = f"{_n(_at(amount, i), 2)} {currency} per node-month ({words})"
     if option.term == "owned_chargeback":
         return (f"{_n(hours)} accelerator-hours × {monthly} / ({per_node} accelerators × 730 h × "
@@ -203,6 +193,22 @@ def _owned_basis(option: OptionResult, item: str, i: int, site: SiteFigures, cur
     d = option.details
     return (f"{_n(option.layout.nodes[i])} new nodes × {_n(d['carried_months'][i])} months carried / "
             f"{_n(d['sharing_instances'][i])} recurring instance(s) sharing them × {monthly}")
+
+
+def _fixed_words(item: str, site: SiteFigures, i: int, currency: str) -> str:
+    """How an owned node's fixed cost line `item` (programme.FIXED_ITEMS) is made, per node-month."""
+    s, e = site.economics.site, site.economics
+    if item == "capital":
+        return (f"annuity of {_n(_at(e.capex_per_node, i))} {currency} capex less {_pct(s.residual_fraction)} "
+                f"residual over {s.depreciation_months} months at {_pct(_at(e.cost_of_capital_annual, i))}/12 a month")
+    if item == "facility":
+        return _facility_words(site, i, currency)
+    if item == "maintenance":
+        return f"{_pct(s.maintenance_fraction_per_year)} of capex a year"
+    if item == "staff":
+        return f"{_n(s.staff_cost_per_node_year)} {currency} per node-year"
+    return (f"{s.node_type.power_kw_idle:g} kW idle × 730 h × PUE {_at(e.pue, i):g} × "
+            f"{_at(e.electricity_price_per_kwh, i):g} {currency}/kWh")
 
 
 def _facility_words(site: SiteFigures, i: int, currency: str) -> str:

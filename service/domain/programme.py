@@ -140,7 +140,16 @@ class CashFlow:
 def _lagged(cumulative: Floats, lag: Floats) -> Floats:
     """U(t − lag) for t = 0 … M − 1 from the cumulative counts U(0 … M − 1), 0 before month 0."""
     months = cumulative.shape[-1]
-    index = np.arange(months) - np.asarray(lag, dtype=np.int64)[..., np.newaxis]
+    lags = np.asarray(lag, dtype=np.int64)
+    if lags.size == 1:  # one lag for every scenario (a quote): the counts shifted along the months
+        shift, out = int(lags.reshape(-1)[0]), np.zeros(np.broadcast_shapes(cumulative.shape, (*lags.shape, 1)))
+        if shift >= 0:
+            out[..., shift:] = cumulative[..., :max(months - shift, 0)]
+        else:  # the last month's count from month M + lag on, as the clipped index below reads it
+            out[..., :max(months + shift, 0)] = cumulative[..., -shift:]
+            out[..., max(months + shift, 0):] = cumulative[..., -1:]
+        return out
+    index = np.arange(months) - lags[..., np.newaxis]
     taken = np.take_along_axis(cumulative, np.clip(index, 0, months - 1), axis=-1)
     return np.where(index >= 0, taken, 0.0)
 

@@ -60,8 +60,10 @@ def starts_by_month(*, spacing_months: ArrayLike, count: ArrayLike, months: int)
 def instances_by_month(recurrence: Recurrence | None, months: int) -> Floats:
     """Instances of the campaign starting in each month 0 … months − 1: one every `every_months`
     while the recurrence lasts; a one-off campaign starts in month 0."""
-    if recurrence is None:
-        return starts_by_month(spacing_months=1.0, count=1.0, months=months)
+    if recurrence is None:  # what starts_by_month gives for one event, without its arithmetic
+        once = np.zeros(months)
+        once[:1] = 1.0
+        return once
     return starts_by_month(spacing_months=recurrence.every_months, count=instances_total(recurrence),
                            months=months)
 

@@ -73,6 +73,11 @@ class Load:
     deadline_seconds: Floats  # inf when there is no deadline
     restart_seconds: float
 
+    @cached_property
+    def rows(self) -> int:
+        """The scenarios the load runs over (`arrays.longest_axis`), counted once."""
+        return longest_axis(tuple(getattr(self, f.name) for f in fields(self)))
+
     @property
     def zero_stages(self) -> tuple[int, ...]:
         """ZeRO stages the shorthand allows: replicated keeps every state on each replica,
@@ -95,6 +100,11 @@ class Hardware:
     node_mtbf_hours: Floats  # inf when failures are not modelled
     interruption_mean_hours: float  # inf unless interruptible
     staging_seconds: Floats  # time to bring the data in before training starts
+
+    @cached_property
+    def rows(self) -> int:
+        """The scenarios the hardware runs over (`arrays.longest_axis`), counted once."""
+        return longest_axis(tuple(getattr(self, f.name) for f in fields(self)))
 
 
 @dataclass(frozen=True)
@@ -283,12 +293,12 @@ def step_figures(load: Load, hardware: Hardware, c: Columns, found: Shapes, *,
     activation = activations(load, hardware, t, p,
                               in_flight=micro_batches_in_flight(pipeline=p, micro_batches=micro_batches))
     room = usable_bytes(hardware.memory_bytes) - activation
-    stage = np.full(np.broadcast_shapes(psi.shape, data.shape, room.shape), found.zero_stages[-1], dtype=np.int64)
-    chosen = np.zeros(stage.shape, dtype=bool)
-    for z in found.zero_stages:
-        holds = (zero_model_state_bytes(parameters=psi, data_parallel=data, stage=z) <= room) & ((p == 1.0) | (z <= 1))
-        stage = np.where(~chosen & holds, z, stage)
-        chosen |= holds
+    # Every allowed stage at once along a leading axis, in order; the first that holds, else the last.
+    stages = np.asarray(found.zero_stages, dtype=np.int64).reshape(-1, 1, 1)
+    holds = ((zero_model_state_bytes(parameters=psi, data_parallel=data, stage=stages) <= room)
+             & ((p == 1.0) | (stages <= 1)))
+    chosen = holds.any(axis=0)
+    stage = np.where(chosen, stages[holds.argmax(axis=0), 0, 0], stages[-1, 0, 0])
     fits = chosen & (micro_batches >= 1.0 - 1e-9) & (data >= 1.0 - 1e-9)
 
     # Compute, bubble and each collective (model.md §3).
@@ -413,4 +423,4 @@ def _step_work(load: Load) -> tuple[Floats, Floats]:
 
 def scenario_rows(load: Load, hardware: Hardware, *arrays: Floats) -> int:
     """How many scenarios the step's inputs and `arrays` run over: their longest leading axis."""
-    return longest_axis((load, hardware, *arrays))
+    return max(load.rows, hardware.rows, longest_axis(arrays))
