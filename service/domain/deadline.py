@@ -18,6 +18,7 @@ from service.domain import dominance
 from service.domain.arrays import Bools, Floats, Ints, take_rows
 from service.domain.gathered import GatheredGrid, gathered
 from service.domain.guesses import TABLE_RUNGS, guess_runs, interpolated
+from service.domain.lockstep import Search, StepRequest, ask, drive
 from service.domain.parallelism import Shapes
 from service.domain.step import (
     DEADLINE,
@@ -62,23 +63,24 @@ def _step_inputs(load: Load, hardware: Hardware) -> tuple[Floats, ...]:
 
 
 def on_one_table(load: Load, hardware: Hardware, found: Shapes, base: Columns, k_min: Floats, k_top: Floats,
-                 deadline: Floats) -> tuple[dict[str, Any], dict[str, Any], Ints, Ints]:
+                 deadline: Floats) -> Search[tuple[dict[str, Any], dict[str, Any], Ints, Ints]]:
     """Every scenario solved on one table of node counts, when the step does not vary by scenario:
     the base candidates' figures (one row, without the wall clock) and the deadline candidates'
-    (`_deadline_block`), the table evaluated with the base candidates in one pass."""
-    first, table, rungs = _tables(load, hardware, found, base, k_min, k_top)
-    return (first, *_deadline_block(load, hardware, found, k_min, k_top, rungs[0], table, deadline))
+    (`_deadline_block`), the table evaluated with the base candidates in one pass. A search
+    (`lockstep.py`): its step figures are asked for, so that the venues' tables are evaluated together."""
+    first, table, rungs = yield from _tables(load, hardware, found, base, k_min, k_top)
+    return (first, *(yield from _deadline_block(load, hardware, found, k_min, k_top, rungs[0], table, deadline)))
 
 
 def _tables(load: Load, hardware: Hardware, found: Shapes, base: Columns, k_min: Floats,
-            k_top: Floats) -> tuple[dict[str, Any], dict[str, Any], Floats]:
+            k_top: Floats) -> Search[tuple[dict[str, Any], dict[str, Any], Floats]]:
     """The base candidates' figures and the deadline table's (each shape at its TABLE_RUNGS rungs),
     evaluated in one pass, one row per step (the rows of the load, the hardware and the bounds),
     and the rungs (R, H, G)."""
     rungs = table_rungs(k_min, k_top)
     table_columns = shape_columns(found, np.repeat(np.arange(found.count), TABLE_RUNGS),
                                   rungs.reshape(rungs.shape[0], -1), hardware.accelerators_per_node)
-    both = step_figures(load, hardware, _side_by_side(base, table_columns), found)
+    both = yield from ask(StepRequest(load, hardware, _side_by_side(base, table_columns), found))
     width = base.nodes.shape[1]
     return ({name: value[:, :width] for name, value in both.items()},
             {name: value[:, width:] for name, value in both.items()}, rungs)
@@ -106,7 +108,7 @@ def _side_by_side(a: Columns, b: Columns) -> Columns:
 
 
 def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats, k_top: Floats, rungs: Floats,
-                    table: dict[str, Any], deadline: Floats) -> tuple[dict[str, Any], Ints, Ints]:
+                    table: dict[str, Any], deadline: Floats) -> Search[tuple[dict[str, Any], Ints, Ints]]:
     """Per scenario and shape, the fewest node units that meet the deadline, when the step does not
     vary by scenario: the effective step g(k) on TABLE_RUNGS geometric counts from the memory
     minimum to the node limit (one row for all scenarios); each scenario's allowance
@@ -136,8 +138,8 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     near_keys = runs.shape * TABLE_KEY + near  # (3, R)
     around = np.unique(near_keys)
     exact_shape = (around // TABLE_KEY).astype(np.int64)
-    exact = step_figures(load, hardware, shape_columns(found, exact_shape, around - exact_shape * TABLE_KEY,
-                                                       hardware.accelerators_per_node), found)
+    exact_columns = shape_columns(found, exact_shape, around - exact_shape * TABLE_KEY, hardware.accelerators_per_node)
+    exact = yield from ask(StepRequest(load, hardware, exact_columns, found))
     g_exact = np.where(exact["fits"][0], exact["effective_step_seconds"][0], np.inf)
     where = np.searchsorted(around, near_keys)
     g_near = g_exact[where]  # (3, R)
@@ -296,7 +298,7 @@ def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGr
     if deadline is None:
         figures = step_figures(step_load, step_hardware, base, found)
         return (gathered(load, hardware, _one_row(figures, count), _base_column(groups, figures, prune)),)
-    first, table, rungs = _tables(step_load, step_hardware, found, base, k_min, k_top)
+    first, table, rungs = drive(_tables(step_load, step_hardware, found, base, k_min, k_top))
     exacts: list[dict[str, Any]] = []
     columns: list[tuple[Ints, Ints]] = []
     kept = 0
@@ -304,9 +306,9 @@ def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGr
     for group, members in enumerate(groups.members):
         alone_load, alone_hardware = groups.alone(load, hardware, group)
         at_group = slice(group, group + 1)  # the group's row of the arrays that run over the groups
-        exact, at, of = _deadline_block(alone_load, alone_hardware, found, take_rows(k_min, at_group, count),
-                                        take_rows(k_top, at_group, count), take_rows(rungs, at_group, count)[0],
-                                        take_rows(table, at_group, count), take_rows(deadline, members, rows))
+        exact, at, of = drive(_deadline_block(alone_load, alone_hardware, found, take_rows(k_min, at_group, count),
+                                              take_rows(k_top, at_group, count), take_rows(rungs, at_group, count)[0],
+                                              take_rows(table, at_group, count), take_rows(deadline, members, rows)))
         if prune:
             base_kept = dominance.undominated(take_rows(first, at_group, count))  # all that can dominate
             distinct, row_of, at_kept = dominance.deadline_rows(base_kept, exact, at)

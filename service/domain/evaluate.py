@@ -27,16 +27,8 @@ from service.domain.charges import (
 from service.domain.choice import Choice, Eligible, as_column, choose_priced, eligible
 from service.domain.compiled import Kernel
 from service.domain.gravity import Transfer, staging_seconds, transfer
-from service.domain.layout import (
-    Architecture,
-    Candidates,
-    Hardware,
-    LayoutGrid,
-    Load,
-    NodeFit,
-    evaluate_layouts,
-    node_fit,
-)
+from service.domain.layout import Architecture, Candidates, Hardware, LayoutGrid, Load, NodeFit, layout_search, node_fit
+from service.domain.lockstep import Search, drive, together
 from service.domain.owning import (
     NodeMonth,
     SiteEconomics,
@@ -155,16 +147,18 @@ def evaluate_campaign(
         allowed=allowed_jurisdictions(campaign.data.allowed_jurisdictions, catalog.jurisdiction_groups),
         home=None if campaign.data.home is None else venues[campaign.data.home], kernel=kernel,
     )
-    results: list[OptionResult] = []
+    # Each venue's options are a search (lockstep.py), run together: one step_figures call per round.
+    searches: list[Search[list[OptionResult]]] = []
     sites: dict[str, SiteFigures] = {}
     for site in catalog.sites:
         local = replace(context, overrides=at_venue(overrides, site))  # per-venue overrides resolved
         economics = site_economics(site, catalog, local.overrides)
         figures = SiteFigures(economics, node_month(economics), busy_energy_per_accelerator_hour(economics))
         sites[site.id] = figures
-        results.extend(_site_options(site, figures, local))
-    for offer in catalog.offers:
-        results.extend(_offer_options(offer, replace(context, overrides=at_venue(overrides, offer))))
+        searches.append(_site_options(site, figures, local))
+    searches.extend(_offer_options(offer, replace(context, overrides=at_venue(overrides, offer)))
+                    for offer in catalog.offers)
+    results = [option for options in drive(together(searches)) for option in options]
     return CampaignEvaluation(
         work=context.work,
         runs_multiplier=context.multiplier,
@@ -191,7 +185,7 @@ class _Venue:
     transfer: Transfer
 
 
-def _site_options(site: Site, figures: SiteFigures, context: _Context) -> list[OptionResult]:
+def _site_options(site: Site, figures: SiteFigures, context: _Context) -> Search[list[OptionResult]]:
     economics = figures.economics
     options = context.options
     link = transfer(site, context.home)
@@ -204,7 +198,7 @@ def _site_options(site: Site, figures: SiteFigures, context: _Context) -> list[O
         return []
     data = data_charges(context.campaign, link, storage_per_gb_month=None,
                         results_egress_per_gb=site.egress_per_gb)
-    physics = _physics(venue, context, limits=[limit.nodes for limit in limits.values()])
+    physics = yield from _physics(venue, context, limits=[limit.nodes for limit in limits.values()])
     results = []
     if "owned_chargeback" in limits:
         results.append(_evaluate(venue, "owned_chargeback", limits["owned_chargeback"],
@@ -217,7 +211,7 @@ def _site_options(site: Site, figures: SiteFigures, context: _Context) -> list[O
     return results
 
 
-def _offer_options(offer: Offer, context: _Context) -> list[OptionResult]:
+def _offer_options(offer: Offer, context: _Context) -> Search[list[OptionResult]]:
     terms, overrides = context.options.terms, context.overrides
     link = transfer(offer, context.home)
     venue = _Venue("rented", offer.id, offer.jurisdiction, offer.node_type, offer,
@@ -228,7 +222,12 @@ def _offer_options(offer: Offer, context: _Context) -> list[OptionResult]:
     data = data_charges(context.campaign, link, storage_per_gb_month=offer.storage_per_gb_month,
                         results_egress_per_gb=offer.egress_per_gb)
     results = []
-    physics = _physics(venue, context, limits=[limit.nodes])
+    searches = [_physics(venue, context, limits=[limit.nodes])]
+    interruptible = offer.interruptible if "interruptible" in terms else None
+    if interruptible is not None:  # interruptions change the wall clock, so this term gets physics of its own
+        searches.append(_physics(venue, context, limits=[limit.nodes],
+                                 interruption_mean_hours=interruptible.mean_hours_between_interruptions))
+    physics, *interrupted = yield from together(searches)
     if "on_demand" in terms and offer.on_demand_per_accelerator_hour is not None:
         price = offer.on_demand_per_accelerator_hour * rented_price_factor(overrides, on_demand=True)
         results.append(_evaluate(venue, "on_demand", limit, hourly_charges(price, data), physics))
@@ -240,12 +239,9 @@ def _offer_options(offer: Offer, context: _Context) -> list[OptionResult]:
                 venue, f"committed_{commitment.months}m", limit,
                 committed_charges(commitment.months, commitment.upfront_fraction, price, cost_of_capital,
                                   offer.node_type.accelerators_per_node, context.campaign, data), physics))
-    if "interruptible" in terms and offer.interruptible is not None:
-        price = offer.interruptible.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
-        # Interruptions change the wall clock, so this term gets physics of its own.
-        interrupted = _physics(venue, context, limits=[limit.nodes],
-                               interruption_mean_hours=offer.interruptible.mean_hours_between_interruptions)
-        results.append(_evaluate(venue, "interruptible", limit, hourly_charges(price, data), interrupted))
+    if interruptible is not None:
+        price = interruptible.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
+        results.append(_evaluate(venue, "interruptible", limit, hourly_charges(price, data), interrupted[0]))
     return results
 
 
@@ -272,7 +268,7 @@ class _Physics:
 
 
 def _physics(venue: _Venue, context: _Context, *, limits: list[Floats],
-             interruption_mean_hours: float = np.inf) -> _Physics:
+             interruption_mean_hours: float = np.inf) -> Search[_Physics]:
     node = venue.node_type
     campaign, options, overrides = context.campaign, context.options, context.overrides
     load = context.load
@@ -290,9 +286,9 @@ def _physics(venue: _Venue, context: _Context, *, limits: list[Floats],
         interruption_mean_hours=interruption_mean_hours,
         staging_seconds=staging_seconds(dataset_tb=campaign.data.dataset_tb, link=venue.transfer),
     )
-    grid, min_nodes = evaluate_layouts(load, hardware, node_limits=limits, scenarios=context.scenarios,
-                                       fixed_accelerators=options.fixed_accelerators,
-                                       fit=_node_fit(context, hardware))
+    grid, min_nodes = yield from layout_search(load, hardware, node_limits=limits, scenarios=context.scenarios,
+                                               fixed_accelerators=options.fixed_accelerators,
+                                               fit=_node_fit(context, hardware))
     pinned = None if options.fixed_accelerators is None else float(grid.blocks[0].nodes[0, 0])
     return _Physics(load, hardware, grid, min_nodes, pinned, context.kernel)
 

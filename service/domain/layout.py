@@ -25,6 +25,7 @@ from service.domain.deadline import (
     table_rungs,
 )
 from service.domain.gathered import gathered
+from service.domain.lockstep import Search, StepRequest, ask, drive
 from service.domain.memory import minimum_data_parallel
 from service.domain.own_step import fewest_meeting
 from service.domain.parallelism import Shapes, shapes
@@ -52,7 +53,7 @@ from service.domain.step import (
 )
 
 __all__ = ["DEADLINE", "MEMORY", "NODE_LIMIT", "PINNED", "Architecture", "Candidates", "Hardware", "LayoutGrid",
-           "Load", "evaluate_layouts"]
+           "Load", "evaluate_layouts", "layout_search"]
 
 
 @dataclass(frozen=True)
@@ -141,6 +142,15 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
     model (inf when none can): the memory minimum the screens report. `fit` is `node_fit(load,
     hardware)` when the caller has it already; `scenarios`, how many the candidates will be priced
     over, where prices vary and the load does not."""
+    return drive(layout_search(load, hardware, node_limits=node_limits, fixed_accelerators=fixed_accelerators,
+                               fit=fit, scenarios=scenarios))
+
+
+def layout_search(load: Load, hardware: Hardware, *, node_limits: Sequence[ArrayLike],
+                  fixed_accelerators: int | None = None, fit: NodeFit | None = None,
+                  scenarios: int = 1) -> Search[tuple[Candidates, Floats]]:
+    """`evaluate_layouts` as a search (`lockstep.py`), whose deadline table and exact counts are
+    asked for, so that the searches of several venues evaluate them together."""
     per_node = hardware.accelerators_per_node
     fit = fit or node_fit(load, hardware)
     found, unit, k_min, k_batch = fit.found, fit.unit, fit.k_min, fit.k_batch
@@ -168,11 +178,12 @@ def evaluate_layouts(load: Load, hardware: Hardware, *, node_limits: Sequence[Ar
         # A sweep drops the candidates that are never chosen (dominance.py) before pricing them.
         prune = max(scenarios, scenario_rows(load, hardware)) >= dominance.PRUNED_FROM
         if not has_deadline:
-            figures = step_figures(load, hardware, base, found)
+            figures = yield from ask(StepRequest(load, hardware, base, found))
             if prune and dominance.single_row(figures):
                 figures = dominance.undominated(figures)
             return Candidates((with_wall(load, hardware, figures),)), fewest
-        figures, exact, column, allowance_of = on_one_table(load, hardware, found, base, k_min, k_top, deadline)
+        figures, exact, column, allowance_of = yield from on_one_table(load, hardware, found, base, k_min, k_top,
+                                                                       deadline)
         distinct, row_of = column.T, allowance_of  # a row of deadline candidates per distinct allowance
         if prune and dominance.single_row(figures):
             figures = dominance.undominated(figures)

@@ -87,7 +87,9 @@ class Load:
 
 @dataclass(frozen=True)
 class Hardware:
-    """What a venue offers the campaign; arrays broadcast over scenarios."""
+    """What a venue offers the campaign; arrays broadcast over scenarios. Where the steps of several
+    venues are evaluated together (`lockstep.py`), every figure but the staging is a (1, K) array over
+    their candidates side by side, which only `step_figures` reads."""
 
     accelerators_per_node: int
     memory_bytes: float
@@ -303,11 +305,11 @@ def step_figures(load: Load, hardware: Hardware, c: Columns, found: Shapes, *,
 
     # Compute, bubble and each collective (model.md §3).
     flops_per_step, _ = _step_work(load)
-    compute = flops_per_step / (accelerators * as_floats(hardware.sustained_flops_per_accelerator).reshape(-1, 1))
+    compute = flops_per_step / (accelerators * _by_row(hardware.sustained_flops_per_accelerator))
     bubble = compute * (p - 1.0) / (chunks * micro_batches)
-    in_node = np.minimum(float(per_node), accelerators)
+    in_node = np.minimum(as_floats(per_node), accelerators)
     inside = gbps_to_bytes_per_second(hardware.intra_node_gbps)
-    link = node_link_bytes_per_second(network_gbps=as_floats(hardware.network_gbps).reshape(-1, 1),
+    link = node_link_bytes_per_second(network_gbps=_by_row(hardware.network_gbps),
                                       path_efficiency=hardware.path_efficiency)
     alpha_in, alpha_out = default("latency_intra_node_us") * 1e-6, default("latency_inter_node_us") * 1e-6
     message = 0.0 if load.architecture is None else (
@@ -337,7 +339,7 @@ def step_figures(load: Load, hardware: Hardware, c: Columns, found: Shapes, *,
     step = compute + bubble + tensor_seconds + pipeline_seconds + data_exposed
 
     # Failures and checkpoints (model.md §4), then the wall clock (§5).
-    mtbi = job_mtbi_seconds(nodes=nodes, node_mtbf_hours=as_floats(hardware.node_mtbf_hours).reshape(-1, 1),
+    mtbi = job_mtbi_seconds(nodes=nodes, node_mtbf_hours=_by_row(hardware.node_mtbf_hours),
                             interruption_mean_hours=hardware.interruption_mean_hours)
     checkpoint_bytes = (default("bytes_per_parameter_model_states") * rank_parameters(load, np.ones(1), np.ones(1))
                         if load.checkpoint_bytes is None else as_floats(load.checkpoint_bytes).reshape(-1, 1))
@@ -400,6 +402,13 @@ def scenario_terms(load: Load, hardware: Hardware) -> tuple[Floats, Floats]:
     _, steps_per_run = _step_work(load)
     return (np.asarray(steps_per_run * as_floats(load.runs_multiplier).reshape(-1, 1)),
             as_floats(hardware.staging_seconds).reshape(-1, 1))
+
+
+def _by_row(value: ArrayLike) -> Floats:
+    """A hardware figure against the candidates: one value per scenario, as a column (S, 1); or, for
+    venues whose steps are evaluated together (`lockstep.py`), one per candidate already, (1, K)."""
+    array = as_floats(value)
+    return array if array.ndim == 2 else array.reshape(-1, 1)
 
 
 def _two_d(value: Any, columns: int) -> Any:

@@ -16,8 +16,9 @@ a fresh server takes.
    little less). Then what POST /v1/quotes does with the body after quote(), timed the same way:
    `envelope` (identity and provenance) and the answer encoded as the API encodes it
    (`FastJSONResponse`: orjson). Beside them, the CPU time of the layout search within the stages
-   (`evaluate_layouts`, every venue's physics, split points included) and of the stages without it: a
-   bound, what a quote would still take were the search free; and the stages but `evaluate`: what it
+   (`layout_search` and the step figures its searches ask for, every venue's physics, split points
+   included) and of the stages without it: a bound, what a quote would still take were the search
+   free; and the stages but `evaluate`: what it
    would take were the whole evaluation free, a bound for any model, however fast. Targets: quote() at
    most 4 ms CPU per campaign, 8 ms for campaign-split.json.
 2. Cold (skipped with --no-cold): the wall time of a fresh `python -m service.cli quote CAMPAIGN
@@ -63,7 +64,9 @@ from service.contract.catalog import CatalogIn  # noqa: E402
 from service.contract.document import quote_document  # noqa: E402
 from service.contract.request import QuoteRequestIn  # noqa: E402
 from service.domain import evaluate as evaluate_module  # noqa: E402
-from service.domain.layout import evaluate_layouts  # noqa: E402
+from service.domain import lockstep  # noqa: E402
+from service.domain.layout import layout_search  # noqa: E402
+from service.domain.lockstep import evaluate_together  # noqa: E402
 from service.domain.split import evaluate_with_splits  # noqa: E402
 from service.errors import InvalidInput  # noqa: E402
 from service.storage.repository import new_id  # noqa: E402
@@ -131,26 +134,43 @@ def answer_in_stages(body: dict[str, Any], content_hash: str, laps: Laps) -> byt
 
 
 class SearchTally:
-    """CPU seconds spent in the layout search (`evaluate_layouts`: each venue's candidate layouts, their
-    step, failures and deadline search) while it is installed in `service.domain.evaluate`."""
+    """CPU seconds spent in the layout search while it is installed in `service.domain`: each venue's
+    search (`layout_search`: its candidate layouts, their step, failures and deadline search), timed
+    at each resumption, and the step figures the searches ask for, which `lockstep.drive` evaluates
+    together (`evaluate_together`) between resumptions."""
 
     def __init__(self) -> None:
         self.seconds = 0.0
-        self._search = evaluate_layouts
+        self._search = layout_search
+        self._together = evaluate_together
 
-    def _timed(self, *args: Any, **kwargs: Any) -> Any:
+    def _timed_search(self, *args: Any, **kwargs: Any) -> Any:
+        search, reply = self._search(*args, **kwargs), None
+        while True:
+            began = time.process_time()
+            try:
+                asked = search.send(reply)
+            except StopIteration as finished:
+                return finished.value
+            finally:
+                self.seconds += time.process_time() - began
+            reply = yield asked
+
+    def _timed_together(self, *args: Any, **kwargs: Any) -> Any:
         began = time.process_time()
         try:
-            return self._search(*args, **kwargs)
+            return self._together(*args, **kwargs)
         finally:
             self.seconds += time.process_time() - began
 
     def __enter__(self) -> "SearchTally":
-        vars(evaluate_module)["evaluate_layouts"] = self._timed  # the name evaluate.py calls
+        vars(evaluate_module)["layout_search"] = self._timed_search  # the names evaluate.py and drive call
+        vars(lockstep)["evaluate_together"] = self._timed_together
         return self
 
     def __exit__(self, *_: object) -> None:
-        vars(evaluate_module)["evaluate_layouts"] = self._search
+        vars(evaluate_module)["layout_search"] = self._search
+        vars(lockstep)["evaluate_together"] = self._together
 
 
 def cpu_seconds(function: Callable[[], object]) -> float:
@@ -206,7 +226,7 @@ def in_process(repeats: int, warmup: int) -> list[tuple[str, bool, str]]:
     print(" campaign and its split points in one evaluation, and the splits; document: quote_document; sum: of")
     print(" those five, beside quote() timed whole;")
     print(" envelope and orjson: what POST /v1/quotes adds to the body, envelope() and FastJSONResponse;")
-    print(" search: the layout search within evaluate (evaluate_layouts, every venue's physics);")
+    print(" search: the layout search within evaluate (layout_search and its step figures, every venue's physics);")
     print(" rest: the five stages without it, a bound: what the quote would still take were the search free;")
     print(" no eval: the four stages but evaluate, a bound: what it would take were the whole evaluation free)")
     print()

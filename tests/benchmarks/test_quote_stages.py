@@ -20,8 +20,9 @@ from bench_quote_stages import (
 from service.api.responses import OPTIONS
 from service.contract.catalog import CatalogIn
 from service.contract.request import QuoteRequestIn
-from service.domain import evaluate
-from service.domain.layout import evaluate_layouts
+from service.domain import evaluate, lockstep
+from service.domain.layout import layout_search
+from service.domain.lockstep import evaluate_together
 from service.errors import InvalidInput
 from service.usecases.quoting import catalog_hash, quote
 
@@ -70,8 +71,10 @@ def test_a_request_the_catalog_cannot_answer_is_refused_as_quote_refuses_it(cata
 def test_the_search_tally_times_the_layout_search_and_puts_it_back(catalog: CatalogIn) -> None:
     request = QuoteRequestIn.model_validate_json((EXAMPLES / "campaign-owned-wins.json").read_bytes())
     with SearchTally() as tally:
-        assert vars(evaluate)["evaluate_layouts"] is not evaluate_layouts
+        assert vars(evaluate)["layout_search"] is not layout_search
+        assert vars(lockstep)["evaluate_together"] is not evaluate_together
         body = quote_in_stages(catalog, request, Laps())
-    assert vars(evaluate)["evaluate_layouts"] is evaluate_layouts
+    assert vars(evaluate)["layout_search"] is layout_search
+    assert vars(lockstep)["evaluate_together"] is evaluate_together
     assert tally.seconds > 0.0
     assert orjson.dumps(body, option=OPTIONS) == orjson.dumps(quote(catalog, request), option=OPTIONS)
