@@ -97,27 +97,39 @@ def test_searches_run_together_each_get_their_own_replies_in_order() -> None:
                        ("c", ["<c0.0>", "<c1.0>", "<c2.0>", "<c2.1>", "<c2.2>"])]
 
 
+@pytest.mark.parametrize("kind", ["transformer", "flops", "measured", "pinned"])
 @pytest.mark.parametrize("recurring", [False, True])
-@pytest.mark.parametrize("seed", range(8))
+@pytest.mark.parametrize("seed", range(6))
 def test_an_evaluation_is_identical_with_its_searches_run_together_or_each_step_alone(
-        seed: int, recurring: bool, monkeypatch: pytest.MonkeyPatch) -> None:
+        seed: int, recurring: bool, kind: str, monkeypatch: pytest.MonkeyPatch) -> None:
     """Whole evaluations of random catalogs (every term), one scenario (a quote) and many (a sweep's
-    chunk; the step varying by scenario for odd seeds), with and without a deadline: every figure of
-    every option identical whether each round's step figures are evaluated together or each request
-    alone (as before the searches ran together)."""
+    chunk; the step varying by scenario for odd seeds), with and without a deadline, for work given as
+    a transformer, as FLOPs (a run one step) or as a measured throughput, and with a pinned count of
+    accelerators: every figure of every option identical whether each round's step figures are
+    evaluated together or each request alone (as before the searches ran together)."""
     rng = np.random.default_rng(5300 + seed)
     catalog = random_catalog(rng)
-    campaign, overrides = random_campaign(rng, SCENARIOS, vary_step=seed % 2 == 1, with_deadline=seed % 4 != 2)
+    campaign, overrides = random_campaign(rng, SCENARIOS, vary_step=seed % 2 == 1, with_deadline=seed % 4 != 2,
+                                          kind="transformer" if kind == "pinned" else kind,
+                                          with_parameters=seed % 3 != 2)
     if recurring:
         campaign = dataclasses.replace(campaign, recurrence=Recurrence(every_months=float(rng.choice([1.0, 4.0])),
                                                                        for_months=36.0))
-    options = QuoteOptions(terms=TERMS)
+    pinned = int(rng.choice([64, 256, 1024])) if kind == "pinned" else None
+    options = QuoteOptions(terms=TERMS, fixed_accelerators=pinned)
 
     def evaluated() -> list[Any]:
         with np.errstate(all="ignore"):
             return [evaluate_campaign(catalog, c, options, o)
                     for c, o in ((one(campaign, 0), one(overrides, 0)), (campaign, overrides))]
+    rounds: list[int] = []
+
+    def counted(requests: list[StepRequest]) -> list[dict[str, Any]]:
+        rounds.append(len(requests))
+        return evaluate_together(requests)
+    monkeypatch.setattr(lockstep, "evaluate_together", counted)
     ours = evaluated()
+    assert kind == "pinned" or max(rounds) >= 2  # a quote's venues asked together (a pinned count asks nothing)
     monkeypatch.setattr(lockstep, "evaluate_together",
                         lambda requests: [step_figures(r.load, r.hardware, r.columns, r.found) for r in requests])
     reference = evaluated()
