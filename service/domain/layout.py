@@ -97,6 +97,8 @@ class Candidates:
         if len(parts) == 1:  # every scenario chose from one block
             block, _, at_rows, at_columns = parts[0]
             read = block.cells(at_rows, at_columns)
+            if index.shape[0] == 1:  # one scenario (a quote), which reads every figure: all taken now
+                return LayoutGrid(**{f.name: np.asarray(read(f.name)) for f in fields(LayoutGrid)})
             return FiguresWhenRead.of(lambda name: np.asarray(read(name)))
         readers = [(chosen, block.cells(at_rows, at_columns)) for block, chosen, at_rows, at_columns in parts]
 
