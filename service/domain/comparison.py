@@ -139,12 +139,13 @@ def breakeven_rows(evaluation: CampaignEvaluation) -> list[BreakEvenRow]:
             ruled_out=against.ruled_out)
         paid = _payback(evaluation, against.site_id, new_build, prices)
         stacked = {f.name: np.broadcast_to(getattr(figures, f.name), prices.shape) for f in fields(figures)}
+        paid_by = {f.name: getattr(paid, f.name) for f in fields(paid)}
         for r, option in enumerate(against.rented):
             rows.append(BreakEvenRow(
                 against.site_id, option.venue_id, option.term, against.listed[r], against.conversion[r], prices[r],
                 site.node.total, site.variable_per_accelerator_hour,
                 BreakEven(**{name: values[r] for name, values in stacked.items()}),
-                Payback(**{f.name: getattr(paid, f.name)[r] for f in fields(paid)})))
+                Payback(**{name: values[r] for name, values in paid_by.items()})))
     return rows
 
 

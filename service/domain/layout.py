@@ -56,6 +56,9 @@ __all__ = ["DEADLINE", "MEMORY", "NODE_LIMIT", "PINNED", "Architecture", "Candid
            "Load", "evaluate_layouts", "layout_search"]
 
 
+FIGURES = tuple(f.name for f in fields(LayoutGrid))
+
+
 @dataclass(frozen=True)
 class Candidates:
     """A venue's candidate layouts in blocks of columns, each a LayoutGrid of arrays that broadcast
@@ -98,7 +101,7 @@ class Candidates:
             block, _, at_rows, at_columns = parts[0]
             read = block.cells(at_rows, at_columns)
             if index.shape[0] == 1:  # one scenario (a quote), which reads every figure: all taken now
-                return LayoutGrid(**{f.name: np.asarray(read(f.name)) for f in fields(LayoutGrid)})
+                return LayoutGrid(**{name: np.asarray(read(name)) for name in FIGURES})
             return FiguresWhenRead.of(lambda name: np.asarray(read(name)))
         readers = [(chosen, block.cells(at_rows, at_columns)) for block, chosen, at_rows, at_columns in parts]
 

@@ -114,12 +114,13 @@ def _alone(request: StepRequest) -> Figures:
 def _joinable(request: StepRequest) -> bool:
     """Whether the request's step figures can share a call: candidates one row, and every figure of
     the hardware the step reads one value (staging, never read by a step, may vary)."""
-    return (all(np.shape(getattr(request.columns, f.name))[0] == 1 for f in fields(Columns))
+    return (all(np.shape(getattr(request.columns, name))[0] == 1 for name in COLUMNS)
             and all(np.size(getattr(request.hardware, name)) == 1 for name in STEP_HARDWARE))
 
 
-# The hardware a step reads: everything but the staging time.
+# The hardware a step reads: everything but the staging time; and what a candidate column is made of.
 STEP_HARDWARE = tuple(f.name for f in fields(Hardware) if f.name != "staging_seconds")
+COLUMNS = tuple(f.name for f in fields(Columns))
 
 
 def _per_candidate(requests: Sequence[StepRequest]) -> Hardware:
@@ -139,4 +140,4 @@ def _side_by_side(requests: Sequence[StepRequest]) -> Columns:
     def joined(name: str) -> Any:
         return np.concatenate([broadcast(getattr(request.columns, name), (1, np.shape(request.columns.nodes)[1]))
                                for request in requests], axis=1)
-    return Columns(*(joined(f.name) for f in fields(Columns)))
+    return Columns(*(joined(name) for name in COLUMNS))
