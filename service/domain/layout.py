@@ -56,7 +56,7 @@ __all__ = ["DEADLINE", "MEMORY", "NODE_LIMIT", "PINNED", "Architecture", "Candid
            "Load", "evaluate_layouts", "layout_search"]
 
 
-FIGURES = tuple(f.name for f in fields(LayoutGrid))
+_FIGURE_NAMES = tuple(f.name for f in fields(LayoutGrid))  # every figure of a layout
 
 
 @dataclass(frozen=True)
@@ -101,7 +101,7 @@ class Candidates:
             block, _, at_rows, at_columns = parts[0]
             read = block.cells(at_rows, at_columns)
             if index.shape[0] == 1:  # one scenario (a quote), which reads every figure: all taken now
-                return LayoutGrid(**{name: np.asarray(read(name)) for name in FIGURES})
+                return LayoutGrid(**{name: np.asarray(read(name)) for name in _FIGURE_NAMES})
             return FiguresWhenRead.of(lambda name: np.asarray(read(name)))
         readers = [(chosen, block.cells(at_rows, at_columns)) for block, chosen, at_rows, at_columns in parts]
 
