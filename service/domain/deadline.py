@@ -8,7 +8,7 @@ Each finds what a scenario quoted alone finds. `layout.py` asks for it among a v
 """
 
 from collections.abc import Callable
-from dataclasses import dataclass, fields, replace
+from dataclasses import dataclass, replace
 from functools import cached_property
 from typing import Any
 
@@ -27,6 +27,7 @@ from service.domain.step import (
     Load,
     scenario_rows,
     scenario_terms,
+    side_by_side,
     step_figures,
 )
 
@@ -80,7 +81,7 @@ def _tables(load: Load, hardware: Hardware, found: Shapes, base: Columns, k_min:
     rungs = table_rungs(k_min, k_top)
     table_columns = shape_columns(found, np.repeat(np.arange(found.count), TABLE_RUNGS),
                                   rungs.reshape(rungs.shape[0], -1), hardware.accelerators_per_node)
-    both = yield from ask(StepRequest(load, hardware, _side_by_side(base, table_columns), found))
+    both = yield from ask(StepRequest(load, hardware, side_by_side(base, table_columns), found))
     width = base.nodes.shape[1]
     return ({name: value[:, :width] for name, value in both.items()},
             {name: value[:, width:] for name, value in both.items()}, rungs)
@@ -95,16 +96,6 @@ def table_rungs(k_min: Floats, k_top: Floats) -> Floats:
     """TABLE_RUNGS geometric node-unit counts per shape from the memory minimum to the top: (R, H, G)."""
     fraction = np.linspace(0.0, 1.0, TABLE_RUNGS)
     return np.asarray(np.ceil(k_min[..., np.newaxis] * (k_top / k_min)[..., np.newaxis] ** fraction - 1e-9))
-
-
-def _side_by_side(a: Columns, b: Columns) -> Columns:
-    """Two sets of candidate columns as one, a row that stands for all broadcast to the other's rows."""
-    def joined(x: Any, y: Any) -> Any:
-        if x.shape[0] != y.shape[0]:
-            rows = max(x.shape[0], y.shape[0])
-            x, y = np.broadcast_to(x, (rows, x.shape[1])), np.broadcast_to(y, (rows, y.shape[1]))
-        return np.concatenate([x, y], axis=1)
-    return Columns(*(joined(getattr(a, f.name), getattr(b, f.name)) for f in fields(Columns)))
 
 
 def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats, k_top: Floats, rungs: Floats,

@@ -18,9 +18,8 @@ from typing import Any, TypeVar
 
 import numpy as np
 
-from service.domain.arrays import broadcast
 from service.domain.parallelism import Shapes
-from service.domain.step import Columns, Hardware, Load, step_figures
+from service.domain.step import Columns, Hardware, Load, side_by_side, step_figures
 
 T = TypeVar("T")
 Figures = dict[str, Any]
@@ -99,7 +98,8 @@ def evaluate_together(requests: Sequence[StepRequest]) -> list[Figures]:
             continue
         joined = [requests[index] for index in members]
         # A step reads of the shapes only their ZeRO stages, which the group shares.
-        figures = step_figures(joined[0].load, _per_candidate(joined), _side_by_side(joined), joined[0].found)
+        columns = side_by_side(*(request.columns for request in joined))
+        figures = step_figures(joined[0].load, _per_candidate(joined), columns, joined[0].found)
         end = 0
         for index, request in zip(members, joined, strict=True):
             start, end = end, end + np.shape(request.columns.nodes)[1]
@@ -118,7 +118,7 @@ def _joinable(request: StepRequest) -> bool:
             and all(np.size(getattr(request.hardware, name)) == 1 for name in STEP_HARDWARE))
 
 
-# The hardware a step reads: everything but the staging time; and what a candidate column is made of.
+# The hardware a step reads: everything but the staging time; and what candidate columns are made of.
 STEP_HARDWARE = tuple(f.name for f in fields(Hardware) if f.name != "staging_seconds")
 COLUMNS = tuple(f.name for f in fields(Columns))
 
@@ -133,11 +133,3 @@ def _per_candidate(requests: Sequence[StepRequest]) -> Hardware:
         return np.repeat(values, widths)[np.newaxis, :]
     per_candidate: dict[str, Any] = {name: spread(name) for name in STEP_HARDWARE}
     return replace(requests[0].hardware, **per_candidate, staging_seconds=np.full((1, 1), np.nan))
-
-
-def _side_by_side(requests: Sequence[StepRequest]) -> Columns:
-    """The requests' candidate columns as one row, in order."""
-    def joined(name: str) -> Any:
-        return np.concatenate([broadcast(getattr(request.columns, name), (1, np.shape(request.columns.nodes)[1]))
-                               for request in requests], axis=1)
-    return Columns(*(joined(name) for name in COLUMNS))

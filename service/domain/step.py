@@ -13,7 +13,7 @@ from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats, longest_axis, take_rows
+from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats, broadcast, longest_axis, take_rows
 from service.domain.assumptions import default
 from service.domain.campaign import LayoutPins, Parallelism, Recompute
 from service.domain.memory import (
@@ -238,6 +238,17 @@ class Columns:
     nodes: Floats
     accelerators: Floats
     origin: Ints
+
+
+def side_by_side(*blocks: Columns) -> Columns:
+    """Blocks of candidate columns as one, in order: each figure of a block broadcast to the block's
+    width and to the most rows any block has of it (a row that stands for all spread to the others')."""
+    def joined(name: str) -> Any:
+        parts = [np.asarray(getattr(block, name)) for block in blocks]
+        rows = max(part.shape[0] for part in parts)
+        return np.concatenate([broadcast(part, (rows, np.shape(block.nodes)[1]))
+                               for part, block in zip(parts, blocks, strict=True)], axis=1)
+    return Columns(*(joined(f.name) for f in fields(Columns)))
 
 
 def batch_sequences(load: Load) -> Floats | None:
