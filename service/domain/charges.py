@@ -137,9 +137,11 @@ def hourly_charges(price: Floats, data: DataCharges) -> Charges:
 
 def committed_charges(months: int, upfront: float, price: Floats, cost_of_capital: Floats,
                       accelerators_per_node: int, campaign: Campaign, data: DataCharges) -> Charges:
+    factor = upfront_financing_factor(upfront_fraction=upfront, months=months,
+                                      cost_of_capital_annual=as_floats(cost_of_capital).reshape(-1, 1))
+
     def commitment(grid: LayoutGrid) -> tuple[Lines, CommittedShare]:
-        share = committed_share(grid, months=months, upfront_fraction=upfront,
-                                cost_of_capital_annual=cost_of_capital, recurrence=campaign.recurrence)
+        share = committed_share(grid, months=months, financing_factor=factor, recurrence=campaign.recurrence)
         return committed_lines(grid, share, months=months, accelerators_per_node=accelerators_per_node,
                                price_per_accelerator_hour=price), share
 
@@ -152,8 +154,6 @@ def committed_charges(months: int, upfront: float, price: Floats, cost_of_capita
             "price_per_accelerator_hour": np.asarray(price).reshape(-1, 1), "terms_needed": share.terms_needed,
             "sharing_instances": share.sharing_instances, "financing_factor": share.financing_factor,
             "upfront_fraction": np.full((1, 1), upfront)}
-    factor = upfront_financing_factor(upfront_fraction=upfront, months=months,
-                                      cost_of_capital_annual=as_floats(cost_of_capital).reshape(-1, 1))
     return Charges(cost, itemise, CostForm(
         COMMITTED, np.asarray(as_floats(price).reshape(-1, 1) * factor), months=float(months),
         fee_per_node=accelerators_per_node * months * HOURS_PER_MONTH, storage=data.storage_per_hour,

@@ -2,6 +2,7 @@
 deadline, the cheapest of those per scenario, and the chosen column of every figure.
 """
 
+import functools
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -112,7 +113,7 @@ def _choice(layouts: Eligible, cheapest: Ints, rows: int) -> Choice:
 
 def _either(by_block: Sequence[Bools]) -> Bools:
     """Per row, whether it is set in any block's per-row flags (rows broadcast)."""
-    return np.asarray(np.logical_or.reduce(np.broadcast_arrays(*by_block)))
+    return np.asarray(functools.reduce(np.logical_or, by_block))
 
 
 def _first_least(blocks: Sequence[Floats], widths: Sequence[int]) -> Ints:

@@ -64,7 +64,7 @@ def _step_inputs(load: Load, hardware: Hardware) -> tuple[Floats, ...]:
 
 
 def on_one_table(load: Load, hardware: Hardware, found: Shapes, base: Columns, k_min: Floats, k_top: Floats,
-                 deadline: Floats) -> Search[tuple[dict[str, Any], dict[str, Any], Ints, Ints]]:
+                 deadline: Floats) -> Search[tuple[dict[str, Any], dict[str, Any], Ints, Ints, Ints]]:
     """Every scenario solved on one table of node counts, when the step does not vary by scenario:
     the base candidates' figures (one row, without the wall clock) and the deadline candidates'
     (`_deadline_block`), the table evaluated with the base candidates in one pass. A search
@@ -99,7 +99,7 @@ def table_rungs(k_min: Floats, k_top: Floats) -> Floats:
 
 
 def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats, k_top: Floats, rungs: Floats,
-                    table: dict[str, Any], deadline: Floats) -> Search[tuple[dict[str, Any], Ints, Ints]]:
+                    table: dict[str, Any], deadline: Floats) -> Search[tuple[dict[str, Any], Ints, Ints, Ints]]:
     """Per scenario and shape, the fewest node units that meet the deadline, when the step does not
     vary by scenario: the effective step g(k) on TABLE_RUNGS geometric counts from the memory
     minimum to the node limit (one row for all scenarios); each scenario's allowance
@@ -112,12 +112,10 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     (`guesses.guess_runs`): within a run each of the three exact counts meets the allowances from some
     position on, so every allowance's count is laid out run by run, not compared one by one.
 
-    Returns the figures of the (shape, count) keys evaluated, one row; the column of each distinct
-    allowance's candidate per shape among them, (H, U) in ascending allowance; and each scenario's
-    allowance, (S,)."""
-    steps, staging = scenario_terms(load, hardware)
-    allowance = np.asarray((deadline - staging) / steps).reshape(-1)  # the effective step each scenario affords
-    afforded, scenario_of = np.unique(allowance, return_inverse=True)  # ascending, NaN last
+    Returns the figures of the (shape, count) keys evaluated, one row; the distinct rows of every
+    shape's candidate (its column among them) over the allowances in ascending order, (R, H); the row
+    of each distinct allowance, (U,); and each scenario's allowance, (S,)."""
+    afforded, scenario_of = allowances(load, hardware, deadline)
     h, u = found.count, afforded.size
     effective = table["effective_step_seconds"]
     g = np.where(table["fits"] & ~np.isnan(effective), effective, np.inf).reshape(h, TABLE_RUNGS)
@@ -142,7 +140,7 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     # guess up to where the count below meets, then the count below.
     second = np.minimum(meets_from[0], meets_from[1])
     bounds = np.array([runs.start, second, meets_from[0], runs.end])
-    column = np.repeat(where[::-1].T.reshape(-1), (bounds[1:] - bounds[:-1]).T.reshape(-1)).reshape(h, u)
+    pieces = _Pieces(np.repeat(runs.shape, 3), bounds[:-1].T.reshape(-1), where[::-1].T.reshape(-1))
     # Where the line missed by more than a count (the count below also meets, or none of the three
     # does), the bracket between a rung and the nearest exact count is closed as `fewest_meeting`
     # closes its own, so that a scenario gets the same count alone as in a sweep: per interior run,
@@ -163,9 +161,59 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
         fewest, _ = close_brackets(
             lambda k, _: exact_counts.steps(np.asarray(shape_of * TABLE_KEY + k, dtype=np.float64)),
             afforded[position], *bracket)
-        column[shape_of, position] = exact_counts.columns(shape_of * TABLE_KEY + fewest)
+        pieces = pieces.with_cells(shape_of, position, exact_counts.columns(shape_of * TABLE_KEY + fewest))
         exact = exact_counts.figures
-    return exact, column, scenario_of  # (H, U) in ascending allowance; each scenario's allowance
+    return (exact, *pieces.distinct_rows(h, u), scenario_of)
+
+
+@dataclass(frozen=True)
+class _Pieces:
+    """Each shape's column of the table over the allowances (ascending) in pieces: piece i gives
+    shape `shape[i]` the column `column[i]` from position `start[i]` up to where the next piece
+    starts; the pieces are in order of shape, then position, and cover every (shape, allowance), some
+    empty. Then single cells set apart (`with_cells`), in order, a later one over an earlier."""
+
+    shape: Ints
+    start: Ints
+    column: Ints
+    cells: tuple[tuple[Ints, Ints, Ints], ...] = ()
+
+    def with_cells(self, shape: Ints, position: Ints, column: Ints) -> "_Pieces":
+        return replace(self, cells=(*self.cells, (shape, position, column)))
+
+    def distinct_rows(self, shapes: int, allowances: int) -> tuple[Ints, Ints]:
+        """The rows of every shape's column, (R, H), one per run of allowances whose columns are all
+        the same, in ascending allowance; and the row of each allowance, (U,). The columns are
+        read only where some piece or cell starts, never laid out for every allowance."""
+        # The pieces' first cells, as keys in order; of equal keys the last is the piece that holds the
+        # cell (an empty piece starts where the next one does).
+        key = self.shape * allowances + self.start
+        edges = [self.start] + [part for shape, position, _ in self.cells for part in (position, position + 1)]
+        at = np.unique(np.concatenate(edges))
+        at = at[at < allowances]  # where some shape's column may change, from position 0 on
+        table = self.column[np.searchsorted(key, np.arange(shapes)[:, np.newaxis] * allowances + at,
+                                            side="right") - 1]
+        for shape, position, value in self.cells:
+            table[shape, np.searchsorted(at, position)] = value
+        new = np.concatenate([[True], (table[:, 1:] != table[:, :-1]).any(axis=0)])
+        firsts = at[new]
+        return table[:, new].T, np.repeat(np.arange(firsts.size), np.diff(firsts, append=allowances))
+
+
+def allowances(load: Load, hardware: Hardware, deadline: Floats) -> tuple[Floats, Ints]:
+    """The effective step each scenario affords, (deadline − staging) / steps: the distinct ones in
+    ascending order (NaN last) and each scenario's among them, (S,). The venues whose staging is the
+    same (each venue the load's deadline) share them, kept with the load: sorted once, not once per venue."""
+    steps, staging = scenario_terms(load, hardware)
+    key = ("allowances", deadline.tobytes(), deadline.shape, staging.tobytes(), staging.shape)
+    if key not in load.kept:
+        allowance = np.asarray((deadline - staging) / steps).reshape(-1)
+        afforded, scenario_of = np.unique(allowance, return_inverse=True)
+        afforded.setflags(write=False)
+        scenario_of.setflags(write=False)
+        load.kept[key] = afforded, scenario_of
+    kept: tuple[Floats, Ints] = load.kept[key]
+    return kept
 
 
 def _cells(starts: Ints, lengths: Ints) -> tuple[Ints, Ints, Bools]:
@@ -297,15 +345,15 @@ def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGr
     for group, members in enumerate(groups.members):
         alone_load, alone_hardware = groups.alone(load, hardware, group)
         at_group = slice(group, group + 1)  # the group's row of the arrays that run over the groups
-        exact, at, of = drive(_deadline_block(alone_load, alone_hardware, found, take_rows(k_min, at_group, count),
-                                              take_rows(k_top, at_group, count), take_rows(rungs, at_group, count)[0],
-                                              take_rows(table, at_group, count), take_rows(deadline, members, rows)))
+        exact, distinct, row_of, of = drive(_deadline_block(
+            alone_load, alone_hardware, found, take_rows(k_min, at_group, count), take_rows(k_top, at_group, count),
+            take_rows(rungs, at_group, count)[0], take_rows(table, at_group, count),
+            take_rows(deadline, members, rows)))
+        at_kept = distinct.shape[1]
         if prune:
             base_kept = dominance.undominated(take_rows(first, at_group, count))  # all that can dominate
-            distinct, row_of, at_kept = dominance.deadline_rows(base_kept, exact, at)
-            at = np.take(distinct, row_of[of], axis=0)
-        else:
-            at, at_kept = at.T[of], at.shape[0]
+            distinct, at_kept = dominance.deadline_rows(base_kept, exact, distinct)
+        at = np.take(distinct, row_of[of], axis=0)
         kept = max(kept, at_kept)
         exacts.append(exact)
         columns.append((members, at + offset))

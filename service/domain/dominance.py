@@ -54,19 +54,16 @@ def undominated(figures: dict[str, Any]) -> dict[str, Any]:
     return {name: np.asarray(value)[:, columns] for name, value in figures.items()}
 
 
-def deadline_rows(first: dict[str, Any], table: dict[str, Any], column: Ints) -> tuple[Ints, Ints, int]:
-    """The deadline candidates (`column`: (H, U) into the one-row `table`, an allowance per column in
-    ascending order, so that equal ones are neighbours) as their distinct rows, (R, H), each with
-    the candidates that a base candidate (`first`, one row) or the row's candidate of an earlier shape
-    dominates moved after the others, in order; each allowance's row, (U,); and the most columns a
-    row keeps. The base candidates come first."""
-    new_row = np.concatenate([[True], (column[:, 1:] != column[:, :-1]).any(axis=0)])
-    rows = column[:, new_row].T  # the distinct rows, (R, H)
+def deadline_rows(first: dict[str, Any], table: dict[str, Any], rows: Ints) -> tuple[Ints, int]:
+    """The deadline candidates' rows (`rows`: (R, H) into the one-row `table`, a row per run of
+    allowances whose candidates are the same) each with the candidates that a base candidate (`first`,
+    one row) or the row's candidate of an earlier shape dominates moved after the others, in order;
+    and the most columns a row keeps. The base candidates come first."""
     by_base = dominance(first, table)[0].any(axis=0)[rows]
     in_rows = {name: np.asarray(table[name])[0][rows] for name in FIGURES}  # each row's candidates, (R, H)
     pairs = dominance(in_rows, in_rows)  # [r, h', h]
     order, kept = _ordered(np.asarray(by_base | (pairs & _before(rows.shape[1])).any(axis=1)))
-    return np.take_along_axis(rows, order, axis=1), np.cumsum(new_row) - 1, kept
+    return np.take_along_axis(rows, order, axis=1), kept
 
 
 def _before(width: int) -> Bools:

@@ -57,6 +57,7 @@ __all__ = ["DEADLINE", "MEMORY", "NODE_LIMIT", "PINNED", "Architecture", "Candid
 
 
 _FIGURE_NAMES = tuple(f.name for f in fields(LayoutGrid))  # every figure of a layout
+_FIRST = np.zeros(1, dtype=np.int64)  # the row of a single scenario
 
 
 @dataclass(frozen=True)
@@ -88,7 +89,15 @@ class Candidates:
 
     def pick(self, index: Ints) -> LayoutGrid:
         """Every figure at the column `index` chosen per scenario: (S,) arrays of each field's dtype,
-        each taken when first read."""
+        each taken when first read; for one scenario (a quote, whose document reads every figure),
+        all taken now."""
+        if index.shape[0] == 1:
+            column, at, widths = int(index[0]), 0, self.widths
+            while column >= widths[at]:  # the block the column lies in, and its column there
+                column -= widths[at]
+                at += 1
+            read = self.blocks[at].cells(_FIRST, np.array([column]))
+            return LayoutGrid(**{name: np.asarray(read(name)) for name in _FIGURE_NAMES})
         ends = np.cumsum(self.widths)
         block_of = np.searchsorted(ends, index, side="right")
         rows = np.arange(index.shape[0])
@@ -100,8 +109,6 @@ class Candidates:
         if len(parts) == 1:  # every scenario chose from one block
             block, _, at_rows, at_columns = parts[0]
             read = block.cells(at_rows, at_columns)
-            if index.shape[0] == 1:  # one scenario (a quote), which reads every figure: all taken now
-                return LayoutGrid(**{name: np.asarray(read(name)) for name in _FIGURE_NAMES})
             return FiguresWhenRead.of(lambda name: np.asarray(read(name)))
         readers = [(chosen, block.cells(at_rows, at_columns)) for block, chosen, at_rows, at_columns in parts]
 
@@ -187,17 +194,16 @@ def layout_search(load: Load, hardware: Hardware, *, node_limits: Sequence[Array
             if prune and dominance.single_row(figures):
                 figures = dominance.undominated(figures)
             return Candidates((with_wall(load, hardware, figures),)), fewest
-        figures, exact, column, allowance_of = yield from on_one_table(load, hardware, found, base, k_min, k_top,
-                                                                       deadline)
-        distinct, row_of = column.T, allowance_of  # a row of deadline candidates per distinct allowance
+        figures, exact, distinct, row_of_allowance, allowance_of = yield from on_one_table(
+            load, hardware, found, base, k_min, k_top, deadline)
         if prune and dominance.single_row(figures):
             figures = dominance.undominated(figures)
-            distinct, row_of_allowance, kept = dominance.deadline_rows(figures, exact, column)
-            distinct, row_of = distinct[:, :kept], row_of_allowance[allowance_of]
+            distinct, kept = dominance.deadline_rows(figures, exact, distinct)
+            distinct = distinct[:, :kept]
         first = with_wall(load, hardware, figures)
         if distinct.shape[1] == 0:
             return Candidates((first,)), fewest
-        return Candidates((first, gathered(load, hardware, exact, distinct, row_of))), fewest
+        return Candidates((first, gathered(load, hardware, exact, distinct, row_of_allowance[allowance_of]))), fewest
     groups = step_groups(load, hardware, deadline, k_min, *tops)
     if groups is not None:  # the base candidates and bounds at each group's first scenario only
         def at_groups(bound: Floats) -> Floats:

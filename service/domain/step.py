@@ -78,10 +78,14 @@ class Load:
         """The scenarios the load runs over (`arrays.longest_axis`), counted once."""
         return longest_axis(tuple(getattr(self, f.name) for f in fields(self)))
 
+    @cached_property
+    def kept(self) -> dict[Any, Any]:
+        """What the venues' searches derive from the load alone, kept to share (`deadline.allowances`)."""
+        return {}
+
     @property
     def zero_stages(self) -> tuple[int, ...]:
-        """ZeRO stages the shorthand allows: replicated keeps every state on each replica,
-        sharded shards them all (stage 3), auto tries each."""
+        """ZeRO stages allowed: replicated keeps every state on each replica, sharded all (3), auto tries each."""
         return {"replicated": (0,), "sharded": (3,)}.get(self.parallelism, (0, 1, 2, 3))
 
 

@@ -143,21 +143,18 @@ class CommittedShare:
 
 
 def committed_share(
-    grid: LayoutGrid, *, months: int, upfront_fraction: float,
-    cost_of_capital_annual: ArrayLike, recurrence: Recurrence | None,
+    grid: LayoutGrid, *, months: int, financing_factor: Floats, recurrence: Recurrence | None,
 ) -> CommittedShare:
     """A committed term is paid for whole; a campaign longer than one term takes several, and
-    recurring instances that fit in the commitment share it."""
+    recurring instances that fit in the commitment share it. `financing_factor` is the term's
+    `upfront_financing_factor`, per scenario ((S, 1) or (1, 1))."""
     hours = wall_hours(grid)
     # max(1, ⌈hours / term hours⌉), in place: this runs over every candidate layout.
     terms = hours / (months * HOURS_PER_MONTH)
     terms -= 1e-9
     np.maximum(np.ceil(terms, out=terms), 1.0, out=terms)
     sharing = instances_sharing(window_months=terms * months, wall_hours=hours, recurrence=recurrence)
-    factor = upfront_financing_factor(
-        upfront_fraction=upfront_fraction, months=months, cost_of_capital_annual=_scenario(cost_of_capital_annual)
-    )
-    return CommittedShare(terms, sharing, factor)
+    return CommittedShare(terms, sharing, financing_factor)
 
 
 def committed_lines(

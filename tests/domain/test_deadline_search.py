@@ -11,7 +11,7 @@ from typing import Any
 import numpy as np
 import pytest
 
-from service.domain import deadline, dominance, guesses, layout, own_step
+from service.domain import deadline, dominance, guesses, layout, own_step, step
 from service.domain.layout import DEADLINE, Architecture, evaluate_layouts
 from service.domain.parallelism import shapes
 from service.domain.step import Columns, FiguresOnRead, LayoutGrid, evaluate_columns
@@ -105,6 +105,70 @@ def test_each_allowance_gets_the_rung_and_guess_a_plain_scan_gives_it(splits: in
             assert guess[i, u] == guesses.reaching(alpha, beta, rungs[i, s - 1], rungs[i, s], a), (i, u)
     # The runs are few where the allowances are many: the guess was not evaluated at every one.
     assert runs.start.size < afforded.size
+
+
+def _laid_out(pieces: "deadline._Pieces", lengths: list[int], shapes_: int, allowances: int) -> np.ndarray:
+    """Every shape's column at every allowance, (H, U): the pieces of `lengths` laid out cell by
+    cell, then the cells set apart in order."""
+    column = np.full((shapes_, allowances), -1)
+    for shape, start, length, value in zip(pieces.shape, pieces.start, lengths, pieces.column, strict=True):
+        column[shape, start:start + length] = value
+    for shape, position, value in pieces.cells:
+        for h, u, v in zip(shape, position, value, strict=True):
+            column[h, u] = v
+    return column
+
+
+@pytest.mark.parametrize("seed", range(8))
+def test_the_distinct_rows_are_those_of_the_columns_laid_out_for_every_allowance(seed: int) -> None:
+    """`_Pieces.distinct_rows` reads the shapes' columns only where a piece or a cell starts. It
+    must give what laying out every shape's column at every allowance gives: the distinct rows of
+    neighbouring allowances, in order, and each allowance's row. Pieces of length 0, neighbouring
+    pieces of one column, cells set twice (the later wins), cells at the first and last allowance,
+    a single allowance and a single shape are all drawn."""
+    rng = np.random.default_rng(seed)
+    shapes_, allowances = int(rng.integers(1, 6)), int(rng.choice([1, 2, 7, 40, 500]))
+    shape, start, length = [], [], []
+    for h in range(shapes_):  # each shape's allowances cut at random, some cuts repeated (empty pieces)
+        cuts = np.sort(rng.integers(0, allowances + 1, int(rng.integers(0, 6))))
+        edges = np.concatenate([[0], cuts, [allowances]])
+        shape += [h] * (edges.size - 1)
+        start += list(edges[:-1])
+        length += list(np.diff(edges))
+    # Few columns, so that neighbouring pieces often have the same.
+    pieces = deadline._Pieces(np.array(shape), np.array(start), rng.integers(0, 3, len(shape)))
+    for _ in range(int(rng.integers(0, 3))):
+        count = int(rng.integers(1, 6))
+        pieces = pieces.with_cells(rng.integers(0, shapes_, count), rng.integers(0, allowances, count),
+                                   rng.integers(0, 4, count))
+    column = _laid_out(pieces, length, shapes_, allowances)
+    assert (column >= 0).all()  # the pieces covered every cell
+    rows, row_of = pieces.distinct_rows(shapes_, allowances)
+    new_row = np.concatenate([[True], (column[:, 1:] != column[:, :-1]).any(axis=0)])
+    np.testing.assert_array_equal(rows, column[:, new_row].T)
+    np.testing.assert_array_equal(row_of, np.cumsum(new_row) - 1)
+    np.testing.assert_array_equal(rows[row_of], column.T)
+
+
+def test_venues_of_one_staging_share_the_sorted_allowances_and_others_get_their_own() -> None:
+    """`deadline.allowances`: each scenario's allowance (deadline − staging) / steps, distinct and
+    ascending (NaN last) as np.unique gives them; sorted once for the venues whose staging is the
+    same, and apart for a venue that stages longer (demo figures)."""
+    rng = np.random.default_rng(3)
+    scenarios = 50
+    the_load = load(tokens=rng.uniform(1e11, 1e12, scenarios),
+                    deadline_seconds=rng.uniform(5.0, 30.0, scenarios) * 86400.0)
+    near, also_near, far = (hardware(staging_seconds=seconds) for seconds in (3600.0, 3600.0, 86400.0))
+    deadline_seconds = np.asarray(the_load.deadline_seconds).reshape(-1, 1)
+    first, again, other = (deadline.allowances(the_load, venue, deadline_seconds) for venue in (near, also_near, far))
+    assert first[0] is again[0] and first[1] is again[1]
+    assert first[0] is not other[0]
+    for venue, (afforded, scenario_of) in ((near, first), (far, other)):
+        steps, staging = step.scenario_terms(the_load, venue)
+        expected = np.unique(((deadline_seconds - staging) / steps).reshape(-1), return_inverse=True)
+        np.testing.assert_array_equal(afforded, expected[0])
+        np.testing.assert_array_equal(scenario_of, expected[1])
+        assert not afforded.flags.writeable and not scenario_of.flags.writeable  # shared: never written
 
 
 @pytest.mark.parametrize("seed", range(6))

@@ -262,7 +262,7 @@ def test_a_column_is_dropped_only_where_an_earlier_one_dominates_it() -> None:
 
 
 def test_in_each_scenario_the_dominated_deadline_candidates_move_last_and_columns_of_only_those_go() -> None:
-    """dominance.deadline_rows: distinct allowances' rows of three shapes' deadline candidates,
+    """dominance.deadline_rows: rows of three shapes' deadline candidates (one per run of allowances),
     drawn from a table of five (demo figures)."""
     base = {"effective_step_seconds": np.array([[2.0, 1.0]]), "nodes": np.array([[4.0, 16.0]]),
             "accelerators": np.array([[32.0, 128.0]]), "fits": np.array([[True, True]])}
@@ -273,9 +273,9 @@ def test_in_each_scenario_the_dominated_deadline_candidates_move_last_and_column
     # entry 1 comes first: entry 1 has more accelerators, so entry 4 does not dominate it either.
     column = np.array([[0, 1, 3], [0, 1, 3], [1, 4, 2], [0, 4, 2], [0, 4, 2]])
     def kept(first: Any, table: Any, column: np.ndarray) -> np.ndarray:
-        distinct, row_of, width = dominance.deadline_rows(first, table, column.T)  # allowances along axis 1
-        assert len(distinct) == 1 + np.count_nonzero((column[1:] != column[:-1]).any(axis=1))
-        return distinct[row_of][:, :width]
+        ordered, width = dominance.deadline_rows(first, table, column)
+        assert ordered.shape == column.shape
+        return ordered[:, :width]
 
     np.testing.assert_array_equal(kept(base, table, column),
                                   [[1, 0, 3], [1, 0, 3], [1, 4, 2], [4, 2, 0], [4, 2, 0]])
