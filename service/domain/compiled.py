@@ -77,13 +77,16 @@ def _scan(kind: int, meets: Any, nodes: Any, accelerator_hours: Any, wall_second
         least, at = best[s], index[s]
         if least != least:
             continue
+        # The scenario's figures read once, not per cell (numba cannot hoist them past the writes).
+        limit_s, deadline_s, rate_s, fixed_s, storage_s = limit[s], deadline[s], rate[s], fixed[s], storage[s]
+        every_s, total_s, steps_s, staging_s, r = every[s], total[s], steps[s], staging[s], row_of[s]
         for k in range(width):
             if gathered:
-                c = rows[row_of[s], k]
-                if not (table_fits[c] and table_nodes[c] <= limit[s]):
+                c = rows[r, k]
+                if not (table_fits[c] and table_nodes[c] <= limit_s):
                     continue
-                seconds = steps[s] * table_step[c] + staging[s]
-                if not seconds <= deadline[s]:
+                seconds = steps_s * table_step[c] + staging_s
+                if not seconds <= deadline_s:
                     continue
                 count = table_nodes[c]
                 used = seconds * (table_accelerators[c] / SECONDS_PER_HOUR)
@@ -102,17 +105,17 @@ def _scan(kind: int, meets: Any, nodes: Any, accelerator_hours: Any, wall_second
                 window = np.maximum(months, hours / HOURS_PER_MONTH)
             sharing = 1.0
             if recurring:  # recurrence.instances_sharing
-                by_calendar = np.floor(window / every[s] + 1e-9)
+                by_calendar = np.floor(window / every_s + 1e-9)
                 by_capacity = np.floor(window * HOURS_PER_MONTH / hours + 1e-9)
-                sharing = np.maximum(1.0, np.minimum(np.minimum(by_calendar, by_capacity), total[s]))
+                sharing = np.maximum(1.0, np.minimum(np.minimum(by_calendar, by_capacity), total_s))
             if kind == COMMITTED:  # committed_lines
-                value = count * fee_per_node * terms * (rate[s] / sharing)
+                value = count * fee_per_node * terms * (rate_s / sharing)
             elif kind == NEW_BUILD:  # new_build_cost
-                value = count * window / sharing * fixed[s] + used * rate[s]
+                value = count * window / sharing * fixed_s + used * rate_s
             else:  # hourly_lines, chargeback_cost
-                value = used * rate[s]
+                value = used * rate_s
             if stored:  # storage_cost
-                value = value + storage[s] * hours
+                value = value + storage_s * hours
             if value != value:
                 least, at = value, offset + k
                 break

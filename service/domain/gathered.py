@@ -10,8 +10,8 @@ from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import Bools, Floats, Ints, as_floats, take_rows
-from service.domain.step import FiguresWhenRead, Hardware, Load, scenario_rows, scenario_terms, wall_figures
+from service.domain.arrays import Bools, Floats, Ints, as_floats
+from service.domain.step import FiguresWhenRead, Hardware, Load, scenario_terms, wall_figures
 
 
 @dataclass(frozen=True)
@@ -45,6 +45,11 @@ class GatheredGrid(FiguresWhenRead):
         object.__setattr__(self, "_rows", rows)
         object.__setattr__(self, "_row_of", row_of)
         object.__setattr__(self, "_inputs", (load, hardware))
+
+    @property
+    def width(self) -> int:
+        """Each scenario's number of candidates, read from the columns: nothing spread."""
+        return int(np.shape(self._rows)[1])
 
     def _spread(self, figure: Any) -> Any:
         """A one-row figure of the table at every scenario's columns."""
@@ -95,11 +100,9 @@ class GatheredGrid(FiguresWhenRead):
             if name in ("wall_seconds", "accelerator_hours"):  # the cells' own: their scenarios' wall clock
                 if not timed:
                     load, hardware = self._inputs
-                    count = scenario_rows(load, hardware)
                     step, used = (np.asarray(self._table[figure])[0][cell][:, np.newaxis]
                                   for figure in ("effective_step_seconds", "accelerators"))
-                    timed.update(wall_figures(take_rows(load, rows, count), take_rows(hardware, rows, count),
-                                              step, used))
+                    timed.update(wall_figures(load, hardware, step, used, rows))
                 return np.asarray(timed[name])[:, 0]
             if name not in self._table:
                 return spread(name)

@@ -24,7 +24,7 @@ from service.domain.deadline import (
     step_varies,
     table_rungs,
 )
-from service.domain.gathered import gathered
+from service.domain.gathered import GatheredGrid, gathered
 from service.domain.lockstep import Search, StepRequest, ask, drive
 from service.domain.memory import minimum_data_parallel
 from service.domain.own_step import fewest_meeting
@@ -70,7 +70,7 @@ class Candidates:
 
     @property
     def widths(self) -> list[int]:
-        return [int(block.nodes.shape[1]) for block in self.blocks]
+        return [block.width if isinstance(block, GatheredGrid) else int(block.nodes.shape[1]) for block in self.blocks]
 
     def each(self, figure: Callable[[LayoutGrid], ArrayLike]) -> Any:
         """`figure` of every block, side by side along axis 1 (rows broadcast where needed)."""
@@ -193,14 +193,14 @@ def layout_search(load: Load, hardware: Hardware, *, node_limits: Sequence[Array
             figures = yield from ask(StepRequest(load, hardware, base, found))
             if prune and dominance.single_row(figures):
                 figures = dominance.undominated(figures)
-            return Candidates((with_wall(load, hardware, figures),)), fewest
+            return Candidates((_base_block(load, hardware, figures, gather=prune),)), fewest
         figures, exact, distinct, row_of_allowance, allowance_of = yield from on_one_table(
             load, hardware, found, base, k_min, k_top, deadline)
         if prune and dominance.single_row(figures):
             figures = dominance.undominated(figures)
             distinct, kept = dominance.deadline_rows(figures, exact, distinct)
             distinct = distinct[:, :kept]
-        first = with_wall(load, hardware, figures)
+        first = _base_block(load, hardware, figures, gather=prune)
         if distinct.shape[1] == 0:
             return Candidates((first,)), fewest
         return Candidates((first, gathered(load, hardware, exact, distinct, row_of_allowance[allowance_of]))), fewest
@@ -227,6 +227,16 @@ def layout_search(load: Load, hardware: Hardware, *, node_limits: Sequence[Array
     meeting = Columns(tensor, pipeline, met, met * per_node, np.full(met.shape, DEADLINE))
     return Candidates((first, FiguresOnRead(load, hardware, meeting, found, rows, fits=fits, wall_seconds=wall,
                                             accelerator_hours=accelerator_hours(wall, meeting.accelerators)))), fewest
+
+
+def _base_block(load: Load, hardware: Hardware, figures: dict[str, Any], *, gather: bool) -> LayoutGrid:
+    """The base candidates and their wall clock. For a sweep (`gather`), where their figures are one
+    row for every scenario, a block gathered from that row: its wall clock, the only figure that varies
+    by scenario, is spread only when read, and the compiled kernel makes it per cell instead, never
+    laying out the (scenarios × candidates) wall clock, accelerator-hours and deadline mask."""
+    if gather and all(np.ndim(value) == 2 and np.shape(value)[0] == 1 for value in figures.values()):
+        return gathered(load, hardware, figures, np.arange(np.shape(figures["nodes"])[1])[np.newaxis, :])
+    return with_wall(load, hardware, figures)
 
 
 def _base_columns(found: Shapes, unit: Floats, per_node: int, k_min: Floats, tops: list[Floats]) -> Columns:

@@ -394,11 +394,12 @@ def with_wall(load: Load, hardware: Hardware, figures: dict[str, Any]) -> Layout
     return LayoutGrid(**figures, wall_seconds=wall["wall_seconds"], accelerator_hours=wall["accelerator_hours"])
 
 
-def wall_figures(load: Load, hardware: Hardware, effective_step_seconds: Floats,
-                 accelerators: Floats) -> dict[str, Floats]:
+def wall_figures(load: Load, hardware: Hardware, effective_step_seconds: Floats, accelerators: Floats,
+                 rows: Ints | None = None) -> dict[str, Floats]:
     """The wall clock of a run, steps × runs × the effective step plus staging (model.md §5), and
-    its accelerator-hours."""
-    steps, staging = scenario_terms(load, hardware)
+    its accelerator-hours; with `rows`, of those scenarios, one per row of the figures."""
+    steps, staging = (terms if rows is None else terms[rows if terms.shape[0] > 1 else np.zeros_like(rows)]
+                      for terms in scenario_terms(load, hardware))
     wall = np.asarray(steps * effective_step_seconds)
     if wall.ndim == 2 and staging.shape[0] in (1, wall.shape[0]):  # staging: (S, 1)
         wall += staging  # in place where the shapes allow: this runs over every candidate of every scenario
@@ -427,8 +428,7 @@ def _by_row(value: ArrayLike) -> Floats:
 
 
 def _two_d(value: Any, columns: int) -> Any:
-    """A figure as an (R, K) array, R = 1 when it does not vary by scenario: a scalar is one value
-    for all, a 1-D array one value per scenario."""
+    """A figure as an (R, K) array, R = 1 where it does not vary (a 1-D array: one value per scenario)."""
     array = np.asarray(value)
     if array.ndim < 2:
         array = array.reshape(-1, 1)

@@ -21,7 +21,7 @@ import pytest
 
 from service.contract.catalog import CatalogIn
 from service.contract.sweep import SweepIn
-from service.domain import compiled
+from service.domain import compiled, layout
 from service.domain.campaign import Campaign, DataPlan, FlopsWork, QuoteOptions, Recurrence
 from service.domain.charges import (
     Charges,
@@ -32,6 +32,7 @@ from service.domain.charges import (
     new_build_charges,
 )
 from service.domain.choice import _first_least, eligible
+from service.domain.dominance import PRUNED_FROM
 from service.domain.evaluate import evaluate_campaign
 from service.domain.gathered import GatheredGrid
 from service.domain.gravity import Transfer
@@ -172,16 +173,47 @@ def test_the_compiled_scan_picks_the_column_numpy_picks_from_the_terms_costs(see
 
 def test_a_gathered_block_gives_the_chosen_cells_as_its_spread_figures_would() -> None:
     """`cells` reads a chosen layout's wall clock and accelerator-hours straight from the table, as
-    `wall_figures` makes them for the whole block, so a sweep never spreads them."""
+    `wall_figures` makes them for the whole block, so a sweep never spreads them; for any of the
+    scenarios, in any order (those that chose this block)."""
     rng = np.random.default_rng(3)
     block, spread = random_gathered(rng, 6), None
-    rows, columns = np.arange(ROWS), rng.integers(0, 6, ROWS)
+    rows = rng.permutation(ROWS)[:ROWS // 3]
+    columns = rng.integers(0, 6, rows.size)
     read = block.cells(rows, columns)
     picked = {name: read(name) for name in ("wall_seconds", "accelerator_hours", "nodes", "fits")}
     assert "wall_seconds" not in block.__dict__  # read without spreading
     for name, values in picked.items():
         spread = np.asarray(getattr(block, name))
         np.testing.assert_array_equal(values, spread[rows, columns], err_msg=name)
+
+
+def test_with_the_kernel_a_sweep_lays_out_no_figure_over_every_scenario_and_candidate(
+        monkeypatch: pytest.MonkeyPatch) -> None:
+    """A sweep's base candidates, where the step does not vary by scenario, are gathered from their one
+    row as the deadline's are (`layout._base_block`), so with the kernel no figure of any block is
+    spread over (scenarios × candidates): not for the blocks' widths, which layouts a term may take,
+    the choice, nor the chosen layout's figures; and the answers are numpy's."""
+    catalog = CatalogIn.model_validate_json((EXAMPLES / "catalog.json").read_text(encoding="utf-8"))
+    sweep = json.loads((EXAMPLES / "sweep-electricity-and-utilisation.json").read_text(encoding="utf-8"))
+    sweep["samples"] = 2 * PRUNED_FROM
+    prepared = prepare_sweep(catalog, SweepIn.model_validate(sweep), SweepLimits())
+    (_, chunk), = scenario_chunks(prepared.plan, sweep["samples"])
+    reference = chunk_pool.evaluate(prepared.catalog, prepared.plan, chunk, None)
+    gathered_base: list[bool] = []
+    base_block = layout._base_block
+
+    def recorded(*args: Any, **kwargs: Any) -> LayoutGrid:
+        block = base_block(*args, **kwargs)
+        gathered_base.append(isinstance(block, GatheredGrid))
+        return block
+
+    def refused(self: GatheredGrid, figure: Any) -> Any:
+        raise AssertionError("a figure spread over every scenario and candidate")
+    monkeypatch.setattr(layout, "_base_block", recorded)
+    monkeypatch.setattr(GatheredGrid, "_spread", refused)
+    ours = chunk_pool.evaluate(prepared.catalog, prepared.plan, chunk, KERNEL)
+    assert gathered_base and all(gathered_base)  # every venue's base candidates
+    assert_identical(ours, reference, "chunk")
 
 
 def test_a_quote_and_a_small_sweep_never_import_numba_and_a_large_sweep_does() -> None:
