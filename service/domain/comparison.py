@@ -29,18 +29,25 @@ def ranking_keys(option: OptionResult, evaluation: CampaignEvaluation, rank_by: 
     """Sort keys, most significant first: the programme's total cost in the chosen view of owned
     cost (one instance's for a one-off campaign), then wall clock, then carbon; `rank_by` brings
     wall clock or carbon to the front. Unknown carbon sorts last."""
-    carbon = np.where(np.isnan(option.energy.kgco2e), np.inf, option.energy.kgco2e)
-    keys = {"cost": programme_total(option, evaluation, view), "wall_clock": option.layout.wall_seconds,
-            "carbon": carbon}
     order = [rank_by] + [k for k in ("cost", "wall_clock", "carbon") if k != rank_by]
-    first, second, third = (np.asarray(keys[k], dtype=np.float64) for k in order)
+    first, second, third = (ranking_key(option, evaluation, key, view) for key in order)
     return first, second, third
+
+
+def ranking_key(option: OptionResult, evaluation: CampaignEvaluation, key: RankBy,
+                view: OwnedCostView = "full") -> Floats:
+    """One of `ranking_keys`, made alone."""
+    if key == "cost":
+        return programme_total(option, evaluation, view)
+    if key == "wall_clock":
+        return np.asarray(option.layout.wall_seconds, dtype=np.float64)
+    return np.where(np.isnan(option.energy.kgco2e), np.inf, option.energy.kgco2e)
 
 
 def cheapest(evaluation: CampaignEvaluation, rank_by: RankBy = "cost", view: OwnedCostView = "full") -> Ints:
     """Per scenario, the index of the best feasible option by the first ranking key; -1 if none."""
     options = evaluation.options
-    firsts = np.stack(np.broadcast_arrays(*[np.where(o.feasible, ranking_keys(o, evaluation, rank_by, view)[0], np.inf)
+    firsts = np.stack(np.broadcast_arrays(*[np.where(o.feasible, ranking_key(o, evaluation, rank_by, view), np.inf)
                                             for o in options]))
     best = np.argmin(firsts, axis=0)
     return np.where(np.isfinite(firsts.min(axis=0)), best, -1).astype(np.int64)

@@ -236,6 +236,9 @@ def least_costs(meets: Sequence[Bools | None], gathered: Sequence[Gathered | Non
                + [value.shape[0] for block in figures for value in block.values()]
                + [np.size(value) for value in per_scenario])
     best, index = np.full(rows, np.inf), np.zeros(rows, dtype=np.int64)
+    term = (_along(limit, rows), _along(deadline, rows), _along(form.rate, rows), _along(form.fixed, rows),
+            float(form.months), float(form.fee_per_node), every is not None, _along(every, rows), _along(total, rows),
+            form.storage is not None, _along(form.storage, rows))  # the term's figures, the same for every block
     offset = 0
     for mask, block, width, at in zip(meets, figures, widths, gathered, strict=True):
         def grid(value: Any) -> Any:
@@ -250,9 +253,6 @@ def least_costs(meets: Sequence[Bools | None], gathered: Sequence[Gathered | Non
             cells = (grid(np.asarray(mask, dtype=bool)), *(grid(block.get(name, _NONE)) for name in figure_names),
                      False, _NO_COLUMNS, np.broadcast_to(_NO_COLUMNS[0], (rows,)), _NONE[0], _NONE[0], _NO_FLAGS,
                      _NONE[0], _along(None, rows), _along(None, rows))
-        compiled.scan(form.kind, *cells, _along(limit, rows), _along(deadline, rows), _along(form.rate, rows),
-                      _along(form.fixed, rows), float(form.months), float(form.fee_per_node), every is not None,
-                      _along(every, rows), _along(total, rows), form.storage is not None,
-                      _along(form.storage, rows), offset, best, index)
+        compiled.scan(form.kind, *cells, *term, offset, best, index)
         offset += width
     return best, index

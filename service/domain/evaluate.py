@@ -376,14 +376,17 @@ def _screen(
     if venue.owned_only:
         mask |= screens.OWNED_ONLY
     no_precision = np.isnan(as_floats(hardware.sustained_flops_per_accelerator)) & np.ones(shape, bool)
-    mask |= np.where(no_precision, screens.PRECISION, 0)
-    never = ~np.isfinite(min_nodes) & ~no_precision
-    mask |= np.where(never, screens.MEMORY, 0)
-    short = np.isfinite(min_nodes) & ~any_fits & ~no_precision
-    mask |= np.where(short & (np.minimum(limit.venue, limit.request) < needed), screens.CAPACITY, 0)
-    mask |= np.where(short & (limit.power < needed), screens.POWER, 0)
-    mask |= np.where(short & (limit.cooling < needed), screens.COOLING, 0)
-    mask |= np.where(any_fits & ~meets_deadline & ~no_precision, screens.DEADLINE, 0)
+    held = np.isfinite(min_nodes)  # some node count holds the model
+    # Each screen is set only where some scenario fails it: most pass everywhere (a sweep's whole chunk).
+    short = held & ~any_fits & ~no_precision
+    if short.any():
+        mask |= np.where(short & (np.minimum(limit.venue, limit.request) < needed), screens.CAPACITY, 0)
+        mask |= np.where(short & (limit.power < needed), screens.POWER, 0)
+        mask |= np.where(short & (limit.cooling < needed), screens.COOLING, 0)
+    for failed, screen in ((no_precision, screens.PRECISION), (~held & ~no_precision, screens.MEMORY),
+                           (any_fits & ~meets_deadline & ~no_precision, screens.DEADLINE)):
+        if failed.any():
+            mask |= np.where(failed, screen, 0)
     return mask
 
 
