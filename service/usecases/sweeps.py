@@ -247,17 +247,18 @@ def csv_chunks(prepared: PreparedSweep, progress: Progress | None = None, proces
         columns += [_decimals(chunk.inputs[p]) for p in prepared.plan.paths]
         columns += [cheapest, np.full(chunk.size, prepared.currency)]
         columns += [_decimals(np.round(totals, digits)) for totals in chunk.totals]
-        said = np.full(chunk.size, "", dtype=f"<U{len(CSV_CAUTIONS)}")
-        if first == 0:
-            said[0] = CSV_CAUTIONS
-        columns.append(said)
         lines = columns[0]
         for column in columns[1:]:
             lines = np.char.add(np.char.add(lines, ","), column)
+        # The cautions column: empty, and the cautions written onto the first row alone (an array as wide
+        # as them for every row cost a chunk of 25,000 rows over 100 MB).
+        rows = np.char.add(lines, ",").tolist()
+        if first == 0:
+            rows[0] += CSV_CAUTIONS
         first += chunk.size
         if progress is not None:
             progress(first, prepared.plan.scenarios)
-        yield head + "\r\n".join(lines.tolist()) + "\r\n"
+        yield head + "\r\n".join(rows) + "\r\n"
 
 
 def _decimals(values: np.ndarray) -> np.ndarray:

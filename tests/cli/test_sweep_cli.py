@@ -96,7 +96,7 @@ def test_the_json_summary_and_the_csv_rows_agree(tmp_path: Path) -> None:
 
 
 def test_worker_processes_give_the_same_bytes_as_one_process(tmp_path: Path) -> None:
-    sweep = demo(30_000)
+    sweep = demo(60_000)
     prepared = prepare_sweep(CatalogIn.model_validate_json(Path(CATALOG).read_text(encoding="utf-8")),
                              SweepIn.model_validate(sweep), SweepLimits())
     assert sweep["samples"] > 2 * chunk_size(prepared.catalog)  # the work is really shared
