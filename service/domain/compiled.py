@@ -116,11 +116,10 @@ def _scan(kind: int, meets: Any, nodes: Any, accelerator_hours: Any, wall_second
                 value = used * rate_s
             if stored:  # storage_cost
                 value = value + storage_s * hours
-            if value != value:
+            if not value >= least:  # less, or NaN (one comparison for both, on the common path)
                 least, at = value, offset + k
-                break
-            if value < least:
-                least, at = value, offset + k
+                if value != value:
+                    break
         best[s], index[s] = least, at
 
 

@@ -78,7 +78,7 @@ class OptionResult:
     details: dict[str, Floats] = field(default_factory=dict)
     parts: tuple["OptionResult", ...] = ()  # a split's owned and rented parts
 
-    @property
+    @functools.cached_property
     def feasible(self) -> Bools:
         return np.asarray(self.screens == 0)
 

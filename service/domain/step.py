@@ -414,10 +414,10 @@ def accelerator_hours(wall_seconds: Floats, accelerators: Floats) -> Floats:
 
 
 def scenario_terms(load: Load, hardware: Hardware) -> tuple[Floats, Floats]:
-    """(steps of all runs, staging seconds) per scenario, (S, 1)."""
-    _, steps_per_run = _step_work(load)
-    return (np.asarray(steps_per_run * as_floats(load.runs_multiplier).reshape(-1, 1)),
-            as_floats(hardware.staging_seconds).reshape(-1, 1))
+    """(steps of all runs, staging seconds) per scenario, (S, 1); the steps made once per load."""
+    if "steps" not in load.kept:
+        load.kept["steps"] = np.asarray(_step_work(load)[1] * as_floats(load.runs_multiplier).reshape(-1, 1))
+    return load.kept["steps"], as_floats(hardware.staging_seconds).reshape(-1, 1)
 
 
 def _by_row(value: ArrayLike) -> Floats:

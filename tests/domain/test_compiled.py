@@ -132,7 +132,7 @@ def random_gathered(rng: np.random.Generator, width: int) -> GatheredGrid:
     distinct = rng.integers(0, columns, (int(rng.integers(1, 30)), width))
     load = SimpleNamespace(tokens_per_run=rng.uniform(1e9, 2e11, ROWS), timed_flops_per_token=6e9,
                            global_batch_tokens=4e6, timed_flops_per_run=None, runs_multiplier=rng.choice([1.0, 2.5]),
-                           rows=ROWS)
+                           rows=ROWS, kept={})
     hardware = SimpleNamespace(staging_seconds=rng.uniform(0.0, 3e5, ROWS) if rng.random() < 0.5 else 3600.0,
                                rows=ROWS)
     return GatheredGrid(load, hardware, table, distinct, rng.integers(0, distinct.shape[0], ROWS))  # type: ignore[arg-type]
