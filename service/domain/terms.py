@@ -11,7 +11,8 @@ non-negative prices, and a sweep relies on it to drop candidates that are never 
 `compiled.py`'s kernel, which repeats the `*_cost` formulas for one cell: change both.
 """
 
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
+from typing import Any
 
 import numpy as np
 
@@ -210,18 +211,40 @@ class Energy:
     kgco2e: Floats
 
 
+class _EnergyWhenRead(Energy):
+    """An Energy whose figures are made together when one is first read: a sweep reads none unless it
+    ranks by carbon, and they were an option's largest arrays (0.9 of a chunk's 6.8 KB a scenario)."""
+
+    def __getattr__(self, name: str) -> Any:
+        make = self.__dict__.get("_make")
+        if make is None or name not in _ENERGY_FIGURES:
+            raise AttributeError(name)
+        for figure, value in make().items():
+            object.__setattr__(self, figure, value)
+        return self.__dict__[name]
+
+
+_ENERGY_FIGURES = frozenset(f.name for f in fields(Energy))
+
+
 def campaign_energy(
     grid: LayoutGrid, *, idle_kw: float, peak_kw: float, load: float, pue: ArrayLike,
     grid_kgco2e_per_kwh: ArrayLike,
 ) -> Energy:
-    """Energy of the nodes a chosen layout ((S,) arrays) holds for the wall clock, busy at `load`.
+    """Energy of the nodes a chosen layout ((S,) arrays) holds for the wall clock, busy at `load`,
+    made when first read.
 
     IT kWh = nodes × (idle + (peak − idle) × load) × hours; facility kWh = IT × PUE; all IT
     power becomes heat, so the cooling load is the peak IT power; carbon = facility kWh × grid
     factor. PUE or grid factor may be NaN (unknown), and so are the figures that need them.
     """
-    busy_kw = idle_kw + (peak_kw - idle_kw) * load
-    it_kwh = grid.nodes * busy_kw * wall_hours(grid)
-    facility = it_kwh * as_floats(pue)
-    peak_it = grid.nodes * peak_kw
-    return Energy(it_kwh, facility, peak_it, peak_it, facility * as_floats(grid_kgco2e_per_kwh))
+    def make() -> dict[str, Floats]:
+        busy_kw = idle_kw + (peak_kw - idle_kw) * load
+        it_kwh = grid.nodes * busy_kw * wall_hours(grid)
+        facility = it_kwh * as_floats(pue)
+        peak_it = grid.nodes * peak_kw
+        return {"it_kwh": it_kwh, "facility_kwh": facility, "peak_it_kw": peak_it, "cooling_kw_thermal": peak_it,
+                "kgco2e": facility * as_floats(grid_kgco2e_per_kwh)}
+    energy = _EnergyWhenRead.__new__(_EnergyWhenRead)
+    object.__setattr__(energy, "_make", make)
+    return energy
