@@ -5,7 +5,7 @@ Scenarios are made and evaluated in chunks, so memory stays bounded at any size;
 accumulates across chunks. No Python loop runs per scenario.
 """
 
-from collections.abc import Iterator, Mapping
+from collections.abc import Iterable, Iterator, Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -21,10 +21,23 @@ from service.domain.parallelism import MAX_PIPELINE_DEGREES, divisors
 from service.domain.programme import view_total
 from service.domain.whatif import apply
 
-# Scenarios × candidate layouts per chunk: bounds memory. Measured on bench_sweeps' 10-venue catalog, a chunk
-# of 25,000 peaks at 172 MB (6.9 KB a scenario), and costs 14% less CPU per scenario than one of 12,500.
-CHUNK_ELEMENTS = 3_200_000
+CHUNK_ELEMENTS = 1_600_000  # scenarios × candidate layouts per chunk: bounds memory
 CANDIDATES_PER_SHAPE = 4  # the memory minimum, a site's two node limits (an offer has one) and the deadline
+# The inputs that change prices, the work's length, the data or the deadline, but never a step's figures or a
+# candidate's node count. A sweep over these alone solves every scenario on one table of candidates
+# (layout.py) and lays out no (scenarios × candidates) array: its memory grows with the options (measured on
+# bench_sweeps' 10-venue catalog, 28 options: 5.7 KB a scenario, against 26-64 KB for a sweep over PUE, the
+# network or the model's size), so its chunks hold OPTION_SCENARIOS / options scenarios, at most
+# ONE_TABLE_FACTOR times the others' (twice the scenarios cost a chunk 14-16% less CPU per scenario there).
+ONE_TABLE_PATHS = frozenset({
+    "campaign.work.tokens", "campaign.runs.count", "campaign.runs.exploration_fraction",
+    "campaign.runs.evaluation_fraction", "campaign.deadline_days", "campaign.data.dataset_tb",
+    "campaign.data.checkpoints_kept", "campaign.data.results_egress_tb", "campaign.recurrence.every_months",
+    "campaign.recurrence.for_months", "overrides.electricity_price_per_kwh", "overrides.electricity_price_factor",
+    "overrides.on_demand_price_factor", "overrides.rented_price_factor", "overrides.cost_of_capital_annual",
+    "overrides.node_price_factor", "overrides.utilisation_planned", "overrides.grid_kgco2e_per_kwh"})
+OPTION_SCENARIOS = 700_000  # options × scenarios per chunk of such a sweep: about 140 MB
+ONE_TABLE_FACTOR = 2
 
 
 @dataclass(frozen=True)
@@ -234,14 +247,22 @@ class SweepSummary:
         }
 
 
-def chunk_size(catalog: Catalog) -> int:
+def chunk_size(catalog: Catalog, paths: Iterable[str] = ()) -> int:
     """Scenarios per chunk so that the (scenarios × candidate layouts) arrays stay near CHUNK_ELEMENTS.
     A venue's candidates do not grow with its size (layout.py): at most its node type's shapes (the
     divisors of its accelerators per node × MAX_PIPELINE_DEGREES), each at CANDIDATES_PER_SHAPE counts.
+    A sweep over ONE_TABLE_PATHS alone (`paths`) has no such arrays: its chunks are bounded by its
+    options instead (OPTION_SCENARIOS), up to ONE_TABLE_FACTOR times larger.
     """
     shapes = max((len(divisors(node.accelerators_per_node)) * MAX_PIPELINE_DEGREES
                   for node in catalog.node_types.values()), default=1)
-    return max(64, CHUNK_ELEMENTS // (shapes * CANDIDATES_PER_SHAPE))
+    size = max(64, CHUNK_ELEMENTS // (shapes * CANDIDATES_PER_SHAPE))
+    varied = set(paths)
+    if not varied or not varied <= ONE_TABLE_PATHS:
+        return size
+    options = 2 * len(catalog.sites) + sum((offer.on_demand_per_accelerator_hour is not None) + len(offer.committed)
+                                           + (offer.interruptible is not None) for offer in catalog.offers)
+    return max(size, min(ONE_TABLE_FACTOR * size, OPTION_SCENARIOS // max(options, 1)))
 
 
 @dataclass(frozen=True)

@@ -153,7 +153,7 @@ def run(prepared: PreparedSweep, *, keep_rows: int = ROWS_IN_JSON, progress: Pro
 
 def _chunks(prepared: PreparedSweep, processes: int) -> Iterator[ChunkResult]:
     plan = prepared.plan
-    size = chunk_size(prepared.catalog)
+    size = chunk_size(prepared.catalog, plan.paths)
     inputs = (values for _, values in scenario_chunks(plan, size))
     # A sweep of one chunk gains nothing from starting worker processes.
     yield from evaluated(prepared.catalog, plan, inputs, processes=processes if plan.scenarios > size else 1)
@@ -226,39 +226,44 @@ def _quoted(text: str) -> str:
 
 
 CSV_CAUTIONS = _quoted(" ".join(CAUTIONS))
+CSV_ROWS = 5_000  # rows formatted at once: numpy's text arrays of a whole chunk took the writer 100 MB more
 
 
 def csv_chunks(prepared: PreparedSweep, progress: Progress | None = None, processes: int = 1) -> Iterator[str]:
-    """Every scenario as CSV (RFC 4180), a chunk at a time: bounded memory at any size. Columns are
+    """Every scenario as CSV (RFC 4180), CSV_ROWS at a time: bounded memory at any size. Columns are
     formatted by numpy as whole arrays; no Python loop runs per scenario. The cautions are the last
     column of the first row (empty below it, which keeps millions of rows small): a spreadsheet shows
     them at the top, and a reader that takes the first row as the header reads every row."""
     digits = Money(prepared.currency).digits
     first = 0
     for chunk in _chunks(prepared, processes):
-        head = ""
-        if first == 0:
-            buffer = io.StringIO()
-            csv.writer(buffer, lineterminator="\r\n").writerow(csv_header(prepared, chunk.labels))
-            head = buffer.getvalue()
         labels = np.asarray([*chunk.labels, ""], dtype=object)
-        cheapest = labels[np.where(chunk.cheapest >= 0, chunk.cheapest, len(chunk.labels))].astype(str)
-        columns = [np.arange(first, first + chunk.size).astype(str)]
-        columns += [_decimals(chunk.inputs[p]) for p in prepared.plan.paths]
-        columns += [cheapest, np.full(chunk.size, prepared.currency)]
-        columns += [_decimals(np.round(totals, digits)) for totals in chunk.totals]
-        lines = columns[0]
-        for column in columns[1:]:
-            lines = np.char.add(np.char.add(lines, ","), column)
-        # The cautions column: empty, and the cautions written onto the first row alone (an array as wide
-        # as them for every row cost a chunk of 25,000 rows over 100 MB).
-        rows = np.char.add(lines, ",").tolist()
-        if first == 0:
-            rows[0] += CSV_CAUTIONS
-        first += chunk.size
+        for start in range(0, chunk.size, CSV_ROWS):
+            part = slice(start, min(start + CSV_ROWS, chunk.size))
+            head = ""
+            if first == 0:
+                buffer = io.StringIO()
+                csv.writer(buffer, lineterminator="\r\n").writerow(csv_header(prepared, chunk.labels))
+                head = buffer.getvalue()
+            picked = chunk.cheapest[part]
+            size = picked.size
+            columns = [np.arange(first, first + size).astype(str)]
+            columns += [_decimals(chunk.inputs[p][part]) for p in prepared.plan.paths]
+            columns += [labels[np.where(picked >= 0, picked, len(chunk.labels))].astype(str),
+                        np.full(size, prepared.currency)]
+            columns += [_decimals(np.round(totals[part], digits)) for totals in chunk.totals]
+            lines = columns[0]
+            for column in columns[1:]:
+                lines = np.char.add(np.char.add(lines, ","), column)
+            # The cautions column: empty, and the cautions written onto the first row alone (an array as
+            # wide as them for every row cost a chunk of 25,000 rows over 100 MB).
+            rows = np.char.add(lines, ",").tolist()
+            if first == 0:
+                rows[0] += CSV_CAUTIONS
+            first += size
+            yield head + "\r\n".join(rows) + "\r\n"
         if progress is not None:
             progress(first, prepared.plan.scenarios)
-        yield head + "\r\n".join(rows) + "\r\n"
 
 
 def _decimals(values: np.ndarray) -> np.ndarray:

@@ -127,6 +127,11 @@ def ten_venue_catalog() -> dict[str, Any]:
     return catalog
 
 
+def service_chunks(prepared: Any) -> list[dict[str, np.ndarray]]:
+    """The inputs of each chunk the service cuts the prepared sweep into (`chunk_size`)."""
+    return [inputs for _, inputs in scenario_chunks(prepared.plan, chunk_size(prepared.catalog, prepared.plan.paths))]
+
+
 def timed(function: Any, repeats: int) -> tuple[float, float]:
     """Best CPU seconds and best wall seconds over `repeats` calls."""
     cpu, wall = [], []
@@ -152,7 +157,7 @@ def core_benchmark() -> None:
         result = evaluate_chunk(catalog, plan, inputs, kernel=KERNEL)  # warm-up
         vector_cpu, vector_wall = timed(lambda: evaluate_chunk(catalog, plan, inputs, kernel=KERNEL), 3)  # noqa: B023
 
-        service_chunk = chunk_size(catalog)
+        service_chunk = chunk_size(catalog, plan.paths)
 
         def in_service_chunks(kernel: compiled.Kernel | None = KERNEL) -> None:
             for _, part in scenario_chunks(plan, service_chunk):  # noqa: B023
@@ -267,7 +272,7 @@ def venue_size_benchmark() -> None:
         sweep = load(DEMO_SWEEP)
         sweep["samples"] = VECTOR_SCENARIOS
         prepared = prepare_sweep(catalog_in, SweepIn.model_validate(sweep), SweepLimits())
-        size = chunk_size(prepared.catalog)
+        size = chunk_size(prepared.catalog, prepared.plan.paths)
         chunks = [inputs for _, inputs in scenario_chunks(prepared.plan, size)]
 
         def in_service_chunks() -> None:
@@ -320,7 +325,7 @@ def step_grid_benchmark() -> None:
     grouping = deadline.SCENARIOS_PER_STEP
     for label, varied in STEP_SWEEPS.items():
         prepared = prepare_sweep(catalog_in, SweepIn.model_validate({"base": base, **varied}), SweepLimits())
-        chunks = [inputs for _, inputs in scenario_chunks(prepared.plan, chunk_size(prepared.catalog))]
+        chunks = service_chunks(prepared)
         scenarios = prepared.plan.scenarios
 
         def in_service_chunks() -> list[np.ndarray]:
@@ -361,7 +366,7 @@ def own_step_benchmark() -> None:
         sweep = {"base": base, "samples": OWN_STEP_SCENARIOS, "seed": 3,
                  "distributions": {path: {"kind": "uniform", "low": low, "high": high}}}
         prepared = prepare_sweep(catalog_in, SweepIn.model_validate(sweep), SweepLimits())
-        chunks = [inputs for _, inputs in scenario_chunks(prepared.plan, chunk_size(prepared.catalog))]
+        chunks = service_chunks(prepared)
 
         def in_service_chunks() -> None:
             for inputs in chunks:  # noqa: B023

@@ -99,7 +99,7 @@ def test_worker_processes_give_the_same_bytes_as_one_process(tmp_path: Path) -> 
     sweep = demo(60_000)
     prepared = prepare_sweep(CatalogIn.model_validate_json(Path(CATALOG).read_text(encoding="utf-8")),
                              SweepIn.model_validate(sweep), SweepLimits())
-    assert sweep["samples"] > 2 * chunk_size(prepared.catalog)  # the work is really shared
+    assert sweep["samples"] > 2 * chunk_size(prepared.catalog, prepared.plan.paths)  # the work is really shared
     path = write(tmp_path, sweep)
     for output in ("json", "csv"):
         one, two = (berth("sweep", path, "--catalog", CATALOG, "--format", output, "--processes", n)

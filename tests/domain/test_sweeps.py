@@ -8,6 +8,7 @@ All figures are demo data (invented ids and prices); reference values come from 
 """
 
 import copy
+import dataclasses
 import itertools
 import json
 import math
@@ -21,10 +22,21 @@ import pytest
 from service.contract.catalog import CatalogIn
 from service.contract.request import QuoteRequestIn
 from service.contract.sweep import SweepIn
+from service.domain import layout
 from service.domain.campaign import OFFER_OVERRIDES, SITE_OVERRIDES
 from service.domain.distributions import Distribution, stream
 from service.domain.evaluate import evaluate_campaign
-from service.domain.sweep import Reservoir, evaluate_chunk, scenario_chunks, tornado
+from service.domain.gathered import GatheredGrid
+from service.domain.sweep import (
+    ONE_TABLE_FACTOR,
+    ONE_TABLE_PATHS,
+    OPTION_SCENARIOS,
+    Reservoir,
+    chunk_size,
+    evaluate_chunk,
+    scenario_chunks,
+    tornado,
+)
 from service.domain.whatif import PATHS, input_path, venue_of
 from service.errors import InvalidInput
 from service.usecases.quoting import quote
@@ -376,6 +388,63 @@ def test_the_chunk_size_does_not_change_the_draws(sizes: tuple[int, int]) -> Non
     for path in prep.plan.paths:
         assert a[path].size == 3000
         assert np.array_equal(a[path], b[path]), path
+
+
+# Where each input may go in a sweep of the demo campaign (whole numbers where the input is one).
+ONE_TABLE_RANGES = {
+    "campaign.work.tokens": (1e11, 4e11), "campaign.runs.count": (1, 5), "campaign.runs.exploration_fraction": (0, 0.5),
+    "campaign.runs.evaluation_fraction": (0, 0.3), "campaign.deadline_days": (5, 60),
+    "campaign.data.dataset_tb": (1, 50), "campaign.data.checkpoints_kept": (1, 6),
+    "campaign.data.results_egress_tb": (0, 5), "campaign.recurrence.every_months": (1, 12),
+    "campaign.recurrence.for_months": (6, 36), "overrides.electricity_price_per_kwh": (0.05, 0.3),
+    "overrides.electricity_price_factor": (0.5, 2), "overrides.on_demand_price_factor": (0.7, 1.3),
+    "overrides.rented_price_factor": (0.7, 1.3), "overrides.cost_of_capital_annual": (0.02, 0.15),
+    "overrides.node_price_factor": (0.7, 1.3), "overrides.utilisation_planned": (0.3, 0.9),
+    "overrides.grid_kgco2e_per_kwh": (0.05, 0.8),
+}
+
+
+@pytest.mark.parametrize("path", [*sorted(ONE_TABLE_PATHS), "overrides.network_gbps", "overrides.pue"])
+def test_an_input_of_the_one_table_paths_keeps_every_search_on_one_table(path: str,
+                                                                          monkeypatch: pytest.MonkeyPatch) -> None:
+    """Each input that `chunk_size` lets a sweep take larger chunks for, varied alone in a sweep large
+    enough to prune, keeps every venue's search on one table whose base candidates are gathered from
+    one row: no (scenarios × candidates) array, which is why its memory grows with the options alone.
+    An input of the step (the network) or of a node limit (PUE) does not, and keeps the smaller chunks."""
+    base = json.loads((EXAMPLES / "sweep-electricity-and-utilisation.json").read_text(encoding="utf-8"))["base"]
+    if path.startswith("campaign.recurrence."):
+        base["campaign"]["recurrence"] = {"every_months": 3, "for_months": 24}
+    low, high = ONE_TABLE_RANGES.get(path, (1.1, 2.0) if path == "overrides.pue" else (100, 1000))
+    integer = input_path(path)[0].integer
+    sweep = ({"base": base, "grid": {path: list(range(int(low), int(high) + 1)) * 100}} if integer else
+             {"base": base, "samples": 600, "seed": 5, "distributions": {path: {"kind": "uniform", "low": low,
+                                                                              "high": high}}})
+    prep = prepare_sweep(CATALOG_IN, SweepIn.model_validate(sweep), SweepLimits())
+    one_table, gathered_base = [], []
+    step_varies, base_block = layout.step_varies, layout._base_block
+    monkeypatch.setattr(layout, "step_varies", lambda *args: one_table.append(not step_varies(*args)) or
+                        not one_table[-1])
+    monkeypatch.setattr(layout, "_base_block", lambda *args, **kwargs: gathered_base.append(
+        isinstance(block := base_block(*args, **kwargs), GatheredGrid)) or block)
+    (_, inputs), = scenario_chunks(prep.plan, prep.plan.scenarios)
+    evaluate_chunk(prep.catalog, prep.plan, inputs)
+    alone = path in ONE_TABLE_PATHS
+    assert one_table and (all(one_table) and bool(gathered_base) and all(gathered_base)) == alone
+    size = chunk_size(prep.catalog)
+    assert chunk_size(prep.catalog, prep.plan.paths) == (ONE_TABLE_FACTOR * size if alone else size)
+
+
+def test_a_one_table_sweep_chunk_is_bounded_by_its_options() -> None:
+    """Larger chunks for a sweep over ONE_TABLE_PATHS alone, bounded by its options: never more than
+    OPTION_SCENARIOS option-scenarios beyond the candidates' bound, and never fewer scenarios than that bound."""
+    size = chunk_size(CATALOG)
+    assert chunk_size(CATALOG, ["overrides.rented_price_factor"]) == ONE_TABLE_FACTOR * size
+    assert chunk_size(CATALOG, ["overrides.rented_price_factor", "overrides.network_gbps"]) == size
+    assert chunk_size(CATALOG, []) == size
+    many = dataclasses.replace(CATALOG, offers=CATALOG.offers * 20)  # 20 times the offers' options
+    options = 2 * len(many.sites) + sum(bool(o.on_demand_per_accelerator_hour) + len(o.committed)
+                                        + (o.interruptible is not None) for o in many.offers)
+    assert chunk_size(many, ["campaign.work.tokens"]) == max(size, OPTION_SCENARIOS // options) == size
 
 
 def test_streams_are_keyed_by_seed_and_name() -> None:
