@@ -3,6 +3,7 @@ the chargeback curves (model.md §8-9). Vectorised over scenarios."""
 
 from collections.abc import Iterator
 from dataclasses import dataclass, fields
+from functools import cached_property
 
 import numpy as np
 
@@ -18,6 +19,7 @@ from service.domain.breakeven import (
     within_reach,
 )
 from service.domain.campaign import OwnedCostView, RankBy
+from service.domain.compiled import Kernel, reached_utilisations
 from service.domain.evaluate import CampaignEvaluation, OptionResult, SiteFigures
 from service.domain.programme import MAX_CASH_FLOW_MONTHS, programme_total
 from service.domain.recurrence import instances_by_month
@@ -110,8 +112,11 @@ class _AgainstRented:
     rented: list[OptionResult]
     listed: Floats
     conversion: Floats
-    prices: Floats
     ruled_out: Bools
+
+    @cached_property
+    def prices(self) -> Floats:
+        return np.asarray(self.listed * self.conversion)
 
 
 def _against_rented(evaluation: CampaignEvaluation) -> Iterator[_AgainstRented]:
@@ -127,8 +132,7 @@ def _against_rented(evaluation: CampaignEvaluation) -> Iterator[_AgainstRented]:
         reference = next((o for o in owned if o.term == "owned_chargeback"), owned[0])
         new_build = next((o for o in owned if o.term == "owned_new_build"), reference)
         conversion = np.stack(np.broadcast_arrays(*(work_conversion(o, reference) for o in rented)))
-        yield _AgainstRented(site_id, site, reference, new_build, rented, listed, conversion, listed * conversion,
-                             ruled_out)
+        yield _AgainstRented(site_id, site, reference, new_build, rented, listed, conversion, ruled_out)
 
 
 def breakeven_rows(evaluation: CampaignEvaluation) -> list[BreakEvenRow]:
@@ -156,19 +160,25 @@ def breakeven_rows(evaluation: CampaignEvaluation) -> list[BreakEvenRow]:
     return rows
 
 
-def breakeven_utilisations(evaluation: CampaignEvaluation) -> tuple[list[tuple[str, str, str]], list[Floats]]:
+def breakeven_utilisations(evaluation: CampaignEvaluation,
+                           kernel: Kernel | None = None) -> tuple[list[tuple[str, str, str]], list[Floats]]:
     """What a sweep reads of `breakeven_rows`: each row's (site, offer, term) and its break-even
-    utilisation (`BreakEven.utilisation`: NaN where it is out of reach or ruled out), made alone."""
+    utilisation (`BreakEven.utilisation`: NaN where it is out of reach or ruled out), made alone; by
+    the compiled `kernel` where one is given (`compiled.reached_utilisations`, the same figures)."""
     labels: list[tuple[str, str, str]] = []
     utilisations: list[Floats] = []
     for against in _against_rented(evaluation):
         site = against.site
-        u = breakeven_utilisation(
-            fixed_per_node_month=site.node.total,
-            accelerators_per_node=site.economics.site.node_type.accelerators_per_node,
-            variable_per_accelerator_hour=site.variable_per_accelerator_hour,
-            rented_per_accelerator_hour=against.prices)
-        reached = np.where(within_reach(u, against.ruled_out), u, np.nan)
+        per_node = site.economics.site.node_type.accelerators_per_node
+        if kernel is not None:
+            reached = reached_utilisations(site.node.total, per_node, site.variable_per_accelerator_hour,
+                                           against.listed, against.conversion, against.ruled_out, kernel)
+        else:
+            u = breakeven_utilisation(
+                fixed_per_node_month=site.node.total, accelerators_per_node=per_node,
+                variable_per_accelerator_hour=site.variable_per_accelerator_hour,
+                rented_per_accelerator_hour=against.prices)
+            reached = np.where(within_reach(u, against.ruled_out), u, np.nan)
         labels.extend((against.site_id, option.venue_id, option.term) for option in against.rented)
         utilisations.extend(reached)
     return labels, utilisations

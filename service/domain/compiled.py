@@ -7,6 +7,8 @@ the deadline's candidates were spread over every scenario (`step.GatheredGrid`) 
 a term may take (`choice.eligible`): about 45% of a sweep's time. Here each block of candidates is
 priced and compared in one pass, a cell at a time, a gathered block read from its table through each
 scenario's row of columns (`step.Gathered`), and nothing is written but each scenario's running least.
+A sweep's break-even utilisations (`comparison.breakeven_utilisations`: every owned site against every
+rented option, about ten whole-array passes each in numpy) are made here in one pass too.
 
 The numpy path is the reference, and the kernel is a dependency its callers pass in (`kernel()`),
 or not: a quote never does, so it never imports numba; a sweep does where importing numba (0.2 s)
@@ -14,10 +16,10 @@ and reading the kernel from numba's cache (0.1 s) pay for themselves (`usecases/
 where numba is missing, `kernel()` is None and sweeps run numpy.
 
 The kernel's formulas are those of `terms.py` (`chargeback_cost`, `new_build_share` and
-`new_build_cost`, `hourly_lines`, `committed_share` and `committed_lines`, `storage_cost`) and
-`recurrence.instances_sharing`, written for one cell, operation for operation in numpy's order and
-with numpy's rules for NaN and division by zero, so that every cost, and so every choice, is the
-same to the bit. A change to one of those formulas must be made here too:
+`new_build_cost`, `hourly_lines`, `committed_share` and `committed_lines`, `storage_cost`),
+`recurrence.instances_sharing` and `breakeven.breakeven_utilisation`, written for one cell,
+operation for operation in numpy's order and with numpy's rules for NaN and division by zero, so
+that every cost, and so every choice, is the same to the bit. A change to one of those formulas must be made here too:
 `tests/domain/test_compiled.py` compares the two on random grids and whole evaluations.
 """
 
@@ -140,12 +142,26 @@ def _reach(rows: Any, row_of: Any, table_nodes: Any, table_fits: Any, table_step
         allowed[s], meets[s] = some, met
 
 
+def _breakeven(fixed: Any, per_node_hours: float, variable: Any, listed: Any, conversion: Any, ruled_out: Any,
+               out: Any) -> None:  # pragma: no cover - runs compiled
+    """Per rented option r and scenario s, the break-even utilisation F / (A · 730 · (p − v)), p the
+    listed price × its conversion, where the margin is positive, the utilisation at most full use and
+    the option not ruled out, else NaN: `breakeven.breakeven_utilisation` and `within_reach` in one
+    pass, operation for operation."""
+    for r in range(out.shape[0]):
+        for s in range(out.shape[1]):
+            margin = listed[r, s] * conversion[r, s] - variable[s]
+            value = fixed[s] / (per_node_hours * margin)
+            out[r, s] = value if margin > 0.0 and value <= 1.0 and not ruled_out[r, s] else np.nan
+
+
 @dataclass(frozen=True)
 class Kernel:
-    """The compiled `_scan` and `_reach`."""
+    """The compiled `_scan`, `_reach` and `_breakeven`."""
 
     scan: Callable[..., None]
     reach: Callable[..., None]
+    breakeven: Callable[..., None]
 
 
 _kernel: list[Kernel | None] = []  # the kernel once tried in this process: [kernel] or [None]
@@ -172,8 +188,11 @@ def kernel() -> Kernel | None:
                               types.float64, types.float64, types.boolean, given, given, types.boolean, given,
                               types.int64, out_floats, out_ints)
             reach = types.void(columns, row_of, given, flags, given, given, given, given, given, out_flags, out_flags)
-            _kernel.append(Kernel(numba.njit([scan], cache=True, nogil=True, error_model="numpy")(_scan),
-                                  numba.njit([reach], cache=True, nogil=True, error_model="numpy")(_reach)))
+            breakeven = types.void(given, types.float64, given, floats, floats, array(types.boolean, 2),
+                                   types.Array(types.float64, 2, "C"))
+            _kernel.append(Kernel(*(numba.njit([signature], cache=True, nogil=True, error_model="numpy")(function)
+                                    for signature, function in ((scan, _scan), (reach, _reach),
+                                                                (breakeven, _breakeven)))))
         except Exception as error:  # any failure leaves the numpy path, which is always right
             _log.warning("compiled pricing unavailable, sweeps use numpy: %s", error)
             _kernel.append(None)
@@ -255,3 +274,16 @@ def least_costs(meets: Sequence[Bools | None], gathered: Sequence[Gathered | Non
         compiled.scan(form.kind, *cells, *term, offset, best, index)
         offset += width
     return best, index
+
+
+def reached_utilisations(fixed: Floats, accelerators_per_node: int, variable: Floats, listed: Floats,
+                         conversion: Floats, ruled_out: Bools, compiled: Kernel) -> Floats:
+    """Per rented option and scenario, its break-even utilisation where it is within reach, else NaN
+    ((R, S)), as `comparison.breakeven_utilisations` finds it in numpy, with the kernel `compiled`."""
+    shape = np.broadcast_shapes(np.shape(listed), np.shape(conversion), np.shape(ruled_out),
+                                (1, np.size(fixed)), (1, np.size(variable)))
+    out = np.empty(shape)
+    compiled.breakeven(_along(fixed, shape[1]), float(accelerators_per_node) * HOURS_PER_MONTH,
+                       _along(variable, shape[1]), np.broadcast_to(as_floats(listed), shape),
+                       np.broadcast_to(as_floats(conversion), shape), np.broadcast_to(ruled_out, shape), out)
+    return out

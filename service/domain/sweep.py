@@ -112,7 +112,7 @@ def evaluate_chunk(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Float
                                           for o in options]), np.nan)
     owned = np.array([o.venue_kind == "owned" for o in options])
     best = np.where(feasible, totals, np.inf)
-    labels, utilisations = breakeven_utilisations(evaluation)
+    labels, utilisations = breakeven_utilisations(evaluation, kernel)
     return ChunkResult(
         inputs=dict(inputs),
         labels=[o.label for o in options],

@@ -22,6 +22,7 @@ import pytest
 from service.contract.catalog import CatalogIn
 from service.contract.sweep import SweepIn
 from service.domain import compiled, layout
+from service.domain.breakeven import breakeven_utilisation, within_reach
 from service.domain.campaign import Campaign, DataPlan, FlopsWork, QuoteOptions, Recurrence
 from service.domain.charges import (
     Charges,
@@ -171,6 +172,33 @@ def test_the_compiled_scan_picks_the_column_numpy_picks_from_the_terms_costs(see
     np.testing.assert_array_equal(least, np.concatenate(costs, axis=1)[np.arange(ROWS), expected])
 
 
+@pytest.mark.parametrize("seed", range(8))
+def test_the_compiled_break_even_utilisations_are_numpys_to_the_bit(seed: int) -> None:
+    """`compiled.reached_utilisations` against `breakeven_utilisation` and `within_reach` in numpy:
+    every figure the same to the bit, with margins zero, negative, tiny and NaN, utilisations beyond
+    full use, options ruled out, and a site's figures one for all or one per scenario."""
+    rng = np.random.default_rng(seed)
+    rows, scenarios = int(rng.integers(1, 12)), int(rng.integers(1, 300))
+    fixed = rng.uniform(50.0, 5e3, scenarios) if rng.random() < 0.5 else np.asarray(rng.uniform(50.0, 5e3))
+    variable = rng.uniform(0.05, 1.5, scenarios)
+    listed = rng.uniform(0.0, 6.0, (rows, scenarios))
+    conversion = np.broadcast_to(rng.uniform(0.5, 2.0, (rows, 1)), (rows, scenarios)).copy()
+    listed[rng.random(listed.shape) < 0.05] = np.nan
+    edges = rng.random(listed.shape) < 0.1  # a margin of exactly zero, or the least positive one
+    listed[edges] = (variable[np.newaxis, :] / conversion)[edges]
+    conversion[rng.random(conversion.shape) < 0.03] = np.nextafter(0.0, 1.0)
+    ruled_out = rng.random((rows, scenarios)) < 0.2
+    per_node = int(rng.choice([1, 4, 6, 12]))
+    with np.errstate(all="ignore"):
+        u = breakeven_utilisation(fixed_per_node_month=fixed, accelerators_per_node=per_node,
+                                  variable_per_accelerator_hour=variable,
+                                  rented_per_accelerator_hour=listed * conversion)
+        expected = np.where(within_reach(u, ruled_out), u, np.nan)
+    ours = compiled.reached_utilisations(fixed, per_node, variable, listed, conversion, ruled_out, KERNEL)
+    np.testing.assert_array_equal(ours, expected)
+    assert np.isfinite(ours).any() and np.isnan(ours).any()
+
+
 def test_a_gathered_block_gives_the_chosen_cells_as_its_spread_figures_would() -> None:
     """`cells` reads a chosen layout's wall clock and accelerator-hours straight from the table, as
     `wall_figures` makes them for the whole block, so a sweep never spreads them; for any of the
@@ -273,7 +301,7 @@ def test_an_evaluation_is_identical_compiled_or_in_numpy_on_random_catalogs(
             calls.append(name)
             function(*args)
         return call
-    kernel = compiled.Kernel(counted("scan", KERNEL.scan), counted("reach", KERNEL.reach))
+    kernel = compiled.Kernel(counted("scan", KERNEL.scan), counted("reach", KERNEL.reach), KERNEL.breakeven)
     ours, reference = evaluate_twice(seed, recurring=recurring, vary_step=seed % 2 == 1, kernel=kernel)
     assert calls.count("scan") >= len(ours.options)  # a block or more per term
     assert "reach" in calls or seed % 2 == 1  # a deadline's gathered block, where the step is shared
