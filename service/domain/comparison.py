@@ -160,27 +160,30 @@ def breakeven_rows(evaluation: CampaignEvaluation) -> list[BreakEvenRow]:
     return rows
 
 
-def breakeven_utilisations(evaluation: CampaignEvaluation,
-                           kernel: Kernel | None = None) -> tuple[list[tuple[str, str, str]], list[Floats]]:
+def breakeven_utilisations(evaluation: CampaignEvaluation, scenarios: int,
+                           kernel: Kernel | None = None) -> tuple[list[tuple[str, str, str]], Floats]:
     """What a sweep reads of `breakeven_rows`: each row's (site, offer, term) and its break-even
-    utilisation (`BreakEven.utilisation`: NaN where it is out of reach or ruled out), made alone; by
-    the compiled `kernel` where one is given (`compiled.reached_utilisations`, the same figures)."""
-    labels: list[tuple[str, str, str]] = []
-    utilisations: list[Floats] = []
-    for against in _against_rented(evaluation):
-        site = against.site
+    utilisation over the `scenarios` (`BreakEven.utilisation`: NaN where it is out of reach or ruled
+    out), made alone into one (rows, S) array; by the compiled `kernel` where one is given
+    (`compiled.reached_utilisations`, the same figures, written in place)."""
+    against_each = list(_against_rented(evaluation))
+    labels = [(against.site_id, option.venue_id, option.term) for against in against_each
+              for option in against.rented]
+    utilisations = np.empty((len(labels), scenarios))
+    row = 0
+    for against in against_each:
+        site, block = against.site, utilisations[row:row + len(against.rented)]
+        row += len(against.rented)
         per_node = site.economics.site.node_type.accelerators_per_node
         if kernel is not None:
-            reached = reached_utilisations(site.node.total, per_node, site.variable_per_accelerator_hour,
-                                           against.listed, against.conversion, against.ruled_out, kernel)
-        else:
-            u = breakeven_utilisation(
-                fixed_per_node_month=site.node.total, accelerators_per_node=per_node,
-                variable_per_accelerator_hour=site.variable_per_accelerator_hour,
-                rented_per_accelerator_hour=against.prices)
-            reached = np.where(within_reach(u, against.ruled_out), u, np.nan)
-        labels.extend((against.site_id, option.venue_id, option.term) for option in against.rented)
-        utilisations.extend(reached)
+            reached_utilisations(site.node.total, per_node, site.variable_per_accelerator_hour, against.listed,
+                                 against.conversion, against.ruled_out, kernel, out=block)
+            continue
+        u = breakeven_utilisation(
+            fixed_per_node_month=site.node.total, accelerators_per_node=per_node,
+            variable_per_accelerator_hour=site.variable_per_accelerator_hour,
+            rented_per_accelerator_hour=against.prices)
+        block[...] = np.where(within_reach(u, against.ruled_out), u, np.nan)
     return labels, utilisations
 
 

@@ -277,12 +277,14 @@ def least_costs(meets: Sequence[Bools | None], gathered: Sequence[Gathered | Non
 
 
 def reached_utilisations(fixed: Floats, accelerators_per_node: int, variable: Floats, listed: Floats,
-                         conversion: Floats, ruled_out: Bools, compiled: Kernel) -> Floats:
+                         conversion: Floats, ruled_out: Bools, compiled: Kernel, *,
+                         out: Floats | None = None) -> Floats:
     """Per rented option and scenario, its break-even utilisation where it is within reach, else NaN
-    ((R, S)), as `comparison.breakeven_utilisations` finds it in numpy, with the kernel `compiled`."""
+    ((R, S), written into `out` where given), as `comparison.breakeven_utilisations` finds it in numpy,
+    with the kernel `compiled`."""
     shape = np.broadcast_shapes(np.shape(listed), np.shape(conversion), np.shape(ruled_out),
-                                (1, np.size(fixed)), (1, np.size(variable)))
-    out = np.empty(shape)
+                                (1, np.size(fixed)), (1, np.size(variable)), () if out is None else out.shape)
+    out = np.empty(shape) if out is None else out
     compiled.breakeven(_along(fixed, shape[1]), float(accelerators_per_node) * HOURS_PER_MONTH,
                        _along(variable, shape[1]), np.broadcast_to(as_floats(listed), shape),
                        np.broadcast_to(as_floats(conversion), shape), np.broadcast_to(ruled_out, shape), out)

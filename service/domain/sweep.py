@@ -112,7 +112,7 @@ def evaluate_chunk(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Float
                                           for o in options]), np.nan)
     owned = np.array([o.venue_kind == "owned" for o in options])
     best = np.where(feasible, totals, np.inf)
-    labels, utilisations = breakeven_utilisations(evaluation, kernel)
+    labels, utilisations = breakeven_utilisations(evaluation, size, kernel)
     return ChunkResult(
         inputs=dict(inputs),
         labels=[o.label for o in options],
@@ -122,8 +122,7 @@ def evaluate_chunk(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Float
         owned_best=best[owned].min(axis=0) if owned.any() else np.full(size, np.inf),
         rented_best=best[~owned].min(axis=0) if (~owned).any() else np.full(size, np.inf),
         breakeven_labels=labels,
-        breakeven_utilisation=(np.stack([np.broadcast_to(u, (size,)) for u in utilisations])
-                               if utilisations else np.zeros((0, size))),
+        breakeven_utilisation=utilisations,
     )
 
 

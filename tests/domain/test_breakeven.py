@@ -160,10 +160,9 @@ def test_a_sweep_reads_the_break_even_utilisations_the_rows_give():
     scenarios = 40
     evaluation = evaluate_example("owned-wins", Overrides(rented_price_factor=np.linspace(0.05, 3.0, scenarios),
                                                           electricity_price_per_kwh=np.linspace(0.02, 0.9, scenarios)))
-    labels, utilisations = breakeven_utilisations(evaluation)
+    labels, every = breakeven_utilisations(evaluation, scenarios)
     rows = breakeven_rows(evaluation)
     assert labels == [(r.site, r.offer, r.term) for r in rows]
-    every = np.stack([np.broadcast_to(u, (scenarios,)) for u in utilisations])
     np.testing.assert_array_equal(every, np.stack([np.broadcast_to(r.figures.utilisation, (scenarios,)) for r in rows]))
     assert np.isfinite(every).any() and np.isnan(every).any()
 
