@@ -128,15 +128,16 @@ def _scan(kind: int, meets: Any, nodes: Any, accelerator_hours: Any, wall_second
 def _reach(rows: Any, row_of: Any, table_nodes: Any, table_fits: Any, table_step: Any, steps: Any, staging: Any,
            limit: Any, deadline: Any, allowed: Any, meets: Any) -> None:  # pragma: no cover - runs compiled
     """Per scenario of a gathered block, whether some candidate fits within the node limit, and
-    whether some also meets the deadline (`choice.eligible`'s any of each, nothing spread)."""
+    whether some also meets the deadline (`choice.eligible`'s any of each, nothing spread). The
+    candidates are read from the last: a shape's counts ascend, so one that meets comes sooner."""
     for s in range(allowed.shape[0]):
-        r = row_of[s]
+        r, limit_s, deadline_s, steps_s, staging_s = row_of[s], limit[s], deadline[s], steps[s], staging[s]
         some = met = False
-        for k in range(rows.shape[1]):
+        for k in range(rows.shape[1] - 1, -1, -1):
             c = rows[r, k]
-            if table_fits[c] and table_nodes[c] <= limit[s]:
+            if table_fits[c] and table_nodes[c] <= limit_s:
                 some = True
-                if steps[s] * table_step[c] + staging[s] <= deadline[s]:
+                if steps_s * table_step[c] + staging_s <= deadline_s:
                     met = True
                     break
         allowed[s], meets[s] = some, met
