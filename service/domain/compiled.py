@@ -212,8 +212,17 @@ _NO_MASK = np.zeros((1, 1), dtype=bool)
 
 
 def _along(value: Any, rows: int) -> Any:
-    """A per-scenario figure ((S, 1), (S,), (1, 1), a scalar or None) as an (rows,) view."""
-    return np.broadcast_to(_NONE[0] if value is None else as_floats(value).reshape(-1), (rows,))
+    """A per-scenario figure ((S, 1), (S,), (1, 1), a scalar or None) as an (rows,) array: itself where
+    it has one value per scenario, else a view repeating its one value (made directly: a sweep makes
+    about a thousand of these a chunk, and np.broadcast_to costs four times as much)."""
+    array = np.ascontiguousarray(_NONE[0] if value is None else as_floats(value).reshape(-1))
+    if array.shape[0] == rows:
+        return array
+    if array.shape[0] != 1:
+        raise ValueError(f"{array.shape[0]} values for {rows} scenarios")
+    repeated = np.ndarray((rows,), dtype=array.dtype, buffer=array, strides=(0,))
+    repeated.flags.writeable = False  # one value shared by every scenario
+    return repeated
 
 
 def _scenarios(block: Gathered, limit: Floats, deadline: Floats) -> int:
