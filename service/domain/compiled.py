@@ -62,67 +62,72 @@ class CostForm:
                 NEW_BUILD: ("nodes", "wall_seconds", "accelerator_hours")}[self.kind]
 
 
-def _scan(kind: int, meets: Any, nodes: Any, accelerator_hours: Any, wall_seconds: Any, gathered: bool, rows: Any,
-          row_of: Any, table_nodes: Any, table_accelerators: Any, table_fits: Any, table_step: Any, steps: Any,
-          staging: Any, limit: Any, deadline: Any, rate: Any, fixed: Any, months: float, fee_per_node: float,
-          recurring: bool, every: Any, total: Any, stored: bool, storage: Any, offset: int, best: Any,
-          index: Any) -> None:  # pragma: no cover - runs compiled
-    """One block's candidates priced and compared with the running least of each scenario
-    (`best`, `index`, over the blocks before it): np.argmin's rules, the first of equals, a NaN as
-    the least (the first NaN is kept), a candidate that does not meet the deadline as inf. A block's
-    figures are (S, K) arrays with `meets`, or for a `gathered` block its table's, at the columns
-    `rows[row_of[s]]`, with which ones a term may take and their wall clock made here as
-    `choice.eligible` and `step.wall_figures` make them."""
-    width = rows.shape[1] if gathered else meets.shape[1]
-    timed = stored or kind == COMMITTED or kind == NEW_BUILD  # the cost reads the wall clock
-    for s in range(best.shape[0]):
-        least, at = best[s], index[s]
-        if least != least:
-            continue
-        # The scenario's figures read once, not per cell (numba cannot hoist them past the writes).
-        limit_s, deadline_s, rate_s, fixed_s, storage_s = limit[s], deadline[s], rate[s], fixed[s], storage[s]
-        every_s, total_s, steps_s, staging_s, r = every[s], total[s], steps[s], staging[s], row_of[s]
-        for k in range(width):
-            if gathered:
-                c = rows[r, k]
-                if not (table_fits[c] and table_nodes[c] <= limit_s):
-                    continue
-                seconds = steps_s * table_step[c] + staging_s
-                if not seconds <= deadline_s:
-                    continue
-                count = table_nodes[c]
-                used = seconds * (table_accelerators[c] / SECONDS_PER_HOUR)
-            else:
-                if not meets[s, k]:
-                    continue
-                seconds, count, used = wall_seconds[s, k], nodes[s, k], accelerator_hours[s, k]
-            hours = seconds / SECONDS_PER_HOUR if timed else 0.0
-            window = terms = 0.0
-            if kind == COMMITTED:  # committed_share: max(1, ⌈hours / term hours⌉) terms
-                terms = hours / (months * HOURS_PER_MONTH)
-                terms -= 1e-9
-                terms = np.maximum(np.ceil(terms), 1.0)
-                window = terms * months
-            elif kind == NEW_BUILD:  # new_build_share: carried for the life, or the campaign if longer
-                window = np.maximum(months, hours / HOURS_PER_MONTH)
-            sharing = 1.0
-            if recurring:  # recurrence.instances_sharing
-                by_calendar = np.floor(window / every_s + 1e-9)
-                by_capacity = np.floor(window * HOURS_PER_MONTH / hours + 1e-9)
-                sharing = np.maximum(1.0, np.minimum(np.minimum(by_calendar, by_capacity), total_s))
-            if kind == COMMITTED:  # committed_lines
-                value = count * fee_per_node * terms * (rate_s / sharing)
-            elif kind == NEW_BUILD:  # new_build_cost
-                value = count * window / sharing * fixed_s + used * rate_s
-            else:  # hourly_lines, chargeback_cost
-                value = used * rate_s
-            if stored:  # storage_cost
-                value = value + storage_s * hours
-            if not value >= least:  # less, or NaN (one comparison for both, on the common path)
-                least, at = value, offset + k
-                if value != value:
-                    break
-        best[s], index[s] = least, at
+def _scan_of(kind: int, gathered: bool, recurring: bool, stored: bool) -> Callable[..., None]:
+    """The scan of one kind of term over one form of block, for a campaign that recurs or not, at a
+    venue that charges for storage or not: these four are the compiler's constants, so it drops every
+    branch they decide (a third less time than one scan deciding them at every cell). `kernel()`
+    compiles each the first time a sweep needs it."""
+    def scan(meets: Any, nodes: Any, accelerator_hours: Any, wall_seconds: Any, rows: Any, row_of: Any,
+             table_nodes: Any, table_accelerators: Any, table_fits: Any, table_step: Any, steps: Any, staging: Any,
+             limit: Any, deadline: Any, rate: Any, fixed: Any, months: float, fee_per_node: float, every: Any,
+             total: Any, storage: Any, offset: int, best: Any, index: Any) -> None:  # pragma: no cover - compiled
+        """One block's candidates priced and compared with the running least of each scenario
+        (`best`, `index`, over the blocks before it): np.argmin's rules, the first of equals, a NaN as
+        the least (the first NaN is kept), a candidate that does not meet the deadline as inf. A block's
+        figures are (S, K) arrays with `meets`, or for a `gathered` block its table's, at the columns
+        `rows[row_of[s]]`, with which ones a term may take and their wall clock made here as
+        `choice.eligible` and `step.wall_figures` make them."""
+        width = rows.shape[1] if gathered else meets.shape[1]
+        timed = stored or kind == COMMITTED or kind == NEW_BUILD  # the cost reads the wall clock
+        for s in range(best.shape[0]):
+            least, at = best[s], index[s]
+            if least != least:
+                continue
+            # The scenario's figures read once, not per cell (numba cannot hoist them past the writes).
+            limit_s, deadline_s, rate_s, fixed_s, storage_s = limit[s], deadline[s], rate[s], fixed[s], storage[s]
+            every_s, total_s, steps_s, staging_s, r = every[s], total[s], steps[s], staging[s], row_of[s]
+            for k in range(width):
+                if gathered:
+                    c = rows[r, k]
+                    if not (table_fits[c] and table_nodes[c] <= limit_s):
+                        continue
+                    seconds = steps_s * table_step[c] + staging_s
+                    if not seconds <= deadline_s:
+                        continue
+                    count = table_nodes[c]
+                    used = seconds * (table_accelerators[c] / SECONDS_PER_HOUR)
+                else:
+                    if not meets[s, k]:
+                        continue
+                    seconds, count, used = wall_seconds[s, k], nodes[s, k], accelerator_hours[s, k]
+                hours = seconds / SECONDS_PER_HOUR if timed else 0.0
+                window = terms = 0.0
+                if kind == COMMITTED:  # committed_share: max(1, ⌈hours / term hours⌉) terms
+                    terms = hours / (months * HOURS_PER_MONTH)
+                    terms -= 1e-9
+                    terms = np.maximum(np.ceil(terms), 1.0)
+                    window = terms * months
+                elif kind == NEW_BUILD:  # new_build_share: carried for the life, or the campaign if longer
+                    window = np.maximum(months, hours / HOURS_PER_MONTH)
+                sharing = 1.0
+                if recurring:  # recurrence.instances_sharing
+                    by_calendar = np.floor(window / every_s + 1e-9)
+                    by_capacity = np.floor(window * HOURS_PER_MONTH / hours + 1e-9)
+                    sharing = np.maximum(1.0, np.minimum(np.minimum(by_calendar, by_capacity), total_s))
+                if kind == COMMITTED:  # committed_lines
+                    value = count * fee_per_node * terms * (rate_s / sharing)
+                elif kind == NEW_BUILD:  # new_build_cost
+                    value = count * window / sharing * fixed_s + used * rate_s
+                else:  # hourly_lines, chargeback_cost
+                    value = used * rate_s
+                if stored:  # storage_cost
+                    value = value + storage_s * hours
+                if not value >= least:  # less, or NaN (one comparison for both, on the common path)
+                    least, at = value, offset + k
+                    if value != value:
+                        break
+            best[s], index[s] = least, at
+    return scan
 
 
 def _reach(rows: Any, row_of: Any, table_nodes: Any, table_fits: Any, table_step: Any, steps: Any, staging: Any,
@@ -158,7 +163,9 @@ def _breakeven(fixed: Any, per_node_hours: float, variable: Any, listed: Any, co
 
 @dataclass(frozen=True)
 class Kernel:
-    """The compiled `_scan`, `_reach` and `_breakeven`."""
+    """The compiled scans (`_scan_of`: called with the kind of term, whether the block is gathered,
+    the campaign recurs and the venue stores data, then the scan's own arguments), `_reach` and
+    `_breakeven`."""
 
     scan: Callable[..., None]
     reach: Callable[..., None]
@@ -184,16 +191,23 @@ def kernel() -> Kernel | None:
             out_flags = types.Array(types.boolean, 1, "C")
             # One signature each, compiled once (or read from numba's cache beside this file): any layout
             # of the arrays converts to it, where letting numba type each call compiles one per layout.
-            scan = types.void(types.int64, array(types.boolean, 2), floats, floats, floats, types.boolean, columns,
-                              row_of, given, given, flags, given, given, given, given, given, given, given,
-                              types.float64, types.float64, types.boolean, given, given, types.boolean, given,
-                              types.int64, out_floats, out_ints)
+            scan_signature = types.void(array(types.boolean, 2), floats, floats, floats, columns, row_of, given,
+                                        given, flags, given, given, given, given, given, given, given, types.float64,
+                                        types.float64, given, given, given, types.int64, out_floats, out_ints)
             reach = types.void(columns, row_of, given, flags, given, given, given, given, given, out_flags, out_flags)
             breakeven = types.void(given, types.float64, given, floats, floats, array(types.boolean, 2),
                                    types.Array(types.float64, 2, "C"))
-            _kernel.append(Kernel(*(numba.njit([signature], cache=True, nogil=True, error_model="numpy")(function)
-                                    for signature, function in ((scan, _scan), (reach, _reach),
-                                                                (breakeven, _breakeven)))))
+
+            def compiled(signature: Any, function: Callable[..., None]) -> Callable[..., None]:
+                return numba.njit([signature], cache=True, nogil=True, error_model="numpy")(function)
+            scans: dict[tuple[int, bool, bool, bool], Callable[..., None]] = {}
+
+            def scan(kind: int, gathered: bool, recurring: bool, stored: bool, *arguments: Any) -> None:
+                key = (int(kind), bool(gathered), bool(recurring), bool(stored))
+                if key not in scans:  # compiled, or read from numba's cache, the first time it is needed
+                    scans[key] = compiled(scan_signature, _scan_of(*key))
+                scans[key](*arguments)
+            _kernel.append(Kernel(scan, compiled(reach, _reach), compiled(breakeven, _breakeven)))
         except Exception as error:  # any failure leaves the numpy path, which is always right
             _log.warning("compiled pricing unavailable, sweeps use numpy: %s", error)
             _kernel.append(None)
@@ -265,23 +279,24 @@ def least_costs(meets: Sequence[Bools | None], gathered: Sequence[Gathered | Non
                + [np.size(value) for value in per_scenario])
     best, index = np.full(rows, np.inf), np.zeros(rows, dtype=np.int64)
     term = (_along(limit, rows), _along(deadline, rows), _along(form.rate, rows), _along(form.fixed, rows),
-            float(form.months), float(form.fee_per_node), every is not None, _along(every, rows), _along(total, rows),
-            form.storage is not None, _along(form.storage, rows))  # the term's figures, the same for every block
+            float(form.months), float(form.fee_per_node), _along(every, rows), _along(total, rows),
+            _along(form.storage, rows))  # the term's figures, the same for every block
     offset = 0
     for mask, block, width, at in zip(meets, figures, widths, gathered, strict=True):
         def grid(value: Any) -> Any:
             return np.broadcast_to(value, (rows, width))  # noqa: B023 - used at once
         if mask is None:
             assert at is not None
-            cells = (_NO_MASK, _NONE, _NONE, _NONE, True, at.rows, np.broadcast_to(at.row_of, (rows,)), at.nodes,
+            cells = (_NO_MASK, _NONE, _NONE, _NONE, at.rows, np.broadcast_to(at.row_of, (rows,)), at.nodes,
                      at.accelerators, at.fits, at.effective_step_seconds, _along(at.steps, rows),
                      _along(at.staging, rows))
         else:
             figure_names = ("nodes", "accelerator_hours", "wall_seconds")
             cells = (grid(np.asarray(mask, dtype=bool)), *(grid(block.get(name, _NONE)) for name in figure_names),
-                     False, _NO_COLUMNS, np.broadcast_to(_NO_COLUMNS[0], (rows,)), _NONE[0], _NONE[0], _NO_FLAGS,
+                     _NO_COLUMNS, np.broadcast_to(_NO_COLUMNS[0], (rows,)), _NONE[0], _NONE[0], _NO_FLAGS,
                      _NONE[0], _along(None, rows), _along(None, rows))
-        compiled.scan(form.kind, *cells, *term, offset, best, index)
+        compiled.scan(form.kind, mask is None, every is not None, form.storage is not None, *cells, *term, offset,
+                      best, index)
         offset += width
     return best, index
 
