@@ -19,8 +19,9 @@ The kernel's formulas are those of `terms.py` (`chargeback_cost`, `new_build_sha
 `new_build_cost`, `hourly_lines`, `committed_share` and `committed_lines`, `storage_cost`),
 `recurrence.instances_sharing` and `breakeven.breakeven_utilisation`, written for one cell,
 operation for operation in numpy's order and with numpy's rules for NaN and division by zero, so
-that every cost, and so every choice, is the same to the bit. A change to one of those formulas must be made here too:
-`tests/domain/test_compiled.py` compares the two on random grids and whole evaluations.
+that every cost, and so every choice, is the same to the bit. A change to one of those formulas must
+be made here too: `tests/domain/test_compiled.py` compares the two on random grids and whole
+evaluations.
 """
 
 import logging
@@ -189,8 +190,9 @@ def kernel() -> Kernel | None:
             columns, row_of = array(types.int64, 2), array(types.int64, 1)
             out_floats, out_ints = types.Array(types.float64, 1, "C"), types.Array(types.int64, 1, "C")
             out_flags = types.Array(types.boolean, 1, "C")
-            # One signature each, compiled once (or read from numba's cache beside this file): any layout
-            # of the arrays converts to it, where letting numba type each call compiles one per layout.
+            # One signature each, compiled once (or read from numba's cache beside this file), the scan
+            # once per variant the first time it is needed: any layout of the arrays converts to it, where
+            # letting numba type each call compiles one per layout.
             scan_signature = types.void(array(types.boolean, 2), floats, floats, floats, columns, row_of, given,
                                         given, flags, given, given, given, given, given, given, given, types.float64,
                                         types.float64, given, given, given, types.int64, out_floats, out_ints)
