@@ -234,36 +234,40 @@ def csv_chunks(prepared: PreparedSweep, progress: Progress | None = None, proces
     formatted by numpy as whole arrays; no Python loop runs per scenario. The cautions are the last
     column of the first row (empty below it, which keeps millions of rows small): a spreadsheet shows
     them at the top, and a reader that takes the first row as the header reads every row."""
-    digits = Money(prepared.currency).digits
     first = 0
     for chunk in _chunks(prepared, processes):
-        labels = np.asarray([*chunk.labels, ""], dtype=object)
         for start in range(0, chunk.size, CSV_ROWS):
             part = slice(start, min(start + CSV_ROWS, chunk.size))
-            head = ""
-            if first == 0:
-                buffer = io.StringIO()
-                csv.writer(buffer, lineterminator="\r\n").writerow(csv_header(prepared, chunk.labels))
-                head = buffer.getvalue()
-            picked = chunk.cheapest[part]
-            size = picked.size
-            columns = [np.arange(first, first + size).astype(str)]
-            columns += [_decimals(chunk.inputs[p][part]) for p in prepared.plan.paths]
-            columns += [labels[np.where(picked >= 0, picked, len(chunk.labels))].astype(str),
-                        np.full(size, prepared.currency)]
-            columns += [_decimals(np.round(totals[part], digits)) for totals in chunk.totals]
-            lines = columns[0]
-            for column in columns[1:]:
-                lines = np.char.add(np.char.add(lines, ","), column)
-            # The cautions column: empty, and the cautions written onto the first row alone (an array as
-            # wide as them for every row cost a chunk of 25,000 rows over 100 MB).
-            rows = np.char.add(lines, ",").tolist()
-            if first == 0:
-                rows[0] += CSV_CAUTIONS
-            first += size
-            yield head + "\r\n".join(rows) + "\r\n"
+            yield _csv_rows(prepared, chunk, part, first)
+            first += part.stop - part.start
         if progress is not None:
             progress(first, prepared.plan.scenarios)
+
+
+def _csv_rows(prepared: PreparedSweep, chunk: ChunkResult, part: slice, first: int) -> str:
+    """The rows `part` of a chunk as CSV, numbered from `first`; the header and the cautions with row 0."""
+    head = ""
+    if first == 0:
+        buffer = io.StringIO()
+        csv.writer(buffer, lineterminator="\r\n").writerow(csv_header(prepared, chunk.labels))
+        head = buffer.getvalue()
+    picked = chunk.cheapest[part]
+    labels = np.asarray([*chunk.labels, ""], dtype=object)
+    columns = [np.arange(first, first + picked.size).astype(str)]
+    columns += [_decimals(chunk.inputs[p][part]) for p in prepared.plan.paths]
+    columns += [labels[np.where(picked >= 0, picked, len(chunk.labels))].astype(str),
+                np.full(picked.size, prepared.currency)]
+    digits = Money(prepared.currency).digits
+    columns += [_decimals(np.round(totals[part], digits)) for totals in chunk.totals]
+    lines = columns[0]
+    for column in columns[1:]:
+        lines = np.char.add(np.char.add(lines, ","), column)
+    # The cautions column: empty, and the cautions written onto the first row alone (an array as wide as
+    # them for every row cost a chunk of 25,000 rows over 100 MB).
+    rows = np.char.add(lines, ",").tolist()
+    if first == 0:
+        rows[0] += CSV_CAUTIONS
+    return head + "\r\n".join(rows) + "\r\n"
 
 
 def _decimals(values: np.ndarray) -> np.ndarray:
