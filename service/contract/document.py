@@ -195,9 +195,11 @@ def _option(o: OptionResult, position: int, i: int, catalog: Catalog, evaluation
             "lines": _lines(o, i, catalog, evaluation, money),
         },
         "cash_flow": [
-            {"year": year + 1, "capital": money(yearly.capital[i, year]), "operating": money(yearly.operating[i, year]),
-             "rent": money(yearly.rent[i, year]), "total": money(yearly.total[i, year]), "currency": money.currency}
-            for year in range(yearly.capital.shape[-1])],
+            {"year": year + 1, "capital": money(capital), "operating": money(operating), "rent": money(rent),
+             "total": money(total), "currency": money.currency}
+            for year, (capital, operating, rent, total) in enumerate(zip(
+                yearly.capital[i].tolist(), yearly.operating[i].tolist(), yearly.rent[i].tolist(),
+                yearly.total[i].tolist(), strict=True))],
         "term_figures": details,
         **({"parts": [_part(p, runs, i, money) for p, runs in
                       zip(o.parts, (o.details["owned_runs"][i], o.details["rented_runs"][i]), strict=True)]}

@@ -18,10 +18,17 @@ def as_floats(value: ArrayLike) -> Floats:
 
 
 def broadcast(value: ArrayLike, shape: tuple[int, ...]) -> Any:
-    """`value` as a read-only array of `shape`; as it is when it has that shape already (a quote
-    makes thousands of these, so the common case skips numpy's broadcasting machinery)."""
+    """`value` as a read-only array of `shape`; as it is when it has that shape already, and one value
+    repeated by a view made directly (a quote makes hundreds of these, and numpy's broadcasting
+    machinery costs twice as much as the view)."""
     array = np.asarray(value)
-    return array if array.shape == shape else np.broadcast_to(array, shape)
+    if array.shape == shape:
+        return array
+    if array.size == 1 and not array.dtype.hasobject:
+        repeated = np.ndarray(shape, dtype=array.dtype, buffer=np.ascontiguousarray(array), strides=(0,) * len(shape))
+        repeated.flags.writeable = False  # one value shared by every element
+        return repeated
+    return np.broadcast_to(array, shape)
 
 
 def longest_axis(value: Any) -> int:

@@ -4,7 +4,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Bools, Floats, as_floats
+from service.domain.arrays import ArrayLike, Bools, Floats, as_floats, broadcast
 from service.domain.finance import discounted_payback, monthly_rate
 from service.domain.owning import chargeback_per_accelerator_hour
 from service.domain.units import HOURS_PER_MONTH, HOURS_PER_YEAR
@@ -74,7 +74,7 @@ def break_even(
         utilisation_unbounded=np.where(out, np.nan, u),
         accelerator_hours_per_year=hours,
         campaigns_per_year=hours / as_floats(campaign_accelerator_hours),
-        ruled_out=np.broadcast_to(out, np.shape(u)),
+        ruled_out=broadcast(out, np.shape(u)),
     )
 
 

@@ -7,7 +7,7 @@ from functools import cached_property
 
 import numpy as np
 
-from service.domain.arrays import Bools, Floats, Ints
+from service.domain.arrays import Bools, Floats, Ints, broadcast
 from service.domain.breakeven import (
     CURVE_UTILISATIONS,
     BreakEven,
@@ -61,10 +61,15 @@ def rank(evaluation: CampaignEvaluation, i: int, rank_by: RankBy, view: OwnedCos
     options = evaluation.options
 
     def key(k: int) -> tuple[bool, float, float, float]:
-        first, second, third = (float(np.broadcast_to(v, np.shape(options[k].total))[i])
-                                for v in ranking_keys(options[k], evaluation, rank_by, view))
+        first, second, third = (_at(v, i) for v in ranking_keys(options[k], evaluation, rank_by, view))
         return (not bool(options[k].feasible[i]), first, second, third)
     return sorted(range(len(options)), key=key)
+
+
+def _at(values: Floats, i: int) -> float:
+    """Scenario i of a figure that is one value for every scenario or one per scenario."""
+    array = np.asarray(values)
+    return float(array.item(i if array.size > 1 else 0))
 
 
 def listed_rented_price(option: OptionResult) -> Floats:
@@ -149,7 +154,7 @@ def breakeven_rows(evaluation: CampaignEvaluation) -> list[BreakEvenRow]:
             fleet_nodes=fleet, campaign_accelerator_hours=against.reference.layout.accelerator_hours,
             ruled_out=against.ruled_out)
         paid = _payback(evaluation, against.site_id, new_build, prices)
-        stacked = {f.name: np.broadcast_to(getattr(figures, f.name), prices.shape) for f in fields(figures)}
+        stacked = {f.name: broadcast(getattr(figures, f.name), prices.shape) for f in fields(figures)}
         paid_by = {f.name: getattr(paid, f.name) for f in fields(paid)}
         for r, option in enumerate(against.rented):
             rows.append(BreakEvenRow(
@@ -203,7 +208,7 @@ def _payback(evaluation: CampaignEvaluation, site_id: str, new_build: OptionResu
         rented_per_accelerator_hour=prices, variable_per_accelerator_hour=site.variable_per_accelerator_hour,
         cost_of_capital_annual=site.economics.cost_of_capital_annual)
     shape = prices.shape
-    return Payback(**{f.name: np.broadcast_to(getattr(figures, f.name), shape) for f in fields(figures)})
+    return Payback(**{f.name: broadcast(getattr(figures, f.name), shape) for f in fields(figures)})
 
 
 def curves(evaluation: CampaignEvaluation) -> dict[str, Floats]:

@@ -188,16 +188,25 @@ class _Pieces:
         # The pieces' first cells, as keys in order; of equal keys the last is the piece that holds the
         # cell (an empty piece starts where the next one does).
         key = self.shape * allowances + self.start
-        edges = [self.start] + [part for shape, position, _ in self.cells for part in (position, position + 1)]
-        at = np.unique(np.concatenate(edges))
-        at = at[at < allowances]  # where some shape's column may change, from position 0 on
+        if allowances == 1:  # one allowance (a quote): one row, read at position 0
+            at = _POSITION_ZERO
+        else:
+            edges = [self.start] + [part for shape, position, _ in self.cells for part in (position, position + 1)]
+            at = np.unique(np.concatenate(edges))
+            at = at[at < allowances]  # where some shape's column may change, from position 0 on
         table = self.column[np.searchsorted(key, np.arange(shapes)[:, np.newaxis] * allowances + at,
                                             side="right") - 1]
         for shape, position, value in self.cells:
             table[shape, np.searchsorted(at, position)] = value
+        if allowances == 1:
+            return table.T, _POSITION_ZERO
         new = np.concatenate([[True], (table[:, 1:] != table[:, :-1]).any(axis=0)])
         firsts = at[new]
         return table[:, new].T, np.repeat(np.arange(firsts.size), np.diff(firsts, append=allowances))
+
+
+_POSITION_ZERO = np.zeros(1, dtype=np.int64)
+_POSITION_ZERO.setflags(write=False)
 
 
 def allowances(load: Load, hardware: Hardware, deadline: Floats) -> tuple[Floats, Ints]:

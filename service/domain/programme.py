@@ -12,12 +12,14 @@ committed fees up front and monthly; each instance's own costs in the month it s
 year, and its present value at the cost of capital. Vectorised over scenarios.
 """
 
+import functools
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Literal
 
 import numpy as np
 
-from service.domain.arrays import Floats, as_floats
+from service.domain.arrays import Floats, as_floats, broadcast
 from service.domain.campaign import OwnedCostView
 from service.domain.evaluate import CampaignEvaluation, OptionResult, sum_lines
 from service.domain.finance import monthly_rate, present_value
@@ -124,17 +126,24 @@ class CashFlow:
     operating: Floats
     rent: Floats
 
-    @property
+    @cached_property
     def total(self) -> Floats:
         return np.asarray(self.capital + self.operating + self.rent)
 
     def by_year(self) -> "CashFlow":
         """Summed by year: year y holds months 12(y − 1) … 12y − 1."""
-        months = self.capital.shape[-1]
-        years = int(np.ceil(months / MONTHS_PER_YEAR))
-        year = np.arange(months) // int(MONTHS_PER_YEAR)
-        one_hot = (year[:, np.newaxis] == np.arange(years)[np.newaxis, :]).astype(np.float64)
+        one_hot = _years_of_months(self.capital.shape[-1])
         return CashFlow(self.capital @ one_hot, self.operating @ one_hot, self.rent @ one_hot)
+
+
+@functools.lru_cache(maxsize=64)
+def _years_of_months(months: int) -> Floats:
+    """(months, years): 1 where month m lies in year y, read-only (shared by every cash flow so long)."""
+    years = int(np.ceil(months / MONTHS_PER_YEAR))
+    year = np.arange(months) // int(MONTHS_PER_YEAR)
+    one_hot = (year[:, np.newaxis] == np.arange(years)[np.newaxis, :]).astype(np.float64)
+    one_hot.setflags(write=False)
+    return one_hot
 
 
 def _lagged(cumulative: Floats, lag: Floats) -> Floats:
@@ -154,15 +163,31 @@ def _lagged(cumulative: Floats, lag: Floats) -> Floats:
     return np.where(index >= 0, taken, 0.0)
 
 
-def _horizon(option: OptionResult, evaluation: CampaignEvaluation, spacing: Floats,
-             length: Floats) -> tuple[int, Floats]:
-    """Months the cash flow needs (the programme plus the last commitment's whole length), and
-    which scenarios have one: those whose figures are finite and need at most MAX_CASH_FLOW_MONTHS."""
-    last_start = np.floor((commitments(option, evaluation) - 1.0).clip(0.0) * spacing + 1e-9)
-    needed = np.broadcast_to(np.maximum(programme_months(evaluation.recurrence), last_start + length),
-                             np.shape(option.total))
+def _horizon(option: OptionResult, evaluation: CampaignEvaluation,
+             commitment: tuple[Floats, Floats] | None) -> tuple[int, Floats]:
+    """Months the cash flow needs (the programme, and the last commitment's whole length where the
+    option buys some: their `commitment` spacing and length), and which scenarios have one: those
+    whose figures are finite and need at most MAX_CASH_FLOW_MONTHS."""
+    needed = programme_months(evaluation.recurrence)
+    if commitment is not None:
+        spacing, length = commitment
+        last_start = np.floor((commitments(option, evaluation) - 1.0).clip(0.0) * spacing + 1e-9)
+        needed = np.maximum(needed, last_start + length)
+    needed = broadcast(needed, np.shape(option.total))
     shown = np.isfinite(needed) & (needed <= MAX_CASH_FLOW_MONTHS)
-    return int(np.max(needed, where=shown, initial=1.0)), np.asarray(shown)
+    return int(needed.max(where=shown, initial=1.0)), np.asarray(shown)
+
+
+def _commitment_calendar(option: OptionResult, evaluation: CampaignEvaluation) -> tuple[Floats, Floats] | None:
+    """Months between the commitments an option buys (its sharing instances' span) and each one's
+    length (a new build's carried months, whole; a committed term's terms); None when it buys none."""
+    sharing = option.details.get("sharing_instances")
+    if sharing is None:
+        return None
+    every = as_floats(1.0 if evaluation.recurrence is None else evaluation.recurrence.every_months)
+    if option.term == "owned_new_build":
+        return sharing * every, np.ceil(option.details["carried_months"] - 1e-9)
+    return sharing * every, option.details["terms_needed"] * term_months(option)
 
 
 def cash_flow(option: OptionResult, evaluation: CampaignEvaluation, view: OwnedCostView) -> CashFlow:
@@ -171,18 +196,9 @@ def cash_flow(option: OptionResult, evaluation: CampaignEvaluation, view: OwnedC
     lines = view_lines(option, evaluation, view)
     shape = np.shape(option.total)
     columns: dict[Column, Floats] = {}
-    spacing = length = np.zeros(shape)
-    sharing = option.details.get("sharing_instances")
-    every = as_floats(1.0 if evaluation.recurrence is None else evaluation.recurrence.every_months)
-    if sharing is not None:
-        spacing = sharing * every
-        if option.term == "owned_new_build":
-            length = np.ceil(option.details["carried_months"] - 1e-9)
-        else:
-            length = option.details["terms_needed"] * term_months(option)
-    months, shown = _horizon(option, evaluation, spacing, length)
-    spacing, length = np.where(shown, spacing, 1.0), np.where(shown, length, 0.0)
-    instances = np.broadcast_to(instances_by_month(evaluation.recurrence, months), (*shape, months))
+    commitment = _commitment_calendar(option, evaluation)
+    months, shown = _horizon(option, evaluation, commitment)
+    instances = broadcast(instances_by_month(evaluation.recurrence, months), (*shape, months))
     # Each instance's own lines, paid in the month it starts in.
     shared = shared_items(option)
     for item, amount in lines.items():
@@ -190,7 +206,8 @@ def cash_flow(option: OptionResult, evaluation: CampaignEvaluation, view: OwnedC
             continue
         column = column_of(item)
         columns[column] = columns.get(column, 0.0) + instances * np.asarray(amount)[..., np.newaxis]
-    if sharing is not None:
+    if commitment is not None:
+        spacing, length = np.where(shown, commitment[0], 1.0), np.where(shown, commitment[1], 0.0)
         count = np.where(shown, commitments(option, evaluation), 0.0)
         starts = starts_by_month(spacing_months=spacing, count=count, months=months)
         for column, flow in _commitment_flows(option, evaluation, starts, length).items():
