@@ -138,10 +138,10 @@ class CashFlow:
 
 @functools.lru_cache(maxsize=64)
 def _years_of_months(months: int) -> Floats:
-    """(months, years): 1 where month m lies in year y, read-only (shared by every cash flow so long)."""
+    """(months, years): 1 where month m lies in year y; read-only, as every cash flow of that length shares it."""
     years = int(np.ceil(months / MONTHS_PER_YEAR))
     year = np.arange(months) // int(MONTHS_PER_YEAR)
-    one_hot = (year[:, np.newaxis] == np.arange(years)[np.newaxis, :]).astype(np.float64)
+    one_hot: Floats = (year[:, np.newaxis] == np.arange(years)[np.newaxis, :]).astype(np.float64)
     one_hot.setflags(write=False)
     return one_hot
 
