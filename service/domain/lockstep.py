@@ -114,8 +114,9 @@ def _alone(request: StepRequest) -> Figures:
 def _joinable(request: StepRequest) -> bool:
     """Whether the request's step figures can share a call: candidates one row, and every figure of
     the hardware the step reads one value (staging, never read by a step, may vary)."""
-    return (all(np.shape(getattr(request.columns, name))[0] == 1 for name in COLUMNS)
-            and all(np.size(getattr(request.hardware, name)) == 1 for name in STEP_HARDWARE))
+    columns, hardware = vars(request.columns), vars(request.hardware)
+    return (all(np.shape(columns[name])[0] == 1 for name in COLUMNS)
+            and all(isinstance(hardware[name], float | int) or np.size(hardware[name]) == 1 for name in STEP_HARDWARE))
 
 
 # The hardware a step reads: everything but the staging time; and what candidate columns are made of.
