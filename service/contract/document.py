@@ -4,11 +4,11 @@ rounded to the currency's minor unit here at the edge, and nowhere earlier."""
 import math
 from typing import Any
 
-import numpy as np
 from babel.numbers import get_currency_precision
 
 from service.contract.request import QuoteRequestIn, TransformerWorkIn
 from service.domain import explain, screens
+from service.domain.arrays import scenario_value
 from service.domain.assumptions import DEFAULTS
 from service.domain.campaign import OwnedCostView
 from service.domain.catalog import Catalog
@@ -22,12 +22,6 @@ from service.domain.recurrence import programme_months
 from service.domain.units import SECONDS_PER_DAY, SECONDS_PER_HOUR
 
 Json = dict[str, Any]
-
-
-def _pick(values: Any, i: int) -> Any:
-    """Scenario i of an array that may be a scalar broadcast over every scenario."""
-    array = np.asarray(values).reshape(-1)
-    return array[i if array.size > 1 else 0]
 
 
 def _number(value: Any, digits: int | None = None) -> float | None:
@@ -64,23 +58,24 @@ def quote_document(catalog: Catalog, request: QuoteRequestIn, evaluation: Campai
                for position, o in enumerate(ranked)]
     rows = breakeven_rows(evaluation)
     work = evaluation.work
-    instances = float(_pick(evaluation.instances_total, i))
+    instances = float(scenario_value(evaluation.instances_total, i))
     body: Json = {
         "request": request.model_dump(mode="json"),
         "currency": catalog.currency,
         "work": {
-            "training_flops": _number(_pick(work.model_flops, i)),
-            "hardware_flops": _number(_pick(work.hardware_flops, i)),
-            "flops_per_token": None if work.flops_per_token is None else _number(_pick(work.flops_per_token, i)),
-            "runs_total_flops": _number(_pick(work.model_flops * evaluation.runs_multiplier, i)),
+            "training_flops": _number(scenario_value(work.model_flops, i)),
+            "hardware_flops": _number(scenario_value(work.hardware_flops, i)),
+            "flops_per_token": (None if work.flops_per_token is None
+                                else _number(scenario_value(work.flops_per_token, i))),
+            "runs_total_flops": _number(scenario_value(work.model_flops * evaluation.runs_multiplier, i)),
             "instances": _number(instances),
-            "programme_months": _number(_pick(programme_months(evaluation.recurrence), i)),
+            "programme_months": _number(scenario_value(programme_months(evaluation.recurrence), i)),
         },
         "options": options,
         "recommendation": None if not feasible else _recommendation(feasible, i, evaluation, catalog, request, costs),
         "next_steps": [] if feasible else explain.next_steps(ranked, i, campaign.deadline_days, catalog.currency),
         "breakeven": [_breakeven(row, i, money, evaluation) for row in rows
-                      if not bool(_pick(row.figures.ruled_out, i))],
+                      if not bool(scenario_value(row.figures.ruled_out, i))],
         "breakeven_left_out": [
             {"offer": o.venue_id, "term": o.term,
              "reasons": explain.reasons(o, i, catalog, campaign.data.allowed_jurisdictions, campaign.deadline_days)}
@@ -120,7 +115,7 @@ def _recommendation(feasible: list[OptionResult], i: int, evaluation: CampaignEv
     """The first feasible option, why, and whether the other view of owned cost would rank another first."""
     view = request.options.owned_cost_view
     other_view: OwnedCostView = "incremental" if view == "full" else "full"
-    by_other = min(feasible, key=lambda o: (float(_pick(costs[id(o)].other(view), i)), feasible.index(o)))
+    by_other = min(feasible, key=lambda o: (float(scenario_value(costs[id(o)].other(view), i)), feasible.index(o)))
     owned_compared = any(o.venue_kind == "owned" for o in feasible)
     best = feasible[0]
     return {
@@ -185,13 +180,13 @@ def _option(o: OptionResult, position: int, i: int, catalog: Catalog, evaluation
         "cost": {
             "currency": money.currency,
             "view": view,
-            "total": money(_pick(costs.ranked, i)),
-            "per_instance_total": money(_pick(costs.ranked, i)),
-            "programme_total": money(_pick(costs.programme, i)),
-            "npv": money(_pick(npv(flow, evaluation), i)),
-            "full_total": money(_pick(costs.full, i)),
-            "incremental_total": money(_pick(costs.incremental, i)),
-            "per_accelerator_hour": _number(_pick(costs.ranked, i) / layout.accelerator_hours[i], 4),
+            "total": money(scenario_value(costs.ranked, i)),
+            "per_instance_total": money(scenario_value(costs.ranked, i)),
+            "programme_total": money(scenario_value(costs.programme, i)),
+            "npv": money(scenario_value(npv(flow, evaluation), i)),
+            "full_total": money(scenario_value(costs.full, i)),
+            "incremental_total": money(scenario_value(costs.incremental, i)),
+            "per_accelerator_hour": _number(scenario_value(costs.ranked, i) / layout.accelerator_hours[i], 4),
             "lines": _lines(o, i, catalog, evaluation, money),
         },
         "cash_flow": [
@@ -260,7 +255,8 @@ def _lines(o: OptionResult, i: int, catalog: Catalog, evaluation: CampaignEvalua
                 for part in o.parts for line in _lines(part, i, catalog, evaluation, money)]
     site = evaluation.sites.get(o.venue_id) if o.venue_kind == "owned" else None
     incremental = view_lines(o, evaluation, "incremental")
-    return [{"item": item, "amount": money(amount[i]), "incremental_amount": money(_pick(incremental[item], i)),
+    return [{"item": item, "amount": money(amount[i]),
+             "incremental_amount": money(scenario_value(incremental[item], i)),
              "basis": explain.line_basis(o, item, i, catalog, site, money.currency)}
             for item, amount in o.lines.items()]
 
@@ -284,7 +280,7 @@ def _breakeven(row: BreakEvenRow, i: int, money: Money, evaluation: CampaignEval
     paid = row.payback
 
     def at(values: Any) -> Any:
-        return _pick(values, i)
+        return scenario_value(values, i)
 
     reason = str(at(f.utilisation_reason))
     site = evaluation.sites[row.site]

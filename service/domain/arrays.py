@@ -24,11 +24,18 @@ def broadcast(value: ArrayLike, shape: tuple[int, ...]) -> Any:
     array = np.asarray(value)
     if array.shape == shape:
         return array
-    if array.size == 1 and not array.dtype.hasobject:
+    if array.size == 1 and array.ndim <= len(shape) and not array.dtype.hasobject:
         repeated = np.ndarray(shape, dtype=array.dtype, buffer=np.ascontiguousarray(array), strides=(0,) * len(shape))
         repeated.flags.writeable = False  # one value shared by every element
         return repeated
     return np.broadcast_to(array, shape)
+
+
+def scenario_value(values: ArrayLike, i: int) -> Any:
+    """Scenario i of a figure that is one value for every scenario or one per scenario, as a Python
+    scalar (read by flat index: no view or numpy scalar made)."""
+    array = np.asarray(values)
+    return array.item(i if array.size > 1 else 0)
 
 
 def longest_axis(value: Any) -> int:

@@ -7,7 +7,7 @@ from functools import cached_property
 
 import numpy as np
 
-from service.domain.arrays import Bools, Floats, Ints, broadcast
+from service.domain.arrays import Bools, Floats, Ints, broadcast, scenario_value
 from service.domain.breakeven import (
     CURVE_UTILISATIONS,
     BreakEven,
@@ -61,15 +61,10 @@ def rank(evaluation: CampaignEvaluation, i: int, rank_by: RankBy, view: OwnedCos
     options = evaluation.options
 
     def key(k: int) -> tuple[bool, float, float, float]:
-        first, second, third = (_at(v, i) for v in ranking_keys(options[k], evaluation, rank_by, view))
+        first, second, third = (float(scenario_value(v, i))
+                                for v in ranking_keys(options[k], evaluation, rank_by, view))
         return (not bool(options[k].feasible[i]), first, second, third)
     return sorted(range(len(options)), key=key)
-
-
-def _at(values: Floats, i: int) -> float:
-    """Scenario i of a figure that is one value for every scenario or one per scenario."""
-    array = np.asarray(values)
-    return float(array.item(i if array.size > 1 else 0))
 
 
 def listed_rented_price(option: OptionResult) -> Floats:

@@ -156,7 +156,7 @@ class LayoutGrid:
     def cells(self, rows: Ints, columns: Ints) -> Callable[[str], Any]:
         """A reader of any field at (rows[i], columns[i]) for each i, size-1 axes broadcast: the
         indices are settled once for all the fields read."""
-        if rows.shape == columns.shape == (1,):  # one cell (a quote): read by plain indices, a fifth the cost
+        if rows.shape == columns.shape == (1,):  # one cell (a quote): read by plain indices, half the cost
             row, column = int(rows[0]), int(columns[0])
 
             def read_one(name: str) -> Any:

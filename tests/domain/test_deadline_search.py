@@ -119,15 +119,18 @@ def _laid_out(pieces: "deadline._Pieces", lengths: list[int], shapes_: int, allo
     return column
 
 
+@pytest.mark.parametrize("one_allowance", [False, True])
 @pytest.mark.parametrize("seed", range(8))
-def test_the_distinct_rows_are_those_of_the_columns_laid_out_for_every_allowance(seed: int) -> None:
+def test_the_distinct_rows_are_those_of_the_columns_laid_out_for_every_allowance(seed: int,
+                                                                                one_allowance: bool) -> None:
     """`_Pieces.distinct_rows` reads the shapes' columns only where a piece or a cell starts. It
     must give what laying out every shape's column at every allowance gives: the distinct rows of
     neighbouring allowances, in order, and each allowance's row. Pieces of length 0, neighbouring
     pieces of one column, cells set twice (the later wins), cells at the first and last allowance,
-    a single allowance and a single shape are all drawn."""
+    a single allowance and a single shape are all drawn; `one_allowance` draws a single allowance (a
+    quote's), which `distinct_rows` reads at position 0 without looking for where columns change."""
     rng = np.random.default_rng(seed)
-    shapes_, allowances = int(rng.integers(1, 6)), int(rng.choice([1, 2, 7, 40, 500]))
+    shapes_, allowances = int(rng.integers(1, 6)), 1 if one_allowance else int(rng.choice([1, 2, 7, 40, 500]))
     shape, start, length = [], [], []
     for h in range(shapes_):  # each shape's allowances cut at random, some cuts repeated (empty pieces)
         cuts = np.sort(rng.integers(0, allowances + 1, int(rng.integers(0, 6))))

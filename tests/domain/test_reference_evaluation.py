@@ -19,7 +19,7 @@ import pytest
 
 from service.contract.catalog import CatalogIn
 from service.domain import deadline, dominance, evaluate
-from service.domain.arrays import any_by_row, take_rows
+from service.domain.arrays import Bools, Ints, any_by_row, broadcast, scenario_value, take_rows
 from service.domain.campaign import (
     Campaign,
     DataPlan,
@@ -331,6 +331,58 @@ def test_any_by_row_is_numpys_any_along_the_columns(seed: int) -> None:
         np.testing.assert_array_equal(any_by_row(values), values.any(axis=1), strict=True)
         wide = np.broadcast_to(values[:1], (5, columns)) if rows else values
         np.testing.assert_array_equal(any_by_row(wide), wide.any(axis=1), strict=True)
+
+
+def test_broadcast_gives_numpys_read_only_broadcast_and_a_scenario_value_its_item() -> None:
+    """`arrays.broadcast` makes one value's repetition as a view of its own (zero strides); it must
+    equal np.broadcast_to in shape, dtype and values, be read-only, and follow the value it repeats,
+    for floats, integers, booleans, strings and objects (which take numpy's path), from a scalar, a
+    0-d array or any array of one element. `scenario_value` reads scenario i, or the one value."""
+    for value in (2.5, np.float64(-0.0), np.array(7), np.array([[True]]), np.array(["kept"]),
+                  np.array([3], dtype=object), np.array([[1.5]])[:, :1]):
+        for shape in ((), (1,), (4,), (3, 1), (2, 5), (0, 3)):
+            if np.ndim(value) > len(shape):  # numpy broadcasts no array to fewer axes, nor does berth
+                with pytest.raises(ValueError):
+                    np.broadcast_to(value, shape)
+                with pytest.raises(ValueError):
+                    broadcast(value, shape)
+                continue
+            made, numpys = broadcast(value, shape), np.broadcast_to(value, shape)
+            assert made.shape == numpys.shape and made.dtype == numpys.dtype, (value, shape)
+            np.testing.assert_array_equal(made, numpys, strict=True)
+            assert made.shape == np.shape(value) or not made.flags.writeable
+    source = np.array([4.0])
+    view = broadcast(source, (3,))
+    source[0] = 9.0  # a view, as numpy's is: it shows the value it repeats
+    np.testing.assert_array_equal(view, [9.0, 9.0, 9.0])
+    wide = np.arange(6.0).reshape(2, 3)
+    assert broadcast(wide, (2, 3)) is wide and broadcast(wide[:1], (4, 3)).shape == (4, 3)
+    assert scenario_value(np.array([1.0, 2.0, 3.0]), 2) == 3.0 and scenario_value(np.array(5.0), 2) == 5.0
+    assert scenario_value(np.array([[8]]), 1) == 8 and type(scenario_value(np.array([2.0]), 0)) is float
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_one_cell_of_a_grid_reads_as_the_same_cell_among_several(seed: int) -> None:
+    """`LayoutGrid.cells` reads a single cell (a quote's chosen layout) by plain indices: each figure,
+    whether one row for every scenario, one column for every candidate or a full grid, of each dtype,
+    must equal that cell read by index arrays among others, as a fresh (1,) array of its own."""
+    rng = np.random.default_rng(seed)
+    rows, width = 6, 9
+    forms = [(rows, width), (1, width), (rows, 1), (1, 1)]
+    values = {}
+    for k, f in enumerate(dataclasses.fields(LayoutGrid)):
+        form = forms[(k + seed) % len(forms)]
+        values[f.name] = (rng.random(form) < 0.5 if f.type == Bools else
+                          rng.integers(0, 5, form) if f.type == Ints else rng.random(form))
+    grid = LayoutGrid(**values)
+    for r, c in [(0, 0), (rows - 1, width - 1), (int(rng.integers(rows)), int(rng.integers(width)))]:
+        one = grid.cells(np.array([r]), np.array([c]))
+        among = grid.cells(np.array([r, rows - 1 - r]), np.array([c, width - 1 - c]))
+        for name, value in values.items():
+            read = one(name)
+            assert read.dtype == value.dtype
+            np.testing.assert_array_equal(read, among(name)[:1], strict=True)
+            assert read.flags.owndata and not np.shares_memory(read, value)
 
 
 @pytest.mark.parametrize("same_memory", [False, True])
