@@ -128,7 +128,7 @@ def _first_least(blocks: Sequence[Floats], widths: Sequence[int]) -> Ints:
     for array, width in zip(arrays, widths, strict=True):
         side_by_side[:, offset:offset + width] = array
         offset += width
-    return np.asarray(np.argmin(side_by_side, axis=1))
+    return np.asarray(side_by_side.argmin(axis=1))
 
 
 def as_column(grid: LayoutGrid) -> LayoutGrid:

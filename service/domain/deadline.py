@@ -79,7 +79,7 @@ def _tables(load: Load, hardware: Hardware, found: Shapes, base: Columns, k_min:
     evaluated in one pass, one row per step (the rows of the load, the hardware and the bounds),
     and the rungs (R, H, G)."""
     rungs = table_rungs(k_min, k_top)
-    table_columns = shape_columns(found, np.repeat(np.arange(found.count), TABLE_RUNGS),
+    table_columns = shape_columns(found, np.arange(found.count).repeat(TABLE_RUNGS),
                                   rungs.reshape(rungs.shape[0], -1), hardware.accelerators_per_node)
     both = yield from ask(StepRequest(load, hardware, side_by_side(base, table_columns), found))
     width = base.nodes.shape[1]
@@ -94,8 +94,13 @@ def step_varies(load: Load, hardware: Hardware, k_min: Floats, k_top: Floats) ->
 
 def table_rungs(k_min: Floats, k_top: Floats) -> Floats:
     """TABLE_RUNGS geometric node-unit counts per shape from the memory minimum to the top: (R, H, G)."""
-    fraction = np.linspace(0.0, 1.0, TABLE_RUNGS)
-    return np.asarray(np.ceil(k_min[..., np.newaxis] * (k_top / k_min)[..., np.newaxis] ** fraction - 1e-9))
+    return np.asarray(np.ceil(k_min[..., np.newaxis] * (k_top / k_min)[..., np.newaxis] ** _RUNG_FRACTIONS - 1e-9))
+
+
+_AROUND = np.array([[-1.0], [0.0], [1.0]])  # the counts just below, at and above a guess
+_AROUND.setflags(write=False)
+_RUNG_FRACTIONS = np.linspace(0.0, 1.0, TABLE_RUNGS)  # each rung's place from the minimum (0) to the top (1)
+_RUNG_FRACTIONS.setflags(write=False)
 
 
 def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats, k_top: Floats, rungs: Floats,
@@ -123,24 +128,28 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     runs = guess_runs(g, rungs, afforded, valid)
     # The exact counts just below, at and above each run's guess, within the shape's range, each
     # distinct (shape, count) evaluated once.
-    near = np.clip(runs.count + np.array([[-1.0], [0.0], [1.0]]), k_min[0][runs.shape], k_top[0][runs.shape])
+    # (np.minimum and np.maximum are np.clip without its wrappers; and the counts, finite within their
+    # shape's range, are sorted and made distinct as np.unique would, at a third of its cost.)
+    near = np.minimum(np.maximum(runs.count + _AROUND, k_min[0][runs.shape]), k_top[0][runs.shape])
     near_keys = runs.shape * TABLE_KEY + near  # (3, R)
-    around = np.unique(near_keys)
+    ordered = np.sort(near_keys, axis=None)
+    around = ordered[np.concatenate([[True], ordered[1:] != ordered[:-1]])]
     exact_shape = (around // TABLE_KEY).astype(np.int64)
     exact_columns = shape_columns(found, exact_shape, around - exact_shape * TABLE_KEY, hardware.accelerators_per_node)
     exact = yield from ask(StepRequest(load, hardware, exact_columns, found))
     g_exact = np.where(exact["fits"][0], exact["effective_step_seconds"][0], np.inf)
-    where = np.searchsorted(around, near_keys)
+    where = around.searchsorted(near_keys)
     g_near = g_exact[where]  # (3, R)
     # Each of the three meets a run's allowances from the first at or above its step on (none of a
     # NaN allowance's); each allowance takes the first of the three that meets it, else the one above.
-    meets_from = np.where(runs.start < valid, np.clip(np.searchsorted(afforded[:valid], g_near), runs.start, runs.end),
+    meets_from = np.where(runs.start < valid,
+                          np.minimum(np.maximum(afforded[:valid].searchsorted(g_near), runs.start), runs.end),
                           runs.end)  # (3, R)
     # Per run, in order: the count above up to where the guess or the count below meets, then the
     # guess up to where the count below meets, then the count below.
     second = np.minimum(meets_from[0], meets_from[1])
     bounds = np.array([runs.start, second, meets_from[0], runs.end])
-    pieces = _Pieces(np.repeat(runs.shape, 3), bounds[:-1].T.reshape(-1), where[::-1].T.reshape(-1))
+    pieces = _Pieces(runs.shape.repeat(3), bounds[:-1].T.reshape(-1), where[::-1].T.reshape(-1))
     # Where the line missed by more than a count (the count below also meets, or none of the three
     # does), the bracket between a rung and the nearest exact count is closed as `fewest_meeting`
     # closes its own, so that a scenario gets the same count alone as in a sweep: per interior run,
@@ -194,10 +203,9 @@ class _Pieces:
             edges = [self.start] + [part for shape, position, _ in self.cells for part in (position, position + 1)]
             at = np.unique(np.concatenate(edges))
             at = at[at < allowances]  # where some shape's column may change, from position 0 on
-        table = self.column[np.searchsorted(key, np.arange(shapes)[:, np.newaxis] * allowances + at,
-                                            side="right") - 1]
+        table = self.column[key.searchsorted(np.arange(shapes)[:, np.newaxis] * allowances + at, side="right") - 1]
         for shape, position, value in self.cells:
-            table[shape, np.searchsorted(at, position)] = value
+            table[shape, at.searchsorted(position)] = value
         if allowances == 1:
             return table.T, _POSITION_ZERO
         new = np.concatenate([[True], (table[:, 1:] != table[:, :-1]).any(axis=0)])

@@ -387,7 +387,7 @@ def _screen(
         mask |= screens.RESIDENCY
     if venue.owned_only:
         mask |= screens.OWNED_ONLY
-    no_precision = np.isnan(as_floats(hardware.sustained_flops_per_accelerator)) & np.ones(shape, bool)
+    no_precision = broadcast(np.isnan(as_floats(hardware.sustained_flops_per_accelerator)), shape)
     held = np.isfinite(min_nodes)  # some node count holds the model
     # Each screen is set only where some scenario fails it: most pass everywhere (a sweep's whole chunk).
     short = held & ~any_fits & ~no_precision

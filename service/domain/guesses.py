@@ -31,7 +31,8 @@ def reaching(alpha: Floats, beta: Floats, k_lo: Floats, k_hi: Floats, target: Fl
     where the line does not reach it."""
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         guess = np.ceil(alpha / (target - beta) - 1e-9)
-    return np.asarray(np.clip(np.where(np.isfinite(guess) & (guess > 0), guess, k_hi), k_lo + 1.0, k_hi))
+    return np.asarray(np.minimum(np.maximum(np.where(np.isfinite(guess) & (guess > 0), guess, k_hi), k_lo + 1.0),
+                                 k_hi))  # np.clip without its wrappers: counts, never a signed zero
 
 
 def interpolated(k_lo: Floats, g_lo: Floats, k_hi: Floats, g_hi: Floats, target: Floats) -> Floats:
@@ -71,7 +72,7 @@ def guess_runs(g: Floats, rungs: Floats, afforded: Floats, valid: int) -> Runs:
     # the states lie in the order of _RANGE_STATES between these edges.
     edges = np.empty((h, TABLE_RUNGS + 3), dtype=np.int64)
     edges[:, 0], edges[:, -2], edges[:, -1] = 0, valid, u
-    edges[:, TABLE_RUNGS:0:-1] = np.searchsorted(afforded[:valid], prefix)
+    edges[:, TABLE_RUNGS:0:-1] = afforded[:valid].searchsorted(prefix)
     seg_shape, seg_column = np.nonzero(edges[:, 1:] > edges[:, :-1])
     seg_state = _RANGE_STATES[seg_column]
     seg_start, seg_end = edges[seg_shape, seg_column], edges[seg_shape, seg_column + 1]

@@ -246,7 +246,7 @@ def _base_columns(found: Shapes, unit: Floats, per_node: int, k_min: Floats, top
     def repeated(row: Any) -> Any:  # a row of one value per shape, once per copy (np.tile costs three times as much)
         return np.concatenate([row] * copies, axis=1)
     nodes = np.concatenate(np.broadcast_arrays(k_min, *tops), axis=1) * repeated(unit)
-    origins = np.repeat(np.array([MEMORY] + [NODE_LIMIT] * len(tops)), found.count)[np.newaxis, :]
+    origins = np.array([MEMORY] + [NODE_LIMIT] * len(tops)).repeat(found.count)[np.newaxis, :]
     return Columns(repeated(found.tensor[np.newaxis, :]), repeated(found.pipeline[np.newaxis, :]),
                    nodes, nodes * per_node, origins)
 

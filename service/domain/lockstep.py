@@ -131,6 +131,6 @@ def _per_candidate(requests: Sequence[StepRequest]) -> Hardware:
 
     def spread(name: str) -> Any:
         values = [np.asarray(getattr(request.hardware, name), dtype=np.float64).reshape(-1)[0] for request in requests]
-        return np.repeat(values, widths)[np.newaxis, :]
+        return np.array(values).repeat(widths)[np.newaxis, :]
     per_candidate: dict[str, Any] = {name: spread(name) for name in STEP_HARDWARE}
     return replace(requests[0].hardware, **per_candidate, staging_seconds=np.full((1, 1), np.nan))

@@ -54,7 +54,9 @@ def starts_by_month(*, spacing_months: ArrayLike, count: ArrayLike, months: int)
     spacing = as_floats(spacing_months)[..., np.newaxis]
     total = as_floats(count)[..., np.newaxis]
     through = np.clip(np.ceil(np.arange(1, months + 1) / spacing - 1e-9), 0.0, total)  # started in 0 … m
-    return np.diff(through, axis=-1, prepend=0.0)
+    started = through.copy()  # the month's count less the month before's (np.diff from 0 costs three times as much)
+    started[..., 1:] -= through[..., :-1]
+    return started
 
 
 def instances_by_month(recurrence: Recurrence | None, months: int) -> Floats:
