@@ -151,7 +151,9 @@ def _lagged(cumulative: Floats, lag: Floats) -> Floats:
     months = cumulative.shape[-1]
     lags = np.asarray(lag, dtype=np.int64)
     if lags.size == 1:  # one lag for every scenario (a quote): the counts shifted along the months
-        shift, out = int(lags.reshape(-1)[0]), np.zeros(np.broadcast_shapes(cumulative.shape, (*lags.shape, 1)))
+        shape = (cumulative.shape if lags.shape in ((), cumulative.shape[:-1])
+                 else np.broadcast_shapes(cumulative.shape, (*lags.shape, 1)))
+        shift, out = int(lags.reshape(-1)[0]), np.zeros(shape)
         if shift >= 0:
             out[..., shift:] = cumulative[..., :max(months - shift, 0)]
         else:  # the last month's count from month M + lag on, as the clipped index below reads it
@@ -229,9 +231,10 @@ def _commitment_flows(option: OptionResult, evaluation: CampaignEvaluation, star
         capex = nodes * site.economics.capex_per_node
         running = nodes * site.node.running
         residual = capex * site.economics.site.residual_fraction
-        active = started - _lagged(started, length)  # bought in months t − L + 1 … t
+        ended = _lagged(started, length)  # bought by month t − L: their life is over
+        active = started - ended  # bought in months t − L + 1 … t
         bought = starts
-        returned = _lagged(started, length - 1.0) - _lagged(started, length)
+        returned = _lagged(started, length - 1.0) - ended
         capital = bought * capex[..., np.newaxis] - returned * residual[..., np.newaxis]
         return {"capital": capital, "operating": active * np.asarray(running)[..., np.newaxis]}
     months = term_months(option)
@@ -244,8 +247,9 @@ def _commitment_flows(option: OptionResult, evaluation: CampaignEvaluation, star
     for q in range(int(min(np.max(terms), MAX_CASH_FLOW_MONTHS / months))):
         held = (q < details["terms_needed"])[..., np.newaxis]
         lag = np.full(shape, q * months)
-        begun = _lagged(started, lag) - _lagged(started, lag + 1.0)
-        active = _lagged(started, lag) - _lagged(started, lag + months)
+        began = _lagged(started, lag)  # the commitments whose q-th term has begun by month t
+        begun = began - _lagged(started, lag + 1.0)
+        active = began - _lagged(started, lag + months)
         rent += held * (begun * (upfront * fee)[..., np.newaxis]
                         + active * ((1.0 - upfront) * fee / months)[..., np.newaxis])
     return {"rent": rent}
