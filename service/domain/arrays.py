@@ -43,6 +43,8 @@ def longest_axis(value: Any) -> int:
     scenarios it runs over (1 when none varies)."""
     if isinstance(value, np.ndarray):
         return int(value.shape[0]) if value.ndim >= 1 else 1
+    if isinstance(value, float | int | str) or value is None:  # most of a quote's inputs: told apart first
+        return 1
     if isinstance(value, dict):
         value = tuple(value.values())
     elif is_dataclass(value) and not isinstance(value, type):
