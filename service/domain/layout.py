@@ -47,7 +47,7 @@ from service.domain.step import (
     evaluate_columns,
     rank_parameters,
     scenario_rows,
-    step_figures,
+    step_figures_in_rows,
     wall_figures,
     with_wall,
 )
@@ -217,7 +217,7 @@ def layout_search(load: Load, hardware: Hardware, *, node_limits: Sequence[Array
     # Each scenario has its own step: only the figures that price and choose a layout are made for
     # every candidate, the others for the chosen ones (FiguresOnRead).
     rows = scenario_rows(load, hardware, deadline, k_min, k_top)
-    step = step_figures(load, hardware, base, found, clock_only=True)
+    step = step_figures_in_rows(load, hardware, base, found, rows, clock_only=True)
     first = FiguresOnRead(load, hardware, base, found, rows, fits=step["fits"],
                           **wall_figures(load, hardware, step["effective_step_seconds"], step["accelerators"]))
     if not has_deadline:

@@ -13,7 +13,7 @@ from service.domain.arrays import Bools, Floats, Ints, take_rows
 from service.domain.deadline import close_brackets, shape_columns
 from service.domain.guesses import TABLE_RUNGS
 from service.domain.parallelism import Shapes
-from service.domain.step import Columns, Hardware, Load, scenario_rows, step_figures, wall_figures
+from service.domain.step import Columns, Hardware, Load, scenario_rows, step_figures_in_rows, wall_figures
 
 
 def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, deadline: Floats,
@@ -147,6 +147,6 @@ def _measured_cells(load: Load, hardware: Hardware, found: Shapes, rows: int, at
 def _wall_and_fits(load: Load, hardware: Hardware, columns: Columns, found: Shapes,
                    shape: tuple[int, int]) -> tuple[Floats, Bools]:
     """The wall clock of each column and whether it fits, as far as the wall clock needs, as `shape`."""
-    step = step_figures(load, hardware, columns, found, clock_only=True)
+    step = step_figures_in_rows(load, hardware, columns, found, shape[0], clock_only=True)
     wall = wall_figures(load, hardware, step["effective_step_seconds"], step["accelerators"])["wall_seconds"]
     return np.asarray(np.broadcast_to(wall, shape)), np.asarray(np.broadcast_to(step["fits"], shape))

@@ -226,17 +226,22 @@ class FiguresOnRead(FiguresWhenRead):
         return self.__dict__[name]
 
     def cells(self, rows: Ints, columns: Ints) -> Callable[[str], Any]:
+        """The cells' figures: those the block holds taken now, the others evaluated for the cells
+        alone when one of them is first read (a sweep reads few). The reader keeps neither the block
+        nor any (scenarios × candidates) input, so a chosen layout does not hold its venue's candidate
+        arrays alive after the choice (a sweep keeps every option's chosen layout to the end of its chunk)."""
         load, hardware, _, found, scenarios = self._inputs
         given = super().cells(rows, columns)
-
-        def taken(name: str) -> Any:
-            return np.asarray(given(name))[:, np.newaxis]
-        at = Columns(*(taken(f.name) for f in fields(Columns)))
-        figures = step_figures(take_rows(load, rows, scenarios), take_rows(hardware, rows, scenarios), at, found)
+        held = {name: given(name) for name in _FIGURES if name in self.__dict__}
+        at = Columns(*(np.asarray(held[f.name])[:, np.newaxis] for f in fields(Columns)))
+        load, hardware = take_rows(load, rows, scenarios), take_rows(hardware, rows, scenarios)
+        figures: dict[str, Any] = {}
 
         def read(name: str) -> Any:
-            if name in self.__dict__:
-                return given(name)
+            if name in held:
+                return held[name]
+            if not figures:
+                figures.update(step_figures(load, hardware, at, found))
             return broadcast(figures[name], (rows.size, 1))[:, 0]
         return read
 
@@ -394,6 +399,27 @@ def step_figures(load: Load, hardware: Hardware, c: Columns, found: Shapes, *,
     )
     columns = np.shape(nodes)[1]
     return {name: _two_d(value, columns) for name, value in values.items()}
+
+
+STEP_ROWS = 2048  # scenarios per pass of `step_figures_in_rows`: a pass over every base candidate of
+# scenarios that each have their own step holds about 25 KB a scenario of temporaries (10-venue catalog)
+
+
+def step_figures_in_rows(load: Load, hardware: Hardware, c: Columns, found: Shapes, rows: int, *,
+                         clock_only: bool = False) -> dict[str, Any]:
+    """`step_figures` of candidates over `rows` scenarios, STEP_ROWS scenarios a pass: the same figures,
+    each (rows, K) where there is more than one pass, with one pass's temporaries alive at a time (a
+    step's arithmetic never mixes scenarios)."""
+    if rows <= STEP_ROWS:
+        return step_figures(load, hardware, c, found, clock_only=clock_only)
+    passes = []
+    for start in range(0, rows, STEP_ROWS):
+        at = slice(start, min(start + STEP_ROWS, rows))
+        figures = step_figures(take_rows(load, at, rows), take_rows(hardware, at, rows), take_rows(c, at, rows), found,
+                               clock_only=clock_only)
+        passes.append((at.stop - at.start, figures))
+    return {name: np.concatenate([broadcast(figures[name], (count, np.shape(figures[name])[1]))
+                                  for count, figures in passes]) for name in passes[0][1]}
 
 
 def with_wall(load: Load, hardware: Hardware, figures: dict[str, Any]) -> LayoutGrid:

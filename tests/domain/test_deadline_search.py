@@ -174,14 +174,20 @@ def test_venues_of_one_staging_share_the_sorted_allowances_and_others_get_their_
         assert not afforded.flags.writeable and not scenario_of.flags.writeable  # shared: never written
 
 
+@pytest.mark.parametrize("in_passes", [False, True])
 @pytest.mark.parametrize("seed", range(6))
-def test_where_each_scenario_has_its_own_step_the_figures_made_later_equal_a_full_evaluation(seed: int) -> None:
+def test_where_each_scenario_has_its_own_step_the_figures_made_later_equal_a_full_evaluation(
+        seed: int, in_passes: bool, monkeypatch: pytest.MonkeyPatch) -> None:
     """Where the step varies by scenario, a candidate's figures for pricing and choosing (fits, wall
     clock, accelerator-hours) are made for every candidate, for the deadline candidates straight from
     the search's own measurements, and every other figure only when read (`FiguresOnRead`): for the
     cells read, as the chosen layouts are, or for the whole block. Each must equal a full evaluation
     of the same columns (`evaluate_columns`), exactly, including deadlines no count meets, no
-    deadline at all (inf) and layouts that do not fit."""
+    deadline at all (inf) and layouts that do not fit. `in_passes`: the step evaluated a few
+    scenarios a pass (`step.STEP_ROWS`, which bounds a chunk's memory), as a large chunk is. A cells'
+    reader does not keep its block alive (a sweep keeps every chosen layout to the end of its chunk)."""
+    if in_passes:
+        monkeypatch.setattr(step, "STEP_ROWS", 7)
     rng = np.random.default_rng(3000 + seed)
     arch = Architecture(layers=32, d_model=4096.0, sequence_length=4096.0, attention_heads=32.0)
     parameters = float(rng.choice([7e9, 13e9, 30e9]))
@@ -208,6 +214,7 @@ def test_where_each_scenario_has_its_own_step_the_figures_made_later_equal_a_ful
             assert np.array_equal(_whole(block, name), _whole(full, name), equal_nan=True), name
         rows, columns = np.arange(SCENARIOS), rng.integers(0, np.shape(block.nodes)[1], SCENARIOS)
         read = block.cells(rows, columns)
+        assert not any(cell is block for cell in _closed_over(read))  # the reader holds the cells, not the block
         for name in names:  # made for the cells read
             expected = _whole(full, name)[rows, columns]
             assert np.array_equal(np.broadcast_to(read(name), expected.shape), expected, equal_nan=True), name
@@ -218,19 +225,35 @@ def test_where_each_scenario_has_its_own_step_the_figures_made_later_equal_a_ful
     assert met.any() and not met.all()
 
 
+def _closed_over(function: Any) -> list[Any]:
+    """Every object a function's closure holds, through the closures of the functions it holds."""
+    held, found = [function], []
+    while held:
+        cells = getattr(held.pop(), "__closure__", None) or ()
+        for cell in cells:
+            found.append(cell.cell_contents)
+            if callable(cell.cell_contents):
+                held.append(cell.cell_contents)
+    return found
+
+
 def _whole(grid: LayoutGrid, name: str) -> np.ndarray:
     """A figure of every scenario (SCENARIOS rows) and candidate."""
     return np.broadcast_to(getattr(grid, name), (SCENARIOS, np.shape(grid.nodes)[1]))
 
 
+@pytest.mark.parametrize("in_passes", [False, True])
 @pytest.mark.parametrize("seed", range(8))
 def test_the_per_scenario_search_finds_what_a_plain_scan_of_every_rung_finds(
-        seed: int, monkeypatch: pytest.MonkeyPatch) -> None:
+        seed: int, in_passes: bool, monkeypatch: pytest.MonkeyPatch) -> None:
     """`own_step.fewest_meeting` measures only what is still open: the scenarios still scanning, the
     shapes some of them have still to meet, and the brackets still open cell by cell. A plain scan
     measures every (scenario, shape) at every rung, and closes every bracket on the whole grid. Both
     must give the same counts, fits and wall clocks, exactly: with each scenario its own speed, with
-    the model's size too (each scenario its own rungs), and with deadlines no rung meets."""
+    the model's size too (each scenario its own rungs), and with deadlines no rung meets; and with the
+    search's steps evaluated a few scenarios a pass (`in_passes`, `step.STEP_ROWS`)."""
+    if in_passes:
+        monkeypatch.setattr(step, "STEP_ROWS", 4)
     rng = np.random.default_rng(4000 + seed)
     # A model small enough that every shape holds it, so that scenarios with room to spare settle early.
     arch = Architecture(layers=16, d_model=1024.0, sequence_length=1024.0, attention_heads=16.0)
