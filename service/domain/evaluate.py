@@ -256,7 +256,6 @@ class _Physics:
     pinned_nodes: float | None  # options.fixed_accelerators as whole nodes
     kernel: Kernel | None  # the compiled eligibility, pricing and choice (compiled.py), else numpy
     _candidates: dict[int, tuple[NodeLimit, Eligible]] = field(default_factory=dict)
-    _picked: dict[int, LayoutGrid] = field(default_factory=dict)
 
     def candidates(self, limit: NodeLimit) -> Eligible:
         """Which layouts a term under that limit may take; computed once per limit, as the terms
@@ -266,17 +265,6 @@ class _Physics:
                                                           deadline_seconds=self.load.deadline_seconds,
                                                           kernel=self.kernel)
         return self._candidates[id(limit)][1]
-
-    def pick(self, index: Ints) -> LayoutGrid:
-        """Every figure of the chosen layouts (`Candidates.pick`); for one scenario (a quote) kept by
-        column, as the terms of a venue often choose the same layout and a quote's pick reads every
-        figure."""
-        if index.shape[0] != 1:
-            return self.grid.pick(index)
-        column = int(index[0])
-        if column not in self._picked:
-            self._picked[column] = self.grid.pick(index)
-        return self._picked[column]
 
 
 def _physics(venue: _Venue, context: _Context, *, limits: list[Floats],
@@ -320,7 +308,7 @@ def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, phys
     grid = physics.grid
     layouts = physics.candidates(limit)
     choice = choose_priced(layouts, grid.blocks, charges, physics.kernel)
-    chosen = physics.pick(choice.index)
+    chosen = grid.pick(choice.index)
     lines_at, details_at = charges.itemise(as_column(chosen))
     # A line that does not depend on the layout may vary by scenario when nothing else does.
     shape = (max(choice.index.size, *(np.size(v) for v in (*lines_at.values(), *details_at.values()))),)

@@ -9,7 +9,7 @@ else one per scenario): a handful per shape whatever the venue's size. `step.py`
 """
 
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, fields, replace
+from dataclasses import dataclass, field, fields, replace
 from typing import Any
 
 import numpy as np
@@ -27,7 +27,7 @@ from service.domain.deadline import (
 from service.domain.gathered import GatheredGrid, gathered
 from service.domain.lockstep import Search, StepRequest, ask, drive
 from service.domain.memory import minimum_data_parallel
-from service.domain.own_step import fewest_meeting
+from service.domain.own_step import FiguresOnRead, fewest_meeting, step_figures_in_rows
 from service.domain.parallelism import Shapes, shapes
 from service.domain.step import (
     DEADLINE,
@@ -36,7 +36,6 @@ from service.domain.step import (
     PINNED,
     Architecture,
     Columns,
-    FiguresOnRead,
     FiguresWhenRead,
     Hardware,
     LayoutGrid,
@@ -47,7 +46,6 @@ from service.domain.step import (
     evaluate_columns,
     rank_parameters,
     scenario_rows,
-    step_figures_in_rows,
     wall_figures,
     with_wall,
 )
@@ -67,6 +65,7 @@ class Candidates:
     one (S, K) grid. Column j of the whole is column j − offset of its block."""
 
     blocks: tuple[LayoutGrid, ...]
+    _picked: dict[int, LayoutGrid] = field(default_factory=dict, init=False, compare=False, repr=False)
 
     @property
     def widths(self) -> list[int]:
@@ -90,14 +89,17 @@ class Candidates:
     def pick(self, index: Ints) -> LayoutGrid:
         """Every figure at the column `index` chosen per scenario: (S,) arrays of each field's dtype,
         each taken when first read; for one scenario (a quote, whose document reads every figure),
-        all taken now."""
+        all taken now, and kept by column: a venue's terms often choose the same layout."""
         if index.shape[0] == 1:
-            column, at, widths = int(index[0]), 0, self.widths
-            while column >= widths[at]:  # the block the column lies in, and its column there
-                column -= widths[at]
-                at += 1
-            read = self.blocks[at].cells(_FIRST, np.array([column]))
-            return LayoutGrid(**{name: np.asarray(read(name)) for name in _FIGURE_NAMES})
+            chosen = int(index[0])
+            if chosen not in self._picked:
+                column, at, widths = chosen, 0, self.widths
+                while column >= widths[at]:  # the block the column lies in, and its column there
+                    column -= widths[at]
+                    at += 1
+                read = self.blocks[at].cells(_FIRST, np.array([column]))
+                self._picked[chosen] = LayoutGrid(**{name: np.asarray(read(name)) for name in _FIGURE_NAMES})
+            return self._picked[chosen]
         ends = np.cumsum(self.widths)
         block_of = np.searchsorted(ends, index, side="right")
         rows = np.arange(index.shape[0])

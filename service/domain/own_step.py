@@ -2,18 +2,96 @@
 (the network, a failure rate, the model's size) drawn from a continuous range, so that no two scenarios
 share a table (`deadline.py` solves those that do). Each scenario is searched alone, as it would be
 quoted alone: its rungs in order until each shape meets the deadline, then the bracket below the first
-that meets closed by `deadline.close_brackets`.
+that meets closed by `deadline.close_brackets`. Its candidates are blocks that hold only what prices and
+chooses them (`FiguresOnRead`), and its steps run STEP_ROWS scenarios a pass (`step_figures_in_rows`), so
+that a chunk's memory stays near what one pass holds.
 """
 
+from collections.abc import Callable
 from dataclasses import fields
+from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import Bools, Floats, Ints, take_rows
+from service.domain.arrays import Bools, Floats, Ints, broadcast, take_rows
 from service.domain.deadline import close_brackets, shape_columns
 from service.domain.guesses import TABLE_RUNGS
 from service.domain.parallelism import Shapes
-from service.domain.step import Columns, Hardware, Load, scenario_rows, step_figures_in_rows, wall_figures
+from service.domain.step import (
+    FIGURE_NAMES,
+    Columns,
+    FiguresWhenRead,
+    Hardware,
+    Load,
+    scenario_rows,
+    step_figures,
+    two_d,
+    wall_figures,
+)
+
+STEP_ROWS = 2048  # scenarios per pass of `step_figures_in_rows`: a pass over every base candidate of
+# scenarios that each have their own step holds about 25 KB a scenario of temporaries (10-venue catalog)
+
+
+def step_figures_in_rows(load: Load, hardware: Hardware, c: Columns, found: Shapes, rows: int, *,
+                         clock_only: bool = False) -> dict[str, Any]:
+    """`step_figures` of candidates over `rows` scenarios, STEP_ROWS scenarios a pass: the same figures,
+    each (rows, K) where there is more than one pass, with one pass's temporaries alive at a time (a
+    step's arithmetic never mixes scenarios)."""
+    if rows <= STEP_ROWS:
+        return step_figures(load, hardware, c, found, clock_only=clock_only)
+    passes = []
+    for start in range(0, rows, STEP_ROWS):
+        at = slice(start, min(start + STEP_ROWS, rows))
+        figures = step_figures(take_rows(load, at, rows), take_rows(hardware, at, rows), take_rows(c, at, rows), found,
+                               clock_only=clock_only)
+        passes.append((at.stop - at.start, figures))
+    return {name: np.concatenate([broadcast(figures[name], (count, np.shape(figures[name])[1]))
+                                  for count, figures in passes]) for name in passes[0][1]}
+
+
+class FiguresOnRead(FiguresWhenRead):
+    """A block whose figures for pricing and choosing (its columns, whether each fits, the wall
+    clock and accelerator-hours) are given, and every other figure is evaluated only when read:
+    for the cells read (`cells`: the chosen layouts), or for the whole block when a figure is read
+    whole. Where each scenario has its own step, the full figures of every candidate would cost
+    more than all the pricing."""
+
+    def __init__(self, load: Load, hardware: Hardware, columns: Columns, found: Shapes, scenarios: int,
+                 **given: Any) -> None:
+        width = np.shape(columns.nodes)[1]
+        for name, value in ({f.name: getattr(columns, f.name) for f in fields(columns)} | given).items():
+            object.__setattr__(self, name, two_d(value, width))
+        object.__setattr__(self, "_inputs", (load, hardware, columns, found, scenarios))
+
+    def _made(self, name: str) -> Any:
+        """Every figure not given, evaluated for the whole block at once; `name` among them."""
+        load, hardware, columns, found, _ = self._inputs
+        for key, value in step_figures(load, hardware, columns, found).items():
+            if key not in self.__dict__:
+                object.__setattr__(self, key, value)
+        return self.__dict__[name]
+
+    def cells(self, rows: Ints, columns: Ints) -> Callable[[str], Any]:
+        """The cells' figures: those the block holds taken now, the others evaluated for the cells
+        alone when one of them is first read (a sweep reads few). The reader keeps neither the block
+        nor any (scenarios × candidates) input, so a chosen layout does not hold its venue's candidate
+        arrays alive after the choice (a sweep keeps every option's chosen layout to the end of its chunk)."""
+        load, hardware, _, found, scenarios = self._inputs
+        given = super().cells(rows, columns)
+        held = {name: given(name) for name in FIGURE_NAMES if name in self.__dict__}
+        at = Columns(*(np.asarray(held[f.name])[:, np.newaxis] for f in fields(Columns)))
+        load, hardware = take_rows(load, rows, scenarios), take_rows(hardware, rows, scenarios)
+        figures: dict[str, Any] = {}
+
+        def read(name: str) -> Any:
+            if name in held:
+                return held[name]
+            if not figures:
+                figures.update(step_figures(load, hardware, at, found))
+            return broadcast(figures[name], (rows.size, 1))[:, 0]
+        return read
+
 
 
 def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, deadline: Floats,

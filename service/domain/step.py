@@ -13,7 +13,7 @@ from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats, broadcast, longest_axis, take_rows
+from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats, broadcast, longest_axis
 from service.domain.assumptions import default
 from service.domain.campaign import LayoutPins, Parallelism, Recompute
 from service.domain.memory import (
@@ -172,14 +172,14 @@ class LayoutGrid:
         return read
 
 
-_FIGURES = frozenset(f.name for f in fields(LayoutGrid))
+FIGURE_NAMES = frozenset(f.name for f in fields(LayoutGrid))
 
 
 class FiguresWhenRead(LayoutGrid):
     """A grid whose figures are each made when first read (`_made`), then kept: the chosen layouts,
-    of which a sweep reads only the few its costs and summary need (`of`), and the candidate blocks
-    below, whose figures beyond pricing only the chosen layout needs. `dataclasses.replace` (as in
-    `arrays.take_rows`) builds one whole, as any LayoutGrid."""
+    of which a sweep reads only the few its costs and summary need (`of`), and the candidate blocks of
+    `own_step.FiguresOnRead`, whose figures beyond pricing only the chosen layout needs.
+    `dataclasses.replace` (as in `arrays.take_rows`) builds one whole, as any LayoutGrid."""
 
     @classmethod
     def of(cls, make: Callable[[str], Any]) -> LayoutGrid:
@@ -196,54 +196,11 @@ class FiguresWhenRead(LayoutGrid):
         return make(name)
 
     def __getattr__(self, name: str) -> Any:
-        if name not in _FIGURES:
+        if name not in FIGURE_NAMES:
             raise AttributeError(name)
         value = self._made(name)
         object.__setattr__(self, name, value)
         return value
-
-
-class FiguresOnRead(FiguresWhenRead):
-    """A block whose figures for pricing and choosing (its columns, whether each fits, the wall
-    clock and accelerator-hours) are given, and every other figure is evaluated only when read:
-    for the cells read (`cells`: the chosen layouts), or for the whole block when a figure is read
-    whole. Where each scenario has its own step, the full figures of every candidate would cost
-    more than all the pricing."""
-
-    def __init__(self, load: Load, hardware: Hardware, columns: "Columns", found: Shapes, scenarios: int,
-                 **given: Any) -> None:
-        width = np.shape(columns.nodes)[1]
-        for name, value in ({f.name: getattr(columns, f.name) for f in fields(columns)} | given).items():
-            object.__setattr__(self, name, _two_d(value, width))
-        object.__setattr__(self, "_inputs", (load, hardware, columns, found, scenarios))
-
-    def _made(self, name: str) -> Any:
-        """Every figure not given, evaluated for the whole block at once; `name` among them."""
-        load, hardware, columns, found, _ = self._inputs
-        for key, value in step_figures(load, hardware, columns, found).items():
-            if key not in self.__dict__:
-                object.__setattr__(self, key, value)
-        return self.__dict__[name]
-
-    def cells(self, rows: Ints, columns: Ints) -> Callable[[str], Any]:
-        """The cells' figures: those the block holds taken now, the others evaluated for the cells
-        alone when one of them is first read (a sweep reads few). The reader keeps neither the block
-        nor any (scenarios × candidates) input, so a chosen layout does not hold its venue's candidate
-        arrays alive after the choice (a sweep keeps every option's chosen layout to the end of its chunk)."""
-        load, hardware, _, found, scenarios = self._inputs
-        given = super().cells(rows, columns)
-        held = {name: given(name) for name in _FIGURES if name in self.__dict__}
-        at = Columns(*(np.asarray(held[f.name])[:, np.newaxis] for f in fields(Columns)))
-        load, hardware = take_rows(load, rows, scenarios), take_rows(hardware, rows, scenarios)
-        figures: dict[str, Any] = {}
-
-        def read(name: str) -> Any:
-            if name in held:
-                return held[name]
-            if not figures:
-                figures.update(step_figures(load, hardware, at, found))
-            return broadcast(figures[name], (rows.size, 1))[:, 0]
-        return read
 
 
 @dataclass(frozen=True)
@@ -398,28 +355,7 @@ def step_figures(load: Load, hardware: Hardware, c: Columns, found: Shapes, *,
         checkpoint_interval_seconds=np.where(np.isfinite(interval), interval, np.nan),
     )
     columns = np.shape(nodes)[1]
-    return {name: _two_d(value, columns) for name, value in values.items()}
-
-
-STEP_ROWS = 2048  # scenarios per pass of `step_figures_in_rows`: a pass over every base candidate of
-# scenarios that each have their own step holds about 25 KB a scenario of temporaries (10-venue catalog)
-
-
-def step_figures_in_rows(load: Load, hardware: Hardware, c: Columns, found: Shapes, rows: int, *,
-                         clock_only: bool = False) -> dict[str, Any]:
-    """`step_figures` of candidates over `rows` scenarios, STEP_ROWS scenarios a pass: the same figures,
-    each (rows, K) where there is more than one pass, with one pass's temporaries alive at a time (a
-    step's arithmetic never mixes scenarios)."""
-    if rows <= STEP_ROWS:
-        return step_figures(load, hardware, c, found, clock_only=clock_only)
-    passes = []
-    for start in range(0, rows, STEP_ROWS):
-        at = slice(start, min(start + STEP_ROWS, rows))
-        figures = step_figures(take_rows(load, at, rows), take_rows(hardware, at, rows), take_rows(c, at, rows), found,
-                               clock_only=clock_only)
-        passes.append((at.stop - at.start, figures))
-    return {name: np.concatenate([broadcast(figures[name], (count, np.shape(figures[name])[1]))
-                                  for count, figures in passes]) for name in passes[0][1]}
+    return {name: two_d(value, columns) for name, value in values.items()}
 
 
 def with_wall(load: Load, hardware: Hardware, figures: dict[str, Any]) -> LayoutGrid:
@@ -461,7 +397,7 @@ def _by_row(value: ArrayLike) -> Floats:
     return array if array.ndim == 2 else array.reshape(-1, 1)
 
 
-def _two_d(value: Any, columns: int) -> Any:
+def two_d(value: Any, columns: int) -> Any:
     """A figure as an (R, K) array, R = 1 where it does not vary (a 1-D array: one value per scenario)."""
     array = np.asarray(value)
     if array.ndim < 2:

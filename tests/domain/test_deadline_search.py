@@ -13,8 +13,9 @@ import pytest
 
 from service.domain import deadline, dominance, guesses, layout, own_step, step
 from service.domain.layout import DEADLINE, Architecture, evaluate_layouts
+from service.domain.own_step import FiguresOnRead
 from service.domain.parallelism import shapes
-from service.domain.step import Columns, FiguresOnRead, LayoutGrid, evaluate_columns
+from service.domain.step import Columns, LayoutGrid, evaluate_columns
 from tests.domain.builders import hardware, load
 
 SCENARIOS = 30
@@ -184,10 +185,10 @@ def test_where_each_scenario_has_its_own_step_the_figures_made_later_equal_a_ful
     cells read, as the chosen layouts are, or for the whole block. Each must equal a full evaluation
     of the same columns (`evaluate_columns`), exactly, including deadlines no count meets, no
     deadline at all (inf) and layouts that do not fit. `in_passes`: the step evaluated a few
-    scenarios a pass (`step.STEP_ROWS`, which bounds a chunk's memory), as a large chunk is. A cells'
+    scenarios a pass (`own_step.STEP_ROWS`, which bounds a chunk's memory), as a large chunk is. A cells'
     reader does not keep its block alive (a sweep keeps every chosen layout to the end of its chunk)."""
     if in_passes:
-        monkeypatch.setattr(step, "STEP_ROWS", 7)
+        monkeypatch.setattr(own_step, "STEP_ROWS", 7)
     rng = np.random.default_rng(3000 + seed)
     arch = Architecture(layers=32, d_model=4096.0, sequence_length=4096.0, attention_heads=32.0)
     parameters = float(rng.choice([7e9, 13e9, 30e9]))
@@ -251,9 +252,9 @@ def test_the_per_scenario_search_finds_what_a_plain_scan_of_every_rung_finds(
     measures every (scenario, shape) at every rung, and closes every bracket on the whole grid. Both
     must give the same counts, fits and wall clocks, exactly: with each scenario its own speed, with
     the model's size too (each scenario its own rungs), and with deadlines no rung meets; and with the
-    search's steps evaluated a few scenarios a pass (`in_passes`, `step.STEP_ROWS`)."""
+    search's steps evaluated a few scenarios a pass (`in_passes`, `own_step.STEP_ROWS`)."""
     if in_passes:
-        monkeypatch.setattr(step, "STEP_ROWS", 4)
+        monkeypatch.setattr(own_step, "STEP_ROWS", 4)
     rng = np.random.default_rng(4000 + seed)
     # A model small enough that every shape holds it, so that scenarios with room to spare settle early.
     arch = Architecture(layers=16, d_model=1024.0, sequence_length=1024.0, attention_heads=16.0)
