@@ -93,7 +93,6 @@ class FiguresOnRead(FiguresWhenRead):
         return read
 
 
-
 def fewest_meeting(load: Load, hardware: Hardware, found: Shapes, deadline: Floats,
                    rungs: Floats) -> tuple[Floats, Bools, Floats]:
     """Per scenario and shape, the fewest node units that meet the deadline when the step varies by

@@ -14,7 +14,6 @@ year, and its present value at the cost of capital. Vectorised over scenarios.
 
 import functools
 from dataclasses import dataclass
-from functools import cached_property
 from typing import Literal
 
 import numpy as np
@@ -126,7 +125,7 @@ class CashFlow:
     operating: Floats
     rent: Floats
 
-    @cached_property
+    @functools.cached_property
     def total(self) -> Floats:
         return np.asarray(self.capital + self.operating + self.rent)
 
