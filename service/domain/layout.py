@@ -98,7 +98,7 @@ class Candidates:
                     column -= widths[at]
                     at += 1
                 read = self.blocks[at].cells(_FIRST, np.array([column]))
-                self._picked[chosen] = LayoutGrid(**{name: np.asarray(read(name)) for name in _FIGURE_NAMES})
+                self._picked[chosen] = LayoutGrid(**{name: _shared(read(name)) for name in _FIGURE_NAMES})
             return self._picked[chosen]
         ends = np.cumsum(self.widths)
         block_of = np.searchsorted(ends, index, side="right")
@@ -121,6 +121,14 @@ class Candidates:
                 out[chosen] = values
             return out
         return FiguresWhenRead.of(picked)
+
+
+def _shared(value: ArrayLike) -> Any:
+    """A figure of a layout that several options share, read-only so that none can change another's (a
+    reader's cells are its own arrays or views of the block, which this leaves writable)."""
+    array = np.asarray(value)
+    array.flags.writeable = False
+    return array
 
 
 def _field(name: str) -> Callable[[LayoutGrid], ArrayLike]:

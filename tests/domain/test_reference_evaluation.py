@@ -165,6 +165,30 @@ def test_many_scenarios_in_one_call_equal_each_scenario_alone_on_random_catalogs
     assert priced > 0  # the comparison means something only where some option has a price
 
 
+def test_a_quotes_terms_that_choose_one_layout_share_it_and_none_can_change_it() -> None:
+    """A quote (one scenario) reads every figure of each option's chosen layout, so the terms of a venue
+    that choose the same candidate share one (`Candidates.pick`, kept by column); its arrays are
+    read-only, so that no option can change another's figures. The tests above check that the shared
+    layouts are each scenario's own (many scenarios in one call, where nothing is shared, equal each
+    alone)."""
+    shared = 0
+    for seed in range(6):
+        rng = np.random.default_rng(1000 + seed)
+        catalog = random_catalog(rng)
+        campaign, overrides = random_campaign(rng, 1, vary_step=False)
+        evaluation = evaluate_campaign(catalog, one(campaign, 0), QuoteOptions(), one(overrides, 0))
+        by_venue: dict[str, list[Any]] = {}
+        for option in evaluation.options:
+            for f in dataclasses.fields(LayoutGrid):
+                figure = getattr(option.layout, f.name)
+                assert not figure.flags.writeable, (option.label, f.name)
+                with pytest.raises(ValueError):
+                    figure[...] = figure
+            by_venue.setdefault(option.venue_id, []).append(option.layout)
+        shared += sum(len(layouts) - len({id(layout) for layout in layouts}) for layouts in by_venue.values())
+    assert shared > 0  # some terms chose the same candidate as another term of their venue
+
+
 @pytest.mark.parametrize("seed", range(6))
 def test_where_the_step_varies_by_scenario_many_in_one_call_equal_each_alone(seed: int) -> None:
     """The step varies (the network by scenario): the deadline is searched per scenario from its own
