@@ -26,7 +26,7 @@ def broadcast(value: ArrayLike, shape: tuple[int, ...]) -> Any:
         return array
     if array.size == 1 and array.ndim <= len(shape) and not array.dtype.hasobject:
         repeated = np.ndarray(shape, dtype=array.dtype, buffer=np.ascontiguousarray(array), strides=(0,) * len(shape))
-        repeated.flags.writeable = False  # one value shared by every element
+        repeated.setflags(write=False)  # one value shared by every element
         return repeated
     return np.broadcast_to(array, shape)
 

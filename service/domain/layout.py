@@ -127,7 +127,7 @@ def _shared(value: ArrayLike) -> Any:
     """A figure of a layout that several options share, read-only so that none can change another's (a
     reader's cells are its own arrays or views of the block, which this leaves writable)."""
     array = np.asarray(value)
-    array.flags.writeable = False
+    array.setflags(write=False)
     return array
 
 
