@@ -380,6 +380,7 @@ class _Stopped(Exception):
 class RunnerTiming:
     heartbeat_seconds: float = 5.0  # how often a running sweep's runner says it is alive
     stale_after_seconds: float = 15.0  # a running sweep with no heartbeat for this long is taken over
+    stop_wait_seconds: float = 10.0  # how long `shutdown` waits for the runner's thread to stop
 
 
 class SweepRunner:
@@ -421,17 +422,21 @@ class SweepRunner:
 
     def shutdown(self) -> None:
         """Stop looking for work and hand the running sweep back to the queue, for a replica or the
-        next start of this one; its thread stops at its next chunk without writing."""
+        next start of this one; its thread stops at its next chunk without writing. Then wait for the
+        thread (at most `stop_wait_seconds`), so that no query of its is in flight when the storage is
+        closed: a connection checked in after `Storage.dispose` would stay open until collected."""
         self._stopping.set()
         self._wake.set()
         with self._lock:
-            running = self._running
+            running, thread = self._running, self._thread
             self._running = None
         if running is not None:
             self._lost.set()
             with self._storage.writing() as repository:
                 if repository.hand_back_sweep(running, runner=self.runner):
                     log.info("handed sweep %s back to the queue", running)
+        if thread is not None and thread is not threading.current_thread():
+            thread.join(self._timing.stop_wait_seconds)
 
     def _start(self) -> None:
         with self._lock:

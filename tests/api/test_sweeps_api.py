@@ -7,6 +7,7 @@ import copy
 import csv
 import io
 import json
+import threading
 import time
 from collections.abc import Iterator
 from typing import Any
@@ -37,6 +38,25 @@ def settings(database_url: str) -> Settings:
 def _stop_the_runner(app: FastAPI) -> Iterator[None]:
     yield
     app.state.sweeps.shutdown()
+
+
+def test_shutdown_waits_for_the_runners_look_for_work_to_finish(app: FastAPI) -> None:
+    """The runner looks for work on a thread of its own, from the app's start on. `shutdown` must wait
+    for a look in flight: its connection, checked in after the storage closed, would stay open (and
+    PostgreSQL would see it dropped when the database goes)."""
+    runner = app.state.sweeps
+    looking, looked = threading.Event(), threading.Event()
+
+    def slow_look() -> list[tuple[str, str | None]]:
+        looking.set()
+        time.sleep(0.3)
+        looked.set()
+        return []
+    runner._claimable = slow_look
+    runner.wake()
+    assert looking.wait(10.0)
+    runner.shutdown()
+    assert looked.is_set() and not runner._thread.is_alive()
 
 
 def small_grid() -> dict[str, Any]:
