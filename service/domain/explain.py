@@ -7,6 +7,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from service.domain import screens
+from service.domain.arrays import scenario_value
 from service.domain.breakeven import BEYOND_LIFE, NO_SAVING, Payback
 from service.domain.campaign import OwnedCostView
 from service.domain.catalog import Catalog, Colocation, Offer, Site
@@ -109,7 +110,7 @@ def _needs(option: OptionResult, i: int) -> str:
 
 
 def _at(value: np.ndarray, i: int) -> float:
-    return float(value[i] if np.ndim(value) else value)
+    return float(scenario_value(value, i))
 
 
 def _capacity_words(option: OptionResult, i: int, catalog: Catalog) -> str:

@@ -26,9 +26,10 @@ CANDIDATES_PER_SHAPE = 4  # the memory minimum, a site's two node limits (an off
 # The inputs that change prices, the work's length, the data or the deadline, but never a step's figures or a
 # candidate's node count. A sweep over these alone solves every scenario on one table of candidates
 # (layout.py) and lays out no (scenarios × candidates) array: its memory grows with the options (measured on
-# bench_sweeps' 10-venue catalog, 28 options: 5.7 KB a scenario, against 26-64 KB for a sweep over PUE, the
-# network or the model's size), so its chunks hold OPTION_SCENARIOS / options scenarios, at most
-# ONE_TABLE_FACTOR times the others' (twice the scenarios cost a chunk 14-16% less CPU per scenario there).
+# bench_sweeps' 10-venue catalog, 28 options, chunks of 12,500: about 3 KB a scenario, against 10 KB for a
+# sweep over the network and 17 KB over the model's size), so its chunks hold OPTION_SCENARIOS / options
+# scenarios, at most ONE_TABLE_FACTOR times the others' (twice the scenarios cost a chunk 14-16% less CPU per
+# scenario there).
 ONE_TABLE_PATHS = frozenset({
     "campaign.work.tokens", "campaign.runs.count", "campaign.runs.exploration_fraction",
     "campaign.runs.evaluation_fraction", "campaign.deadline_days", "campaign.data.dataset_tb",
