@@ -100,9 +100,10 @@ class ChunkResult:
 
 
 def evaluate_chunk(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Floats], *,
-                   kernel: Kernel | None = None) -> ChunkResult:
+                   kernel: Kernel | None = None, breakeven: bool = True) -> ChunkResult:
     """The chunk's scenarios evaluated, each term priced and chosen by `kernel` where one is given
-    (`compiled.kernel()`), else in numpy: the same answers."""
+    (`compiled.kernel()`), else in numpy: the same answers. Without `breakeven` (rows read as CSV, which
+    has no break-even column) the break-even utilisations are not made: no rows, an (0, S) array."""
     campaign, overrides = apply(plan.campaign, plan.overrides, inputs)
     size = len(next(iter(inputs.values()))) if inputs else 1
     evaluation = evaluate_campaign(catalog, campaign, plan.options, overrides, kernel=kernel)
@@ -113,7 +114,7 @@ def evaluate_chunk(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Float
                                           for o in options]), np.nan)
     owned = np.array([o.venue_kind == "owned" for o in options])
     best = np.where(feasible, totals, np.inf)
-    labels, utilisations = breakeven_utilisations(evaluation, size, kernel)
+    labels, utilisations = breakeven_utilisations(evaluation, size, kernel) if breakeven else ([], np.empty((0, size)))
     return ChunkResult(
         inputs=dict(inputs),
         labels=[o.label for o in options],

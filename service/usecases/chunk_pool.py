@@ -32,21 +32,21 @@ def sweep_kernel(scenarios: int) -> compiled.Kernel | None:
 
 
 def evaluate(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Floats],
-             kernel: compiled.Kernel | None = None) -> ChunkResult:
+             kernel: compiled.Kernel | None = None, *, breakeven: bool = True) -> ChunkResult:
     # Extreme but valid figures make infinite times, which the model screens out; numpy's
     # warnings about them would only be noise (as in quoting.quote).
     with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
-        return evaluate_chunk(catalog, plan, inputs, kernel=kernel)
+        return evaluate_chunk(catalog, plan, inputs, kernel=kernel, breakeven=breakeven)
 
 
 def evaluated(catalog: Catalog, plan: SweepPlan, chunks: Iterable[Mapping[str, Floats]], *,
-              processes: int) -> Iterator[ChunkResult]:
+              processes: int, breakeven: bool = True) -> Iterator[ChunkResult]:
     """Each chunk's result, in the order of `chunks`, from `processes` worker processes (here, in
-    this process, when it is 1)."""
+    this process, when it is 1); with its break-even utilisations unless `breakeven` is False."""
     if processes <= 1:
         kernel = sweep_kernel(plan.scenarios)
         for inputs in chunks:
-            yield evaluate(catalog, plan, inputs, kernel)
+            yield evaluate(catalog, plan, inputs, kernel, breakeven=breakeven)
         return
     share = -(-plan.scenarios // processes)  # what each worker prices
     # "spawn": a worker starts clean rather than as a copy of a process that may hold threads.
@@ -54,7 +54,7 @@ def evaluated(catalog: Catalog, plan: SweepPlan, chunks: Iterable[Mapping[str, F
                              initializer=_start_worker, initargs=(catalog, plan, share)) as pool:
         pending: deque[Future[ChunkResult]] = deque()
         for inputs in chunks:
-            pending.append(pool.submit(_evaluate_in_worker, dict(inputs)))
+            pending.append(pool.submit(_evaluate_in_worker, dict(inputs), breakeven))
             if len(pending) >= IN_FLIGHT_PER_WORKER * processes:
                 yield pending.popleft().result()
         while pending:
@@ -88,7 +88,7 @@ def keep_freed_arrays() -> bool:
         return False
 
 
-def _evaluate_in_worker(inputs: dict[str, Floats]) -> ChunkResult:
+def _evaluate_in_worker(inputs: dict[str, Floats], breakeven: bool) -> ChunkResult:
     assert _worker_sweep is not None, "the pool's initializer sets the sweep"
     catalog, plan, kernel = _worker_sweep
-    return evaluate(catalog, plan, inputs, kernel)
+    return evaluate(catalog, plan, inputs, kernel, breakeven=breakeven)

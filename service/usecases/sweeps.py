@@ -151,12 +151,13 @@ def run(prepared: PreparedSweep, *, keep_rows: int = ROWS_IN_JSON, progress: Pro
     return result, rows
 
 
-def _chunks(prepared: PreparedSweep, processes: int) -> Iterator[ChunkResult]:
+def _chunks(prepared: PreparedSweep, processes: int, *, breakeven: bool = True) -> Iterator[ChunkResult]:
     plan = prepared.plan
     size = chunk_size(prepared.catalog, plan.paths)
     inputs = (values for _, values in scenario_chunks(plan, size))
     # A sweep of one chunk gains nothing from starting worker processes.
-    yield from evaluated(prepared.catalog, plan, inputs, processes=processes if plan.scenarios > size else 1)
+    yield from evaluated(prepared.catalog, plan, inputs, processes=processes if plan.scenarios > size else 1,
+                         breakeven=breakeven)
 
 
 def _json_rows(chunk: Any, money: Money) -> list[dict[str, Any]]:
@@ -235,7 +236,7 @@ def csv_chunks(prepared: PreparedSweep, progress: Progress | None = None, proces
     column of the first row (empty below it, which keeps millions of rows small): a spreadsheet shows
     them at the top, and a reader that takes the first row as the header reads every row."""
     first = 0
-    for chunk in _chunks(prepared, processes):
+    for chunk in _chunks(prepared, processes, breakeven=False):  # rows have no break-even column
         for start in range(0, chunk.size, CSV_ROWS):
             part = slice(start, min(start + CSV_ROWS, chunk.size))
             yield _csv_rows(prepared, chunk, part, first)

@@ -24,10 +24,12 @@ thread before numpy loads, and CPU time of this process is what the rates divide
    the largest single process's peak from the kernel. A run that would pass RUN_LIMIT_SECONDS is
    stopped, and its full time is then an extrapolation from the rows it wrote, printed as such.
 
-2c. The same peak RSS for sweeps whose every scenario has its own step (section 1d's model size and
-   network, on the 10-venue catalog), OWN_STEP_CSV_SCENARIOS each streamed as CSV: such a chunk holds
-   far more per scenario than the demo sweep's (a search per scenario and venue), so the same bound is
-   held to them (target < 1 GB each; a stream's peak is its chunks', whatever its length).
+2c. The same peak RSS on the 10-venue catalog, each streamed as CSV: the demo sweep's draws
+   (TEN_VENUE_CSV_SCENARIOS; one table, but a chunk of twice the demo catalog's options, and rows twice
+   as wide), and sweeps whose every scenario has its own step (section 1d's model size and network,
+   OWN_STEP_CSV_SCENARIOS each): such a chunk holds far more per scenario than the demo sweep's (a
+   search per scenario and venue). The same bound is held to them (target < 1 GB each; a stream's peak
+   is its chunks' and those in flight, whatever its length).
 
 1b. Venue size: section 1's chunk and one quote with every offer at 64 nodes and at 100,000 (target:
    within 1.2x; the layout search must not grow with a venue's node limit).
@@ -372,6 +374,8 @@ OWN_STEP_SWEEPS: dict[str, tuple[str, float, float]] = {
 OWN_STEP_SCENARIOS = 10_000
 OWN_STEP_CSV = ("model size 5-80 billion parameters", "network 100-1,000 Gb/s")  # section 2c's sweeps
 OWN_STEP_CSV_SCENARIOS = 50_000
+TEN_VENUE_CSV = "the demo sweep's draws"  # section 2c's sweep of one table on the 10-venue catalog
+TEN_VENUE_CSV_SCENARIOS = 200_000  # enough chunks that as many are in flight as a stream of any length has
 
 
 def own_step_benchmark() -> None:
@@ -404,12 +408,16 @@ def sweep_file(directory: Path, samples: int) -> Path:
     return path
 
 
-def own_step_files(directory: Path, label: str, samples: int) -> tuple[Path, Path]:
-    """Section 1d's sweep `label` of `samples` draws, and the 10-venue catalog, as files for `berth sweep`."""
-    path, low, high = OWN_STEP_SWEEPS[label]
-    sweep = {"base": load(DEMO_SWEEP)["base"], "samples": samples, "seed": 3,
-             "distributions": {path: {"kind": "uniform", "low": low, "high": high}}}
-    sweep_path, catalog_path = directory / f"own-step-{samples}.json", directory / "ten-venues.json"
+def ten_venue_files(directory: Path, label: str, samples: int) -> tuple[Path, Path]:
+    """Section 1d's sweep `label` (or the demo sweep's draws, TEN_VENUE_CSV) of `samples` draws, and the
+    10-venue catalog, as files for `berth sweep`."""
+    if label == TEN_VENUE_CSV:
+        sweep = {**load(DEMO_SWEEP), "samples": samples}
+    else:
+        path, low, high = OWN_STEP_SWEEPS[label]
+        sweep = {"base": load(DEMO_SWEEP)["base"], "samples": samples, "seed": 3,
+                 "distributions": {path: {"kind": "uniform", "low": low, "high": high}}}
+    sweep_path, catalog_path = directory / f"ten-venue-{samples}.json", directory / "ten-venues.json"
     sweep_path.write_text(json.dumps(sweep), encoding="utf-8")
     catalog_path.write_text(json.dumps(ten_venue_catalog()), encoding="utf-8")
     return sweep_path, catalog_path
@@ -492,13 +500,14 @@ def end_to_end_json(directory: Path, scenarios: int) -> None:
             f"{elapsed:.2f} s ({elapsed / TARGET_E2E_SECONDS:.2f} of the target time)")
 
 
-def end_to_end_csv(directory: Path, scenarios: int, own_step: str | None = None) -> None:
-    """Section 2b, the demo sweep; or with `own_step`, section 2c's run of that sweep of section 1d."""
-    what = "" if own_step is None else f" ({own_step}, each scenario its own step, 10-venue catalog)"
-    print(f"== {'2b' if own_step is None else '2c'}. Peak RSS: berth sweep of {scenarios:,} scenarios{what} streamed "
+def end_to_end_csv(directory: Path, scenarios: int, ten_venue: str | None = None) -> None:
+    """Section 2b, the demo sweep; or with `ten_venue`, section 2c's run of that sweep on the 10-venue catalog."""
+    what = "" if ten_venue is None else (
+        f" ({ten_venue}{'' if ten_venue == TEN_VENUE_CSV else ', each scenario its own step'}, 10-venue catalog)")
+    print(f"== {'2b' if ten_venue is None else '2c'}. Peak RSS: berth sweep of {scenarios:,} scenarios{what} streamed "
           f"as CSV (stdout read and discarded), {os.cpu_count()} worker processes", flush=True)
-    path, catalog = (sweep_file(directory, scenarios), DEMO_CATALOG) if own_step is None else \
-        own_step_files(directory, own_step, scenarios)
+    path, catalog = (sweep_file(directory, scenarios), DEMO_CATALOG) if ten_venue is None else \
+        ten_venue_files(directory, ten_venue, scenarios)
     command = berth("sweep", str(path), "--catalog", str(catalog), "--format", "csv")
     time_tool = shutil.which("time", path="/usr/bin")
     report = directory / "time-v.txt"
@@ -581,9 +590,9 @@ def main() -> None:
         with tempfile.TemporaryDirectory(prefix="bench-sweeps-") as scratch:
             end_to_end_json(Path(scratch), E2E_SCENARIOS // 10 if quick else E2E_SCENARIOS)
             end_to_end_csv(Path(scratch), CSV_SCENARIOS // 10 if quick else CSV_SCENARIOS)
-            for label in OWN_STEP_CSV:
-                end_to_end_csv(Path(scratch), OWN_STEP_CSV_SCENARIOS // 10 if quick else OWN_STEP_CSV_SCENARIOS,
-                               own_step=label)
+            for label, scenarios in ((TEN_VENUE_CSV, TEN_VENUE_CSV_SCENARIOS),
+                                     *((label, OWN_STEP_CSV_SCENARIOS) for label in OWN_STEP_CSV)):
+                end_to_end_csv(Path(scratch), scenarios // 10 if quick else scenarios, ten_venue=label)
     print("== Summary" + (" (--quick: the end-to-end sizes are not the targets')" if quick else ""))
     for name, ok, figure in results:
         print(f"  {'PASS' if ok else 'MISS'}  {name}: {figure}")

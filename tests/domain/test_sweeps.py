@@ -447,6 +447,35 @@ def test_a_one_table_sweep_chunk_is_bounded_by_its_options() -> None:
     assert chunk_size(many, ["campaign.work.tokens"]) == max(size, OPTION_SCENARIOS // options) == size
 
 
+def test_a_chunk_without_break_even_is_the_same_chunk_less_its_break_even_rows() -> None:
+    """CSV rows have no break-even column, so their chunks skip the break-even utilisations (a chunk's
+    largest array on a larger catalog: (sites × rented options) × scenarios); every other figure is
+    the same, bit for bit."""
+    prep = prepared(monte_carlo())
+    (_, inputs), = scenario_chunks(prep.plan, prep.plan.scenarios)
+    full = evaluate_chunk(prep.catalog, prep.plan, inputs)
+    rows_only = evaluate_chunk(prep.catalog, prep.plan, inputs, breakeven=False)
+    assert full.breakeven_labels and full.breakeven_utilisation.shape == (len(full.breakeven_labels), full.size)
+    assert rows_only.breakeven_labels == [] and rows_only.breakeven_utilisation.shape == (0, full.size)
+    for name in ("labels", "owned", "totals", "cheapest", "owned_best", "rented_best"):
+        assert np.array_equal(getattr(full, name), getattr(rows_only, name), equal_nan=name == "totals"), name
+    assert all(np.array_equal(full.inputs[p], rows_only.inputs[p]) for p in full.inputs)
+
+
+def test_the_csv_stream_makes_no_break_even_figures_and_the_summary_does(monkeypatch: pytest.MonkeyPatch) -> None:
+    from service.domain import sweep as sweep_module
+    from service.usecases.sweeps import csv_chunks
+    made: list[int] = []
+    breakeven_utilisations = sweep_module.breakeven_utilisations
+    monkeypatch.setattr(sweep_module, "breakeven_utilisations",
+                        lambda *args, **kwargs: made.append(1) or breakeven_utilisations(*args, **kwargs))
+    prep = prepared(monte_carlo())
+    assert "".join(csv_chunks(prep)).count("\r\n") == prep.plan.scenarios + 1
+    assert made == []
+    summary, _ = run(prep)
+    assert made and summary["breakeven_utilisation"]
+
+
 def test_streams_are_keyed_by_seed_and_name() -> None:
     same = stream(7, "overrides.pue").random(5), stream(7, "overrides.pue").random(5)
     assert np.array_equal(*same)
