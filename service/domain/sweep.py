@@ -164,21 +164,28 @@ class Reservoir:
         return self._sample is None
 
     def percentiles(self, q: tuple[float, ...]) -> list[float | None]:
-        data = self._sample if self._sample is not None else (
-            np.concatenate(self._parts) if self._parts else np.zeros(0))
+        if self._sample is None and not self._parts:
+            return [None for _ in q]
+        # The values pooled into a fresh array, partitioned in place (the sample is kept as it is).
+        data = self._sample.copy() if self._sample is not None else np.concatenate(self._parts)
         if data.size == 0:
             return [None for _ in q]
-        return [float(v) for v in np.percentile(data, q)]
+        return [float(v) for v in np.percentile(data, q, overwrite_input=True)]
 
 
 PERCENTILES = (5.0, 50.0, 95.0)
+# Values the percentile reservoirs of one sweep hold together (256 MB of float64), shared evenly among its
+# options and break-even rows: a summary's memory is bounded whatever the catalog (ten venues have 108
+# reservoirs; at 2,000,000 each they held 1.7 GB). Each holds at least RESERVOIR_FLOOR.
+RESERVOIR_VALUES = 32_000_000
+RESERVOIR_FLOOR = 1_000
 
 
 class SweepSummary:
     """Accumulates chunk results into the sweep's summary (api.md: per option p5/p50/p95 of total
     cost and share cheapest; probability owning beats renting; break-even utilisation percentiles)."""
 
-    def __init__(self, *, reservoir_capacity: int = 2_000_000, seed: int = 0) -> None:
+    def __init__(self, *, reservoir_values: int = RESERVOIR_VALUES, seed: int = 0) -> None:
         self.scenarios = 0
         self.labels: list[str] = []
         self.owned_labels: set[str] = set()
@@ -190,7 +197,8 @@ class SweepSummary:
         self._breakeven_labels: list[tuple[str, str, str]] = []
         self._breakeven: list[Reservoir] = []
         self._breakeven_reachable: Ints | None = None
-        self._capacity = reservoir_capacity
+        self._values = reservoir_values
+        self._capacity = 0  # each reservoir's, once the first chunk tells how many there are
         self._seed = seed
 
     def add(self, chunk: ChunkResult) -> None:
@@ -198,6 +206,7 @@ class SweepSummary:
             self.labels = chunk.labels
             self.owned_labels = {label for label, own in zip(chunk.labels, chunk.owned, strict=True) if own}
             count = len(chunk.labels)
+            self._capacity = max(RESERVOIR_FLOOR, self._values // max(count + len(chunk.breakeven_labels), 1))
             self._cheapest = np.zeros(count, np.int64)
             self._feasible = np.zeros(count, np.int64)
             self._totals = [Reservoir(self._capacity, self._seed + k) for k in range(count)]

@@ -31,7 +31,10 @@ from service.domain.sweep import (
     ONE_TABLE_FACTOR,
     ONE_TABLE_PATHS,
     OPTION_SCENARIOS,
+    RESERVOIR_FLOOR,
+    RESERVOIR_VALUES,
     Reservoir,
+    SweepSummary,
     chunk_size,
     evaluate_chunk,
     scenario_chunks,
@@ -669,6 +672,39 @@ def test_above_capacity_the_median_is_close_to_the_true_median() -> None:
     assert p50 is not None
     # sd of a sample median ≈ 1 / (2 f(m) sqrt(k)) = 1 / sqrt(k) here (f(ln 2) = 1/2): about 1% of ln 2
     assert abs(p50 - math.log(2)) <= 0.035, p50
+
+
+def test_reading_the_percentiles_leaves_the_sample_as_it_was() -> None:
+    """The values are partitioned in place for the percentiles: a copy of the sample, never the sample."""
+    reservoir = _filled(7, np.random.default_rng(3).normal(size=50_000), 5_000, 20_000)
+    kept = np.asarray(reservoir._sample).copy()
+    first = reservoir.percentiles(Q)
+    assert np.array_equal(np.asarray(reservoir._sample), kept)
+    assert reservoir.percentiles(Q) == first == np.percentile(kept, Q).tolist()
+
+
+def test_a_summarys_reservoirs_share_one_budget_of_values() -> None:
+    """However many options and break-even rows a catalog makes, a sweep's reservoirs hold at most
+    RESERVOIR_VALUES values together (each at least RESERVOIR_FLOOR): exact percentiles while every
+    scenario fits, then each from a seeded sample of its share, which the summary names."""
+    prep = prepared(monte_carlo(samples=3000))
+    (_, inputs), = scenario_chunks(prep.plan, prep.plan.scenarios)
+    chunk = evaluate_chunk(prep.catalog, prep.plan, inputs)
+    reservoirs = len(chunk.labels) + len(chunk.breakeven_labels)
+    budget = reservoirs * 1_200  # 1,200 values each: fewer than the sweep's scenarios
+    summary = SweepSummary(reservoir_values=budget, seed=3)
+    summary.add(chunk)
+    held = [r for r in (*summary._totals, *summary._breakeven)]
+    assert len(held) == reservoirs and {r.capacity for r in held} == {1_200}
+    assert sum(r.seen if r.exact else np.asarray(r._sample).size for r in held) <= budget
+    assert summary.result()["percentiles"] == "estimated from a seeded sample of 1,200 scenarios"
+    exact = SweepSummary(seed=3)
+    exact.add(chunk)
+    assert exact.result()["percentiles"] == "exact"
+    assert exact._totals[0].capacity == max(RESERVOIR_FLOOR, RESERVOIR_VALUES // reservoirs)
+    tiny = SweepSummary(reservoir_values=10, seed=3)  # a budget below the floor: the floor holds
+    tiny.add(chunk)
+    assert tiny._totals[0].capacity == RESERVOIR_FLOOR
 
 
 def test_the_reservoir_is_deterministic_for_a_seed() -> None:
