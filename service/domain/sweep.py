@@ -152,10 +152,11 @@ class Reservoir:
             self._sample = pooled[np.sort(keep)]
             self.seen += values.size
             return
-        # Algorithm R, vectorised: item j (0-based, overall) replaces a random slot with p = capacity / (j+1).
-        positions = self.seen + np.arange(values.size)
-        slots = (self._generator.random(values.size) * (positions + 1)).astype(np.int64)
-        taken = slots < self.capacity
+        # Algorithm R, vectorised: item j (0-based, overall) replaces a random slot with p = capacity / (j+1)
+        # (the items taken read by their positions: a boolean mask applied twice cost twice as much).
+        slots = (self._generator.random(values.size) * np.arange(self.seen + 1, self.seen + 1 + values.size)
+                 ).astype(np.int64)
+        taken = np.flatnonzero(slots < self.capacity)
         self._sample[slots[taken]] = values[taken]
         self.seen += values.size
 
