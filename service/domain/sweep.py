@@ -165,10 +165,9 @@ class Reservoir:
         return self._sample is None
 
     def percentiles(self, q: tuple[float, ...]) -> list[float | None]:
-        if self._sample is None and not self._parts:
-            return [None for _ in q]
         # The values pooled into a fresh array, partitioned in place (the sample is kept as it is).
-        data = self._sample.copy() if self._sample is not None else np.concatenate(self._parts)
+        data = (self._sample.copy() if self._sample is not None
+                else np.concatenate(self._parts) if self._parts else np.zeros(0))
         if data.size == 0:
             return [None for _ in q]
         return [float(v) for v in np.percentile(data, q, overwrite_input=True)]
