@@ -141,17 +141,17 @@ class Reservoir:
 
     def add(self, values: Floats) -> None:
         values = values[np.isfinite(values)]
-        if self._sample is None and self.seen + values.size <= self.capacity:
-            self._parts.append(values)  # a fresh array: the mask above copied it
-            self.seen += values.size
-            return
         if self._sample is None:
+            if self.seen + values.size <= self.capacity:
+                self._parts.append(values)  # a fresh array: the mask above copied it
+                self.seen += values.size
+                return
+            # Full: the first `capacity` items fill the sample, the rest go through Algorithm R below (one
+            # random draw per further item, where sampling the whole pool without replacement drew for all).
             pooled = np.concatenate([*self._parts, values])
             self._parts = []
-            keep = self._generator.choice(pooled.size, self.capacity, replace=False)
-            self._sample = pooled[np.sort(keep)]
-            self.seen += values.size
-            return
+            self._sample, values = pooled[:self.capacity], pooled[self.capacity:]  # views: no further copy
+            self.seen = self.capacity
         # Algorithm R, vectorised: item j (0-based, overall) replaces a random slot with p = capacity / (j+1)
         # (the items taken read by their positions: a boolean mask applied twice cost twice as much).
         slots = (self._generator.random(values.size) * np.arange(self.seen + 1, self.seen + 1 + values.size)
