@@ -130,30 +130,28 @@ def evaluate_chunk(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Float
 
 class Reservoir:
     """Values for percentiles: all of them up to `capacity`, then a uniform random sample of that
-    many (seeded, so the summary reproduces)."""
+    many (seeded, so the summary reproduces). They are written into one array of `capacity` made at
+    the first values, in order while they fit: nothing is pooled or copied when it fills, and its memory
+    is touched only as far as it is filled."""
 
     def __init__(self, capacity: int, seed: int) -> None:
         self.capacity = capacity
         self.seen = 0
-        self._parts: list[Floats] = []
         self._sample: Floats | None = None
         self._generator = np.random.default_rng(np.random.SeedSequence([seed, 0x5EED]))
 
     def add(self, values: Floats) -> None:
         values = values[np.isfinite(values)]
         if self._sample is None:
-            if self.seen + values.size <= self.capacity:
-                self._parts.append(values)  # a fresh array: the mask above copied it
-                self.seen += values.size
-                return
-            # Full: the first `capacity` items fill the sample, the rest go through Algorithm R below (one
-            # random draw per further item, where sampling the whole pool without replacement drew for all).
-            pooled = np.concatenate([*self._parts, values])
-            self._parts = []
-            self._sample, values = pooled[:self.capacity], pooled[self.capacity:]  # views: no further copy
-            self.seen = self.capacity
-        # Algorithm R, vectorised: item j (0-based, overall) replaces a random slot with p = capacity / (j+1)
-        # (the items taken read by their positions: a boolean mask applied twice cost twice as much).
+            self._sample = np.empty(self.capacity)
+        if self.seen < self.capacity:  # room left: every value is kept, in order
+            fill = min(self.capacity - self.seen, values.size)
+            self._sample[self.seen:self.seen + fill] = values[:fill]
+            self.seen += fill
+            values = values[fill:]
+        # Algorithm R, vectorised, for the values beyond the room: item j (0-based, overall) replaces a random
+        # slot with p = capacity / (j+1) (the items taken read by their positions: a boolean mask applied
+        # twice cost twice as much).
         slots = (self._generator.random(values.size) * np.arange(self.seen + 1, self.seen + 1 + values.size)
                  ).astype(np.int64)
         taken = np.flatnonzero(slots < self.capacity)
@@ -162,12 +160,15 @@ class Reservoir:
 
     @property
     def exact(self) -> bool:
-        return self._sample is None
+        return self.seen <= self.capacity
+
+    @property
+    def held(self) -> Floats:
+        """The values kept: every one so far while they fit, else the sample (a view)."""
+        return np.zeros(0) if self._sample is None else self._sample[:min(self.seen, self.capacity)]
 
     def percentiles(self, q: tuple[float, ...]) -> list[float | None]:
-        # The values pooled into a fresh array, partitioned in place (the sample is kept as it is).
-        data = (self._sample.copy() if self._sample is not None
-                else np.concatenate(self._parts) if self._parts else np.zeros(0))
+        data = self.held.copy()  # partitioned in place below; the reservoir is kept as it is
         if data.size == 0:
             return [None for _ in q]
         return [float(v) for v in np.percentile(data, q, overwrite_input=True)]

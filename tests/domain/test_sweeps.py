@@ -655,7 +655,7 @@ def test_above_capacity_the_sample_is_uniform_over_the_whole_stream() -> None:
     positions = np.arange(n, dtype=np.float64)
     reservoir = _filled(3, positions, capacity, 37_000)
     assert not reservoir.exact and reservoir.seen == n
-    sample = np.asarray(reservoir._sample)
+    sample = reservoir.held
     assert sample.size == capacity and np.unique(sample).size == capacity  # without replacement
     counts = np.bincount((sample // (n // 10)).astype(np.int64), minlength=10)
     expected = capacity / 10
@@ -677,9 +677,9 @@ def test_above_capacity_the_median_is_close_to_the_true_median() -> None:
 def test_reading_the_percentiles_leaves_the_sample_as_it_was() -> None:
     """The values are partitioned in place for the percentiles: a copy of the sample, never the sample."""
     reservoir = _filled(7, np.random.default_rng(3).normal(size=50_000), 5_000, 20_000)
-    kept = np.asarray(reservoir._sample).copy()
+    kept = reservoir.held.copy()
     first = reservoir.percentiles(Q)
-    assert np.array_equal(np.asarray(reservoir._sample), kept)
+    assert np.array_equal(reservoir.held, kept)
     assert reservoir.percentiles(Q) == first == np.percentile(kept, Q).tolist()
 
 
@@ -696,7 +696,8 @@ def test_a_summarys_reservoirs_share_one_budget_of_values() -> None:
     summary.add(chunk)
     held = [r for r in (*summary._totals, *summary._breakeven)]
     assert len(held) == reservoirs and {r.capacity for r in held} == {1_200}
-    assert sum(r.seen if r.exact else np.asarray(r._sample).size for r in held) <= budget
+    assert sum(r.held.size for r in held) <= budget and any(not r.exact for r in held)
+    assert all(r.held.size == min(r.seen, 1_200) for r in held)  # only finite values are counted and kept
     assert summary.result()["percentiles"] == "estimated from a seeded sample of 1,200 scenarios"
     exact = SweepSummary(seed=3)
     exact.add(chunk)
