@@ -31,7 +31,7 @@ from service.storage.migrate import upgrade
 from service.storage.repository import Storage
 from service.usecases.catalogs import ParsedCatalogs, load_demo_catalog
 from service.usecases.idempotency import release_dead_claims
-from service.usecases.sweeps import RunnerTiming, SweepRunner
+from service.usecases.stored_sweeps import RunnerTiming, SweepRunner
 
 log = logging.getLogger("berth")
 GZIP_FROM_BYTES = 1024  # smaller answers gain little and cost a compression each

@@ -128,65 +128,78 @@ def evaluate_chunk(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Float
     )
 
 
-class Reservoir:
-    """Values for percentiles: all of them up to `capacity`, then a uniform random sample of that
-    many (seeded, so the summary reproduces). They are written into one array of `capacity` made at
-    the first values, in order while they fit: nothing is pooled or copied when it fills, and its memory
-    is touched only as far as it is filled."""
+class ScenarioSample:
+    """Rows of one value per scenario (an option's total, a break-even row's utilisation) kept for their
+    percentiles: every scenario's while the sweep has at most `capacity`, else those of a uniform random
+    sample of `capacity` of its scenarios, drawn without replacement when the sample is made (seeded, so the
+    summary reproduces, with the same answer for any number of processes). The sweep's size is known before
+    its first chunk, so the scenarios sampled are too: each chunk's values are gathered at them and written
+    after the last chunk's, and nothing is drawn or replaced per value (a reservoir drawing per value and per
+    row cost a 1,000,000-scenario sweep on ten venues 1.7 s of its 11). Memory is touched only as far as it is
+    filled. A row's percentiles read its finite values among the scenarios kept (NaN or infinite where an
+    option is infeasible or a break-even unreachable)."""
 
-    def __init__(self, capacity: int, seed: int) -> None:
+    def __init__(self, rows: int, scenarios: int, capacity: int, seed: int) -> None:
+        self.scenarios = scenarios
         self.capacity = capacity
         self.seen = 0
-        self._sample: Floats | None = None
-        self._generator = np.random.default_rng(np.random.SeedSequence([seed, 0x5EED]))
-
-    def add(self, values: Floats) -> None:
-        values = values[np.isfinite(values)]
-        if self._sample is None:
-            self._sample = np.empty(self.capacity)
-        if self.seen < self.capacity:  # room left: every value is kept, in order
-            fill = min(self.capacity - self.seen, values.size)
-            self._sample[self.seen:self.seen + fill] = values[:fill]
-            self.seen += fill
-            values = values[fill:]
-        # Algorithm R, vectorised, for the values beyond the room: item j (0-based, overall) replaces a random
-        # slot with p = capacity / (j+1) (the items taken read by their positions: a boolean mask applied
-        # twice cost twice as much).
-        slots = (self._generator.random(values.size) * np.arange(self.seen + 1, self.seen + 1 + values.size)
-                 ).astype(np.int64)
-        taken = np.flatnonzero(slots < self.capacity)
-        self._sample[slots[taken]] = values[taken]
-        self.seen += values.size
+        self._filled = 0
+        self._values = np.empty((rows, min(scenarios, capacity)))
+        generator = np.random.default_rng(np.random.SeedSequence([seed, 0x5EED]))
+        self._sampled: Ints | None = (None if self.exact
+                                      else np.sort(generator.choice(scenarios, capacity, replace=False)))
 
     @property
     def exact(self) -> bool:
-        return self.seen <= self.capacity
+        return self.scenarios <= self.capacity
+
+    def add(self, *blocks: Floats) -> None:
+        """The next chunk's scenarios: `blocks` of (rows, scenarios) arrays, together the sample's rows."""
+        size = blocks[0].shape[1]
+        if self.seen + size > self.scenarios:
+            raise ValueError(f"more than the {self.scenarios:,} scenarios this sample was made for")
+        if self._sampled is None:
+            at: slice | Ints = slice(None)
+            count = size
+        else:
+            first, last = np.searchsorted(self._sampled, (self.seen, self.seen + size))
+            at = self._sampled[first:last] - self.seen
+            count = int(last - first)
+        row = 0
+        for block in blocks:
+            self._values[row:row + len(block), self._filled:self._filled + count] = block[:, at]
+            row += len(block)
+        self._filled += count
+        self.seen += size
 
     @property
     def held(self) -> Floats:
-        """The values kept: every one so far while they fit, else the sample (a view)."""
-        return np.zeros(0) if self._sample is None else self._sample[:min(self.seen, self.capacity)]
+        """The values kept so far, (rows, scenarios kept): a view."""
+        return self._values[:, :self._filled]
 
-    def percentiles(self, q: tuple[float, ...]) -> list[float | None]:
-        data = self.held.copy()  # partitioned in place below; the reservoir is kept as it is
+    def percentiles(self, row: int, q: tuple[float, ...]) -> list[float | None]:
+        values = self.held[row]
+        data = values[np.isfinite(values)]  # a copy, partitioned in place below
         if data.size == 0:
             return [None for _ in q]
         return [float(v) for v in np.percentile(data, q, overwrite_input=True)]
 
 
 PERCENTILES = (5.0, 50.0, 95.0)
-# Values the percentile reservoirs of one sweep hold together (256 MB of float64), shared evenly among its
-# options and break-even rows: a summary's memory is bounded whatever the catalog (ten venues have 108
-# reservoirs; at 2,000,000 each they held 1.7 GB). Each holds at least RESERVOIR_FLOOR.
-RESERVOIR_VALUES = 32_000_000
-RESERVOIR_FLOOR = 1_000
+# Values a sweep keeps for its percentiles (256 MB of float64), shared by its options and break-even rows: a
+# summary's memory is bounded whatever the catalog (ten venues have 108 rows; at 2,000,000 values each they held
+# 1.7 GB). The scenarios kept are the budget over the rows, at least SAMPLE_FLOOR.
+SAMPLE_VALUES = 32_000_000
+SAMPLE_FLOOR = 1_000
 
 
 class SweepSummary:
     """Accumulates chunk results into the sweep's summary (api.md: per option p5/p50/p95 of total
-    cost and share cheapest; probability owning beats renting; break-even utilisation percentiles)."""
+    cost and share cheapest; probability owning beats renting; break-even utilisation percentiles),
+    for a sweep of `scenarios` scenarios."""
 
-    def __init__(self, *, reservoir_values: int = RESERVOIR_VALUES, seed: int = 0) -> None:
+    def __init__(self, scenarios: int, *, sample_values: int = SAMPLE_VALUES, seed: int = 0) -> None:
+        self.planned = scenarios
         self.scenarios = 0
         self.labels: list[str] = []
         self.owned_labels: set[str] = set()
@@ -194,26 +207,23 @@ class SweepSummary:
         self._feasible: Ints | None = None
         self._nothing_feasible = 0
         self._owning_wins = 0
-        self._totals: list[Reservoir] = []
         self._breakeven_labels: list[tuple[str, str, str]] = []
-        self._breakeven: list[Reservoir] = []
         self._breakeven_reachable: Ints | None = None
-        self._values = reservoir_values
-        self._capacity = 0  # each reservoir's, once the first chunk tells how many there are
+        self._sample_values = sample_values
+        self._sample: ScenarioSample | None = None  # made at the first chunk, which tells how many rows
         self._seed = seed
 
     def add(self, chunk: ChunkResult) -> None:
-        if not self.labels:
+        if self._sample is None:
             self.labels = chunk.labels
             self.owned_labels = {label for label, own in zip(chunk.labels, chunk.owned, strict=True) if own}
             count = len(chunk.labels)
-            self._capacity = max(RESERVOIR_FLOOR, self._values // max(count + len(chunk.breakeven_labels), 1))
+            rows = count + len(chunk.breakeven_labels)
+            self._sample = ScenarioSample(rows, self.planned, max(SAMPLE_FLOOR, self._sample_values // max(rows, 1)),
+                                          self._seed)
             self._cheapest = np.zeros(count, np.int64)
             self._feasible = np.zeros(count, np.int64)
-            self._totals = [Reservoir(self._capacity, self._seed + k) for k in range(count)]
             self._breakeven_labels = chunk.breakeven_labels
-            self._breakeven = [Reservoir(self._capacity, self._seed + 10_000 + k)
-                               for k in range(len(chunk.breakeven_labels))]
             self._breakeven_reachable = np.zeros(len(chunk.breakeven_labels), np.int64)
         assert self._cheapest is not None and self._feasible is not None
         assert self._breakeven_reachable is not None
@@ -223,17 +233,14 @@ class SweepSummary:
         self._nothing_feasible += int((chunk.cheapest < 0).sum())
         self._feasible += np.isfinite(chunk.totals).sum(axis=1)
         self._owning_wins += int((chunk.owned_best < chunk.rented_best).sum())
-        for reservoir, totals in zip(self._totals, chunk.totals, strict=True):
-            reservoir.add(totals)
-        for reservoir, utilisation in zip(self._breakeven, chunk.breakeven_utilisation, strict=True):
-            reservoir.add(utilisation)
+        self._sample.add(chunk.totals, chunk.breakeven_utilisation)
         self._breakeven_reachable += np.isfinite(chunk.breakeven_utilisation).sum(axis=1)
 
     def result(self) -> dict[str, object]:
         n = max(self.scenarios, 1)
         options = []
         for k, label in enumerate(self.labels):
-            p5, p50, p95 = self._totals[k].percentiles(PERCENTILES)
+            p5, p50, p95 = self._percentiles(k)
             options.append({
                 "option": label,
                 "total_p5": p5, "total_p50": p50, "total_p95": p95,
@@ -242,20 +249,26 @@ class SweepSummary:
             })
         breakeven = []
         for k, (site, offer, term) in enumerate(self._breakeven_labels):
-            p5, p50, p95 = self._breakeven[k].percentiles(PERCENTILES)
+            p5, p50, p95 = self._percentiles(len(self.labels) + k)
             reachable = self._breakeven_reachable[k] if self._breakeven_reachable is not None else 0
             breakeven.append({"site": site, "offer": offer, "term": term, "utilisation_p5": p5,
                               "utilisation_p50": p50, "utilisation_p95": p95,
                               "reachable_share": float(reachable) / n})
-        exact = all(r.exact for r in (*self._totals, *self._breakeven))
+        sample = self._sample
         return {
             "scenarios": self.scenarios,
             "options": options,
             "nothing_feasible_share": self._nothing_feasible / n,
             "probability_owning_beats_renting": self._owning_wins / n,
             "breakeven_utilisation": breakeven,
-            "percentiles": "exact" if exact else f"estimated from a seeded sample of {self._capacity:,} scenarios",
+            "percentiles": ("exact" if sample is None or sample.exact
+                            else f"estimated from a seeded sample of {sample.capacity:,} scenarios"),
         }
+
+    def _percentiles(self, row: int) -> list[float | None]:
+        """The row's (the options', then the break-even rows') percentiles."""
+        assert self._sample is not None, "a row exists once a chunk has made the sample"
+        return self._sample.percentiles(row, PERCENTILES)
 
 
 def chunk_size(catalog: Catalog, paths: Iterable[str] = ()) -> int:

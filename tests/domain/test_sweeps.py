@@ -1,7 +1,7 @@
 """Sweeps: every row equals the single quote with the same inputs; draws are seeded and do not
 depend on the listing order or the chunk size; distributions draw what numpy's Generator draws,
-with the analytic moments; the tornado sorts by effect; the reservoir keeps exact percentiles
-below its capacity and a uniform sample above it; and a sweep that cannot run names its field.
+with the analytic moments; the tornado sorts by effect; the scenario sample keeps exact percentiles
+below its capacity and a uniform sample of scenarios above it; and a sweep that cannot run names its field.
 
 All figures are demo data (invented ids and prices); reference values come from numpy itself
 (Generator draws, np.percentile) or from closed-form moments, never from the code under test.
@@ -31,9 +31,9 @@ from service.domain.sweep import (
     ONE_TABLE_FACTOR,
     ONE_TABLE_PATHS,
     OPTION_SCENARIOS,
-    RESERVOIR_FLOOR,
-    RESERVOIR_VALUES,
-    Reservoir,
+    SAMPLE_FLOOR,
+    SAMPLE_VALUES,
+    ScenarioSample,
     SweepSummary,
     chunk_size,
     evaluate_chunk,
@@ -624,51 +624,63 @@ def test_tornado_bars_centre_on_the_base_value_or_the_grid_median_and_clip_to_th
     assert tornado_bars(prepared({"base": base, "grid": {"overrides.pue": [1.2]}})) is None
 
 
-# ---- the reservoir -----------------------------------------------------------------------------
+# ---- the scenario sample -----------------------------------------------------------------------
 
 Q = (5.0, 25.0, 50.0, 75.0, 95.0)
 
 
+def _filled(seed: int, rows: np.ndarray, capacity: int, chunk: int) -> ScenarioSample:
+    """A sample of `rows` (rows, scenarios), given to it `chunk` scenarios at a time."""
+    sample = ScenarioSample(len(rows), rows.shape[1], capacity, seed)
+    for start in range(0, rows.shape[1], chunk):
+        sample.add(rows[:, start:start + chunk])
+    return sample
+
+
 def test_below_capacity_the_percentiles_are_exact() -> None:
     generator = np.random.default_rng(5)
-    parts = [generator.lognormal(0.0, 1.0, n) for n in (1000, 37, 2500)]
-    parts[1][::3] = np.nan  # infeasible scenarios are left out
-    reservoir = Reservoir(capacity=5000, seed=1)
+    parts = [generator.lognormal(0.0, 1.0, (3, n)) for n in (1000, 37, 2500)]
+    parts[1][0, ::3] = np.nan  # infeasible scenarios are left out of that row's percentiles
+    parts[2][1, :100] = np.inf  # as are unreachable break-even rows
+    parts[0][2], parts[1][2], parts[2][2] = np.nan, np.nan, np.nan  # a row with no value at all
+    sample = ScenarioSample(3, 3537, capacity=5000, seed=1)
     for part in parts:
-        reservoir.add(part)
-    values = np.concatenate(parts)
-    assert reservoir.exact
-    assert reservoir.percentiles(Q) == np.percentile(values[np.isfinite(values)], Q).tolist()
-    assert Reservoir(capacity=10, seed=1).percentiles(Q) == [None] * len(Q)
+        sample.add(part[:1], part[1:])  # blocks of rows, as a summary gives its totals and break-even rows
+    values = np.concatenate(parts, axis=1)
+    assert sample.exact
+    for row in (0, 1):
+        finite = values[row][np.isfinite(values[row])]
+        assert sample.percentiles(row, Q) == np.percentile(finite, Q).tolist()
+    assert sample.percentiles(2, Q) == [None] * len(Q)
 
 
-def _filled(seed: int, values: np.ndarray, capacity: int, chunk: int) -> Reservoir:
-    reservoir = Reservoir(capacity=capacity, seed=seed)
-    for start in range(0, values.size, chunk):
-        reservoir.add(values[start:start + chunk])
-    return reservoir
-
-
-def test_above_capacity_the_sample_is_uniform_over_the_whole_stream() -> None:
+def test_above_capacity_the_sample_is_uniform_over_the_whole_stream_and_the_same_scenarios_for_every_row() -> None:
     n, capacity = 1_000_000, 20_000
-    # The stream's values are its positions, so a sample favouring early or late items would show.
+    # The stream's values are its positions, so a sample favouring early or late scenarios would show.
     positions = np.arange(n, dtype=np.float64)
-    reservoir = _filled(3, positions, capacity, 37_000)
-    assert not reservoir.exact and reservoir.seen == n
-    sample = reservoir.held
-    assert sample.size == capacity and np.unique(sample).size == capacity  # without replacement
-    counts = np.bincount((sample // (n // 10)).astype(np.int64), minlength=10)
+    sample = _filled(3, np.stack([positions, -positions]), capacity, 37_000)
+    assert not sample.exact and sample.seen == n
+    held = sample.held[0]
+    assert held.size == capacity and np.unique(held).size == capacity  # without replacement
+    assert np.array_equal(sample.held[1], -held)  # every row at the same scenarios
+    counts = np.bincount((held // (n // 10)).astype(np.int64), minlength=10)
     expected = capacity / 10
     chi_square = float(np.sum((counts - expected) ** 2 / expected))
     assert chi_square < 40.0, counts  # 9 degrees of freedom: P(χ² > 40) ≈ 7e-6 for a uniform sample
     se = n / math.sqrt(12 * capacity)
-    assert abs(sample.mean() - (n - 1) / 2) <= SE_TOLERANCE * se
+    assert abs(held.mean() - (n - 1) / 2) <= SE_TOLERANCE * se
+
+
+def test_the_sample_does_not_depend_on_how_the_scenarios_are_cut_into_chunks() -> None:
+    rows = np.random.default_rng(2).normal(size=(2, 300_000))
+    cut = [_filled(7, rows, 10_000, chunk).held for chunk in (40_000, 12_345, 300_000)]
+    assert all(np.array_equal(cut[0], other) for other in cut[1:])
 
 
 def test_above_capacity_the_median_is_close_to_the_true_median() -> None:
     n, capacity = 1_000_000, 20_000
-    values = np.random.default_rng(9).exponential(1.0, n)  # true median ln 2
-    p50 = _filled(4, values, capacity, 50_000).percentiles((50.0,))[0]
+    values = np.random.default_rng(9).exponential(1.0, (1, n))  # true median ln 2
+    p50 = _filled(4, values, capacity, 50_000).percentiles(0, (50.0,))[0]
     assert p50 is not None
     # sd of a sample median ≈ 1 / (2 f(m) sqrt(k)) = 1 / sqrt(k) here (f(ln 2) = 1/2): about 1% of ln 2
     assert abs(p50 - math.log(2)) <= 0.035, p50
@@ -676,43 +688,50 @@ def test_above_capacity_the_median_is_close_to_the_true_median() -> None:
 
 def test_reading_the_percentiles_leaves_the_sample_as_it_was() -> None:
     """The values are partitioned in place for the percentiles: a copy of the sample, never the sample."""
-    reservoir = _filled(7, np.random.default_rng(3).normal(size=50_000), 5_000, 20_000)
-    kept = reservoir.held.copy()
-    first = reservoir.percentiles(Q)
-    assert np.array_equal(reservoir.held, kept)
-    assert reservoir.percentiles(Q) == first == np.percentile(kept, Q).tolist()
+    sample = _filled(7, np.random.default_rng(3).normal(size=(1, 50_000)), 5_000, 20_000)
+    kept = sample.held.copy()
+    first = sample.percentiles(0, Q)
+    assert np.array_equal(sample.held, kept)
+    assert sample.percentiles(0, Q) == first == np.percentile(kept[0], Q).tolist()
 
 
-def test_a_summarys_reservoirs_share_one_budget_of_values() -> None:
-    """However many options and break-even rows a catalog makes, a sweep's reservoirs hold at most
-    RESERVOIR_VALUES values together (each at least RESERVOIR_FLOOR): exact percentiles while every
-    scenario fits, then each from a seeded sample of its share, which the summary names."""
+def test_a_sample_takes_no_more_scenarios_than_it_was_made_for() -> None:
+    sample = ScenarioSample(1, 10, capacity=5, seed=1)
+    sample.add(np.ones((1, 6)))
+    with pytest.raises(ValueError, match="more than the 10 scenarios"):
+        sample.add(np.ones((1, 5)))
+    assert sample.seen == 6  # the refused chunk left nothing behind
+
+
+def test_a_summarys_sample_holds_one_budget_of_values() -> None:
+    """However many options and break-even rows a catalog makes, a sweep's summary holds at most
+    SAMPLE_VALUES values (at least SAMPLE_FLOOR scenarios): exact percentiles while every scenario fits,
+    then from a seeded sample of the scenarios, which the summary names."""
     prep = prepared(monte_carlo(samples=3000))
     (_, inputs), = scenario_chunks(prep.plan, prep.plan.scenarios)
     chunk = evaluate_chunk(prep.catalog, prep.plan, inputs)
-    reservoirs = len(chunk.labels) + len(chunk.breakeven_labels)
-    budget = reservoirs * 1_200  # 1,200 values each: fewer than the sweep's scenarios
-    summary = SweepSummary(reservoir_values=budget, seed=3)
+    rows = len(chunk.labels) + len(chunk.breakeven_labels)
+    budget = rows * 1_200  # 1,200 scenarios' values: fewer than the sweep's scenarios
+    summary = SweepSummary(3000, sample_values=budget, seed=3)
     summary.add(chunk)
-    held = [r for r in (*summary._totals, *summary._breakeven)]
-    assert len(held) == reservoirs and {r.capacity for r in held} == {1_200}
-    assert sum(r.held.size for r in held) <= budget and any(not r.exact for r in held)
-    assert all(r.held.size == min(r.seen, 1_200) for r in held)  # only finite values are counted and kept
+    sample = summary._sample
+    assert sample is not None and sample.capacity == 1_200 and not sample.exact
+    assert sample.held.shape == (rows, 1_200) and sample.held.size <= budget
     assert summary.result()["percentiles"] == "estimated from a seeded sample of 1,200 scenarios"
-    exact = SweepSummary(seed=3)
+    exact = SweepSummary(3000, seed=3)
     exact.add(chunk)
     assert exact.result()["percentiles"] == "exact"
-    assert exact._totals[0].capacity == max(RESERVOIR_FLOOR, RESERVOIR_VALUES // reservoirs)
-    tiny = SweepSummary(reservoir_values=10, seed=3)  # a budget below the floor: the floor holds
+    assert exact._sample is not None and exact._sample.capacity == max(SAMPLE_FLOOR, SAMPLE_VALUES // rows)
+    tiny = SweepSummary(3000, sample_values=10, seed=3)  # a budget below the floor: the floor holds
     tiny.add(chunk)
-    assert tiny._totals[0].capacity == RESERVOIR_FLOOR
+    assert tiny._sample is not None and tiny._sample.capacity == SAMPLE_FLOOR
 
 
-def test_the_reservoir_is_deterministic_for_a_seed() -> None:
-    values = np.random.default_rng(2).normal(size=300_000)
-    a = _filled(7, values, 10_000, 40_000).percentiles(Q)
-    b = _filled(7, values, 10_000, 40_000).percentiles(Q)
-    c = _filled(8, values, 10_000, 40_000).percentiles(Q)
+def test_the_sample_is_deterministic_for_a_seed() -> None:
+    values = np.random.default_rng(2).normal(size=(1, 300_000))
+    a = _filled(7, values, 10_000, 40_000).percentiles(0, Q)
+    b = _filled(7, values, 10_000, 40_000).percentiles(0, Q)
+    c = _filled(8, values, 10_000, 40_000).percentiles(0, Q)
     assert a == b
     assert a != c
 

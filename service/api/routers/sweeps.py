@@ -25,16 +25,15 @@ from service.api.responses import created_response
 from service.contract.answers import SweepPage
 from service.contract.sweep import SweepIn
 from service.usecases.idempotency import Created, KeepAnswer, once_per_key
-from service.usecases.sweeps import (
-    SweepLimits,
+from service.usecases.stored_sweeps import (
     SweepRunner,
     cancel_sweep,
-    csv_chunks,
     find_sweeps,
     get_sweep,
     prepared_from_store,
     submit_sweep,
 )
+from service.usecases.sweeps import SweepLimits, csv_chunks
 
 router = APIRouter(prefix="/v1/sweeps", tags=["sweeps"])
 
