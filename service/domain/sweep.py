@@ -5,8 +5,10 @@ Scenarios are made and evaluated in chunks, so memory stays bounded at any size;
 accumulates across chunks. No Python loop runs per scenario.
 """
 
+import mmap
 from collections.abc import Iterable, Iterator, Mapping
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 
@@ -128,49 +130,124 @@ def evaluate_chunk(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Float
     )
 
 
-class ScenarioSample:
-    """Rows of one value per scenario (an option's total, a break-even row's utilisation) kept for their
-    percentiles: every scenario's while the sweep has at most `capacity`, else those of a uniform random
-    sample of `capacity` of its scenarios, drawn without replacement when the sample is made (seeded, so the
-    summary reproduces, with the same answer for any number of processes). The sweep's size is known before
-    its first chunk, so the scenarios sampled are too: each chunk's values are gathered at them and written
-    after the last chunk's, and nothing is drawn or replaced per value (a reservoir drawing per value and per
-    row cost a 1,000,000-scenario sweep on ten venues 1.7 s of its 11). Memory is touched only as far as it is
-    filled. A row's percentiles read its finite values among the scenarios kept (NaN or infinite where an
-    option is infeasible or a break-even unreachable)."""
+PERCENTILES = (5.0, 50.0, 95.0)
+# Values a sweep keeps for its percentiles (256 MB of float64), shared by its options and break-even rows: a
+# summary's memory is bounded whatever the catalog (ten venues have 108 rows; at 2,000,000 values each they held
+# 1.7 GB). The scenarios kept are the budget over the rows, at least SAMPLE_FLOOR.
+SAMPLE_VALUES = 32_000_000
+SAMPLE_FLOOR = 1_000
 
-    def __init__(self, rows: int, scenarios: int, capacity: int, seed: int) -> None:
-        self.scenarios = scenarios
-        self.capacity = capacity
-        self.seen = 0
-        self._filled = 0
-        self._values = np.empty((rows, min(scenarios, capacity)))
-        generator = np.random.default_rng(np.random.SeedSequence([seed, 0x5EED]))
-        self._sampled: Ints | None = (None if self.exact
-                                      else np.sort(generator.choice(scenarios, capacity, replace=False)))
+
+@dataclass(frozen=True)
+class SampledScenarios:
+    """Which of a sweep's `scenarios` its percentiles read: every one up to `capacity`, else a uniform random
+    sample of `capacity` of them without replacement, drawn once (seeded, so the summary reproduces, with the
+    same answer for any number of processes). A sweep's size is known before its first chunk, so every process
+    that evaluates chunks can tell which of a chunk's scenarios are kept, and nothing is drawn per value (a
+    reservoir drawing per value and per row cost a 1,000,000-scenario sweep on ten venues 1.7 s of its 11)."""
+
+    scenarios: int
+    capacity: int
+    seed: int
 
     @property
     def exact(self) -> bool:
         return self.scenarios <= self.capacity
 
-    def add(self, *blocks: Floats) -> None:
-        """The next chunk's scenarios: `blocks` of (rows, scenarios) arrays, together the sample's rows."""
-        size = blocks[0].shape[1]
-        if self.seen + size > self.scenarios:
-            raise ValueError(f"more than the {self.scenarios:,} scenarios this sample was made for")
+    @cached_property
+    def _kept(self) -> Ints:
+        generator = np.random.default_rng(np.random.SeedSequence([self.seed, 0x5EED]))
+        return np.sort(generator.choice(self.scenarios, self.capacity, replace=False))
+
+    def within(self, start: int, size: int) -> slice | Ints:
+        """The positions, in the chunk of scenarios [start, start + size), of those kept."""
+        if self.exact:
+            return slice(None)
+        first, last = np.searchsorted(self._kept, (start, start + size))
+        return self._kept[first:last] - start
+
+
+@dataclass(frozen=True)
+class ChunkTally:
+    """What a sweep's summary reads of one chunk, and all a worker process sends back for it: its counts, and
+    each option's total and break-even utilisation at the chunk's scenarios the sample keeps. On ten venues a
+    whole chunk's result is about 920 bytes a scenario; beyond the sample's capacity most of it is not kept, and
+    sending it cost a 1,000,000-scenario sweep 1.5 s of CPU in pickles and pipes."""
+
+    size: int
+    labels: list[str]
+    owned: Bools
+    breakeven_labels: list[tuple[str, str, str]]
+    cheapest: Ints  # per option, the scenarios where it is the cheapest
+    feasible: Ints  # per option, the scenarios where it is feasible
+    nothing_feasible: int
+    owning_wins: int
+    breakeven_reachable: Ints  # per break-even row, the scenarios where it is reached
+    totals: Floats  # (options, scenarios kept), NaN where infeasible
+    breakeven_utilisation: Floats  # (rows, scenarios kept), NaN or infinite where there is none
+
+
+@dataclass
+class Tallying:
+    """Reduces a sweep's chunks to their `ChunkTally`, the same in every process: the scenarios kept
+    (`SampledScenarios`) follow from the sweep's size, its seed, and the budget over the chunk's rows (its
+    options and break-even rows, the same in every chunk), known at the first chunk."""
+
+    scenarios: int
+    values: int
+    seed: int
+    _sampled: SampledScenarios | None = None
+
+    def sampled(self, rows: int) -> SampledScenarios:
         if self._sampled is None:
-            at: slice | Ints = slice(None)
-            count = size
-        else:
-            first, last = np.searchsorted(self._sampled, (self.seen, self.seen + size))
-            at = self._sampled[first:last] - self.seen
-            count = int(last - first)
+            capacity = max(SAMPLE_FLOOR, self.values // max(rows, 1))
+            self._sampled = SampledScenarios(self.scenarios, capacity, self.seed)
+        return self._sampled
+
+    def __call__(self, chunk: ChunkResult, start: int) -> ChunkTally:
+        """The tally of `chunk`, whose first scenario is the sweep's `start`th."""
+        at = self.sampled(len(chunk.labels) + len(chunk.breakeven_labels)).within(start, chunk.size)
+        return ChunkTally(
+            size=chunk.size,
+            labels=chunk.labels,
+            owned=chunk.owned,
+            breakeven_labels=chunk.breakeven_labels,
+            cheapest=np.bincount(chunk.cheapest[chunk.cheapest >= 0], minlength=len(chunk.labels)),
+            feasible=np.isfinite(chunk.totals).sum(axis=1),
+            nothing_feasible=int((chunk.cheapest < 0).sum()),
+            owning_wins=int((chunk.owned_best < chunk.rented_best).sum()),
+            breakeven_reachable=np.isfinite(chunk.breakeven_utilisation).sum(axis=1),
+            totals=chunk.totals[:, at],
+            breakeven_utilisation=chunk.breakeven_utilisation[:, at],
+        )
+
+
+class ScenarioSample:
+    """The values the percentiles read, one row per option's total and per break-even row, at the scenarios
+    `sampled` keeps: written in order, chunk after chunk, into one array made at the first, and touched only as
+    far as it is filled. A row's percentiles read its finite values (NaN or infinite where an option is
+    infeasible or a break-even unreachable)."""
+
+    def __init__(self, rows: int, sampled: SampledScenarios) -> None:
+        self.sampled = sampled
+        kept = min(sampled.scenarios, sampled.capacity)
+        # An anonymous map of its own rather than numpy's memory: numpy asks for huge pages on large arrays, and
+        # where the kernel compacts memory to find them on the first touch, filling this one cost 0.3-0.6 s more
+        # of system time (a 1,000,000-scenario sweep on ten venues).
+        pages = mmap.mmap(-1, max(rows * kept, 1) * 8)
+        self._values = np.frombuffer(pages, np.float64, rows * kept).reshape(rows, kept)
+        self._filled = 0
+
+    def append(self, *blocks: Floats) -> None:
+        """The next chunk's values at its scenarios kept: `blocks` of (rows, kept), together the rows."""
+        count = blocks[0].shape[1]
+        if self._filled + count > self._values.shape[1]:
+            raise ValueError(f"more than the {self._values.shape[1]:,} scenarios this sample keeps")
         row = 0
         for block in blocks:
-            self._values[row:row + len(block), self._filled:self._filled + count] = block[:, at]
+            self._values[row:row + len(block), self._filled:self._filled + count] = block
             row += len(block)
         self._filled += count
-        self.seen += size
 
     @property
     def held(self) -> Floats:
@@ -185,21 +262,15 @@ class ScenarioSample:
         return [float(v) for v in np.percentile(data, q, overwrite_input=True)]
 
 
-PERCENTILES = (5.0, 50.0, 95.0)
-# Values a sweep keeps for its percentiles (256 MB of float64), shared by its options and break-even rows: a
-# summary's memory is bounded whatever the catalog (ten venues have 108 rows; at 2,000,000 values each they held
-# 1.7 GB). The scenarios kept are the budget over the rows, at least SAMPLE_FLOOR.
-SAMPLE_VALUES = 32_000_000
-SAMPLE_FLOOR = 1_000
-
-
 class SweepSummary:
     """Accumulates chunk results into the sweep's summary (api.md: per option p5/p50/p95 of total
     cost and share cheapest; probability owning beats renting; break-even utilisation percentiles),
-    for a sweep of `scenarios` scenarios."""
+    for a sweep of `scenarios` scenarios, given in order: whole (`add`), or as tallies made by `tallying`
+    (`add_tally`), in this process or in another."""
 
     def __init__(self, scenarios: int, *, sample_values: int = SAMPLE_VALUES, seed: int = 0) -> None:
         self.planned = scenarios
+        self.tallying = Tallying(scenarios, sample_values, seed)
         self.scenarios = 0
         self.labels: list[str] = []
         self.owned_labels: set[str] = set()
@@ -209,32 +280,32 @@ class SweepSummary:
         self._owning_wins = 0
         self._breakeven_labels: list[tuple[str, str, str]] = []
         self._breakeven_reachable: Ints | None = None
-        self._sample_values = sample_values
         self._sample: ScenarioSample | None = None  # made at the first chunk, which tells how many rows
-        self._seed = seed
 
     def add(self, chunk: ChunkResult) -> None:
+        self.add_tally(self.tallying(chunk, self.scenarios))
+
+    def add_tally(self, tally: ChunkTally) -> None:
+        if self.scenarios + tally.size > self.planned:
+            raise ValueError(f"more than the {self.planned:,} scenarios this summary was made for")
         if self._sample is None:
-            self.labels = chunk.labels
-            self.owned_labels = {label for label, own in zip(chunk.labels, chunk.owned, strict=True) if own}
-            count = len(chunk.labels)
-            rows = count + len(chunk.breakeven_labels)
-            self._sample = ScenarioSample(rows, self.planned, max(SAMPLE_FLOOR, self._sample_values // max(rows, 1)),
-                                          self._seed)
-            self._cheapest = np.zeros(count, np.int64)
-            self._feasible = np.zeros(count, np.int64)
-            self._breakeven_labels = chunk.breakeven_labels
-            self._breakeven_reachable = np.zeros(len(chunk.breakeven_labels), np.int64)
+            self.labels = tally.labels
+            self.owned_labels = {label for label, own in zip(tally.labels, tally.owned, strict=True) if own}
+            rows = len(tally.labels) + len(tally.breakeven_labels)
+            self._sample = ScenarioSample(rows, self.tallying.sampled(rows))
+            self._cheapest = np.zeros(len(tally.labels), np.int64)
+            self._feasible = np.zeros(len(tally.labels), np.int64)
+            self._breakeven_labels = tally.breakeven_labels
+            self._breakeven_reachable = np.zeros(len(tally.breakeven_labels), np.int64)
         assert self._cheapest is not None and self._feasible is not None
         assert self._breakeven_reachable is not None
-        self.scenarios += chunk.size
-        picked = chunk.cheapest[chunk.cheapest >= 0]
-        self._cheapest += np.bincount(picked, minlength=len(self.labels))
-        self._nothing_feasible += int((chunk.cheapest < 0).sum())
-        self._feasible += np.isfinite(chunk.totals).sum(axis=1)
-        self._owning_wins += int((chunk.owned_best < chunk.rented_best).sum())
-        self._sample.add(chunk.totals, chunk.breakeven_utilisation)
-        self._breakeven_reachable += np.isfinite(chunk.breakeven_utilisation).sum(axis=1)
+        self._sample.append(tally.totals, tally.breakeven_utilisation)
+        self.scenarios += tally.size
+        self._cheapest += tally.cheapest
+        self._feasible += tally.feasible
+        self._nothing_feasible += tally.nothing_feasible
+        self._owning_wins += tally.owning_wins
+        self._breakeven_reachable += tally.breakeven_reachable
 
     def result(self) -> dict[str, object]:
         n = max(self.scenarios, 1)
@@ -261,8 +332,8 @@ class SweepSummary:
             "nothing_feasible_share": self._nothing_feasible / n,
             "probability_owning_beats_renting": self._owning_wins / n,
             "breakeven_utilisation": breakeven,
-            "percentiles": ("exact" if sample is None or sample.exact
-                            else f"estimated from a seeded sample of {sample.capacity:,} scenarios"),
+            "percentiles": ("exact" if sample is None or sample.sampled.exact
+                            else f"estimated from a seeded sample of {sample.sampled.capacity:,} scenarios"),
         }
 
     def _percentiles(self, row: int) -> list[float | None]:

@@ -8,21 +8,36 @@ import multiprocessing
 from collections import deque
 from collections.abc import Iterable, Iterator, Mapping
 from concurrent.futures import Future, ProcessPoolExecutor
+from dataclasses import dataclass
+from typing import Any, overload
 
 import numpy as np
 
 from service.domain import compiled
 from service.domain.arrays import Floats
 from service.domain.catalog import Catalog
-from service.domain.sweep import ChunkResult, SweepPlan, evaluate_chunk
+from service.domain.sweep import ChunkResult, ChunkTally, SweepPlan, Tallying, evaluate_chunk
 
 IN_FLIGHT_PER_WORKER = 2
-# Scenarios a process must price for the compiled kernel to pay for loading it: importing numba and
-# reading the kernel from its cache cost about 0.3 s, and the kernel saves about 1 µs a scenario on the
-# demo catalog, 2 µs on ten venues (bench_sweeps.py); a process that has it already always uses it.
-COMPILED_PAYS_FROM = 250_000
+# Scenarios a sweep must price for the compiled kernel to pay for loading it: importing numba and reading
+# the kernel from its cache cost 0.27 s, and the kernel saves 2.2 µs a scenario on the demo catalog, 4.9 µs
+# on ten venues (bench_sweeps.py section 1). Workers forked from the fork server share the kernel it loaded
+# once; a process that has it already always uses it.
+COMPILED_PAYS_FROM = 125_000
 
-_worker_sweep: tuple[Catalog, SweepPlan, compiled.Kernel | None] | None = None
+
+@dataclass(frozen=True)
+class _WorkerSweep:
+    """What a worker process keeps for the whole sweep (its tallying keeps the scenarios sampled)."""
+
+    catalog: Catalog
+    plan: SweepPlan
+    kernel: compiled.Kernel | None
+    breakeven: bool
+    tallying: Tallying | None
+
+
+_worker_sweep: _WorkerSweep | None = None
 
 
 def sweep_kernel(scenarios: int) -> compiled.Kernel | None:
@@ -39,44 +54,71 @@ def evaluate(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Floats],
         return evaluate_chunk(catalog, plan, inputs, kernel=kernel, breakeven=breakeven)
 
 
-def evaluated(catalog: Catalog, plan: SweepPlan, chunks: Iterable[Mapping[str, Floats]], *,
-              processes: int, breakeven: bool = True) -> Iterator[ChunkResult]:
-    """Each chunk's result, in the order of `chunks`, from `processes` worker processes (here, in
-    this process, when it is 1); with its break-even utilisations unless `breakeven` is False."""
+@overload
+def evaluated(catalog: Catalog, plan: SweepPlan, chunks: Iterable[tuple[int, Mapping[str, Floats]]], *,
+              processes: int, breakeven: bool = True, tallying: None = None) -> Iterator[ChunkResult]: ...
+
+
+@overload
+def evaluated(catalog: Catalog, plan: SweepPlan, chunks: Iterable[tuple[int, Mapping[str, Floats]]], *,
+              processes: int, breakeven: bool = True, tallying: Tallying) -> Iterator[ChunkTally]: ...
+
+
+def evaluated(catalog: Catalog, plan: SweepPlan, chunks: Iterable[tuple[int, Mapping[str, Floats]]], *,
+              processes: int, breakeven: bool = True,
+              tallying: Tallying | None = None) -> Iterator[ChunkResult] | Iterator[ChunkTally]:
+    """Each chunk's result, in the order of `chunks` ((first scenario, inputs), as `scenario_chunks` makes
+    them), from `processes` worker processes (here, in this process, when it is 1); with its break-even
+    utilisations unless `breakeven` is False; reduced to its tally by `tallying` where one is given, in the
+    process that evaluated it, so that only the tally is sent back."""
     if processes <= 1:
-        kernel = sweep_kernel(plan.scenarios)
-        for inputs in chunks:
-            yield evaluate(catalog, plan, inputs, kernel, breakeven=breakeven)
-        return
-    share = -(-plan.scenarios // processes)  # what each worker prices
-    with ProcessPoolExecutor(processes, mp_context=_workers_context(share),
-                             initializer=_start_worker, initargs=(catalog, plan, share)) as pool:
-        pending: deque[Future[ChunkResult]] = deque()
-        for inputs in chunks:
-            pending.append(pool.submit(_evaluate_in_worker, dict(inputs), breakeven))
+        return _here(catalog, plan, chunks, breakeven, tallying)
+    return _in_workers(catalog, plan, chunks, processes, breakeven, tallying)
+
+
+def _here(catalog: Catalog, plan: SweepPlan, chunks: Iterable[tuple[int, Mapping[str, Floats]]], breakeven: bool,
+          tallying: Tallying | None) -> Iterator[Any]:
+    kernel = sweep_kernel(plan.scenarios)
+    for start, inputs in chunks:
+        result = evaluate(catalog, plan, inputs, kernel, breakeven=breakeven)
+        yield result if tallying is None else tallying(result, start)
+
+
+def _in_workers(catalog: Catalog, plan: SweepPlan, chunks: Iterable[tuple[int, Mapping[str, Floats]]],
+                processes: int, breakeven: bool, tallying: Tallying | None) -> Iterator[Any]:
+    forked = "forkserver" in multiprocessing.get_all_start_methods()
+    # Forked workers share the kernel the fork server loaded once; a worker started afresh loads its own, for
+    # the scenarios it prices.
+    priced = plan.scenarios if forked else -(-plan.scenarios // processes)
+    with ProcessPoolExecutor(processes, mp_context=_workers_context(forked, priced), initializer=_start_worker,
+                             initargs=(catalog, plan, priced, breakeven, tallying)) as pool:
+        pending: deque[Future[Any]] = deque()
+        for start, inputs in chunks:
+            pending.append(pool.submit(_evaluate_in_worker, start, dict(inputs)))
             if len(pending) >= IN_FLIGHT_PER_WORKER * processes:
                 yield pending.popleft().result()
         while pending:
             yield pending.popleft().result()
 
 
-def _workers_context(share: int) -> multiprocessing.context.BaseContext:
+def _workers_context(forked: bool, priced: int) -> multiprocessing.context.BaseContext:
     """How workers start: forked from a server process that was started clean (never a copy of this one,
     which may hold threads) and imported the sweep's modules once, with the compiled kernel where the workers
     will use it (`kernel_preload`), so that no worker imports numpy, the domain and numba afresh: 0.4 s each
     for the imports, 0.3 s more for the kernel. The server is this process's, started by its first pool with
     the modules that pool asked for. Where a platform has no fork server, each worker starts afresh."""
-    if "forkserver" not in multiprocessing.get_all_start_methods():
+    if not forked:
         return multiprocessing.get_context("spawn")
     context = multiprocessing.get_context("forkserver")
-    kernel = ["service.usecases.kernel_preload"] if share >= COMPILED_PAYS_FROM else []
+    kernel = ["service.usecases.kernel_preload"] if priced >= COMPILED_PAYS_FROM else []
     context.set_forkserver_preload([__name__, *kernel])
     return context
 
 
-def _start_worker(catalog: Catalog, plan: SweepPlan, share: int) -> None:
+def _start_worker(catalog: Catalog, plan: SweepPlan, priced: int, breakeven: bool,
+                  tallying: Tallying | None) -> None:
     global _worker_sweep
-    _worker_sweep = catalog, plan, sweep_kernel(share)
+    _worker_sweep = _WorkerSweep(catalog, plan, sweep_kernel(priced), breakeven, tallying)
     keep_freed_arrays()
 
 
@@ -101,7 +143,8 @@ def keep_freed_arrays() -> bool:
         return False
 
 
-def _evaluate_in_worker(inputs: dict[str, Floats], breakeven: bool) -> ChunkResult:
+def _evaluate_in_worker(start: int, inputs: dict[str, Floats]) -> ChunkResult | ChunkTally:
     assert _worker_sweep is not None, "the pool's initializer sets the sweep"
-    catalog, plan, kernel = _worker_sweep
-    return evaluate(catalog, plan, inputs, kernel, breakeven=breakeven)
+    sweep = _worker_sweep
+    result = evaluate(sweep.catalog, sweep.plan, inputs, sweep.kernel, breakeven=sweep.breakeven)
+    return result if sweep.tallying is None else sweep.tallying(result, start)

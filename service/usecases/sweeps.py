@@ -6,7 +6,7 @@ import csv
 import io
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, overload
 
 import numpy as np
 
@@ -15,7 +15,16 @@ from service.contract.document import Money
 from service.contract.sweep import DistributionIn, SweepIn
 from service.domain.catalog import Catalog
 from service.domain.explain import CAUTIONS
-from service.domain.sweep import ChunkResult, SweepPlan, SweepSummary, chunk_size, scenario_chunks, tornado
+from service.domain.sweep import (
+    ChunkResult,
+    ChunkTally,
+    SweepPlan,
+    SweepSummary,
+    Tallying,
+    chunk_size,
+    scenario_chunks,
+    tornado,
+)
 from service.domain.whatif import InputPath, UnknownPath, apply, base_value, input_path, venue_of
 from service.errors import FieldProblem, InvalidInput
 from service.usecases.chunk_pool import evaluated
@@ -121,17 +130,23 @@ Progress = Callable[[int, int], None]
 
 def run(prepared: PreparedSweep, *, keep_rows: int = ROWS_IN_JSON, progress: Progress | None = None,
         processes: int = 1) -> tuple[dict[str, Any], list[dict[str, Any]]]:
-    """Evaluate every scenario in chunks: the summary, and the first `keep_rows` rows as JSON."""
+    """Evaluate every scenario in chunks: the summary, and every row as JSON when there are at most
+    `keep_rows`. Without rows, each chunk is reduced to its tally where it was evaluated."""
     summary = SweepSummary(prepared.plan.scenarios, seed=prepared.plan.seed)
     rows: list[dict[str, Any]] = []
     money = Money(prepared.currency)
     total = prepared.plan.scenarios
-    for chunk in _chunks(prepared, processes):
-        summary.add(chunk)
-        if len(rows) < keep_rows and total <= keep_rows:
+    if total <= keep_rows:
+        for chunk in _chunks(prepared, processes):
+            summary.add(chunk)
             rows.extend(_json_rows(chunk, money))
-        if progress is not None:
-            progress(summary.scenarios, total)
+            if progress is not None:
+                progress(summary.scenarios, total)
+    else:
+        for tally in _chunks(prepared, processes, tallying=summary.tallying):
+            summary.add_tally(tally)
+            if progress is not None:
+                progress(summary.scenarios, total)
     result = summary.result()
     result["currency"] = prepared.currency
     for option in result["options"]:  # type: ignore[attr-defined]
@@ -143,13 +158,23 @@ def run(prepared: PreparedSweep, *, keep_rows: int = ROWS_IN_JSON, progress: Pro
     return result, rows
 
 
-def _chunks(prepared: PreparedSweep, processes: int, *, breakeven: bool = True) -> Iterator[ChunkResult]:
+@overload
+def _chunks(prepared: PreparedSweep, processes: int, *, breakeven: bool = True,
+            tallying: None = None) -> Iterator[ChunkResult]: ...
+
+
+@overload
+def _chunks(prepared: PreparedSweep, processes: int, *, breakeven: bool = True,
+            tallying: Tallying) -> Iterator[ChunkTally]: ...
+
+
+def _chunks(prepared: PreparedSweep, processes: int, *, breakeven: bool = True,
+            tallying: Tallying | None = None) -> Iterator[ChunkResult] | Iterator[ChunkTally]:
     plan = prepared.plan
     size = chunk_size(prepared.catalog, plan.paths)
-    inputs = (values for _, values in scenario_chunks(plan, size))
     # A sweep of one chunk gains nothing from starting worker processes.
-    yield from evaluated(prepared.catalog, plan, inputs, processes=processes if plan.scenarios > size else 1,
-                         breakeven=breakeven)
+    return evaluated(prepared.catalog, plan, scenario_chunks(plan, size),
+                     processes=processes if plan.scenarios > size else 1, breakeven=breakeven, tallying=tallying)
 
 
 def _json_rows(chunk: Any, money: Money) -> list[dict[str, Any]]:

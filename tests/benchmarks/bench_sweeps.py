@@ -17,15 +17,15 @@ thread before numpy loads, and CPU time of this process is what the rates divide
    search, however clever, could make the rate; and a floor: what a chunk costs whatever its size
    (a chunk of one scenario) and each scenario beyond it, so the rate with no per-chunk cost, searched
    and pinned, is the most this design's arithmetic reaches.
-2. End to end: `berth sweep` of 1,000,000 Monte Carlo scenarios of the demo sweep and catalog, as
-   a subprocess with its default worker processes (one per CPU; target < 8 s); the section 1 rate target
-   through `berth sweep`: the demo sweep's draws on the 10-venue catalog, 1,000,000 scenarios per CPU
-   second of the whole process tree (target ≥ 150,000; its start and summary included), with the
-   marginal rate between 500,000 and 1,000,000 scenarios beside it; and the peak RSS of a
-   10,000,000-scenario sweep streamed as CSV (target < 1 GB = 1e9 bytes). The RSS is that of the
-   whole process tree: the command and its workers, sampled together every 0.2 s, and never less than
-   the largest single process's peak from the kernel. A run that would pass RUN_LIMIT_SECONDS is
-   stopped, and its full time is then an extrapolation from the rows it wrote, printed as such.
+2. End to end: `berth sweep` (the console script where it is installed) of 1,000,000 Monte Carlo scenarios of
+   the demo sweep and catalog, as a subprocess with its default worker processes (one per CPU; target < 8 s);
+   the section 1 rate target through `berth sweep`: the demo sweep's draws on the 10-venue catalog, 1,000,000
+   scenarios per CPU second of the whole process tree (target ≥ 150,000; its start and summary included), with
+   the marginal rate between 500,000 and 1,000,000 scenarios beside it; and the peak RSS of a
+   10,000,000-scenario sweep streamed as CSV (target < 1 GB = 1e9 bytes). The RSS is that of the whole process
+   tree: the command and its workers, sampled together every 0.2 s, and never less than the largest single
+   process's peak from the kernel. A run that would pass RUN_LIMIT_SECONDS is stopped, and its full time is then
+   an extrapolation from the rows it wrote, printed as such.
 
 2c. The same peak RSS on the 10-venue catalog, each streamed as CSV: the demo sweep's draws
    (TEN_VENUE_CSV_SCENARIOS; one table, but a chunk of twice the demo catalog's options, and rows twice
@@ -427,8 +427,13 @@ def ten_venue_files(directory: Path, label: str, samples: int) -> tuple[Path, Pa
     return sweep_path, catalog_path
 
 
+BERTH_SCRIPT = Path(sys.executable).with_name("berth")
+
+
 def berth(*args: str) -> list[str]:
-    return [sys.executable, "-m", "service.cli", *args]
+    """The command as a user runs it: the `berth` console script beside this Python where it is installed
+    (its worker processes import the script as their main module, which `python -m` would spare them)."""
+    return [str(BERTH_SCRIPT), *args] if BERTH_SCRIPT.exists() else [sys.executable, "-m", "service.cli", *args]
 
 
 def stop(process: subprocess.Popen[bytes]) -> None:
@@ -559,7 +564,7 @@ def through_berth_sweep(directory: Path, scenarios: int) -> None:
     summary, default worker processes; scenarios per CPU second of the whole process tree (its start, the
     draws, the workers' evaluation, the results' transfer and the summary included), and beside it the
     marginal rate between half of the scenarios and all of them (what each further scenario costs; at half,
-    each worker still prices enough scenarios to use the compiled kernel, `chunk_pool.COMPILED_PAYS_FROM`)."""
+    the sweep is still large enough for the compiled kernel, `chunk_pool.COMPILED_PAYS_FROM`)."""
     print(f"== 2a. Through berth sweep: {scenarios:,} scenarios of the demo sweep's draws on the 10-venue catalog "
           f"(JSON summary), {os.cpu_count()} worker processes", flush=True)
     target = (f"rate through berth sweep ≥ {TARGET_RATE:,.0f} scenarios/s per core (10-venue catalog, "

@@ -78,3 +78,12 @@ def test_catalog_check_names_each_bad_field(tmp_path: Path) -> None:
     assert result.returncode == 2
     assert "sites.0.pue" in result.stderr
     assert "offers.1.nodes_max" in result.stderr
+
+
+def test_importing_the_command_lines_package_imports_none_of_its_libraries() -> None:
+    """A sweep's worker processes import the parent's main module again, the `berth` console script
+    (`from service.cli import main`): that must not import typer and rich into every worker."""
+    code = ("import sys, service.cli; "
+            "print(sorted(m for m in ('typer', 'rich', 'service.cli.commands', 'numpy') if m in sys.modules))")
+    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60, check=True)
+    assert result.stdout.strip() == "[]"

@@ -322,8 +322,8 @@ def test_without_numba_a_large_sweep_runs_numpy_and_says_so(monkeypatch: pytest.
     sweep = json.loads((EXAMPLES / "sweep-electricity-and-utilisation.json").read_text(encoding="utf-8"))
     sweep["samples"] = 600
     prepared = prepare_sweep(catalog, SweepIn.model_validate(sweep), SweepLimits())
-    inputs = [values for _, values in scenario_chunks(prepared.plan, 300)]
-    without = list(chunk_pool.evaluated(prepared.catalog, prepared.plan, inputs, processes=1))
+    chunks = list(scenario_chunks(prepared.plan, 300))
+    without = list(chunk_pool.evaluated(prepared.catalog, prepared.plan, chunks, processes=1))
     monkeypatch.setattr(compiled, "_kernel", [KERNEL])
-    for numpy_only, chunk in zip(without, inputs, strict=True):
+    for numpy_only, (_, chunk) in zip(without, chunks, strict=True):
         assert_identical(chunk_pool.evaluate(prepared.catalog, prepared.plan, chunk, KERNEL), numpy_only, "chunk")

@@ -33,6 +33,7 @@ from service.domain.sweep import (
     OPTION_SCENARIOS,
     SAMPLE_FLOOR,
     SAMPLE_VALUES,
+    SampledScenarios,
     ScenarioSample,
     SweepSummary,
     chunk_size,
@@ -42,6 +43,7 @@ from service.domain.sweep import (
 )
 from service.domain.whatif import PATHS, input_path, venue_of
 from service.errors import InvalidInput
+from service.usecases import chunk_pool
 from service.usecases.quoting import quote
 from service.usecases.sweeps import PreparedSweep, SweepLimits, prepare_sweep, run, tornado_bars
 
@@ -630,10 +632,12 @@ Q = (5.0, 25.0, 50.0, 75.0, 95.0)
 
 
 def _filled(seed: int, rows: np.ndarray, capacity: int, chunk: int) -> ScenarioSample:
-    """A sample of `rows` (rows, scenarios), given to it `chunk` scenarios at a time."""
-    sample = ScenarioSample(len(rows), rows.shape[1], capacity, seed)
+    """A sample of `rows` (rows, scenarios), given to it `chunk` scenarios at a time, as a summary does."""
+    sampled = SampledScenarios(rows.shape[1], capacity, seed)
+    sample = ScenarioSample(len(rows), sampled)
     for start in range(0, rows.shape[1], chunk):
-        sample.add(rows[:, start:start + chunk])
+        part = rows[:, start:start + chunk]
+        sample.append(part[:, sampled.within(start, part.shape[1])])
     return sample
 
 
@@ -643,11 +647,13 @@ def test_below_capacity_the_percentiles_are_exact() -> None:
     parts[1][0, ::3] = np.nan  # infeasible scenarios are left out of that row's percentiles
     parts[2][1, :100] = np.inf  # as are unreachable break-even rows
     parts[0][2], parts[1][2], parts[2][2] = np.nan, np.nan, np.nan  # a row with no value at all
-    sample = ScenarioSample(3, 3537, capacity=5000, seed=1)
+    sampled = SampledScenarios(3537, capacity=5000, seed=1)
+    sample = ScenarioSample(3, sampled)
     for part in parts:
-        sample.add(part[:1], part[1:])  # blocks of rows, as a summary gives its totals and break-even rows
+        assert sampled.within(0, part.shape[1]) == slice(None)  # every scenario is kept
+        sample.append(part[:1], part[1:])  # blocks of rows, as a summary gives its totals and break-even rows
     values = np.concatenate(parts, axis=1)
-    assert sample.exact
+    assert sampled.exact
     for row in (0, 1):
         finite = values[row][np.isfinite(values[row])]
         assert sample.percentiles(row, Q) == np.percentile(finite, Q).tolist()
@@ -659,7 +665,7 @@ def test_above_capacity_the_sample_is_uniform_over_the_whole_stream_and_the_same
     # The stream's values are its positions, so a sample favouring early or late scenarios would show.
     positions = np.arange(n, dtype=np.float64)
     sample = _filled(3, np.stack([positions, -positions]), capacity, 37_000)
-    assert not sample.exact and sample.seen == n
+    assert not sample.sampled.exact
     held = sample.held[0]
     assert held.size == capacity and np.unique(held).size == capacity  # without replacement
     assert np.array_equal(sample.held[1], -held)  # every row at the same scenarios
@@ -695,12 +701,37 @@ def test_reading_the_percentiles_leaves_the_sample_as_it_was() -> None:
     assert sample.percentiles(0, Q) == first == np.percentile(kept[0], Q).tolist()
 
 
-def test_a_sample_takes_no_more_scenarios_than_it_was_made_for() -> None:
-    sample = ScenarioSample(1, 10, capacity=5, seed=1)
-    sample.add(np.ones((1, 6)))
-    with pytest.raises(ValueError, match="more than the 10 scenarios"):
-        sample.add(np.ones((1, 5)))
-    assert sample.seen == 6  # the refused chunk left nothing behind
+def test_a_summary_takes_no_more_scenarios_than_it_was_made_for() -> None:
+    prep = prepared(monte_carlo(samples=300))
+    (_, inputs), = scenario_chunks(prep.plan, prep.plan.scenarios)
+    chunk = evaluate_chunk(prep.catalog, prep.plan, inputs)
+    summary = SweepSummary(500, seed=1)
+    summary.add(chunk)
+    before = summary.result()
+    with pytest.raises(ValueError, match="more than the 500 scenarios"):
+        summary.add(chunk)
+    assert summary.result() == before  # the refused chunk left nothing behind
+    sample = ScenarioSample(1, SampledScenarios(10, capacity=5, seed=1))
+    sample.append(np.ones((1, 4)))
+    with pytest.raises(ValueError, match="more than the 5 scenarios"):
+        sample.append(np.ones((1, 2)))
+    assert sample.held.shape == (1, 4)
+
+
+def test_tallies_made_in_worker_processes_give_the_summary_of_whole_chunks() -> None:
+    """Beyond the sample's capacity a worker sends back of each chunk only its counts and its scenarios kept
+    (`ChunkTally`): the summary is the one whole chunks give in this process, to the bit."""
+    prep = prepared(monte_carlo(samples=6000))
+    chunks = list(scenario_chunks(prep.plan, 1500))
+    whole, tallied = (SweepSummary(6000, sample_values=20_000, seed=5) for _ in range(2))
+    for chunk in chunk_pool.evaluated(prep.catalog, prep.plan, chunks, processes=1):
+        whole.add(chunk)
+    tallies = list(chunk_pool.evaluated(prep.catalog, prep.plan, chunks, processes=2, tallying=tallied.tallying))
+    for tally in tallies:
+        tallied.add_tally(tally)
+    assert whole.result()["percentiles"] == "estimated from a seeded sample of 1,000 scenarios"
+    assert tallied.result() == whole.result()
+    assert sum(t.totals.shape[1] for t in tallies) == sum(t.breakeven_utilisation.shape[1] for t in tallies) == 1000
 
 
 def test_a_summarys_sample_holds_one_budget_of_values() -> None:
@@ -715,16 +746,16 @@ def test_a_summarys_sample_holds_one_budget_of_values() -> None:
     summary = SweepSummary(3000, sample_values=budget, seed=3)
     summary.add(chunk)
     sample = summary._sample
-    assert sample is not None and sample.capacity == 1_200 and not sample.exact
+    assert sample is not None and sample.sampled.capacity == 1_200 and not sample.sampled.exact
     assert sample.held.shape == (rows, 1_200) and sample.held.size <= budget
     assert summary.result()["percentiles"] == "estimated from a seeded sample of 1,200 scenarios"
     exact = SweepSummary(3000, seed=3)
     exact.add(chunk)
     assert exact.result()["percentiles"] == "exact"
-    assert exact._sample is not None and exact._sample.capacity == max(SAMPLE_FLOOR, SAMPLE_VALUES // rows)
+    assert exact._sample is not None and exact._sample.sampled.capacity == max(SAMPLE_FLOOR, SAMPLE_VALUES // rows)
     tiny = SweepSummary(3000, sample_values=10, seed=3)  # a budget below the floor: the floor holds
     tiny.add(chunk)
-    assert tiny._sample is not None and tiny._sample.capacity == SAMPLE_FLOOR
+    assert tiny._sample is not None and tiny._sample.sampled.capacity == SAMPLE_FLOOR
 
 
 def test_the_sample_is_deterministic_for_a_seed() -> None:
