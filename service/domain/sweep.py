@@ -197,7 +197,7 @@ class Tallying:
     scenarios: int
     values: int
     seed: int
-    _sampled: SampledScenarios | None = None
+    _sampled: SampledScenarios | None = field(default=None, init=False, repr=False)
 
     def sampled(self, rows: int) -> SampledScenarios:
         if self._sampled is None:

@@ -1,7 +1,8 @@
 """Sweep chunks evaluated on several cores: this process draws the scenarios (so the draws are the
-same whatever the number of processes) and worker processes evaluate them. Results come back in
-order, and at most two chunks per worker are in flight, so memory stays bounded at any size. A process
-that prices enough scenarios uses the compiled pricing and choice (`domain/compiled.py`)."""
+same whatever the number of processes) and worker processes, forked from a fork server, evaluate them
+and send back each chunk's result, or only its tally where the summary is all that is wanted. They come
+back in order, and at most two chunks per worker are in flight, so memory stays bounded at any size. A
+sweep of enough scenarios uses the compiled pricing and choice (`domain/compiled.py`)."""
 
 import ctypes
 import multiprocessing
@@ -27,8 +28,9 @@ COMPILED_PAYS_FROM = 125_000
 
 
 @dataclass(frozen=True)
-class _WorkerSweep:
-    """What a worker process keeps for the whole sweep (its tallying keeps the scenarios sampled)."""
+class _Sweep:
+    """What a process evaluating a sweep's chunks keeps for the whole sweep (its tallying keeps the scenarios
+    sampled)."""
 
     catalog: Catalog
     plan: SweepPlan
@@ -36,8 +38,13 @@ class _WorkerSweep:
     breakeven: bool
     tallying: Tallying | None
 
+    def chunk(self, start: int, inputs: Mapping[str, Floats]) -> ChunkResult | ChunkTally:
+        """The chunk whose first scenario is the sweep's `start`th, evaluated, and tallied where asked."""
+        result = evaluate(self.catalog, self.plan, inputs, self.kernel, breakeven=self.breakeven)
+        return result if self.tallying is None else self.tallying(result, start)
 
-_worker_sweep: _WorkerSweep | None = None
+
+_worker_sweep: _Sweep | None = None
 
 
 def sweep_kernel(scenarios: int) -> compiled.Kernel | None:
@@ -78,10 +85,9 @@ def evaluated(catalog: Catalog, plan: SweepPlan, chunks: Iterable[tuple[int, Map
 
 def _here(catalog: Catalog, plan: SweepPlan, chunks: Iterable[tuple[int, Mapping[str, Floats]]], breakeven: bool,
           tallying: Tallying | None) -> Iterator[Any]:
-    kernel = sweep_kernel(plan.scenarios)
+    sweep = _Sweep(catalog, plan, sweep_kernel(plan.scenarios), breakeven, tallying)
     for start, inputs in chunks:
-        result = evaluate(catalog, plan, inputs, kernel, breakeven=breakeven)
-        yield result if tallying is None else tallying(result, start)
+        yield sweep.chunk(start, inputs)
 
 
 def _in_workers(catalog: Catalog, plan: SweepPlan, chunks: Iterable[tuple[int, Mapping[str, Floats]]],
@@ -118,7 +124,7 @@ def _workers_context(forked: bool, priced: int) -> multiprocessing.context.BaseC
 def _start_worker(catalog: Catalog, plan: SweepPlan, priced: int, breakeven: bool,
                   tallying: Tallying | None) -> None:
     global _worker_sweep
-    _worker_sweep = _WorkerSweep(catalog, plan, sweep_kernel(priced), breakeven, tallying)
+    _worker_sweep = _Sweep(catalog, plan, sweep_kernel(priced), breakeven, tallying)
     keep_freed_arrays()
 
 
@@ -145,6 +151,4 @@ def keep_freed_arrays() -> bool:
 
 def _evaluate_in_worker(start: int, inputs: dict[str, Floats]) -> ChunkResult | ChunkTally:
     assert _worker_sweep is not None, "the pool's initializer sets the sweep"
-    sweep = _worker_sweep
-    result = evaluate(sweep.catalog, sweep.plan, inputs, sweep.kernel, breakeven=sweep.breakeven)
-    return result if sweep.tallying is None else sweep.tallying(result, start)
+    return _worker_sweep.chunk(start, inputs)

@@ -15,6 +15,7 @@ import pytest
 from service.contract.catalog import CatalogIn
 from service.contract.sweep import SweepIn
 from service.domain.sweep import chunk_size
+from service.usecases.chunk_pool import COMPILED_PAYS_FROM
 from service.usecases.sweeps import SweepLimits, prepare_sweep
 from tests.conftest import EXAMPLES
 
@@ -106,6 +107,20 @@ def test_worker_processes_give_the_same_bytes_as_one_process(tmp_path: Path) -> 
                     for n in ("1", "2"))
         assert one.returncode == two.returncode == 0, one.stderr + two.stderr
         assert one.stdout == two.stdout and len(one.stdout) > 1000
+
+
+def test_a_sweep_large_enough_for_the_compiled_kernel_gives_the_same_bytes_in_forked_workers(tmp_path: Path) -> None:
+    """From COMPILED_PAYS_FROM scenarios the workers' fork server loads the compiled kernel once, and each
+    worker forked from it uses it; run as the console script, whose module every worker imports again, the
+    answer is one process's, byte for byte."""
+    path = write(tmp_path, demo(COMPILED_PAYS_FROM))
+    script = Path(sys.executable).with_name("berth")
+    command = [str(script)] if script.exists() else BERTH
+    one, two = (subprocess.run([*command, "sweep", path, "--catalog", CATALOG, "--processes", n],
+                               capture_output=True, text=True, timeout=300, check=False) for n in ("1", "2"))
+    assert one.returncode == two.returncode == 0, one.stderr + two.stderr
+    assert one.stdout == two.stdout
+    assert json.loads(two.stdout)["summary"]["scenarios"] == COMPILED_PAYS_FROM
 
 
 def test_bad_input_exits_2_with_field_messages_and_no_traceback(tmp_path: Path) -> None:
