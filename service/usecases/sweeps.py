@@ -136,17 +136,15 @@ def run(prepared: PreparedSweep, *, keep_rows: int = ROWS_IN_JSON, progress: Pro
     rows: list[dict[str, Any]] = []
     money = Money(prepared.currency)
     total = prepared.plan.scenarios
-    if total <= keep_rows:
-        for chunk in _chunks(prepared, processes):
-            summary.add(chunk)
-            rows.extend(_json_rows(chunk, money))
-            if progress is not None:
-                progress(summary.scenarios, total)
-    else:
-        for tally in _chunks(prepared, processes, tallying=summary.tallying):
-            summary.add_tally(tally)
-            if progress is not None:
-                progress(summary.scenarios, total)
+    whole = total <= keep_rows  # every row is in the answer: chunks come back whole
+    for part in _chunks(prepared, processes) if whole else _chunks(prepared, processes, tallying=summary.tallying):
+        if isinstance(part, ChunkResult):
+            summary.add(part)
+            rows.extend(_json_rows(part, money))
+        else:
+            summary.add_tally(part)
+        if progress is not None:
+            progress(summary.scenarios, total)
     result = summary.result()
     result["currency"] = prepared.currency
     for option in result["options"]:  # type: ignore[attr-defined]
