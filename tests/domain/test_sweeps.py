@@ -693,7 +693,7 @@ def test_above_capacity_the_median_is_close_to_the_true_median() -> None:
 
 
 def test_reading_the_percentiles_leaves_the_sample_as_it_was() -> None:
-    """The values are partitioned in place for the percentiles: a copy of the sample, never the sample."""
+    """The values are sorted in place for the percentiles: a copy of the sample, never the sample."""
     sample = _filled(7, np.random.default_rng(3).normal(size=(1, 50_000)), 5_000, 20_000)
     kept = sample.held.copy()
     first = sample.percentiles(0, Q)
