@@ -273,8 +273,7 @@ class SweepSummary:
     (`add_tally`), in this process or in another."""
 
     def __init__(self, scenarios: int, *, sample_values: int = SAMPLE_VALUES, seed: int = 0) -> None:
-        self.planned = scenarios
-        self.tallying = Tallying(scenarios, sample_values, seed)
+        self.tallying = Tallying(scenarios, sample_values, seed)  # it holds the sweep's size
         self.scenarios = 0
         self.labels: list[str] = []
         self.owned_labels: set[str] = set()
@@ -290,8 +289,8 @@ class SweepSummary:
         self.add_tally(self.tallying(chunk, self.scenarios))
 
     def add_tally(self, tally: ChunkTally) -> None:
-        if self.scenarios + tally.size > self.planned:
-            raise ValueError(f"more than the {self.planned:,} scenarios this summary was made for")
+        if self.scenarios + tally.size > self.tallying.scenarios:
+            raise ValueError(f"more than the {self.tallying.scenarios:,} scenarios this summary was made for")
         if self._sample is None:
             self.labels = tally.labels
             self.owned_labels = {label for label, own in zip(tally.labels, tally.owned, strict=True) if own}
