@@ -80,11 +80,20 @@ def work_conversion(rented: OptionResult, owned: OptionResult) -> Floats:
     """Rented accelerator-hours that do the work of one owned accelerator-hour: the owned
     accelerator's sustained FLOP/s over the rented one's (relative speed on this work); for
     interruptible capacity also × (1 + its share of hours lost to interruptions and failures) /
-    (1 + the owned site's)."""
-    speed = owned.sustained_flops_per_accelerator / rented.sustained_flops_per_accelerator
+    (1 + the owned site's). One value where both speeds are one for every scenario (a view repeats
+    them), else one per scenario."""
+    speed = _one_where_repeated(owned.sustained_flops_per_accelerator) / _one_where_repeated(
+        rented.sustained_flops_per_accelerator)
     if rented.term != "interruptible":
         return np.asarray(speed)
     return np.asarray(speed * (1.0 + rented.layout.failure_overhead) / (1.0 + owned.layout.failure_overhead))
+
+
+def _one_where_repeated(values: Floats) -> Floats:
+    """A per-scenario figure as its one value where it repeats one (a view of stride 0, as
+    `arrays.broadcast` makes), so that what is made of it is not made once per scenario."""
+    array = np.asarray(values)
+    return array[:1] if array.ndim == 1 and array.strides == (0,) else array
 
 
 @dataclass(frozen=True)
@@ -102,37 +111,57 @@ class BreakEvenRow:
 
 
 @dataclass(frozen=True)
+class _Rented:
+    """Every rented option with its listed price and whether it is ruled out, each one value or one per
+    scenario (the same against every owned site); stacked (rented, scenarios) when asked."""
+
+    options: list[OptionResult]
+    listed_each: list[Floats]
+    ruled_out_each: list[Bools]
+
+    @cached_property
+    def listed(self) -> Floats:
+        return np.stack(np.broadcast_arrays(*self.listed_each))
+
+    @cached_property
+    def ruled_out(self) -> Bools:
+        return np.stack(np.broadcast_arrays(*self.ruled_out_each))
+
+
+@dataclass(frozen=True)
 class _AgainstRented:
-    """An owned site against every rented option: prices (rented, scenarios) in owned work."""
+    """An owned site against every rented option: per rented option, its conversion to owned work, one
+    value or one per scenario; the prices (rented, scenarios) in owned work when asked."""
 
     site_id: str
     site: SiteFigures
     reference: OptionResult  # its chargeback option, whose campaign the demand counts
     new_build: OptionResult
-    rented: list[OptionResult]
-    listed: Floats
-    conversion: Floats
-    ruled_out: Bools
+    rented: _Rented
+    conversion_each: list[Floats]
+
+    @cached_property
+    def conversion(self) -> Floats:
+        return np.stack(np.broadcast_arrays(*self.conversion_each))
 
     @cached_property
     def prices(self) -> Floats:
-        return np.asarray(self.listed * self.conversion)
+        return np.asarray(self.rented.listed * self.conversion)
 
 
 def _against_rented(evaluation: CampaignEvaluation) -> Iterator[_AgainstRented]:
-    rented = [o for o in evaluation.options if o.venue_kind == "rented"]
-    if not rented:
+    options = [o for o in evaluation.options if o.venue_kind == "rented"]
+    if not options:
         return
-    listed = np.stack(np.broadcast_arrays(*(listed_rented_price(o) for o in rented)))  # the same for every site
-    ruled_out = np.stack(np.broadcast_arrays(*(~o.feasible for o in rented)))
+    rented = _Rented(options, [listed_rented_price(o) for o in options], [~o.feasible for o in options])
     for site_id, site in evaluation.sites.items():
         owned = [o for o in evaluation.options if o.venue_kind == "owned" and o.venue_id == site_id]
         if not owned:
             continue
         reference = next((o for o in owned if o.term == "owned_chargeback"), owned[0])
         new_build = next((o for o in owned if o.term == "owned_new_build"), reference)
-        conversion = np.stack(np.broadcast_arrays(*(work_conversion(o, reference) for o in rented)))
-        yield _AgainstRented(site_id, site, reference, new_build, rented, listed, conversion, ruled_out)
+        yield _AgainstRented(site_id, site, reference, new_build, rented,
+                             [work_conversion(o, reference) for o in options])
 
 
 def breakeven_rows(evaluation: CampaignEvaluation) -> list[BreakEvenRow]:
@@ -147,14 +176,14 @@ def breakeven_rows(evaluation: CampaignEvaluation) -> list[BreakEvenRow]:
             fixed_per_node_month=site.node.total, accelerators_per_node=s.node_type.accelerators_per_node,
             variable_per_accelerator_hour=site.variable_per_accelerator_hour, rented_per_accelerator_hour=prices,
             fleet_nodes=fleet, campaign_accelerator_hours=against.reference.layout.accelerator_hours,
-            ruled_out=against.ruled_out)
+            ruled_out=against.rented.ruled_out)
         paid = _payback(evaluation, against.site_id, new_build, prices)
         stacked = {f.name: broadcast(getattr(figures, f.name), prices.shape) for f in fields(figures)}
         paid_by = {f.name: getattr(paid, f.name) for f in fields(paid)}
-        for r, option in enumerate(against.rented):
+        for r, option in enumerate(against.rented.options):
             rows.append(BreakEvenRow(
-                against.site_id, option.venue_id, option.term, against.listed[r], against.conversion[r], prices[r],
-                site.node.total, site.variable_per_accelerator_hour,
+                against.site_id, option.venue_id, option.term, against.rented.listed[r], against.conversion[r],
+                prices[r], site.node.total, site.variable_per_accelerator_hour,
                 BreakEven(**{name: values[r] for name, values in stacked.items()}),
                 Payback(**{name: values[r] for name, values in paid_by.items()})))
     return rows
@@ -168,22 +197,25 @@ def breakeven_utilisations(evaluation: CampaignEvaluation, scenarios: int,
     (`compiled.reached_utilisations`, the same figures, written in place)."""
     against_each = list(_against_rented(evaluation))
     labels = [(against.site_id, option.venue_id, option.term) for against in against_each
-              for option in against.rented]
+              for option in against.rented.options]
     utilisations = np.empty((len(labels), scenarios))
     row = 0
     for against in against_each:
-        site, block = against.site, utilisations[row:row + len(against.rented)]
-        row += len(against.rented)
+        site, rented = against.site, against.rented
+        block = utilisations[row:row + len(rented.options)]
+        row += len(rented.options)
         per_node = site.economics.site.node_type.accelerators_per_node
-        if kernel is not None:
-            reached_utilisations(site.node.total, per_node, site.variable_per_accelerator_hour, against.listed,
-                                 against.conversion, against.ruled_out, kernel, out=block)
+        if kernel is not None:  # row by row: a row's figures that are one value are read as such, not stacked
+            for r, out in enumerate(block):
+                reached_utilisations(site.node.total, per_node, site.variable_per_accelerator_hour,
+                                     rented.listed_each[r], against.conversion_each[r], rented.ruled_out_each[r],
+                                     kernel, out=out[np.newaxis])
             continue
         u = breakeven_utilisation(
             fixed_per_node_month=site.node.total, accelerators_per_node=per_node,
             variable_per_accelerator_hour=site.variable_per_accelerator_hour,
             rented_per_accelerator_hour=against.prices)
-        block[...] = np.where(within_reach(u, against.ruled_out), u, np.nan)
+        block[...] = np.where(within_reach(u, rented.ruled_out), u, np.nan)
     return labels, utilisations
 
 

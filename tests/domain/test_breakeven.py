@@ -18,6 +18,7 @@ from numpy.testing import assert_allclose
 
 from service.contract.catalog import CatalogIn
 from service.contract.request import QuoteRequestIn
+from service.domain import compiled
 from service.domain.breakeven import (
     ABOVE_FULL_USE,
     BEYOND_LIFE,
@@ -29,7 +30,7 @@ from service.domain.breakeven import (
     payback,
 )
 from service.domain.campaign import Overrides
-from service.domain.comparison import breakeven_rows, breakeven_utilisations
+from service.domain.comparison import breakeven_rows, breakeven_utilisations, work_conversion
 from service.domain.evaluate import CampaignEvaluation, evaluate_campaign
 from service.domain.owning import chargeback_per_accelerator_hour
 
@@ -165,6 +166,44 @@ def test_a_sweep_reads_the_break_even_utilisations_the_rows_give():
     assert labels == [(r.site, r.offer, r.term) for r in rows]
     np.testing.assert_array_equal(every, np.stack([np.broadcast_to(r.figures.utilisation, (scenarios,)) for r in rows]))
     assert np.isfinite(every).any() and np.isnan(every).any()
+
+
+def test_the_compiled_break_even_utilisations_are_the_rows_to_the_bit():
+    """With the compiled kernel, row by row: the same figures as the rows of `breakeven_rows` (demo data)."""
+    kernel = compiled.kernel()
+    assert kernel is not None
+    scenarios = 40
+    evaluation = evaluate_example("owned-wins", Overrides(rented_price_factor=np.linspace(0.05, 3.0, scenarios),
+                                                          electricity_price_per_kwh=np.linspace(0.02, 0.9, scenarios),
+                                                          utilisation_planned=np.linspace(0.2, 0.95, scenarios)))
+    labels, compiled_every = breakeven_utilisations(evaluation, scenarios, kernel)
+    rows = breakeven_rows(evaluation)
+    assert labels == [(r.site, r.offer, r.term) for r in rows]
+    np.testing.assert_array_equal(compiled_every,
+                                  np.stack([np.broadcast_to(r.figures.utilisation, (scenarios,)) for r in rows]))
+    assert np.isfinite(compiled_every).any() and np.isnan(compiled_every).any()
+
+
+def test_a_conversion_is_one_value_where_both_speeds_are():
+    """A rented option's conversion to owned work is made once where both venues' speeds are one value for
+    every scenario (a sweep over prices), and is then the value each scenario would get; an interruptible
+    one, which reads each scenario's failure overheads, stays one per scenario (demo data)."""
+    scenarios = 30
+    evaluation = evaluate_example("owned-wins", Overrides(rented_price_factor=np.linspace(0.5, 2.0, scenarios)))
+    owned = next(o for o in evaluation.options if o.term == "owned_chargeback")
+    checked = set()
+    for rented in (o for o in evaluation.options if o.venue_kind == "rented"):
+        conversion = work_conversion(rented, owned)
+        expected = (np.asarray(owned.sustained_flops_per_accelerator, dtype=float)
+                    / np.asarray(rented.sustained_flops_per_accelerator, dtype=float))
+        if rented.term == "interruptible":
+            expected = expected * (1.0 + rented.layout.failure_overhead) / (1.0 + owned.layout.failure_overhead)
+            assert conversion.shape == (scenarios,)
+        else:
+            assert conversion.shape == (1,)
+        np.testing.assert_array_equal(np.broadcast_to(conversion, (scenarios,)), expected)
+        checked.add(rented.term == "interruptible")
+    assert checked == {True, False}
 
 
 def test_every_reachable_break_even_of_a_quote_meets_its_rented_price():
