@@ -1,6 +1,7 @@
 """Array type aliases shared by the core, and the helpers every part of it uses on arrays."""
 
 from dataclasses import fields, is_dataclass, replace
+from functools import lru_cache
 from typing import Any, TypeAlias
 
 import numpy as np
@@ -67,11 +68,26 @@ def any_by_row(values: Bools) -> Bools:
     return out
 
 
+@lru_cache(maxsize=8)
+def every_row(count: int) -> Ints:
+    """The rows 0 … count − 1, in order, as one read-only array per count: an index that `is_every_row`
+    tells apart without reading it, so that what is taken at it (a chunk's chosen layouts, where every
+    scenario chose from one block) is not copied row for row."""
+    rows = np.arange(count)
+    rows.setflags(write=False)
+    return rows
+
+
+def is_every_row(rows: Any) -> bool:
+    """Whether `rows` is `every_row` of its length: every row, in order."""
+    return isinstance(rows, np.ndarray) and rows.ndim == 1 and rows is every_row(rows.shape[0])
+
+
 def take_rows(value: Any, index: Any, scenarios: int) -> Any:
     """`value` at some of its scenarios: every array whose leading axis runs over the `scenarios`
     (when there is more than one) taken at `index`, a slice or an index array, through dataclasses,
     dicts and tuples; everything else as it is."""
-    if scenarios <= 1:
+    if scenarios <= 1 or (is_every_row(index) and index.shape[0] == scenarios):
         return value
     if isinstance(value, np.ndarray):
         return value[index] if value.ndim >= 1 and value.shape[0] == scenarios else value

@@ -10,7 +10,7 @@ from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import Bools, Floats, Ints, as_floats
+from service.domain.arrays import Bools, Floats, Ints, as_floats, is_every_row
 from service.domain.step import FiguresWhenRead, Hardware, Load, scenario_terms, wall_figures
 
 
@@ -89,6 +89,8 @@ class GatheredGrid(FiguresWhenRead):
         distinct, row_of = self._rows, self._row_of  # scenario s's columns: distinct[row_of[s]]
         if row_of is None:
             cell = distinct[rows if distinct.shape[0] > 1 else np.zeros_like(rows), columns]
+        elif row_of.size == rows.size > 1 and is_every_row(rows):  # every scenario's row, in order: as it is
+            cell = distinct[row_of, columns]
         else:
             cell = distinct[row_of[rows if row_of.size > 1 else np.zeros_like(rows)], columns]
         spread = super().cells(rows, columns)

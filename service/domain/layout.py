@@ -15,7 +15,7 @@ from typing import Any
 import numpy as np
 
 from service.domain import dominance
-from service.domain.arrays import ArrayLike, Floats, Ints, as_floats, take_rows
+from service.domain.arrays import ArrayLike, Floats, Ints, as_floats, every_row, take_rows
 from service.domain.deadline import (
     MAX_UNITS,
     blocks_by_step,
@@ -102,15 +102,15 @@ class Candidates:
             return self._picked[chosen]
         ends = np.cumsum(self.widths)
         block_of = np.searchsorted(ends, index, side="right")
-        rows = np.arange(index.shape[0])
+        rows = every_row(index.shape[0])
         # Per block, the scenarios whose choice lies in it, and the chosen column within the block.
         parts = [(block, chosen, rows[chosen], index[chosen] - (end - width))
                  for block, end, width, chosen in ((block, end, width, block_of == b) for b, (block, end, width)
                                                    in enumerate(zip(self.blocks, ends, self.widths, strict=True)))
                  if chosen.any()]
-        if len(parts) == 1:  # every scenario chose from one block
-            block, _, at_rows, at_columns = parts[0]
-            read = block.cells(at_rows, at_columns)
+        if len(parts) == 1:  # every scenario chose from one block: its rows are all of them, in order
+            block, _, _, at_columns = parts[0]
+            read = block.cells(rows, at_columns)
             return FiguresWhenRead.of(lambda name: np.asarray(read(name)))
         readers = [(chosen, block.cells(at_rows, at_columns)) for block, chosen, at_rows, at_columns in parts]
 

@@ -13,7 +13,16 @@ from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Bools, Floats, Ints, as_floats, broadcast, longest_axis
+from service.domain.arrays import (
+    ArrayLike,
+    Bools,
+    Floats,
+    Ints,
+    as_floats,
+    broadcast,
+    is_every_row,
+    longest_axis,
+)
 from service.domain.assumptions import default
 from service.domain.campaign import LayoutPins, Parallelism, Recompute
 from service.domain.memory import (
@@ -368,8 +377,9 @@ def wall_figures(load: Load, hardware: Hardware, effective_step_seconds: Floats,
                  rows: Ints | None = None) -> dict[str, Floats]:
     """The wall clock of a run, steps × runs × the effective step plus staging (model.md §5), and
     its accelerator-hours; with `rows`, of those scenarios, one per row of the figures."""
-    steps, staging = (terms if rows is None else terms[rows if terms.shape[0] > 1 else np.zeros_like(rows)]
-                      for terms in scenario_terms(load, hardware))
+    steps, staging = scenario_terms(load, hardware)
+    if rows is not None and not is_every_row(rows):
+        steps, staging = (terms[rows if terms.shape[0] > 1 else np.zeros_like(rows)] for terms in (steps, staging))
     wall = np.asarray(steps * effective_step_seconds)
     if wall.ndim == 2 and staging.shape[0] in (1, wall.shape[0]):  # staging: (S, 1)
         wall += staging  # in place where the shapes allow: this runs over every candidate of every scenario

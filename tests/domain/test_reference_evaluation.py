@@ -19,7 +19,16 @@ import pytest
 
 from service.contract.catalog import CatalogIn
 from service.domain import deadline, dominance, evaluate
-from service.domain.arrays import Bools, Ints, any_by_row, broadcast, scenario_value, take_rows
+from service.domain.arrays import (
+    Bools,
+    Ints,
+    any_by_row,
+    broadcast,
+    every_row,
+    is_every_row,
+    scenario_value,
+    take_rows,
+)
 from service.domain.campaign import (
     Campaign,
     DataPlan,
@@ -35,7 +44,8 @@ from service.domain.campaign import (
 from service.domain.choice import _first_least
 from service.domain.evaluate import CampaignEvaluation, evaluate_campaign
 from service.domain.layout import node_fit
-from service.domain.step import FiguresWhenRead, LayoutGrid
+from service.domain.step import FiguresWhenRead, LayoutGrid, wall_figures
+from tests.domain import builders
 
 DEMO = json.loads((Path(__file__).resolve().parents[2] / "pricing_examples" / "catalog.json").read_text("utf-8"))
 SCENARIOS = 24
@@ -468,3 +478,24 @@ def test_the_chosen_layouts_figures_are_made_once_when_read_and_taking_rows_buil
     assert "_make" not in taken.__dict__
     for f in dataclasses.fields(LayoutGrid):
         np.testing.assert_array_equal(getattr(taken, f.name), getattr(grid, f.name)[1:2])
+
+
+def test_every_row_is_told_apart_without_reading_it_and_taking_it_takes_everything() -> None:
+    """`arrays.every_row`: the index a chunk's chosen layouts are read at where every scenario chose from one
+    block. It is known by identity, so an equal index made elsewhere is still read as an index; where it is
+    known, what is taken at it is the whole, unchanged: the load and hardware as they are, and the wall clock
+    of those rows the same to the bit as read through an ordinary index (demo figures)."""
+    rows = every_row(5)
+    assert rows is every_row(5) and not rows.flags.writeable
+    np.testing.assert_array_equal(rows, np.arange(5))
+    assert is_every_row(rows) and not is_every_row(np.arange(5)) and not is_every_row(rows[:4])
+    the_load = builders.load(tokens=np.linspace(1e10, 5e10, 5))
+    assert take_rows(the_load, rows, 5) is the_load
+    np.testing.assert_array_equal(take_rows(the_load, np.arange(5), 5).tokens_per_run, the_load.tokens_per_run)
+    step = np.linspace(1.0, 2.0, 5)[:, np.newaxis]
+    used = np.full((5, 1), 64.0)
+    for venue in (builders.hardware(), builders.hardware(staging_seconds=np.linspace(0.0, 900.0, 5))):
+        for load in (the_load, builders.load()):  # steps one per scenario, then one for all
+            known, read = (wall_figures(load, venue, step, used, index) for index in (rows, np.arange(5)))
+            for name in ("wall_seconds", "accelerator_hours"):
+                np.testing.assert_array_equal(np.broadcast_to(known[name], (5, 1)), read[name], strict=True)
