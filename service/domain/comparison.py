@@ -205,11 +205,9 @@ def breakeven_utilisations(evaluation: CampaignEvaluation, scenarios: int,
         block = utilisations[row:row + len(rented.options)]
         row += len(rented.options)
         per_node = site.economics.site.node_type.accelerators_per_node
-        if kernel is not None:  # row by row: a row's figures that are one value are read as such, not stacked
-            for r, out in enumerate(block):
-                reached_utilisations(site.node.total, per_node, site.variable_per_accelerator_hour,
-                                     rented.listed_each[r], against.conversion_each[r], rented.ruled_out_each[r],
-                                     kernel, out=out[np.newaxis])
+        if kernel is not None:
+            reached_utilisations(site.node.total, per_node, site.variable_per_accelerator_hour, rented.listed_each,
+                                 against.conversion_each, rented.ruled_out_each, kernel, out=block)
             continue
         u = breakeven_utilisation(
             fixed_per_node_month=site.node.total, accelerators_per_node=per_node,

@@ -229,16 +229,17 @@ _NO_FLAGS = np.zeros(1, dtype=bool)
 _NO_MASK = np.zeros((1, 1), dtype=bool)
 
 
-def _along(value: Any, rows: int) -> Any:
-    """A per-scenario figure ((S, 1), (S,), (1, 1), a scalar or None) as an (rows,) array: itself where
-    it has one value per scenario, else a view repeating its one value (made directly: a sweep makes
-    about a thousand of these a chunk, and np.broadcast_to costs four times as much)."""
-    array = np.ascontiguousarray(_NONE[0] if value is None else as_floats(value).reshape(-1))
+def _along(value: Any, rows: int, dtype: Any = np.float64) -> Any:
+    """A per-scenario figure ((S, 1), (S,), (1, 1), a scalar or None) as an (rows,) array of `dtype`: itself
+    where it has one value per scenario (as it is laid out: the kernel reads any layout), else a view
+    repeating its one value (made directly: a sweep makes about a thousand of these a chunk, and
+    np.broadcast_to costs four times as much)."""
+    array = _NONE[0] if value is None else np.asarray(value, dtype=dtype).reshape(-1)
     if array.shape[0] == rows:
         return array
     if array.shape[0] != 1:
         raise ValueError(f"{array.shape[0]} values for {rows} scenarios")
-    repeated = np.ndarray((rows,), dtype=array.dtype, buffer=array, strides=(0,))
+    repeated = np.ndarray((rows,), dtype=array.dtype, buffer=np.ascontiguousarray(array), strides=(0,))
     repeated.flags.writeable = False  # one value shared by every scenario
     return repeated
 
@@ -305,16 +306,19 @@ def least_costs(meets: Sequence[Bools | None], gathered: Sequence[Gathered | Non
     return best, index
 
 
-def reached_utilisations(fixed: Floats, accelerators_per_node: int, variable: Floats, listed: Floats,
-                         conversion: Floats, ruled_out: Bools, compiled: Kernel, *,
-                         out: Floats | None = None) -> Floats:
-    """Per rented option and scenario, its break-even utilisation where it is within reach, else NaN
-    ((R, S), written into `out` where given), as `comparison.breakeven_utilisations` finds it in numpy,
-    with the kernel `compiled`."""
-    shape = np.broadcast_shapes(np.shape(listed), np.shape(conversion), np.shape(ruled_out),
-                                (1, np.size(fixed)), (1, np.size(variable)), () if out is None else out.shape)
-    out = np.empty(shape) if out is None else out
-    compiled.breakeven(_along(fixed, shape[1]), float(accelerators_per_node) * HOURS_PER_MONTH,
-                       _along(variable, shape[1]), np.broadcast_to(as_floats(listed), shape),
-                       np.broadcast_to(as_floats(conversion), shape), np.broadcast_to(ruled_out, shape), out)
+def reached_utilisations(fixed: Floats, accelerators_per_node: int, variable: Floats, listed: Sequence[Floats],
+                         conversion: Sequence[Floats], ruled_out: Sequence[Bools], compiled: Kernel, *,
+                         out: Floats) -> Floats:
+    """Per rented option r and scenario, its break-even utilisation where it is within reach, else NaN,
+    written into `out` (R, S), as `comparison.breakeven_utilisations` finds it in numpy, with the kernel
+    `compiled`: row by row, each row's listed price, conversion and screen (`listed[r]`, ...) one value or
+    one per scenario, and a row's one value read as such, never spread (a conversion is one value but for
+    interruptible capacity; stacked per site, they cost a sweep on ten venues 6 ms a chunk of 25,000)."""
+    scenarios = out.shape[1]
+    hours = float(accelerators_per_node) * HOURS_PER_MONTH
+    fixed_along, variable_along = _along(fixed, scenarios), _along(variable, scenarios)
+    for r, row in enumerate(out):
+        compiled.breakeven(fixed_along, hours, variable_along, _along(listed[r], scenarios)[np.newaxis],
+                           _along(conversion[r], scenarios)[np.newaxis],
+                           _along(ruled_out[r], scenarios, np.bool_)[np.newaxis], row[np.newaxis])
     return out

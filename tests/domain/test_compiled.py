@@ -189,12 +189,21 @@ def test_the_compiled_break_even_utilisations_are_numpys_to_the_bit(seed: int) -
     conversion[rng.random(conversion.shape) < 0.03] = np.nextafter(0.0, 1.0)
     ruled_out = rng.random((rows, scenarios)) < 0.2
     per_node = int(rng.choice([1, 4, 6, 12]))
+    # Row by row, each row's figures one value or one per scenario: a conversion as its one value where it
+    # has one (most rows), and some rows' listed price and screen too.
+    same = rng.random(rows) < 0.3
+    listed[same] = listed[same][:, :1]
+    ruled_out[same] = ruled_out[same][:, :1]
     with np.errstate(all="ignore"):
         u = breakeven_utilisation(fixed_per_node_month=fixed, accelerators_per_node=per_node,
                                   variable_per_accelerator_hour=variable,
                                   rented_per_accelerator_hour=listed * conversion)
         expected = np.where(within_reach(u, ruled_out), u, np.nan)
-    ours = compiled.reached_utilisations(fixed, per_node, variable, listed, conversion, ruled_out, KERNEL)
+    ours = compiled.reached_utilisations(
+        fixed, per_node, variable, [row[:1] if one else row for row, one in zip(listed, same, strict=True)],
+        [row[:1] if (row == row[0]).all() else row for row in conversion],
+        [row[:1] if one else row for row, one in zip(ruled_out, same, strict=True)],
+        KERNEL, out=np.empty((rows, scenarios)))
     np.testing.assert_array_equal(ours, expected)
     assert np.isfinite(ours).any() and np.isnan(ours).any()
 
