@@ -27,7 +27,7 @@ evaluations.
 import logging
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 
@@ -186,19 +186,22 @@ def kernel() -> Kernel | None:
             import numba  # here, not at the top: only a sweep imports it, so a quote never pays for it
             from numba import types
 
-            def array(kind: Any, dimensions: int) -> Any:
-                return types.Array(kind, dimensions, "A", readonly=True)
-            floats, given, flags = array(types.float64, 2), array(types.float64, 1), array(types.boolean, 1)
-            columns, row_of = array(types.int64, 2), array(types.int64, 1)
+            def array(kind: Any, dimensions: int, layout: Literal["A", "C"] = "A") -> Any:
+                return types.Array(kind, dimensions, layout, readonly=True)
+            floats, given = array(types.float64, 2), array(types.float64, 1)
+            columns, row_of = array(types.int64, 2, "C"), array(types.int64, 1)
+            table, table_flags = array(types.float64, 1, "C"), array(types.boolean, 1, "C")
             out_floats, out_ints = types.Array(types.float64, 1, "C"), types.Array(types.int64, 1, "C")
             out_flags = types.Array(types.boolean, 1, "C")
             # One signature each, compiled once (or read from numba's cache beside this file), the scan
             # once per variant the first time it is needed: any layout of the arrays converts to it, where
             # letting numba type each call compiles one per layout.
-            scan_signature = types.void(array(types.boolean, 2), floats, floats, floats, columns, row_of, given,
-                                        given, flags, given, given, given, given, given, given, given, types.float64,
-                                        types.float64, given, given, given, types.int64, out_floats, out_ints)
-            reach = types.void(columns, row_of, given, flags, given, given, given, given, given, out_flags, out_flags)
+            scan_signature = types.void(array(types.boolean, 2), floats, floats, floats, columns, row_of, table,
+                                        table, table_flags, table, given, given, given, given, given, given,
+                                        types.float64, types.float64, given, given, given, types.int64, out_floats,
+                                        out_ints)
+            reach = types.void(columns, row_of, table, table_flags, table, given, given, given, given, out_flags,
+                               out_flags)
             breakeven = types.void(given, types.float64, given, floats, floats, array(types.boolean, 2),
                                    types.Array(types.float64, 2, "C"))
 

@@ -10,7 +10,7 @@ from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import Bools, Floats, Ints, as_floats, is_every_row
+from service.domain.arrays import Bools, Floats, Ints, is_every_row
 from service.domain.step import FiguresWhenRead, Hardware, Load, scenario_terms, wall_figures
 
 
@@ -78,11 +78,11 @@ class GatheredGrid(FiguresWhenRead):
         load, hardware = self._inputs
         table = self._table
         steps, staging = scenario_terms(load, hardware)
-        rows = np.asarray(self._rows, dtype=np.int64)
+        rows = np.ascontiguousarray(self._rows, dtype=np.int64)
         row_of = np.arange(rows.shape[0]) if self._row_of is None else np.asarray(self._row_of, dtype=np.int64)
-        nodes, accelerators, step = (as_floats(table[name])[0] for name in (
+        nodes, accelerators, step = (np.ascontiguousarray(table[name][0], dtype=np.float64) for name in (
             "nodes", "accelerators", "effective_step_seconds"))
-        fits = np.asarray(table["fits"], dtype=bool)[0]
+        fits = np.ascontiguousarray(table["fits"][0], dtype=bool)
         return Gathered(rows, row_of, nodes, accelerators, fits, step, steps.reshape(-1), staging.reshape(-1))
 
     def cells(self, rows: Ints, columns: Ints) -> Callable[[str], Any]:
