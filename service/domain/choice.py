@@ -99,6 +99,18 @@ def choose_priced(layouts: Eligible, blocks: Sequence[LayoutGrid], charges: Char
     return _choice(layouts, cheapest, cheapest.shape[0])
 
 
+def choose_priced_each(layouts: Eligible, blocks: Sequence[LayoutGrid], charges: Sequence[Charges],
+                       kernel: compiled.Kernel | None) -> list[Choice]:
+    """`choose_priced` for each of several terms that may take the same candidates: with the kernel, those it
+    can price in one scan of the candidates (`compiled.scanned_together`: an offer's on-demand and committed
+    terms) priced so, the same choices."""
+    if kernel is None:
+        return [choose_priced(layouts, blocks, each, kernel) for each in charges]
+    _, cheapest = compiled.least_costs(layouts.meets, layouts.gathered, layouts.widths, layouts.limit,
+                                       layouts.deadline, blocks, [each.form for each in charges], kernel)
+    return [_choice(layouts, row, row.shape[0]) for row in cheapest]
+
+
 def _choice(layouts: Eligible, cheapest: Ints, rows: int) -> Choice:
     """The choice of the cheapest columns, or of the fastest where no column meets the deadline,
     over `rows` scenarios or as many as the layouts have."""

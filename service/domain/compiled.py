@@ -6,7 +6,9 @@ whole-grid passes per term, each writing an (S, K) array, then a masked copy and
 the deadline's candidates were spread over every scenario (`step.GatheredGrid`) and masked by which
 a term may take (`choice.eligible`): about 45% of a sweep's time. Here each block of candidates is
 priced and compared in one pass, a cell at a time, a gathered block read from its table through each
-scenario's row of columns (`step.Gathered`), and nothing is written but each scenario's running least.
+scenario's row of columns (`step.Gathered`), and nothing is written but each scenario's running least;
+the terms of an offer that share their candidates (on demand, committed) in the same pass, each cell
+read once for all of them (`choice.choose_priced_each`).
 A sweep's break-even utilisations (`comparison.breakeven_utilisations`: every owned site against every
 rented option, about ten whole-array passes each in numpy) are made here in one pass too.
 
@@ -63,30 +65,34 @@ class CostForm:
                 NEW_BUILD: ("nodes", "wall_seconds", "accelerator_hours")}[self.kind]
 
 
-def _scan_of(kind: int, gathered: bool, recurring: bool, stored: bool) -> Callable[..., None]:
-    """The scan of one kind of term over one form of block, for a campaign that recurs or not, at a
-    venue that charges for storage or not: these four are the compiler's constants, so it drops every
-    branch they decide (a third less time than one scan deciding them at every cell). `kernel()`
-    compiles each the first time a sweep needs it."""
+def _scan_of(gathered: bool, recurring: bool, stored: bool) -> Callable[..., None]:
+    """The scan of one form of block for the terms of one venue on one node limit and deadline, for a
+    campaign that recurs or not, at a venue that charges for storage or not: these three are the compiler's
+    constants, so it drops every branch they decide. `kernel()` compiles each the first time a sweep needs
+    it."""
     def scan(meets: Any, nodes: Any, accelerator_hours: Any, wall_seconds: Any, rows: Any, row_of: Any,
              table_nodes: Any, table_accelerators: Any, table_fits: Any, table_step: Any, steps: Any, staging: Any,
-             limit: Any, deadline: Any, rate: Any, fixed: Any, months: float, fee_per_node: float, every: Any,
+             limit: Any, deadline: Any, kinds: Any, rates: Any, fixeds: Any, months: Any, fees: Any, every: Any,
              total: Any, storage: Any, offset: int, best: Any, index: Any) -> None:  # pragma: no cover - compiled
-        """One block's candidates priced and compared with the running least of each scenario
-        (`best`, `index`, over the blocks before it): np.argmin's rules, the first of equals, a NaN as
-        the least (the first NaN is kept), a candidate that does not meet the deadline as inf. A block's
-        figures are (S, K) arrays with `meets`, or for a `gathered` block its table's, at the columns
-        `rows[row_of[s]]`, with which ones a term may take and their wall clock made here as
-        `choice.eligible` and `step.wall_figures` make them."""
+        """One block's candidates priced for each term t and compared with its running least in each
+        scenario (`best[t]`, `index[t]`, over the blocks before it): np.argmin's rules, the first of equals,
+        a NaN as the least (the first NaN is kept), a candidate that does not meet the deadline as inf. A
+        block's figures are (S, K) arrays with `meets`, or for a `gathered` block its table's, at the columns
+        `rows[row_of[s]]`, with which ones the terms may take and their wall clock made here as
+        `choice.eligible` and `step.wall_figures` make them. Per term: its kind, its rate (S,) (per
+        accelerator-hour, or a committed term's price × financing factor), a new build's fixed cost per node
+        month (S,), its months (committed, or a new build's depreciation) and a committed term's fee per
+        node."""
         width = rows.shape[1] if gathered else meets.shape[1]
-        timed = stored or kind == COMMITTED or kind == NEW_BUILD  # the cost reads the wall clock
-        for s in range(best.shape[0]):
-            least, at = best[s], index[s]
-            if least != least:
-                continue
+        # A scenario's cells the terms may take, laid out once for all of them; then each term runs over
+        # them with its running least in registers.
+        cell_count, cell_hours, cell_used = np.empty(width), np.empty(width), np.empty(width)
+        cell_column = np.empty(width, dtype=np.int64)
+        for s in range(best.shape[1]):
             # The scenario's figures read once, not per cell (numba cannot hoist them past the writes).
-            limit_s, deadline_s, rate_s, fixed_s, storage_s = limit[s], deadline[s], rate[s], fixed[s], storage[s]
+            limit_s, deadline_s, storage_s = limit[s], deadline[s], storage[s]
             every_s, total_s, steps_s, staging_s, r = every[s], total[s], steps[s], staging[s], row_of[s]
+            n = 0
             for k in range(width):
                 if gathered:
                     c = rows[r, k]
@@ -101,33 +107,41 @@ def _scan_of(kind: int, gathered: bool, recurring: bool, stored: bool) -> Callab
                     if not meets[s, k]:
                         continue
                     seconds, count, used = wall_seconds[s, k], nodes[s, k], accelerator_hours[s, k]
-                hours = seconds / SECONDS_PER_HOUR if timed else 0.0
-                window = terms = 0.0
-                if kind == COMMITTED:  # committed_share: max(1, ⌈hours / term hours⌉) terms
-                    terms = hours / (months * HOURS_PER_MONTH)
-                    terms -= 1e-9
-                    terms = np.maximum(np.ceil(terms), 1.0)
-                    window = terms * months
-                elif kind == NEW_BUILD:  # new_build_share: carried for the life, or the campaign if longer
-                    window = np.maximum(months, hours / HOURS_PER_MONTH)
-                sharing = 1.0
-                if recurring:  # recurrence.instances_sharing
-                    by_calendar = np.floor(window / every_s + 1e-9)
-                    by_capacity = np.floor(window * HOURS_PER_MONTH / hours + 1e-9)
-                    sharing = np.maximum(1.0, np.minimum(np.minimum(by_calendar, by_capacity), total_s))
-                if kind == COMMITTED:  # committed_lines
-                    value = count * fee_per_node * terms * (rate_s / sharing)
-                elif kind == NEW_BUILD:  # new_build_cost
-                    value = count * window / sharing * fixed_s + used * rate_s
-                else:  # hourly_lines, chargeback_cost
-                    value = used * rate_s
-                if stored:  # storage_cost
-                    value = value + storage_s * hours
-                if not value >= least:  # less, or NaN (one comparison for both, on the common path)
-                    least, at = value, offset + k
-                    if value != value:
-                        break
-            best[s], index[s] = least, at
+                cell_count[n], cell_hours[n], cell_used[n], cell_column[n] = count, seconds / SECONDS_PER_HOUR, used, k
+                n += 1
+            for t in range(best.shape[0]):
+                least, at = best[t, s], index[t, s]
+                if least != least:
+                    continue
+                kind, rate_s, fixed_s, term_months, fee = kinds[t], rates[t, s], fixeds[t, s], months[t], fees[t]
+                for j in range(n):
+                    hours = cell_hours[j]
+                    if kind in (COMMITTED, NEW_BUILD):
+                        if kind == COMMITTED:  # committed_share: max(1, ⌈hours / term hours⌉) terms
+                            terms = hours / (term_months * HOURS_PER_MONTH)
+                            terms -= 1e-9
+                            terms = np.maximum(np.ceil(terms), 1.0)
+                            window = terms * term_months
+                        else:  # new_build_share: carried for the life, or the campaign if longer
+                            window = np.maximum(term_months, hours / HOURS_PER_MONTH)
+                        sharing = 1.0
+                        if recurring:  # recurrence.instances_sharing
+                            by_calendar = np.floor(window / every_s + 1e-9)
+                            by_capacity = np.floor(window * HOURS_PER_MONTH / hours + 1e-9)
+                            sharing = np.maximum(1.0, np.minimum(np.minimum(by_calendar, by_capacity), total_s))
+                        if kind == COMMITTED:  # committed_lines
+                            value = cell_count[j] * fee * terms * (rate_s / sharing)
+                        else:  # new_build_cost
+                            value = cell_count[j] * window / sharing * fixed_s + cell_used[j] * rate_s
+                    else:  # hourly_lines, chargeback_cost
+                        value = cell_used[j] * rate_s
+                    if stored:  # storage_cost
+                        value = value + storage_s * hours
+                    if not value >= least:  # less, or NaN (one comparison for both, on the common path)
+                        least, at = value, offset + cell_column[j]
+                        if value != value:
+                            break
+                best[t, s], index[t, s] = least, at
     return scan
 
 
@@ -166,9 +180,8 @@ def _breakeven(fixed: Any, per_node_hours: float, variable: Any, listed: Any, co
 
 @dataclass(frozen=True)
 class Kernel:
-    """The compiled scans (`_scan_of`: called with the kind of term, whether the block is gathered,
-    the campaign recurs and the venue stores data, then the scan's own arguments), `_reach` and
-    `_breakeven`."""
+    """The compiled scans (`_scan_of`: called with whether the block is gathered, the campaign recurs and
+    the venue stores data, then the scan's own arguments), `_reach` and `_breakeven`."""
 
     scan: Callable[..., None]
     reach: Callable[..., None]
@@ -191,15 +204,14 @@ def kernel() -> Kernel | None:
             floats, given = array(types.float64, 2), array(types.float64, 1)
             columns, row_of = array(types.int64, 2, "C"), array(types.int64, 1)
             table, table_flags = array(types.float64, 1, "C"), array(types.boolean, 1, "C")
-            out_floats, out_ints = types.Array(types.float64, 1, "C"), types.Array(types.int64, 1, "C")
             out_flags = types.Array(types.boolean, 1, "C")
             # One signature each, compiled once (or read from numba's cache beside this file), the scan
             # once per variant the first time it is needed: any layout of the arrays converts to it, where
             # letting numba type each call compiles one per layout.
             scan_signature = types.void(array(types.boolean, 2), floats, floats, floats, columns, row_of, table,
-                                        table, table_flags, table, given, given, given, given, given, given,
-                                        types.float64, types.float64, given, given, given, types.int64, out_floats,
-                                        out_ints)
+                                        table, table_flags, table, given, given, given, given, array(types.int64, 1),
+                                        floats, floats, table, table, given, given, given, types.int64,
+                                        types.Array(types.float64, 2, "C"), types.Array(types.int64, 2, "C"))
             reach = types.void(columns, row_of, table, table_flags, table, given, given, given, given, out_flags,
                                out_flags)
             breakeven = types.void(given, types.float64, given, floats, floats, array(types.boolean, 2),
@@ -207,10 +219,10 @@ def kernel() -> Kernel | None:
 
             def compiled(signature: Any, function: Callable[..., None]) -> Callable[..., None]:
                 return numba.njit([signature], cache=True, nogil=True, error_model="numpy")(function)
-            scans: dict[tuple[int, bool, bool, bool], Callable[..., None]] = {}
+            scans: dict[tuple[bool, bool, bool], Callable[..., None]] = {}
 
-            def scan(kind: int, gathered: bool, recurring: bool, stored: bool, *arguments: Any) -> None:
-                key = (int(kind), bool(gathered), bool(recurring), bool(stored))
+            def scan(gathered: bool, recurring: bool, stored: bool, *arguments: Any) -> None:
+                key = (bool(gathered), bool(recurring), bool(stored))
                 if key not in scans:  # compiled, or read from numba's cache, the first time it is needed
                     scans[key] = compiled(scan_signature, _scan_of(*key))
                 scans[key](*arguments)
@@ -270,43 +282,69 @@ def cheapest(meets: Sequence[Bools | None], gathered: Sequence[Gathered | None],
     side by side, as `choice.choose` finds it from the blocks' costs, with the kernel `compiled`. A
     block is given by its figures and which of its candidates meet the deadline (`meets`), or where
     that is None by its `gathered` form and the term's node `limit` and `deadline`."""
-    return least_costs(meets, gathered, widths, limit, deadline, blocks, form, compiled)[1]
+    return np.asarray(least_costs(meets, gathered, widths, limit, deadline, blocks, [form], compiled)[1][0])
+
+
+def scanned_together(forms: Sequence[CostForm]) -> bool:
+    """Whether the terms of `forms`, on one node limit and deadline, are priced by one scan of their
+    candidates: they store alike, and those that share commitments among instances (committed terms, a new
+    build) share them alike (an offer's on-demand and committed terms)."""
+    shared = [form.recurring for form in forms if form.kind in (COMMITTED, NEW_BUILD)]
+    return (all(_same(form.storage, forms[0].storage) for form in forms)
+            and all(_same(every, shared[0][0]) and _same(total, shared[0][1]) for every, total in shared))
+
+
+def _same(one: Floats | None, other: Floats | None) -> bool:
+    return one is other or (one is not None and other is not None and np.array_equal(one, other))
 
 
 def least_costs(meets: Sequence[Bools | None], gathered: Sequence[Gathered | None], widths: Sequence[int],
-                limit: Floats, deadline: Floats, blocks: Sequence[Any], form: CostForm,
+                limit: Floats, deadline: Floats, blocks: Sequence[Any], forms: Sequence[CostForm],
                 compiled: Kernel) -> tuple[Floats, Ints]:
-    """`cheapest`, with each scenario's least cost (inf where no candidate meets the deadline)."""
-    figures = [{} if mask is None else {name: np.atleast_2d(as_floats(getattr(block, name))) for name in form.reads()}
+    """`cheapest` of each term of `forms` (on one node limit and deadline), with each scenario's least cost
+    (inf where no candidate meets the deadline): (terms, S) each. Terms `scanned_together` are priced by one
+    scan of each block, which reads each candidate once for all of them (an offer's on-demand and committed
+    terms: a quarter less time than one scan each); others one by one."""
+    if len(forms) > 1 and not scanned_together(forms):
+        each = [least_costs(meets, gathered, widths, limit, deadline, blocks, [form], compiled) for form in forms]
+        return np.concatenate([least for least, _ in each]), np.concatenate([index for _, index in each])
+    reads = sorted({name for form in forms for name in form.reads()})
+    figures = [{} if mask is None else {name: np.atleast_2d(as_floats(getattr(block, name))) for name in reads}
                for mask, block in zip(meets, blocks, strict=True)]
-    every, total = form.recurring
-    per_scenario = [value for value in (form.rate, form.fixed, every, total, form.storage) if value is not None]
+    every, total = next((form.recurring for form in forms if form.kind in (COMMITTED, NEW_BUILD)), (None, None))
+    storage = forms[0].storage
+    per_scenario = [value for form in forms for value in (form.rate, form.fixed) if value is not None]
     rows = max([np.shape(mask)[0] for mask in meets if mask is not None]
                + [_scenarios(at, limit, deadline) for at in gathered if at is not None]
                + [value.shape[0] for block in figures for value in block.values()]
-               + [np.size(value) for value in per_scenario])
-    best, index = np.full(rows, np.inf), np.zeros(rows, dtype=np.int64)
-    term = (_along(limit, rows), _along(deadline, rows), _along(form.rate, rows), _along(form.fixed, rows),
-            float(form.months), float(form.fee_per_node), _along(every, rows), _along(total, rows),
-            _along(form.storage, rows))  # the term's figures, the same for every block
+               + [np.size(value) for value in (*per_scenario, every, total, storage) if value is not None])
+    best, index = np.full((len(forms), rows), np.inf), np.zeros((len(forms), rows), dtype=np.int64)
+    terms = (_along(limit, rows), _along(deadline, rows), np.array([form.kind for form in forms], dtype=np.int64),
+             np.stack([_along(form.rate, rows) for form in forms]),
+             np.stack([_along(form.fixed, rows) for form in forms]), np.array([form.months for form in forms]),
+             np.array([form.fee_per_node for form in forms]), _along(every, rows), _along(total, rows),
+             _along(storage, rows))  # the same for every block
     offset = 0
     for mask, block, width, at in zip(meets, figures, widths, gathered, strict=True):
-        def grid(value: Any) -> Any:
-            return np.broadcast_to(value, (rows, width))  # noqa: B023 - used at once
-        if mask is None:
-            assert at is not None
-            cells = (_NO_MASK, _NONE, _NONE, _NONE, at.rows, np.broadcast_to(at.row_of, (rows,)), at.nodes,
-                     at.accelerators, at.fits, at.effective_step_seconds, _along(at.steps, rows),
-                     _along(at.staging, rows))
-        else:
-            figure_names = ("nodes", "accelerator_hours", "wall_seconds")
-            cells = (grid(np.asarray(mask, dtype=bool)), *(grid(block.get(name, _NONE)) for name in figure_names),
-                     _NO_COLUMNS, np.broadcast_to(_NO_COLUMNS[0], (rows,)), _NONE[0], _NONE[0], _NO_FLAGS,
-                     _NONE[0], _along(None, rows), _along(None, rows))
-        compiled.scan(form.kind, mask is None, every is not None, form.storage is not None, *cells, *term, offset,
-                      best, index)
+        compiled.scan(mask is None, every is not None, storage is not None, *_cells(mask, block, width, at, rows),
+                      *terms, offset, best, index)
         offset += width
     return best, index
+
+
+def _cells(mask: Bools | None, block: dict[str, Any], width: int, at: Gathered | None, rows: int) -> tuple[Any, ...]:
+    """A block's cells as the scans read them: its figures and which candidates meet the deadline, or its
+    gathered form."""
+    def grid(value: Any) -> Any:
+        return np.broadcast_to(value, (rows, width))
+    if mask is None:
+        assert at is not None
+        return (_NO_MASK, _NONE, _NONE, _NONE, at.rows, np.broadcast_to(at.row_of, (rows,)), at.nodes,
+                at.accelerators, at.fits, at.effective_step_seconds, _along(at.steps, rows), _along(at.staging, rows))
+    figure_names = ("nodes", "accelerator_hours", "wall_seconds")
+    return (grid(np.asarray(mask, dtype=bool)), *(grid(block.get(name, _NONE)) for name in figure_names),
+            _NO_COLUMNS, np.broadcast_to(_NO_COLUMNS[0], (rows,)), _NONE[0], _NONE[0], _NO_FLAGS, _NONE[0],
+            _along(None, rows), _along(None, rows))
 
 
 def reached_utilisations(fixed: Floats, accelerators_per_node: int, variable: Floats, listed: Sequence[Floats],

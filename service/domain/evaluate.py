@@ -24,7 +24,7 @@ from service.domain.charges import (
     hourly_charges,
     new_build_charges,
 )
-from service.domain.choice import Choice, Eligible, as_column, choose_priced, eligible
+from service.domain.choice import Choice, Eligible, as_column, choose_priced, choose_priced_each, eligible
 from service.domain.compiled import Kernel
 from service.domain.gravity import Transfer, staging_seconds, transfer
 from service.domain.layout import Architecture, Candidates, Hardware, LayoutGrid, Load, NodeFit, layout_search, node_fit
@@ -228,17 +228,22 @@ def _offer_options(offer: Offer, context: _Context) -> Search[list[OptionResult]
         searches.append(_physics(venue, context, limits=[limit.nodes],
                                  interruption_mean_hours=interruptible.mean_hours_between_interruptions))
     physics, *interrupted = yield from together(searches)
+    priced: list[tuple[str, Charges]] = []  # the terms on the offer's own physics and limit
     if "on_demand" in terms and offer.on_demand_per_accelerator_hour is not None:
         price = offer.on_demand_per_accelerator_hour * rented_price_factor(overrides, on_demand=True)
-        results.append(_evaluate(venue, "on_demand", limit, hourly_charges(price, data), physics))
+        priced.append(("on_demand", hourly_charges(price, data)))
     if "committed" in terms:
         cost_of_capital = _cost_of_capital(context.catalog, overrides)
         for commitment in offer.committed:
             price = commitment.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
-            results.append(_evaluate(
-                venue, f"committed_{commitment.months}m", limit,
-                committed_charges(commitment.months, commitment.upfront_fraction, price, cost_of_capital,
-                                  offer.node_type.accelerators_per_node, context.campaign, data), physics))
+            priced.append((f"committed_{commitment.months}m", committed_charges(
+                commitment.months, commitment.upfront_fraction, price, cost_of_capital,
+                offer.node_type.accelerators_per_node, context.campaign, data)))
+    if priced:  # chosen together: the compiled kernel scans their candidates once for all of them
+        choices = choose_priced_each(physics.candidates(limit), physics.grid.blocks,
+                                     [charges for _, charges in priced], physics.kernel)
+        results += [_evaluate(venue, term, limit, charges, physics, choice)
+                    for (term, charges), choice in zip(priced, choices, strict=True)]
     if interruptible is not None:
         price = interruptible.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
         results.append(_evaluate(venue, "interruptible", limit, hourly_charges(price, data), interrupted[0]))
@@ -302,12 +307,14 @@ def _node_fit(context: _Context, hardware: Hardware) -> NodeFit:
     return context.fits[size]
 
 
-def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, physics: _Physics) -> OptionResult:
-    """Price every candidate layout, keep the cheapest per scenario, then itemise only that one."""
+def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, physics: _Physics,
+              choice: Choice | None = None) -> OptionResult:
+    """Price every candidate layout, keep the cheapest per scenario (unless the `choice` is made already),
+    then itemise only that one."""
     node = venue.node_type
     grid = physics.grid
-    layouts = physics.candidates(limit)
-    choice = choose_priced(layouts, grid.blocks, charges, physics.kernel)
+    if choice is None:
+        choice = choose_priced(physics.candidates(limit), grid.blocks, charges, physics.kernel)
     chosen = grid.pick(choice.index)
     lines_at, details_at = charges.itemise(as_column(chosen))
     # A line that does not depend on the layout may vary by scenario when nothing else does.

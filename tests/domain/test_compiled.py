@@ -93,6 +93,12 @@ def by_scenario(rng: np.random.Generator, low: float, high: float) -> Any:
 
 def random_charges(rng: np.random.Generator, kind: str) -> Charges:
     """A term's charges as `evaluate.py` builds them, with random prices, recurrence and storage."""
+    return random_terms(rng, [kind])[0]
+
+
+def random_terms(rng: np.random.Generator, kinds: list[str]) -> list[Charges]:
+    """Terms of one venue (`kinds`), their charges as `evaluate.py` builds them on one campaign and one data
+    plan, with random prices, recurrence and storage."""
     recurrence = None if rng.random() < 0.4 else Recurrence(
         # Whole months, and 1.1, whose multiples are not exact in binary (33 / 1.1 = 29.999…), so that
         # the count of instances sharing a 33- or 55-month commitment turns on instances_sharing's 1e-9.
@@ -110,14 +116,17 @@ def random_charges(rng: np.random.Generator, kind: str) -> Charges:
     economics = SimpleNamespace(site=SimpleNamespace(node_type=SimpleNamespace(accelerators_per_node=8),
                                                      depreciation_months=int(rng.choice([36, 55, 60]))),
                                 utilisation_planned=by_scenario(rng, 0.2, 0.9))
-    if kind == "chargeback":
-        return chargeback_charges(node, variable, economics, data)  # type: ignore[arg-type]
-    if kind == "new_build":
-        return new_build_charges(node, variable, economics, campaign, data)  # type: ignore[arg-type]
-    if kind == "hourly":
-        return hourly_charges(by_scenario(rng, 0.5, 12.0), data)
-    return committed_charges(int(rng.choice([1, 12, 33, 36])), float(rng.choice([0.0, 0.25, 1.0])),
-                             by_scenario(rng, 0.5, 12.0), by_scenario(rng, 0.0, 0.15), 8, campaign, data)
+
+    def charges(kind: str) -> Charges:
+        if kind == "chargeback":
+            return chargeback_charges(node, variable, economics, data)  # type: ignore[arg-type]
+        if kind == "new_build":
+            return new_build_charges(node, variable, economics, campaign, data)  # type: ignore[arg-type]
+        if kind == "hourly":
+            return hourly_charges(by_scenario(rng, 0.5, 12.0), data)
+        return committed_charges(int(rng.choice([1, 12, 33, 36])), float(rng.choice([0.0, 0.25, 1.0])),
+                                 by_scenario(rng, 0.5, 12.0), by_scenario(rng, 0.0, 0.15), 8, campaign, data)
+    return [charges(kind) for kind in kinds]
 
 
 def random_gathered(rng: np.random.Generator, width: int) -> GatheredGrid:
@@ -165,11 +174,52 @@ def test_the_compiled_scan_picks_the_column_numpy_picks_from_the_terms_costs(see
     for name in ("any_fits", "meets_deadline", "fastest"):
         np.testing.assert_array_equal(getattr(ours, name), getattr(reference, name), err_msg=name)
     expected = _first_least(costs, widths)
-    least, picked = compiled.least_costs(ours.meets, ours.gathered, ours.widths, ours.limit, ours.deadline, blocks,
-                                         charges.form, KERNEL)
+    least, picked = (row[0] for row in compiled.least_costs(ours.meets, ours.gathered, ours.widths, ours.limit,
+                                                             ours.deadline, blocks, [charges.form], KERNEL))
     np.testing.assert_array_equal(picked, expected)
     # Every cost the same to the bit, not only the order: the least of each row is numpy's.
     np.testing.assert_array_equal(least, np.concatenate(costs, axis=1)[np.arange(ROWS), expected])
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_an_offers_terms_scanned_together_are_each_scanned_alone_to_the_bit(seed: int) -> None:
+    """`compiled.least_costs` of an offer's on-demand and committed terms, which one scan of each block
+    prices together, in any order of the terms: each term's least cost and column the same to the bit as
+    its own scan gives and as numpy chooses, over blocks of figures and gathered blocks, with NaN prices,
+    equal costs and rows where nothing meets the deadline; recurring or not, storing or not. Terms that
+    store differently are scanned one by one, with the same answers."""
+    rng = np.random.default_rng(500 + seed)
+    terms = random_terms(rng, ["hourly", "committed", "committed"])
+    order = rng.permutation(len(terms))[:int(rng.integers(2, len(terms) + 1))]
+    charges = [terms[t] for t in order]
+    forms = [each.form for each in charges]
+    assert compiled.scanned_together(forms)
+    widths = [int(w) for w in rng.integers(1, 9, rng.integers(1, 4))]
+    blocks = [random_gathered(rng, width) if rng.random() < 0.5 else random_block(rng, width) for width in widths]
+    limit = rng.uniform(50.0, 700.0, ROWS)
+    deadline = rng.uniform(3e5, 5e7, ROWS)
+    deadline[rng.random(ROWS) < 0.1] = 1.0  # nothing meets it
+    with np.errstate(all="ignore"):
+        ours = eligible(Candidates(tuple(blocks)), node_limit=limit, deadline_seconds=deadline, kernel=KERNEL)
+        reference = eligible(Candidates(tuple(blocks)), node_limit=limit, deadline_seconds=deadline)
+        together = compiled.least_costs(ours.meets, ours.gathered, ours.widths, ours.limit, ours.deadline, blocks,
+                                        forms, KERNEL)
+        for t, each in enumerate(charges):
+            alone = compiled.least_costs(ours.meets, ours.gathered, ours.widths, ours.limit, ours.deadline, blocks,
+                                         [each.form], KERNEL)
+            np.testing.assert_array_equal(together[0][t], alone[0][0])
+            np.testing.assert_array_equal(together[1][t], alone[1][0])
+            costs = [np.broadcast_to(np.where(m, each.cost(b), np.inf), (ROWS, w))
+                     for m, b, w in zip(reference.meets, blocks, widths, strict=True)]
+            np.testing.assert_array_equal(together[1][t], _first_least(costs, widths))
+    other = random_terms(rng, ["hourly"])[0].form
+    if other.storage is not None or forms[0].storage is not None:  # another venue's storage: scanned apart
+        mixed = [*forms, other]
+        assert not compiled.scanned_together(mixed)
+        apart = compiled.least_costs(ours.meets, ours.gathered, ours.widths, ours.limit, ours.deadline, blocks,
+                                     mixed, KERNEL)
+        np.testing.assert_array_equal(apart[1][:len(forms)], together[1])
+        np.testing.assert_array_equal(apart[0][:len(forms)], together[0])
 
 
 @pytest.mark.parametrize("seed", range(8))
@@ -307,7 +357,7 @@ def test_an_evaluation_is_identical_compiled_or_in_numpy_on_random_catalogs(
 
     def counted(name: str, function: Any) -> Any:
         def call(*args: Any) -> None:
-            calls.append(name)
+            calls.extend([name] * (args[-1].shape[0] if name == "scan" else 1))  # a scan: one per term priced
             function(*args)
         return call
     kernel = compiled.Kernel(counted("scan", KERNEL.scan), counted("reach", KERNEL.reach), KERNEL.breakeven)
