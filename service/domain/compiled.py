@@ -320,16 +320,24 @@ def least_costs(meets: Sequence[Bools | None], gathered: Sequence[Gathered | Non
                + [np.size(value) for value in (*per_scenario, every, total, storage) if value is not None])
     best, index = np.full((len(forms), rows), np.inf), np.zeros((len(forms), rows), dtype=np.int64)
     terms = (_along(limit, rows), _along(deadline, rows), np.array([form.kind for form in forms], dtype=np.int64),
-             np.stack([_along(form.rate, rows) for form in forms]),
-             np.stack([_along(form.fixed, rows) for form in forms]), np.array([form.months for form in forms]),
-             np.array([form.fee_per_node for form in forms]), _along(every, rows), _along(total, rows),
-             _along(storage, rows))  # the same for every block
+             _each_along([form.rate for form in forms], rows), _each_along([form.fixed for form in forms], rows),
+             np.array([form.months for form in forms]), np.array([form.fee_per_node for form in forms]),
+             _along(every, rows), _along(total, rows), _along(storage, rows))  # the same for every block
     offset = 0
     for mask, block, width, at in zip(meets, figures, widths, gathered, strict=True):
         compiled.scan(mask is None, every is not None, storage is not None, *_cells(mask, block, width, at, rows),
                       *terms, offset, best, index)
         offset += width
     return best, index
+
+
+def _each_along(values: Sequence[Any], rows: int) -> Any:
+    """Each term's per-scenario figure (as `_along` reads one) as a row of a (terms, rows) array: a view where
+    there is one term or none has the figure, stacked only where several terms have their own."""
+    if len(values) == 1 or all(value is None for value in values):
+        one = _along(values[0], rows)[np.newaxis]
+        return one if len(values) == 1 else np.broadcast_to(one, (len(values), rows))
+    return np.stack([_along(value, rows) for value in values])
 
 
 def _cells(mask: Bools | None, block: dict[str, Any], width: int, at: Gathered | None, rows: int) -> tuple[Any, ...]:

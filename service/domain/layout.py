@@ -101,17 +101,17 @@ class Candidates:
                 self._picked[chosen] = LayoutGrid(**{name: _shared(read(name)) for name in _FIGURE_NAMES})
             return self._picked[chosen]
         ends = np.cumsum(self.widths)
-        block_of = np.searchsorted(ends, index, side="right")
         rows = every_row(index.shape[0])
+        lowest, highest = np.searchsorted(ends, (index.min(), index.max()), side="right")
+        if lowest == highest:  # every scenario chose from one block: its rows are all of them, in order
+            read = self.blocks[lowest].cells(rows, index - (ends[lowest] - self.widths[lowest]))
+            return FiguresWhenRead.of(lambda name: np.asarray(read(name)))
+        block_of = np.searchsorted(ends, index, side="right")
         # Per block, the scenarios whose choice lies in it, and the chosen column within the block.
         parts = [(block, chosen, rows[chosen], index[chosen] - (end - width))
                  for block, end, width, chosen in ((block, end, width, block_of == b) for b, (block, end, width)
                                                    in enumerate(zip(self.blocks, ends, self.widths, strict=True)))
                  if chosen.any()]
-        if len(parts) == 1:  # every scenario chose from one block: its rows are all of them, in order
-            block, _, _, at_columns = parts[0]
-            read = block.cells(rows, at_columns)
-            return FiguresWhenRead.of(lambda name: np.asarray(read(name)))
         readers = [(chosen, block.cells(at_rows, at_columns)) for block, chosen, at_rows, at_columns in parts]
 
         def picked(name: str) -> Any:

@@ -110,12 +110,12 @@ def evaluate_chunk(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Float
     size = len(next(iter(inputs.values()))) if inputs else 1
     evaluation = evaluate_campaign(catalog, campaign, plan.options, overrides, kernel=kernel)
     options = evaluation.options
-    feasible = np.stack([np.broadcast_to(o.feasible, (size,)) for o in options])
     view = plan.options.owned_cost_view
-    totals = np.where(feasible, np.stack([np.broadcast_to(view_total(o, evaluation, view), (size,))
-                                          for o in options]), np.nan)
+    totals, best = np.full((len(options), size), np.nan), np.full((len(options), size), np.inf)
+    for row, o in enumerate(options):  # each total where it is feasible, written in place
+        np.copyto(totals[row], view_total(o, evaluation, view), where=o.feasible)
+        np.copyto(best[row], totals[row], where=o.feasible)
     owned = np.array([o.venue_kind == "owned" for o in options])
-    best = np.where(feasible, totals, np.inf)
     labels, utilisations = breakeven_utilisations(evaluation, size, kernel) if breakeven else ([], np.empty((0, size)))
     return ChunkResult(
         inputs=dict(inputs),
