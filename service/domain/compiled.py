@@ -70,7 +70,7 @@ def _scan_of(gathered: bool, recurring: bool, stored: bool) -> Callable[..., Non
     campaign that recurs or not, at a venue that charges for storage or not: these three are the compiler's
     constants, so it drops every branch they decide. `kernel()` compiles each the first time a sweep needs
     it."""
-    def scan(meets: Any, nodes: Any, accelerator_hours: Any, wall_seconds: Any, rows: Any, row_of: Any,
+    def scan(meets: Any, nodes: Any, accelerator_hours: Any, wall_seconds: Any, rows: Any, kept: Any, row_of: Any,
              table_nodes: Any, table_accelerators: Any, table_fits: Any, table_step: Any, steps: Any, staging: Any,
              limit: Any, deadline: Any, kinds: Any, rates: Any, fixeds: Any, months: Any, fees: Any, every: Any,
              total: Any, storage: Any, offset: int, best: Any, index: Any) -> None:  # pragma: no cover - compiled
@@ -78,7 +78,8 @@ def _scan_of(gathered: bool, recurring: bool, stored: bool) -> Callable[..., Non
         scenario (`best[t]`, `index[t]`, over the blocks before it): np.argmin's rules, the first of equals,
         a NaN as the least (the first NaN is kept), a candidate that does not meet the deadline as inf. A
         block's figures are (S, K) arrays with `meets`, or for a `gathered` block its table's, at the columns
-        `rows[row_of[s]]`, with which ones the terms may take and their wall clock made here as
+        `rows[row_of[s]]` (the first `kept[row_of[s]]` of them), with which ones the terms may take and their
+        wall clock made here as
         `choice.eligible` and `step.wall_figures` make them. Per term: its kind, its rate (S,) (per
         accelerator-hour, or a committed term's price × financing factor), a new build's fixed cost per node
         month (S,), its months (committed, or a new build's depreciation) and a committed term's fee per
@@ -93,7 +94,7 @@ def _scan_of(gathered: bool, recurring: bool, stored: bool) -> Callable[..., Non
             limit_s, deadline_s, storage_s = limit[s], deadline[s], storage[s]
             every_s, total_s, steps_s, staging_s, r = every[s], total[s], steps[s], staging[s], row_of[s]
             n = 0
-            for k in range(width):
+            for k in range(kept[r] if gathered else width):
                 if gathered:
                     c = rows[r, k]
                     if not (table_fits[c] and table_nodes[c] <= limit_s):
@@ -145,15 +146,15 @@ def _scan_of(gathered: bool, recurring: bool, stored: bool) -> Callable[..., Non
     return scan
 
 
-def _reach(rows: Any, row_of: Any, table_nodes: Any, table_fits: Any, table_step: Any, steps: Any, staging: Any,
-           limit: Any, deadline: Any, allowed: Any, meets: Any) -> None:  # pragma: no cover - runs compiled
+def _reach(rows: Any, kept: Any, row_of: Any, table_nodes: Any, table_fits: Any, table_step: Any, steps: Any,
+           staging: Any, limit: Any, deadline: Any, allowed: Any, meets: Any) -> None:  # pragma: no cover - compiled
     """Per scenario of a gathered block, whether some candidate fits within the node limit, and
     whether some also meets the deadline (`choice.eligible`'s any of each, nothing spread). The
     candidates are read from the last: a shape's counts ascend, so one that meets comes sooner."""
     for s in range(allowed.shape[0]):
         r, limit_s, deadline_s, steps_s, staging_s = row_of[s], limit[s], deadline[s], steps[s], staging[s]
         some = met = False
-        for k in range(rows.shape[1] - 1, -1, -1):
+        for k in range(kept[r] - 1, -1, -1):  # a dominated column fits or meets only where its dominator does
             c = rows[r, k]
             if table_fits[c] and table_nodes[c] <= limit_s:
                 some = True
@@ -202,18 +203,18 @@ def kernel() -> Kernel | None:
             def array(kind: Any, dimensions: int, layout: Literal["A", "C"] = "A") -> Any:
                 return types.Array(kind, dimensions, layout, readonly=True)
             floats, given = array(types.float64, 2), array(types.float64, 1)
-            columns, row_of = array(types.int64, 2, "C"), array(types.int64, 1)
+            columns, kept, row_of = array(types.int64, 2, "C"), array(types.int64, 1, "C"), array(types.int64, 1)
             table, table_flags = array(types.float64, 1, "C"), array(types.boolean, 1, "C")
             out_flags = types.Array(types.boolean, 1, "C")
             # One signature each, compiled once (or read from numba's cache beside this file), the scan
             # once per variant the first time it is needed: any layout of the arrays converts to it, where
             # letting numba type each call compiles one per layout.
-            scan_signature = types.void(array(types.boolean, 2), floats, floats, floats, columns, row_of, table,
+            scan_signature = types.void(array(types.boolean, 2), floats, floats, floats, columns, kept, row_of, table,
                                         table, table_flags, table, given, given, given, given, array(types.int64, 1),
                                         floats, floats, table, table, given, given, given, types.int64,
                                         types.Array(types.float64, 2, "C"), types.Array(types.int64, 2, "C"))
-            reach = types.void(columns, row_of, table, table_flags, table, given, given, given, given, out_flags,
-                               out_flags)
+            reach = types.void(columns, kept, row_of, table, table_flags, table, given, given, given, given,
+                               out_flags, out_flags)
             breakeven = types.void(given, types.float64, given, floats, floats, array(types.boolean, 2),
                                    types.Array(types.float64, 2, "C"))
 
@@ -270,7 +271,7 @@ def reach(block: Gathered, limit: Floats, deadline: Floats, compiled: Kernel) ->
     also meets `deadline` ((S, 1) or (1, 1) each), as `choice.eligible` finds them."""
     rows = _scenarios(block, limit, deadline)
     allowed, meets = np.zeros(rows, dtype=bool), np.zeros(rows, dtype=bool)
-    compiled.reach(block.rows, np.broadcast_to(block.row_of, (rows,)), block.nodes, block.fits,
+    compiled.reach(block.rows, block.kept, np.broadcast_to(block.row_of, (rows,)), block.nodes, block.fits,
                    block.effective_step_seconds, _along(block.steps, rows), _along(block.staging, rows),
                    _along(limit, rows), _along(deadline, rows), allowed, meets)
     return allowed, meets
@@ -347,12 +348,12 @@ def _cells(mask: Bools | None, block: dict[str, Any], width: int, at: Gathered |
         return np.broadcast_to(value, (rows, width))
     if mask is None:
         assert at is not None
-        return (_NO_MASK, _NONE, _NONE, _NONE, at.rows, np.broadcast_to(at.row_of, (rows,)), at.nodes,
+        return (_NO_MASK, _NONE, _NONE, _NONE, at.rows, at.kept, np.broadcast_to(at.row_of, (rows,)), at.nodes,
                 at.accelerators, at.fits, at.effective_step_seconds, _along(at.steps, rows), _along(at.staging, rows))
     figure_names = ("nodes", "accelerator_hours", "wall_seconds")
     return (grid(np.asarray(mask, dtype=bool)), *(grid(block.get(name, _NONE)) for name in figure_names),
-            _NO_COLUMNS, np.broadcast_to(_NO_COLUMNS[0], (rows,)), _NONE[0], _NONE[0], _NO_FLAGS, _NONE[0],
-            _along(None, rows), _along(None, rows))
+            _NO_COLUMNS, _NO_COLUMNS[0], np.broadcast_to(_NO_COLUMNS[0], (rows,)), _NONE[0], _NONE[0], _NO_FLAGS,
+            _NONE[0], _along(None, rows), _along(None, rows))
 
 
 def reached_utilisations(fixed: Floats, accelerators_per_node: int, variable: Floats, listed: Sequence[Floats],

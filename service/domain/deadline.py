@@ -356,7 +356,7 @@ def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGr
         return (gathered(load, hardware, _one_row(figures, count), _base_column(groups, figures, prune)),)
     first, table, rungs = drive(_tables(step_load, step_hardware, found, base, k_min, k_top))
     exacts: list[dict[str, Any]] = []
-    columns: list[tuple[Ints, Ints]] = []
+    columns: list[tuple[Ints, Ints, Ints | None]] = []
     kept = 0
     offset = 0
     for group, members in enumerate(groups.members):
@@ -366,22 +366,25 @@ def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGr
             alone_load, alone_hardware, found, take_rows(k_min, at_group, count), take_rows(k_top, at_group, count),
             take_rows(rungs, at_group, count)[0], take_rows(table, at_group, count),
             take_rows(deadline, members, rows)))
-        at_kept = distinct.shape[1]
+        row_kept = None
         if prune:
             base_kept = dominance.undominated(take_rows(first, at_group, count))  # all that can dominate
-            distinct, at_kept = dominance.deadline_rows(base_kept, exact, distinct)
+            distinct, row_kept = dominance.deadline_rows(base_kept, exact, distinct)
         at = np.take(distinct, row_of[of], axis=0)
-        kept = max(kept, at_kept)
+        kept = max(kept, distinct.shape[1] if row_kept is None else int(np.max(row_kept, initial=0)))
         exacts.append(exact)
-        columns.append((members, at + offset))
+        columns.append((members, at + offset, None if row_kept is None else row_kept[row_of[of]]))
         offset += np.shape(exact["nodes"])[1]
     base_block = gathered(load, hardware, _one_row(first, count), _base_column(groups, first, prune))
     if kept == 0:
         return (base_block,)
     column = np.empty((rows, kept), dtype=np.int64)
-    for members, at in columns:
+    column_kept = np.full(rows, kept, dtype=np.int64)  # each scenario's row: the columns it keeps
+    for members, at, at_kept in columns:
         column[members] = at[:, :kept]
-    return base_block, gathered(load, hardware, _side_by_side_figures(exacts), column)
+        if at_kept is not None:
+            column_kept[members] = at_kept
+    return base_block, gathered(load, hardware, _side_by_side_figures(exacts), column, kept=column_kept)
 
 
 def _base_column(groups: StepGroups, figures: dict[str, Any], prune: bool) -> Ints:

@@ -42,7 +42,8 @@ def in_order(figures: dict[str, Any]) -> tuple[Ints, int]:
     """Per row of the candidates' figures, its columns with those an earlier column dominates moved
     after the others, in order, (R, K); and the most columns a row keeps."""
     width = np.shape(figures["nodes"])[1]
-    return _ordered(np.asarray((dominance(figures, figures) & _before(width)).any(axis=1)))
+    order, kept = _ordered(np.asarray((dominance(figures, figures) & _before(width)).any(axis=1)))
+    return order, int(np.max(kept, initial=0))
 
 
 def undominated(figures: dict[str, Any]) -> dict[str, Any]:
@@ -54,11 +55,12 @@ def undominated(figures: dict[str, Any]) -> dict[str, Any]:
     return {name: np.asarray(value)[:, columns] for name, value in figures.items()}
 
 
-def deadline_rows(first: dict[str, Any], table: dict[str, Any], rows: Ints) -> tuple[Ints, int]:
+def deadline_rows(first: dict[str, Any], table: dict[str, Any], rows: Ints) -> tuple[Ints, Ints]:
     """The deadline candidates' rows (`rows`: (R, H) into the one-row `table`, a row per run of
     allowances whose candidates are the same) each with the candidates that a base candidate (`first`,
     one row) or the row's candidate of an earlier shape dominates moved after the others, in order;
-    and the most columns a row keeps. The base candidates come first."""
+    and how many columns each row keeps, (R,) (the compiled scan reads no further: about half of a
+    row's columns, where the rows are cut to the most any keeps). The base candidates come first."""
     by_base = dominance(first, table)[0].any(axis=0)[rows]
     in_rows = {name: np.asarray(table[name])[0][rows] for name in FIGURES}  # each row's candidates, (R, H)
     pairs = dominance(in_rows, in_rows)  # [r, h', h]
@@ -71,7 +73,7 @@ def _before(width: int) -> Bools:
     return np.triu(np.ones((width, width), dtype=bool), 1)
 
 
-def _ordered(dominated: Bools) -> tuple[Ints, int]:
-    width = dominated.shape[1]
-    kept = int(np.max(width - np.count_nonzero(dominated, axis=1), initial=0))
-    return np.argsort(dominated, axis=1, kind="stable"), kept
+def _ordered(dominated: Bools) -> tuple[Ints, Ints]:
+    """Per row, its columns with the dominated moved last, in order, and how many it keeps."""
+    return (np.argsort(dominated, axis=1, kind="stable"),
+            np.asarray(dominated.shape[1] - np.count_nonzero(dominated, axis=1), dtype=np.int64))

@@ -18,9 +18,11 @@ from service.domain.step import FiguresWhenRead, Hardware, Load, scenario_terms,
 class Gathered:
     """A gathered block as the compiled kernel reads it (`compiled.py`): candidate j of scenario s is
     `rows[row_of[s], j]` of the one-row table's columns, whose nodes, accelerators, fits and effective
-    step are given; its wall clock is steps[s] × effective step + staging[s]. (S,) and (C,) arrays."""
+    step are given; its wall clock is steps[s] × effective step + staging[s]. (S,) and (C,) arrays. A
+    row's columns beyond `kept` of it are dominated (`dominance.deadline_rows`): never chosen, never read."""
 
     rows: Ints  # (R, K)
+    kept: Ints  # (R,)
     row_of: Ints  # (S,)
     nodes: Floats
     accelerators: Floats
@@ -40,9 +42,10 @@ class GatheredGrid(FiguresWhenRead):
     `gathered()` and spreads none."""
 
     def __init__(self, load: Load, hardware: Hardware, table: dict[str, Any], rows: Ints,
-                 row_of: Ints | None = None) -> None:
+                 row_of: Ints | None = None, kept: Ints | None = None) -> None:
         object.__setattr__(self, "_table", table)
         object.__setattr__(self, "_rows", rows)
+        object.__setattr__(self, "_kept", kept)
         object.__setattr__(self, "_row_of", row_of)
         object.__setattr__(self, "_inputs", (load, hardware))
 
@@ -79,11 +82,13 @@ class GatheredGrid(FiguresWhenRead):
         table = self._table
         steps, staging = scenario_terms(load, hardware)
         rows = np.ascontiguousarray(self._rows, dtype=np.int64)
+        kept = (np.full(rows.shape[0], rows.shape[1], dtype=np.int64) if self._kept is None
+                else np.minimum(np.asarray(self._kept, dtype=np.int64), rows.shape[1]))
         row_of = np.arange(rows.shape[0]) if self._row_of is None else np.asarray(self._row_of, dtype=np.int64)
         nodes, accelerators, step = (np.ascontiguousarray(table[name][0], dtype=np.float64) for name in (
             "nodes", "accelerators", "effective_step_seconds"))
         fits = np.ascontiguousarray(table["fits"][0], dtype=bool)
-        return Gathered(rows, row_of, nodes, accelerators, fits, step, steps.reshape(-1), staging.reshape(-1))
+        return Gathered(rows, kept, row_of, nodes, accelerators, fits, step, steps.reshape(-1), staging.reshape(-1))
 
     def cells(self, rows: Ints, columns: Ints) -> Callable[[str], Any]:
         distinct, row_of = self._rows, self._row_of  # scenario s's columns: distinct[row_of[s]]
@@ -113,7 +118,8 @@ class GatheredGrid(FiguresWhenRead):
 
 
 def gathered(load: Load, hardware: Hardware, table: dict[str, Any], rows: Ints,
-             row_of: Ints | None = None) -> GatheredGrid:
+             row_of: Ints | None = None, kept: Ints | None = None) -> GatheredGrid:
     """The block of the candidates `table[name][0, column]`, each figure gathered when read. `column`
-    is `rows`, a row per scenario, or with `row_of`, each scenario's row of the distinct `rows`."""
-    return GatheredGrid(load, hardware, table, rows, row_of)
+    is `rows`, a row per scenario, or with `row_of`, each scenario's row of the distinct `rows`; `kept`, per
+    row, how many of its first columns can be chosen (the others dominated), where that is known."""
+    return GatheredGrid(load, hardware, table, rows, row_of, kept)

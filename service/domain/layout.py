@@ -206,14 +206,16 @@ def layout_search(load: Load, hardware: Hardware, *, node_limits: Sequence[Array
             return Candidates((_base_block(load, hardware, figures, gather=prune),)), fewest
         figures, exact, distinct, row_of_allowance, allowance_of = yield from on_one_table(
             load, hardware, found, base, k_min, k_top, deadline)
+        kept = None
         if prune and dominance.single_row(figures):
             figures = dominance.undominated(figures)
             distinct, kept = dominance.deadline_rows(figures, exact, distinct)
-            distinct = distinct[:, :kept]
+            distinct = distinct[:, :int(np.max(kept, initial=0))]
         first = _base_block(load, hardware, figures, gather=prune)
         if distinct.shape[1] == 0:
             return Candidates((first,)), fewest
-        return Candidates((first, gathered(load, hardware, exact, distinct, row_of_allowance[allowance_of]))), fewest
+        return Candidates((first, gathered(load, hardware, exact, distinct, row_of_allowance[allowance_of],
+                                           kept))), fewest
     groups = step_groups(load, hardware, deadline, k_min, *tops)
     if groups is not None:  # the base candidates and bounds at each group's first scenario only
         def at_groups(bound: Floats) -> Floats:

@@ -307,12 +307,14 @@ def test_in_each_scenario_the_dominated_deadline_candidates_move_last_and_column
     # entry 1 comes first: entry 1 has more accelerators, so entry 4 does not dominate it either.
     column = np.array([[0, 1, 3], [0, 1, 3], [1, 4, 2], [0, 4, 2], [0, 4, 2]])
     def kept(first: Any, table: Any, column: np.ndarray) -> np.ndarray:
-        ordered, width = dominance.deadline_rows(first, table, column)
-        assert ordered.shape == column.shape
-        return ordered[:, :width]
+        ordered, each = dominance.deadline_rows(first, table, column)
+        assert ordered.shape == column.shape and each.shape == (column.shape[0],)
+        return ordered[:, :int(np.max(each, initial=0))]
 
     np.testing.assert_array_equal(kept(base, table, column),
                                   [[1, 0, 3], [1, 0, 3], [1, 4, 2], [4, 2, 0], [4, 2, 0]])
+    # How many columns each row keeps, before the dominated (the compiled scan reads no further).
+    np.testing.assert_array_equal(dominance.deadline_rows(base, table, column)[1], [1, 1, 3, 2, 2])
     table["accelerators"][0, 1] = 64.0  # now entry 1 dominates entry 4 where it comes first
     np.testing.assert_array_equal(kept(base, table, column),
                                   [[1, 0], [1, 0], [1, 2], [4, 2], [4, 2]])
