@@ -221,7 +221,6 @@ def _offer_options(offer: Offer, context: _Context) -> Search[list[OptionResult]
     limit = offer_limit(offer, context.options)
     data = data_charges(context.campaign, link, storage_per_gb_month=offer.storage_per_gb_month,
                         results_egress_per_gb=offer.egress_per_gb)
-    results = []
     searches = [_physics(venue, context, limits=[limit.nodes])]
     interruptible = offer.interruptible if "interruptible" in terms else None
     if interruptible is not None:  # interruptions change the wall clock, so this term gets physics of its own
@@ -239,11 +238,11 @@ def _offer_options(offer: Offer, context: _Context) -> Search[list[OptionResult]
             priced.append((f"committed_{commitment.months}m", committed_charges(
                 commitment.months, commitment.upfront_fraction, price, cost_of_capital,
                 offer.node_type.accelerators_per_node, context.campaign, data)))
-    if priced:  # chosen together: the compiled kernel scans their candidates once for all of them
-        choices = choose_priced_each(physics.candidates(limit), physics.grid.blocks,
-                                     [charges for _, charges in priced], physics.kernel)
-        results += [_evaluate(venue, term, limit, charges, physics, choice)
-                    for (term, charges), choice in zip(priced, choices, strict=True)]
+    # Chosen together: the compiled kernel scans their candidates once for all of them.
+    choices = choose_priced_each(physics.candidates(limit), physics.grid.blocks, [c for _, c in priced],
+                                 physics.kernel) if priced else []
+    results = [_evaluate(venue, term, limit, charges, physics, choice)
+               for (term, charges), choice in zip(priced, choices, strict=True)]
     if interruptible is not None:
         price = interruptible.per_accelerator_hour * rented_price_factor(overrides, on_demand=False)
         results.append(_evaluate(venue, "interruptible", limit, hourly_charges(price, data), interrupted[0]))
@@ -309,10 +308,8 @@ def _node_fit(context: _Context, hardware: Hardware) -> NodeFit:
 
 def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, physics: _Physics,
               choice: Choice | None = None) -> OptionResult:
-    """Price every candidate layout, keep the cheapest per scenario (unless the `choice` is made already),
-    then itemise only that one."""
-    node = venue.node_type
-    grid = physics.grid
+    """Price every candidate layout, keep the cheapest per scenario (unless chosen already), itemise that one."""
+    node, grid = venue.node_type, physics.grid
     if choice is None:
         choice = choose_priced(physics.candidates(limit), grid.blocks, charges, physics.kernel)
     chosen = grid.pick(choice.index)
