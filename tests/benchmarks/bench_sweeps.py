@@ -11,12 +11,15 @@ thread before numpy loads, and CPU time of this process is what the rates divide
    scenarios), on a 10-venue catalog built from the demo one by copying its sites and offers under
    new ids. This process keeps the memory of the arrays it frees, as every sweep runner does
    (`keep_freed_arrays`). Targets: ratio ≥ 200×, rate in the sweep's chunks ≥ 150,000 scenarios/s
-   per core. Beside them: the same chunks with the compiled pricing and choice off (numpy alone); a
-   bound, the same chunk with the layout pinned (`fixed_accelerators` = PINNED_ACCELERATORS, one
-   candidate node count per venue, so no layout search at all), which is more than any layout
-   search, however clever, could make the rate; and a floor: what a chunk costs whatever its size
-   (a chunk of one scenario) and each scenario beyond it, so the rate with no per-chunk cost, searched
-   and pinned, is the most this design's arithmetic reaches.
+   per core. Beside them: the same chunks with the compiled pricing and choice off (numpy alone); the
+   same chunk with the layout pinned (`fixed_accelerators` = PINNED_ACCELERATORS, one candidate node
+   count per venue, so no layout search at all; but its candidates' wall clock, accelerator-hours and
+   deadline mask are laid out over every scenario, where the search's deadline candidates are read from
+   one table as far as each row keeps, and where the pin misses the deadline the fastest is found in
+   numpy: the searched chunk is now the faster, so this is information, no longer a bound); and a
+   floor: what a chunk costs whatever its size (a chunk of one scenario) and each scenario beyond it,
+   so the rate with no per-chunk cost, searched and pinned, is the most this design's arithmetic
+   reaches.
 2. End to end: `berth sweep` (the console script where it is installed) of 1,000,000 Monte Carlo scenarios of
    the demo sweep and catalog, as a subprocess with its default worker processes (one per CPU; target < 8 s);
    the section 1 rate target through `berth sweep`: the demo sweep's draws on the 10-venue catalog, 1,000,000
@@ -212,8 +215,9 @@ def core_benchmark() -> None:
         print(f"    the same chunks with pricing and choice in numpy alone (no kernel):"
               f" {numpy_cpu:.3f} s CPU = {VECTOR_SCENARIOS / numpy_cpu:,.0f} scenarios/s per core;"
               f" compiled {numpy_cpu / chunked_cpu:.2f}x faster ({_compiled_path()})")
-        print(f"    bound: the same chunk with the layout pinned ({PINNED_ACCELERATORS} accelerators, no layout"
-              f" search): {pinned_cpu:.3f} s CPU = {pinned_rate:,.0f} scenarios/s per core")
+        print(f"    beside it: the same chunk with the layout pinned ({PINNED_ACCELERATORS} accelerators, no layout"
+              f" search, its candidates laid out over every scenario): {pinned_cpu:.3f} s CPU = {pinned_rate:,.0f}"
+              " scenarios/s per core")
         print(f"    floor: a chunk costs {per_chunk_cpu * 1e3:.1f} ms CPU whatever its size (one scenario's chunk;"
               f" pinned {pinned_per_chunk_cpu * 1e3:.1f} ms), then {marginal * 1e6:.2f} µs per scenario"
               f" (pinned {pinned_marginal * 1e6:.2f} µs): without the per-chunk cost {1 / marginal:,.0f}"
