@@ -79,11 +79,10 @@ def _scan_of(gathered: bool, recurring: bool, stored: bool) -> Callable[..., Non
         a NaN as the least (the first NaN is kept), a candidate that does not meet the deadline as inf. A
         block's figures are (S, K) arrays with `meets`, or for a `gathered` block its table's, at the columns
         `rows[row_of[s]]` (the first `kept[row_of[s]]` of them), with which ones the terms may take and their
-        wall clock made here as
-        `choice.eligible` and `step.wall_figures` make them. Per term: its kind, its rate (S,) (per
-        accelerator-hour, or a committed term's price × financing factor), a new build's fixed cost per node
-        month (S,), its months (committed, or a new build's depreciation) and a committed term's fee per
-        node."""
+        wall clock made here as `choice.eligible` and `step.wall_figures` make them. Per term: its kind, its
+        rate (S,) (per accelerator-hour, or a committed term's price × financing factor), a new build's fixed
+        cost per node month (S,), its months (committed, or a new build's depreciation) and a committed term's
+        fee per node."""
         width = rows.shape[1] if gathered else meets.shape[1]
         # A scenario's cells the terms may take, laid out once for all of them; then each term runs over
         # them with its running least in registers.
