@@ -94,9 +94,7 @@ def choose_priced(layouts: Eligible, blocks: Sequence[LayoutGrid], charges: Char
     caller passes one (`compiled.py`, the same choice), else in numpy."""
     if kernel is None:
         return choose(layouts, [charges.cost(block) for block in blocks])
-    cheapest = compiled.cheapest(layouts.meets, layouts.gathered, layouts.widths, layouts.limit, layouts.deadline,
-                                 blocks, charges.form, kernel)
-    return _choice(layouts, cheapest, cheapest.shape[0])
+    return choose_priced_each(layouts, blocks, [charges], kernel)[0]
 
 
 def choose_priced_each(layouts: Eligible, blocks: Sequence[LayoutGrid], charges: Sequence[Charges],

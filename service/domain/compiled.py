@@ -276,15 +276,6 @@ def reach(block: Gathered, limit: Floats, deadline: Floats, compiled: Kernel) ->
     return allowed, meets
 
 
-def cheapest(meets: Sequence[Bools | None], gathered: Sequence[Gathered | None], widths: Sequence[int],
-             limit: Floats, deadline: Floats, blocks: Sequence[Any], form: CostForm, compiled: Kernel) -> Ints:
-    """Per scenario, the column of the cheapest candidate that meets the deadline, among the blocks
-    side by side, as `choice.choose` finds it from the blocks' costs, with the kernel `compiled`. A
-    block is given by its figures and which of its candidates meet the deadline (`meets`), or where
-    that is None by its `gathered` form and the term's node `limit` and `deadline`."""
-    return np.asarray(least_costs(meets, gathered, widths, limit, deadline, blocks, [form], compiled)[1][0])
-
-
 def scanned_together(forms: Sequence[CostForm]) -> bool:
     """Whether the terms of `forms`, on one node limit and deadline, are priced by one scan of their
     candidates: they store alike, and those that share commitments among instances (committed terms, a new
@@ -301,10 +292,13 @@ def _same(one: Floats | None, other: Floats | None) -> bool:
 def least_costs(meets: Sequence[Bools | None], gathered: Sequence[Gathered | None], widths: Sequence[int],
                 limit: Floats, deadline: Floats, blocks: Sequence[Any], forms: Sequence[CostForm],
                 compiled: Kernel) -> tuple[Floats, Ints]:
-    """`cheapest` of each term of `forms` (on one node limit and deadline), with each scenario's least cost
-    (inf where no candidate meets the deadline): (terms, S) each. Terms `scanned_together` are priced by one
-    scan of each block, which reads each candidate once for all of them (an offer's on-demand and committed
-    terms: a quarter less time than one scan each); others one by one."""
+    """Per term of `forms` (on one node limit and deadline) and scenario, the column of the cheapest candidate
+    that meets the deadline among the blocks side by side, as `choice.choose` finds it from the blocks' costs,
+    with the kernel `compiled`, and its cost (inf where no candidate meets the deadline): (terms, S) each. A
+    block is given by its figures and which of its candidates meet the deadline (`meets`), or where that is
+    None by its `gathered` form and the node `limit` and `deadline`. Terms `scanned_together` are priced by
+    one scan of each block, which reads each candidate once for all of them (an offer's on-demand and
+    committed terms: a quarter less time than one scan each); others one by one."""
     if len(forms) > 1 and not scanned_together(forms):
         each = [least_costs(meets, gathered, widths, limit, deadline, blocks, [form], compiled) for form in forms]
         return np.concatenate([least for least, _ in each]), np.concatenate([index for _, index in each])
