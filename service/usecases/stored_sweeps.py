@@ -180,7 +180,7 @@ class SweepRunner:
         with self._lock:
             if self._thread is None and not self._stopping.is_set():
                 # The service's sweeps allocate and free the same large arrays as the command line's
-                # workers: keep that memory rather than fault it in afresh (at most 256 MB kept freed).
+                # workers: keep that memory rather than fault it in afresh (as far as keep_freed_arrays says).
                 keep_freed_arrays()
                 self._thread = threading.Thread(target=self._loop, name="sweeps", daemon=True)
                 self._thread.start()
