@@ -233,12 +233,15 @@ def sweep_command(
     except BerthError as error:
         _fail(error)
         return
+    # Drawn at each chunk rather than by a thread of the bar's own, so that this process holds no thread and
+    # the workers are forked from it (`chunk_pool._workers_context`); and standard output is left alone, the
+    # sweep's own (the bar would print what is written there on the terminal's error stream).
     with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(),
-                  console=err, transient=True) as bar:
+                  console=err, transient=True, auto_refresh=False, redirect_stdout=False) as bar:
         task = bar.add_task("scenarios", total=prepared.plan.scenarios)
 
         def advance(done: int, _total: int) -> None:
-            bar.update(task, completed=done)
+            bar.update(task, completed=done, refresh=True)
 
         if output is SweepFormat.csv:
             for text in csv_chunks(prepared, progress=advance, processes=processes):

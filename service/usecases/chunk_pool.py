@@ -1,11 +1,14 @@
 """Sweep chunks evaluated on several cores: this process draws the scenarios (so the draws are the
-same whatever the number of processes) and worker processes, forked from a fork server, evaluate them
-and send back each chunk's result, or only its tally where the summary is all that is wanted. They come
-back in order, and at most two chunks per worker are in flight, so memory stays bounded at any size. A
-sweep of enough scenarios uses the compiled pricing and choice (`domain/compiled.py`)."""
+same whatever the number of processes) and worker processes, forked from it (or from a fork server where
+it holds threads), evaluate them and send back each chunk's result, or only its tally where the summary is
+all that is wanted. They come back in order, and at most two chunks per worker are in flight, so memory
+stays bounded at any size. A sweep of enough scenarios uses the compiled pricing and choice
+(`domain/compiled.py`)."""
 
 import ctypes
 import multiprocessing
+import sys
+import threading
 from collections import deque
 from collections.abc import Iterable, Iterator, Mapping
 from concurrent.futures import Future, ProcessPoolExecutor
@@ -22,8 +25,8 @@ from service.domain.sweep import ChunkResult, ChunkTally, SweepPlan, Tallying, e
 IN_FLIGHT_PER_WORKER = 2
 # Scenarios a sweep must price for the compiled kernel to pay for loading it: importing numba and reading
 # the kernel from its cache cost 0.27 s, and the kernel saves 2.2 µs a scenario on the demo catalog, 4.9 µs
-# on ten venues (bench_sweeps.py section 1). Workers forked from the fork server share the kernel it loaded
-# once; a process that has it already always uses it.
+# on ten venues (bench_sweeps.py section 1). Forked workers share the kernel their parent loaded once
+# (`_workers_context`); a process that has it already always uses it.
 COMPILED_PAYS_FROM = 125_000
 
 
@@ -92,11 +95,8 @@ def _here(catalog: Catalog, plan: SweepPlan, chunks: Iterable[tuple[int, Mapping
 
 def _in_workers(catalog: Catalog, plan: SweepPlan, chunks: Iterable[tuple[int, Mapping[str, Floats]]],
                 processes: int, breakeven: bool, tallying: Tallying | None) -> Iterator[Any]:
-    forked = "forkserver" in multiprocessing.get_all_start_methods()
-    # Forked workers share the kernel the fork server loaded once; a worker started afresh loads its own, for
-    # the scenarios it prices.
-    priced = plan.scenarios if forked else -(-plan.scenarios // processes)
-    with ProcessPoolExecutor(processes, mp_context=_workers_context(forked, priced), initializer=_start_worker,
+    context, priced = _workers_context(plan.scenarios, processes)
+    with ProcessPoolExecutor(processes, mp_context=context, initializer=_start_worker,
                              initargs=(catalog, plan, priced, breakeven, tallying)) as pool:
         pending: deque[Future[Any]] = deque()
         for start, inputs in chunks:
@@ -107,18 +107,31 @@ def _in_workers(catalog: Catalog, plan: SweepPlan, chunks: Iterable[tuple[int, M
             yield pending.popleft().result()
 
 
-def _workers_context(forked: bool, priced: int) -> multiprocessing.context.BaseContext:
-    """How workers start: forked from a server process that was started clean (never a copy of this one,
-    which may hold threads) and imported the sweep's modules once, with the compiled kernel where the workers
-    will use it (`kernel_preload`), so that no worker imports numpy, the domain and numba afresh: 0.4 s each
-    for the imports, 0.3 s more for the kernel. The server is this process's, started by its first pool with
-    the modules that pool asked for. Where a platform has no fork server, each worker starts afresh."""
-    if not forked:
-        return multiprocessing.get_context("spawn")
-    context = multiprocessing.get_context("forkserver")
-    kernel = ["service.usecases.kernel_preload"] if priced >= COMPILED_PAYS_FROM else []
-    context.set_forkserver_preload([__name__, *kernel])
-    return context
+def _workers_context(scenarios: int, processes: int) -> tuple[multiprocessing.context.BaseContext, int]:
+    """How the workers of a sweep of `scenarios` start, and how many scenarios each may price (what
+    `sweep_kernel` weighs).
+
+    - Forked from this process, on Linux, where it holds no thread but its main one (a command line's sweep):
+      the workers share what it imported, and the compiled kernel, loaded here first where the sweep is large
+      enough. A 1,000,000-scenario sweep on ten venues took 0.7 s less CPU so than from a fork server, which
+      starts an interpreter and imports numpy, the domain and numba once more (bench_sweeps.py section 2a).
+      The pool forks every worker at its first task, before it starts a thread of its own.
+    - From a fork server where this process holds threads (a fork copies no thread but the caller's, and a
+      lock another thread held stays locked in the copy): the server is started clean and imports the sweep's
+      modules once, with the kernel where the workers will use it (`kernel_preload`), so that no worker
+      imports numpy, the domain and numba afresh (0.4 s each for the imports, 0.3 s more for the kernel). The
+      server is this process's, started by its first pool with the modules that pool asked for.
+    - Started afresh where a platform has neither; each loads the kernel for its own share."""
+    methods = multiprocessing.get_all_start_methods()
+    if sys.platform == "linux" and "fork" in methods and threading.active_count() == 1:
+        sweep_kernel(scenarios)
+        return multiprocessing.get_context("fork"), scenarios
+    if "forkserver" in methods:
+        context = multiprocessing.get_context("forkserver")
+        kernel = ["service.usecases.kernel_preload"] if scenarios >= COMPILED_PAYS_FROM else []
+        context.set_forkserver_preload([__name__, *kernel])
+        return context, scenarios
+    return multiprocessing.get_context("spawn"), -(-scenarios // processes)
 
 
 def _start_worker(catalog: Catalog, plan: SweepPlan, priced: int, breakeven: bool,

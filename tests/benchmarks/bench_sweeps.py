@@ -456,9 +456,10 @@ PR_SET_CHILD_SUBREAPER = 36  # linux/prctl.h
 
 def adopt_orphans() -> bool:
     """Make this script the subreaper of the commands it starts (Linux): a process of theirs whose parent
-    ends first is handed to this one rather than to init. `berth sweep`'s workers are forked by a fork server
-    that the command starts and that outlives it a moment, so their CPU and memory reach no `wait4` of the
-    command; handed here, `reap` counts them. Returns whether it took."""
+    ends first is handed to this one rather than to init. Where `berth sweep`'s workers are forked by a fork
+    server (`chunk_pool._workers_context`: a command that holds threads), the server outlives the command a
+    moment, so their CPU and memory reach no `wait4` of the command; handed here, `reap` counts them. Workers
+    forked from the command itself are its children and counted with it. Returns whether it took."""
     try:
         return ctypes.CDLL("libc.so.6").prctl(PR_SET_CHILD_SUBREAPER, 1, 0, 0, 0) == 0
     except (OSError, AttributeError):
@@ -538,7 +539,7 @@ def end_to_end_json(directory: Path, scenarios: int) -> None:
             return
     elapsed = time.perf_counter() - start
     stdout, stderr = process.communicate()
-    reap(process)  # the fork server, handed here when the command ended
+    reap(process)  # and any fork server, handed here when the command ended
     if process.returncode != 0:
         print(stderr.decode()[-2000:])
         verdict(f"berth sweep of {scenarios:,} scenarios < {TARGET_E2E_SECONDS:.0f} s", False,
@@ -553,7 +554,7 @@ def end_to_end_json(directory: Path, scenarios: int) -> None:
 
 def tree_cpu_seconds(command: list[str]) -> tuple[float, float, int, bytes]:
     """Run `command` to its end: wall seconds, CPU seconds (user + system) of its whole process tree (`reap`:
-    the command, its fork server and workers), its exit status and its standard output."""
+    the command and its workers), its exit status and its standard output."""
     start = time.perf_counter()
     process = subprocess.Popen(command, cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL,
                                start_new_session=True)
@@ -665,8 +666,8 @@ def main() -> None:
     kept = keep_freed_arrays()  # as `berth sweep`, its workers and the service's sweep runner do
     adopted = adopt_orphans()
     print(f"python {sys.version.split()[0]}, numpy {np.__version__}, {os.cpu_count()} CPUs seen; "
-          f"BLAS/OpenMP pools limited to 1 thread; freed arrays kept: {kept}; the commands' orphans (a sweep's "
-          f"fork server and workers) counted: {adopted}", flush=True)
+          f"BLAS/OpenMP pools limited to 1 thread; freed arrays kept: {kept}; the commands' orphans (a fork "
+          f"server's workers, where a sweep's are forked by one) counted: {adopted}", flush=True)
     core_benchmark()
     venue_size_benchmark()
     step_grid_benchmark()

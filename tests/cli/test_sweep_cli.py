@@ -4,6 +4,7 @@ that the standard library's csv module reads, and refusals that name their field
 import csv
 import io
 import json
+import os
 import platform
 import subprocess
 import sys
@@ -110,8 +111,8 @@ def test_worker_processes_give_the_same_bytes_as_one_process(tmp_path: Path) -> 
 
 
 def test_a_sweep_large_enough_for_the_compiled_kernel_gives_the_same_bytes_in_forked_workers(tmp_path: Path) -> None:
-    """From COMPILED_PAYS_FROM scenarios the workers' fork server loads the compiled kernel once, and each
-    worker forked from it uses it; run as the console script, whose module every worker imports again, the
+    """From COMPILED_PAYS_FROM scenarios the command loads the compiled kernel once, and each worker forked
+    from it uses it; run as the console script, whose module every worker imports again, the
     answer is one process's, byte for byte."""
     path = write(tmp_path, demo(COMPILED_PAYS_FROM))
     script = Path(sys.executable).with_name("berth")
@@ -121,6 +122,38 @@ def test_a_sweep_large_enough_for_the_compiled_kernel_gives_the_same_bytes_in_fo
     assert one.returncode == two.returncode == 0, one.stderr + two.stderr
     assert one.stdout == two.stdout
     assert json.loads(two.stdout)["summary"]["scenarios"] == COMPILED_PAYS_FROM
+
+
+@pytest.mark.skipif(sys.platform == "win32", reason="a pseudo-terminal is POSIX's")
+def test_csv_written_to_a_file_from_a_terminal_goes_to_the_file_with_the_bar_on_the_terminal(tmp_path: Path) -> None:
+    """`berth sweep --format csv > rows.csv` typed at a terminal: the progress bar is drawn on the terminal
+    (the error stream) and every row goes to the file. A bar that took over standard output while drawn sent
+    the rows to the terminal and left the file empty."""
+    import pty
+    import threading
+
+    controller, terminal = pty.openpty()
+    shown = bytearray()
+
+    def read_terminal() -> None:
+        try:
+            while chunk := os.read(controller, 65536):
+                shown.extend(chunk)
+        except OSError:  # the terminal closed
+            pass
+
+    reader = threading.Thread(target=read_terminal, daemon=True)
+    reader.start()
+    rows = tmp_path / "rows.csv"
+    with rows.open("w", encoding="utf-8") as out:
+        done = subprocess.run([*BERTH, "sweep", write(tmp_path, demo(300)), "--catalog", CATALOG, "--format", "csv"],
+                              stdout=out, stderr=terminal, timeout=300, check=False)
+    os.close(terminal)
+    reader.join(10)
+    os.close(controller)
+    assert done.returncode == 0, bytes(shown).decode(errors="replace")
+    assert len(list(csv.DictReader(io.StringIO(rows.read_text(encoding="utf-8"))))) == 300
+    assert b"300/300" in shown and b"owned_new_build total" not in shown  # the bar, and no row, on the terminal
 
 
 def test_bad_input_exits_2_with_field_messages_and_no_traceback(tmp_path: Path) -> None:

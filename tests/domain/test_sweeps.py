@@ -12,7 +12,12 @@ import dataclasses
 import itertools
 import json
 import math
+import subprocess
+import sys
+import threading
 import zlib
+from collections.abc import Iterator
+from contextlib import contextmanager, nullcontext
 from pathlib import Path
 from typing import Any
 
@@ -718,20 +723,54 @@ def test_a_summary_takes_no_more_scenarios_than_it_was_made_for() -> None:
     assert sample.held.shape == (1, 4)
 
 
-def test_tallies_made_in_worker_processes_give_the_summary_of_whole_chunks() -> None:
+@contextmanager
+def a_thread_alive() -> Iterator[None]:
+    """Another thread in this process while the block runs (as in the server)."""
+    stop = threading.Event()
+    waiting = threading.Thread(target=stop.wait, daemon=True)
+    waiting.start()
+    try:
+        yield
+    finally:
+        stop.set()
+        waiting.join()
+
+
+@pytest.mark.parametrize("threaded", [False, True], ids=["as-is", "with-another-thread"])
+def test_tallies_made_in_worker_processes_give_the_summary_of_whole_chunks(threaded: bool) -> None:
     """Beyond the sample's capacity a worker sends back of each chunk only its counts and its scenarios kept
-    (`ChunkTally`): the summary is the one whole chunks give in this process, to the bit."""
+    (`ChunkTally`): the summary is the one whole chunks give in this process, to the bit; from workers
+    forked by a fork server too, as where this process holds another thread."""
     prep = prepared(monte_carlo(samples=6000))
     chunks = list(scenario_chunks(prep.plan, 1500))
     whole, tallied = (SweepSummary(6000, sample_values=20_000, seed=5) for _ in range(2))
     for chunk in chunk_pool.evaluated(prep.catalog, prep.plan, chunks, processes=1):
         whole.add(chunk)
-    tallies = list(chunk_pool.evaluated(prep.catalog, prep.plan, chunks, processes=2, tallying=tallied.tallying))
+    with a_thread_alive() if threaded else nullcontext():
+        tallies = list(chunk_pool.evaluated(prep.catalog, prep.plan, chunks, processes=2,
+                                            tallying=tallied.tallying))
     for tally in tallies:
         tallied.add_tally(tally)
     assert whole.result()["percentiles"] == "estimated from a seeded sample of 1,000 scenarios"
     assert tallied.result() == whole.result()
     assert sum(t.totals.shape[1] for t in tallies) == sum(t.breakeven_utilisation.shape[1] for t in tallies) == 1000
+
+
+@pytest.mark.skipif(sys.platform != "linux", reason="workers are forked from the sweeping process on Linux only")
+def test_workers_are_forked_from_a_process_with_one_thread_and_from_a_fork_server_beside_threads() -> None:
+    """A command line's sweep holds one thread, and its workers are forked from it (sharing its imports and
+    kernel); a process with other threads, whose locks a fork would copy held, has them forked from a clean
+    fork server. In a process of its own, whose threads the test knows."""
+    script = ("import threading\n"
+              "from service.usecases import chunk_pool\n"
+              "alone, priced = chunk_pool._workers_context(10, 2)\n"
+              "stop = threading.Event()\n"
+              "threading.Thread(target=stop.wait, daemon=True).start()\n"
+              "beside, _ = chunk_pool._workers_context(10, 2)\n"
+              "print(alone.get_start_method(), priced, beside.get_start_method())\n")
+    done = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=120, check=False)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.split() == ["fork", "10", "forkserver"]
 
 
 def test_a_summarys_sample_holds_one_budget_of_values() -> None:
