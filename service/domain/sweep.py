@@ -12,7 +12,7 @@ from functools import cached_property
 
 import numpy as np
 
-from service.domain.arrays import Bools, Floats, Ints
+from service.domain.arrays import Bools, Floats, Ints, percentiles
 from service.domain.campaign import Campaign, Overrides, QuoteOptions
 from service.domain.catalog import Catalog
 from service.domain.comparison import breakeven_utilisations, cheapest
@@ -257,13 +257,10 @@ class ScenarioSample:
 
     def percentiles(self, row: int, q: tuple[float, ...]) -> list[float | None]:
         values = self.held[row]
-        data = values[np.isfinite(values)]  # a copy, sorted in place below
+        data = values[np.isfinite(values)]  # a copy, reordered in place below
         if data.size == 0:
             return [None for _ in q]
-        # Sorted first (numpy's vectorised sort), the percentiles' selection is quick: 2.8 ms for 296,000 values,
-        # where selecting them unsorted took 5.3 ms. The same order statistics, so the same answer.
-        data.sort()
-        return [float(v) for v in np.percentile(data, q, overwrite_input=True)]
+        return [float(v) for v in percentiles(data, q)]
 
 
 class SweepSummary:

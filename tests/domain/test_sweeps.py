@@ -28,6 +28,7 @@ from service.contract.catalog import CatalogIn
 from service.contract.request import QuoteRequestIn
 from service.contract.sweep import SweepIn
 from service.domain import layout
+from service.domain.arrays import percentiles
 from service.domain.campaign import OFFER_OVERRIDES, SITE_OVERRIDES
 from service.domain.distributions import Distribution, stream
 from service.domain.evaluate import evaluate_campaign
@@ -663,6 +664,23 @@ def test_below_capacity_the_percentiles_are_exact() -> None:
         finite = values[row][np.isfinite(values[row])]
         assert sample.percentiles(row, Q) == np.percentile(finite, Q).tolist()
     assert sample.percentiles(2, Q) == [None] * len(Q)
+
+
+def test_the_percentiles_are_numpys_to_the_bit() -> None:
+    """`arrays.percentiles` places only the order statistics it reads, and must give what np.percentile (the
+    reference; its default linear method, Hyndman & Fan 1996, "Sample quantiles in statistical packages",
+    definition 7) gives, bit for bit: sizes from one value up, ties, signed zeros, percentiles that fall on
+    a value or between two, and 0 and 100."""
+    generator = np.random.default_rng(11)
+    kinds = (lambda n: generator.normal(size=n), lambda n: generator.integers(0, 4, n).astype(np.float64),
+             lambda n: np.round(generator.lognormal(size=n), 1), lambda n: -np.zeros(n),
+             lambda n: np.sort(generator.normal(size=n))[::-1].copy())
+    for case in range(3000):
+        n = int(generator.integers(1, 40)) if case % 2 else int(generator.integers(1, 6000))
+        values = kinds[case % len(kinds)](n)
+        q = Q if case % 3 else (*generator.uniform(0, 100, int(generator.integers(1, 6))).tolist(), 0.0, 100.0)
+        ours, reference = percentiles(values.copy(), q), np.percentile(values, q)
+        assert np.array_equal(ours, reference) and np.array_equal(np.signbit(ours), np.signbit(reference)), (n, q)
 
 
 def test_above_capacity_the_sample_is_uniform_over_the_whole_stream_and_the_same_scenarios_for_every_row() -> None:
