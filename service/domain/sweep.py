@@ -136,6 +136,7 @@ PERCENTILES = (5.0, 50.0, 95.0)
 # 1.7 GB). The scenarios kept are the budget over the rows, at least SAMPLE_FLOOR.
 SAMPLE_VALUES = 32_000_000
 SAMPLE_FLOOR = 1_000
+_NO_RESERVE = getattr(mmap, "MAP_NORESERVE", 0)  # address space only, where the platform can say so
 
 
 @dataclass(frozen=True)
@@ -167,13 +168,18 @@ class SampledScenarios:
         first, last = np.searchsorted(self._kept, (start, start + size))
         return self._kept[first:last] - start
 
+    def before(self, start: int) -> int:
+        """How many of the scenarios before the `start`th are kept: where a chunk's begin in the sample."""
+        return start if self.exact else int(np.searchsorted(self._kept, start))
+
 
 @dataclass(frozen=True)
 class ChunkTally:
     """What a sweep's summary reads of one chunk, and all a worker process sends back for it: its counts, and
-    each option's total and break-even utilisation at the chunk's scenarios the sample keeps. On ten venues a
-    whole chunk's result is about 920 bytes a scenario; beyond the sample's capacity most of it is not kept, and
-    sending it cost a 1,000,000-scenario sweep 1.5 s of CPU in pickles and pipes."""
+    each option's total and break-even utilisation at the chunk's scenarios the sample keeps, unless these were
+    written into the sample itself (`Tallying.share`). On ten venues a whole chunk's result is about 920 bytes
+    a scenario; beyond the sample's capacity most of it is not kept, and sending it cost a 1,000,000-scenario
+    sweep 1.5 s of CPU in pickles and pipes; sending the values kept, 0.3 s more than writing them in place."""
 
     size: int
     labels: list[str]
@@ -184,20 +190,27 @@ class ChunkTally:
     nothing_feasible: int
     owning_wins: int
     breakeven_reachable: Ints  # per break-even row, the scenarios where it is reached
-    totals: Floats  # (options, scenarios kept), NaN where infeasible
-    breakeven_utilisation: Floats  # (rows, scenarios kept), NaN or infinite where there is none
+    kept: int  # scenarios the sample keeps
+    # (options, scenarios kept), NaN where infeasible; and (rows, scenarios kept), NaN or infinite where there
+    # is none. None where they were written into the sample in place.
+    totals: Floats | None
+    breakeven_utilisation: Floats | None
 
 
 @dataclass
 class Tallying:
     """Reduces a sweep's chunks to their `ChunkTally`, the same in every process: the scenarios kept
     (`SampledScenarios`) follow from the sweep's size, its seed, and the budget over the chunk's rows (its
-    options and break-even rows, the same in every chunk), known at the first chunk."""
+    options and break-even rows, the same in every chunk), known at the first chunk. It holds the sweep's
+    sample (`sample`); once `share`d, the processes forked from this one write each chunk's kept values into
+    it where they belong, and send back only the counts."""
 
     scenarios: int
     values: int
     seed: int
     _sampled: SampledScenarios | None = field(default=None, init=False, repr=False)
+    _pages: mmap.mmap | None = field(default=None, init=False, repr=False)  # shared with forked processes
+    _sample: "ScenarioSample | None" = field(default=None, init=False, repr=False)
 
     def sampled(self, rows: int) -> SampledScenarios:
         if self._sampled is None:
@@ -205,9 +218,31 @@ class Tallying:
             self._sampled = SampledScenarios(self.scenarios, capacity, self.seed)
         return self._sampled
 
+    def share(self) -> None:
+        """Map the sample's memory now, before this process forks those that will tally the chunks, so that
+        they write into it: as many values as the budget (address space; a page costs memory once written)."""
+        if self._pages is None:
+            self._pages = mmap.mmap(-1, max(self.values, 1) * 8, flags=mmap.MAP_SHARED | _NO_RESERVE)
+
+    def sample(self, rows: int) -> "ScenarioSample":
+        """The sweep's sample of `rows` rows, made at the first call: in the shared memory where it fits."""
+        if self._sample is None:
+            self._sample = ScenarioSample(rows, self.sampled(rows), self._pages)
+        return self._sample
+
+    def __getstate__(self) -> dict[str, object]:
+        # A process started afresh (not forked) shares no memory with this one: it sends the values back.
+        return {**self.__dict__, "_pages": None, "_sample": None}
+
     def __call__(self, chunk: ChunkResult, start: int) -> ChunkTally:
         """The tally of `chunk`, whose first scenario is the sweep's `start`th."""
-        at = self.sampled(len(chunk.labels) + len(chunk.breakeven_labels)).within(start, chunk.size)
+        rows = len(chunk.labels) + len(chunk.breakeven_labels)
+        sampled = self.sampled(rows)
+        at = sampled.within(start, chunk.size)
+        totals, utilisation = chunk.totals[:, at], chunk.breakeven_utilisation[:, at]
+        written = self._pages is not None and self.sample(rows).shared
+        if written:
+            self.sample(rows).put(sampled.before(start), totals, utilisation)
         return ChunkTally(
             size=chunk.size,
             labels=chunk.labels,
@@ -218,36 +253,50 @@ class Tallying:
             nothing_feasible=int((chunk.cheapest < 0).sum()),
             owning_wins=int((chunk.owned_best < chunk.rented_best).sum()),
             breakeven_reachable=np.isfinite(chunk.breakeven_utilisation).sum(axis=1),
-            totals=chunk.totals[:, at],
-            breakeven_utilisation=chunk.breakeven_utilisation[:, at],
+            kept=totals.shape[1],
+            totals=None if written else totals,
+            breakeven_utilisation=None if written else utilisation,
         )
 
 
 class ScenarioSample:
     """The values the percentiles read, one row per option's total and per break-even row, at the scenarios
     `sampled` keeps: written in order, chunk after chunk, into one array made at the first, and touched only as
-    far as it is filled. A row's percentiles read its finite values (NaN or infinite where an option is
-    infeasible or a break-even unreachable)."""
+    far as it is filled; in `pages` where they are given and large enough (memory shared with other processes,
+    which write chunks into it), else in memory of its own. A row's percentiles read its finite values (NaN or
+    infinite where an option is infeasible or a break-even unreachable)."""
 
-    def __init__(self, rows: int, sampled: SampledScenarios) -> None:
+    def __init__(self, rows: int, sampled: SampledScenarios, pages: mmap.mmap | None = None) -> None:
         self.sampled = sampled
         kept = min(sampled.scenarios, sampled.capacity)
-        # An anonymous map of its own rather than numpy's memory: numpy asks for huge pages on large arrays, and
-        # where the kernel compacts memory to find them on the first touch, filling this one cost 0.3-0.6 s more
-        # of system time (a 1,000,000-scenario sweep on ten venues).
-        pages = mmap.mmap(-1, max(rows * kept, 1) * 8)
-        self._values = np.frombuffer(pages, np.float64, rows * kept).reshape(rows, kept)
+        self.shared = pages is not None and len(pages) >= rows * kept * 8
+        # An anonymous map rather than numpy's memory: numpy asks for huge pages on large arrays, and where the
+        # kernel compacts memory to find them on the first touch, filling this one cost 0.3-0.6 s more of system
+        # time (a 1,000,000-scenario sweep on ten venues).
+        memory = pages if pages is not None and self.shared else mmap.mmap(-1, max(rows * kept, 1) * 8)
+        self._values = np.frombuffer(memory, np.float64, rows * kept).reshape(rows, kept)
         self._filled = 0
 
-    def append(self, *blocks: Floats) -> None:
-        """The next chunk's values at its scenarios kept: `blocks` of (rows, kept), together the rows."""
+    def put(self, column: int, *blocks: Floats) -> None:
+        """A chunk's values at its scenarios kept, `blocks` of (rows, kept) together the rows, written from
+        `column` on (the scenarios kept before the chunk's first)."""
         count = blocks[0].shape[1]
-        if self._filled + count > self._values.shape[1]:
+        if column + count > self._values.shape[1]:
             raise ValueError(f"more than the {self._values.shape[1]:,} scenarios this sample keeps")
         row = 0
         for block in blocks:
-            self._values[row:row + len(block), self._filled:self._filled + count] = block
+            self._values[row:row + len(block), column:column + count] = block
             row += len(block)
+
+    def append(self, *blocks: Floats) -> None:
+        """The next chunk's values at its scenarios kept: `blocks` of (rows, kept), together the rows."""
+        self.put(self._filled, *blocks)
+        self._filled += blocks[0].shape[1]
+
+    def extend(self, count: int) -> None:
+        """The next chunk's `count` scenarios kept, written in place by another process (`put`)."""
+        if self._filled + count > self._values.shape[1]:
+            raise ValueError(f"more than the {self._values.shape[1]:,} scenarios this sample keeps")
         self._filled += count
 
     @property
@@ -291,15 +340,17 @@ class SweepSummary:
         if self._sample is None:
             self.labels = tally.labels
             self.owned_labels = {label for label, own in zip(tally.labels, tally.owned, strict=True) if own}
-            rows = len(tally.labels) + len(tally.breakeven_labels)
-            self._sample = ScenarioSample(rows, self.tallying.sampled(rows))
+            self._sample = self.tallying.sample(len(tally.labels) + len(tally.breakeven_labels))
             self._cheapest = np.zeros(len(tally.labels), np.int64)
             self._feasible = np.zeros(len(tally.labels), np.int64)
             self._breakeven_labels = tally.breakeven_labels
             self._breakeven_reachable = np.zeros(len(tally.breakeven_labels), np.int64)
         assert self._cheapest is not None and self._feasible is not None
         assert self._breakeven_reachable is not None
-        self._sample.append(tally.totals, tally.breakeven_utilisation)
+        if tally.totals is None or tally.breakeven_utilisation is None:
+            self._sample.extend(tally.kept)
+        else:
+            self._sample.append(tally.totals, tally.breakeven_utilisation)
         self.scenarios += tally.size
         self._cheapest += tally.cheapest
         self._feasible += tally.feasible

@@ -96,6 +96,8 @@ def _here(catalog: Catalog, plan: SweepPlan, chunks: Iterable[tuple[int, Mapping
 def _in_workers(catalog: Catalog, plan: SweepPlan, chunks: Iterable[tuple[int, Mapping[str, Floats]]],
                 processes: int, breakeven: bool, tallying: Tallying | None) -> Iterator[Any]:
     context, priced = _workers_context(plan.scenarios, processes)
+    if tallying is not None and context.get_start_method() == "fork":
+        tallying.share()  # forked workers write the values kept into the sample, and send back only counts
     with ProcessPoolExecutor(processes, mp_context=context, initializer=_start_worker,
                              initargs=(catalog, plan, priced, breakeven, tallying)) as pool:
         pending: deque[Future[Any]] = deque()

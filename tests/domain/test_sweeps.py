@@ -12,6 +12,7 @@ import dataclasses
 import itertools
 import json
 import math
+import pickle
 import subprocess
 import sys
 import threading
@@ -757,21 +758,51 @@ def a_thread_alive() -> Iterator[None]:
 @pytest.mark.parametrize("threaded", [False, True], ids=["as-is", "with-another-thread"])
 def test_tallies_made_in_worker_processes_give_the_summary_of_whole_chunks(threaded: bool) -> None:
     """Beyond the sample's capacity a worker sends back of each chunk only its counts and its scenarios kept
-    (`ChunkTally`): the summary is the one whole chunks give in this process, to the bit; from workers
-    forked by a fork server too, as where this process holds another thread."""
+    (`ChunkTally`), or, forked from this process, writes the values kept into the sample itself: the summary
+    is the one whole chunks give in this process, to the bit; from workers forked by a fork server too, as
+    where this process holds another thread, which send the values back."""
     prep = prepared(monte_carlo(samples=6000))
     chunks = list(scenario_chunks(prep.plan, 1500))
-    whole, tallied = (SweepSummary(6000, sample_values=20_000, seed=5) for _ in range(2))
+    # 34 rows (14 options, 20 break-even rows): 1,176 scenarios kept, which the budget holds
+    whole, tallied = (SweepSummary(6000, sample_values=40_000, seed=5) for _ in range(2))
     for chunk in chunk_pool.evaluated(prep.catalog, prep.plan, chunks, processes=1):
         whole.add(chunk)
     with a_thread_alive() if threaded else nullcontext():
+        forked = chunk_pool._workers_context(6000, 2)[0].get_start_method() == "fork"
         tallies = list(chunk_pool.evaluated(prep.catalog, prep.plan, chunks, processes=2,
                                             tallying=tallied.tallying))
     for tally in tallies:
         tallied.add_tally(tally)
-    assert whole.result()["percentiles"] == "estimated from a seeded sample of 1,000 scenarios"
+    assert whole.result()["percentiles"] == "estimated from a seeded sample of 1,176 scenarios"
     assert tallied.result() == whole.result()
-    assert sum(t.totals.shape[1] for t in tallies) == sum(t.breakeven_utilisation.shape[1] for t in tallies) == 1000
+    assert sum(t.kept for t in tallies) == 1176
+    assert forked != threaded or sys.platform != "linux"  # another thread: never forked from this process
+    for tally in tallies:  # written in place by forked workers, else sent
+        assert (tally.totals is None and tally.breakeven_utilisation is None) == forked
+        assert forked or (tally.totals is not None and tally.totals.shape[1] == tally.kept)
+
+
+def test_a_tallying_sent_to_a_process_started_afresh_shares_no_memory_and_its_tallies_carry_the_values() -> None:
+    """Once shared, a tallying writes the values kept into its sample (for the processes forked from this one);
+    pickled for a process that is not forked from it, it leaves its memory behind, and that process's tallies
+    carry the values, which the summary appends: the same summary either way."""
+    prep = prepared(monte_carlo(samples=3000))
+    chunks = [evaluate_chunk(prep.catalog, prep.plan, inputs) for _, inputs in scenario_chunks(prep.plan, 1000)]
+    reference, shared = (SweepSummary(3000, sample_values=40_000, seed=2) for _ in range(2))
+    for chunk in chunks:
+        reference.add(chunk)
+    shared.tallying.share()
+    afresh = pickle.loads(pickle.dumps(shared.tallying))
+    in_place = shared.tallying(chunks[0], 0)
+    assert in_place.totals is None and in_place.kept > 0
+    sent = [afresh(chunk, start) for chunk, start in zip(chunks[1:], (1000, 2000), strict=True)]
+    assert all(t.totals is not None and t.totals.shape[1] == t.kept for t in sent)
+    for tally in (in_place, *sent):
+        shared.add_tally(tally)
+    assert shared.result() == reference.result()
+    floor = SweepSummary(3000, sample_values=10_000, seed=2).tallying
+    floor.share()  # 34 rows × the floor's 1,000 scenarios kept: more than the budget it maps
+    assert floor(chunks[0], 0).totals is not None
 
 
 @pytest.mark.skipif(sys.platform != "linux", reason="workers are forked from the sweeping process on Linux only")
