@@ -441,8 +441,8 @@ def berth(*args: str) -> list[str]:
 
 
 def stop(process: subprocess.Popen[bytes]) -> None:
-    """End the process group this script started (the command, under /usr/bin/time its child, and its fork
-    server and workers)."""
+    """End the process group this script started (the command, under /usr/bin/time its child, and its
+    workers, with any fork server)."""
     try:
         os.killpg(process.pid, signal.SIGTERM)
         process.wait(timeout=30)
@@ -610,8 +610,8 @@ def end_to_end_csv(directory: Path, scenarios: int, ten_venue: str | None = None
     report = directory / "time-v.txt"
     if time_tool:
         command = [time_tool, "-v", "-o", str(report), *command]
-    print(f"    peak RSS from: {'/usr/bin/time -v' if time_tool else 'the sampled tree alone'}, and the fork "
-          "server's and its workers' from the kernel")
+    print(f"    peak RSS from: {'/usr/bin/time -v' if time_tool else 'the sampled tree alone'}, and the "
+          "workers' (and any fork server's) from the kernel")
     start = time.perf_counter()
     process = subprocess.Popen(command, cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL,
                                start_new_session=True)
