@@ -169,7 +169,7 @@ class SampledScenarios:
         return self._kept[first:last] - start
 
     def before(self, start: int) -> int:
-        """How many of the scenarios before the `start`th are kept: where a chunk's begin in the sample."""
+        """How many of the scenarios before the `start`th are kept: where a chunk's values begin in the sample."""
         return start if self.exact else int(np.searchsorted(self._kept, start))
 
 
@@ -179,7 +179,8 @@ class ChunkTally:
     each option's total and break-even utilisation at the chunk's scenarios the sample keeps, unless these were
     written into the sample itself (`Tallying.share`). On ten venues a whole chunk's result is about 920 bytes
     a scenario; beyond the sample's capacity most of it is not kept, and sending it cost a 1,000,000-scenario
-    sweep 1.5 s of CPU in pickles and pipes; sending the values kept, 0.3 s more than writing them in place."""
+    sweep 1.5 s of CPU in pickles and pipes; sending the values kept, 0.2-0.3 s more than writing them in
+    place."""
 
     size: int
     labels: list[str]

@@ -115,8 +115,8 @@ def _workers_context(scenarios: int, processes: int) -> tuple[multiprocessing.co
 
     - Forked from this process, on Linux, where it holds no thread but its main one (a command line's sweep):
       the workers share what it imported, and the compiled kernel, loaded here first where the sweep is large
-      enough. A 1,000,000-scenario sweep on ten venues took 0.7 s less CPU so than from a fork server, which
-      starts an interpreter and imports numpy, the domain and numba once more (bench_sweeps.py section 2a).
+      enough. A 1,000,000-scenario sweep on ten venues took 0.7 s less CPU this way than with a fork server,
+      which starts an interpreter and imports numpy, the domain and numba once more (bench_sweeps.py 2a).
       The pool forks every worker at its first task, before it starts a thread of its own.
     - From a fork server where this process holds threads (a fork copies no thread but the caller's, and a
       lock another thread held stays locked in the copy): the server is started clean and imports the sweep's
