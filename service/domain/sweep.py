@@ -282,8 +282,7 @@ class ScenarioSample:
         """A chunk's values at its scenarios kept, `blocks` of (rows, kept) together the rows, written from
         `column` on (the scenarios kept before the chunk's first)."""
         count = blocks[0].shape[1]
-        if column + count > self._values.shape[1]:
-            raise ValueError(f"more than the {self._values.shape[1]:,} scenarios this sample keeps")
+        self._holds(column + count)
         row = 0
         for block in blocks:
             self._values[row:row + len(block), column:column + count] = block
@@ -296,9 +295,12 @@ class ScenarioSample:
 
     def extend(self, count: int) -> None:
         """The next chunk's `count` scenarios kept, written in place by another process (`put`)."""
-        if self._filled + count > self._values.shape[1]:
-            raise ValueError(f"more than the {self._values.shape[1]:,} scenarios this sample keeps")
+        self._holds(self._filled + count)
         self._filled += count
+
+    def _holds(self, scenarios: int) -> None:
+        if scenarios > self._values.shape[1]:
+            raise ValueError(f"more than the {self._values.shape[1]:,} scenarios this sample keeps")
 
     @property
     def held(self) -> Floats:
