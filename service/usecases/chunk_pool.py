@@ -96,8 +96,10 @@ def _here(catalog: Catalog, plan: SweepPlan, chunks: Iterable[tuple[int, Mapping
 def _in_workers(catalog: Catalog, plan: SweepPlan, chunks: Iterable[tuple[int, Mapping[str, Floats]]],
                 processes: int, breakeven: bool, tallying: Tallying | None) -> Iterator[Any]:
     context, priced = _workers_context(plan.scenarios, processes)
-    if tallying is not None and context.get_start_method() == "fork":
-        tallying.share()  # forked workers write the values kept into the sample, and send back only counts
+    if context.get_start_method() == "fork":  # made here, before the workers are forked, so that they share it
+        sweep_kernel(priced)  # where the sweep is large enough
+        if tallying is not None:
+            tallying.share()  # the workers write the values kept into the sample, and send back only counts
     with ProcessPoolExecutor(processes, mp_context=context, initializer=_start_worker,
                              initargs=(catalog, plan, priced, breakeven, tallying)) as pool:
         pending: deque[Future[Any]] = deque()
@@ -114,9 +116,10 @@ def _workers_context(scenarios: int, processes: int) -> tuple[multiprocessing.co
     `sweep_kernel` weighs).
 
     - Forked from this process, on Linux, where it holds no thread but its main one (a command line's sweep):
-      the workers share what it imported, and the compiled kernel, loaded here first where the sweep is large
-      enough. A 1,000,000-scenario sweep on ten venues took 0.7 s less CPU this way than with a fork server,
-      which starts an interpreter and imports numpy, the domain and numba once more (bench_sweeps.py 2a).
+      the workers share what it imported, and the compiled kernel, which `_in_workers` loads first where the
+      sweep is large enough. A 1,000,000-scenario sweep on ten venues took 0.7 s less CPU this way than with a
+      fork server, which starts an interpreter and imports numpy, the domain and numba once more
+      (bench_sweeps.py 2a).
       The pool forks every worker at its first task, before it starts a thread of its own.
     - From a fork server where this process holds threads (a fork copies no thread but the caller's, and a
       lock another thread held stays locked in the copy): the server is started clean and imports the sweep's
@@ -126,7 +129,6 @@ def _workers_context(scenarios: int, processes: int) -> tuple[multiprocessing.co
     - Started afresh where a platform has neither; each loads the kernel for its own share."""
     methods = multiprocessing.get_all_start_methods()
     if sys.platform == "linux" and "fork" in methods and threading.active_count() == 1:
-        sweep_kernel(scenarios)
         return multiprocessing.get_context("fork"), scenarios
     if "forkserver" in methods:
         context = multiprocessing.get_context("forkserver")
