@@ -177,10 +177,9 @@ class SampledScenarios:
 class ChunkTally:
     """What a sweep's summary reads of one chunk, and all a worker process sends back for it: its counts, and
     each option's total and break-even utilisation at the chunk's scenarios the sample keeps, unless these were
-    written into the sample itself (`Tallying.share`). On ten venues a whole chunk's result is about 920 bytes
-    a scenario; beyond the sample's capacity most of it is not kept, and sending it cost a 1,000,000-scenario
-    sweep 1.5 s of CPU in pickles and pipes; sending the values kept, 0.2-0.3 s more than writing them in
-    place."""
+    written into the sample itself (`Tallying.share`). On ten venues a whole chunk's result is about 920 bytes a
+    scenario; beyond the sample's capacity most is not kept, and sending it cost a 1,000,000-scenario sweep
+    1.5 s of CPU in pickles and pipes; sending the values kept, 0.2-0.3 s more than writing them in place."""
 
     size: int
     labels: list[str]
