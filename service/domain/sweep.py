@@ -26,12 +26,12 @@ from service.domain.whatif import apply
 CHUNK_ELEMENTS = 1_600_000  # scenarios × candidate layouts per chunk: bounds memory
 CANDIDATES_PER_SHAPE = 4  # the memory minimum, a site's two node limits (an offer has one) and the deadline
 # The inputs that change prices, the work's length, the data or the deadline, but never a step's figures or a
-# candidate's node count. A sweep over these alone solves every scenario on one table of candidates
-# (layout.py) and lays out no (scenarios × candidates) array: its memory grows with the options (measured on
-# bench_sweeps' 10-venue catalog, 28 options, chunks of 12,500: about 3 KB a scenario, against 10 KB for a
-# sweep over the network and 17 KB over the model's size), so its chunks hold OPTION_SCENARIOS / options
-# scenarios, at most ONE_TABLE_FACTOR times the others' (twice the scenarios cost a chunk 14-16% less CPU per
-# scenario there).
+# candidate's node count. A sweep over these alone solves every scenario on one table of candidates (layout.py)
+# and lays out no (scenarios × candidates) array: its memory grows with the options (bench_sweeps' 10-venue
+# catalog, 28 options, chunks of 12,500: about 3 KB a scenario, against 10 KB over the network and 17 KB over the
+# model's size), so its chunks hold OPTION_SCENARIOS / options scenarios, at most ONE_TABLE_FACTOR times the others'.
+# There, 37,500 against 25,000 took a 1,000,000-scenario `berth sweep` from 6.5-6.7 to 6.0-6.2 s of CPU and a
+# 200,000-row CSV stream from 702 to 843 MB of peak tree RSS (bench_sweeps 2c); 50,000 saved no more, took 966 MB.
 ONE_TABLE_PATHS = frozenset({
     "campaign.work.tokens", "campaign.runs.count", "campaign.runs.exploration_fraction",
     "campaign.runs.evaluation_fraction", "campaign.deadline_days", "campaign.data.dataset_tb",
@@ -39,8 +39,8 @@ ONE_TABLE_PATHS = frozenset({
     "campaign.recurrence.for_months", "overrides.electricity_price_per_kwh", "overrides.electricity_price_factor",
     "overrides.on_demand_price_factor", "overrides.rented_price_factor", "overrides.cost_of_capital_annual",
     "overrides.node_price_factor", "overrides.utilisation_planned", "overrides.grid_kgco2e_per_kwh"})
-OPTION_SCENARIOS = 700_000  # options × scenarios per chunk of such a sweep: about 140 MB
-ONE_TABLE_FACTOR = 2
+OPTION_SCENARIOS = 1_050_000  # options × scenarios per chunk of such a sweep
+ONE_TABLE_FACTOR = 3
 
 
 @dataclass(frozen=True)
