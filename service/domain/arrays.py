@@ -86,18 +86,28 @@ def is_every_row(rows: Any) -> bool:
 def take_rows(value: Any, index: Any, scenarios: int) -> Any:
     """`value` at some of its scenarios: every array whose leading axis runs over the `scenarios`
     (when there is more than one) taken at `index`, a slice or an index array, through dataclasses,
-    dicts and tuples; everything else as it is."""
+    dicts and tuples; everything else as it is. A dataclass met twice (a node type its options share)
+    is taken once, and stays shared. One whose figures are made when first read takes its own rows
+    (its `at_rows`), so that they are still made only when read."""
     if scenarios <= 1 or (is_every_row(index) and index.shape[0] == scenarios):
         return value
+    return _taken(value, index, scenarios, {})
+
+
+def _taken(value: Any, index: Any, scenarios: int, seen: dict[int, Any]) -> Any:
     if isinstance(value, np.ndarray):
         return value[index] if value.ndim >= 1 and value.shape[0] == scenarios else value
     if isinstance(value, dict):
-        return {name: take_rows(item, index, scenarios) for name, item in value.items()}
+        return {name: _taken(item, index, scenarios, seen) for name, item in value.items()}
     if isinstance(value, tuple):
-        return tuple(take_rows(item, index, scenarios) for item in value)
+        return tuple(_taken(item, index, scenarios, seen) for item in value)
     if is_dataclass(value) and not isinstance(value, type):
-        return replace(value, **{f.name: take_rows(getattr(value, f.name), index, scenarios) for f in fields(value)
-                                 if f.init})
+        if id(value) not in seen:  # `value` outlives the call, so its id is not reused meanwhile
+            at_rows = getattr(value, "at_rows", None)
+            seen[id(value)] = at_rows(index, scenarios) if at_rows is not None else replace(
+                value, **{f.name: _taken(getattr(value, f.name), index, scenarios, seen) for f in fields(value)
+                          if f.init})
+        return seen[id(value)]
     return value
 
 

@@ -22,6 +22,7 @@ from service.domain.arrays import (
     broadcast,
     is_every_row,
     longest_axis,
+    take_rows,
 )
 from service.domain.assumptions import default
 from service.domain.campaign import LayoutPins, Parallelism, Recompute
@@ -188,7 +189,7 @@ class FiguresWhenRead(LayoutGrid):
     """A grid whose figures are each made when first read (`_made`), then kept: the chosen layouts,
     of which a sweep reads only the few its costs and summary need (`of`), and the candidate blocks of
     `own_step.FiguresOnRead`, whose figures beyond pricing only the chosen layout needs.
-    `dataclasses.replace` (as in `arrays.take_rows`) builds one whole, as any LayoutGrid."""
+    `dataclasses.replace` builds one whole, as any LayoutGrid; `arrays.take_rows` keeps it made when read."""
 
     @classmethod
     def of(cls, make: Callable[[str], Any]) -> LayoutGrid:
@@ -210,6 +211,11 @@ class FiguresWhenRead(LayoutGrid):
         value = self._made(name)
         object.__setattr__(self, name, value)
         return value
+
+    def at_rows(self, index: Any, scenarios: int) -> LayoutGrid:
+        """This grid at some of its scenarios (`arrays.take_rows`), each figure made when read: this
+        grid's, at those rows."""
+        return FiguresWhenRead.of(lambda name: take_rows(getattr(self, name), index, scenarios))
 
 
 @dataclass(frozen=True)

@@ -11,12 +11,13 @@ non-negative prices, and a sweep relies on it to drop candidates that are never 
 `compiled.py`'s kernel, which repeats the `*_cost` formulas for one cell: change both.
 """
 
+from collections.abc import Callable
 from dataclasses import dataclass, fields
 from typing import Any
 
 import numpy as np
 
-from service.domain.arrays import ArrayLike, Floats, as_floats
+from service.domain.arrays import ArrayLike, Floats, as_floats, take_rows
 from service.domain.campaign import DataPlan, Recurrence
 from service.domain.finance import capital_recovery_payment, monthly_rate
 from service.domain.gravity import Transfer
@@ -223,6 +224,17 @@ class _EnergyWhenRead(Energy):
             object.__setattr__(self, figure, value)
         return self.__dict__[name]
 
+    def at_rows(self, index: Any, scenarios: int) -> Energy:
+        """These figures at some of the scenarios (`arrays.take_rows`), made together when one is read."""
+        return _when_read(lambda: {name: take_rows(getattr(self, name), index, scenarios) for name in _ENERGY_FIGURES})
+
+
+def _when_read(make: Callable[[], dict[str, Floats]]) -> Energy:
+    """An Energy whose figures are `make()`'s, made when one is first read."""
+    energy = _EnergyWhenRead.__new__(_EnergyWhenRead)
+    object.__setattr__(energy, "_make", make)
+    return energy
+
 
 _ENERGY_FIGURES = frozenset(f.name for f in fields(Energy))
 
@@ -245,6 +257,4 @@ def campaign_energy(
         peak_it = grid.nodes * peak_kw
         return {"it_kwh": it_kwh, "facility_kwh": facility, "peak_it_kw": peak_it, "cooling_kw_thermal": peak_it,
                 "kgco2e": facility * as_floats(grid_kgco2e_per_kwh)}
-    energy = _EnergyWhenRead.__new__(_EnergyWhenRead)
-    object.__setattr__(energy, "_make", make)
-    return energy
+    return _when_read(make)

@@ -45,6 +45,7 @@ from service.domain.choice import _first_least
 from service.domain.evaluate import CampaignEvaluation, evaluate_campaign
 from service.domain.layout import node_fit
 from service.domain.step import FiguresWhenRead, LayoutGrid, wall_figures
+from service.domain.terms import campaign_energy
 from tests.domain import builders
 
 DEMO = json.loads((Path(__file__).resolve().parents[2] / "pricing_examples" / "catalog.json").read_text("utf-8"))
@@ -461,7 +462,7 @@ def test_venues_of_one_node_size_share_what_it_makes_of_the_model_as_if_each_mad
             np.testing.assert_array_equal(getattr(ours.layout, name), getattr(theirs.layout, name))
 
 
-def test_the_chosen_layouts_figures_are_made_once_when_read_and_taking_rows_builds_them_whole() -> None:
+def test_the_chosen_layouts_figures_are_made_once_when_read_and_taking_rows_keeps_them_so() -> None:
     """step.FiguresWhenRead, as `Candidates.pick` and `choice.as_column` return it (demo figures)."""
     made: list[str] = []
 
@@ -475,11 +476,30 @@ def test_the_chosen_layouts_figures_are_made_once_when_read_and_taking_rows_buil
     assert made == ["nodes", "wall_seconds"]
     with pytest.raises(AttributeError):
         _ = grid.not_a_figure
-    taken = take_rows(grid, slice(1, 2), 3)  # dataclasses.replace: every figure made and set
-    assert sorted(made) == sorted(f.name for f in dataclasses.fields(LayoutGrid))
-    assert "_make" not in taken.__dict__
+    taken = take_rows(grid, slice(1, 2), 3)  # nothing made by taking rows
+    assert made == ["nodes", "wall_seconds"]
+    np.testing.assert_array_equal(taken.tensor, grid.tensor[1:2])  # made when read, from the grid's own
+    assert made == ["nodes", "wall_seconds", "tensor"] and taken.tensor is taken.tensor
     for f in dataclasses.fields(LayoutGrid):
         np.testing.assert_array_equal(getattr(taken, f.name), getattr(grid, f.name)[1:2])
+    assert sorted(made) == sorted(f.name for f in dataclasses.fields(LayoutGrid))  # each once
+    with pytest.raises(AttributeError):
+        _ = taken.not_a_figure
+
+
+def test_taking_rows_keeps_an_options_energy_made_when_read_and_what_its_options_share_shared() -> None:
+    """`arrays.take_rows` on options: the energy figures are made, from the whole's, only when one is
+    read, and a dataclass that several options share (their node type) is taken once and stays one
+    (demo figures)."""
+    grid = FiguresWhenRead.of(lambda name: np.linspace(1.0, 3.0, 3) * (8.0 if name == "nodes" else 3600.0))
+    energy = campaign_energy(grid, idle_kw=1.5, peak_kw=9.5, load=0.8, pue=1.25, grid_kgco2e_per_kwh=0.3)
+    assert "it_kwh" not in energy.__dict__
+    taken = take_rows({"a": energy, "b": (energy, grid)}, np.array([2, 0]), 3)
+    assert "it_kwh" not in energy.__dict__ and "it_kwh" not in taken["a"].__dict__
+    assert taken["a"] is taken["b"][0]  # met twice, taken once
+    for name in ("it_kwh", "facility_kwh", "peak_it_kw", "cooling_kw_thermal", "kgco2e"):
+        np.testing.assert_array_equal(getattr(taken["a"], name), getattr(energy, name)[[2, 0]])
+    np.testing.assert_array_equal(taken["b"][1].nodes, [24.0, 8.0])
 
 
 def test_every_row_is_told_apart_without_reading_it_and_taking_it_takes_everything() -> None:
