@@ -55,7 +55,6 @@ __all__ = ["DEADLINE", "MEMORY", "NODE_LIMIT", "PINNED", "Architecture", "Candid
 
 
 _FIGURE_NAMES = tuple(f.name for f in fields(LayoutGrid))  # every figure of a layout
-_FIRST = np.zeros(1, dtype=np.int64)  # the row of a single scenario
 
 
 @dataclass(frozen=True)
@@ -65,7 +64,7 @@ class Candidates:
     one (S, K) grid. Column j of the whole is column j − offset of its block."""
 
     blocks: tuple[LayoutGrid, ...]
-    _picked: dict[int, LayoutGrid] = field(default_factory=dict, init=False, compare=False, repr=False)
+    _picked: dict[tuple[int, int], LayoutGrid] = field(default_factory=dict, init=False, compare=False, repr=False)
 
     @property
     def widths(self) -> list[int]:
@@ -89,23 +88,15 @@ class Candidates:
     def pick(self, index: Ints) -> LayoutGrid:
         """Every figure at the column `index` chosen per scenario: (S,) arrays of each field's dtype,
         each taken when first read; for one scenario (a quote, whose document reads every figure),
-        all taken now, and kept by column: a venue's terms often choose the same layout."""
+        all taken now (`cell`)."""
         if index.shape[0] == 1:
-            chosen = int(index[0])
-            if chosen not in self._picked:
-                column, at, widths = chosen, 0, self.widths
-                while column >= widths[at]:  # the block the column lies in, and its column there
-                    column -= widths[at]
-                    at += 1
-                read = self.blocks[at].cells(_FIRST, np.array([column]))
-                self._picked[chosen] = LayoutGrid(**{name: _shared(read(name)) for name in _FIGURE_NAMES})
-            return self._picked[chosen]
+            return self.cell(0, int(index[0]))
         ends = np.cumsum(self.widths)
         rows = every_row(index.shape[0])
         lowest, highest = np.searchsorted(ends, (index.min(), index.max()), side="right")
         if lowest == highest:  # every scenario chose from one block: its rows are all of them, in order
             read = self.blocks[lowest].cells(rows, index - (ends[lowest] - self.widths[lowest]))
-            return FiguresWhenRead.of(lambda name: np.asarray(read(name)))
+            return _picked_from(self, index, lambda name: np.asarray(read(name)))
         block_of = np.searchsorted(ends, index, side="right")
         # Per block, the scenarios whose choice lies in it, and the chosen column within the block.
         parts = [(block, chosen, rows[chosen], index[chosen] - (end - width))
@@ -120,7 +111,39 @@ class Candidates:
             for (chosen, _), values in zip(readers, taken, strict=True):
                 out[chosen] = values
             return out
-        return FiguresWhenRead.of(picked)
+        return _picked_from(self, index, picked)
+
+    def cell(self, row: int, chosen: int) -> LayoutGrid:
+        """Every figure of column `chosen` at scenario `row`, (1,) arrays all taken now and kept: a
+        venue's terms often choose the same layout."""
+        if (row, chosen) not in self._picked:
+            column, at, widths = chosen, 0, self.widths
+            while column >= widths[at]:  # the block the column lies in, and its column there
+                column -= widths[at]
+                at += 1
+            read = self.blocks[at].cells(np.array([row]), np.array([column]))
+            self._picked[row, chosen] = LayoutGrid(**{name: _shared(read(name)) for name in _FIGURE_NAMES})
+        return self._picked[row, chosen]
+
+
+class _Picked(FiguresWhenRead):
+    """The figures of the layouts chosen from candidates, each made when first read; one scenario of them
+    taken (`arrays.take_rows`: a split quote takes its campaign's) is its cell, read at once."""
+
+    def at_rows(self, index: Any, scenarios: int) -> LayoutGrid:
+        rows = every_row(scenarios)[index]
+        if rows.size != 1:
+            return super().at_rows(index, scenarios)
+        candidates: Candidates
+        candidates, chosen = self.__dict__["_chosen"]
+        return candidates.cell(int(rows[0]), int(chosen[rows[0]]))
+
+
+def _picked_from(candidates: Candidates, index: Ints, make: Callable[[str], Any]) -> LayoutGrid:
+    """The layouts chosen at `index` from `candidates`, whose figure `name` is `make(name)`."""
+    grid = _Picked.of(make)
+    object.__setattr__(grid, "_chosen", (candidates, index))
+    return grid
 
 
 def _shared(value: ArrayLike) -> Any:

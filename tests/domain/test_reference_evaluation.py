@@ -521,3 +521,33 @@ def test_every_row_is_told_apart_without_reading_it_and_taking_it_takes_everythi
             known, read = (wall_figures(load, venue, step, used, index) for index in (rows, np.arange(5)))
             for name in ("wall_seconds", "accelerator_hours"):
                 np.testing.assert_array_equal(np.broadcast_to(known[name], (5, 1)), read[name], strict=True)
+
+
+@pytest.mark.parametrize("vary_step", [False, True])
+@pytest.mark.parametrize("seed", range(4))
+def test_one_scenario_taken_from_the_chosen_layouts_is_its_cell_as_the_whole_has_it(seed: int, vary_step: bool) -> None:
+    """An evaluation of several scenarios, then one of them taken (`arrays.take_rows`, as a split quote
+    takes its campaign's from the evaluation it shares with the split points): the layouts chosen from
+    candidates (`Candidates.pick`) give that scenario's cell, read at once, every figure the same to the
+    bit and of the same dtype as the whole's at that row; several scenarios taken stay made when read
+    (random catalogs and campaigns)."""
+    rng = np.random.default_rng(900 + seed)
+    catalog = random_catalog(rng)
+    campaign, overrides = random_campaign(rng, 9, vary_step=vary_step)
+    whole = evaluate_campaign(catalog, campaign, QuoteOptions(), overrides)
+    picked = 0
+    for row in (0, 4, 8):
+        for option, taken in zip(whole.options, take_rows(whole, slice(row, row + 1), 9).options, strict=True):
+            if type(option.layout).__name__ == "_Picked":
+                assert type(taken.layout) is LayoutGrid  # its cell, every figure read
+                picked += 1
+            for f in dataclasses.fields(LayoutGrid):
+                np.testing.assert_array_equal(getattr(taken.layout, f.name),
+                                              getattr(option.layout, f.name)[row:row + 1],
+                                              err_msg=f"{option.label} {f.name}", strict=True)
+            assert_identical(taken.total, option.total[row:row + 1], option.label)
+    assert picked
+    for option in whole.options:
+        several = take_rows(option.layout, np.array([7, 2]), 9)
+        assert isinstance(several, FiguresWhenRead) and "nodes" not in several.__dict__
+        np.testing.assert_array_equal(several.nodes, option.layout.nodes[[7, 2]], strict=True)
