@@ -1,6 +1,7 @@
 """The app factory: nothing is built at import; `create_app(settings)` wires everything, and the
 lifespan (or `prepare` in tests) migrates the schema and loads the demo catalog."""
 
+import gc
 import logging
 from collections.abc import AsyncIterator, Callable
 from contextlib import asynccontextmanager
@@ -73,12 +74,23 @@ def prepare(app: FastAPI) -> None:
         log.info("%d unfinished sweeps to take up", resumed)
 
 
+def settle_heap() -> None:
+    """Leave the objects a started server holds (its modules, the app, the demo catalog: some 200,000)
+    out of every later garbage collection; only what requests make is looked at again. Without this, a
+    full collection walked them all every few hundred quotes and stopped the worker for about 90 ms,
+    with every request in flight waiting: measured on 2 workers at 20 clients, quote p99 300-340 ms
+    without, 214-289 ms with, and 4% less server CPU per quote (bench_quotes.py's load)."""
+    gc.collect()  # what start-up left behind goes now, not frozen with the rest
+    gc.freeze()
+
+
 def create_app(settings: Settings | None = None, *, clock: Callable[[], datetime] = utc_now) -> FastAPI:
     settings = settings or Settings()
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         prepare(app)
+        settle_heap()
         yield
         app.state.sweeps.shutdown()
         app.state.storage.dispose()
