@@ -1,6 +1,7 @@
 """Use cases: quote a campaign against a catalog. Storage-backed use cases take a repository
 and own the transaction; the offline ones here take validated inputs and return the body."""
 
+import functools
 import hashlib
 import json
 from collections.abc import Callable
@@ -80,9 +81,10 @@ def quote(catalog: CatalogIn, request: QuoteRequestIn, *,
         return quote_document(domain_catalog, request, evaluation)
 
 
+@functools.cache
 def model_version() -> str:
     """The package version plus a hash of the model's defaults: a quote computed under another
-    version may differ, and recompute says how."""
+    version may differ, and recompute says how. Made once: both are fixed while the process runs."""
     defaults = json.dumps([[a.name, a.value, a.unit, a.source] for a in DEFAULTS.values()], sort_keys=True)
     return f"{__version__}+{hashlib.sha256(defaults.encode('utf-8')).hexdigest()[:12]}"
 
