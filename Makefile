@@ -9,11 +9,14 @@ BERTH_PORT ?= 8000
 
 .PHONY: run test check lint typecheck bench clean
 
-# What the service needs, and nothing else: `make run` installs only this.
+# What the service needs, and nothing else: `make run` installs only this. Byte-compiled as pip compiles
+# a wheel it installs (an editable install is not): where PYTHONDONTWRITEBYTECODE is set, every berth
+# process would otherwise compile its sources again when it starts.
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/pip install --quiet --upgrade pip
 	$(BIN)/pip install --quiet -e .
+	$(BIN)/python -m compileall -q service
 	touch $(STAMP)
 
 # The test extras (pytest, type checker, linter, browser driver, fuzzer, PostgreSQL driver), added
