@@ -55,11 +55,11 @@ __all__ = ["DEADLINE", "MEMORY", "NODE_LIMIT", "PINNED", "Architecture", "Candid
 
 
 _FIGURE_NAMES = tuple(f.name for f in fields(LayoutGrid))  # every figure of a layout
-# Scenarios up to which the layouts chosen from candidates hold the blocks chosen from, so that one scenario
-# taken (a split quote's campaign, of its 1 + 2 × 8 scenarios) reads its cell at once. Beyond, they hold no
-# block: a sweep keeps every option's chosen layout to the end of its chunk, and the blocks with it (an
-# own-step CSV sweep's peak RSS went from 509 MB to 1.4 GB when they did).
-CELLS_FROM_BLOCKS_UP_TO = 64
+# Scenarios up to which the layouts chosen from candidates hold the candidates, so that one scenario taken
+# (a split quote's campaign, of its 1 + 2 × 8 scenarios) reads its cell at once. Beyond, they hold none: a
+# sweep keeps every option's chosen layout to the end of its chunk, and every venue's candidates would stay
+# alive with it (an own-step CSV sweep's peak RSS went from 509 MB to 1.4 GB when they did).
+CELLS_FROM_CANDIDATES_UP_TO = 64
 
 
 @dataclass(frozen=True)
@@ -100,15 +100,15 @@ class Candidates:
         rows = every_row(index.shape[0])
         lowest, highest = np.searchsorted(ends, (index.min(), index.max()), side="right")
         if lowest == highest:  # every scenario chose from one block: its rows are all of them, in order
-            start = int(ends[lowest]) - self.widths[lowest]
-            read = self.blocks[lowest].cells(rows, index - start)
-            return _picked_from(((start, self.blocks[lowest]),), index, lambda name: np.asarray(read(name)))
+            read = self.blocks[lowest].cells(rows, index - (ends[lowest] - self.widths[lowest]))
+            return _picked_from(self, index, lambda name: np.asarray(read(name)))
         block_of = np.searchsorted(ends, index, side="right")
-        # Per block chosen from: its first column in the whole, and the scenarios whose choice lies in it.
-        parts = [(int(end) - width, block, chosen) for block, end, width, chosen in zip(
-                     self.blocks, ends, self.widths, (block_of == b for b in range(len(self.blocks))), strict=True)
+        # Per block, the scenarios whose choice lies in it, and the chosen column within the block.
+        parts = [(block, chosen, rows[chosen], index[chosen] - (end - width))
+                 for block, end, width, chosen in ((block, end, width, block_of == b) for b, (block, end, width)
+                                                   in enumerate(zip(self.blocks, ends, self.widths, strict=True)))
                  if chosen.any()]
-        readers = [(chosen, block.cells(rows[chosen], index[chosen] - start)) for start, block, chosen in parts]
+        readers = [(chosen, block.cells(at_rows, at_columns)) for block, chosen, at_rows, at_columns in parts]
 
         def picked(name: str) -> Any:
             taken = [np.asarray(read(name)) for _, read in readers]
@@ -116,45 +116,42 @@ class Candidates:
             for (chosen, _), values in zip(readers, taken, strict=True):
                 out[chosen] = values
             return out
-        return _picked_from(tuple((start, block) for start, block, _ in parts), index, picked)
+        return _picked_from(self, index, picked)
 
     def cell(self, row: int, chosen: int) -> LayoutGrid:
         """Every figure of column `chosen` at scenario `row`, (1,) arrays all taken now and kept: a
         venue's terms often choose the same layout."""
         if (row, chosen) not in self._picked:
-            starts = np.cumsum([0, *self.widths[:-1]]).tolist()
-            self._picked[row, chosen] = _cell(tuple(zip(starts, self.blocks, strict=True)), row, chosen)
+            column, at, widths = chosen, 0, self.widths
+            while column >= widths[at]:  # the block the column lies in, and its column there
+                column -= widths[at]
+                at += 1
+            read = self.blocks[at].cells(np.array([row]), np.array([column]))
+            self._picked[row, chosen] = LayoutGrid(**{name: _shared(read(name)) for name in _FIGURE_NAMES})
         return self._picked[row, chosen]
-
-
-def _cell(blocks: tuple[tuple[int, LayoutGrid], ...], row: int, column: int) -> LayoutGrid:
-    """Every figure of column `column` of the whole at scenario `row`, (1,) arrays all taken now, from the
-    `blocks` (each with its first column in the whole, in order) that hold it."""
-    start, block = next((start, block) for start, block in reversed(blocks) if start <= column)
-    read = block.cells(np.array([row]), np.array([column - start]))
-    return LayoutGrid(**{name: _shared(read(name)) for name in _FIGURE_NAMES})
 
 
 class _Picked(FiguresWhenRead):
     """The figures of the layouts chosen from candidates, each made when first read; one scenario of them
     taken (`arrays.take_rows`: a split quote takes its campaign's) is its cell, read at once, where the
-    blocks chosen from are held (CELLS_FROM_BLOCKS_UP_TO)."""
+    candidates are held (CELLS_FROM_CANDIDATES_UP_TO)."""
 
     def at_rows(self, index: Any, scenarios: int) -> LayoutGrid:
         rows = every_row(scenarios)[index]
         chosen_from = self.__dict__["_chosen_from"]
         if rows.size != 1 or chosen_from is None:
             return super().at_rows(index, scenarios)
-        blocks, chosen = chosen_from
-        row = int(rows[0])
-        return _cell(blocks, row, int(chosen[row]))
+        candidates: Candidates
+        candidates, chosen = chosen_from
+        return candidates.cell(int(rows[0]), int(chosen[rows[0]]))
 
 
-def _picked_from(blocks: tuple[tuple[int, LayoutGrid], ...], index: Ints, make: Callable[[str], Any]) -> LayoutGrid:
-    """The layouts chosen at `index` from the `blocks` (each with its first column in the whole), whose
-    figure `name` is `make(name)`; holding the blocks for few scenarios only (CELLS_FROM_BLOCKS_UP_TO)."""
+def _picked_from(candidates: Candidates, index: Ints, make: Callable[[str], Any]) -> LayoutGrid:
+    """The layouts chosen at `index` from `candidates`, whose figure `name` is `make(name)`; holding the
+    candidates for few scenarios only (CELLS_FROM_CANDIDATES_UP_TO)."""
     grid = _Picked.of(make)
-    object.__setattr__(grid, "_chosen_from", (blocks, index) if index.shape[0] <= CELLS_FROM_BLOCKS_UP_TO else None)
+    held = (candidates, index) if index.shape[0] <= CELLS_FROM_CANDIDATES_UP_TO else None
+    object.__setattr__(grid, "_chosen_from", held)
     return grid
 
 

@@ -44,7 +44,7 @@ from service.domain.campaign import (
 )
 from service.domain.choice import _first_least
 from service.domain.evaluate import CampaignEvaluation, evaluate_campaign
-from service.domain.layout import CELLS_FROM_BLOCKS_UP_TO, node_fit
+from service.domain.layout import CELLS_FROM_CANDIDATES_UP_TO, node_fit
 from service.domain.own_step import FiguresOnRead
 from service.domain.step import FiguresWhenRead, LayoutGrid, wall_figures
 from service.domain.terms import campaign_energy
@@ -558,13 +558,13 @@ def test_one_scenario_taken_from_the_chosen_layouts_is_its_cell_as_the_whole_has
 @pytest.mark.parametrize("seed", range(3))
 def test_the_layouts_chosen_over_many_scenarios_hold_no_candidate_block_alive(seed: int) -> None:
     """A sweep keeps every option's chosen layout to the end of its chunk: those of more scenarios than
-    CELLS_FROM_BLOCKS_UP_TO must not hold the candidate blocks whose figures run over every scenario and
+    CELLS_FROM_CANDIDATES_UP_TO must not hold the candidate blocks whose figures run over every scenario and
     candidate (`own_step.FiguresOnRead`), or the chunk holds them all. Over fewer (a split quote) they do,
     which shows that the count below sees such blocks when they are held. Each scenario its own step
     (random catalogs and campaigns)."""
     rng = np.random.default_rng(950 + seed)
     catalog = random_catalog(rng)
-    for scenarios, held in ((CELLS_FROM_BLOCKS_UP_TO + 1, False), (9, True)):
+    for scenarios, held in ((CELLS_FROM_CANDIDATES_UP_TO + 1, False), (9, True)):
         campaign, overrides = random_campaign(rng, scenarios, vary_step=True)
         evaluation = evaluate_campaign(catalog, campaign, QuoteOptions(), overrides)
         gc.collect()
