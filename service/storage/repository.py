@@ -167,8 +167,8 @@ _CATALOG_REF = (col(CatalogRow.id), col(CatalogRow.content_hash), col(CatalogRow
 # against 0.16 ms).
 _DEFAULT_CATALOG_REF = sa_select(*_CATALOG_REF).join(
     DefaultCatalogRow, col(DefaultCatalogRow.catalog_id) == col(CatalogRow.id)).limit(1)
-_INSERT_QUOTE = sa_insert(QuoteRow)
 _CATALOG_REF_BY_ID = sa_select(*_CATALOG_REF).where(col(CatalogRow.id) == bindparam("catalog_id")).limit(1)
+_INSERT_QUOTE = sa_insert(QuoteRow)
 
 
 def _quote(row: QuoteRow) -> StoredQuote:
