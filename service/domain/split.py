@@ -86,24 +86,28 @@ def split_options(together: CampaignEvaluation, points: list[int], total: int) -
     if not (_could_take_a_part(owned_options) and _could_take_a_part(rented_options)):
         return []  # every owned or every rented option is ruled out whatever its share of the runs
     rows, count = 1 + 2 * len(points), len(points)
-    best: dict[str, OptionResult] = {}
-    for k, owned_count in enumerate(points):
+    # Per owned site, its cheapest split: (total, point, owned option, rented option), the total as the
+    # combined option sums it; only that one is then combined.
+    best: dict[str, tuple[float, int, OptionResult, OptionResult]] = {}
+    for k in range(count):
         owned_row, rented_row = 1 + k, 1 + count + k
         feasible_rented = [o for o in rented_options if bool(o.feasible[rented_row])]
         if not feasible_rented:
             continue
         cheapest = min(feasible_rented, key=lambda o: float(o.total[rented_row]))
-        rented = take_rows(cheapest, slice(rented_row, rented_row + 1), rows)
         for owned in owned_options:
             if not bool(owned.feasible[owned_row]):
                 continue
-            candidate = combine(take_rows(owned, slice(owned_row, owned_row + 1), rows), rented,
-                                owned_runs=owned_count, rented_runs=total - owned_count)
+            split_total = float(owned.total[owned_row] + cheapest.total[rented_row])
             key = owned.venue_id
-            if key not in best or float(candidate.total[0]) < float(best[key].total[0]):
-                best[key] = candidate
+            if key not in best or split_total < best[key][0]:
+                best[key] = (split_total, k, owned, cheapest)
     pure = {o.label: o for o in together.options}
-    return [s for s in best.values() if _worth_showing(s, pure)]
+    splits = (combine(take_rows(owned, slice(1 + k, 2 + k), rows),
+                      take_rows(rented, slice(1 + count + k, 2 + count + k), rows),
+                      owned_runs=points[k], rented_runs=total - points[k])
+              for _, k, owned, rented in best.values())
+    return [s for s in splits if _worth_showing(s, pure)]
 
 
 def _could_take_a_part(options: list[OptionResult]) -> bool:

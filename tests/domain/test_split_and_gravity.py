@@ -29,6 +29,7 @@ from numpy.testing import assert_allclose
 from service.contract.catalog import CatalogIn
 from service.contract.request import QuoteRequestIn
 from service.domain import screens, split
+from service.domain.arrays import take_rows
 from service.domain.campaign import Campaign, Overrides, QuoteOptions
 from service.domain.catalog import Catalog
 from service.domain.evaluate import CampaignEvaluation, OptionResult, evaluate_campaign
@@ -370,3 +371,47 @@ def test_split_points_evaluated_with_the_campaign_leave_its_options_as_it_alone_
             assert_allclose(part.total, reference.total, rtol=1e-9)
             assert_allclose(part.layout.wall_seconds, reference.layout.wall_seconds, rtol=1e-9)
             assert part.layout.nodes[0] == reference.layout.nodes[0]
+
+
+@pytest.mark.parametrize(("runs", "deadline_days"), [(4, 14.0), (12, 40.0), (12, 90.0)])
+def test_each_site_is_offered_its_cheapest_split_combined_from_the_parts_at_that_point(
+        runs: int, deadline_days: float) -> None:
+    """`split_options` compares the points by their parts' totals and combines only each site's
+    cheapest: the split it offers must be, to the bit, the cheapest of every point's split built
+    whole with `combine` (the site's chargeback at the owned share of the runs, the cheapest feasible
+    rented option at the rest), the first of equal totals, where it beats both its pure options. The
+    demo split campaign as it is (4 runs, 14 days: one owned run fits), and with 12 runs (eight
+    points) over 40 and 90 days, where several points are feasible on both sides and the best differ."""
+    catalog, campaign, options, overrides = demo_quote("campaign-split.json")
+    campaign = replace(campaign, runs=replace(campaign.runs, count=np.asarray(float(runs))),
+                       deadline_days=np.asarray(deadline_days))
+    points = split_points(runs)
+    owned_runs = np.array(points, dtype=np.float64)
+    counts = np.concatenate([[float(runs)], owned_runs, runs - owned_runs])
+    together = evaluate_campaign(catalog, split._part(campaign, counts, runs), options, overrides)
+    rows, count = counts.size, len(points)
+    built: dict[str, OptionResult] = {}
+    for k, owned_count in enumerate(points):
+        rented = [o for o in together.options
+                  if o.venue_kind == "rented" and bool(o.feasible[1 + count + k])]
+        if not rented:
+            continue
+        cheapest = min(rented, key=lambda o: float(o.total[1 + count + k]))
+        for owned in (o for o in together.options if o.term == "owned_chargeback"):
+            if not bool(owned.feasible[1 + k]):
+                continue
+            whole = split.combine(
+                take_rows(owned, slice(1 + k, 2 + k), rows),
+                take_rows(cheapest, slice(1 + count + k, 2 + count + k), rows),
+                owned_runs=owned_count, rented_runs=runs - owned_count)
+            if owned.venue_id not in built or float(whole.total[0]) < float(built[owned.venue_id].total[0]):
+                built[owned.venue_id] = whole
+    pure = {o.label: o for o in together.options}
+    shown = [whole for whole in built.values() if split._worth_showing(whole, pure)]
+    assert len(built) == 2 and len(shown) == 2  # both demo sites are offered a split
+    offered = split.split_options(together, points, runs)
+    assert [o.label for o in offered] == [whole.label for whole in shown]
+    for option, expected in zip(offered, shown, strict=True):
+        assert option.details["owned_runs"][0] == expected.details["owned_runs"][0]
+        assert float(option.total[0]) == float(expected.total[0])
+        assert [item for item in option.lines] == [item for item in expected.lines]
