@@ -10,6 +10,7 @@ from service.contract.request import QuoteRequestIn, TransformerWorkIn
 from service.domain import explain, screens
 from service.domain.arrays import scenario_value
 from service.domain.assumptions import DEFAULTS
+from service.domain.breakeven import ABOVE_FULL_USE, NO_MARGIN
 from service.domain.campaign import OwnedCostView
 from service.domain.catalog import Catalog
 from service.domain.choice import decided_by
@@ -74,8 +75,7 @@ def quote_document(catalog: Catalog, request: QuoteRequestIn, evaluation: Campai
         "options": options,
         "recommendation": None if not feasible else _recommendation(feasible, i, evaluation, catalog, request, costs),
         "next_steps": [] if feasible else explain.next_steps(ranked, i, campaign.deadline_days, catalog.currency),
-        "breakeven": [_breakeven(row, i, money, evaluation) for row in rows
-                      if not bool(scenario_value(row.figures.ruled_out, i))],
+        "breakeven": _breakeven_rows(rows, i, money, evaluation),
         "breakeven_left_out": [
             {"offer": o.venue_id, "term": o.term,
              "reasons": explain.reasons(o, i, catalog, campaign.data.allowed_jurisdictions, campaign.deadline_days)}
@@ -275,7 +275,21 @@ def _part(p: OptionResult, runs: float, i: int, money: Money) -> Json:
     }
 
 
-def _breakeven(row: BreakEvenRow, i: int, money: Money, evaluation: CampaignEvaluation) -> Json:
+def _breakeven_rows(rows: list[BreakEvenRow], i: int, money: Money, evaluation: CampaignEvaluation) -> list[Json]:
+    """The break-even rows of scenario i (none for a rented option it rules out), each site's payback
+    basis written once for all its rows."""
+    bases: dict[str, str] = {}
+    shown = []
+    for row in rows:
+        if bool(scenario_value(row.figures.ruled_out, i)):
+            continue
+        if row.site not in bases:
+            bases[row.site] = explain.payback_basis(evaluation.sites[row.site], i)
+        shown.append(_breakeven(row, i, money, evaluation, bases[row.site]))
+    return shown
+
+
+def _breakeven(row: BreakEvenRow, i: int, money: Money, evaluation: CampaignEvaluation, payback_basis: str) -> Json:
     f = row.figures
     paid = row.payback
 
@@ -284,13 +298,14 @@ def _breakeven(row: BreakEvenRow, i: int, money: Money, evaluation: CampaignEval
 
     reason = str(at(f.utilisation_reason))
     site = evaluation.sites[row.site]
-    words = {
-        "rent_below_owned_energy": "the rented price is below the owned busy-energy cost: owning never wins",
-        "needs_more_than_full_utilisation": (
-            f"owning would need {_number(at(f.utilisation_unbounded) * 100, 1)}% utilisation: "
-            "renting wins at any achievable use"),
-    }
-    payback = {} if paid is None else explain.payback_words(paid, i, site, money.currency)
+    if reason == NO_MARGIN:
+        words: str | None = "the rented price is below the owned busy-energy cost: owning never wins"
+    elif reason == ABOVE_FULL_USE:
+        words = (f"owning would need {_number(at(f.utilisation_unbounded) * 100, 1)}% utilisation: "
+                 "renting wins at any achievable use")
+    else:  # a break-even within reach ("") or a rented option ruled out (a row the quote leaves out)
+        words = None
+    payback = {} if paid is None else explain.payback_words(paid, i, site, payback_basis)
     return {
         "site": row.site,
         "offer": row.offer,
@@ -299,13 +314,13 @@ def _breakeven(row: BreakEvenRow, i: int, money: Money, evaluation: CampaignEval
         "rented_per_accelerator_hour": _number(at(row.rented_per_accelerator_hour), 4),
         "rented_listed_per_accelerator_hour": _number(at(row.rented_listed_per_accelerator_hour), 4),
         "conversion": _number(at(row.conversion), 6),
-        "conversion_basis": explain.conversion_words(row, i, evaluation, money.currency),
+        "conversion_basis": explain.conversion_words(row, i, money.currency),
         "owned_fixed_per_month": money(at(row.owned_fixed_per_month)),
         "owned_variable_per_accelerator_hour": _number(at(row.owned_variable_per_accelerator_hour), 4),
         "utilisation": _number(at(f.utilisation), 4),
         "accelerator_hours_per_year": _number(at(f.accelerator_hours_per_year), 0),
         "campaigns_per_year": _number(at(f.campaigns_per_year), 2),
-        "reason": words.get(reason) if reason else None,
+        "reason": words,
         **payback,
         "note": " ".join(filter(None, (
             "Rented price per unit of work: the listed price per accelerator-hour converted to the site's "

@@ -101,6 +101,8 @@ class BreakEvenRow:
     site: str
     offer: str
     term: str
+    owned: OptionResult  # the site's option whose speed converts the rented work (its chargeback, else its first)
+    rented: OptionResult
     rented_listed_per_accelerator_hour: Floats
     conversion: Floats  # rented accelerator-hours per owned accelerator-hour of work
     rented_per_accelerator_hour: Floats  # listed × conversion
@@ -182,7 +184,8 @@ def breakeven_rows(evaluation: CampaignEvaluation) -> list[BreakEvenRow]:
         paid_by = {f.name: getattr(paid, f.name) for f in fields(paid)}
         for r, option in enumerate(against.rented.options):
             rows.append(BreakEvenRow(
-                against.site_id, option.venue_id, option.term, against.rented.listed[r], against.conversion[r],
+                against.site_id, option.venue_id, option.term, against.reference, option, against.rented.listed[r],
+                against.conversion[r],
                 prices[r], site.node.total, site.variable_per_accelerator_hour,
                 BreakEven(**{name: values[r] for name, values in stacked.items()}),
                 Payback(**{name: values[r] for name, values in paid_by.items()})))

@@ -332,10 +332,9 @@ def _hinge(ranked: Sequence[OptionResult], i: int, evaluation: CampaignEvaluatio
             f"{_n(runner.per_accelerator_hour[i], 2)}")
 
 
-def conversion_words(row: BreakEvenRow, i: int, evaluation: CampaignEvaluation, currency: str) -> str:
+def conversion_words(row: BreakEvenRow, i: int, currency: str) -> str:
     """How a rented price became a price per unit of work on the site's accelerator."""
-    rented = next(o for o in evaluation.options if o.venue_id == row.offer and o.term == row.term)
-    owned = next(o for o in evaluation.options if o.venue_id == row.site)
+    rented, owned = row.rented, row.owned
     listed = _at(row.rented_listed_per_accelerator_hour, i)
     committed = (f" ({_at(rented.details['price_per_accelerator_hour'], i):.4g} at full use of the commitment, × "
                  f"{_at(rented.details['financing_factor'], i):.4f} up-front financing)"
@@ -352,28 +351,34 @@ def conversion_words(row: BreakEvenRow, i: int, evaluation: CampaignEvaluation, 
     return words + f" = {price:,.4f} {currency} per {row.site} accelerator-hour of work"
 
 
-def payback_words(paid: Payback, i: int, site: SiteFigures, currency: str) -> dict[str, object]:
-    """The payback fields of a break-even row: months, the reason where there are none, and the
-    stated demand it assumes."""
-    s = site.economics.site
+def payback_words(paid: Payback, i: int, site: SiteFigures, basis: str) -> dict[str, object]:
+    """The payback fields of a break-even row: months, the reason where there are none, the stated
+    demand it assumes, and `basis`, how the site's payback is reckoned (`payback_basis`)."""
     months = _at(paid.months, i)
     reason = str(np.asarray(paid.reason).reshape(-1)[i if np.size(paid.reason) > 1 else 0])
-    reasons = {
-        NO_SAVING: "none: the rent saved never covers the new nodes' running cost",
-        BEYOND_LIFE: (f"not within the {s.depreciation_months}-month depreciation life: the discounted saving "
-                      f"repays {_pct(_at(paid.recovered_fraction, i))} of the capex by then"),
-    }
+    if reason == NO_SAVING:
+        why: str | None = "none: the rent saved never covers the new nodes' running cost"
+    elif reason == BEYOND_LIFE:
+        why = (f"not within the {site.economics.site.depreciation_months}-month depreciation life: the discounted "
+               f"saving repays {_pct(_at(paid.recovered_fraction, i))} of the capex by then")
+    else:
+        why = None
     return {
         "payback_months": None if not np.isfinite(months) else round(months, 1),
-        "payback_reason": reasons.get(reason),
+        "payback_reason": why,
         "payback_demand_accelerator_hours_per_month": round(_at(paid.demand_hours_per_month, i), 0),
-        "payback_basis": (
-            f"the nodes a new build at {s.id} buys for this campaign, paid for now; each month they serve the "
+        "payback_basis": basis,
+    }
+
+
+def payback_basis(site: SiteFigures, i: int) -> str:
+    """How a site's payback is reckoned: the same words against every rented option."""
+    s = site.economics.site
+    return (f"the nodes a new build at {s.id} buys for this campaign, paid for now; each month they serve the "
             f"campaign's instances plus background work at the site's current utilisation of "
             f"{_pct(s.utilisation_current)} of their hours (at most all of them), which would otherwise be rented "
             f"at this price; saving = hours × (rented price − busy energy) − their running cost, discounted at "
-            f"{_pct(_at(site.economics.cost_of_capital_annual, i))} a year (monthly); no residual value counted"),
-    }
+            f"{_pct(_at(site.economics.cost_of_capital_annual, i))} a year (monthly); no residual value counted")
 
 
 def next_steps(options: Sequence[OptionResult], i: int, deadline_days: float | None,
