@@ -33,6 +33,7 @@ from service.domain.campaign import Overrides
 from service.domain.comparison import breakeven_rows, breakeven_utilisations, work_conversion
 from service.domain.evaluate import CampaignEvaluation, evaluate_campaign
 from service.domain.owning import chargeback_per_accelerator_hour
+from service.usecases.quoting import quote
 
 EXAMPLES = Path(__file__).resolve().parents[2] / "pricing_examples"
 
@@ -221,6 +222,25 @@ def test_every_reachable_break_even_of_a_quote_meets_its_rented_price():
         assert_allclose(c, row.rented_per_accelerator_hour, rtol=1e-9)
         checked += 1
     assert checked > 0
+
+
+def test_a_quotes_break_even_rows_say_why_owning_never_wins_and_share_their_sites_payback_basis():
+    """Rented capacity at a thousandth of its price: every rent is below the owned sites' busy energy, so
+    no utilisation makes owning win and the rent saved never covers new nodes' running cost; each row
+    says so, and every row of a site carries the same payback basis, naming that site."""
+    request = json.loads((EXAMPLES / "campaign-owned-wins.json").read_text("utf-8"))
+    request.setdefault("overrides", {})["rented_price_factor"] = 0.001
+    catalog = CatalogIn.model_validate(json.loads((EXAMPLES / "catalog.json").read_text("utf-8")))
+    rows = quote(catalog, QuoteRequestIn.model_validate(request))["breakeven"]
+    assert rows
+    for row in rows:
+        assert row["utilisation"] is None
+        assert row["reason"] == "the rented price is below the owned busy-energy cost: owning never wins"
+        assert row["payback_months"] is None
+        assert row["payback_reason"] == "none: the rent saved never covers the new nodes' running cost"
+        assert f"a new build at {row['site']} buys" in row["payback_basis"]
+    bases = {(row["site"], row["payback_basis"]) for row in rows}
+    assert len(bases) == len({row["site"] for row in rows}) == 2
 
 
 @settings(max_examples=25, deadline=None)
