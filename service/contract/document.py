@@ -15,7 +15,7 @@ from service.domain.campaign import OwnedCostView
 from service.domain.catalog import Catalog
 from service.domain.choice import decided_by
 from service.domain.comparison import CURVE_UTILISATIONS, BreakEvenRow, breakeven_rows, curves, rank
-from service.domain.evaluate import CampaignEvaluation, OptionResult
+from service.domain.evaluate import CampaignEvaluation, OptionResult, SiteFigures
 from service.domain.layout import LayoutGrid
 from service.domain.owning import cooling_tons
 from service.domain.programme import OptionCosts, cash_flow, npv, option_costs, view_lines
@@ -283,13 +283,14 @@ def _breakeven_rows(rows: list[BreakEvenRow], i: int, money: Money, evaluation: 
     for row in rows:
         if bool(scenario_value(row.figures.ruled_out, i)):
             continue
+        site = evaluation.sites[row.site]
         if row.site not in bases:
-            bases[row.site] = explain.payback_basis(evaluation.sites[row.site], i)
-        shown.append(_breakeven(row, i, money, evaluation, bases[row.site]))
+            bases[row.site] = explain.payback_basis(site, i)
+        shown.append(_breakeven(row, i, money, site, bases[row.site]))
     return shown
 
 
-def _breakeven(row: BreakEvenRow, i: int, money: Money, evaluation: CampaignEvaluation, payback_basis: str) -> Json:
+def _breakeven(row: BreakEvenRow, i: int, money: Money, site: SiteFigures, payback_basis: str) -> Json:
     f = row.figures
     paid = row.payback
 
@@ -297,7 +298,6 @@ def _breakeven(row: BreakEvenRow, i: int, money: Money, evaluation: CampaignEval
         return scenario_value(values, i)
 
     reason = str(at(f.utilisation_reason))
-    site = evaluation.sites[row.site]
     if reason == NO_MARGIN:
         words: str | None = "the rented price is below the owned busy-energy cost: owning never wins"
     elif reason == ABOVE_FULL_USE:
