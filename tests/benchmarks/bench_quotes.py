@@ -355,8 +355,9 @@ def verdicts(results: dict[int, list[Run]], clients: int) -> None:
         return
     quote = named(results[P99_TARGET_WORKERS], QUOTES)
     p99 = quote.percentile(99)
-    # Each client sends again only once answered, so the mean latency is clients / throughput (Little's law),
-    # and p99 is at least the mean: the p99 target is a throughput target in disguise.
+    # Each client sends again only once answered, so the mean latency is clients / throughput (Little's law,
+    # L = λW: J. D. C. Little, 1961, "A proof for the queuing formula: L = λW", Operations Research 9(3),
+    # 383-387), and p99 is at least the mean: the p99 target is a throughput target in disguise.
     print(f"{'PASS' if p99 < QUOTE_P99_TARGET_MS else 'MISS'} {target} {at_load} (measured {p99:.1f} ms; "
           f"the mean is {clients} clients / {quote.throughput:.1f} req/s = {1000 * clients / quote.throughput:.1f} ms, "
           f"and p99 can be under {QUOTE_P99_TARGET_MS:.0f} ms only above "
