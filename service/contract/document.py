@@ -51,9 +51,10 @@ def quote_document(catalog: Catalog, request: QuoteRequestIn, evaluation: Campai
     money = Money(catalog.currency)
     campaign = request.campaign
     view = request.options.owned_cost_view
-    order = rank(evaluation, i, request.options.rank_by, view)
+    costs = {id(o): option_costs(o, evaluation, view) for o in evaluation.options}
+    order = rank(evaluation, i, request.options.rank_by, view,
+                 programme=[costs[id(o)].programme for o in evaluation.options])
     ranked = [evaluation.options[k] for k in order]
-    costs = {id(o): option_costs(o, evaluation, view) for o in ranked}
     feasible = [o for o in ranked if bool(o.feasible[i])]
     options = [_option(o, position, i, catalog, evaluation, request, money, costs[id(o)])
                for position, o in enumerate(ranked)]

@@ -27,14 +27,7 @@ class BreakEven:
     accelerator_hours_per_year: Floats
     campaigns_per_year: Floats
     ruled_out: Bools  # the rented option failed a screen: it has no break-even row
-
-    # The reasons are words for people: sweeps never read them, so they are made on demand.
-    @property
-    def utilisation_reason(self) -> np.ndarray:
-        """A code where there is no break-even utilisation, "" where there is one."""
-        u = self.utilisation_unbounded
-        reason = np.where(np.isfinite(u), np.where(u <= 1.0, "", ABOVE_FULL_USE), NO_MARGIN)
-        return np.where(self.ruled_out, RULED_OUT, reason)
+    utilisation_reason: np.ndarray  # a code where there is no break-even utilisation, "" where there is one
 
 
 def breakeven_utilisation(
@@ -69,12 +62,15 @@ def break_even(
     out = np.asarray(ruled_out, dtype=bool)
     reachable = within_reach(u, out)
     hours = np.where(reachable, u * accelerators_per_node * as_floats(fleet_nodes) * HOURS_PER_YEAR, np.nan)
+    unbounded = np.where(out, np.nan, u)
+    reason = np.where(np.isfinite(unbounded), np.where(unbounded <= 1.0, "", ABOVE_FULL_USE), NO_MARGIN)
     return BreakEven(
         utilisation=np.where(reachable, u, np.nan),
-        utilisation_unbounded=np.where(out, np.nan, u),
+        utilisation_unbounded=unbounded,
         accelerator_hours_per_year=hours,
         campaigns_per_year=hours / as_floats(campaign_accelerator_hours),
         ruled_out=broadcast(out, np.shape(u)),
+        utilisation_reason=np.where(out, RULED_OUT, reason),
     )
 
 
@@ -86,10 +82,7 @@ class Payback:
     recovered_fraction: Floats  # the discounted saving within the life over the capex
     demand_hours_per_month: Floats  # the stated demand the new nodes serve, on average
     saving_never_positive: Bools
-
-    @property
-    def reason(self) -> np.ndarray:
-        return np.where(np.isfinite(self.months), "", np.where(self.saving_never_positive, NO_SAVING, BEYOND_LIFE))
+    reason: np.ndarray  # a code where there are no months, "" where there are
 
 
 def payback(
@@ -116,11 +109,13 @@ def payback(
     discounted = (saving * np.power(1.0 + as_floats(rate)[..., np.newaxis],
                                     -np.arange(1, saving.shape[-1] + 1))).sum(axis=-1)
     capex_array = as_floats(capex)
+    never = np.asarray((saving <= 0.0).all(axis=-1))
     return Payback(
         months=np.where(np.isfinite(months), months, np.nan),
         recovered_fraction=discounted / np.where(capex_array > 0.0, capex_array, 1.0),
         demand_hours_per_month=demand.mean(axis=-1),
-        saving_never_positive=np.asarray((saving <= 0.0).all(axis=-1)),
+        saving_never_positive=never,
+        reason=np.where(np.isfinite(months), "", np.where(never, NO_SAVING, BEYOND_LIFE)),
     )
 
 

@@ -1,7 +1,7 @@
 """Comparing options: ranking, break-even of every owned site against every rented price, and
 the chargeback curves (model.md §8-9). Vectorised over scenarios."""
 
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, fields
 from functools import cached_property
 
@@ -27,20 +27,21 @@ from service.domain.units import HOURS_PER_MONTH
 
 
 def ranking_keys(option: OptionResult, evaluation: CampaignEvaluation, rank_by: RankBy,
-                 view: OwnedCostView = "full") -> tuple[Floats, Floats, Floats]:
+                 view: OwnedCostView = "full", programme: Floats | None = None) -> tuple[Floats, Floats, Floats]:
     """Sort keys, most significant first: the programme's total cost in the chosen view of owned
     cost (one instance's for a one-off campaign), then wall clock, then carbon; `rank_by` brings
-    wall clock or carbon to the front. Unknown carbon sorts last."""
+    wall clock or carbon to the front. Unknown carbon sorts last. `programme` is the option's
+    `programme_total` in the view where the caller has it already."""
     order = [rank_by] + [k for k in ("cost", "wall_clock", "carbon") if k != rank_by]
-    first, second, third = (ranking_key(option, evaluation, key, view) for key in order)
+    first, second, third = (ranking_key(option, evaluation, key, view, programme) for key in order)
     return first, second, third
 
 
 def ranking_key(option: OptionResult, evaluation: CampaignEvaluation, key: RankBy,
-                view: OwnedCostView = "full") -> Floats:
+                view: OwnedCostView = "full", programme: Floats | None = None) -> Floats:
     """One of `ranking_keys`, made alone."""
     if key == "cost":
-        return programme_total(option, evaluation, view)
+        return programme_total(option, evaluation, view) if programme is None else programme
     if key == "wall_clock":
         return np.asarray(option.layout.wall_seconds, dtype=np.float64)
     return np.where(np.isnan(option.energy.kgco2e), np.inf, option.energy.kgco2e)
@@ -55,14 +56,16 @@ def cheapest(evaluation: CampaignEvaluation, rank_by: RankBy = "cost", view: Own
     return np.where(np.isfinite(firsts.min(axis=0)), best, -1).astype(np.int64)
 
 
-def rank(evaluation: CampaignEvaluation, i: int, rank_by: RankBy, view: OwnedCostView = "full") -> list[int]:
+def rank(evaluation: CampaignEvaluation, i: int, rank_by: RankBy, view: OwnedCostView = "full",
+         programme: Sequence[Floats] | None = None) -> list[int]:
     """Option indices in the order people should read them for scenario i: feasible ones by
-    the ranking keys, then the infeasible ones by cost."""
+    the ranking keys, then the infeasible ones by cost. `programme` holds each option's
+    `programme_total` in the view, in the evaluation's order, where the caller has them already."""
     options = evaluation.options
 
     def key(k: int) -> tuple[bool, float, float, float]:
-        first, second, third = (float(scenario_value(v, i))
-                                for v in ranking_keys(options[k], evaluation, rank_by, view))
+        first, second, third = (float(scenario_value(v, i)) for v in ranking_keys(
+            options[k], evaluation, rank_by, view, None if programme is None else programme[k]))
         return (not bool(options[k].feasible[i]), first, second, third)
     return sorted(range(len(options)), key=key)
 
