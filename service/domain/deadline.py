@@ -2,7 +2,8 @@
 TABLE_RUNGS geometric node counts per shape from the memory minimum to the node limit, the first that
 meets the deadline and the one below bracketing the answer, closed to neighbouring counts by false
 position on α/k + β alternating with halving (`close_brackets`). One table row serves every scenario
-when the step does not vary by scenario (`on_one_table`); one per distinct step when it varies over few
+when the step does not vary by scenario (`table_search`; `deadline_together` solves several venues' tables
+at once); one per distinct step when it varies over few
 values (`blocks_by_step`); else each scenario is searched on its own rungs (`own_step.fewest_meeting`).
 Each finds what a scenario quoted alone finds. `layout.py` asks for it among a venue's candidates.
 """
@@ -17,7 +18,7 @@ import numpy as np
 from service.domain import dominance
 from service.domain.arrays import Bools, Floats, Ints, take_rows
 from service.domain.gathered import GatheredGrid, gathered
-from service.domain.guesses import TABLE_RUNGS, guess_runs, interpolated
+from service.domain.guesses import TABLE_RUNGS, Runs, guess_runs, interpolated
 from service.domain.lockstep import Search, StepRequest, ask, drive
 from service.domain.parallelism import Shapes
 from service.domain.step import (
@@ -63,7 +64,7 @@ def _step_inputs(load: Load, hardware: Hardware) -> tuple[Floats, ...]:
     return tuple(value for value in inputs if value is not None)
 
 
-def on_one_table(load: Load, hardware: Hardware, found: Shapes, base: Columns, k_min: Floats, k_top: Floats,
+def table_search(load: Load, hardware: Hardware, found: Shapes, base: Columns, k_min: Floats, k_top: Floats,
                  deadline: Floats) -> Search[tuple[dict[str, Any], dict[str, Any], Ints, Ints, Ints]]:
     """Every scenario solved on one table of node counts, when the step does not vary by scenario:
     the base candidates' figures (one row, without the wall clock) and the deadline candidates'
@@ -77,14 +78,17 @@ def _tables(load: Load, hardware: Hardware, found: Shapes, base: Columns, k_min:
             k_top: Floats) -> Search[tuple[dict[str, Any], dict[str, Any], Floats]]:
     """The base candidates' figures and the deadline table's (each shape at its TABLE_RUNGS rungs),
     evaluated in one pass, one row per step (the rows of the load, the hardware and the bounds),
-    and the rungs (R, H, G)."""
+    and the rungs (R, H, G). Of the table, only what the search reads: `TABLE_FIGURES`."""
     rungs = table_rungs(k_min, k_top)
     table_columns = shape_columns(found, np.arange(found.count).repeat(TABLE_RUNGS),
                                   rungs.reshape(rungs.shape[0], -1), hardware.accelerators_per_node)
     both = yield from ask(StepRequest(load, hardware, side_by_side(base, table_columns), found))
     width = base.nodes.shape[1]
     return ({name: value[:, :width] for name, value in both.items()},
-            {name: value[:, width:] for name, value in both.items()}, rungs)
+            {name: both[name][:, width:] for name in TABLE_FIGURES}, rungs)
+
+
+TABLE_FIGURES = ("fits", "effective_step_seconds")  # what `_deadline_block` reads of the table
 
 
 def step_varies(load: Load, hardware: Hardware, k_min: Floats, k_top: Floats) -> bool:
@@ -97,8 +101,8 @@ def table_rungs(k_min: Floats, k_top: Floats) -> Floats:
     return np.asarray(np.ceil(k_min[..., np.newaxis] * (k_top / k_min)[..., np.newaxis] ** _RUNG_FRACTIONS - 1e-9))
 
 
-_AROUND = np.array([[-1.0], [0.0], [1.0]])  # the counts just below, at and above a guess
-_AROUND.setflags(write=False)
+AROUND = np.array([[-1.0], [0.0], [1.0]])  # the counts just below, at and above a guess
+AROUND.setflags(write=False)
 _RUNG_FRACTIONS = np.linspace(0.0, 1.0, TABLE_RUNGS)  # each rung's place from the minimum (0) to the top (1)
 _RUNG_FRACTIONS.setflags(write=False)
 
@@ -130,13 +134,24 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
     # distinct (shape, count) evaluated once.
     # (np.minimum and np.maximum are np.clip without its wrappers; and the counts, finite within their
     # shape's range, are sorted and made distinct as np.unique would, at a third of its cost.)
-    near = np.minimum(np.maximum(runs.count + _AROUND, k_min[0][runs.shape]), k_top[0][runs.shape])
+    near = np.minimum(np.maximum(runs.count + AROUND, k_min[0][runs.shape]), k_top[0][runs.shape])
     near_keys = runs.shape * TABLE_KEY + near  # (3, R)
     ordered = np.sort(near_keys, axis=None)
     around = ordered[np.concatenate([[True], ordered[1:] != ordered[:-1]])]
     exact_shape = (around // TABLE_KEY).astype(np.int64)
     exact_columns = shape_columns(found, exact_shape, around - exact_shape * TABLE_KEY, hardware.accelerators_per_node)
     exact = yield from ask(StepRequest(load, hardware, exact_columns, found))
+    return (*settle(load, hardware, found, rungs, g, afforded, valid, runs, near, around, exact), scenario_of)
+
+
+def settle(load: Load, hardware: Hardware, found: Shapes, rungs: Floats, g: Floats, afforded: Floats, valid: int,
+           runs: Runs, near: Floats, around: Floats, exact: dict[str, Any]) -> tuple[dict[str, Any], Ints, Ints]:
+    """The rest of `_deadline_block` once the counts `near` each run's guess (3, R) are evaluated: `exact`,
+    the figures of the distinct keys `around` (ascending). Each allowance takes the first of the three
+    that meets it, and a bracket the line left open is closed; returns the figures of every key
+    evaluated, the distinct rows of every shape's column among them and the row of each allowance."""
+    h, u = found.count, afforded.size
+    near_keys = runs.shape * TABLE_KEY + near
     g_exact = np.where(exact["fits"][0], exact["effective_step_seconds"][0], np.inf)
     where = around.searchsorted(near_keys)
     g_near = g_exact[where]  # (3, R)
@@ -172,7 +187,7 @@ def _deadline_block(load: Load, hardware: Hardware, found: Shapes, k_min: Floats
             afforded[position], *bracket)
         pieces = pieces.with_cells(shape_of, position, exact_counts.columns(shape_of * TABLE_KEY + fewest))
         exact = exact_counts.figures
-    return (exact, *pieces.distinct_rows(h, u), scenario_of)
+    return (exact, *pieces.distinct_rows(h, u))
 
 
 @dataclass(frozen=True)
@@ -198,7 +213,7 @@ class _Pieces:
         # cell (an empty piece starts where the next one does).
         key = self.shape * allowances + self.start
         if allowances == 1:  # one allowance (a quote): one row, read at position 0
-            at = _POSITION_ZERO
+            at = POSITION_ZERO
         else:
             edges = [self.start] + [part for shape, position, _ in self.cells for part in (position, position + 1)]
             at = np.unique(np.concatenate(edges))
@@ -207,14 +222,14 @@ class _Pieces:
         for shape, position, value in self.cells:
             table[shape, at.searchsorted(position)] = value
         if allowances == 1:
-            return table.T, _POSITION_ZERO
+            return table.T, POSITION_ZERO
         new = np.concatenate([[True], (table[:, 1:] != table[:, :-1]).any(axis=0)])
         firsts = at[new]
         return table[:, new].T, np.repeat(np.arange(firsts.size), np.diff(firsts, append=allowances))
 
 
-_POSITION_ZERO = np.zeros(1, dtype=np.int64)
-_POSITION_ZERO.setflags(write=False)
+POSITION_ZERO = np.zeros(1, dtype=np.int64)
+POSITION_ZERO.setflags(write=False)
 
 
 def allowances(load: Load, hardware: Hardware, deadline: Floats) -> tuple[Floats, Ints]:
@@ -343,7 +358,7 @@ def blocks_by_step(load: Load, hardware: Hardware, found: Shapes, groups: StepGr
                    k_min: Floats, k_top: Floats, deadline: Floats | None, *,
                    prune: bool = False) -> tuple[GatheredGrid, ...]:
     """The candidate blocks when the step varies by scenario but takes few distinct values: each
-    group of scenarios sharing a step is solved as a scenario alone is (`on_one_table`, or only the
+    group of scenarios sharing a step is solved as a scenario alone is (`table_search`, or only the
     base candidates without a deadline), and every scenario gathers its group's figures from the
     groups' rows laid side by side. The groups' base candidates and tables are evaluated in one
     pass, a row per group (its first scenario's step): `base`, `k_min` and `k_top` are given at the

@@ -19,11 +19,11 @@ from service.domain.arrays import ArrayLike, Floats, Ints, as_floats, every_row,
 from service.domain.deadline import (
     MAX_UNITS,
     blocks_by_step,
-    on_one_table,
     step_groups,
     step_varies,
     table_rungs,
 )
+from service.domain.deadline_together import on_one_table
 from service.domain.gathered import GatheredGrid, gathered
 from service.domain.lockstep import Search, StepRequest, ask, drive
 from service.domain.memory import minimum_data_parallel

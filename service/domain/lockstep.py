@@ -4,17 +4,19 @@ A quote searches each venue's layouts on its own (`layout.layout_search`), and e
 `step.step_figures` for a table of node counts, then for the exact counts near the deadline: a
 hundred-odd numpy calls each time, on arrays of a few hundred candidates, so that a quote's searches
 cost far more in calls than in arithmetic. Written as generators that yield what they need
-(`ask`), the searches run together (`together`): each round, every search's requests for the same
-load become one call over their candidates side by side, the hardware of each request spread over
-its own candidates (`evaluate_together`). Every figure is elementwise in the candidates, so each
-comes out as it would alone, bit for bit.
+(`ask`), the searches run together (`together`): each round, every search's questions of one kind are
+answered in one go (`Question.answer_together`). Step figures (`StepRequest`): the requests for the
+same load become one call over their candidates side by side, the hardware of each request spread over
+its own candidates. Every figure is elementwise in the candidates, so each comes out as it would
+alone, bit for bit. A question may be a larger part of a search (`deadline_together.TableRequest`: a
+venue's whole deadline table), answered for every venue at once.
 
-`drive` runs a search to its end, evaluating each round's requests together.
+`drive` runs a search to its end, answering each round's questions together.
 """
 
 from collections.abc import Generator, Sequence
 from dataclasses import dataclass, fields, replace
-from typing import Any, TypeVar
+from typing import Any, Generic, TypeVar
 
 import numpy as np
 
@@ -22,11 +24,25 @@ from service.domain.parallelism import Shapes
 from service.domain.step import Columns, Hardware, Load, side_by_side, step_figures
 
 T = TypeVar("T")
+A = TypeVar("A")
 Figures = dict[str, Any]
 
 
+class Question(Generic[A]):
+    """What a search may ask for: answered together with the other questions of its kind in a round,
+    each answer what the question alone would get."""
+
+    @classmethod
+    def answer_together(cls, questions: Sequence[Any]) -> list[A]:
+        raise NotImplementedError
+
+    def alone(self) -> A:
+        """The answer this question gets by itself: what `answer_together` must give it."""
+        raise NotImplementedError
+
+
 @dataclass(frozen=True)
-class StepRequest:
+class StepRequest(Question[Figures]):
     """`step_figures(load, hardware, columns, found)`, asked for by a search."""
 
     load: Load
@@ -34,23 +50,54 @@ class StepRequest:
     columns: Columns
     found: Shapes
 
+    @classmethod
+    def answer_together(cls, questions: Sequence[Any]) -> list[Figures]:
+        """Each request's step figures: the requests for one load whose hardware is one value for all
+        scenarios and whose candidates are one row, in one call over their candidates side by side;
+        any other alone."""
+        requests: Sequence[StepRequest] = questions
+        out: dict[int, Figures] = {}
+        groups: dict[tuple[int, tuple[int, ...]], list[int]] = {}
+        for index, request in enumerate(requests):
+            if joinable(request.columns, request.hardware):
+                groups.setdefault((id(request.load), request.found.zero_stages), []).append(index)
+            else:
+                out[index] = request.alone()
+        for members in groups.values():
+            if len(members) == 1:
+                out[members[0]] = requests[members[0]].alone()
+                continue
+            joined = [requests[index] for index in members]
+            # A step reads of the shapes only their ZeRO stages, which the group shares.
+            figures = step_figures(joined[0].load, per_candidate([request.hardware for request in joined],
+                                                                 [_width(request.columns) for request in joined]),
+                                   side_by_side(*(request.columns for request in joined)), joined[0].found)
+            for index, part in zip(members, split_columns(figures, [_width(request.columns) for request in joined]),
+                                   strict=True):
+                out[index] = part
+        return [out[index] for index in range(len(requests))]
 
-Search = Generator[list[StepRequest], list[Figures], T]
+    def alone(self) -> Figures:
+        return step_figures(self.load, self.hardware, self.columns, self.found)
 
 
-def ask(request: StepRequest) -> Generator[list[StepRequest], list[Figures], Figures]:
-    """`figures = yield from ask(request)`: one request's figures, within a search."""
-    figures = yield [request]
-    return figures[0]
+Search = Generator[list[Question[Any]], list[Any], T]
+
+
+def ask(question: Question[A]) -> Generator[list[Question[Any]], list[Any], A]:
+    """`answer = yield from ask(question)`: one question's answer, within a search."""
+    answers = yield [question]
+    answer: A = answers[0]
+    return answer
 
 
 def together(searches: Sequence[Search[Any]]) -> Search[list[Any]]:
     """The searches as one: each round asks what every unfinished search asks, in order; its result
     is every search's result, in order."""
     results: list[Any] = [None] * len(searches)
-    asking: dict[int, list[StepRequest]] = {}
+    asking: dict[int, list[Question[Any]]] = {}
 
-    def advance(index: int, reply: list[Figures] | None) -> None:
+    def advance(index: int, reply: list[Any] | None) -> None:
         try:
             asking[index] = searches[index].send(reply)  # type: ignore[arg-type]
         except StopIteration as finished:
@@ -71,8 +118,8 @@ def together(searches: Sequence[Search[Any]]) -> Search[list[Any]]:
 
 
 def drive(search: Search[T]) -> T:
-    """Run a search to its end, each round's requests evaluated together."""
-    reply: list[Figures] | None = None
+    """Run a search to its end, each round's questions answered together."""
+    reply: list[Any] | None = None
     while True:
         try:
             requests = search.send(reply)  # type: ignore[arg-type]
@@ -81,42 +128,30 @@ def drive(search: Search[T]) -> T:
         reply = evaluate_together(requests)
 
 
-def evaluate_together(requests: Sequence[StepRequest]) -> list[Figures]:
-    """Each request's step figures: the requests for one load whose hardware is one value for all
-    scenarios and whose candidates are one row, in one call over their candidates side by side;
-    any other alone."""
-    out: dict[int, Figures] = {}
-    groups: dict[tuple[int, tuple[int, ...]], list[int]] = {}
-    for index, request in enumerate(requests):
-        if _joinable(request):
-            groups.setdefault((id(request.load), request.found.zero_stages), []).append(index)
-        else:
-            out[index] = _alone(request)
-    for members in groups.values():
-        if len(members) == 1:
-            out[members[0]] = _alone(requests[members[0]])
-            continue
-        joined = [requests[index] for index in members]
-        # A step reads of the shapes only their ZeRO stages, which the group shares.
-        columns = side_by_side(*(request.columns for request in joined))
-        figures = step_figures(joined[0].load, _per_candidate(joined), columns, joined[0].found)
-        end = 0
-        for index, request in zip(members, joined, strict=True):
-            start, end = end, end + np.shape(request.columns.nodes)[1]
-            out[index] = {name: value[:, start:end] for name, value in figures.items()}
-    return [out[index] for index in range(len(requests))]
+def evaluate_together(questions: Sequence[Question[Any]]) -> list[Any]:
+    """Each question's answer, the questions of each kind answered together, in the order asked."""
+    kinds: dict[type[Question[Any]], list[int]] = {}
+    for index, question in enumerate(questions):
+        kinds.setdefault(type(question), []).append(index)
+    out: list[Any] = [None] * len(questions)
+    for kind, members in kinds.items():
+        answers = kind.answer_together([questions[index] for index in members])
+        for index, answer in zip(members, answers, strict=True):
+            out[index] = answer
+    return out
 
 
-def _alone(request: StepRequest) -> Figures:
-    return step_figures(request.load, request.hardware, request.columns, request.found)
+def _width(columns: Columns) -> int:
+    return int(np.shape(columns.nodes)[1])
 
 
-def _joinable(request: StepRequest) -> bool:
-    """Whether the request's step figures can share a call: candidates one row, and every figure of
-    the hardware the step reads one value (staging, never read by a step, may vary)."""
-    columns, hardware = vars(request.columns), vars(request.hardware)
-    return (all(np.shape(columns[name])[0] == 1 for name in COLUMNS)
-            and all(isinstance(hardware[name], float | int) or np.size(hardware[name]) == 1 for name in STEP_HARDWARE))
+def joinable(columns: Columns, hardware: Hardware) -> bool:
+    """Whether step figures of these candidates on this hardware can share a call: candidates one row,
+    and every figure of the hardware the step reads one value (staging, never read by a step, may vary)."""
+    of_columns, of_hardware = vars(columns), vars(hardware)
+    return (all(np.shape(of_columns[name])[0] == 1 for name in COLUMNS)
+            and all(isinstance(of_hardware[name], float | int) or np.size(of_hardware[name]) == 1
+                    for name in STEP_HARDWARE))
 
 
 # The hardware a step reads: everything but the staging time; and what candidate columns are made of.
@@ -124,13 +159,24 @@ STEP_HARDWARE = tuple(f.name for f in fields(Hardware) if f.name != "staging_sec
 COLUMNS = tuple(f.name for f in fields(Columns))
 
 
-def _per_candidate(requests: Sequence[StepRequest]) -> Hardware:
-    """The requests' hardware as one, each figure the step reads spread over each request's
+def per_candidate(hardware: Sequence[Hardware], widths: Sequence[int]) -> Hardware:
+    """Several venues' hardware as one, each figure the step reads spread over each one's `widths`
     candidates, (1, K) side by side; staging, which a step never reads, NaN so that any use shows."""
-    widths = [np.shape(request.columns.nodes)[1] for request in requests]
+    values = np.array([[_one_value(getattr(each, name)) for name in STEP_HARDWARE] for each in hardware])
+    spread = np.ascontiguousarray(values.repeat(widths, axis=0).T)  # (figures, K)
+    spread_figures: dict[str, Any] = {name: spread[j][np.newaxis, :] for j, name in enumerate(STEP_HARDWARE)}
+    return replace(hardware[0], **spread_figures, staging_seconds=np.full((1, 1), np.nan))
 
-    def spread(name: str) -> Any:
-        values = [np.asarray(getattr(request.hardware, name), dtype=np.float64).reshape(-1)[0] for request in requests]
-        return np.array(values).repeat(widths)[np.newaxis, :]
-    per_candidate: dict[str, Any] = {name: spread(name) for name in STEP_HARDWARE}
-    return replace(requests[0].hardware, **per_candidate, staging_seconds=np.full((1, 1), np.nan))
+
+def _one_value(value: Any) -> Any:
+    """A hardware figure that is one value (`joinable`), as that value."""
+    return value if isinstance(value, float | int) else np.asarray(value, dtype=np.float64).reshape(-1)[0]
+
+
+def split_columns(figures: Figures, widths: Sequence[int]) -> list[Figures]:
+    """Figures of candidates side by side, cut back into blocks of `widths` columns, in order."""
+    parts, end = [], 0
+    for width in widths:
+        start, end = end, end + width
+        parts.append({name: value[:, start:end] for name, value in figures.items()})
+    return parts

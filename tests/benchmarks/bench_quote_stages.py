@@ -136,13 +136,14 @@ def answer_in_stages(body: dict[str, Any], content_hash: str, laps: Laps) -> byt
 class SearchTally:
     """CPU seconds spent in the layout search while it is installed in `service.domain`: each venue's
     search (`layout_search`: its candidate layouts, their step, failures and deadline search), timed
-    at each resumption, and the step figures the searches ask for, which `lockstep.drive` evaluates
-    together (`evaluate_together`) between resumptions."""
+    at each resumption, and what the searches ask for (step figures, whole deadline tables), which
+    `lockstep.drive` answers together (`evaluate_together`) between resumptions."""
 
     def __init__(self) -> None:
         self.seconds = 0.0
         self._search = layout_search
         self._together = evaluate_together
+        self._depth = 0  # a question answered alone asks its own (deadline_together): timed once, outermost
 
     def _timed_search(self, *args: Any, **kwargs: Any) -> Any:
         search, reply = self._search(*args, **kwargs), None
@@ -158,10 +159,13 @@ class SearchTally:
 
     def _timed_together(self, *args: Any, **kwargs: Any) -> Any:
         began = time.process_time()
+        self._depth += 1
         try:
             return self._together(*args, **kwargs)
         finally:
-            self.seconds += time.process_time() - began
+            self._depth -= 1
+            if self._depth == 0:
+                self.seconds += time.process_time() - began
 
     def __enter__(self) -> "SearchTally":
         vars(evaluate_module)["layout_search"] = self._timed_search  # the names evaluate.py and drive call

@@ -23,13 +23,16 @@ TERMS = ("owned_chargeback", "owned_new_build", "on_demand", "committed", "inter
 
 
 def recorded_rounds(seed: int, monkeypatch: pytest.MonkeyPatch) -> list[list[StepRequest]]:
-    """The requests of every round of one random quote's searches (one scenario)."""
+    """The requests of every round of one random quote's searches (one scenario), without a deadline, so
+    that each venue asks for its candidates' step figures (with one, for its deadline table whole:
+    test_deadline_together.py)."""
     rng = np.random.default_rng(5100 + seed)
     catalog = random_catalog(rng)
-    campaign, overrides = random_campaign(rng, SCENARIOS, vary_step=False)
+    campaign, overrides = random_campaign(rng, SCENARIOS, vary_step=False, with_deadline=False)
     rounds: list[list[StepRequest]] = []
 
     def recording(requests: list[StepRequest]) -> list[dict[str, Any]]:
+        assert all(isinstance(request, StepRequest) for request in requests)
         rounds.append(list(requests))
         return evaluate_together(requests)
     monkeypatch.setattr(lockstep, "evaluate_together", recording)
@@ -105,8 +108,9 @@ def test_an_evaluation_is_identical_with_its_searches_run_together_or_each_step_
     """Whole evaluations of random catalogs (every term), one scenario (a quote) and many (a sweep's
     chunk; the step varying by scenario for odd seeds), with and without a deadline, for work given as
     a transformer, as FLOPs (a run one step) or as a measured throughput, and with a pinned count of
-    accelerators: every figure of every option identical whether each round's step figures are
-    evaluated together or each request alone (as before the searches ran together)."""
+    accelerators: every figure of every option identical whether each round's questions are answered
+    together or each alone (step figures one request at a time, each deadline table searched step by
+    step: as before the searches ran together)."""
     rng = np.random.default_rng(5300 + seed)
     catalog = random_catalog(rng)
     campaign, overrides = random_campaign(rng, SCENARIOS, vary_step=seed % 2 == 1, with_deadline=seed % 4 != 2,
@@ -130,8 +134,7 @@ def test_an_evaluation_is_identical_with_its_searches_run_together_or_each_step_
     monkeypatch.setattr(lockstep, "evaluate_together", counted)
     ours = evaluated()
     assert kind == "pinned" or max(rounds) >= 2  # a quote's venues asked together (a pinned count asks nothing)
-    monkeypatch.setattr(lockstep, "evaluate_together",
-                        lambda requests: [step_figures(r.load, r.hardware, r.columns, r.found) for r in requests])
+    monkeypatch.setattr(lockstep, "evaluate_together", lambda questions: [question.alone() for question in questions])
     reference = evaluated()
     assert_identical(ours, reference, "evaluation")
     assert any(np.isfinite(option.total).any() for option in reference[0].options)
