@@ -1,16 +1,17 @@
-"""Every venue's deadline table solved at once, where each has one allowance (model.md §5).
+"""Every venue's deadline table solved at once, where each has few allowances (model.md §5).
 
 `deadline.table_search` solves one venue's table: a hundred-odd numpy calls on a handful of shapes,
 made again for each venue (and for an interruptible term, which searches on its own), so that a quote
-spends more on the calls than on the arithmetic. Where a venue's deadline table has one allowance
-(a quote; a sweep whose deadline and staging are one value) and its step one value for all its
+spends more on the calls than on the arithmetic. Where a venue's deadline table has few allowances (a
+quote has one; a split quote one per part and split point) and its step one value for all its
 candidates, the whole table is asked for (`TableRequest`), and the tables of every venue asking in a
 round are solved as one (`solve_tables`): their shapes laid side by side, the table and then the
-exact counts around each shape's guess evaluated in one step call each, and each shape's guess and
-choice made elementwise. Each venue gets what `table_search` gives it alone, bit for bit (every figure
-is elementwise in the shapes and candidates; `test_deadline_together.py` holds them to it); a venue
-with a shape whose guess misses by more than a count, a bracket that `table_search` closes by false
-position, is settled from there by `table_search`'s own `deadline.settle`.
+exact counts around each guess evaluated in one step call each, and each (shape, allowance) cell's
+guess and choice made elementwise. Each venue gets what `table_search` gives it alone, bit for bit
+(every figure is elementwise in the shapes and candidates, and a cell's guess is its run's:
+`test_deadline_together.py` holds them to it); a venue with a cell whose guess misses by more than a
+count, a bracket that `table_search` closes by false position, is settled from there by
+`table_search`'s own `deadline.settle`, a run per cell.
 """
 
 from collections.abc import Sequence
@@ -35,6 +36,10 @@ from service.domain.lockstep import Figures, Question, Search, ask, drive, joina
 from service.domain.parallelism import Shapes
 from service.domain.step import DEADLINE, Columns, Hardware, Load, side_by_side, step_figures
 
+ALLOWANCES_TOGETHER = 64  # distinct allowances up to which a table is solved cell by cell with the others'
+# (a split quote has one per part and split point, 17); beyond, `guess_runs` cuts them into runs of one
+# guess, each evaluated once, and the table is searched step by step
+
 # What `table_search` returns: the base candidates' figures, the exact counts' figures, the distinct rows
 # of every shape's column among them, the row of each distinct allowance and each scenario's allowance.
 TableAnswer = tuple[Figures, Figures, Ints, Ints, Ints]
@@ -42,9 +47,10 @@ TableAnswer = tuple[Figures, Figures, Ints, Ints, Ints]
 
 def on_one_table(load: Load, hardware: Hardware, found: Shapes, base: Columns, k_min: Floats, k_top: Floats,
                  deadline: Floats) -> Search[TableAnswer]:
-    """`deadline.table_search`, asked for whole where the table has one allowance and one step for its
-    candidates (solved with the other venues' by `solve_tables`), else searched step by step."""
-    if (allowances(load, hardware, deadline)[0].size == 1 and joinable(base, hardware)
+    """`deadline.table_search`, asked for whole where the table has at most ALLOWANCES_TOGETHER allowances
+    and one step for its candidates (solved with the other venues' by `solve_tables`), else searched
+    step by step."""
+    if (allowances(load, hardware, deadline)[0].size <= ALLOWANCES_TOGETHER and joinable(base, hardware)
             and np.shape(k_min)[0] == np.shape(k_top)[0] == 1):
         return (yield from ask(TableRequest(load, hardware, found, base, k_min, k_top, deadline)))
     return (yield from table_search(load, hardware, found, base, k_min, k_top, deadline))
@@ -111,24 +117,30 @@ def solve_tables(requests: Sequence[TableRequest]) -> list[TableAnswer]:
     fits, effective = (figures[name][:, sum(base_widths):] for name in TABLE_FIGURES)
     g = np.where(fits & ~np.isnan(effective), effective, np.inf).reshape(-1, TABLE_RUNGS)
 
-    # Each shape's guess at its allowance (`guesses.guess_runs` where there is one allowance): the memory
-    # minimum where its rung meets it, the top where no rung does (or the allowance is NaN), else where
-    # the line through the first rung meeting it and the one below reaches it.
+    # Each shape's guess at each of its venue's allowances, a cell each (`guesses.guess_runs`, cell by cell:
+    # a run of its is cells of one guess): the memory minimum where its first rung meets the allowance,
+    # the top where no rung does (or the allowance is NaN), else where the line through the first rung
+    # meeting it and the one below reaches it.
     found_allowances = [allowances(request.load, request.hardware, request.deadline) for request in requests]
-    allowance = np.repeat([float(afforded[0]) for afforded, _ in found_allowances], counts)
+    sizes = [afforded.size for afforded, _ in found_allowances]
+    cell_offsets = np.concatenate([[0], np.cumsum(np.multiply(counts, sizes))])
+    shape = np.concatenate([np.arange(offsets[index], offsets[index + 1]).repeat(size)
+                            for index, size in enumerate(sizes)])  # each cell's shape, shape by shape
+    position = np.concatenate([np.tile(np.arange(size), count) for count, size in zip(counts, sizes, strict=True)])
+    allowance = np.concatenate([np.tile(afforded, count) for count, (afforded, _) in zip(counts, found_allowances,
+                                                                                          strict=True)])
     valid = ~np.isnan(allowance)
-    missed = np.count_nonzero(np.minimum.accumulate(g, axis=1) > allowance[:, np.newaxis], axis=1)
+    missed = np.count_nonzero(np.minimum.accumulate(g, axis=1)[shape] > allowance[:, np.newaxis], axis=1)
     state = np.where(valid, missed, TABLE_RUNGS)  # the first rung meeting the allowance; TABLE_RUNGS: none
-    shapes = np.arange(offsets[-1])
     at = np.minimum(state, TABLE_RUNGS - 1)
     below = np.maximum(at - 1, 0)
-    fixed = np.where(state == 0, rungs[:, 0], np.where(state == TABLE_RUNGS, rungs[:, -1], np.nan))
-    guess = np.where(np.isnan(fixed), interpolated(rungs[shapes, below], g[shapes, below], rungs[shapes, at],
-                                                   g[shapes, at], allowance), fixed)
+    fixed = np.where(state == 0, rungs[shape, 0], np.where(state == TABLE_RUNGS, rungs[shape, -1], np.nan))
+    guess = np.where(np.isnan(fixed), interpolated(rungs[shape, below], g[shape, below], rungs[shape, at],
+                                                   g[shape, at], allowance), fixed)
 
     # The counts just below, at and above each guess, within the shape's range, each evaluated once.
-    near = np.minimum(np.maximum(guess + AROUND, k_min[0]), k_top[0])  # (3, H)
-    near_keys = shapes * TABLE_KEY + near
+    near = np.minimum(np.maximum(guess + AROUND, k_min[0][shape]), k_top[0][shape])  # (3, cells)
+    near_keys = shape * TABLE_KEY + near
     ordered = np.sort(near_keys, axis=None)
     around = ordered[np.concatenate([[True], ordered[1:] != ordered[:-1]])]
     exact_shape = (around // TABLE_KEY).astype(np.int64)
@@ -137,7 +149,7 @@ def solve_tables(requests: Sequence[TableRequest]) -> list[TableAnswer]:
                          columns(exact_shape, around - exact_shape * TABLE_KEY), found)
     where = around.searchsorted(near_keys)
     g_near = np.where(exact["fits"][0], exact["effective_step_seconds"][0], np.inf)[where]
-    meets = valid & (g_near <= allowance)  # (3, H): below, at and above the guess
+    meets = valid & (g_near <= allowance)  # (3, cells): below, at and above the guess
     # The first of the three that meets the allowance, else the one above; where the count below meets
     # or none does, with the first meeting rung interior, `table_search` closes a bracket between them.
     column = np.where(meets[0], where[0], np.where(meets[1], where[1], where[2]))
@@ -146,20 +158,29 @@ def solve_tables(requests: Sequence[TableRequest]) -> list[TableAnswer]:
 
     answers: list[TableAnswer] = []
     for index, request in enumerate(requests):
-        start, end = offsets[index], offsets[index + 1]
+        cells = slice(cell_offsets[index], cell_offsets[index + 1])
         first, last = edges[index], edges[index + 1]
         own_exact = {name: value[:, first:last] for name, value in exact.items()}
         afforded, scenario_of = found_allowances[index]
-        if not bracketed[start:end].any():
-            answers.append((firsts[index], own_exact, (column[start:end] - first)[np.newaxis, :], POSITION_ZERO,
+        count, size = counts[index], sizes[index]
+        if not bracketed[cells].any():
+            answers.append((firsts[index], own_exact, *_distinct_rows((column[cells] - first).reshape(count, size)),
                             scenario_of))
             continue
-        # As `table_search` settles it from here: its runs (one per shape), keys and exact figures.
-        count = end - start
-        runs = Runs(np.arange(count), state[start:end], np.zeros(count, dtype=np.int64),
-                    np.ones(count, dtype=np.int64), guess[start:end])
+        # As `table_search` settles it from here, a run per cell: its runs, keys and exact figures.
+        runs = Runs(np.arange(count).repeat(size), state[cells], position[cells], position[cells] + 1, guess[cells])
         answers.append((firsts[index], *settle(
-            request.load, request.hardware, request.found, rungs[start:end], g[start:end], afforded,
-            int(valid[start]), runs, near[:, start:end], around[first:last] - start * TABLE_KEY, own_exact),
-            scenario_of))
+            request.load, request.hardware, request.found, rungs[offsets[index]:offsets[index + 1]],
+            g[offsets[index]:offsets[index + 1]], afforded, size - int(np.count_nonzero(np.isnan(afforded))), runs,
+            near[:, cells], around[first:last] - offsets[index] * TABLE_KEY, own_exact), scenario_of))
     return answers
+
+
+def _distinct_rows(table: Ints) -> tuple[Ints, Ints]:
+    """`deadline._Pieces.distinct_rows` of each shape's column at every allowance, (H, U): the distinct
+    rows, one per run of allowances whose columns are all the same, and the row of each allowance."""
+    if table.shape[1] == 1:
+        return table.T, POSITION_ZERO
+    new = np.concatenate([[True], (table[:, 1:] != table[:, :-1]).any(axis=0)])
+    firsts = np.flatnonzero(new)
+    return table[:, new].T, np.repeat(np.arange(firsts.size), np.diff(firsts, append=table.shape[1]))

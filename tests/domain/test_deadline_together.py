@@ -21,11 +21,15 @@ TERMS = ("owned_chargeback", "owned_new_build", "on_demand", "committed", "inter
 KINDS = ("transformer", "flops", "measured")
 
 
-def asked_tables(seed: int, kind: str, monkeypatch: pytest.MonkeyPatch) -> list[TableRequest]:
-    """The table requests of one random quote (one scenario, with a deadline)."""
+def asked_tables(seed: int, kind: str, monkeypatch: pytest.MonkeyPatch, *, scenarios: int = 1) -> list[TableRequest]:
+    """The table requests of one random quote (one scenario, with a deadline; one allowance per venue),
+    or of an evaluation of its `SCENARIOS` scenarios (their tokens and deadlines vary, so each venue has
+    up to as many allowances)."""
     rng = np.random.default_rng(7100 + seed)
     catalog = random_catalog(rng)
     campaign, overrides = random_campaign(rng, SCENARIOS, vary_step=False, kind=kind, with_parameters=seed % 3 != 2)
+    if scenarios == 1:
+        campaign, overrides = one(campaign, 0), one(overrides, 0)
     asked: list[TableRequest] = []
 
     def recording(questions: list[Any]) -> list[Any]:
@@ -33,7 +37,7 @@ def asked_tables(seed: int, kind: str, monkeypatch: pytest.MonkeyPatch) -> list[
         return evaluate_together(questions)
     monkeypatch.setattr(lockstep, "evaluate_together", recording)
     with np.errstate(all="ignore"):
-        evaluate_campaign(catalog, one(campaign, 0), QuoteOptions(terms=TERMS), one(overrides, 0))
+        evaluate_campaign(catalog, campaign, QuoteOptions(terms=TERMS), overrides)
     monkeypatch.undo()
     return asked
 
@@ -48,15 +52,23 @@ def assert_same_answer(ours: TableAnswer, alone: TableAnswer) -> None:
             np.testing.assert_array_equal(got, expected, err_msg=f"part {part}", strict=True)
 
 
-@pytest.mark.parametrize("kind", KINDS)
+# Work given as FLOPs or samples, without tokens, makes a run one step, whose work varies by scenario in these
+# campaigns: a step that varies by scenario has no one table. Their quotes have one.
+CASES = [(kind, 1) for kind in KINDS] + [("transformer", SCENARIOS)]
+
+
+@pytest.mark.parametrize(("kind", "scenarios"), CASES)
 @pytest.mark.parametrize("seed", range(8))
 def test_tables_solved_together_give_each_venue_what_it_finds_alone(
-        seed: int, kind: str, monkeypatch: pytest.MonkeyPatch) -> None:
-    """Every venue's table of a random quote (each venue and each interruptible term: several shapes
-    each), solved together and each alone: the base candidates' figures, the exact counts' figures, each
-    shape's chosen column, the allowance rows identical in value, dtype and shape."""
-    requests = asked_tables(seed, kind, monkeypatch)
+        seed: int, kind: str, scenarios: int, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Every venue's table of a random quote, and of a random evaluation of many scenarios (each venue and
+    each interruptible term: several shapes each, one or several allowances), solved together and each
+    alone: the base candidates' figures, the exact counts' figures, the distinct rows of each shape's
+    chosen column, the row of each allowance and each scenario's allowance identical in value, dtype and
+    shape."""
+    requests = asked_tables(seed, kind, monkeypatch, scenarios=scenarios)
     assert len(requests) >= 5  # two sites, three offers and their interruptible terms
+    assert scenarios == 1 or max(request.alone()[3].size for request in requests) > 1  # several allowances
     with np.errstate(all="ignore"):
         together = TableRequest.answer_together(requests)
         for request, answer in zip(requests, together, strict=True):
@@ -69,7 +81,8 @@ def test_both_ways_of_settling_a_table_are_taken_and_requests_of_several_loads_k
     more than a count: a bracket to close) by `deadline.settle`, as `table_search` settles them (each
     answer held to what it gets alone above); and requests of two quotes asked in one round are solved
     each with its own quote's, each answer still what it gets alone."""
-    requests = [asked_tables(seed, kind, monkeypatch) for seed in range(8) for kind in KINDS]
+    requests = [asked_tables(seed, kind, monkeypatch, scenarios=scenarios) for seed in range(8)
+                for kind, scenarios in CASES]
     settled: list[int] = []
     settle = deadline_together.settle
     monkeypatch.setattr(deadline_together, "settle", lambda *args: settled.append(1) or settle(*args))
