@@ -68,13 +68,11 @@ class StepRequest(Question[Figures]):
                 out[members[0]] = requests[members[0]].alone()
                 continue
             joined = [requests[index] for index in members]
+            widths = [_width(request.columns) for request in joined]
             # A step reads of the shapes only their ZeRO stages, which the group shares.
-            figures = step_figures(joined[0].load, per_candidate([request.hardware for request in joined],
-                                                                 [_width(request.columns) for request in joined]),
+            figures = step_figures(joined[0].load, per_candidate([request.hardware for request in joined], widths),
                                    side_by_side(*(request.columns for request in joined)), joined[0].found)
-            for index, part in zip(members, split_columns(figures, [_width(request.columns) for request in joined]),
-                                   strict=True):
-                out[index] = part
+            out.update(zip(members, split_columns(figures, widths), strict=True))
         return [out[index] for index in range(len(requests))]
 
     def alone(self) -> Figures:
