@@ -10,7 +10,7 @@ from typing import Any
 import numpy as np
 import pytest
 
-from service.domain import deadline_together, lockstep
+from service.domain import deadline, deadline_together, lockstep
 from service.domain.campaign import QuoteOptions
 from service.domain.deadline_together import TableAnswer, TableRequest
 from service.domain.evaluate import evaluate_campaign
@@ -101,3 +101,26 @@ def test_both_ways_of_settling_a_table_are_taken_and_requests_of_several_loads_k
         for request, answer in zip(mixed, answers, strict=True):
             assert_same_answer(answer, request.alone())
     assert sorted(groups) == sorted([len(requests[0]), len(requests[1])])
+
+
+def test_unknown_allowances_are_solved_as_table_search_solves_them(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Allowances that are NaN (a deadline or staging unknown for some scenarios: NaN sorts last) take the
+    top of each shape and meet nothing, alone or together: the tables of random quotes and evaluations
+    with their largest allowances made unknown are solved as each venue's `table_search` solves them."""
+    requests = [asked_tables(seed, kind, monkeypatch, scenarios=scenarios) for seed in range(4)
+                for kind, scenarios in CASES]
+    known = deadline.allowances
+
+    def unknown_at_the_top(*args: Any) -> tuple[np.ndarray, np.ndarray]:
+        afforded, scenario_of = known(*args)
+        afforded = afforded.copy()
+        unknown = 1 if afforded.size < 3 else 2  # the largest one or two; some known where there are several
+        afforded[afforded.size - unknown:] = np.nan
+        return afforded, scenario_of
+    monkeypatch.setattr(deadline, "allowances", unknown_at_the_top)
+    monkeypatch.setattr(deadline_together, "allowances", unknown_at_the_top)
+    with np.errstate(all="ignore"):
+        for asked in requests:
+            for request, answer in zip(asked, TableRequest.answer_together(asked), strict=True):
+                assert np.isnan(deadline.allowances(request.load, request.hardware, request.deadline)[0][-1])
+                assert_same_answer(answer, request.alone())
