@@ -223,9 +223,16 @@ class _Pieces:
             table[shape, at.searchsorted(position)] = value
         if allowances == 1:
             return table.T, POSITION_ZERO
-        new = np.concatenate([[True], (table[:, 1:] != table[:, :-1]).any(axis=0)])
-        firsts = at[new]
-        return table[:, new].T, np.repeat(np.arange(firsts.size), np.diff(firsts, append=allowances))
+        return distinct_rows(table, at, allowances)
+
+
+def distinct_rows(table: Ints, at: Ints, allowances: int) -> tuple[Ints, Ints]:
+    """Every shape's column at the ascending positions `at` (from 0) of the allowances, (H, len(at)), where
+    the columns may change: its distinct rows, (R, H), one per run of positions whose columns are all the
+    same, and the row of each of the `allowances`."""
+    new = np.concatenate([[True], (table[:, 1:] != table[:, :-1]).any(axis=0)])
+    firsts = at[new]
+    return table[:, new].T, np.repeat(np.arange(firsts.size), np.diff(firsts, append=allowances))
 
 
 POSITION_ZERO = np.zeros(1, dtype=np.int64)

@@ -27,6 +27,7 @@ from service.domain.deadline import (
     TABLE_FIGURES,
     TABLE_KEY,
     allowances,
+    distinct_rows,
     settle,
     table_rungs,
     table_search,
@@ -164,7 +165,9 @@ def solve_tables(requests: Sequence[TableRequest]) -> list[TableAnswer]:
         afforded, scenario_of = found_allowances[index]
         count, size = counts[index], sizes[index]
         if not bracketed[cells].any():
-            answers.append((firsts[index], own_exact, *_distinct_rows((column[cells] - first).reshape(count, size)),
+            table = (column[cells] - first).reshape(count, size)  # each shape's column at each allowance
+            answers.append((firsts[index], own_exact,
+                            *((table.T, POSITION_ZERO) if size == 1 else distinct_rows(table, np.arange(size), size)),
                             scenario_of))
             continue
         # As `table_search` settles it from here, a run per cell: its runs, keys and exact figures.
@@ -175,12 +178,3 @@ def solve_tables(requests: Sequence[TableRequest]) -> list[TableAnswer]:
             near[:, cells], around[first:last] - offsets[index] * TABLE_KEY, own_exact), scenario_of))
     return answers
 
-
-def _distinct_rows(table: Ints) -> tuple[Ints, Ints]:
-    """`deadline._Pieces.distinct_rows` of each shape's column at every allowance, (H, U): the distinct
-    rows, one per run of allowances whose columns are all the same, and the row of each allowance."""
-    if table.shape[1] == 1:
-        return table.T, POSITION_ZERO
-    new = np.concatenate([[True], (table[:, 1:] != table[:, :-1]).any(axis=0)])
-    firsts = np.flatnonzero(new)
-    return table[:, new].T, np.repeat(np.arange(firsts.size), np.diff(firsts, append=table.shape[1]))
