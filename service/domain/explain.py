@@ -355,7 +355,7 @@ def payback_words(paid: Payback, i: int, site: SiteFigures, basis: str) -> dict[
     """The payback fields of a break-even row: months, the reason where there are none, the stated
     demand it assumes, and `basis`, how the site's payback is reckoned (`payback_basis`)."""
     months = _at(paid.months, i)
-    reason = str(np.asarray(paid.reason).reshape(-1)[i if np.size(paid.reason) > 1 else 0])
+    reason = str(scenario_value(paid.reason, i))
     if reason == NO_SAVING:
         why: str | None = "none: the rent saved never covers the new nodes' running cost"
     elif reason == BEYOND_LIFE:
