@@ -106,16 +106,14 @@ def solve_tables(requests: Sequence[TableRequest]) -> list[TableAnswer]:
         return Columns(tensor[shape][np.newaxis, :], pipeline[shape][np.newaxis, :], nodes, nodes * per_node[shape],
                        np.full(nodes.shape, DEADLINE))
 
-    # The base candidates and every table, in one step call.
+    # Every table in one step call, of only what the search reads of it.
     k_min = np.concatenate([request.k_min for request in requests], axis=1)
     k_top = np.concatenate([request.k_top for request in requests], axis=1)
     rungs = table_rungs(k_min, k_top)[0]  # (H, TABLE_RUNGS)
-    base_widths = [int(np.shape(request.base.nodes)[1]) for request in requests]
     table = columns(np.arange(offsets[-1]).repeat(TABLE_RUNGS), rungs.reshape(1, -1))
-    figures = step_figures(load, per_candidate(hardware * 2, base_widths + [count * TABLE_RUNGS for count in counts]),
-                           side_by_side(*(request.base for request in requests), table), found)
-    firsts = split_columns(figures, base_widths)
-    fits, effective = (figures[name][:, sum(base_widths):] for name in TABLE_FIGURES)
+    figures = step_figures(load, per_candidate(hardware, [count * TABLE_RUNGS for count in counts]), table, found,
+                           clock_only=True)
+    fits, effective = (np.asarray(figures[name]) for name in TABLE_FIGURES)
     g = np.where(fits & ~np.isnan(effective), effective, np.inf).reshape(-1, TABLE_RUNGS)
 
     # Each shape's guess at each of its venue's allowances, a cell each (`guesses.guess_runs`, cell by cell:
@@ -146,8 +144,12 @@ def solve_tables(requests: Sequence[TableRequest]) -> list[TableAnswer]:
     around = ordered[np.concatenate([[True], ordered[1:] != ordered[:-1]])]
     exact_shape = (around // TABLE_KEY).astype(np.int64)
     edges = exact_shape.searchsorted(offsets)  # request r's exact counts: edges[r] … edges[r + 1] − 1
-    exact = step_figures(load, per_candidate(hardware, np.diff(edges)),
-                         columns(exact_shape, around - exact_shape * TABLE_KEY), found)
+    # The base candidates and the exact counts, every figure, in one step call.
+    base_widths = [int(np.shape(request.base.nodes)[1]) for request in requests]
+    figures = step_figures(load, per_candidate(hardware * 2, base_widths + np.diff(edges).tolist()), side_by_side(
+        *(request.base for request in requests), columns(exact_shape, around - exact_shape * TABLE_KEY)), found)
+    firsts = split_columns(figures, base_widths)
+    exact = {name: value[:, sum(base_widths):] for name, value in figures.items()}
     where = around.searchsorted(near_keys)
     g_near = np.where(exact["fits"][0], exact["effective_step_seconds"][0], np.inf)[where]
     meets = valid & (g_near <= allowance)  # (3, cells): below, at and above the guess
