@@ -140,9 +140,8 @@ def line_basis(option: OptionResult, item: str, i: int, catalog: Catalog,
     layout = option.layout
     hours = layout.accelerator_hours[i]
     per_node = option.node_type.accelerators_per_node
-    venue = _venue(catalog, option.venue_id)
     if item in DATA_ITEMS:
-        return _data_basis(option, item, i, venue, catalog, currency)
+        return _data_basis(option, item, i, _venue(catalog, option.venue_id), catalog, currency)
     if site is not None:
         return _owned_basis(option, item, i, site, currency, hours, per_node)
     price = option.details["price_per_accelerator_hour"][i]

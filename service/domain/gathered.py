@@ -11,7 +11,7 @@ from typing import Any
 import numpy as np
 
 from service.domain.arrays import Bools, Floats, Ints, is_every_row
-from service.domain.step import FiguresWhenRead, Hardware, Load, scenario_terms, wall_figures
+from service.domain.step import FIGURES, FiguresWhenRead, Hardware, Load, scenario_terms, wall_figures
 
 
 @dataclass(frozen=True)
@@ -115,6 +115,26 @@ class GatheredGrid(FiguresWhenRead):
                 return spread(name)
             return np.asarray(self._table[name])[0][cell]
         return read
+
+    def figures_at(self, row: int, column: int) -> dict[str, Any]:
+        """`cells` at one cell (a quote's chosen layout), read at once: the table's figures as (1,) slices of
+        its row, the wall clock the cell's own, and any figure already spread over the block read there."""
+        distinct, row_of = self._rows, self._row_of
+        at = row if row_of is None else int(row_of[row if row_of.size > 1 else 0])
+        cell = int(distinct[at if distinct.shape[0] > 1 else 0, column])
+        table, made = self._table, self.__dict__
+        figures = {name: np.asarray(table[name])[0, cell:cell + 1] for name in FIGURES
+                   if name in table and name not in made}
+        if not ("wall_seconds" in made and "accelerator_hours" in made):
+            load, hardware = self._inputs
+            step, used = (np.asarray(table[name])[:, cell:cell + 1]
+                          for name in ("effective_step_seconds", "accelerators"))
+            wall = wall_figures(load, hardware, step, used, np.array([row]))
+            figures.update({name: np.asarray(value)[:, 0] for name, value in wall.items() if name not in made})
+        if len(figures) < len(FIGURES):  # a figure spread over the block already, or none the block can make
+            spread = super().cells(np.array([row]), np.array([column]))
+            figures.update({name: spread(name) for name in FIGURES if name not in figures})
+        return figures
 
 
 def gathered(load: Load, hardware: Hardware, table: dict[str, Any], rows: Ints,

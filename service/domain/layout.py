@@ -54,7 +54,6 @@ __all__ = ["DEADLINE", "MEMORY", "NODE_LIMIT", "PINNED", "Architecture", "Candid
            "Load", "evaluate_layouts", "layout_search"]
 
 
-_FIGURE_NAMES = tuple(f.name for f in fields(LayoutGrid))  # every figure of a layout
 # Scenarios up to which the layouts chosen from candidates hold the candidates, so that one scenario taken
 # (a split quote's campaign, of its 1 + 2 × 8 scenarios) reads its cell at once. Beyond, they hold none: a
 # sweep keeps every option's chosen layout to the end of its chunk, and every venue's candidates would stay
@@ -126,8 +125,8 @@ class Candidates:
             while column >= widths[at]:  # the block the column lies in, and its column there
                 column -= widths[at]
                 at += 1
-            read = self.blocks[at].cells(np.array([row]), np.array([column]))
-            self._picked[row, chosen] = LayoutGrid(**{name: _shared(read(name)) for name in _FIGURE_NAMES})
+            figures = self.blocks[at].figures_at(row, column)
+            self._picked[row, chosen] = LayoutGrid(**{name: _shared(value) for name, value in figures.items()})
         return self._picked[row, chosen]
 
 

@@ -44,9 +44,10 @@ from service.domain.campaign import (
 )
 from service.domain.choice import _first_least
 from service.domain.evaluate import CampaignEvaluation, evaluate_campaign
+from service.domain.gathered import gathered
 from service.domain.layout import CELLS_FROM_CANDIDATES_UP_TO, node_fit
 from service.domain.own_step import FiguresOnRead
-from service.domain.step import FiguresWhenRead, LayoutGrid, wall_figures
+from service.domain.step import FIGURES, FiguresWhenRead, LayoutGrid, wall_figures
 from service.domain.terms import campaign_energy
 from tests.domain import builders
 
@@ -422,6 +423,36 @@ def test_one_cell_of_a_grid_reads_as_the_same_cell_among_several(seed: int) -> N
             assert read.dtype == value.dtype
             np.testing.assert_array_equal(read, among(name)[:1], strict=True)
             assert read.flags.owndata and not np.shares_memory(read, value)
+
+
+@pytest.mark.parametrize("distinct", [False, True])
+@pytest.mark.parametrize("seed", range(3))
+def test_one_cell_of_a_gathered_block_reads_at_once_as_its_cells_read_it(seed: int, distinct: bool) -> None:
+    """`GatheredGrid.figures_at` reads a quote's chosen layout at once, the table's figures as slices of its
+    row: every figure must equal what `cells` reads at that cell, in value, dtype and shape, whether the
+    block's columns are one row per scenario or, with `row_of`, distinct rows, and whether some figures were
+    spread over the block first (eligibility spreads the wall clock, the node counts and the fit)."""
+    rng = np.random.default_rng(seed)
+    scenarios, width, columns = 5, 4, 7
+    campaign = builders.load(tokens=rng.uniform(1e10, 5e10, scenarios))  # steps, so wall clocks, differ
+    venue = builders.hardware(staging_seconds=rng.uniform(0.0, 3600.0, scenarios))
+    table = {f.name: (rng.random((1, columns)) < 0.5 if f.type == Bools else
+                      rng.integers(0, 5, (1, columns)) if f.type == Ints else rng.random((1, columns)))
+             for f in dataclasses.fields(LayoutGrid) if f.name not in ("wall_seconds", "accelerator_hours")}
+    if distinct:
+        rows, row_of = rng.integers(0, columns, (3, width)), rng.integers(0, 3, scenarios)
+    else:
+        rows, row_of = rng.integers(0, columns, (scenarios, width)), None
+    block = gathered(campaign, venue, table, rows, row_of)
+    for spread_first in (False, True):
+        if spread_first:
+            assert block.wall_seconds.shape == block.nodes.shape == block.fits.shape == (scenarios, width)
+        for r in range(scenarios):
+            for c in range(width):
+                at_once, one_by_one = block.figures_at(r, c), block.cells(np.array([r]), np.array([c]))
+                assert set(at_once) == set(FIGURES)
+                for name in FIGURES:
+                    np.testing.assert_array_equal(at_once[name], one_by_one(name), strict=True)
 
 
 @pytest.mark.parametrize("same_memory", [False, True])
