@@ -213,6 +213,9 @@ class CatalogStatusIn(Strict):
     status: Literal["active", "retired"]
 
 
+_DOMAIN_FORM = "_domain_form"  # where a catalog keeps its domain form (`CatalogIn.to_domain`), not a field
+
+
 class CatalogIn(Strict):
     name: Name
     currency: CurrencyCode
@@ -291,6 +294,18 @@ class CatalogIn(Strict):
         return self
 
     def to_domain(self) -> domain.Catalog:
+        """The catalog as the domain reads it, made once: a validated catalog is frozen, and the domain only
+        reads it, so the quotes against a catalog the server keeps (`usecases.catalogs.ParsedCatalogs`)
+        share one. Kept with the id of the catalog it was made of, so that a copy (which copies what an
+        instance holds, and may change fields) makes its own."""
+        kept = self.__dict__.get(_DOMAIN_FORM)
+        if kept is None or kept[0] != id(self):
+            kept = id(self), self._made_domain()
+            self.__dict__[_DOMAIN_FORM] = kept
+        made: domain.Catalog = kept[1]
+        return made
+
+    def _made_domain(self) -> domain.Catalog:
         accelerators = {
             a.id: domain.Accelerator(a.id, a.memory_gb, dict(a.peak_tflops), a.utilisation)
             for a in self.accelerators

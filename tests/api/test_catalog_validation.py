@@ -22,6 +22,18 @@ def test_the_demo_catalog_is_valid(demo_catalog: dict[str, Any]) -> None:
     assert catalog.sites[0].node_type.accelerator.id == "acc-a88"
 
 
+def test_a_catalog_is_made_into_its_domain_form_once(demo_catalog: dict[str, Any]) -> None:
+    """A validated catalog is frozen, so its domain form is made once and shared by the quotes against it;
+    it is the form a fresh validation makes, and the catalog still compares, dumps and copies by its fields."""
+    catalog, again = CatalogIn.model_validate(demo_catalog), CatalogIn.model_validate(copy.deepcopy(demo_catalog))
+    made = catalog.to_domain()
+    assert catalog.to_domain() is made and again.to_domain() is not made
+    assert made == again.to_domain()
+    fresh = CatalogIn.model_validate(demo_catalog)  # its domain form not made yet
+    assert catalog == fresh and catalog.model_dump() == fresh.model_dump()
+    assert catalog.model_copy(update={"name": "another"}).to_domain().name == "another"
+
+
 def test_an_unknown_field_is_rejected_by_name(demo_catalog: dict[str, Any]) -> None:
     demo_catalog["sites"][0]["electricity_price_per_kw"] = 0.1
     assert "sites.0.electricity_price_per_kw" in problems_of(demo_catalog)
