@@ -21,7 +21,7 @@ from typing import Any, Generic, TypeVar
 import numpy as np
 
 from service.domain.parallelism import Shapes
-from service.domain.step import Columns, Hardware, Load, side_by_side, step_figures
+from service.domain.step import STEP_HARDWARE, Columns, Hardware, Load, side_by_side, step_figures
 
 T = TypeVar("T")
 A = TypeVar("A")
@@ -152,23 +152,15 @@ def joinable(columns: Columns, hardware: Hardware) -> bool:
                     for name in STEP_HARDWARE))
 
 
-# The hardware a step reads: everything but the staging time; and what candidate columns are made of.
-STEP_HARDWARE = tuple(f.name for f in fields(Hardware) if f.name != "staging_seconds")
-COLUMNS = tuple(f.name for f in fields(Columns))
+COLUMNS = tuple(f.name for f in fields(Columns))  # what candidate columns are made of
 
 
 def per_candidate(hardware: Sequence[Hardware], widths: Sequence[int]) -> Hardware:
     """Several venues' hardware as one, each figure the step reads spread over each one's `widths`
     candidates, (1, K) side by side; staging, which a step never reads, NaN so that any use shows."""
-    values = np.array([[_one_value(getattr(each, name)) for name in STEP_HARDWARE] for each in hardware])
-    spread = np.ascontiguousarray(values.repeat(widths, axis=0).T)  # (figures, K)
+    spread = np.repeat(np.array([each.step_values for each in hardware]).T, widths, axis=1)  # (figures, K)
     spread_figures: dict[str, Any] = {name: spread[j][np.newaxis, :] for j, name in enumerate(STEP_HARDWARE)}
     return replace(hardware[0], **spread_figures, staging_seconds=np.full((1, 1), np.nan))
-
-
-def _one_value(value: Any) -> Any:
-    """A hardware figure that is one value (`joinable`), as that value."""
-    return value if isinstance(value, float | int) else np.asarray(value, dtype=np.float64).reshape(-1)[0]
 
 
 def split_columns(figures: Figures, widths: Sequence[int]) -> list[Figures]:

@@ -122,6 +122,17 @@ class Hardware:
         """The scenarios the hardware runs over (`arrays.longest_axis`), counted once."""
         return longest_axis(tuple(getattr(self, f.name) for f in fields(self)))
 
+    @cached_property
+    def step_values(self) -> tuple[float, ...]:
+        """Each figure a step reads (STEP_HARDWARE), where each is one value (`lockstep.joinable`), as that
+        value: made once, as a venue's hardware joins the step calls of several rounds (`lockstep.per_candidate`)."""
+        values = (getattr(self, name) for name in STEP_HARDWARE)
+        return tuple(float(value if isinstance(value, float | int) else np.asarray(value).reshape(-1)[0])
+                     for value in values)
+
+
+STEP_HARDWARE = tuple(f.name for f in fields(Hardware) if f.name != "staging_seconds")  # what a step reads
+
 
 @dataclass(frozen=True)
 class LayoutGrid:
