@@ -123,11 +123,11 @@ def solve_tables(requests: Sequence[TableRequest]) -> list[TableAnswer]:
     found_allowances = [allowances(request.load, request.hardware, request.deadline) for request in requests]
     sizes = [afforded.size for afforded, _ in found_allowances]
     cell_offsets = np.concatenate([[0], np.cumsum(np.multiply(counts, sizes))])
-    shape = np.concatenate([np.arange(offsets[index], offsets[index + 1]).repeat(size)
-                            for index, size in enumerate(sizes)])  # each cell's shape, shape by shape
-    position = np.concatenate([np.tile(np.arange(size), count) for count, size in zip(counts, sizes, strict=True)])
-    allowance = np.concatenate([np.tile(afforded, count) for count, (afforded, _) in zip(counts, found_allowances,
-                                                                                          strict=True)])
+    of_shape = np.repeat(sizes, counts)  # each shape's cells: its venue's allowances
+    shape = np.repeat(np.arange(offsets[-1]), of_shape)  # each cell's shape, shape by shape
+    position = np.arange(cell_offsets[-1]) - np.repeat(np.cumsum(of_shape) - of_shape, of_shape)  # its allowance
+    afforded_offsets = np.repeat(np.cumsum(sizes) - sizes, counts)[shape]
+    allowance = np.concatenate([afforded for afforded, _ in found_allowances])[afforded_offsets + position]
     valid = ~np.isnan(allowance)
     missed = np.count_nonzero(np.minimum.accumulate(g, axis=1)[shape] > allowance[:, np.newaxis], axis=1)
     state = np.where(valid, missed, TABLE_RUNGS)  # the first rung meeting the allowance; TABLE_RUNGS: none
