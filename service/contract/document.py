@@ -19,6 +19,7 @@ from service.domain.evaluate import CampaignEvaluation, OptionResult, SiteFigure
 from service.domain.layout import LayoutGrid
 from service.domain.owning import cooling_tons
 from service.domain.programme import OptionCosts, cash_flow, npv, option_costs, view_lines
+from service.domain.recurrence import programme_months
 from service.domain.units import SECONDS_PER_DAY, SECONDS_PER_HOUR
 
 Json = dict[str, Any]
@@ -70,7 +71,7 @@ def quote_document(catalog: Catalog, request: QuoteRequestIn, evaluation: Campai
                                 else _number(scenario_value(work.flops_per_token, i))),
             "runs_total_flops": _number(scenario_value(work.model_flops * evaluation.runs_multiplier, i)),
             "instances": _number(instances),
-            "programme_months": _number(scenario_value(evaluation.programme_months, i)),
+            "programme_months": _number(scenario_value(programme_months(evaluation.recurrence), i)),
         },
         "options": options,
         "recommendation": None if not feasible else _recommendation(feasible, i, evaluation, catalog, request, costs),

@@ -22,6 +22,7 @@ from service.domain.campaign import OwnedCostView, RankBy
 from service.domain.compiled import Kernel, reached_utilisations
 from service.domain.evaluate import CampaignEvaluation, OptionResult, SiteFigures
 from service.domain.programme import MAX_CASH_FLOW_MONTHS, programme_total
+from service.domain.recurrence import instances_by_month
 from service.domain.units import HOURS_PER_MONTH
 
 
@@ -229,7 +230,7 @@ def _payback(evaluation: CampaignEvaluation, site_id: str, new_build: OptionResu
     s = site.economics.site
     nodes = new_build.layout.nodes
     life = min(s.depreciation_months, MAX_CASH_FLOW_MONTHS)
-    campaign = (evaluation.instances_by_month(life)
+    campaign = (instances_by_month(evaluation.recurrence, life)
                 * np.asarray(new_build.layout.accelerator_hours)[..., np.newaxis])
     figures = payback(
         capex=nodes * site.economics.capex_per_node, running_per_month=nodes * site.node.running,

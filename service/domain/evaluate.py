@@ -35,7 +35,7 @@ from service.domain.owning import (
     busy_energy_per_accelerator_hour,
     node_month,
 )
-from service.domain.recurrence import instances_by_month, instances_per_year, instances_total, programme_months
+from service.domain.recurrence import instances_per_year, instances_total
 from service.domain.residency import admits, allowed_jurisdictions
 from service.domain.terms import Energy, campaign_energy
 from service.domain.units import GIB, SECONDS_PER_DAY, TB
@@ -110,21 +110,6 @@ class CampaignEvaluation:
     sites: dict[str, SiteFigures]
     cost_of_capital_annual: Floats
     recurrence: Recurrence | None
-    _by_month: dict[int, Floats] = field(default_factory=dict, init=False, compare=False, repr=False)
-
-    def instances_by_month(self, months: int) -> Floats:
-        """`recurrence.instances_by_month` over `months`, made once per length and read-only: the cash
-        flow of every option and the payback of every site read it."""
-        if months not in self._by_month:
-            starting = instances_by_month(self.recurrence, months)
-            starting.setflags(write=False)
-            self._by_month[months] = starting
-        return self._by_month[months]
-
-    @functools.cached_property
-    def programme_months(self) -> Floats:
-        """`recurrence.programme_months`, made once."""
-        return programme_months(self.recurrence)
 
 
 @dataclass(frozen=True)

@@ -31,6 +31,7 @@ from service.domain.own_step import FiguresOnRead, fewest_meeting, step_figures_
 from service.domain.parallelism import Shapes, shapes
 from service.domain.step import (
     DEADLINE,
+    FIGURES,
     MEMORY,
     NODE_LIMIT,
     PINNED,
@@ -125,7 +126,12 @@ class Candidates:
             while column >= widths[at]:  # the block the column lies in, and its column there
                 column -= widths[at]
                 at += 1
-            figures = self.blocks[at].figures_at(row, column)
+            block = self.blocks[at]
+            if isinstance(block, GatheredGrid):  # read at once, as slices of its table's row
+                figures = block.figures_at(row, column)
+            else:
+                read = block.cells(np.array([row]), np.array([column]))
+                figures = {name: read(name) for name in FIGURES}
             self._picked[row, chosen] = LayoutGrid(**{name: _shared(value) for name, value in figures.items()})
         return self._picked[row, chosen]
 

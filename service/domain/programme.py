@@ -22,7 +22,7 @@ from service.domain.arrays import Floats, as_floats, broadcast
 from service.domain.campaign import OwnedCostView
 from service.domain.evaluate import CampaignEvaluation, OptionResult, sum_lines
 from service.domain.finance import monthly_rate, present_value
-from service.domain.recurrence import starts_by_month
+from service.domain.recurrence import instances_by_month, programme_months, starts_by_month
 from service.domain.units import HOURS_PER_MONTH, MONTHS_PER_YEAR
 
 FIXED_ITEMS = ("capital", "facility", "maintenance", "staff", "idle_energy")  # an owned node's month
@@ -169,7 +169,7 @@ def _horizon(option: OptionResult, evaluation: CampaignEvaluation,
     """Months the cash flow needs (the programme, and the last commitment's whole length where the
     option buys some: their `commitment` spacing and length), and which scenarios have one: those
     whose figures are finite and need at most MAX_CASH_FLOW_MONTHS."""
-    needed = evaluation.programme_months
+    needed = programme_months(evaluation.recurrence)
     if commitment is not None:
         spacing, length = commitment
         last_start = np.floor((commitments(option, evaluation) - 1.0).clip(0.0) * spacing + 1e-9)
@@ -199,7 +199,7 @@ def cash_flow(option: OptionResult, evaluation: CampaignEvaluation, view: OwnedC
     columns: dict[Column, Floats] = {}
     commitment = _commitment_calendar(option, evaluation)
     months, shown = _horizon(option, evaluation, commitment)
-    instances = broadcast(evaluation.instances_by_month(months), (*shape, months))
+    instances = broadcast(instances_by_month(evaluation.recurrence, months), (*shape, months))
     # Each instance's own lines, paid in the month it starts in.
     shared = shared_items(option)
     for item, amount in lines.items():

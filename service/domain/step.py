@@ -192,11 +192,6 @@ class LayoutGrid:
             return values[rows if values.shape[0] > 1 else first, columns if values.shape[1] > 1 else first]
         return read
 
-    def figures_at(self, row: int, column: int) -> dict[str, Any]:
-        """Every figure at scenario `row`, column `column`, as (1,) arrays: what `cells` reads there."""
-        read = self.cells(np.array([row]), np.array([column]))
-        return {name: read(name) for name in FIGURES}
-
 
 FIGURES = tuple(f.name for f in fields(LayoutGrid))  # every figure of a layout, in order
 FIGURE_NAMES = frozenset(FIGURES)
