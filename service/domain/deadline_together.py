@@ -5,9 +5,9 @@ made again for each venue (and for an interruptible term, which searches on its 
 spends more on the calls than on the arithmetic. Where a venue's deadline table has few allowances (a
 quote has one; a split quote one per part and split point) and its step one value for all its
 candidates, the whole table is asked for (`TableRequest`), and the tables of every venue asking in a
-round are solved as one (`solve_tables`): their shapes laid side by side, the table and then the
-exact counts around each guess evaluated in one step call each, and each (shape, allowance) cell's
-guess and choice made elementwise. Each venue gets what `table_search` gives it alone, bit for bit
+round are solved as one (`solve_tables`): their shapes laid side by side, the tables (for the clock
+only) and then the base candidates with the exact counts around each guess evaluated in one step call
+each, and each (shape, allowance) cell's guess and choice made elementwise. Each venue gets what `table_search` gives it alone, bit for bit
 (every figure is elementwise in the shapes and candidates, and a cell's guess is its run's:
 `test_deadline_together.py` holds them to it); a venue with a cell whose guess misses by more than a
 count, a bracket that `table_search` closes by false position, is settled from there by
