@@ -7,11 +7,11 @@ quote has one; a split quote one per part and split point) and its step one valu
 candidates, the whole table is asked for (`TableRequest`), and the tables of every venue asking in a
 round are solved as one (`solve_tables`): their shapes laid side by side, the tables (for the clock
 only) and then the base candidates with the exact counts around each guess evaluated in one step call
-each, and each (shape, allowance) cell's guess and choice made elementwise. Each venue gets what `table_search` gives it alone, bit for bit
-(every figure is elementwise in the shapes and candidates, and a cell's guess is its run's:
-`test_deadline_together.py` holds them to it); a venue with a cell whose guess misses by more than a
-count, a bracket that `table_search` closes by false position, is settled from there by
-`table_search`'s own `deadline.settle`, a run per cell.
+each, and each (shape, allowance) cell's guess and choice made elementwise. Each venue gets what
+`table_search` gives it alone, bit for bit (every figure is elementwise in the shapes and candidates,
+and a cell's guess is its run's: `test_deadline_together.py` holds them to it); a venue with a cell
+whose guess misses by more than a count, a bracket that `table_search` closes by false position, is
+settled from there by `table_search`'s own `deadline.settle`, a run per cell.
 """
 
 from collections.abc import Sequence
