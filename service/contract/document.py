@@ -116,7 +116,8 @@ def _recommendation(feasible: list[OptionResult], i: int, evaluation: CampaignEv
     """The first feasible option, why, and whether the other view of owned cost would rank another first."""
     view = request.options.owned_cost_view
     other_view: OwnedCostView = "incremental" if view == "full" else "full"
-    by_other = min(feasible, key=lambda o: (float(scenario_value(costs[id(o)].other(view), i)), feasible.index(o)))
+    _, by_other = min(enumerate(feasible),  # the first of equal costs
+                      key=lambda pair: (float(scenario_value(costs[id(pair[1])].other(view), i)), pair[0]))
     owned_compared = any(o.venue_kind == "owned" for o in feasible)
     best = feasible[0]
     return {
