@@ -219,6 +219,26 @@ def test_the_demo_views_agree_and_the_recommendation_says_that_too():
     assert "ranks first on the incremental view" in body["recommendation"]["why"]
 
 
+def test_of_options_equal_in_the_other_view_the_recommendation_names_the_first_ranked():
+    """Two offers alike in every figure tie in both views: the other view's first is the first of them in the
+    ranking, the recommended one itself, so the views agree."""
+    catalog = demo_catalog()
+    ranked = quote(CatalogIn.model_validate(catalog), QuoteRequestIn.model_validate(demo_request("renting-wins")))
+    first = ranked["recommendation"]["venue"]
+    twin = copy.deepcopy(next(o for o in catalog["offers"] if o["id"] == first))
+    twin["id"] = f"{first}-twin"
+    catalog["offers"].append(twin)
+    body = quote(CatalogIn.model_validate(catalog), QuoteRequestIn.model_validate(demo_request("renting-wins")))
+    tied = [o for o in body["options"] if o["venue"]["id"] in (first, twin["id"])
+            and o["term"] == ranked["recommendation"]["term"]]
+    assert [o["venue"]["id"] for o in tied] == [first, twin["id"]]
+    assert tied[0]["cost"]["total"] == tied[1]["cost"]["total"]
+    assert tied[0]["cost"]["incremental_total"] == tied[1]["cost"]["incremental_total"]
+    recommendation = body["recommendation"]
+    assert recommendation["venue"] == first and recommendation["views_agree"] is True
+    assert recommendation["other_view"]["venue"] == first
+
+
 # ---- break-even, end to end -----------------------------------------------------------------------------
 
 BREAK_EVEN_CATALOG: dict[str, Any] = {
