@@ -150,6 +150,7 @@ def solve_tables(requests: Sequence[TableRequest]) -> list[TableAnswer]:
         *(request.base for request in requests), columns(exact_shape, around - exact_shape * TABLE_KEY)), found)
     firsts = split_columns(figures, base_widths)
     exact = {name: value[:, sum(base_widths):] for name, value in figures.items()}
+    own_exacts = split_columns(exact, np.diff(edges).tolist())  # each request's
     where = around.searchsorted(near_keys)
     g_near = np.where(exact["fits"][0], exact["effective_step_seconds"][0], np.inf)[where]
     meets = valid & (g_near <= allowance)  # (3, cells): below, at and above the guess
@@ -163,7 +164,7 @@ def solve_tables(requests: Sequence[TableRequest]) -> list[TableAnswer]:
     for index, request in enumerate(requests):
         cells = slice(cell_offsets[index], cell_offsets[index + 1])
         first, last = edges[index], edges[index + 1]
-        own_exact = {name: value[:, first:last] for name, value in exact.items()}
+        own_exact = own_exacts[index]
         afforded, scenario_of = found_allowances[index]
         count, size = counts[index], sizes[index]
         if not bracketed[cells].any():

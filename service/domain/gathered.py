@@ -91,6 +91,8 @@ class GatheredGrid(FiguresWhenRead):
         return Gathered(rows, kept, row_of, nodes, accelerators, fits, step, steps.reshape(-1), staging.reshape(-1))
 
     def cells(self, rows: Ints, columns: Ints) -> Callable[[str], Any]:
+        if rows.shape == columns.shape == (1,):  # one cell (a quote's chosen layout): every figure read at once
+            return self.figures_at(int(rows[0]), int(columns[0])).__getitem__
         distinct, row_of = self._rows, self._row_of  # scenario s's columns: distinct[row_of[s]]
         if row_of is None:
             cell = distinct[rows if distinct.shape[0] > 1 else np.zeros_like(rows), columns]
@@ -117,8 +119,8 @@ class GatheredGrid(FiguresWhenRead):
         return read
 
     def figures_at(self, row: int, column: int) -> dict[str, Any]:
-        """`cells` at one cell (a quote's chosen layout), read at once: the table's figures as (1,) slices of
-        its row, the wall clock the cell's own, and any figure already spread over the block read there."""
+        """Every figure of one cell, as `cells` reads one: the table's figures as (1,) slices of its row, the
+        wall clock the cell's own, and any figure already spread over the block read there."""
         distinct, row_of = self._rows, self._row_of
         at = row if row_of is None else int(row_of[row if row_of.size > 1 else 0])
         cell = int(distinct[at if distinct.shape[0] > 1 else 0, column])

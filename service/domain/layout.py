@@ -126,13 +126,8 @@ class Candidates:
             while column >= widths[at]:  # the block the column lies in, and its column there
                 column -= widths[at]
                 at += 1
-            block = self.blocks[at]
-            if isinstance(block, GatheredGrid):  # read at once, as slices of its table's row
-                figures = block.figures_at(row, column)
-            else:
-                read = block.cells(np.array([row]), np.array([column]))
-                figures = {name: read(name) for name in FIGURES}
-            self._picked[row, chosen] = LayoutGrid(**{name: _shared(value) for name, value in figures.items()})
+            read = self.blocks[at].cells(np.array([row]), np.array([column]))
+            self._picked[row, chosen] = LayoutGrid(**{name: _shared(read(name)) for name in FIGURES})
         return self._picked[row, chosen]
 
 
