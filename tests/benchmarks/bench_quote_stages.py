@@ -1,7 +1,7 @@
-"""What one quote costs, stage by stage, in process; and what the first quote of a fresh command and of
-a fresh server takes.
+"""What one quote costs, stage by stage, in process, and as the catalog grows; and what the first quote of
+a fresh command and of a fresh server takes.
 
-    .venv/bin/python tests/benchmarks/bench_quote_stages.py [--repeats 30] [--warmup 3] [--no-cold]
+    .venv/bin/python tests/benchmarks/bench_quote_stages.py [--repeats 30] [--warmup 3] [--no-growth] [--no-cold]
 
 1. In process, on one core (the BLAS/OpenMP pools are limited to one thread before numpy loads): for
    each demo campaign (`pricing_examples/campaign-*.json`, against `pricing_examples/catalog.json`), the
@@ -21,7 +21,13 @@ a fresh server takes.
    free; and the stages but `evaluate`: what it
    would take were the whole evaluation free, a bound for any model, however fast. Targets: quote() at
    most 4 ms CPU per campaign, 8 ms for campaign-split.json.
-2. Cold (skipped with --no-cold): the wall time of a fresh `python -m service.cli quote CAMPAIGN
+2. Growth (information), timed the same way: what a quote of campaign-owned-wins.json costs as the
+   catalog grows, its rented offers replaced by 1, 2, 4 and 8 copies of its first offer (each its own
+   id, the sites kept): once with every term of that offer (on demand, two committed terms and an
+   interruptible one, which searches layouts on its own), once with the request's rented terms cut to on
+   demand. A least-squares line through each series gives what one more offer adds to quote(), to its
+   evaluation and to its document, and the intercept: what the quote costs before any offer.
+3. Cold (skipped with --no-cold): the wall time of a fresh `python -m service.cli quote CAMPAIGN
    --catalog catalog.json --format json` from its start to its exit, the answer written, for each demo
    campaign; and of the first POST /v1/quotes (campaign-owned-wins.json) that a freshly started
    `berth serve` answers once its /readyz is 200 (bench_quotes.start_server). Target: under 1 s each.
@@ -47,7 +53,7 @@ import sys  # noqa: E402
 import tempfile  # noqa: E402
 import time  # noqa: E402
 import urllib.request  # noqa: E402
-from collections.abc import Callable  # noqa: E402
+from collections.abc import Callable, Sequence  # noqa: E402
 from datetime import UTC, datetime  # noqa: E402
 from pathlib import Path  # noqa: E402
 from typing import Any  # noqa: E402
@@ -65,6 +71,7 @@ from service.contract.document import quote_document  # noqa: E402
 from service.contract.request import QuoteRequestIn  # noqa: E402
 from service.domain import evaluate as evaluate_module  # noqa: E402
 from service.domain import lockstep  # noqa: E402
+from service.domain.campaign import OWNED_TERMS  # noqa: E402
 from service.domain.layout import layout_search  # noqa: E402
 from service.domain.lockstep import evaluate_together  # noqa: E402
 from service.domain.split import evaluate_with_splits  # noqa: E402
@@ -87,6 +94,7 @@ TARGET_CPU_MS = 4.0
 TARGET_CPU_MS_BY_CAMPAIGN = {"campaign-split.json": 8.0}
 TARGET_COLD_S = 1.0
 COLD_TIMEOUT_S = 60.0
+GROWTH_COPIES = (1, 2, 4, 8)
 
 
 class Laps:
@@ -237,6 +245,47 @@ def in_process(repeats: int, warmup: int) -> list[tuple[str, bool, str]]:
     return verdicts
 
 
+def with_offer_copies(catalog: dict[str, Any], copies: int) -> CatalogIn:
+    """The catalog (as JSON) with its rented offers replaced by `copies` of its first, `-1`, `-2`, ...
+    appended to its id; everything else as it is."""
+    first = catalog["offers"][0]
+    return CatalogIn.model_validate({**catalog, "offers": [{**first, "id": f"{first['id']}-{copy + 1}"}
+                                                          for copy in range(copies)]})
+
+
+def per_offer(copies: Sequence[int], ms: Sequence[float]) -> tuple[float, float]:
+    """The least-squares line through (copies, ms): what one more offer adds, and the intercept."""
+    slope, intercept = np.polyfit(np.asarray(copies, dtype=float), np.asarray(ms, dtype=float), 1)
+    return float(slope), float(intercept)
+
+
+def growth(repeats: int, warmup: int) -> None:
+    raw = json.loads(CATALOG.read_bytes())
+    request = json.loads(CAMPAIGN.read_bytes())
+    on_demand_only = {**request, "options": {**request.get("options", {}), "terms": [*OWNED_TERMS, "on_demand"]}}
+    first = raw["offers"][0]["id"]
+    print(f"== 2. Growth: quote() of {CAMPAIGN.name} as the catalog's rented offers are copies of {first}, "
+          f"best CPU ms of {repeats} repeats")
+    print(f"{'terms':<24}{'figure':<10}" + "".join(f"{f'{copies} offer(s)':>12}" for copies in GROWTH_COPIES)
+          + f"{'per offer':>11}{'intercept':>11}")
+    for label, body in (("all the offer's", request), ("on demand only", on_demand_only)):
+        parsed = QuoteRequestIn.model_validate(body)
+        series: dict[str, list[float]] = {"quote()": [], "evaluate": [], "document": []}
+        for copies in GROWTH_COPIES:
+            catalog = with_offer_copies(raw, copies)
+            whole, best = measure_campaign(catalog, catalog_hash(catalog), parsed, repeats, warmup)
+            series["quote()"].append(whole * 1e3)
+            series["evaluate"].append(best["evaluate_with_splits"] * 1e3)
+            series["document"].append(best["quote_document"] * 1e3)
+        for figure, ms in series.items():
+            slope, intercept = per_offer(GROWTH_COPIES, ms)
+            print(f"{label:<24}{figure:<10}" + "".join(f"{value:>12.2f}" for value in ms)
+                  + f"{slope:>11.2f}{intercept:>11.2f}", flush=True)
+    print("(per offer: what one more offer adds, the slope of a least-squares line; intercept: the quote before")
+    print(" any offer, its sites' options and what every quote does)")
+    print()
+
+
 def cold_command(campaign: Path) -> float:
     """Wall seconds of a fresh `python -m service.cli quote` from its start to its exit, the answer read."""
     env = {k: v for k, v in os.environ.items() if not k.startswith("BERTH_")}
@@ -271,7 +320,7 @@ def cold_server() -> tuple[float, float]:
 
 
 def cold() -> list[tuple[str, bool, str]]:
-    print(f"== 2. Cold: a fresh process's first quote, wall time (target under {TARGET_COLD_S:.0f} s)")
+    print(f"== 3. Cold: a fresh process's first quote, wall time (target under {TARGET_COLD_S:.0f} s)")
     verdicts = []
     for path in sorted(EXAMPLES.glob("campaign-*.json")):
         seconds = cold_command(path)
@@ -291,12 +340,15 @@ def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--repeats", type=int, default=30, help="timed repeats per campaign (default %(default)s)")
     parser.add_argument("--warmup", type=int, default=3, help="untimed repeats first (default %(default)s)")
+    parser.add_argument("--no-growth", action="store_true", help="skip the growth with the catalog's offers")
     parser.add_argument("--no-cold", action="store_true", help="skip the fresh command and server")
     args = parser.parse_args()
     if args.repeats < 1 or args.warmup < 0:
         parser.error("--repeats must be at least 1, --warmup at least 0")
     try:
         verdicts = in_process(args.repeats, args.warmup)
+        if not args.no_growth:
+            growth(args.repeats, args.warmup)
         if not args.no_cold:
             verdicts += cold()
     except (InvalidInput, RuntimeError, OSError, ValueError, subprocess.TimeoutExpired) as error:

@@ -10,11 +10,14 @@ from bench_quote_stages import (
     ANSWER_STAGES,
     CATALOG,
     EXAMPLES,
+    GROWTH_COPIES,
     QUOTE_STAGES,
     Laps,
     SearchTally,
     answer_in_stages,
+    per_offer,
     quote_in_stages,
+    with_offer_copies,
 )
 
 from service.api.responses import OPTIONS
@@ -78,3 +81,32 @@ def test_the_search_tally_times_the_layout_search_and_puts_it_back(catalog: Cata
     assert vars(lockstep)["evaluate_together"] is evaluate_together
     assert tally.seconds > 0.0
     assert orjson.dumps(body, option=OPTIONS) == orjson.dumps(quote(catalog, request), option=OPTIONS)
+
+
+def test_the_growth_catalog_is_the_demo_catalog_with_copies_of_its_first_offer(catalog: CatalogIn) -> None:
+    raw = orjson.loads(CATALOG.read_bytes())
+    grown = with_offer_copies(raw, 3).model_dump(mode="json")
+    first = raw["offers"][0]
+    assert [offer["id"] for offer in grown["offers"]] == [f"{first['id']}-{copy}" for copy in (1, 2, 3)]
+    reference = CatalogIn.model_validate({**raw, "offers": [first]}).model_dump(mode="json")["offers"][0]
+    assert all({**offer, "id": first["id"]} == reference for offer in grown["offers"])
+    assert {k: v for k, v in grown.items() if k != "offers"} == {
+        k: v for k, v in catalog.model_dump(mode="json").items() if k != "offers"}
+    # Each copy is quoted as the first offer is: the same terms, the same totals.
+    request = QuoteRequestIn.model_validate_json((EXAMPLES / "campaign-owned-wins.json").read_bytes())
+    alone = quote(with_offer_copies(raw, 1), request)["options"]
+    copied = quote(with_offer_copies(raw, 3), request)["options"]
+
+    def rented(options: list[dict[str, Any]], venue: str) -> list[tuple[str, Any]]:
+        return sorted((o["term"], o["cost"]["total"]) for o in options if o["venue"]["id"] == venue)
+    assert rented(alone, f"{first['id']}-1") != []
+    for copy in (1, 2, 3):
+        assert rented(copied, f"{first['id']}-{copy}") == rented(alone, f"{first['id']}-1")
+
+
+def test_per_offer_is_the_least_squares_line() -> None:
+    assert per_offer(GROWTH_COPIES, [2.0 + 0.5 * copies for copies in GROWTH_COPIES]) == pytest.approx((0.5, 2.0))
+    # Through points off a line, the ordinary least-squares line worked by hand: slope Sxy / Sxx and
+    # intercept mean y − slope × mean n for (1, 3.0), (2, 3.4), (4, 4.6), (8, 6.6): mean n 3.75, mean y
+    # 4.4, Sxy = 15.0, Sxx = 28.75.
+    assert per_offer((1, 2, 4, 8), (3.0, 3.4, 4.6, 6.6)) == pytest.approx((15.0 / 28.75, 4.4 - 3.75 * 15.0 / 28.75))
