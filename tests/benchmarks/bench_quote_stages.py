@@ -26,7 +26,8 @@ a fresh command and of a fresh server takes.
    id, the sites kept): once with every term of that offer (on demand, two committed terms and an
    interruptible one, which searches layouts on its own), once with the request's rented terms cut to on
    demand. A least-squares line through each series gives what one more offer adds to quote(), to its
-   evaluation and to its document, and the intercept: what the quote costs before any offer.
+   evaluation (and of it, to the layout search) and to its document, and the intercept: what the quote
+   costs before any offer.
 3. Cold (skipped with --no-cold): the wall time of a fresh `python -m service.cli quote CAMPAIGN
    --catalog catalog.json --format json` from its start to its exit, the answer written, for each demo
    campaign; and of the first POST /v1/quotes (campaign-owned-wins.json) that a freshly started
@@ -270,19 +271,20 @@ def growth(repeats: int, warmup: int) -> None:
           + f"{'per offer':>11}{'intercept':>11}")
     for label, body in (("all the offer's", request), ("on demand only", on_demand_only)):
         parsed = QuoteRequestIn.model_validate(body)
-        series: dict[str, list[float]] = {"quote()": [], "evaluate": [], "document": []}
+        series: dict[str, list[float]] = {"quote()": [], "evaluate": [], "search": [], "document": []}
         for copies in GROWTH_COPIES:
             catalog = with_offer_copies(raw, copies)
             whole, best = measure_campaign(catalog, catalog_hash(catalog), parsed, repeats, warmup)
             series["quote()"].append(whole * 1e3)
             series["evaluate"].append(best["evaluate_with_splits"] * 1e3)
+            series["search"].append(best["search"] * 1e3)
             series["document"].append(best["quote_document"] * 1e3)
         for figure, ms in series.items():
             slope, intercept = per_offer(GROWTH_COPIES, ms)
             print(f"{label:<24}{figure:<10}" + "".join(f"{value:>12.2f}" for value in ms)
                   + f"{slope:>11.2f}{intercept:>11.2f}", flush=True)
     print("(per offer: what one more offer adds, the slope of a least-squares line; intercept: the quote before")
-    print(" any offer, its sites' options and what every quote does)")
+    print(" any offer, its sites' options and what every quote does; search: the layout search within evaluate)")
     print()
 
 
