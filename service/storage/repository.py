@@ -528,15 +528,17 @@ class Storage:
 
     @contextmanager
     def writing(self, *, claim: bool = False, gated: bool = True) -> Iterator[Repository]:
-        """One write transaction (BEGIN IMMEDIATE on SQLite): committed when the block ends, unless the
-        request it serves has timed out (`COMMIT_GATE`), when it is rolled back. A `claim` taken before
-        the work leaves the request's time limit armed; any other commit disarms it. `gated=False`
-        for the clean-up after a failure, which must go through."""
+        """One write transaction: committed when the block ends, unless the request it serves has timed
+        out (`COMMIT_GATE`), when it is rolled back. On SQLite it holds the write lock (BEGIN IMMEDIATE)
+        from the block's start, so what blocks stamp (a quote's creation time) follows the order of the
+        writes. A `claim` taken before the work leaves the request's time limit armed; any other commit
+        disarms it. `gated=False` for the clean-up after a failure, which must go through."""
         gate = COMMIT_GATE.get() if gated else None
         with Session(self.engine, expire_on_commit=False) as session:
             try:
                 transaction = session.begin()
                 try:
+                    session.connection()  # the transaction begun now, not at the block's first statement
                     yield Repository(session, max_document_bytes=self.max_document_bytes)
                     if gate is not None and not gate.enter():
                         raise Unavailable("the request took longer than its time limit; nothing was stored")

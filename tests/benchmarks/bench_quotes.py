@@ -365,7 +365,8 @@ def verdicts(results: dict[int, list[Run]], clients: int) -> None:
     p99 = quote.percentile(99)
     # Each client sends again only once answered, so the mean latency is clients / throughput (Little's law,
     # L = λW: J. D. C. Little, 1961, "A proof for the queuing formula: L = λW", Operations Research 9(3),
-    # 383-387), and p99 is at least the mean: the p99 target is a throughput target in disguise.
+    # 383-387), and p99 is at least the mean: the p99 target needs that throughput, and beyond it a narrow
+    # spread (on 2 workers, a write waiting long for SQLite's write lock once widened it: engine.py).
     print(f"{'PASS' if p99 < QUOTE_P99_TARGET_MS else 'MISS'} {target} {at_load} (measured {p99:.1f} ms; "
           f"the mean is {clients} clients / {quote.throughput:.1f} req/s = {1000 * clients / quote.throughput:.1f} ms, "
           f"and p99 can be under {QUOTE_P99_TARGET_MS:.0f} ms only above "

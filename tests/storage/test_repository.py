@@ -4,7 +4,9 @@ and the repository's dedupe, paging, keys and foreign keys."""
 
 import json
 import math
+import sqlite3
 import threading
+import time
 from concurrent.futures import ThreadPoolExecutor
 from datetime import UTC, datetime, timedelta, timezone
 from pathlib import Path
@@ -14,10 +16,11 @@ import pytest
 from alembic.autogenerate import compare_metadata
 from alembic.runtime.migration import MigrationContext
 from sqlalchemy import Engine, text
-from sqlalchemy.exc import IntegrityError
+from sqlalchemy.exc import IntegrityError, OperationalError
 from sqlmodel import SQLModel
 
-from service.storage.engine import build_engine
+from service.storage import engine as engine_module
+from service.storage.engine import BUSY_TIMEOUT_S, FIRST_PAUSE_S, LONGEST_PAUSE_S, build_engine
 from service.storage.migrate import is_at_head, upgrade
 from service.storage.repository import CatalogRef, Storage, StoredCatalog, StoredQuote, new_id
 from service.storage.tables import IdempotencyRow
@@ -85,6 +88,89 @@ def test_connections_opening_a_brand_new_file_at_once_all_get_in(tmp_path: Path)
             for engine in engines:
                 engine.dispose()
     assert failures == []
+
+
+def _sqlite_path(engine: Engine) -> str:
+    path = engine.url.database
+    assert path
+    return path
+
+
+def _holding_the_write_lock(engine: Engine) -> sqlite3.Connection:
+    """Another connection to the database, holding its write lock until it commits."""
+    holder = sqlite3.connect(_sqlite_path(engine), isolation_level=None, check_same_thread=False)
+    holder.execute("BEGIN IMMEDIATE")
+    return holder
+
+
+@sqlite_only
+def test_a_write_block_holds_the_write_lock_from_its_start(storage: Storage, catalog: StoredCatalog) -> None:
+    """What a block stamps before its first statement (a quote's creation time) is stamped under the lock,
+    so writers stamp in the order they write."""
+    other = sqlite3.connect(_sqlite_path(storage.engine), isolation_level=None, timeout=0)
+    try:
+        with storage.writing() as repository:
+            with pytest.raises(sqlite3.OperationalError) as refused:
+                other.execute("BEGIN IMMEDIATE")
+            assert refused.value.sqlite_errorcode == sqlite3.SQLITE_BUSY
+            repository.add_quote(a_quote(catalog.id, NOW))
+        other.execute("BEGIN IMMEDIATE")  # and lets it go when it ends
+        other.execute("ROLLBACK")
+    finally:
+        other.close()
+
+
+@sqlite_only
+def test_a_writer_waits_for_the_lock_in_short_steps_and_gets_it_once_let_go(
+        storage: Storage, catalog: StoredCatalog, monkeypatch: pytest.MonkeyPatch) -> None:
+    """SQLite's own busy wait sleeps up to 100 ms at a time, so a waiting writer kept missing the gaps
+    between another worker's writes; the engine looks again after 0.1 ms, doubling to 1 ms."""
+    pauses: list[float] = []
+    waited = threading.Event()
+    sleep = time.sleep
+
+    def recorded(seconds: float) -> None:
+        pauses.append(seconds)
+        if len(pauses) >= 8:
+            waited.set()
+        sleep(seconds)
+    monkeypatch.setattr(time, "sleep", recorded)
+    holder = _holding_the_write_lock(storage.engine)
+    try:
+        with ThreadPoolExecutor(max_workers=1) as pool:
+            def write() -> None:
+                with storage.writing() as repository:
+                    repository.add_quote(a_quote(catalog.id, NOW))
+            writing = pool.submit(write)
+            assert waited.wait(timeout=BUSY_TIMEOUT_S)
+            holder.execute("COMMIT")
+            writing.result(timeout=BUSY_TIMEOUT_S)
+    finally:
+        holder.close()
+    assert pauses[:6] == pytest.approx([FIRST_PAUSE_S, 2 * FIRST_PAUSE_S, 4 * FIRST_PAUSE_S, 8 * FIRST_PAUSE_S,
+                                        LONGEST_PAUSE_S, LONGEST_PAUSE_S])
+    assert max(pauses) == LONGEST_PAUSE_S
+    with storage.reading() as repository:
+        assert repository.count_quotes() == 1
+    with storage.engine.connect() as connection:  # every connection back to SQLite's own busy timeout
+        assert connection.exec_driver_sql("PRAGMA busy_timeout").scalar() == BUSY_TIMEOUT_S * 1000
+
+
+@sqlite_only
+def test_a_writer_that_waits_longer_than_the_busy_timeout_fails_as_sqlite_fails_it(
+        storage: Storage, catalog: StoredCatalog, monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(engine_module, "BUSY_TIMEOUT_S", 0.05)
+    holder = _holding_the_write_lock(storage.engine)
+    try:
+        with pytest.raises(OperationalError, match="database is locked"), storage.writing() as repository:
+            repository.add_quote(a_quote(catalog.id, NOW))
+    finally:
+        holder.execute("ROLLBACK")
+        holder.close()
+    with storage.reading() as repository:
+        assert repository.count_quotes() == 0
+    with storage.engine.connect() as connection:
+        assert connection.exec_driver_sql("PRAGMA busy_timeout").scalar() == BUSY_TIMEOUT_S * 1000
 
 
 def test_the_migrations_reach_head_and_build_exactly_the_tables_of_the_models(engine: Engine) -> None:
