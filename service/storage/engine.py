@@ -86,7 +86,6 @@ def _switch_to_wal(cursor: Any) -> None:
             time.sleep(0.01)
 
 
-
 def _begin_writing(connection: Any) -> None:
     """BEGIN IMMEDIATE, waiting for the write lock up to BUSY_TIMEOUT_S as SQLite's busy timeout would,
     but looking again after pauses of FIRST_PAUSE_S doubling to LONGEST_PAUSE_S, so that a writer gets
