@@ -15,12 +15,12 @@ from typing import Any
 import pytest
 from alembic.autogenerate import compare_metadata
 from alembic.runtime.migration import MigrationContext
-from sqlalchemy import Engine, text
+from sqlalchemy import Engine, event, text
 from sqlalchemy.exc import IntegrityError, OperationalError
 from sqlmodel import SQLModel
 
 from service.storage import engine as engine_module
-from service.storage.engine import BUSY_TIMEOUT_S, FIRST_PAUSE_S, LONGEST_PAUSE_S, build_engine
+from service.storage.engine import BUSY_TIMEOUT_MS, BUSY_TIMEOUT_S, FIRST_PAUSE_S, LONGEST_PAUSE_S, build_engine
 from service.storage.migrate import is_at_head, upgrade
 from service.storage.repository import CatalogRef, Storage, StoredCatalog, StoredQuote, new_id
 from service.storage.tables import IdempotencyRow
@@ -103,6 +103,16 @@ def _holding_the_write_lock(engine: Engine) -> sqlite3.Connection:
     return holder
 
 
+def _busy_timeouts_at_checkin(engine: Engine) -> list[int]:
+    """The busy timeout of every connection as it goes back to the pool, from now on."""
+    seen: list[int] = []
+
+    def checkin(dbapi_connection: Any, _record: Any) -> None:
+        seen.append(dbapi_connection.execute("PRAGMA busy_timeout").fetchone()[0])
+    event.listen(engine, "checkin", checkin)
+    return seen
+
+
 @sqlite_only
 def test_a_write_block_holds_the_write_lock_from_its_start(storage: Storage, catalog: StoredCatalog) -> None:
     """What a block stamps before its first statement (a quote's creation time) is stamped under the lock,
@@ -136,6 +146,7 @@ def test_a_writer_waits_for_the_lock_in_short_steps_and_gets_it_once_let_go(
         sleep(seconds)
     monkeypatch.setattr(time, "sleep", recorded)
     holder = _holding_the_write_lock(storage.engine)
+    timeouts = _busy_timeouts_at_checkin(storage.engine)
     try:
         with ThreadPoolExecutor(max_workers=1) as pool:
             def write() -> None:
@@ -150,10 +161,9 @@ def test_a_writer_waits_for_the_lock_in_short_steps_and_gets_it_once_let_go(
     assert pauses[:6] == pytest.approx([FIRST_PAUSE_S, 2 * FIRST_PAUSE_S, 4 * FIRST_PAUSE_S, 8 * FIRST_PAUSE_S,
                                         LONGEST_PAUSE_S, LONGEST_PAUSE_S])
     assert max(pauses) == LONGEST_PAUSE_S
+    assert timeouts == [BUSY_TIMEOUT_MS]  # the writer's connection went back with SQLite's own timeout
     with storage.reading() as repository:
         assert repository.count_quotes() == 1
-    with storage.engine.connect() as connection:  # every connection back to SQLite's own busy timeout
-        assert connection.exec_driver_sql("PRAGMA busy_timeout").scalar() == BUSY_TIMEOUT_S * 1000
 
 
 @sqlite_only
@@ -161,16 +171,16 @@ def test_a_writer_that_waits_longer_than_the_busy_timeout_fails_as_sqlite_fails_
         storage: Storage, catalog: StoredCatalog, monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.setattr(engine_module, "BUSY_TIMEOUT_S", 0.05)
     holder = _holding_the_write_lock(storage.engine)
+    timeouts = _busy_timeouts_at_checkin(storage.engine)
     try:
         with pytest.raises(OperationalError, match="database is locked"), storage.writing() as repository:
             repository.add_quote(a_quote(catalog.id, NOW))
     finally:
         holder.execute("ROLLBACK")
         holder.close()
+    assert timeouts == [BUSY_TIMEOUT_MS]  # the failed writer's connection went back with SQLite's own timeout
     with storage.reading() as repository:
         assert repository.count_quotes() == 0
-    with storage.engine.connect() as connection:
-        assert connection.exec_driver_sql("PRAGMA busy_timeout").scalar() == BUSY_TIMEOUT_S * 1000
 
 
 def test_the_migrations_reach_head_and_build_exactly_the_tables_of_the_models(engine: Engine) -> None:
