@@ -102,8 +102,9 @@ def _begin_writing(connection: Any) -> None:
             try:
                 driver.execute("BEGIN IMMEDIATE")
                 return
-            except sqlite3.OperationalError as error:
-                if error.sqlite_errorcode & 0xFF != sqlite3.SQLITE_BUSY:  # busy, or busy in an extended code
+            except sqlite3.Error as error:
+                code = getattr(error, "sqlite_errorcode", None)
+                if code is None or code & 0xFF != sqlite3.SQLITE_BUSY:  # busy, or busy in an extended code
                     break
             time.sleep(pause)
             pause = min(2.0 * pause, LONGEST_PAUSE_S)

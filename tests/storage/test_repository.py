@@ -183,6 +183,24 @@ def test_a_writer_that_waits_longer_than_the_busy_timeout_fails_as_sqlite_fails_
         assert repository.count_quotes() == 0
 
 
+@sqlite_only
+def test_a_writer_refused_for_another_reason_than_busy_is_refused_at_once_in_sqlalchemys_words(
+        storage: Storage, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Only "busy" is waited out; any other refusal (here a connection that may only read) surfaces at once,
+    as SQLAlchemy's own BEGIN IMMEDIATE reports it, so the storage's error handling sees what it always saw."""
+    readonly = build_engine(str(storage.engine.url))
+    event.listen(readonly, "connect", lambda dbapi_connection, _record: dbapi_connection.execute(
+        "PRAGMA query_only=ON"))
+    pauses: list[float] = []
+    monkeypatch.setattr(time, "sleep", pauses.append)
+    try:
+        with pytest.raises(OperationalError, match="readonly database"), Storage(readonly).writing():
+            pass
+    finally:
+        readonly.dispose()
+    assert pauses == []
+
+
 def test_the_migrations_reach_head_and_build_exactly_the_tables_of_the_models(engine: Engine) -> None:
     assert not is_at_head(engine)
     upgrade(engine)
