@@ -15,9 +15,10 @@ WAL_SWITCH_TIMEOUT_S = 5.0
 BUSY_TIMEOUT_S = 5.0  # how long a statement waits for a lock another connection holds
 BUSY_TIMEOUT_MS = int(BUSY_TIMEOUT_S * 1000)
 # A writer waiting for the write lock looks again after these pauses, doubling from the first to the
-# last: SQLite's own wait sleeps 1, 2, 5, 10, 15, 20, 25, 25, 25, 50, 50 and 100 ms, and a writer
-# of one worker then kept missing the other's short gaps between writes (on 2 workers at 20 clients:
-# 1 wait in 1,000 took 79 ms or more, the longest 130 ms, against 5 and 8 ms with these pauses).
+# last. SQLite's own wait (sqliteDefaultBusyCallback in its main.c, from memory) sleeps 1, 2, 5, 10, 15,
+# 20, 25, 25, 25, 50, 50 and then 100 ms, and a writer of one worker then kept missing the other's short
+# gaps between writes (on 2 workers at 20 clients: 1 wait in 1,000 took 79 ms or more, the longest
+# 130 ms, against 5 and 8 ms with these pauses).
 FIRST_PAUSE_S, LONGEST_PAUSE_S = 0.0001, 0.001
 
 

@@ -106,7 +106,8 @@ def test_the_growth_catalog_is_the_demo_catalog_with_copies_of_its_first_offer(c
 
 def test_per_offer_is_the_least_squares_line() -> None:
     assert per_offer(GROWTH_COPIES, [2.0 + 0.5 * copies for copies in GROWTH_COPIES]) == pytest.approx((0.5, 2.0))
-    # Through points off a line, the ordinary least-squares line worked by hand: slope Sxy / Sxx and
+    # Through points off a line, the ordinary least-squares line (the textbook normal equations, common
+    # practice) worked by hand: slope Sxy / Sxx and
     # intercept mean y − slope × mean n for (1, 3.0), (2, 3.4), (4, 4.6), (8, 6.6): mean n 3.75, mean y
     # 4.4, Sxy = 15.0, Sxx = 28.75.
     assert per_offer((1, 2, 4, 8), (3.0, 3.4, 4.6, 6.6)) == pytest.approx((15.0 / 28.75, 4.4 - 3.75 * 15.0 / 28.75))
