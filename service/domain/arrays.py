@@ -97,18 +97,44 @@ def take_rows(value: Any, index: Any, scenarios: int) -> Any:
 def _taken(value: Any, index: Any, scenarios: int, seen: dict[int, Any]) -> Any:
     if isinstance(value, np.ndarray):
         return value[index] if value.ndim >= 1 and value.shape[0] == scenarios else value
+    if isinstance(value, _UNTAKEN):  # most leaves of an evaluation: names, flags, catalog figures
+        return value
     if isinstance(value, dict):
         return {name: _taken(item, index, scenarios, seen) for name, item in value.items()}
     if isinstance(value, tuple):
         return tuple(_taken(item, index, scenarios, seen) for item in value)
     if is_dataclass(value) and not isinstance(value, type):
         if id(value) not in seen:  # `value` outlives the call, so its id is not reused meanwhile
-            at_rows = getattr(value, "at_rows", None)
-            seen[id(value)] = at_rows(index, scenarios) if at_rows is not None else replace(
-                value, **{f.name: _taken(getattr(value, f.name), index, scenarios, seen) for f in fields(value)
-                          if f.init})
+            seen[id(value)] = _taken_dataclass(value, index, scenarios, seen)
         return seen[id(value)]
     return value
+
+
+_UNTAKEN = (str, float, int, type(None))  # told apart first: with bool (an int), most leaves that are no arrays
+
+
+def _taken_dataclass(value: Any, index: Any, scenarios: int, seen: dict[int, Any]) -> Any:
+    """A dataclass at some rows: its own `at_rows` where it has one; itself where none of its fields runs
+    over the scenarios (a catalog's node type, site or offer: nothing to take, and nothing made again);
+    else a copy with each field taken."""
+    at_rows = getattr(value, "at_rows", None)
+    if at_rows is not None:
+        return at_rows(index, scenarios)
+    given = {name: getattr(value, name) for name in _init_fields(type(value))}
+    taken = {name: _taken(item, index, scenarios, seen) for name, item in given.items()}
+    if all(taken[name] is item for name, item in given.items()):
+        return value
+    return replace(value, **taken)
+
+
+def _init_fields(kind: type) -> tuple[str, ...]:
+    """The fields a dataclass's constructor takes, by class: `dataclasses.fields` builds them anew each call."""
+    if kind not in _INIT_FIELDS:
+        _INIT_FIELDS[kind] = tuple(f.name for f in fields(kind) if f.init)
+    return _INIT_FIELDS[kind]
+
+
+_INIT_FIELDS: dict[type, tuple[str, ...]] = {}
 
 
 def percentiles(data: Floats, q: tuple[float, ...]) -> Floats:

@@ -322,8 +322,7 @@ def _evaluate(venue: _Venue, term: str, limit: NodeLimit, charges: Charges, phys
     lines = {item: _per_scenario(amount, shape) for item, amount in lines_at.items()}
     min_nodes = broadcast(physics.min_nodes, shape)
     pinned = physics.pinned_nodes
-    # The nodes the option needs: the memory minimum, or the pinned count when one is pinned.
-    needed = min_nodes if pinned is None else broadcast(pinned, shape)
+    needed = min_nodes if pinned is None else broadcast(pinned, shape)  # OptionResult.needed_nodes
     mask = _screen(venue, physics.hardware, limit, min_nodes, needed, choice.any_fits, choice.meets_deadline,
                    shape=shape)
     if pinned is not None:
@@ -370,18 +369,19 @@ def sum_lines(lines: Iterable[Floats]) -> Floats:
     return functools.reduce(np.add, lines)
 
 
-def _screen(
-    venue: _Venue, hardware: Hardware, limit: NodeLimit, min_nodes: Floats, needed: Floats, any_fits: np.ndarray,
-    meets_deadline: np.ndarray, *, shape: tuple[int, ...],
-) -> Ints:
+def _screen(venue: _Venue, hardware: Hardware, limit: NodeLimit, min_nodes: Floats, needed: Floats,
+            any_fits: np.ndarray, meets_deadline: np.ndarray, *, shape: tuple[int, ...]) -> Ints:
     mask = np.zeros(shape, dtype=np.int64)
     if not admits(venue.allowed, venue.jurisdiction):
         mask |= screens.RESIDENCY
     if venue.owned_only:
         mask |= screens.OWNED_ONLY
-    no_precision = broadcast(np.isnan(as_floats(hardware.sustained_flops_per_accelerator)), shape)
+    no_precision = np.isnan(as_floats(hardware.sustained_flops_per_accelerator))
     held = np.isfinite(min_nodes)  # some node count holds the model
-    # Each screen is set only where some scenario fails it: most pass everywhere (a sweep's whole chunk).
+    # Each screen is set only where some scenario fails it: most options pass them all (a sweep's whole chunk).
+    if held.all() and any_fits.all() and meets_deadline.all() and not no_precision.any():
+        return mask
+    no_precision = broadcast(no_precision, shape)
     short = held & ~any_fits & ~no_precision
     if short.any():
         mask |= np.where(short & (np.minimum(limit.venue, limit.request) < needed), screens.CAPACITY, 0)
