@@ -537,6 +537,21 @@ def test_taking_rows_keeps_an_options_energy_made_when_read_and_what_its_options
     np.testing.assert_array_equal(taken["b"][1].nodes, [24.0, 8.0])
 
 
+def test_taking_rows_leaves_a_dataclass_with_nothing_to_take_as_it_is_and_copies_one_with_rows() -> None:
+    """`arrays.take_rows` through dataclasses: one none of whose fields runs over the scenarios (a venue's
+    hardware of one value per figure, as a catalog's node type or site) is the same object, nothing built
+    again; one with a figure per scenario is a copy with those rows, its other figures shared (demo figures)."""
+    same = builders.hardware()
+    varied = builders.hardware(staging_seconds=np.linspace(0.0, 900.0, 5))
+    taken = take_rows({"same": same, "varied": (varied, "a name", 2.5, None)}, np.array([4, 1]), 5)
+    assert taken["same"] is same
+    copy_of, *leaves = taken["varied"]
+    assert copy_of is not varied and leaves == ["a name", 2.5, None]
+    np.testing.assert_array_equal(copy_of.staging_seconds, [900.0, 225.0])
+    assert all(getattr(copy_of, f.name) is getattr(varied, f.name)
+               for f in dataclasses.fields(varied) if f.name != "staging_seconds")
+
+
 def test_every_row_is_told_apart_without_reading_it_and_taking_it_takes_everything() -> None:
     """`arrays.every_row`: the index a chunk's chosen layouts are read at where every scenario chose from one
     block. It is known by identity, so an equal index made elsewhere is still read as an index; where it is
