@@ -87,8 +87,9 @@ def take_rows(value: Any, index: Any, scenarios: int) -> Any:
     """`value` at some of its scenarios: every array whose leading axis runs over the `scenarios`
     (when there is more than one) taken at `index`, a slice or an index array, through dataclasses,
     dicts and tuples; everything else as it is. A dataclass met twice (a node type its options share)
-    is taken once, and stays shared. One whose figures are made when first read takes its own rows
-    (its `at_rows`), so that they are still made only when read."""
+    is taken once, and stays shared; one with nothing to take (a catalog's node type, site or offer) is
+    itself. One whose figures are made when first read takes its own rows (its `at_rows`), so that they
+    are still made only when read."""
     if scenarios <= 1 or (is_every_row(index) and index.shape[0] == scenarios):
         return value
     return _taken(value, index, scenarios, {})
@@ -114,9 +115,8 @@ _UNTAKEN = (str, float, int, type(None))  # told apart first: with bool (an int)
 
 
 def _taken_dataclass(value: Any, index: Any, scenarios: int, seen: dict[int, Any]) -> Any:
-    """A dataclass at some rows: its own `at_rows` where it has one; itself where none of its fields runs
-    over the scenarios (a catalog's node type, site or offer: nothing to take, and nothing made again);
-    else a copy with each field taken."""
+    """A dataclass at some rows: by its own `at_rows` where it has one; itself where no field changed
+    (nothing built again); else a copy with each field taken."""
     at_rows = getattr(value, "at_rows", None)
     if at_rows is not None:
         return at_rows(index, scenarios)
