@@ -98,7 +98,7 @@ def take_rows(value: Any, index: Any, scenarios: int) -> Any:
 def _taken(value: Any, index: Any, scenarios: int, seen: dict[int, Any]) -> Any:
     if isinstance(value, np.ndarray):
         return value[index] if value.ndim >= 1 and value.shape[0] == scenarios else value
-    if isinstance(value, _UNTAKEN):  # most leaves of an evaluation: names, flags, catalog figures
+    if isinstance(value, _UNTAKEN):  # most leaves of an evaluation: told apart before the containers
         return value
     if isinstance(value, dict):
         return {name: _taken(item, index, scenarios, seen) for name, item in value.items()}
@@ -111,7 +111,7 @@ def _taken(value: Any, index: Any, scenarios: int, seen: dict[int, Any]) -> Any:
     return value
 
 
-_UNTAKEN = (str, float, int, type(None))  # told apart first: with bool (an int), most leaves that are no arrays
+_UNTAKEN = (str, float, int, type(None))  # names, numbers and flags (a bool is an int), nothing to take
 
 
 def _taken_dataclass(value: Any, index: Any, scenarios: int, seen: dict[int, Any]) -> Any:
