@@ -1,7 +1,7 @@
 """Array type aliases shared by the core, and the helpers every part of it uses on arrays."""
 
 from dataclasses import fields, is_dataclass, replace
-from functools import lru_cache
+from functools import cache, lru_cache
 from typing import Any, TypeAlias
 
 import numpy as np
@@ -120,21 +120,17 @@ def _taken_dataclass(value: Any, index: Any, scenarios: int, seen: dict[int, Any
     at_rows = getattr(value, "at_rows", None)
     if at_rows is not None:
         return at_rows(index, scenarios)
-    given = {name: getattr(value, name) for name in _init_fields(type(value))}
+    given = {name: getattr(value, name) for name in _init_fields(value.__class__)}
     taken = {name: _taken(item, index, scenarios, seen) for name, item in given.items()}
     if all(taken[name] is item for name, item in given.items()):
         return value
     return replace(value, **taken)
 
 
-def _init_fields(kind: type) -> tuple[str, ...]:
+@cache
+def _init_fields(kind: Any) -> tuple[str, ...]:
     """The fields a dataclass's constructor takes, by class: `dataclasses.fields` builds them anew each call."""
-    if kind not in _INIT_FIELDS:
-        _INIT_FIELDS[kind] = tuple(f.name for f in fields(kind) if f.init)
-    return _INIT_FIELDS[kind]
-
-
-_INIT_FIELDS: dict[type, tuple[str, ...]] = {}
+    return tuple(f.name for f in fields(kind) if f.init)
 
 
 def percentiles(data: Floats, q: tuple[float, ...]) -> Floats:
