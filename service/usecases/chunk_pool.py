@@ -15,10 +15,8 @@ from concurrent.futures import Future, ProcessPoolExecutor
 from dataclasses import dataclass
 from typing import Any, overload
 
-import numpy as np
-
 from service.domain import compiled
-from service.domain.arrays import Floats
+from service.domain.arrays import Floats, carrying_infinities
 from service.domain.catalog import Catalog
 from service.domain.sweep import ChunkResult, ChunkTally, SweepPlan, Tallying, evaluate_chunk
 
@@ -58,9 +56,7 @@ def sweep_kernel(scenarios: int) -> compiled.Kernel | None:
 
 def evaluate(catalog: Catalog, plan: SweepPlan, inputs: Mapping[str, Floats],
              kernel: compiled.Kernel | None = None, *, breakeven: bool = True) -> ChunkResult:
-    # Extreme but valid figures make infinite times, which the model screens out; numpy's
-    # warnings about them would only be noise (as in quoting.quote).
-    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+    with carrying_infinities():
         return evaluate_chunk(catalog, plan, inputs, kernel=kernel, breakeven=breakeven)
 
 

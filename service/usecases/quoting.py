@@ -8,13 +8,13 @@ from collections.abc import Callable
 from datetime import datetime
 from typing import Any
 
-import numpy as np
 import pycountry
 
 from service import __version__
 from service.contract.catalog import CatalogIn
 from service.contract.document import quote_document
 from service.contract.request import MeasuredWorkIn, QuoteRequestIn
+from service.domain.arrays import carrying_infinities
 from service.domain.assumptions import DEFAULTS
 from service.domain.evaluate import CampaignEvaluation
 from service.domain.split import evaluate_with_splits
@@ -73,10 +73,7 @@ def quote(catalog: CatalogIn, request: QuoteRequestIn, *,
         raise InvalidInput("the request does not match the catalog", problems)
     domain_catalog = catalog.to_domain()
     campaign, options, overrides = request.to_domain()
-    # Extreme but valid figures (a utilisation or an MTBF of 1e-300) make infinite step and wall
-    # times; the model carries inf through and screens such options out as infeasible. numpy's
-    # warnings about it would only be stray non-JSON lines on stderr.
-    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+    with carrying_infinities():
         evaluation = evaluate(domain_catalog, campaign, options, overrides)
         return quote_document(domain_catalog, request, evaluation)
 

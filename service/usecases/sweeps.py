@@ -13,6 +13,7 @@ import numpy as np
 from service.contract.catalog import CatalogIn
 from service.contract.document import Money
 from service.contract.sweep import DistributionIn, SweepIn
+from service.domain.arrays import carrying_infinities
 from service.domain.catalog import Catalog
 from service.domain.explain import CAUTIONS
 from service.domain.sweep import (
@@ -203,7 +204,8 @@ def tornado_bars(prepared: PreparedSweep) -> list[dict[str, Any]] | None:
         centres[path] = value
     ranges = {path: _closed_range(input_path(path)[0]) for path in plan.paths}
     money = Money(prepared.currency)
-    bars = tornado(prepared.catalog, plan, centres, ranges, prepared.request.tornado.swing)
+    with carrying_infinities():  # as a chunk's evaluation is (chunk_pool.evaluate)
+        bars = tornado(prepared.catalog, plan, centres, ranges, prepared.request.tornado.swing)
     return [{"input": bar.path, "centre": bar.centre, "low": bar.low, "high": bar.high,
              "gap_at_low": money(bar.gap_low), "gap_at_high": money(bar.gap_high),
              "gap_at_centre": money(bar.gap_centre), "effect": money(bar.effect), "currency": prepared.currency}

@@ -127,6 +127,24 @@ async def test_a_small_sweep_is_answered_at_once_with_summary_rows_and_tornado(c
 
 
 @pytest.mark.anyio
+async def test_a_sweep_no_venue_can_run_still_answers_its_tornado_without_numpy_warnings(
+        client: httpx.AsyncClient) -> None:
+    """A trillion parameters is a valid model that fits no venue of the demo catalog: every option is
+    infeasible, so every total and gap is infinite and the tornado's gaps are empty. The tornado's
+    evaluation carries the infinities as quotes and chunks do, without numpy's warnings (which the
+    test configuration turns into errors, and a served sweep into a 500)."""
+    sweep = small_grid()
+    sweep["base"]["campaign"]["work"]["parameters"] = 1e12
+    response = await client.post("/v1/sweeps", json=sweep)
+    assert response.status_code == 201, response.text
+    result = response.json()["result"]
+    assert all(row["cheapest"] is None for row in result["rows"])
+    bars = result["tornado"]
+    assert [bar["input"] for bar in bars] == ["overrides.electricity_price_per_kwh", "campaign.work.tokens"]
+    assert all(bar[gap] is None for bar in bars for gap in ("gap_at_low", "gap_at_high", "gap_at_centre", "effect"))
+
+
+@pytest.mark.anyio
 async def test_a_large_sweep_is_accepted_and_finishes_with_the_synchronous_summary(
     client: httpx.AsyncClient,
 ) -> None:
