@@ -15,10 +15,10 @@ ArrayLike: TypeAlias = npt.ArrayLike
 
 def carrying_infinities() -> np.errstate:
     """numpy's warnings off for overflow, division by zero and invalid values, around a use case's
-    evaluation. Extreme but valid figures (an MTBF of 1e-300, a model no venue holds) make infinite step
-    and wall times and totals, and NaN where two meet; the model carries them through and screens the
-    options they make out, so the warnings would only be stray non-JSON lines on stderr (and errors
-    where warnings are errors)."""
+    evaluation. Extreme but valid figures (an MTBF of 1e-300, a model no venue trains in time) make
+    infinite step and wall times and totals, and NaN where two meet; the model carries them through and
+    screens the options they make out, so the warnings would only be stray non-JSON lines on stderr
+    (and errors where warnings are errors)."""
     return np.errstate(over="ignore", divide="ignore", invalid="ignore")
 
 

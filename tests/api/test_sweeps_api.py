@@ -129,8 +129,9 @@ async def test_a_small_sweep_is_answered_at_once_with_summary_rows_and_tornado(c
 @pytest.mark.anyio
 async def test_a_sweep_no_venue_can_run_still_answers_its_tornado_without_numpy_warnings(
         client: httpx.AsyncClient) -> None:
-    """A trillion parameters is a valid model that fits no venue of the demo catalog: every option is
-    infeasible, so every total and gap is infinite and the tornado's gaps are empty. The tornado's
+    """A trillion parameters is a valid model that no venue of the demo catalog can train in time (each
+    would take over a year; some also lack the nodes or the residency): every option is infeasible, so
+    every best total is infinite, every gap inf - inf, and the tornado's gaps are empty. The tornado's
     evaluation carries the infinities as quotes and chunks do, without numpy's warnings (which the
     test configuration turns into errors, and a served sweep into a 500)."""
     sweep = small_grid()
