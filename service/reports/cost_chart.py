@@ -46,6 +46,9 @@ def cost_figure_svg(document: Json, *, prefix: str = "chart-costs") -> str:
         ax = figure.add_axes((left, 0.62 / height, 0.9 - left, 1 - 1.1 / height))
         ax.grid(axis="y", visible=False)
         widest = max(float(o["cost"]["total"]) for o in options)
+        # Where every option rounds to nothing (a smoke test of seconds), the bars have no width: the axis
+        # spans one currency unit, not the empty span matplotlib would widen with a warning.
+        span = widest if widest > 0 else 1.0
         present: list[str] = []
         for row, option in enumerate(options):
             y = len(options) - 1 - row
@@ -66,13 +69,13 @@ def cost_figure_svg(document: Json, *, prefix: str = "chart-costs") -> str:
                     present.append(key)
             total = float(option["cost"]["total"])
             gid = f"cost-{rank}-total"
-            ax.text(max(left_pos, 0.0) + widest * 0.012, y, money_whole(total, currency), va="center",
+            ax.text(max(left_pos, 0.0) + span * 0.012, y, money_whole(total, currency), va="center",
                     ha="left", fontsize=8.5, fontweight="bold" if row == 0 else "normal", gid=gid)
             groups[gid] = {"rank": str(rank), "total": f"{total:.2f}"}
         ax.set_yticks(range(len(options)),
                       [f"{o['rank']}. {o['venue']['id']}\n{term_label(o['term'])}" for o in reversed(options)],
                       fontsize=8.5, linespacing=1.3)
-        ax.set_xlim(0.0, widest * 1.16)
+        ax.set_xlim(0.0, span * 1.16)
         ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _pos: number(v)))
         ax.set_xlabel(f"total cost of the campaign ({currency})")
         labels = dict(category_labels())

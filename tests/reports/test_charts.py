@@ -14,7 +14,7 @@ import pytest
 from service.reports.breakeven_chart import breakeven_svg
 from service.reports.cost_chart import cost_figure_svg
 from service.reports.figures import charted_options
-from tests.reports.conftest import Json, offline_document
+from tests.reports.conftest import Json, document_for, offline_document
 
 SVG = "{http://www.w3.org/2000/svg}"
 
@@ -151,6 +151,21 @@ def test_the_cost_chart_leaves_out_options_over_ten_times_the_cheapest() -> None
 def test_with_no_feasible_option_the_cost_chart_says_so() -> None:
     svg = cost_figure_svg(offline_document("residency-blocked"))
     assert "No feasible option" in " ".join(ET.fromstring(svg.encode("utf-8")).itertext())
+
+
+def test_a_campaign_whose_every_option_costs_nothing_draws_its_bars_on_a_unit_axis() -> None:
+    """A smoke test of a second's work (a million samples at a billion a second): every feasible option
+    costs 0.00 once rounded to the cent, so the widest bar is 0. The chart spans one currency unit rather
+    than the empty span matplotlib widens with a warning (an error under the tests' settings, and a 500
+    from the report's route)."""
+    document = document_for({"campaign": {"name": "smoke-test", "team": "language", "work": {
+        "kind": "measured", "reference_node_type": "b176-x8", "samples": 1e6,
+        "samples_per_second_per_accelerator": 1e9}}})
+    shown, _left_out = charted_options(document)
+    assert shown and all(option["cost"]["total"] == 0.0 for option in shown)
+    totals = {gid: g.attrib["data-total"] for gid, g in groups(cost_figure_svg(document), "cost-").items()
+              if gid.endswith("-total")}
+    assert totals == {f"cost-{option['rank']}-total": "0.00" for option in shown}
 
 
 def test_every_svg_id_is_unique_and_every_reference_resolves(any_document: Json) -> None:
