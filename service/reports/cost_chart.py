@@ -46,7 +46,7 @@ def cost_figure_svg(document: Json, *, prefix: str = "chart-costs") -> str:
         ax = figure.add_axes((left, 0.62 / height, 0.9 - left, 1 - 1.1 / height))
         ax.grid(axis="y", visible=False)
         widest = max(float(o["cost"]["total"]) for o in options)
-        # Where every option rounds to nothing (a smoke test of seconds), the bars have no width: the axis
+        # Where every option rounds to nothing (a smoke test of milliseconds), the bars have no width: the axis
         # spans one currency unit, not the empty span matplotlib would widen with a warning.
         span = widest if widest > 0 else 1.0
         present: list[str] = []

@@ -154,10 +154,10 @@ def test_with_no_feasible_option_the_cost_chart_says_so() -> None:
 
 
 def test_a_campaign_whose_every_option_costs_nothing_draws_its_bars_on_a_unit_axis() -> None:
-    """A smoke test of a second's work (a million samples at a billion a second): every feasible option
-    costs 0.00 once rounded to the cent, so the widest bar is 0. The chart spans one currency unit rather
-    than the empty span matplotlib widens with a warning (an error under the tests' settings, and a 500
-    from the report's route)."""
+    """A smoke test (a million samples at a billion a second per accelerator: a millisecond's work): every
+    feasible option costs 0.00 once rounded to the cent, so the widest bar is 0. The chart spans one
+    currency unit rather than the empty span matplotlib widens with a warning (an error under the tests'
+    settings, and a 500 from the report's route)."""
     document = document_for({"campaign": {"name": "smoke-test", "team": "language", "work": {
         "kind": "measured", "reference_node_type": "b176-x8", "samples": 1e6,
         "samples_per_second_per_accelerator": 1e9}}})
